@@ -1,0 +1,148 @@
+"""Memory planning: what a build or a solve will need, estimated before any allocation."""
+
+from __future__ import annotations
+
+import os
+from dataclasses import dataclass
+from pathlib import Path
+
+import numpy as np
+
+from fockmill._expr import LadderExpr
+from fockmill._prepare import prepare
+from fockmill._space import FockSpace
+
+__all__ = ["MemoryEstimate", "available_memory", "estimate_memory"]
+
+_INT32_MAX = np.iinfo(np.int32).max
+
+
+def available_memory() -> int | None:
+    """Bytes of memory this process can still use, or None when unknown.
+
+    Reads ``MemAvailable`` from ``/proc/meminfo`` and, when the process runs in a cgroup
+    with a memory limit, the room left under that limit; the smaller one wins.
+    """
+    candidates: list[int] = []
+    try:
+        for line in Path("/proc/meminfo").read_text().splitlines():
+            if line.startswith("MemAvailable:"):
+                candidates.append(int(line.split()[1]) * 1024)
+                break
+    except (OSError, ValueError, IndexError):
+        pass
+    try:
+        limit = Path("/sys/fs/cgroup/memory.max").read_text().strip()
+        used = Path("/sys/fs/cgroup/memory.current").read_text().strip()
+        if limit != "max":
+            candidates.append(max(int(limit) - int(used), 0))
+    except (OSError, ValueError):
+        pass
+    if not candidates and hasattr(os, "sysconf"):
+        try:
+            candidates.append(os.sysconf("SC_AVPHYS_PAGES") * os.sysconf("SC_PAGE_SIZE"))
+        except (ValueError, OSError):
+            pass
+    return min(candidates) if candidates else None
+
+
+@dataclass(frozen=True)
+class MemoryEstimate:
+    """Sizes of the objects a build or solve would create.
+
+    Attributes
+    ----------
+    dim : int
+        Number of basis states.
+    nnz : int
+        Stored entries of the CSR matrix (exact when ``nnz_exact``, else estimated from
+        a stratified sample of rows, with standard error ``nnz_std_error``).
+    nnz_exact : bool
+        Whether every row was counted.
+    nnz_std_error : float
+        Standard error of ``nnz``.
+    index_dtype, value_dtype : numpy.dtype
+        Element types the CSR arrays will have.
+    csr_bytes : int
+        Bytes of the finished CSR matrix (``indptr`` + ``indices`` + ``data``).
+    build_peak_bytes : int
+        Peak bytes while building (the matrix plus one row-count array).
+    vector_bytes : int
+        Bytes of one state vector.
+    available_bytes : int or None
+        Memory available now (see :func:`available_memory`).
+    """
+
+    dim: int
+    nnz: int
+    nnz_exact: bool
+    nnz_std_error: float
+    index_dtype: np.dtype[np.signedinteger]
+    value_dtype: np.dtype[np.inexact]
+    csr_bytes: int
+    build_peak_bytes: int
+    vector_bytes: int
+    available_bytes: int | None
+
+    def krylov_bytes(self, vectors: int) -> int:
+        """Bytes of ``vectors`` state vectors (a Krylov basis, say)."""
+        return vectors * self.vector_bytes
+
+    def __str__(self) -> str:
+        gib = 2.0**30
+        avail = "unknown" if self.available_bytes is None else f"{self.available_bytes / gib:.2f}"
+        return (
+            f"dim={self.dim:,}, nnz≈{self.nnz:,}{'' if self.nnz_exact else ' (sampled)'}, "
+            f"CSR {self.csr_bytes / gib:.2f} GiB (peak {self.build_peak_bytes / gib:.2f} GiB "
+            f"while building), one vector {self.vector_bytes / gib:.3f} GiB, "
+            f"available {avail} GiB"
+        )
+
+
+def estimate_memory(
+    expr: LadderExpr,
+    space: FockSpace,
+    *,
+    samples: int = 2048,
+    threads: int | None = None,
+) -> MemoryEstimate:
+    """Estimate the memory a CSR build and the state vectors of ``expr`` on ``space`` need.
+
+    Nothing of the matrix's size is allocated: small spaces are counted exactly, larger
+    ones from ``samples`` rows drawn one from each of equal strata of the basis.
+
+    Parameters
+    ----------
+    expr : LadderExpr
+        The operator.
+    space : FockSpace
+        The space it acts on.
+    samples : int
+        Rows to sample for large spaces.
+    threads : int, optional
+        Threads for the count (default: all).
+
+    Returns
+    -------
+    MemoryEstimate
+    """
+    op = prepare(expr, space)
+    nnz_f, std_error, exact, _ = op.estimate_nnz(samples, threads)
+    nnz = round(nnz_f)
+    dim = space.dim
+    wide = nnz > _INT32_MAX or dim > _INT32_MAX
+    index_dtype = np.dtype(np.int64 if wide else np.int32)
+    value_dtype = np.dtype(np.float64 if op.is_real else np.complex128)
+    csr = (dim + 1) * index_dtype.itemsize + nnz * (index_dtype.itemsize + value_dtype.itemsize)
+    return MemoryEstimate(
+        dim=dim,
+        nnz=nnz,
+        nnz_exact=bool(exact),
+        nnz_std_error=float(std_error),
+        index_dtype=index_dtype,
+        value_dtype=value_dtype,
+        csr_bytes=csr,
+        build_peak_bytes=csr + 8 * (dim + 1),
+        vector_bytes=dim * value_dtype.itemsize,
+        available_bytes=available_memory(),
+    )

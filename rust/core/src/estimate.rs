@@ -1,0 +1,76 @@
+//! Cheap estimates of the stored entries of a matrix before building it: exact for
+//! small spaces, from a stratified sample of rows otherwise.
+
+use crate::build::assemble_row;
+use crate::error::CoreResult;
+use crate::parallel::{Interrupt, Runner};
+use crate::scalar::Scalar;
+use crate::space::FockSpace;
+use crate::terms::{Operator, RowState};
+use crate::vecops::splitmix64;
+use rayon::prelude::*;
+
+/// Estimated number of stored entries of a matrix.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct NnzEstimate {
+    /// Estimated (or exact) number of stored entries.
+    pub nnz: f64,
+    /// Standard error of the estimate (0 when exact).
+    pub std_error: f64,
+    /// Whether every row was counted.
+    pub exact: bool,
+    /// Largest number of entries in a counted row.
+    pub max_row: u64,
+}
+
+/// Estimate the stored entries of `op` on `space` from `samples` rows (all rows when
+/// the space has at most `4 × samples` states).
+///
+/// # Errors
+/// [`crate::CoreError::Interrupted`] when `interrupt` fires during an exact count.
+pub fn estimate_nnz<S: Scalar>(
+    space: &FockSpace,
+    op: &Operator<S>,
+    samples: usize,
+    runner: &Runner,
+    interrupt: &dyn Interrupt,
+) -> CoreResult<NnzEstimate> {
+    let dim = space.dim();
+    let samples = samples.max(1) as u64;
+    if dim <= 4 * samples {
+        let counts = crate::build::row_counts(space, op, runner, interrupt)?;
+        return Ok(NnzEstimate {
+            nnz: counts.iter().sum::<u64>() as f64,
+            std_error: 0.0,
+            exact: true,
+            max_row: counts.iter().copied().max().unwrap_or(0),
+        });
+    }
+    // One row drawn uniformly from each of `samples` equal strata of the basis order.
+    let counts: Vec<u64> = runner.install(|| {
+        (0..samples)
+            .into_par_iter()
+            .map_init(Vec::new, |scratch, s| {
+                let lo = s * dim / samples;
+                let hi = (s + 1) * dim / samples;
+                let idx = lo + splitmix64(s ^ 0xA5A5_5A5A) % (hi - lo).max(1);
+                match RowState::at(space, idx) {
+                    Ok(row) => {
+                        assemble_row(space, op, &row, scratch);
+                        scratch.len() as u64
+                    }
+                    Err(_) => 0,
+                }
+            })
+            .collect()
+    });
+    let n = counts.len() as f64;
+    let mean = counts.iter().sum::<u64>() as f64 / n;
+    let var = counts.iter().map(|&c| (c as f64 - mean).powi(2)).sum::<f64>() / (n - 1.0).max(1.0);
+    Ok(NnzEstimate {
+        nnz: mean * dim as f64,
+        std_error: (var / n).sqrt() * dim as f64,
+        exact: false,
+        max_row: counts.iter().copied().max().unwrap_or(0),
+    })
+}

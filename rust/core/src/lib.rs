@@ -1,0 +1,31 @@
+//! fockmill-core: the pure-Rust engine of fockmill.
+//!
+//! Multi-mode truncated Fock spaces restricted to a conserved (weighted, optionally
+//! modular) number of quanta, ranked in O(M) from counting tables ([`space`]);
+//! normal-ordered ladder-operator terms acting on basis states ([`terms`]); a
+//! row-parallel two-pass CSR build ([`build`]); matrix-free products ([`matvec`]);
+//! observables from one pass over the basis ([`observe`]); a low-memory Lanczos ground
+//! state ([`lanczos`]); and cheap size estimates ([`estimate`]).
+//!
+//! Nothing here knows about Python; the binding crate converts types and errors.
+#![forbid(unsafe_code)]
+#![warn(missing_docs)]
+
+pub mod build;
+pub mod error;
+pub mod estimate;
+pub mod lanczos;
+pub mod matvec;
+pub mod observe;
+pub mod parallel;
+pub mod scalar;
+pub mod space;
+pub mod terms;
+pub mod tridiag;
+pub mod vecops;
+
+pub use error::{CoreError, CoreResult};
+pub use parallel::{Interrupt, NoInterrupt, Runner};
+pub use scalar::Scalar;
+pub use space::{Constraint, FockSpace};
+pub use terms::{Operator, RawTerm, RowState};

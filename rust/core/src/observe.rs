@@ -1,0 +1,220 @@
+//! Per-state quantities computed in one pass over the basis, without building a matrix:
+//! occupation tables, ranks of given states, expectation values of monomials and the
+//! occupation distribution of every mode.
+
+use crate::error::{CoreError, CoreResult};
+use crate::parallel::{Interrupt, Runner};
+use crate::scalar::Scalar;
+use crate::space::FockSpace;
+use crate::terms::{Operator, RawTerm, RowState};
+use num_complex::Complex64;
+
+/// Element types for occupation tables.
+pub trait Occupation: Copy + Send + Sync + Default + 'static {
+    /// Convert an occupation known to fit.
+    fn from_u32(v: u32) -> Self;
+}
+impl Occupation for u8 {
+    fn from_u32(v: u32) -> Self {
+        v as u8
+    }
+}
+impl Occupation for u16 {
+    fn from_u32(v: u32) -> Self {
+        v as u16
+    }
+}
+
+/// Fill `out` (row-major, `dim × modes`) with the occupations of every basis state.
+///
+/// # Errors
+/// [`CoreError::Shape`] when `out` has the wrong length; [`CoreError::Interrupted`].
+pub fn occupations_into<T: Occupation>(
+    space: &FockSpace,
+    out: &mut [T],
+    runner: &Runner,
+    interrupt: &dyn Interrupt,
+) -> CoreResult<()> {
+    let m = space.modes();
+    if out.len() as u64 != space.dim() * m as u64 {
+        return Err(CoreError::Shape("occupation table has the wrong size".into()));
+    }
+    let mut rows: Vec<&mut [T]> = out.chunks_mut(m).collect();
+    runner.for_row_chunks(&mut rows, interrupt, |first, chunk| {
+        let mut row = RowState::at(space, first)?;
+        for (i, dst) in chunk.iter_mut().enumerate() {
+            if i > 0 {
+                row.advance(space);
+            }
+            for (d, &v) in dst.iter_mut().zip(&row.occ) {
+                *d = T::from_u32(v);
+            }
+        }
+        Ok(())
+    })
+}
+
+/// Ranks of `count` states given row-major in `occ` (`count × modes`); `-1` for a state
+/// that is not in the space (negative or too large occupations, or outside the sector).
+///
+/// # Errors
+/// [`CoreError::Shape`] when `occ.len()` is not `count × modes`.
+pub fn ranks(space: &FockSpace, occ: &[i64], runner: &Runner) -> CoreResult<Vec<i64>> {
+    let m = space.modes();
+    if occ.len() % m != 0 {
+        return Err(CoreError::Shape(format!(
+            "occupations must have {m} columns (one per mode); got {} values",
+            occ.len()
+        )));
+    }
+    use rayon::prelude::*;
+    Ok(runner.install(|| {
+        occ.par_chunks(m)
+            .map_init(
+                || vec![0u32; m],
+                |buf, state| {
+                    for (b, &v) in buf.iter_mut().zip(state) {
+                        if !(0..=u32::MAX as i64).contains(&v) {
+                            return -1;
+                        }
+                        *b = v as u32;
+                    }
+                    space.rank(buf).map_or(-1, |r| r as i64)
+                },
+            )
+            .collect()
+    }))
+}
+
+/// `⟨ψ| m_t |ψ⟩` for each monomial `m_t` (coefficient 1), in the order given.
+///
+/// # Errors
+/// [`CoreError::InvalidArgument`] when two monomials are equal; the errors of
+/// [`Operator::new`]; [`CoreError::Shape`] when `psi` has the wrong length.
+pub fn monomial_expectations<S: Scalar>(
+    space: &FockSpace,
+    monomials: &[Vec<(usize, u32, u32)>],
+    psi: &[S],
+    runner: &Runner,
+    interrupt: &dyn Interrupt,
+) -> CoreResult<Vec<Complex64>> {
+    let raw: Vec<RawTerm> = monomials
+        .iter()
+        .map(|f| RawTerm::new(1.0, 0.0, f.clone()))
+        .collect();
+    let op = Operator::<S>::new(space, &raw)?;
+    if op.len() != monomials.len() {
+        return Err(CoreError::InvalidArgument(
+            "monomials for expectation values must be distinct".into(),
+        ));
+    }
+    check_len(space, psi.len())?;
+    let parts = runner.map_blocks(space.dim(), interrupt, |first, rows| {
+        let mut acc = vec![Complex64::new(0.0, 0.0); op.len()];
+        let mut row = RowState::at(space, first)?;
+        for i in 0..rows {
+            if i > 0 {
+                row.advance(space);
+            }
+            let bra = psi[row.rank as usize].conj();
+            if bra == S::ZERO {
+                continue;
+            }
+            op.for_each_in_row(space, &row, |t, col, amp| {
+                let z = bra * psi[col as usize];
+                acc[t] += Complex64::new(z.re(), z.im()) * amp;
+            });
+        }
+        Ok(acc)
+    })?;
+    // Summed in block order: the result does not depend on the thread count.
+    let mut total = vec![Complex64::new(0.0, 0.0); op.len()];
+    for part in parts {
+        for (t, v) in total.iter_mut().zip(part) {
+            *t += v;
+        }
+    }
+    Ok(total)
+}
+
+/// Occupation distributions `P_i(n) = Σ_states |ψ|² [n_i = n]`, concatenated over modes
+/// (mode `i` occupies `c_i + 1` entries).
+///
+/// # Errors
+/// [`CoreError::Shape`] when `psi` has the wrong length; [`CoreError::Interrupted`].
+pub fn occupation_distributions<S: Scalar>(
+    space: &FockSpace,
+    psi: &[S],
+    runner: &Runner,
+    interrupt: &dyn Interrupt,
+) -> CoreResult<Vec<f64>> {
+    check_len(space, psi.len())?;
+    let mut starts = Vec::with_capacity(space.modes());
+    let mut size = 0usize;
+    for &c in space.cutoffs() {
+        starts.push(size);
+        size += c as usize + 1;
+    }
+    let parts = runner.map_blocks(space.dim(), interrupt, |first, rows| {
+        let mut hist = vec![0.0f64; size];
+        let mut row = RowState::at(space, first)?;
+        for i in 0..rows {
+            if i > 0 {
+                row.advance(space);
+            }
+            let w = psi[row.rank as usize].norm_sqr();
+            for (s, &n) in starts.iter().zip(&row.occ) {
+                hist[s + n as usize] += w;
+            }
+        }
+        Ok(hist)
+    })?;
+    let mut total = vec![0.0; size];
+    for part in parts {
+        for (t, v) in total.iter_mut().zip(part) {
+            *t += v;
+        }
+    }
+    Ok(total)
+}
+
+fn check_len(space: &FockSpace, len: usize) -> CoreResult<()> {
+    if len as u64 != space.dim() {
+        return Err(CoreError::Shape(format!(
+            "state vector has length {len} but the space has dim {}; pass a vector of the \
+             space's dimension",
+            space.dim()
+        )));
+    }
+    Ok(())
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::parallel::NoInterrupt;
+
+    #[test]
+    fn populations_of_a_basis_state() {
+        let space = FockSpace::new(vec![2, 2, 2], None, Some(3), None).unwrap();
+        let k = space.rank(&[1, 0, 2]).unwrap() as usize;
+        let mut psi = vec![0.0f64; space.dim() as usize];
+        psi[k] = 1.0;
+        let r = Runner::global();
+        let mons = vec![
+            vec![(0, 1, 1)],
+            vec![(1, 1, 1)],
+            vec![(2, 1, 1)],
+            vec![(0, 1, 0), (2, 0, 1)],
+        ];
+        let e = monomial_expectations(&space, &mons, &psi, &r, &NoInterrupt).unwrap();
+        assert_eq!(
+            e.iter().map(|z| z.re).collect::<Vec<_>>(),
+            vec![1.0, 0.0, 2.0, 0.0]
+        );
+        let h = occupation_distributions(&space, &psi, &r, &NoInterrupt).unwrap();
+        assert_eq!(h, vec![0.0, 1.0, 0.0, 1.0, 0.0, 0.0, 0.0, 0.0, 1.0]);
+        let ranks = ranks(&space, &[1, 0, 2, 1, 1, 1, -1, 0, 0], &r).unwrap();
+        assert_eq!(ranks, vec![k as i64, space.rank(&[1, 1, 1]).unwrap() as i64, -1]);
+    }
+}

@@ -1,0 +1,493 @@
+//! `fockmill._native`: the thin Python binding of `fockmill-core`. It converts
+//! arguments to owned Rust values, releases the interpreter around the core call, and
+//! hands results to NumPy without copying. No algorithms live here.
+
+mod errors;
+mod interrupt;
+
+use errors::{guarded, PyCoreError};
+use fockmill_core::build::{build_csr, CsrAny};
+use fockmill_core::estimate::estimate_nnz;
+use fockmill_core::lanczos::{self, FockMap, LanczosOptions};
+use fockmill_core::{
+    matvec, observe, CoreError, CoreResult, FockSpace, Interrupt, Operator, RawTerm, Runner, Scalar,
+};
+use interrupt::SignalCheck;
+use num_complex::Complex64;
+use numpy::ndarray::Array2;
+use numpy::{IntoPyArray, PyArray1, PyReadonlyArray1, PyReadonlyArray2, PyUntypedArrayMethods};
+use pyo3::exceptions::PyKeyboardInterrupt;
+use pyo3::prelude::*;
+use std::sync::Arc;
+
+/// Run core work with the interpreter released, on `threads` threads (None: rayon's
+/// global pool), polling for Ctrl-C between groups of rows.
+fn detached<T: Send>(
+    py: Python<'_>,
+    threads: Option<usize>,
+    work: impl FnOnce(&Runner, &dyn Interrupt) -> CoreResult<T> + Send,
+) -> PyResult<T> {
+    let runner = Runner::with_threads(threads).map_err(PyCoreError)?;
+    let (result, raised) = py.detach(|| {
+        let check = SignalCheck::new();
+        let result = work(&runner, &check);
+        (result, check.take())
+    });
+    match result {
+        Ok(v) => Ok(v),
+        Err(CoreError::Interrupted) => {
+            Err(raised.unwrap_or_else(|| PyKeyboardInterrupt::new_err("interrupted")))
+        }
+        Err(e) => Err(PyCoreError(e).into()),
+    }
+}
+
+/// A vector handed in from Python: float64 or complex128, any strides.
+#[derive(FromPyObject)]
+enum InVector<'py> {
+    Real(PyReadonlyArray1<'py, f64>),
+    Complex(PyReadonlyArray1<'py, Complex64>),
+}
+
+/// A row-major (n, k) block of vectors handed in from Python.
+#[derive(FromPyObject)]
+enum InBlock<'py> {
+    Real(PyReadonlyArray2<'py, f64>),
+    Complex(PyReadonlyArray2<'py, Complex64>),
+}
+
+/// Owned copy of the vector: the interpreter is released during the core call, and
+/// another Python thread could write to a borrowed NumPy buffer meanwhile.
+enum OwnedVector {
+    Real(Vec<f64>),
+    Complex(Vec<Complex64>),
+}
+
+impl InVector<'_> {
+    fn to_owned_vec(&self) -> OwnedVector {
+        match self {
+            InVector::Real(a) => OwnedVector::Real(a.as_array().iter().copied().collect()),
+            InVector::Complex(a) => OwnedVector::Complex(a.as_array().iter().copied().collect()),
+        }
+    }
+}
+
+/// A Fock space: cutoffs, weights and an optional conserved (modular) total.
+#[pyclass(frozen, module = "fockmill._native")]
+struct NativeSpace {
+    inner: Arc<FockSpace>,
+}
+
+#[pymethods]
+impl NativeSpace {
+    #[new]
+    #[pyo3(signature = (cutoffs, weights=None, total=None, modulus=None))]
+    fn new(
+        cutoffs: Vec<u32>,
+        weights: Option<Vec<u32>>,
+        total: Option<u64>,
+        modulus: Option<u64>,
+    ) -> PyResult<Self> {
+        guarded(|| {
+            let inner = FockSpace::new(cutoffs, weights, total, modulus).map_err(PyCoreError)?;
+            Ok(NativeSpace {
+                inner: Arc::new(inner),
+            })
+        })
+    }
+
+    #[getter]
+    fn dim(&self) -> u64 {
+        self.inner.dim()
+    }
+
+    #[getter]
+    fn modes(&self) -> usize {
+        self.inner.modes()
+    }
+
+    #[getter]
+    fn cutoffs(&self) -> Vec<u32> {
+        self.inner.cutoffs().to_vec()
+    }
+
+    #[getter]
+    fn weights(&self) -> Vec<u32> {
+        self.inner.weights().to_vec()
+    }
+
+    /// Occupations of every basis state, shape (dim, modes), uint8 or uint16.
+    #[pyo3(signature = (threads=None))]
+    fn occupations<'py>(&self, py: Python<'py>, threads: Option<usize>) -> PyResult<Bound<'py, PyAny>> {
+        guarded(|| {
+            let space = self.inner.clone();
+            let (dim, m) = (space.dim() as usize, space.modes());
+            let len = dim.checked_mul(m).ok_or_else(|| {
+                PyCoreError(CoreError::TooLarge {
+                    what: "occupation table (entries)".into(),
+                    requested: dim as u128 * m as u128,
+                    limit: usize::MAX as u128,
+                })
+            })?;
+            if space.max_cutoff() <= u8::MAX as u32 {
+                let table = detached(py, threads, |runner, stop| {
+                    let mut out = vec![0u8; len];
+                    observe::occupations_into(&space, &mut out, runner, stop)?;
+                    Ok(out)
+                })?;
+                let arr = Array2::from_shape_vec((dim, m), table).expect("length checked above");
+                Ok(arr.into_pyarray(py).into_any())
+            } else {
+                let table = detached(py, threads, |runner, stop| {
+                    let mut out = vec![0u16; len];
+                    observe::occupations_into(&space, &mut out, runner, stop)?;
+                    Ok(out)
+                })?;
+                let arr = Array2::from_shape_vec((dim, m), table).expect("length checked above");
+                Ok(arr.into_pyarray(py).into_any())
+            }
+        })
+    }
+
+    /// Ranks of the states in the rows of `occ` (int64, shape (n, modes)); -1 where a
+    /// state is not in the space.
+    #[pyo3(signature = (occ, threads=None))]
+    fn index<'py>(
+        &self,
+        py: Python<'py>,
+        occ: PyReadonlyArray2<'py, i64>,
+        threads: Option<usize>,
+    ) -> PyResult<Bound<'py, PyArray1<i64>>> {
+        guarded(|| {
+            let shape = occ.shape();
+            if shape[1] != self.inner.modes() {
+                return Err(PyCoreError(CoreError::Shape(format!(
+                    "occupations have {} columns but the space has {} modes",
+                    shape[1],
+                    self.inner.modes()
+                )))
+                .into());
+            }
+            let flat: Vec<i64> = occ.as_array().iter().copied().collect();
+            let space = self.inner.clone();
+            let ranks = detached(py, threads, |runner, _| observe::ranks(&space, &flat, runner))?;
+            Ok(ranks.into_pyarray(py))
+        })
+    }
+}
+
+/// Terms as they come from Python: (re, im, [(mode, p, q), ...]).
+type InTerm = (f64, f64, Vec<(usize, u32, u32)>);
+
+/// An operator prepared on a space: validated, merged terms ready for builds and products.
+#[pyclass(frozen, module = "fockmill._native")]
+struct NativeOperator {
+    space: Arc<FockSpace>,
+    real: Option<Operator<f64>>,
+    complex: Operator<Complex64>,
+}
+
+#[pymethods]
+impl NativeOperator {
+    #[new]
+    fn new(space: &NativeSpace, terms: Vec<InTerm>) -> PyResult<Self> {
+        guarded(|| {
+            let raw: Vec<RawTerm> = terms
+                .into_iter()
+                .map(|(re, im, f)| RawTerm::new(re, im, f))
+                .collect();
+            let complex = Operator::<Complex64>::new(&space.inner, &raw).map_err(PyCoreError)?;
+            let real = if raw.iter().all(|t| t.im == 0.0) {
+                Some(Operator::<f64>::new(&space.inner, &raw).map_err(PyCoreError)?)
+            } else {
+                None
+            };
+            Ok(NativeOperator {
+                space: space.inner.clone(),
+                real,
+                complex,
+            })
+        })
+    }
+
+    /// Whether every coefficient is real (the matrix is then float64).
+    #[getter]
+    fn is_real(&self) -> bool {
+        self.real.is_some()
+    }
+
+    /// Number of distinct nonzero monomials after merging.
+    #[getter]
+    fn terms(&self) -> usize {
+        self.complex.len()
+    }
+
+    #[getter]
+    fn dim(&self) -> u64 {
+        self.space.dim()
+    }
+
+    /// CSR arrays (indptr, indices, data) of the matrix.
+    #[pyo3(signature = (threads=None, force_wide=false))]
+    fn build_csr<'py>(
+        &self,
+        py: Python<'py>,
+        threads: Option<usize>,
+        force_wide: bool,
+    ) -> PyResult<Bound<'py, PyAny>> {
+        guarded(|| match &self.real {
+            Some(op) => csr_to_python(
+                py,
+                detached(py, threads, |r, s| build_csr(&self.space, op, r, s, force_wide))?,
+            ),
+            None => csr_to_python(
+                py,
+                detached(py, threads, |r, s| {
+                    build_csr(&self.space, &self.complex, r, s, force_wide)
+                })?,
+            ),
+        })
+    }
+
+    /// y = H x for a float64 or complex128 vector; the result is complex128 when either is.
+    #[pyo3(signature = (x, threads=None))]
+    fn matvec<'py>(
+        &self,
+        py: Python<'py>,
+        x: InVector<'py>,
+        threads: Option<usize>,
+    ) -> PyResult<Bound<'py, PyAny>> {
+        guarded(|| {
+            let space = &self.space;
+            match (x.to_owned_vec(), &self.real) {
+                (OwnedVector::Real(x), Some(op)) => {
+                    let y = detached(py, threads, |r, s| {
+                        let mut y = vec![0.0; x.len()];
+                        matvec::apply(space, op, &x, &mut y, r, s).map(|_| y)
+                    })?;
+                    Ok(y.into_pyarray(py).into_any())
+                }
+                (owned, _) => {
+                    let x: Vec<Complex64> = match owned {
+                        OwnedVector::Real(v) => v.into_iter().map(|re| Complex64::new(re, 0.0)).collect(),
+                        OwnedVector::Complex(v) => v,
+                    };
+                    let y = detached(py, threads, |r, s| {
+                        let mut y = vec![Complex64::ZERO; x.len()];
+                        matvec::apply(space, &self.complex, &x, &mut y, r, s).map(|_| y)
+                    })?;
+                    Ok(y.into_pyarray(py).into_any())
+                }
+            }
+        })
+    }
+
+    /// Y = H X for a (dim, k) block of vectors.
+    #[pyo3(signature = (x, threads=None))]
+    fn matmat<'py>(
+        &self,
+        py: Python<'py>,
+        x: InBlock<'py>,
+        threads: Option<usize>,
+    ) -> PyResult<Bound<'py, PyAny>> {
+        guarded(|| {
+            let space = &self.space;
+            let (n, k) = match &x {
+                InBlock::Real(a) => (a.shape()[0], a.shape()[1]),
+                InBlock::Complex(a) => (a.shape()[0], a.shape()[1]),
+            };
+            match (&x, &self.real) {
+                (InBlock::Real(a), Some(op)) => {
+                    let xs: Vec<f64> = a.as_array().iter().copied().collect();
+                    let y = detached(py, threads, |r, s| {
+                        let mut y = vec![0.0; xs.len()];
+                        matvec::apply_many(space, op, &xs, &mut y, k, r, s).map(|_| y)
+                    })?;
+                    let arr = Array2::from_shape_vec((n, k), y).expect("shape kept");
+                    Ok(arr.into_pyarray(py).into_any())
+                }
+                _ => {
+                    let xs: Vec<Complex64> = match &x {
+                        InBlock::Real(a) => a.as_array().iter().map(|&v| Complex64::new(v, 0.0)).collect(),
+                        InBlock::Complex(a) => a.as_array().iter().copied().collect(),
+                    };
+                    let y = detached(py, threads, |r, s| {
+                        let mut y = vec![Complex64::ZERO; xs.len()];
+                        matvec::apply_many(space, &self.complex, &xs, &mut y, k, r, s).map(|_| y)
+                    })?;
+                    let arr = Array2::from_shape_vec((n, k), y).expect("shape kept");
+                    Ok(arr.into_pyarray(py).into_any())
+                }
+            }
+        })
+    }
+
+    /// (nnz estimate, standard error, exact?, largest row) without building.
+    #[pyo3(signature = (samples=2048, threads=None))]
+    fn estimate_nnz(
+        &self,
+        py: Python<'_>,
+        samples: usize,
+        threads: Option<usize>,
+    ) -> PyResult<(f64, f64, bool, u64)> {
+        guarded(|| {
+            let est = match &self.real {
+                Some(op) => detached(py, threads, |r, s| estimate_nnz(&self.space, op, samples, r, s))?,
+                None => detached(py, threads, |r, s| {
+                    estimate_nnz(&self.space, &self.complex, samples, r, s)
+                })?,
+            };
+            Ok((est.nnz, est.std_error, est.exact, est.max_row))
+        })
+    }
+
+    /// Low-memory Lanczos ground state:
+    /// (energy, vector, residual, steps, products, restarts, converged).
+    #[pyo3(signature = (tol=1e-9, max_steps=400, max_restarts=8, seed=0x5EED, start=None, threads=None))]
+    #[allow(clippy::too_many_arguments)]
+    fn lanczos_ground<'py>(
+        &self,
+        py: Python<'py>,
+        tol: f64,
+        max_steps: usize,
+        max_restarts: usize,
+        seed: u64,
+        start: Option<InVector<'py>>,
+        threads: Option<usize>,
+    ) -> PyResult<(f64, Bound<'py, PyAny>, f64, usize, usize, usize, bool)> {
+        guarded(|| {
+            let opts = LanczosOptions {
+                tol,
+                max_steps,
+                max_restarts,
+                seed,
+            };
+            let space = &self.space;
+            let start = start.map(|s| s.to_owned_vec());
+            match &self.real {
+                Some(op) => {
+                    let start: Option<Vec<f64>> = match start {
+                        None => None,
+                        Some(OwnedVector::Real(v)) => Some(v),
+                        Some(OwnedVector::Complex(v)) => Some(v.iter().map(|z| z.re).collect()),
+                    };
+                    let out = detached(py, threads, |r, s| {
+                        lanczos::ground_state(&FockMap { space, op }, start, &opts, r, s)
+                    })?;
+                    Ok(outcome_to_python(py, out))
+                }
+                None => {
+                    let start: Option<Vec<Complex64>> = start.map(|v| match v {
+                        OwnedVector::Real(v) => v.into_iter().map(|re| Complex64::new(re, 0.0)).collect(),
+                        OwnedVector::Complex(v) => v,
+                    });
+                    let op = &self.complex;
+                    let out = detached(py, threads, |r, s| {
+                        lanczos::ground_state(&FockMap { space, op }, start, &opts, r, s)
+                    })?;
+                    Ok(outcome_to_python(py, out))
+                }
+            }
+        })
+    }
+}
+
+type LanczosTuple<'py> = (f64, Bound<'py, PyAny>, f64, usize, usize, usize, bool);
+
+fn outcome_to_python<'py, S: Scalar + numpy::Element>(
+    py: Python<'py>,
+    out: lanczos::LanczosOutcome<S>,
+) -> LanczosTuple<'py> {
+    (
+        out.energy,
+        out.vector.into_pyarray(py).into_any(),
+        out.residual,
+        out.steps,
+        out.products,
+        out.restarts,
+        out.converged,
+    )
+}
+
+/// ⟨ψ|m|ψ⟩ for each monomial m given as [(mode, p, q), ...], as complex numbers.
+#[pyfunction]
+#[pyo3(signature = (space, monomials, psi, threads=None))]
+fn monomial_expectations<'py>(
+    py: Python<'py>,
+    space: &NativeSpace,
+    monomials: Vec<Vec<(usize, u32, u32)>>,
+    psi: InVector<'py>,
+    threads: Option<usize>,
+) -> PyResult<Bound<'py, PyArray1<Complex64>>> {
+    guarded(|| {
+        let sp = &space.inner;
+        let values = match psi.to_owned_vec() {
+            OwnedVector::Real(v) => detached(py, threads, |r, s| {
+                observe::monomial_expectations(sp, &monomials, &v, r, s)
+            })?,
+            OwnedVector::Complex(v) => detached(py, threads, |r, s| {
+                observe::monomial_expectations(sp, &monomials, &v, r, s)
+            })?,
+        };
+        Ok(values.into_pyarray(py))
+    })
+}
+
+/// P_i(n) for every mode, concatenated (mode i has cutoff_i + 1 entries).
+#[pyfunction]
+#[pyo3(signature = (space, psi, threads=None))]
+fn occupation_distributions<'py>(
+    py: Python<'py>,
+    space: &NativeSpace,
+    psi: InVector<'py>,
+    threads: Option<usize>,
+) -> PyResult<Bound<'py, PyArray1<f64>>> {
+    guarded(|| {
+        let sp = &space.inner;
+        let values = match psi.to_owned_vec() {
+            OwnedVector::Real(v) => detached(py, threads, |r, s| {
+                observe::occupation_distributions(sp, &v, r, s)
+            })?,
+            OwnedVector::Complex(v) => detached(py, threads, |r, s| {
+                observe::occupation_distributions(sp, &v, r, s)
+            })?,
+        };
+        Ok(values.into_pyarray(py))
+    })
+}
+
+/// Number of threads rayon's global pool uses (RAYON_NUM_THREADS or the core count).
+#[pyfunction]
+fn default_threads() -> usize {
+    rayon::current_num_threads()
+}
+
+#[pymodule]
+fn _native(m: &Bound<'_, PyModule>) -> PyResult<()> {
+    m.add("__version__", env!("CARGO_PKG_VERSION"))?;
+    m.add_class::<NativeSpace>()?;
+    m.add_class::<NativeOperator>()?;
+    m.add_function(wrap_pyfunction!(monomial_expectations, m)?)?;
+    m.add_function(wrap_pyfunction!(occupation_distributions, m)?)?;
+    m.add_function(wrap_pyfunction!(default_threads, m)?)?;
+    Ok(())
+}
+
+fn csr_to_python<'py, S: Scalar + numpy::Element>(
+    py: Python<'py>,
+    csr: CsrAny<S>,
+) -> PyResult<Bound<'py, PyAny>> {
+    let tuple = match csr {
+        CsrAny::Narrow(c) => (
+            c.indptr.into_pyarray(py).into_any(),
+            c.indices.into_pyarray(py).into_any(),
+            c.data.into_pyarray(py).into_any(),
+        ),
+        CsrAny::Wide(c) => (
+            c.indptr.into_pyarray(py).into_any(),
+            c.indices.into_pyarray(py).into_any(),
+            c.data.into_pyarray(py).into_any(),
+        ),
+    };
+    Ok(tuple.into_pyobject(py)?.into_any())
+}
