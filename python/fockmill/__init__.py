@@ -14,30 +14,66 @@ build_matrix, build_operator, LadderOperator
     ``scipy.sparse.csr_array`` and matrix-free ``LinearOperator``.
 estimate_memory, available_memory, MemoryEstimate
     Size planning before a build.
+ground_state, lowest_levels, GroundState, Levels, choose_method
+    Eigensolvers (dense, scipy eigsh on CSR or matrix-free, low-memory Lanczos).
+expectation, populations, number_variances, one_body_matrix, occupation_distribution,
+entanglement_entropy, top_level_weights
+    Observables of a state, computed without building matrices.
+converge_cutoffs, CutoffScan
+    Truncation diagnostics.
+Model
+    A Hamiltonian linear in named parameters on a fixed space (for sweeps).
 """
 
 from fockmill import exceptions
 from fockmill._build import build_matrix
 from fockmill._expr import LadderExpr, format_monomial, identity, lowering, number, raising
 from fockmill._memory import MemoryEstimate, available_memory, estimate_memory
+from fockmill._model import Model
 from fockmill._native import __version__
+from fockmill._observe import (
+    entanglement_entropy,
+    expectation,
+    number_variances,
+    occupation_distribution,
+    one_body_matrix,
+    populations,
+    top_level_weights,
+)
 from fockmill._operator import LadderOperator, build_operator
+from fockmill._solve import GroundState, Levels, choose_method, ground_state, lowest_levels
 from fockmill._space import FockSpace
+from fockmill._truncation import CutoffScan, converge_cutoffs
 
 __all__ = [
+    "CutoffScan",
     "FockSpace",
+    "GroundState",
     "LadderExpr",
     "LadderOperator",
+    "Levels",
     "MemoryEstimate",
+    "Model",
     "__version__",
     "available_memory",
     "build_matrix",
     "build_operator",
+    "choose_method",
+    "converge_cutoffs",
+    "entanglement_entropy",
     "estimate_memory",
     "exceptions",
+    "expectation",
     "format_monomial",
+    "ground_state",
     "identity",
     "lowering",
+    "lowest_levels",
     "number",
+    "number_variances",
+    "occupation_distribution",
+    "one_body_matrix",
+    "populations",
     "raising",
+    "top_level_weights",
 ]
