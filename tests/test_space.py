@@ -13,7 +13,7 @@ from dataclasses import dataclass
 import fockmill as fm
 import numpy as np
 import pytest
-from fockmill.exceptions import SpaceError
+from fockmill.exceptions import SizeLimitError, SpaceError
 from hypothesis import assume, given
 from hypothesis import strategies as st
 from reference import bounded_composition_count, full_basis, sector_occupations
@@ -43,9 +43,10 @@ class SpaceSpec:
 def space_specs(draw: st.DrawFn) -> SpaceSpec:
     """Small spaces: up to 4 modes, cutoffs 1..3, optional total, weights and modulus."""
     modes = draw(st.integers(1, 4))
+    cutoff: int | list[int]
     if draw(st.booleans()):
-        cutoff: int | list[int] = draw(st.integers(1, 3))
-        cutoffs = [cutoff] * modes
+        shared = draw(st.integers(1, 3))
+        cutoff, cutoffs = shared, [shared] * modes
     else:
         cutoffs = draw(st.lists(st.integers(1, 3), min_size=modes, max_size=modes))
         cutoff = cutoffs
@@ -68,7 +69,7 @@ def as_tuples(rows: np.ndarray) -> list[tuple[int, ...]]:
 def test_sector_is_empty_exactly_when_brute_force_finds_no_state(spec: SpaceSpec) -> None:
     # An empty sector must be refused up front, and only then.
     if len(spec.expected_occupations()) == 0:
-        with pytest.raises(SpaceError, match="change the total|lower the total"):
+        with pytest.raises(SpaceError, match=r"change the total|lower the total"):
             spec.build()
     else:
         assert spec.build().dim > 0
@@ -287,6 +288,13 @@ def test_index_rejects_wrong_shapes_and_floats() -> None:
 )
 def test_bad_specifications_raise_space_error(kwargs: dict[str, object], message: str) -> None:
     with pytest.raises(SpaceError, match=message):
+        fm.FockSpace(**kwargs)  # type: ignore[arg-type]
+
+
+@pytest.mark.parametrize("kwargs", [dict(modes=40, cutoff=40), dict(modes=30, cutoff=30, total=30)])
+def test_oversized_space_is_refused_up_front(kwargs: dict[str, int]) -> None:
+    # 41^40 states, and C(59, 30) ≈ 5.9e16 (stars and bars): beyond any index type.
+    with pytest.raises(SizeLimitError, match="dimension of the space"):
         fm.FockSpace(**kwargs)  # type: ignore[arg-type]
 
 

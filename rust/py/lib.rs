@@ -372,7 +372,7 @@ impl NativeOperator {
                         Some(OwnedVector::Complex(v)) => Some(v.iter().map(|z| z.re).collect()),
                     };
                     let out = detached(py, threads, |r, s| {
-                        lanczos::ground_state(&FockMap { space, op }, start, &opts, r, s)
+                        lanczos::ground_state(&FockMap::new(space, op), start, &opts, r, s)
                     })?;
                     Ok(outcome_to_python(py, out))
                 }
@@ -383,7 +383,7 @@ impl NativeOperator {
                     });
                     let op = &self.complex;
                     let out = detached(py, threads, |r, s| {
-                        lanczos::ground_state(&FockMap { space, op }, start, &opts, r, s)
+                        lanczos::ground_state(&FockMap::new(space, op), start, &opts, r, s)
                     })?;
                     Ok(outcome_to_python(py, out))
                 }

@@ -2,6 +2,7 @@
 //! the output plus one row-count array and per-thread scratch: no triplet list.
 
 use crate::error::{CoreError, CoreResult};
+use crate::kernel::ProductKernel;
 use crate::parallel::{Interrupt, Runner, BLOCKS_PER_CHECK, BLOCK_ROWS};
 use crate::scalar::Scalar;
 use crate::space::FockSpace;
@@ -102,18 +103,22 @@ pub fn row_counts<S: Scalar>(
     runner: &Runner,
     interrupt: &dyn Interrupt,
 ) -> CoreResult<Vec<u64>> {
+    row_counts_with(space, &ProductKernel::new(space, op), runner, interrupt)
+}
+
+fn row_counts_with<S: Scalar>(
+    space: &FockSpace,
+    kernel: &ProductKernel<S>,
+    runner: &Runner,
+    interrupt: &dyn Interrupt,
+) -> CoreResult<Vec<u64>> {
     let mut counts = vec![0u64; space.dim() as usize];
     runner.for_row_chunks(&mut counts, interrupt, |first, out| {
-        let mut row = RowState::at(space, first)?;
-        let mut scratch = Vec::new();
-        for (k, c) in out.iter_mut().enumerate() {
-            if k > 0 {
-                row.advance(space);
-            }
-            assemble_row(space, op, &row, &mut scratch);
-            *c = scratch.len() as u64;
-        }
-        Ok(())
+        let mut k = 0usize;
+        kernel.for_each_row(space, first, out.len(), |_, entries| {
+            out[k] = entries.len() as u64;
+            k += 1;
+        })
     })?;
     Ok(counts)
 }
@@ -132,7 +137,8 @@ pub fn build_csr<S: Scalar>(
     interrupt: &dyn Interrupt,
     force_wide: bool,
 ) -> CoreResult<CsrAny<S>> {
-    let mut indptr = row_counts(space, op, runner, interrupt)?;
+    let kernel = ProductKernel::new(space, op);
+    let mut indptr = row_counts_with(space, &kernel, runner, interrupt)?;
     // Turn counts into row pointers in place: indptr[r] = entries before row r.
     let mut acc = 0u64;
     for c in indptr.iter_mut() {
@@ -151,18 +157,18 @@ pub fn build_csr<S: Scalar>(
     }
     if !force_wide && nnz <= i32::MAX as u64 && space.dim() <= i32::MAX as u64 {
         Ok(CsrAny::Narrow(fill::<S, i32>(
-            space, op, runner, interrupt, indptr,
+            space, &kernel, runner, interrupt, indptr,
         )?))
     } else {
         Ok(CsrAny::Wide(fill::<S, i64>(
-            space, op, runner, interrupt, indptr,
+            space, &kernel, runner, interrupt, indptr,
         )?))
     }
 }
 
 fn fill<S: Scalar, I: CsrIndex>(
     space: &FockSpace,
-    op: &Operator<S>,
+    kernel: &ProductKernel<S>,
     runner: &Runner,
     interrupt: &dyn Interrupt,
     indptr: Vec<u64>,
@@ -194,20 +200,14 @@ fn fill<S: Scalar, I: CsrIndex>(
             }
             runner.install(|| {
                 group.into_par_iter().try_for_each(|(first, rows, idx, val)| {
-                    let mut row = RowState::at(space, first)?;
-                    let mut scratch = Vec::new();
                     let mut pos = 0usize;
-                    for k in 0..rows {
-                        if k > 0 {
-                            row.advance(space);
-                        }
-                        assemble_row(space, op, &row, &mut scratch);
-                        for &(col, v) in scratch.iter() {
+                    kernel.for_each_row(space, first, rows as usize, |_, entries| {
+                        for &(col, v) in entries {
                             idx[pos] = I::from_u64(col);
                             val[pos] = v;
                             pos += 1;
                         }
-                    }
+                    })?;
                     debug_assert_eq!(pos, idx.len());
                     Ok::<(), CoreError>(())
                 })

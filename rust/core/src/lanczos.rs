@@ -5,6 +5,7 @@
 //! residual ‖Hψ − Eψ‖. If that misses the tolerance the iteration restarts from ψ.
 
 use crate::error::{CoreError, CoreResult};
+use crate::kernel::ProductKernel;
 use crate::parallel::{Interrupt, Runner};
 use crate::scalar::Scalar;
 use crate::space::FockSpace;
@@ -25,10 +26,19 @@ pub trait HermitianMap<S: Scalar> {
 
 /// The matrix-free product of an operator on a space.
 pub struct FockMap<'a, S: Scalar> {
-    /// The space.
-    pub space: &'a FockSpace,
-    /// The operator (must be Hermitian for the solver's guarantees).
-    pub op: &'a Operator<S>,
+    space: &'a FockSpace,
+    kernel: ProductKernel<S>,
+}
+
+impl<'a, S: Scalar> FockMap<'a, S> {
+    /// Prepare the products of `op` (which must be Hermitian for the solver's
+    /// guarantees) on `space`.
+    pub fn new(space: &'a FockSpace, op: &Operator<S>) -> Self {
+        FockMap {
+            space,
+            kernel: ProductKernel::new(space, op),
+        }
+    }
 }
 
 impl<S: Scalar> HermitianMap<S> for FockMap<'_, S> {
@@ -36,7 +46,7 @@ impl<S: Scalar> HermitianMap<S> for FockMap<'_, S> {
         self.space.dim() as usize
     }
     fn apply(&self, x: &[S], y: &mut [S], runner: &Runner, interrupt: &dyn Interrupt) -> CoreResult<()> {
-        crate::matvec::apply(self.space, self.op, x, y, runner, interrupt)
+        self.kernel.apply(self.space, x, y, runner, interrupt)
     }
 }
 

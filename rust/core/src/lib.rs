@@ -14,6 +14,7 @@
 pub mod build;
 pub mod error;
 pub mod estimate;
+pub mod kernel;
 pub mod lanczos;
 pub mod matvec;
 pub mod observe;

@@ -2,6 +2,7 @@
 //! one thread, so no atomics), with a fixed summation order per row.
 
 use crate::error::{CoreError, CoreResult};
+use crate::kernel::ProductKernel;
 use crate::parallel::{Interrupt, Runner};
 use crate::scalar::Scalar;
 use crate::space::FockSpace;
@@ -49,20 +50,7 @@ pub fn apply_many<S: Scalar>(
         )));
     }
     if k == 1 {
-        return runner.for_row_chunks(y, interrupt, |first, out| {
-            let mut row = RowState::at(space, first)?;
-            for (i, yi) in out.iter_mut().enumerate() {
-                if i > 0 {
-                    row.advance(space);
-                }
-                let mut acc = S::ZERO;
-                op.for_each_in_row(space, &row, |t, col, amp| {
-                    acc += op.coef(t).scale(amp) * x[col as usize];
-                });
-                *yi = acc;
-            }
-            Ok(())
-        });
+        return ProductKernel::new(space, op).apply(space, x, y, runner, interrupt);
     }
     // Several vectors: visit each row's entries once and use them for all k columns.
     let mut rows_out: Vec<&mut [S]> = y.chunks_mut(k).collect();

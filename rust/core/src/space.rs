@@ -257,6 +257,17 @@ impl FockSpace {
         self.offsets[self.offset_base[mode] + residue * width + v as usize]
     }
 
+    /// The flat table of rank contributions; mode `i`, residue `r`, value `v` is at
+    /// `offset_base(i) + r * (cutoff_i + 2) + v`.
+    pub fn offset_table(&self) -> &[u64] {
+        &self.offsets
+    }
+
+    /// Start of mode `mode`'s block in [`FockSpace::offset_table`].
+    pub fn offset_base(&self, mode: usize) -> usize {
+        self.offset_base[mode]
+    }
+
     /// Number of completions of modes `mode..M` when `residue` is owed.
     #[inline(always)]
     pub fn completions(&self, mode: usize, residue: usize) -> u64 {

@@ -199,6 +199,13 @@ impl<S: Scalar> Operator<S> {
         self.coefs.is_empty()
     }
 
+    /// Factors of term `t` in gathering form: `(mode, quanta removed, quanta added)`
+    /// from the row state, sorted by mode.
+    pub fn factors(&self, t: usize) -> impl Iterator<Item = (usize, u32, u32)> + '_ {
+        let (a, b) = (self.starts[t] as usize, self.starts[t + 1] as usize);
+        (a..b).map(move |f| (self.modes[f] as usize, self.lower[f], self.raise[f]))
+    }
+
     /// Coefficient of term `t`.
     pub fn coef(&self, t: usize) -> S {
         self.coefs[t]

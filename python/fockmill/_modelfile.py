@@ -1,0 +1,846 @@
+"""Model files: a TOML description of a model, a parameter sweep and what to record.
+
+A model file names one of the ready-made models of :mod:`fockmill.models`, its
+lattice and Fock space, default parameter values, optional drives, an optional grid
+of parameter values to sweep, the quantities to record at each point and solver
+settings. :func:`load_model_file` checks everything up front and turns the file into a
+:class:`ModelFile`; every mistake raises :class:`ModelFileError` naming the file, the
+key and what was expected.
+
+Schema (every table but ``[model]`` is optional; unknown keys are errors)
+-----------------------------------------------------------------------
+``schema = 1``
+    Optional version marker of this layout.
+``[model]``
+    ``kind`` is ``"bose-hubbard"``, ``"jaynes-cummings-hubbard"`` or
+    ``"kerr-network"``; the other keys depend on it:
+
+    * bose-hubbard: ``lattice`` = ``"chain"`` | ``"ring"`` (with ``sites``),
+      ``"rectangle"`` (with ``rows``, ``cols``, optional ``periodic``) or ``"edges"``
+      (with ``edges = [[i, j], [i, j, t], ...]`` and optional ``sites``); ``cutoff``
+      (integer or one per site; optional when ``total`` is given), ``total``.
+    * jaynes-cummings-hubbard: ``sites``, ``cavity_cutoff``, optional ``periodic``
+      and ``total`` (conserved excitations).
+    * kerr-network: ``frequencies = [...]``, optional ``self_kerr`` (number or one per
+      mode), ``cross_kerr = [[i, j, chi], ...]``, ``couplings = [[i, j, g], ...]``;
+      ``cutoff`` (integer or one per mode), optional ``total``.
+``[parameters]``
+    Default value of any model parameter (``J``, ``U``, ``mu``; ``wc``, ``we``,
+    ``g``, ``J``; ``omega``, ``kerr``, ``cross_kerr``, ``exchange``; ``drive``,
+    ``two_photon``).
+``[drives]``
+    ``coherent = [[mode, amplitude], ...]``, ``two_photon = [[mode, amplitude], ...]``
+    (see :func:`fockmill.models.with_drives`).
+``[sweep.NAME]``
+    One table per swept parameter, in sweep order: ``values = [...]``, or ``start``,
+    ``stop``, ``num`` (>= 2) and optional ``spacing = "linear"`` (default) or
+    ``"geometric"``. The grid is the Cartesian product, last table varying fastest.
+``[record]``
+    ``quantities = [...]`` from ``energy``, ``gap``, ``levels``, ``populations``,
+    ``number_variance``, ``one_body``, ``entropy``, ``top_weight``, ``residual``
+    (default ``["energy"]``); ``levels`` (how many lowest levels to compute);
+    ``entropy_modes`` (the subsystem for ``entropy``; default the first half of the
+    modes).
+``[solver]``
+    ``tol`` (default 1e-9), ``method`` (``"auto"``, ``"dense"``, ``"csr"``,
+    ``"operator"``, ``"lanczos"``), ``threads``.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import datetime
+import difflib
+import hashlib
+import itertools
+import math
+import os
+import re
+import tomllib
+from collections.abc import Mapping, Sequence
+from dataclasses import dataclass
+from typing import Any, NoReturn
+
+import numpy as np
+import numpy.typing as npt
+
+from fockmill._model import Model
+from fockmill.models import (
+    bose_hubbard,
+    chain_edges,
+    jaynes_cummings_hubbard,
+    kerr_network,
+    rectangular_edges,
+    with_drives,
+)
+
+__all__ = [
+    "KINDS",
+    "RECORDABLE",
+    "SOLVER_METHODS",
+    "ModelFile",
+    "ModelFileError",
+    "SweepGrid",
+    "load_model_file",
+    "parse_model_text",
+]
+
+KINDS: tuple[str, ...] = ("bose-hubbard", "jaynes-cummings-hubbard", "kerr-network")
+"""Values of ``model.kind``."""
+
+RECORDABLE: tuple[str, ...] = (
+    "energy",
+    "gap",
+    "levels",
+    "populations",
+    "number_variance",
+    "one_body",
+    "entropy",
+    "top_weight",
+    "residual",
+)
+"""Values allowed in ``record.quantities``."""
+
+SOLVER_METHODS: tuple[str, ...] = ("auto", "dense", "csr", "operator", "lanczos")
+"""Values of ``solver.method``."""
+
+SCHEMA_VERSION = 1
+MAX_MODES = 4096
+MAX_CUTOFF = 65535
+MAX_TOTAL = 2**31 - 1
+MAX_POINTS = 1_000_000
+MAX_THREADS = 4096
+
+_LATTICES = ("chain", "ring", "rectangle", "edges")
+_SPACINGS = ("linear", "geometric")
+_DEFAULT_LEVELS = {"gap": 2, "levels": 4}
+_BARE_KEY = re.compile(r"^[A-Za-z0-9_-]+$")
+
+
+class ModelFileError(ValueError):
+    """A model file is not valid TOML or does not follow the schema.
+
+    Attributes
+    ----------
+    source : str
+        The file path (or ``"<string>"`` for text).
+    key : str or None
+        Dotted key path of the offending entry (``"sweep.U.num"``), None for the
+        whole file.
+    problem : str
+        What was expected and what was found.
+    """
+
+    def __init__(self, source: str, key: str | None, problem: str) -> None:
+        self.source = source
+        self.key = key
+        self.problem = problem
+        where = f"{source}: {key}: " if key else f"{source}: "
+        super().__init__(where + problem)
+
+    def __reduce__(self) -> tuple[type[ModelFileError], tuple[str, str | None, str]]:
+        return (type(self), (self.source, self.key, self.problem))
+
+
+@dataclass(frozen=True)
+class SweepGrid:
+    """A Cartesian grid of parameter values.
+
+    Attributes
+    ----------
+    axes : dict of str to numpy.ndarray
+        Parameter name -> its 1-D float64 values (read-only), in sweep order.
+
+    Raises
+    ------
+    ValueError
+        For no axes, or an axis that is not a non-empty 1-D array of finite numbers.
+
+    Examples
+    --------
+    >>> grid = SweepGrid({"U": np.array([1.0, 2.0]), "J": np.array([0.5])})
+    >>> grid.points()
+    [{'U': 1.0, 'J': 0.5}, {'U': 2.0, 'J': 0.5}]
+    """
+
+    axes: dict[str, npt.NDArray[np.float64]]
+
+    def __post_init__(self) -> None:
+        if not self.axes:
+            raise ValueError("a sweep grid needs at least one axis")
+        clean: dict[str, npt.NDArray[np.float64]] = {}
+        for name, values in self.axes.items():
+            array = np.array(values, dtype=np.float64)
+            if array.ndim != 1 or array.size == 0:
+                raise ValueError(
+                    f"sweep axis {name!r} must be a non-empty 1-D array; got shape {array.shape}"
+                )
+            if not np.all(np.isfinite(array)):
+                raise ValueError(f"sweep axis {name!r} holds non-finite values")
+            array.flags.writeable = False
+            clean[str(name)] = array
+        object.__setattr__(self, "axes", clean)
+
+    @property
+    def shape(self) -> tuple[int, ...]:
+        """Number of values along each axis."""
+        return tuple(len(values) for values in self.axes.values())
+
+    @property
+    def size(self) -> int:
+        """Number of grid points."""
+        return math.prod(self.shape)
+
+    def points(self) -> list[dict[str, float]]:
+        """Every grid point as ``{name: value}``, last axis varying fastest.
+
+        Returns
+        -------
+        list of dict
+            ``size`` dictionaries in ``itertools.product`` order over the axes.
+        """
+        names = list(self.axes)
+        columns = [[float(v) for v in values] for values in self.axes.values()]
+        return [dict(zip(names, combo, strict=True)) for combo in itertools.product(*columns)]
+
+    def __eq__(self, other: object) -> bool:
+        if not isinstance(other, SweepGrid):
+            return NotImplemented
+        return list(self.axes) == list(other.axes) and all(
+            np.array_equal(self.axes[name], other.axes[name]) for name in self.axes
+        )
+
+    def __hash__(self) -> int:
+        return hash(tuple((name, values.tobytes()) for name, values in self.axes.items()))
+
+
+@dataclass(frozen=True)
+class ModelFile:
+    """Everything a model file describes, checked and built.
+
+    Attributes
+    ----------
+    path : str or None
+        The file read, None for text given directly.
+    model : Model
+        The model with the file's parameter defaults (and drives, if any).
+    sweep : SweepGrid or None
+        The parameter grid, None for a single point at the defaults.
+    record : tuple of str
+        Quantities to record per point (see ``RECORDABLE``).
+    levels : int
+        How many lowest levels to compute (>= 2 when ``"gap"`` is recorded).
+    solver : dict
+        ``{"tol": float, "method": str, "threads": int | None}``.
+    entropy_modes : tuple of int
+        Subsystem modes for ``"entropy"`` (empty when it is not recorded).
+    text_hash : str
+        SHA-256 (hex) of the file's text.
+    """
+
+    path: str | None
+    model: Model
+    sweep: SweepGrid | None
+    record: tuple[str, ...]
+    levels: int
+    solver: dict[str, object]
+    entropy_modes: tuple[int, ...]
+    text_hash: str
+
+    def __hash__(self) -> int:
+        return hash(self.text_hash)
+
+
+# -- reading values with key paths --------------------------------------------------------
+
+
+def _join(path: str, key: str | int) -> str:
+    if isinstance(key, int):
+        return f"{path}[{key}]"
+    part = key if _BARE_KEY.match(key) else '"' + key.replace('"', '\\"') + '"'
+    return f"{path}.{part}" if path else part
+
+
+def _toml_type(value: object) -> str:
+    if isinstance(value, bool):
+        return "boolean"
+    if isinstance(value, int):
+        return "integer"
+    if isinstance(value, float):
+        return "float"
+    if isinstance(value, str):
+        return "string"
+    if isinstance(value, list):
+        return "array"
+    if isinstance(value, dict):
+        return "table"
+    if isinstance(value, (datetime.date, datetime.time)):
+        return "date/time"
+    return type(value).__name__
+
+
+def _describe(value: object) -> str:
+    if isinstance(value, dict):
+        return "a table"
+    text = repr(value)
+    if len(text) > 60:
+        text = text[:57] + "..."
+    return f"{text} ({_toml_type(value)})"
+
+
+class _Reader:
+    """Typed access to a parsed TOML document that reports errors by key path."""
+
+    def __init__(self, source: str) -> None:
+        self.source = source
+
+    def fail(self, path: str | None, problem: str) -> NoReturn:
+        raise ModelFileError(self.source, path, problem)
+
+    def wrong(self, path: str, expected: str, got: object) -> NoReturn:
+        self.fail(path, f"expected {expected}; got {_describe(got)}")
+
+    def check_keys(
+        self, table: Mapping[str, object], path: str, allowed: Sequence[str], hint: str = ""
+    ) -> None:
+        for key in table:
+            if key not in allowed:
+                close = (
+                    difflib.get_close_matches(key, allowed, n=1)
+                    or [k for k in allowed if key.startswith(k) or k.startswith(key)][:1]
+                )
+                suggestion = f" (did you mean {close[0]!r}?)" if close else ""
+                self.fail(
+                    _join(path, key),
+                    f"unknown key{suggestion}{hint}; expected one of "
+                    + ", ".join(repr(k) for k in allowed),
+                )
+
+    def table(self, value: object, path: str) -> dict[str, Any]:
+        if not isinstance(value, dict):
+            self.wrong(path, "a table", value)
+        return value
+
+    def integer(self, value: object, path: str, minimum: int, maximum: int) -> int:
+        if isinstance(value, bool) or not isinstance(value, int):
+            self.wrong(path, f"an integer from {minimum} to {maximum}", value)
+        if not minimum <= value <= maximum:
+            self.wrong(path, f"an integer from {minimum} to {maximum}", value)
+        return value
+
+    def number(self, value: object, path: str) -> float:
+        if isinstance(value, bool) or not isinstance(value, (int, float)):
+            self.wrong(path, "a finite number", value)
+        result = float(value)
+        if not math.isfinite(result):
+            self.wrong(path, "a finite number", value)
+        return result
+
+    def boolean(self, value: object, path: str) -> bool:
+        if not isinstance(value, bool):
+            self.wrong(path, "true or false", value)
+        return value
+
+    def choice(self, value: object, path: str, options: Sequence[str]) -> str:
+        expected = "one of " + ", ".join(f'"{o}"' for o in options)
+        if not isinstance(value, str):
+            self.wrong(path, expected, value)
+        if value not in options:
+            close = difflib.get_close_matches(value, options, n=1)
+            suggestion = f' (did you mean "{close[0]}"?)' if close else ""
+            self.fail(path, f"expected {expected}; got {value!r}{suggestion}")
+        return value
+
+    def array(self, value: object, path: str, what: str, *, non_empty: bool = True) -> list[Any]:
+        if not isinstance(value, list):
+            self.wrong(path, f"an array of {what}", value)
+        if non_empty and not value:
+            self.fail(path, f"expected a non-empty array of {what}; got []")
+        return value
+
+    def required(self, table: Mapping[str, Any], key: str, path: str, expected: str) -> Any:
+        if key not in table:
+            self.fail(_join(path, key), f"missing; expected {expected}")
+        return table[key]
+
+
+# -- the [model] table --------------------------------------------------------------------
+
+
+def _cutoff(reader: _Reader, value: object, path: str, modes: int) -> int | list[int]:
+    """An integer cutoff, or one per mode."""
+    if isinstance(value, list):
+        items = reader.array(value, path, "integers (one per mode)")
+        if len(items) != modes:
+            reader.fail(
+                path, f"expected {modes} cutoffs (one per mode) or one integer; got {len(items)}"
+            )
+        return [reader.integer(v, _join(path, k), 1, MAX_CUTOFF) for k, v in enumerate(items)]
+    if isinstance(value, bool) or not isinstance(value, int):
+        reader.wrong(path, f"an integer from 1 to {MAX_CUTOFF}, or an array of them", value)
+    return reader.integer(value, path, 1, MAX_CUTOFF)
+
+
+def _total(reader: _Reader, table: Mapping[str, Any], path: str) -> int | None:
+    if "total" not in table:
+        return None
+    return reader.integer(table["total"], _join(path, "total"), 0, MAX_TOTAL)
+
+
+def _triples(
+    reader: _Reader, value: object, path: str, modes: int | None, what: str
+) -> list[tuple[int, int, float]]:
+    """``[[i, j, x], ...]`` (``x`` optional only for edges, where it defaults to 1)."""
+    optional_value = what == "t"
+    shape = f"[i, j] or [i, j, {what}]" if optional_value else f"[i, j, {what}]"
+    rows = reader.array(value, path, f"{shape} arrays")
+    out: list[tuple[int, int, float]] = []
+    seen: dict[frozenset[int], int] = {}
+    upper = MAX_MODES - 1 if modes is None else modes - 1
+    for k, row in enumerate(rows):
+        row_path = _join(path, k)
+        if not isinstance(row, list) or len(row) not in ((2, 3) if optional_value else (3,)):
+            reader.wrong(row_path, shape, row)
+        i = reader.integer(row[0], _join(row_path, 0), 0, upper)
+        j = reader.integer(row[1], _join(row_path, 1), 0, upper)
+        if i == j:
+            reader.fail(row_path, f"expected two different modes; got [{i}, {j}, ...]")
+        pair = frozenset((i, j))
+        if pair in seen:
+            reader.fail(row_path, f"pair ({i}, {j}) repeats {_join(path, seen[pair])}")
+        seen[pair] = k
+        x = reader.number(row[2], _join(row_path, 2)) if len(row) == 3 else 1.0
+        out.append((i, j, x))
+    return out
+
+
+def _bose_hubbard(reader: _Reader, table: Mapping[str, Any], needs_cutoff: bool) -> Model:
+    path = "model"
+    lattice = reader.choice(
+        reader.required(table, "lattice", path, "one of " + ", ".join(_LATTICES)),
+        "model.lattice",
+        _LATTICES,
+    )
+    common = ["kind", "lattice", "cutoff", "total"]
+    specific = {
+        "chain": ["sites"],
+        "ring": ["sites"],
+        "rectangle": ["rows", "cols", "periodic"],
+        "edges": ["edges", "sites"],
+    }[lattice]
+    reader.check_keys(table, path, common + specific, hint=f' for lattice = "{lattice}"')
+    sites: int | None = None
+    if lattice in ("chain", "ring"):
+        minimum = 3 if lattice == "ring" else 1
+        sites = reader.integer(
+            reader.required(table, "sites", path, f"an integer >= {minimum}"),
+            "model.sites",
+            minimum,
+            MAX_MODES,
+        )
+        edges: list[Any] = chain_edges(sites, periodic=lattice == "ring")
+    elif lattice == "rectangle":
+        rows = reader.integer(
+            reader.required(table, "rows", path, "an integer >= 1"), "model.rows", 1, MAX_MODES
+        )
+        cols = reader.integer(
+            reader.required(table, "cols", path, "an integer >= 1"), "model.cols", 1, MAX_MODES
+        )
+        if rows * cols > MAX_MODES:
+            reader.fail("model", f"expected rows * cols <= {MAX_MODES}; got {rows * cols}")
+        periodic = reader.boolean(table.get("periodic", False), "model.periodic")
+        sites = rows * cols
+        edges = rectangular_edges(rows, cols, periodic)
+    else:
+        if "sites" in table:
+            sites = reader.integer(table["sites"], "model.sites", 1, MAX_MODES)
+        edges = _triples(
+            reader,
+            reader.required(table, "edges", path, "[[i, j], ...]"),
+            "model.edges",
+            sites,
+            "t",
+        )
+        if sites is None:
+            sites = 1 + max(max(i, j) for i, j, _ in edges)
+    total = _total(reader, table, path)
+    cutoff: int | list[int] | None = None
+    if "cutoff" in table:
+        cutoff = _cutoff(reader, table["cutoff"], "model.cutoff", sites)
+    elif total is None:
+        reader.fail("model.cutoff", "missing; expected an integer >= 1 (or give model.total)")
+    elif needs_cutoff:
+        reader.fail(
+            "model.cutoff",
+            "missing; expected an integer >= 1, required with [drives] because drives "
+            "leave the fixed-total sector and the cutoff then truncates",
+        )
+    return bose_hubbard(edges, sites=sites, cutoff=cutoff, total=total)
+
+
+def _jaynes_cummings_hubbard(reader: _Reader, table: Mapping[str, Any]) -> Model:
+    path = "model"
+    reader.check_keys(table, path, ["kind", "sites", "periodic", "cavity_cutoff", "total"])
+    periodic = reader.boolean(table.get("periodic", False), "model.periodic")
+    minimum = 3 if periodic else 1
+    sites = reader.integer(
+        reader.required(table, "sites", path, f"an integer >= {minimum}"),
+        "model.sites",
+        minimum,
+        MAX_MODES // 2,
+    )
+    cavity_cutoff = reader.integer(
+        reader.required(table, "cavity_cutoff", path, "an integer >= 1"),
+        "model.cavity_cutoff",
+        1,
+        MAX_CUTOFF,
+    )
+    return jaynes_cummings_hubbard(
+        sites, periodic=periodic, cavity_cutoff=cavity_cutoff, total=_total(reader, table, path)
+    )
+
+
+def _kerr_network(reader: _Reader, table: Mapping[str, Any]) -> Model:
+    path = "model"
+    allowed = ["kind", "frequencies", "self_kerr", "cross_kerr", "couplings", "cutoff", "total"]
+    reader.check_keys(table, path, allowed)
+    raw = reader.array(
+        reader.required(table, "frequencies", path, "an array of numbers (one per mode)"),
+        "model.frequencies",
+        "numbers (one per mode)",
+    )
+    if len(raw) > MAX_MODES:
+        reader.fail("model.frequencies", f"expected at most {MAX_MODES} modes; got {len(raw)}")
+    frequencies = [reader.number(v, _join("model.frequencies", k)) for k, v in enumerate(raw)]
+    modes = len(frequencies)
+    self_kerr: float | list[float] = 0.0
+    if "self_kerr" in table:
+        value = table["self_kerr"]
+        if isinstance(value, list):
+            items = reader.array(value, "model.self_kerr", "numbers (one per mode)")
+            if len(items) != modes:
+                reader.fail(
+                    "model.self_kerr",
+                    f"expected one number or {modes} (one per mode); got {len(items)} numbers",
+                )
+            self_kerr = [reader.number(v, _join("model.self_kerr", k)) for k, v in enumerate(items)]
+        else:
+            self_kerr = reader.number(value, "model.self_kerr")
+    pairs: dict[str, dict[tuple[int, int], float]] = {}
+    for key, what in (("cross_kerr", "chi"), ("couplings", "g")):
+        if key in table:
+            triples = _triples(reader, table[key], _join(path, key), modes, what)
+            pairs[key] = {(i, j): x for i, j, x in triples}
+    cutoff = _cutoff(
+        reader,
+        reader.required(table, "cutoff", path, "an integer >= 1 or one per mode"),
+        "model.cutoff",
+        modes,
+    )
+    return kerr_network(
+        frequencies,
+        self_kerr=self_kerr,
+        cross_kerr=pairs.get("cross_kerr"),
+        couplings=pairs.get("couplings"),
+        cutoff=cutoff,
+        total=_total(reader, table, path),
+    )
+
+
+def _drive_table(
+    reader: _Reader, value: object, path: str, modes: int
+) -> dict[str, dict[int, float]]:
+    table = reader.table(value, path)
+    reader.check_keys(table, path, ["coherent", "two_photon"])
+    if not table:
+        reader.fail(path, "empty; expected coherent = [[mode, amplitude], ...] or two_photon")
+    drives: dict[str, dict[int, float]] = {}
+    for key, entries in table.items():
+        key_path = _join(path, key)
+        rows = reader.array(entries, key_path, "[mode, amplitude] pairs")
+        amplitudes: dict[int, float] = {}
+        for k, row in enumerate(rows):
+            row_path = _join(key_path, k)
+            if not isinstance(row, list) or len(row) != 2:
+                reader.wrong(row_path, "[mode, amplitude]", row)
+            mode = reader.integer(row[0], _join(row_path, 0), 0, modes - 1)
+            if mode in amplitudes:
+                reader.fail(_join(row_path, 0), f"mode {mode} is driven twice; list it once")
+            amplitudes[mode] = reader.number(row[1], _join(row_path, 1))
+        drives[key] = amplitudes
+    return drives
+
+
+def _build_model(reader: _Reader, document: Mapping[str, Any]) -> Model:
+    table = reader.table(
+        reader.required(document, "model", "", "a [model] table with a kind"), "model"
+    )
+    kind = reader.choice(
+        reader.required(table, "kind", "model", "one of " + ", ".join(f'"{k}"' for k in KINDS)),
+        "model.kind",
+        KINDS,
+    )
+    try:
+        if kind == "bose-hubbard":
+            model = _bose_hubbard(reader, table, needs_cutoff="drives" in document)
+        elif kind == "jaynes-cummings-hubbard":
+            model = _jaynes_cummings_hubbard(reader, table)
+        else:
+            model = _kerr_network(reader, table)
+        if "drives" in document:
+            drives = _drive_table(reader, document["drives"], "drives", model.space.modes)
+            model = with_drives(
+                model, coherent=drives.get("coherent"), two_photon=drives.get("two_photon")
+            )
+    except ModelFileError:
+        raise
+    except (ValueError, TypeError, OverflowError, MemoryError) as error:
+        # The builders and the core check what the schema cannot (empty sectors, sizes).
+        reader.fail("model", f"cannot build this model: {error}")
+    return model
+
+
+# -- parameters, sweep, record, solver ----------------------------------------------------
+
+
+def _parameters(reader: _Reader, value: object, model: Model) -> Model:
+    table = reader.table(value, "parameters")
+    known = list(model.parameters)
+    hint = f" for model {model.name!r}"
+    reader.check_keys(table, "parameters", known, hint=hint)
+    defaults = dict(model.parameters)
+    for name, raw in table.items():
+        defaults[name] = reader.number(raw, _join("parameters", name))
+    return dataclasses.replace(model, parameters=defaults)
+
+
+def _axis(reader: _Reader, value: object, path: str) -> npt.NDArray[np.float64]:
+    table = reader.table(value, path)
+    reader.check_keys(table, path, ["values", "start", "stop", "num", "spacing"])
+    if "values" in table:
+        extra = sorted(set(table) - {"values"})
+        if extra:
+            reader.fail(
+                _join(path, extra[0]), "expected either values = [...] or start/stop/num, not both"
+            )
+        items = reader.array(table["values"], _join(path, "values"), "numbers")
+        if len(items) > MAX_POINTS:
+            reader.fail(
+                _join(path, "values"), f"expected at most {MAX_POINTS} values; got {len(items)}"
+            )
+        return np.array(
+            [reader.number(v, _join(_join(path, "values"), k)) for k, v in enumerate(items)],
+            dtype=np.float64,
+        )
+    if not table:
+        reader.fail(path, "empty; expected values = [...] or start, stop and num")
+    start = reader.number(
+        reader.required(table, "start", path, "a number (or give values = [...])"),
+        _join(path, "start"),
+    )
+    stop = reader.number(reader.required(table, "stop", path, "a number"), _join(path, "stop"))
+    num = reader.integer(
+        reader.required(table, "num", path, "an integer >= 2"), _join(path, "num"), 2, MAX_POINTS
+    )
+    spacing = reader.choice(table.get("spacing", "linear"), _join(path, "spacing"), _SPACINGS)
+    if spacing == "geometric":
+        if start == 0 or stop == 0 or (start > 0) != (stop > 0):
+            reader.fail(
+                _join(path, "spacing"),
+                f'"geometric" needs start and stop of the same sign, both nonzero; '
+                f"got start={start}, stop={stop}",
+            )
+        return np.geomspace(start, stop, num)
+    return np.linspace(start, stop, num)
+
+
+def _sweep(reader: _Reader, value: object, model: Model) -> SweepGrid:
+    table = reader.table(value, "sweep")
+    if not table:
+        reader.fail("sweep", "empty; expected one [sweep.NAME] table per swept parameter")
+    reader.check_keys(table, "sweep", list(model.parameters), hint=f" for model {model.name!r}")
+    axes: dict[str, npt.NDArray[np.float64]] = {}
+    size = 1
+    for name, spec in table.items():
+        path = _join("sweep", name)
+        if model.pieces[name].is_zero():
+            reader.fail(
+                path,
+                f"the model has no {name!r} terms, so sweeping this parameter changes "
+                "nothing; add those terms to [model] or drop the sweep",
+            )
+        axes[name] = _axis(reader, spec, path)
+        size *= len(axes[name])
+        if size > MAX_POINTS:
+            reader.fail("sweep", f"expected at most {MAX_POINTS} grid points; got {size} or more")
+    return SweepGrid(axes)
+
+
+def _record(
+    reader: _Reader, value: object, model: Model
+) -> tuple[tuple[str, ...], int, tuple[int, ...]]:
+    table = reader.table(value, "record")
+    reader.check_keys(table, "record", ["quantities", "levels", "entropy_modes"])
+    quantities: tuple[str, ...] = ("energy",)
+    if "quantities" in table:
+        path = "record.quantities"
+        items = reader.array(table["quantities"], path, "quantity names")
+        chosen: list[str] = []
+        for k, item in enumerate(items):
+            name = reader.choice(item, _join(path, k), RECORDABLE)
+            if name in chosen:
+                reader.fail(_join(path, k), f"{name!r} is listed twice")
+            chosen.append(name)
+        quantities = tuple(chosen)
+    dim = model.space.dim
+    needed = max((_DEFAULT_LEVELS.get(q, 1) for q in quantities), default=1)
+    minimum = 2 if "gap" in quantities else 1
+    if dim < minimum:
+        reader.fail("record.quantities", "'gap' needs 2 levels but the space has only 1 state")
+    if "levels" in table:
+        levels = reader.integer(table["levels"], "record.levels", minimum, dim)
+    else:
+        levels = min(needed, dim)
+    entropy_modes: tuple[int, ...] = ()
+    modes = model.space.modes
+    if "entropy_modes" in table:
+        path = "record.entropy_modes"
+        if "entropy" not in quantities:
+            reader.fail(path, "given, but 'entropy' is not in record.quantities")
+        items = reader.array(table["entropy_modes"], path, "mode indices")
+        picked: list[int] = []
+        for k, item in enumerate(items):
+            mode = reader.integer(item, _join(path, k), 0, modes - 1)
+            if mode in picked:
+                reader.fail(_join(path, k), f"mode {mode} is listed twice")
+            picked.append(mode)
+        if len(picked) == modes:
+            reader.fail(path, f"expected a proper subset of the {modes} modes; got all of them")
+        entropy_modes = tuple(picked)
+    elif "entropy" in quantities:
+        if modes < 2:
+            reader.fail("record.quantities", "'entropy' needs a model with at least 2 modes")
+        entropy_modes = tuple(range(modes // 2))
+    return quantities, levels, entropy_modes
+
+
+def _solver(reader: _Reader, value: object) -> dict[str, object]:
+    table = reader.table(value, "solver")
+    reader.check_keys(table, "solver", ["tol", "method", "threads"])
+    settings: dict[str, object] = {"tol": 1e-9, "method": "auto", "threads": None}
+    if "tol" in table:
+        tol = reader.number(table["tol"], "solver.tol")
+        if not 0 < tol < 1:
+            reader.wrong("solver.tol", "a number between 0 and 1 (exclusive)", table["tol"])
+        settings["tol"] = tol
+    if "method" in table:
+        settings["method"] = reader.choice(table["method"], "solver.method", SOLVER_METHODS)
+    if "threads" in table:
+        settings["threads"] = reader.integer(table["threads"], "solver.threads", 1, MAX_THREADS)
+    return settings
+
+
+# -- entry points -------------------------------------------------------------------------
+
+
+def _parse(text: str, source: str, path: str | None) -> ModelFile:
+    reader = _Reader(source)
+    try:
+        document = tomllib.loads(text)
+    except tomllib.TOMLDecodeError as error:
+        reader.fail(None, f"not valid TOML: {error}")
+    except RecursionError:
+        reader.fail(None, "not valid TOML: arrays or tables nested too deeply")
+    allowed = ["schema", "model", "parameters", "drives", "sweep", "record", "solver"]
+    reader.check_keys(document, "", allowed)
+    if "schema" in document:
+        version = document["schema"]
+        if isinstance(version, bool) or version != SCHEMA_VERSION:
+            reader.wrong("schema", f"{SCHEMA_VERSION} (the only layout so far)", version)
+    model = _build_model(reader, document)
+    if "parameters" in document:
+        model = _parameters(reader, document["parameters"], model)
+    sweep = _sweep(reader, document["sweep"], model) if "sweep" in document else None
+    record, levels, entropy_modes = _record(reader, document.get("record", {}), model)
+    solver = _solver(reader, document.get("solver", {}))
+    return ModelFile(
+        path=path,
+        model=model,
+        sweep=sweep,
+        record=record,
+        levels=levels,
+        solver=solver,
+        entropy_modes=entropy_modes,
+        text_hash=hashlib.sha256(text.encode("utf-8", "surrogatepass")).hexdigest(),
+    )
+
+
+def parse_model_text(text: str, source: str = "<string>") -> ModelFile:
+    """Read a model description from TOML text.
+
+    Parameters
+    ----------
+    text : str
+        The TOML document (see the module docstring for the schema).
+    source : str, default "<string>"
+        Name used in error messages.
+
+    Returns
+    -------
+    ModelFile
+        With ``path=None``.
+
+    Raises
+    ------
+    ModelFileError
+        For invalid TOML (with line and column) and every schema violation (with the
+        key path, e.g. ``sweep.U.num``, and what was expected).
+
+    Examples
+    --------
+    >>> spec = parse_model_text('''
+    ... [model]
+    ... kind = "bose-hubbard"
+    ... lattice = "chain"
+    ... sites = 2
+    ... total = 2
+    ... [sweep.U]
+    ... values = [0.0, 4.0]
+    ... ''')
+    >>> spec.model.space.dim, spec.sweep.points()
+    (3, [{'U': 0.0}, {'U': 4.0}])
+    """
+    if not isinstance(text, str):
+        raise TypeError(f"text must be a str; got {type(text).__name__}")
+    return _parse(text, source, None)
+
+
+def load_model_file(path: str | os.PathLike[str]) -> ModelFile:
+    """Read and check a TOML model file.
+
+    Parameters
+    ----------
+    path : str or path-like
+        The file (UTF-8 TOML; see the module docstring for the schema).
+
+    Returns
+    -------
+    ModelFile
+        The built model, sweep grid, record list and solver settings.
+
+    Raises
+    ------
+    ModelFileError
+        For text that is not UTF-8, invalid TOML (with line and column) and every
+        schema violation (naming the file, the key path and what was expected).
+    OSError
+        When the file cannot be read (e.g. ``FileNotFoundError``).
+    """
+    name = os.fspath(path)
+    with open(name, "rb") as handle:
+        raw = handle.read()
+    try:
+        text = raw.decode("utf-8")
+    except UnicodeDecodeError as error:
+        raise ModelFileError(name, None, f"not UTF-8 text: {error}") from None
+    return _parse(text, name, name)

@@ -1,0 +1,637 @@
+"""The ``fockmill`` command: solve a model file, run resumable sweeps, show and plot results.
+
+Exit status: 0 success, 1 the computation failed (no convergence, out of memory),
+2 bad usage or bad input (one-line message on stderr), 130 interrupted (Ctrl-C).
+"""
+
+from __future__ import annotations
+
+import argparse
+import csv
+import io
+import json
+import math
+import os
+import sys
+from collections.abc import Sequence
+from pathlib import Path
+from typing import IO, Any, NoReturn
+
+from fockmill._store import PointResult, ResultsStore, SweepTable
+from fockmill.exceptions import ConvergenceError
+
+__all__ = ["main"]
+
+PROGRAM = "fockmill"
+DEMO_MODEL = "_demo_model.toml"
+DEMO_STEM = "ring_kerr_crossover"
+
+EXIT_OK = 0
+EXIT_FAILED = 1
+EXIT_USAGE = 2
+EXIT_INTERRUPTED = 130
+
+
+class UsageError(Exception):
+    """Bad command-line input: reported as one line, exit status 2."""
+
+
+class _Parser(argparse.ArgumentParser):
+    """argparse with a one-line error message instead of the usage block."""
+
+    def error(self, message: str) -> NoReturn:
+        raise UsageError(f"{message} (see '{self.prog} --help')")
+
+
+# -- parser -------------------------------------------------------------------------
+
+_DESCRIPTION = """\
+Ground states and observables of coupled bosonic modes from a model file (TOML).
+
+subcommands:
+  solve   one point at the model file's default parameters
+  sweep   the model file's parameter grid, saved point by point (resumable)
+  show    print a results file as a table, CSV or JSON
+  plot    draw recorded quantities against a swept parameter (needs matplotlib)
+  demo    run the bundled example sweep (an invented ring of Kerr resonators)
+"""
+
+_EPILOG = """\
+exit status: 0 ok, 1 computation failed, 2 bad usage or input, 130 interrupted.
+examples:
+  fockmill solve ring.toml --set U=2.5
+  fockmill sweep ring.toml --out ring.sqlite --workers 2
+  fockmill show ring.sqlite --format csv > ring.csv
+  fockmill plot ring.sqlite --out ring.png --y energy,gap,entropy
+"""
+
+
+def build_parser() -> argparse.ArgumentParser:
+    """The argument parser of the ``fockmill`` command (all subcommands)."""
+    parser = _Parser(
+        prog=PROGRAM,
+        description=_DESCRIPTION,
+        epilog=_EPILOG,
+        formatter_class=argparse.RawDescriptionHelpFormatter,
+    )
+    from fockmill._native import __version__
+
+    parser.add_argument("--version", action="version", version=f"%(prog)s {__version__}")
+    commands = parser.add_subparsers(dest="command", metavar="SUBCOMMAND", parser_class=_Parser)
+
+    solve = commands.add_parser(
+        "solve",
+        help="solve one point at the model file's default parameters",
+        description="Solve the model of MODEL.toml at its default parameters (optionally "
+        "changed with --set) and print the lowest energies, the gap and the observables "
+        "the file asks to record.",
+    )
+    solve.add_argument("model", metavar="MODEL.toml", help="model file")
+    solve.add_argument(
+        "--set",
+        dest="overrides",
+        metavar="NAME=VALUE",
+        action="append",
+        default=[],
+        help="change one parameter for this run (repeatable), e.g. --set U=2.5",
+    )
+    solve.add_argument(
+        "--format", choices=("text", "json"), default="text", help="output format (default text)"
+    )
+
+    sweep = commands.add_parser(
+        "sweep",
+        help="run the model file's parameter sweep into a results file",
+        description="Run the sweep grid of MODEL.toml and commit every finished point to "
+        "RESULTS.sqlite. Running the same command again resumes: finished points are kept "
+        "and skipped. The file refuses a different model, grid or record list.",
+    )
+    sweep.add_argument("model", metavar="MODEL.toml", help="model file with a sweep grid")
+    sweep.add_argument(
+        "--out", required=True, metavar="RESULTS.sqlite", help="results file (created or resumed)"
+    )
+    place = sweep.add_mutually_exclusive_group()
+    place.add_argument(
+        "--workers",
+        type=_positive_int,
+        metavar="N",
+        help="local worker processes (default: all CPU cores; 1 runs in this process)",
+    )
+    place.add_argument(
+        "--dask-scheduler",
+        metavar="ADDRESS",
+        help="run on an existing Dask cluster, e.g. tcp://10.0.0.5:8786 (needs fockmill[cluster])",
+    )
+    place.add_argument(
+        "--dask-local",
+        type=_positive_int,
+        metavar="N",
+        help="start a local Dask cluster of N single-threaded worker processes",
+    )
+    sweep.add_argument(
+        "--chunk",
+        type=_positive_int,
+        metavar="N",
+        help="consecutive points per task (default: about four tasks per worker)",
+    )
+    sweep.add_argument("--no-progress", action="store_true", help="hide the progress bar")
+
+    show = commands.add_parser(
+        "show",
+        help="print a results file",
+        description="Print the finished points of RESULTS.sqlite. 'table' shows scalar "
+        "quantities and short per-mode lists; 'csv' flattens every recorded value into "
+        "columns; 'json' prints the meta data and every row.",
+    )
+    show.add_argument("results", metavar="RESULTS.sqlite", help="results file")
+    show.add_argument(
+        "--format", choices=("table", "csv", "json"), default="table", help="default table"
+    )
+
+    plot = commands.add_parser(
+        "plot",
+        help="plot recorded quantities against a swept parameter",
+        description="Draw one panel per quantity against a swept parameter and write an "
+        "image (format from the suffix: .png, .pdf, .svg). Needs matplotlib.",
+    )
+    plot.add_argument("results", metavar="RESULTS.sqlite", help="results file")
+    plot.add_argument("--out", required=True, metavar="FIG.png", help="image file to write")
+    plot.add_argument(
+        "--x", metavar="PARAM", help="parameter on the horizontal axis (default: first swept)"
+    )
+    plot.add_argument(
+        "--y",
+        default="energy,gap",
+        metavar="Q1,Q2,...",
+        help="comma-separated quantities (default energy,gap); any of energy, gap, levels, "
+        "populations, number_variance, one_body, entropy, top_weight, residual, seconds",
+    )
+
+    demo = commands.add_parser(
+        "demo",
+        help="run the bundled example sweep",
+        description="Sweep the bundled example model, an invented ring of six coupled Kerr "
+        "resonators whose on-site interaction U runs across the crossover from "
+        "delocalised (superfluid-like) to localised (Mott-like) photons; write a results "
+        "file and a figure into DIR and print the table.",
+    )
+    demo.add_argument(
+        "--out-dir", default="fockmill-demo", metavar="DIR", help="default ./fockmill-demo"
+    )
+    demo.add_argument(
+        "--workers", type=_positive_int, metavar="N", help="worker processes (default: all cores)"
+    )
+    demo.add_argument("--no-progress", action="store_true", help="hide the progress bar")
+    return parser
+
+
+def _positive_int(text: str) -> int:
+    try:
+        value = int(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"expected a positive integer, got {text!r}") from None
+    if value < 1:
+        raise argparse.ArgumentTypeError(f"expected a positive integer, got {text!r}")
+    return value
+
+
+# -- model files ----------------------------------------------------------------------
+
+
+def _load_model(path: str) -> Any:
+    from fockmill._modelfile import load_model_file
+
+    file = Path(path)
+    if not file.is_file():
+        raise UsageError(f"model file {path!r} not found")
+    return load_model_file(file)
+
+
+def _demo_model() -> Any:
+    from importlib.resources import files
+
+    from fockmill._modelfile import parse_model_text
+
+    text = files("fockmill").joinpath(DEMO_MODEL).read_text(encoding="utf-8")
+    return parse_model_text(text)
+
+
+def _solver_options(model_file: Any) -> dict[str, object]:
+    return dict(getattr(model_file, "solver", None) or {})
+
+
+# -- formatting -----------------------------------------------------------------------
+
+
+def _number(value: float | None) -> str:
+    if value is None or (isinstance(value, float) and math.isnan(value)):
+        return "-"
+    return f"{value:.10g}"
+
+
+def _short_list(values: Sequence[Any]) -> str:
+    return "[" + " ".join(f"{float(v):.4f}" for v in values) + "]"
+
+
+_MATRIX_KEYS = ("one_body", "one_body_imag")
+
+
+def _table_columns(table: SweepTable) -> list[str]:
+    columns = ["point", *table.swept, "energy"]
+    if any(r.gap is not None for r in table.rows):
+        columns.append("gap")
+    if any(r.levels is not None for r in table.rows):
+        columns.append("levels")
+    for row in table.rows:
+        columns.extend(k for k in row.observables if k not in columns and k not in _MATRIX_KEYS)
+    columns += ["residual", "method", "seconds"]
+    return columns
+
+
+def _cell(row: PointResult, column: str) -> str:
+    if column == "point":
+        return str(row.index)
+    if column in row.parameters:
+        return f"{row.parameters[column]:g}"
+    if column == "energy":
+        return _number(row.energy)
+    if column == "gap":
+        return _number(row.gap)
+    if column == "levels":
+        return "-" if row.levels is None else _short_list(row.levels)
+    if column == "residual":
+        return f"{row.residual:.1e}"
+    if column == "method":
+        return row.method
+    if column == "seconds":
+        return f"{row.seconds:.3f}"
+    value = row.observables.get(column)
+    if value is None:
+        return "-"
+    return _short_list(value) if isinstance(value, list) else _number(float(value))
+
+
+def format_table(table: SweepTable, meta: dict[str, str] | None = None) -> str:
+    """Aligned text table of a sweep (matrices are left to the CSV/JSON formats)."""
+    lines: list[str] = []
+    if meta:
+        total = meta.get("points", "?")
+        lines.append(
+            f"# model {meta.get('model_name', '?')} (fingerprint "
+            f"{meta.get('model_fingerprint', '?')}), {len(table)} of {total} points finished"
+        )
+    columns = _table_columns(table)
+    cells = [[_cell(row, c) for c in columns] for row in table.rows]
+    widths = [max(len(c), *(len(r[i]) for r in cells)) for i, c in enumerate(columns)]
+    lines.append("  ".join(c.rjust(w) for c, w in zip(columns, widths, strict=True)))
+    lines.extend("  ".join(v.rjust(w) for v, w in zip(r, widths, strict=True)) for r in cells)
+    if any(k in row.observables for row in table.rows for k in _MATRIX_KEYS):
+        lines.append("# one_body matrices are not shown here; use --format csv or json")
+    return "\n".join(lines)
+
+
+def _flatten(prefix: str, value: Any, out: dict[str, Any]) -> None:
+    if isinstance(value, list | tuple):
+        for i, item in enumerate(value):
+            _flatten(f"{prefix}_{i}", item, out)
+    else:
+        out[prefix] = value
+
+
+def format_csv(table: SweepTable) -> str:
+    """Every recorded value, vectors and matrices flattened to ``name_i``/``name_i_j``."""
+    flat_rows: list[dict[str, Any]] = []
+    for row in table.rows:
+        flat: dict[str, Any] = {"point": row.index}
+        flat.update(row.parameters)
+        flat["energy"] = row.energy
+        flat["gap"] = row.gap
+        if row.levels is not None:
+            _flatten("level", list(row.levels), flat)
+        for key, value in row.observables.items():
+            _flatten(key, value, flat)
+        flat.update(residual=row.residual, method=row.method, seconds=row.seconds)
+        flat["finished"] = row.finished
+        flat_rows.append(flat)
+    columns: list[str] = []
+    for flat in flat_rows:
+        columns.extend(k for k in flat if k not in columns)
+    buffer = io.StringIO()
+    writer = csv.DictWriter(buffer, fieldnames=columns, lineterminator="\n")
+    writer.writeheader()
+    for flat in flat_rows:
+        writer.writerow({k: "" if v is None else v for k, v in flat.items()})
+    return buffer.getvalue().rstrip("\n")
+
+
+def _row_dict(row: PointResult) -> dict[str, Any]:
+    return {
+        "point": row.index,
+        "parameters": row.parameters,
+        "energy": row.energy,
+        "gap": row.gap,
+        "levels": None if row.levels is None else list(row.levels),
+        "observables": row.observables,
+        "residual": row.residual,
+        "method": row.method,
+        "seconds": row.seconds,
+        "finished": row.finished,
+    }
+
+
+def format_json(table: SweepTable, meta: dict[str, str]) -> str:
+    """Meta data and every row as one JSON document."""
+    return json.dumps({"meta": meta, "rows": [_row_dict(r) for r in table.rows]}, indent=2)
+
+
+def _format_point(row: PointResult, model: Any, swept_labels: Sequence[str]) -> str:
+    lines = [f"model      {model.name} (dim {model.space.dim}, {model.space.modes} modes)"]
+    lines.append("parameters " + ", ".join(f"{k}={v:g}" for k, v in row.parameters.items()))
+    if row.levels is not None:
+        energies = "  ".join(f"E{k}={e:.10g}" for k, e in enumerate(row.levels))
+        lines.append(f"energies   {energies}")
+    else:
+        lines.append(f"energy     E0={row.energy:.10g}")
+    if row.gap is not None:
+        lines.append(f"gap        {row.gap:.10g}")
+    labels = list(swept_labels)
+    for key, value in row.observables.items():
+        if key in _MATRIX_KEYS:
+            lines.append(f"{key}:")
+            lines.extend("  " + _short_list(line) for line in value)
+        elif isinstance(value, list):
+            named = (
+                ", ".join(f"{label}={v:.6g}" for label, v in zip(labels, value, strict=True))
+                if len(labels) == len(value)
+                else _short_list(value)
+            )
+            lines.append(f"{key:<10} {named}")
+        else:
+            lines.append(f"{key:<10} {float(value):.10g}")
+    lines.append(f"residual   {row.residual:.2e}  ({row.method}, {row.seconds:.3f} s)")
+    return "\n".join(lines)
+
+
+# -- subcommands ----------------------------------------------------------------------
+
+
+def _parse_overrides(items: Sequence[str]) -> dict[str, float]:
+    values: dict[str, float] = {}
+    for item in items:
+        name, sep, text = item.partition("=")
+        if not sep or not name.strip():
+            raise UsageError(f"--set expects NAME=VALUE, got {item!r}")
+        try:
+            values[name.strip()] = float(text)
+        except ValueError:
+            raise UsageError(f"--set {item!r}: {text!r} is not a number") from None
+    return values
+
+
+def _command_solve(args: argparse.Namespace, out: IO[str]) -> int:
+    from fockmill._sweep import run_sweep
+
+    model_file = _load_model(args.model)
+    model = model_file.model
+    overrides = _parse_overrides(args.overrides)
+    unknown = sorted(set(overrides) - set(model.parameters))
+    if unknown:
+        raise UsageError(
+            f"--set names unknown parameter(s) {unknown}; the model has {sorted(model.parameters)}"
+        )
+    record = tuple(dict.fromkeys((*model_file.record, "levels")))
+    levels = max(int(model_file.levels), 2 if "gap" in record else 1)
+    levels = min(levels, model.space.dim)
+    if levels < 2:
+        record = tuple(r for r in record if r != "gap")
+    table = run_sweep(
+        model,
+        [overrides],
+        record=record,
+        levels=levels,
+        solver_options=_solver_options(model_file),
+        entropy_modes=model_file.entropy_modes or None,
+        executor="serial",
+        progress=False,
+    )
+    row = table.rows[0]
+    if args.format == "json":
+        print(json.dumps(_row_dict(row), indent=2), file=out)
+    else:
+        print(_format_point(row, model, model.mode_labels), file=out)
+    return EXIT_OK
+
+
+def _dask_client(args: argparse.Namespace) -> Any:
+    if args.dask_scheduler is None and args.dask_local is None:
+        return None
+    try:
+        from distributed import Client, LocalCluster
+    except ImportError:
+        raise UsageError(
+            "Dask options need dask.distributed; install it with: pip install 'fockmill[cluster]'"
+        ) from None
+    if args.dask_scheduler is not None:
+        return Client(args.dask_scheduler)
+    cluster = LocalCluster(n_workers=args.dask_local, processes=True, threads_per_worker=1)
+    return Client(cluster)
+
+
+def _run_file_sweep(
+    model_file: Any,
+    results: Path,
+    *,
+    executor: Any,
+    workers: int | None,
+    chunk: int | None,
+    progress: bool,
+) -> SweepTable:
+    from fockmill._sweep import run_sweep
+
+    if model_file.sweep is None:
+        raise UsageError(
+            f"{model_file.path or 'the model file'} defines no sweep grid; add one, or use "
+            "'fockmill solve' for a single point"
+        )
+    levels = int(model_file.levels)
+    return run_sweep(
+        model_file.model,
+        model_file.sweep.points(),
+        store=results,
+        record=tuple(model_file.record),
+        levels=levels,
+        solver_options=_solver_options(model_file),
+        entropy_modes=model_file.entropy_modes or None,
+        executor=executor,
+        workers=workers,
+        chunk=chunk,
+        progress=progress,
+        model_text_hash=model_file.text_hash,
+    )
+
+
+def _single_threaded_blas_for_workers() -> None:
+    """Default the BLAS thread count of worker processes started from here to one.
+
+    Each worker already owns a core; a multi-threaded BLAS on top oversubscribes the
+    machine (OpenBLAS then slows small solves a hundredfold). Values the user set win.
+    """
+    for name in ("OPENBLAS_NUM_THREADS", "OMP_NUM_THREADS", "MKL_NUM_THREADS"):
+        os.environ.setdefault(name, "1")
+
+
+def _command_sweep(args: argparse.Namespace, out: IO[str]) -> int:
+    model_file = _load_model(args.model)
+    if args.workers != 1:
+        _single_threaded_blas_for_workers()
+    client = _dask_client(args)
+    try:
+        table = _run_file_sweep(
+            model_file,
+            Path(args.out),
+            executor=client,
+            workers=args.workers,
+            chunk=args.chunk,
+            progress=not args.no_progress,
+        )
+    finally:
+        if client is not None:
+            cluster = getattr(client, "cluster", None) if args.dask_local else None
+            client.close()
+            if cluster is not None:
+                cluster.close()
+    print(f"{len(table)} points in {args.out}", file=out)
+    return EXIT_OK
+
+
+def _open_results(path: str) -> ResultsStore:
+    if not Path(path).is_file():
+        raise UsageError(f"results file {path!r} not found")
+    return ResultsStore.open(path)
+
+
+def _command_show(args: argparse.Namespace, out: IO[str]) -> int:
+    with _open_results(args.results) as store:
+        table = store.to_table()
+        meta = store.meta
+    if args.format == "csv":
+        text = format_csv(table)
+    elif args.format == "json":
+        text = format_json(table, meta)
+    else:
+        text = format_table(table, meta)
+    print(text, file=out)
+    return EXIT_OK
+
+
+def _command_plot(args: argparse.Namespace, out: IO[str]) -> int:
+    from fockmill._plot import plot_sweep
+
+    quantities = [q.strip() for q in args.y.split(",") if q.strip()]
+    with _open_results(args.results) as store:
+        path = plot_sweep(store, args.out, x=args.x, y=quantities)
+    print(f"wrote {path}", file=out)
+    return EXIT_OK
+
+
+def _command_demo(args: argparse.Namespace, out: IO[str]) -> int:
+    model_file = _demo_model()
+    directory = Path(args.out_dir)
+    results = directory / f"{DEMO_STEM}.sqlite"
+    print(
+        f"demo: {model_file.model.name}, an invented ring of coupled Kerr resonators "
+        f"(dim {model_file.model.space.dim}); results in {results}",
+        file=out,
+    )
+    if args.workers != 1:
+        _single_threaded_blas_for_workers()
+    table = _run_file_sweep(
+        model_file,
+        results,
+        executor=None,
+        workers=args.workers,
+        chunk=None,
+        progress=not args.no_progress,
+    )
+    with ResultsStore.open(results) as store:
+        print(format_table(table, store.meta), file=out)
+    try:
+        from fockmill._plot import plot_sweep
+
+        wanted = ("energy", "gap", "number_variance", "entropy")
+        figure = plot_sweep(
+            table,
+            directory / f"{DEMO_STEM}.png",
+            y=[q for q in wanted if q in table.quantities()],
+            title=f"{model_file.model.name} (invented example)",
+            mode_labels=model_file.model.mode_labels,
+        )
+        print(f"figure: {figure}", file=out)
+    except ImportError as exc:
+        print(f"no figure: {exc}", file=out)
+    return EXIT_OK
+
+
+_COMMANDS = {
+    "solve": _command_solve,
+    "sweep": _command_sweep,
+    "show": _command_show,
+    "plot": _command_plot,
+    "demo": _command_demo,
+}
+
+
+def main(argv: Sequence[str] | None = None, *, out: IO[str] | None = None) -> int:
+    """Run the ``fockmill`` command line; return the exit status.
+
+    Parameters
+    ----------
+    argv : sequence of str, optional
+        Arguments without the program name (default: ``sys.argv[1:]``).
+    out : text stream, optional
+        Where results are printed (default: standard output). Errors go to stderr.
+
+    Returns
+    -------
+    int
+        0 ok, 1 computation failed, 2 bad usage or input, 130 interrupted.
+    """
+    stream = out if out is not None else sys.stdout
+    try:
+        try:
+            args = build_parser().parse_args(argv)
+        except SystemExit as exc:  # --help and --version end here
+            return int(exc.code or 0)
+        if args.command is None:
+            raise UsageError(
+                f"choose a subcommand: {', '.join(_COMMANDS)} (see '{PROGRAM} --help')"
+            )
+        return _COMMANDS[args.command](args, stream)
+    except BrokenPipeError:
+        # The reader went away (e.g. `fockmill show ... | head`): not our error.
+        devnull = os.open(os.devnull, os.O_WRONLY)
+        os.dup2(devnull, sys.stdout.fileno())
+        return EXIT_OK
+    except KeyboardInterrupt:
+        print(
+            f"{PROGRAM}: interrupted; finished points are saved, run the same command to resume",
+            file=sys.stderr,
+        )
+        return EXIT_INTERRUPTED
+    except UsageError as exc:
+        _report(str(exc))
+        return EXIT_USAGE
+    except (ConvergenceError, MemoryError) as exc:
+        print(f"{PROGRAM}: failed: {exc}", file=sys.stderr)
+        return EXIT_FAILED
+    except KeyError as exc:
+        _report(str(exc.args[0]) if exc.args else repr(exc))
+        return EXIT_USAGE
+    except (ValueError, TypeError, OSError, ImportError) as exc:
+        _report(str(exc))
+        return EXIT_USAGE
+
+
+def _report(message: str) -> None:
+    one_line = " ".join(message.split())
+    print(f"{PROGRAM}: error: {one_line}", file=sys.stderr)

@@ -1,0 +1,530 @@
+//! Fast matrix-free products: rows are processed in small blocks whose states are
+//! unpacked once, then terms are applied term by term over the block, with each
+//! term's constants (modes, powers, table strides) hoisted out of the row loop.
+//! Diagonal single-mode terms are folded into per-mode tables.
+//!
+//! Every row still receives its contributions in a fixed order (the diagonal first,
+//! then the off-diagonal terms in order), so results do not depend on threads.
+
+use crate::error::{CoreError, CoreResult};
+use crate::parallel::{Interrupt, Runner};
+use crate::scalar::Scalar;
+use crate::space::{Constraint, FockSpace};
+use crate::terms::{Operator, RowState};
+
+/// Rows per block of unpacked states.
+const KERNEL_BLOCK: usize = 256;
+/// `sqrt(k)` is looked up for `k` below this.
+const SQRT_TABLE: usize = 1 << 12;
+
+/// How the residue owed changes when `delta` charge is placed.
+trait ResidueRule: Copy + Send + Sync {
+    fn step(self, residue: u32, delta: u64) -> u32;
+}
+
+#[derive(Clone, Copy)]
+struct FreeRule;
+impl ResidueRule for FreeRule {
+    #[inline(always)]
+    fn step(self, _: u32, _: u64) -> u32 {
+        0
+    }
+}
+
+#[derive(Clone, Copy)]
+struct ExactRule;
+impl ResidueRule for ExactRule {
+    #[inline(always)]
+    fn step(self, residue: u32, delta: u64) -> u32 {
+        // The images visited are valid states, so the residue never goes negative.
+        (residue as u64).wrapping_sub(delta) as u32
+    }
+}
+
+#[derive(Clone, Copy)]
+struct ModularRule(u64);
+impl ResidueRule for ModularRule {
+    #[inline(always)]
+    fn step(self, residue: u32, delta: u64) -> u32 {
+        ((residue as u64 + self.0 - delta % self.0) % self.0) as u32
+    }
+}
+
+#[derive(Debug, Clone, Copy)]
+struct FactorPlan {
+    mode: usize,
+    lower: u32,
+    raise: u32,
+    cutoff: u32,
+}
+
+/// One mode of a term's span `lo..=hi`, with what re-ranking it needs.
+#[derive(Debug, Clone, Copy)]
+struct SpanStep {
+    mode: usize,
+    base: usize,
+    width: usize,
+    weight: u64,
+    /// Index into the term's factors, or `usize::MAX` for a mode the term leaves alone.
+    factor: usize,
+}
+
+/// A term moving one quantum between two modes (`a_i† a_j` and the like): the common
+/// case, with its own tight loop.
+#[derive(Debug, Clone)]
+struct Hop<S> {
+    coef: S,
+    lo: usize,
+    hi: usize,
+    /// Change of the occupation of `lo` and `hi` (+1 or −1).
+    d_lo: i64,
+    d_hi: i64,
+    cut_lo: u32,
+    cut_hi: u32,
+    base_lo: usize,
+    width_lo: usize,
+    weight_lo: u64,
+    /// The modes strictly between `lo` and `hi`, then `hi` itself.
+    rest: Vec<SpanStep>,
+}
+
+#[derive(Debug, Clone)]
+struct OffDiagonal<S> {
+    coef: S,
+    factors: Vec<FactorPlan>,
+    span: Vec<SpanStep>,
+    lo: usize,
+    hi: usize,
+}
+
+/// An operator prepared for fast products on one space.
+#[derive(Debug, Clone)]
+pub struct ProductKernel<S: Scalar> {
+    modes: usize,
+    /// `diag_table[diag_start[i] + n]`: sum of the single-mode diagonal terms of mode
+    /// `i` at occupation `n` (the identity is folded into mode 0).
+    diag_start: Vec<usize>,
+    diag_table: Vec<S>,
+    diag_modes: Vec<usize>,
+    /// Diagonal terms touching several modes (cross-Kerr and the like).
+    multi_diag: Vec<(S, Vec<FactorPlan>)>,
+    off: Vec<OffDiagonal<S>>,
+    hops: Vec<Hop<S>>,
+    sqrt: Vec<f64>,
+}
+
+#[inline(always)]
+fn falling(n: u32, k: u32) -> f64 {
+    let mut p = 1.0;
+    for j in 0..k {
+        p *= (n - j) as f64;
+    }
+    p
+}
+
+impl<S: Scalar> ProductKernel<S> {
+    /// Prepare `op` (already validated for `space`).
+    pub fn new(space: &FockSpace, op: &Operator<S>) -> Self {
+        let m = space.modes();
+        let cut = space.cutoffs();
+        let mut diag_start = Vec::with_capacity(m);
+        let mut size = 0;
+        for &c in cut {
+            diag_start.push(size);
+            size += c as usize + 1;
+        }
+        let mut diag_table = vec![S::ZERO; size];
+        let mut diag_used = vec![false; m];
+        let mut multi_diag = Vec::new();
+        let mut off = Vec::new();
+        let mut hops = Vec::new();
+        for t in 0..op.len() {
+            let coef = op.coef(t);
+            let factors: Vec<FactorPlan> = op
+                .factors(t)
+                .map(|(mode, lower, raise)| FactorPlan {
+                    mode,
+                    lower,
+                    raise,
+                    cutoff: cut[mode],
+                })
+                .collect();
+            let diagonal = factors.iter().all(|f| f.lower == f.raise);
+            if diagonal && factors.len() <= 1 {
+                let (mode, power) = factors.first().map_or((0, 0), |f| (f.mode, f.lower));
+                diag_used[mode] = true;
+                for n in power..=cut[mode] {
+                    diag_table[diag_start[mode] + n as usize] += coef.scale(falling(n, power));
+                }
+            } else if diagonal {
+                multi_diag.push((coef, factors));
+            } else {
+                let lo = factors.first().map_or(0, |f| f.mode);
+                let hi = factors.last().map_or(0, |f| f.mode);
+                let mut span = Vec::with_capacity(hi - lo + 1);
+                let mut fi = 0;
+                for mode in lo..=hi {
+                    let factor = if fi < factors.len() && factors[fi].mode == mode {
+                        fi += 1;
+                        fi - 1
+                    } else {
+                        usize::MAX
+                    };
+                    span.push(SpanStep {
+                        mode,
+                        base: space.offset_base(mode),
+                        width: cut[mode] as usize + 2,
+                        weight: space.weights()[mode] as u64,
+                        factor,
+                    });
+                }
+                let unit = |f: &FactorPlan| f.lower + f.raise == 1;
+                if factors.len() == 2 && factors.iter().all(unit) {
+                    let (a, b) = (factors[0], factors[1]);
+                    hops.push(Hop {
+                        coef,
+                        lo,
+                        hi,
+                        d_lo: a.raise as i64 - a.lower as i64,
+                        d_hi: b.raise as i64 - b.lower as i64,
+                        cut_lo: a.cutoff,
+                        cut_hi: b.cutoff,
+                        base_lo: span[0].base,
+                        width_lo: span[0].width,
+                        weight_lo: span[0].weight,
+                        rest: span[1..].to_vec(),
+                    });
+                } else {
+                    off.push(OffDiagonal {
+                        coef,
+                        factors,
+                        span,
+                        lo,
+                        hi,
+                    });
+                }
+            }
+        }
+        let diag_modes = (0..m).filter(|&i| diag_used[i]).collect();
+        let _ = SQRT_TABLE;
+        let sqrt_len = ((space.max_cutoff() as usize + 1).pow(2) + 1).clamp(SQRT_TABLE, 1 << 20);
+        let sqrt = (0..sqrt_len).map(|k| (k as f64).sqrt()).collect();
+        ProductKernel {
+            modes: m,
+            diag_start,
+            diag_table,
+            diag_modes,
+            multi_diag,
+            off,
+            hops,
+            sqrt,
+        }
+    }
+
+    /// `y = H x`, parallel over blocks of rows.
+    ///
+    /// # Errors
+    /// [`CoreError::Shape`] for vectors of the wrong length; [`CoreError::Interrupted`].
+    pub fn apply(
+        &self,
+        space: &FockSpace,
+        x: &[S],
+        y: &mut [S],
+        runner: &Runner,
+        interrupt: &dyn Interrupt,
+    ) -> CoreResult<()> {
+        let dim = space.dim() as usize;
+        if x.len() != dim || y.len() != dim {
+            return Err(CoreError::Shape(format!(
+                "vectors must have length {dim} to match the space (got {} and {}); pass \
+                 arrays whose length is the space's dim",
+                x.len(),
+                y.len()
+            )));
+        }
+        match space.constraint() {
+            Constraint::Free => self.apply_with(space, FreeRule, x, y, runner, interrupt),
+            Constraint::Exact { .. } => self.apply_with(space, ExactRule, x, y, runner, interrupt),
+            Constraint::Modular { modulus, .. } => {
+                self.apply_with(space, ModularRule(modulus), x, y, runner, interrupt)
+            }
+        }
+    }
+
+    fn apply_with<R: ResidueRule>(
+        &self,
+        space: &FockSpace,
+        rule: R,
+        x: &[S],
+        y: &mut [S],
+        runner: &Runner,
+        interrupt: &dyn Interrupt,
+    ) -> CoreResult<()> {
+        runner.for_row_chunks(y, interrupt, |first, out| {
+            let mut block = Block::new(self.modes, KERNEL_BLOCK);
+            let mut row = RowState::at(space, first)?;
+            let mut done = 0usize;
+            while done < out.len() {
+                let n = KERNEL_BLOCK.min(out.len() - done);
+                block.load(space, &mut row, n, done == 0);
+                let ys = &mut out[done..done + n];
+                ys.fill(S::ZERO);
+                self.block_entries(space, rule, &block, n, |r, col, val| {
+                    ys[r] += val * x[col as usize]
+                });
+                done += n;
+            }
+            Ok(())
+        })
+    }
+
+    /// Upper bound of the stored entries of one row.
+    pub fn row_capacity(&self) -> usize {
+        1 + self.hops.len() + self.off.len()
+    }
+
+    /// Rows per block when a block's entries are buffered (keeps the buffer small).
+    fn buffered_block_rows(&self) -> usize {
+        (16_384 / self.row_capacity()).clamp(1, KERNEL_BLOCK)
+    }
+
+    /// Call `visit(row, merged_entries)` for every row of the rows `first..first+count`,
+    /// in order, with the row's entries sorted by column, duplicates summed in term
+    /// order and exact zeros dropped.
+    ///
+    /// # Errors
+    /// [`CoreError::InvalidArgument`] when `first` is out of range.
+    pub fn for_each_row(
+        &self,
+        space: &FockSpace,
+        first: u64,
+        count: usize,
+        mut visit: impl FnMut(u64, &[(u64, S)]),
+    ) -> CoreResult<()> {
+        match space.constraint() {
+            Constraint::Free => self.rows_with(space, FreeRule, first, count, &mut visit),
+            Constraint::Exact { .. } => self.rows_with(space, ExactRule, first, count, &mut visit),
+            Constraint::Modular { modulus, .. } => {
+                self.rows_with(space, ModularRule(modulus), first, count, &mut visit)
+            }
+        }
+    }
+
+    fn rows_with<R: ResidueRule>(
+        &self,
+        space: &FockSpace,
+        rule: R,
+        first: u64,
+        count: usize,
+        visit: &mut impl FnMut(u64, &[(u64, S)]),
+    ) -> CoreResult<()> {
+        let cap = self.row_capacity();
+        let rows_per_block = self.buffered_block_rows();
+        let mut block = Block::new(self.modes, rows_per_block);
+        let mut buf = vec![(0u64, S::ZERO); rows_per_block * cap];
+        let mut lens = vec![0usize; rows_per_block];
+        let mut row = RowState::at(space, first)?;
+        let mut done = 0usize;
+        while done < count {
+            let n = rows_per_block.min(count - done);
+            block.load(space, &mut row, n, done == 0);
+            lens[..n].fill(0);
+            self.block_entries(space, rule, &block, n, |r, col, val| {
+                buf[r * cap + lens[r]] = (col, val);
+                lens[r] += 1;
+            });
+            for r in 0..n {
+                let entries = &mut buf[r * cap..r * cap + lens[r]];
+                // Stable: duplicates are summed in term order whatever the threads.
+                entries.sort_by_key(|e| e.0);
+                let mut w = 0usize;
+                for k in 0..entries.len() {
+                    let (col, val) = entries[k];
+                    if w > 0 && entries[w - 1].0 == col {
+                        entries[w - 1].1 += val;
+                    } else {
+                        entries[w] = (col, val);
+                        w += 1;
+                    }
+                }
+                let mut kept = 0usize;
+                for k in 0..w {
+                    if entries[k].1 != S::ZERO {
+                        entries[kept] = entries[k];
+                        kept += 1;
+                    }
+                }
+                visit(block.rank[r], &entries[..kept]);
+            }
+            done += n;
+        }
+        Ok(())
+    }
+
+    /// Emit `(row_in_block, column, value)` for every entry of the block's rows: the
+    /// diagonal first (when the operator has diagonal terms), then hop terms, then
+    /// other off-diagonal terms, each in term order.
+    #[inline(always)]
+    fn block_entries<R: ResidueRule>(
+        &self,
+        space: &FockSpace,
+        rule: R,
+        b: &Block,
+        n: usize,
+        mut emit: impl FnMut(usize, u64, S),
+    ) {
+        let m = self.modes;
+        if !self.diag_modes.is_empty() || !self.multi_diag.is_empty() {
+            for r in 0..n {
+                let occ = &b.occ[r * m..(r + 1) * m];
+                let mut d = S::ZERO;
+                for &i in &self.diag_modes {
+                    d += self.diag_table[self.diag_start[i] + occ[i] as usize];
+                }
+                for (coef, factors) in &self.multi_diag {
+                    let mut amp = 1.0;
+                    for f in factors {
+                        let v = occ[f.mode];
+                        if v < f.lower {
+                            amp = 0.0;
+                            break;
+                        }
+                        amp *= falling(v, f.lower);
+                    }
+                    d += coef.scale(amp);
+                }
+                emit(r, b.rank[r], d);
+            }
+        }
+        let offsets = space.offset_table();
+        for hop in &self.hops {
+            self.hop_rows(rule, hop, b, n, offsets, &mut emit);
+        }
+        let mut new_occ: Vec<u32> = Vec::with_capacity(8);
+        for term in &self.off {
+            new_occ.clear();
+            new_occ.resize(term.factors.len(), 0);
+            'rows: for r in 0..n {
+                let occ = &b.occ[r * m..(r + 1) * m];
+                let mut amp_sq = 1.0f64;
+                for (k, f) in term.factors.iter().enumerate() {
+                    let v = occ[f.mode];
+                    if v < f.lower {
+                        continue 'rows;
+                    }
+                    let w = v - f.lower + f.raise;
+                    if w > f.cutoff {
+                        continue 'rows;
+                    }
+                    new_occ[k] = w;
+                    amp_sq *= falling(v, f.lower) * falling(w, f.raise);
+                }
+                let mut residue = b.res[r * m + term.lo];
+                let mut part = 0u64;
+                for s in &term.span {
+                    let v = if s.factor == usize::MAX {
+                        occ[s.mode]
+                    } else {
+                        new_occ[s.factor]
+                    };
+                    part += offsets[s.base + residue as usize * s.width + v as usize];
+                    residue = rule.step(residue, s.weight * v as u64);
+                }
+                let p = &b.prefix[r * (m + 1)..(r + 1) * (m + 1)];
+                let col = b.rank[r] - (p[term.hi + 1] - p[term.lo]) + part;
+                let amp = if amp_sq < self.sqrt.len() as f64 {
+                    self.sqrt[amp_sq as usize]
+                } else {
+                    amp_sq.sqrt()
+                };
+                emit(r, col, term.coef.scale(amp));
+            }
+        }
+    }
+}
+
+impl<S: Scalar> ProductKernel<S> {
+    /// One hop term over a block of rows. Wrapping arithmetic: every index computed
+    /// here is that of a valid basis state (checked cutoffs, conserved charge), so no
+    /// intermediate can overflow, and the overflow checks would only cost branches.
+    #[inline]
+    fn hop_rows<R: ResidueRule>(
+        &self,
+        rule: R,
+        hop: &Hop<S>,
+        b: &Block,
+        n: usize,
+        offsets: &[u64],
+        emit: &mut impl FnMut(usize, u64, S),
+    ) {
+        let m = self.modes;
+        let sqrt_len = self.sqrt.len();
+        for r in 0..n {
+            let occ = &b.occ[r * m..(r + 1) * m];
+            let v_lo = occ[hop.lo];
+            let v_hi = occ[hop.hi];
+            let w_lo = (v_lo as i64).wrapping_add(hop.d_lo) as u32;
+            let w_hi = (v_hi as i64).wrapping_add(hop.d_hi) as u32;
+            // A negative occupation wraps to a huge u32 and fails the cutoff test too.
+            if w_lo > hop.cut_lo || w_hi > hop.cut_hi {
+                continue;
+            }
+            let amp_sq = v_lo.max(w_lo) as usize * v_hi.max(w_hi) as usize;
+            let mut residue = b.res[r * m + hop.lo];
+            let mut part = offsets[hop.base_lo + residue as usize * hop.width_lo + w_lo as usize];
+            residue = rule.step(residue, hop.weight_lo.wrapping_mul(w_lo as u64));
+            for s in &hop.rest {
+                let v = if s.factor == usize::MAX { occ[s.mode] } else { w_hi };
+                part = part.wrapping_add(offsets[s.base + residue as usize * s.width + v as usize]);
+                residue = rule.step(residue, s.weight.wrapping_mul(v as u64));
+            }
+            let p = &b.prefix[r * (m + 1)..(r + 1) * (m + 1)];
+            let col = b.rank[r]
+                .wrapping_sub(p[hop.hi + 1].wrapping_sub(p[hop.lo]))
+                .wrapping_add(part);
+            let amp = if amp_sq < sqrt_len {
+                self.sqrt[amp_sq]
+            } else {
+                (amp_sq as f64).sqrt()
+            };
+            emit(r, col, hop.coef.scale(amp));
+        }
+    }
+}
+
+/// Unpacked states of consecutive rows.
+struct Block {
+    m: usize,
+    occ: Vec<u32>,
+    res: Vec<u32>,
+    prefix: Vec<u64>,
+    rank: Vec<u64>,
+}
+
+impl Block {
+    fn new(m: usize, rows: usize) -> Self {
+        Block {
+            m,
+            occ: vec![0; rows * m],
+            res: vec![0; rows * m],
+            prefix: vec![0; rows * (m + 1)],
+            rank: vec![0; rows],
+        }
+    }
+
+    /// Unpack `n` rows starting at `row` (advancing it first unless `at_start`).
+    fn load(&mut self, space: &FockSpace, row: &mut RowState, n: usize, at_start: bool) {
+        let m = self.m;
+        for r in 0..n {
+            if r > 0 || !at_start {
+                row.advance(space);
+            }
+            self.occ[r * m..(r + 1) * m].copy_from_slice(&row.occ);
+            for (d, &s) in self.res[r * m..(r + 1) * m].iter_mut().zip(&row.residues) {
+                *d = s as u32;
+            }
+            self.prefix[r * (m + 1)..(r + 1) * (m + 1)].copy_from_slice(&row.prefix);
+            self.rank[r] = row.rank;
+        }
+    }
+}

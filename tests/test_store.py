@@ -1,0 +1,244 @@
+"""Tests of the SQLite results store: round trip, resume, crash safety, refusals."""
+
+from __future__ import annotations
+
+import os
+import signal
+import sqlite3
+import subprocess
+import sys
+import textwrap
+import time
+from pathlib import Path
+
+import fockmill as fm
+import numpy as np
+import pytest
+from fockmill._model import Model
+from fockmill._store import FORMAT_MARKER, ResultsStore, StoreError
+from fockmill._sweep import run_sweep
+from test_sweep import dense_levels, hubbard_ring
+
+POINTS = [{"U": float(u)} for u in np.linspace(0.0, 6.0, 9)]
+RECORD = ("energy", "gap", "populations", "entropy")
+
+
+@pytest.fixture(scope="module")
+def ring() -> Model:
+    return hubbard_ring(sites=4, particles=4, cutoff=4)  # dim 35
+
+
+def sweep(model: Model, store: Path | ResultsStore, points=POINTS, **kwargs):
+    options = {"record": RECORD, "executor": "serial", "progress": False}
+    options.update(kwargs)
+    return run_sweep(model, points, store=store, **options)
+
+
+def test_round_trip(ring: Model, tmp_path: Path) -> None:
+    path = tmp_path / "ring.sqlite"
+    table = sweep(ring, path)
+    with ResultsStore.open(path) as store:
+        meta = store.meta
+        assert meta["format"] == FORMAT_MARKER
+        assert meta["model_fingerprint"] == ring.fingerprint()
+        assert store.integrity_ok()
+        assert store.finished_indices() == set(range(len(POINTS)))
+        assert store.rows() == list(table.rows)
+        assert store.to_table().swept == ("U",)
+    for row, point in zip(table, POINTS, strict=True):
+        # Reference: numpy eigvalsh on the matrix rebuilt from expressions.
+        assert row.energy == pytest.approx(dense_levels(ring, point)[0], abs=1e-9)
+    arrays = table.to_arrays()
+    assert arrays["populations"].shape == (len(POINTS), 4)
+    assert arrays["entropy"].shape == (len(POINTS),)
+    with sqlite3.connect(path) as raw:
+        assert raw.execute("PRAGMA journal_mode").fetchone()[0] == "wal"
+
+
+def test_interrupted_sweep_resumes_without_redoing(ring: Model, tmp_path: Path) -> None:
+    path = tmp_path / "ring.sqlite"
+    seen: list[int] = []
+
+    def stop_after_three(row) -> None:
+        seen.append(row.index)
+        if len(seen) == 3:
+            raise KeyboardInterrupt
+
+    with pytest.raises(KeyboardInterrupt):
+        sweep(ring, path, on_point=stop_after_three)
+    with ResultsStore.open(path) as store:
+        assert store.finished_indices() == set(seen)
+    redone: list[int] = []
+    resumed = sweep(ring, path, on_point=lambda row: redone.append(row.index))
+    assert set(redone).isdisjoint(seen)
+    assert sorted(redone + seen) == list(range(len(POINTS)))
+    reference = sweep(ring, tmp_path / "whole.sqlite")
+    assert [r.index for r in resumed] == [r.index for r in reference]
+    np.testing.assert_allclose(
+        resumed.to_arrays()["energy"], reference.to_arrays()["energy"], rtol=0, atol=1e-9
+    )
+
+
+KILL_SCRIPT = textwrap.dedent(
+    """
+    import sys
+    sys.path.insert(0, sys.argv[2])
+    from fockmill._sweep import run_sweep
+    from test_sweep import hubbard_ring
+
+    model = hubbard_ring(sites=6, particles=6, cutoff=6)
+    points = [{"U": 0.05 * k} for k in range(int(sys.argv[3]))]
+    run_sweep(model, points, store=sys.argv[1], executor="serial", progress=False,
+              solver_options={"dense_limit": 0})
+    """
+)
+
+
+def _committed(path: Path) -> int:
+    """Rows committed so far, read through a separate read-only connection."""
+    try:
+        with sqlite3.connect(f"file:{path}?mode=ro", uri=True, timeout=5) as reader:
+            return int(reader.execute("SELECT COUNT(*) FROM points").fetchone()[0])
+    except sqlite3.Error:
+        return 0  # file or schema not there yet
+
+
+def test_sigkill_mid_sweep_then_resume_equals_uninterrupted(tmp_path: Path) -> None:
+    path = tmp_path / "killed.sqlite"
+    total = 120
+    tests_dir = str(Path(__file__).parent)
+    process = subprocess.Popen(
+        [sys.executable, "-c", KILL_SCRIPT, str(path), tests_dir, str(total)],
+        stdout=subprocess.DEVNULL,
+        stderr=subprocess.PIPE,
+    )
+    try:
+        deadline = time.monotonic() + 120
+        while _committed(path) < 15:
+            assert process.poll() is None, process.stderr.read().decode() if process.stderr else ""
+            assert time.monotonic() < deadline, "the sweep committed no points in time"
+            time.sleep(0.01)
+        os.kill(process.pid, signal.SIGKILL)
+    finally:
+        if process.poll() is None:
+            process.kill()
+        process.wait()
+        if process.stderr is not None:
+            process.stderr.close()
+    assert process.returncode == -signal.SIGKILL
+    at_kill = _committed(path)
+    assert 15 <= at_kill < total, "the kill must land mid-sweep for this test to mean anything"
+    print(f"killed after {at_kill} of {total} points")
+
+    model = hubbard_ring(sites=6, particles=6, cutoff=6)
+    points = [{"U": 0.05 * k} for k in range(total)]
+    options = {"dense_limit": 0}
+    redone: list[int] = []
+    resumed = run_sweep(
+        model,
+        points,
+        store=path,
+        executor="serial",
+        progress=False,
+        solver_options=options,
+        on_point=lambda row: redone.append(row.index),
+    )
+    assert len(redone) == total - at_kill
+    uninterrupted = run_sweep(
+        model, points, executor="serial", progress=False, solver_options=options
+    )
+    with ResultsStore.open(path) as store:
+        assert store.integrity_ok()
+        indices = [row.index for row in store.rows()]
+    assert sorted(indices) == list(range(total))  # no duplicates, none missing
+    assert [r.parameters for r in resumed] == [r.parameters for r in uninterrupted]
+    np.testing.assert_allclose(
+        resumed.to_arrays()["energy"], uninterrupted.to_arrays()["energy"], rtol=0, atol=1e-9
+    )
+    np.testing.assert_allclose(
+        resumed.to_arrays()["gap"], uninterrupted.to_arrays()["gap"], rtol=0, atol=1e-9
+    )
+
+
+def test_refuses_foreign_sqlite_and_leaves_it_alone(ring: Model, tmp_path: Path) -> None:
+    path = tmp_path / "inventory.sqlite"
+    with sqlite3.connect(path) as other:
+        other.execute("CREATE TABLE parts (name TEXT)")
+        other.execute("INSERT INTO parts VALUES ('resistor')")
+    before = path.read_bytes()
+    with pytest.raises(StoreError, match=r"inventory\.sqlite.*not a fockmill results file"):
+        sweep(ring, path)
+    with pytest.raises(StoreError, match="not a fockmill results file"):
+        ResultsStore.open(path)
+    assert path.read_bytes() == before
+
+
+def test_refuses_non_sqlite_file(ring: Model, tmp_path: Path) -> None:
+    path = tmp_path / "notes.sqlite"
+    path.write_text("these are my notes, not a database\n" * 40)
+    with pytest.raises(StoreError, match=r"notes\.sqlite.*not a fockmill results file"):
+        sweep(ring, path)
+    assert isinstance(StoreError("x"), ValueError)
+
+
+def test_refuses_other_model(ring: Model, tmp_path: Path) -> None:
+    path = tmp_path / "ring.sqlite"
+    sweep(ring, path, points=POINTS[:2])
+    other = hubbard_ring(sites=4, particles=3, cutoff=3)
+    with pytest.raises(StoreError, match="fingerprint"):
+        sweep(other, path, points=POINTS[:2])
+
+
+def test_refuses_changed_grid_or_record(ring: Model, tmp_path: Path) -> None:
+    path = tmp_path / "ring.sqlite"
+    sweep(ring, path, points=POINTS[:3])
+    shifted = [{"U": p["U"] + 0.5} for p in POINTS[:3]]
+    with pytest.raises(StoreError, match="grid or a default value changed"):
+        sweep(ring, path, points=shifted)
+    with pytest.raises(StoreError, match="recording"):
+        sweep(ring, path, points=POINTS[:3], record=("energy",))
+    # A changed default of an unswept parameter changes every point too.
+    retuned = Model(
+        ring.name, ring.space, ring.pieces, {"J": 0.9, "U": 1.0}, constant=ring.constant
+    )
+    with pytest.raises(StoreError, match="default value changed"):
+        sweep(retuned, path, points=POINTS[:3])
+
+
+def test_missing_file_and_existing_create(tmp_path: Path) -> None:
+    with pytest.raises(StoreError, match="does not exist"):
+        ResultsStore.open(tmp_path / "absent.sqlite")
+    path = tmp_path / "taken.sqlite"
+    path.write_text("")
+    with pytest.raises(StoreError, match="exists already"):
+        ResultsStore.create(path, {})
+
+
+def test_duplicate_point_is_refused(ring: Model, tmp_path: Path) -> None:
+    path = tmp_path / "ring.sqlite"
+    table = sweep(ring, path, points=POINTS[:1])
+    with ResultsStore.open(path) as store, pytest.raises(StoreError, match="already stored"):
+        store.add_point(table.rows[0])
+
+
+def test_complex_model_round_trips(tmp_path: Path) -> None:
+    # A hopping ring threaded by a flux (Peierls phase) has a complex Hamiltonian and a
+    # complex one-body matrix; the store keeps its real and imaginary parts.
+    sites = 3
+    phase = np.exp(0.7j)
+    hop = fm.LadderExpr()
+    for i in range(sites):
+        j = (i + 1) % sites
+        hop = hop - (
+            phase * fm.raising(i) * fm.lowering(j) + np.conj(phase) * fm.raising(j) * fm.lowering(i)
+        )
+    space = fm.FockSpace(modes=sites, cutoff=2, total=2)
+    model = Model("flux-ring", space, {"J": hop}, {"J": 1.0})
+    path = tmp_path / "flux.sqlite"
+    table = sweep(model, path, points=[{"J": 1.0}], record=("energy", "gap", "one_body"))
+    with ResultsStore.open(path) as store:
+        row = store.rows()[0]
+    assert row == table.rows[0]
+    matrix = np.array(row.observables["one_body"]) + 1j * np.array(row.observables["one_body_imag"])
+    np.testing.assert_allclose(matrix, matrix.conj().T, atol=1e-12)  # Hermitian, as ⟨a_i† a_j⟩
+    assert row.energy == pytest.approx(dense_levels(model, {"J": 1.0})[0], abs=1e-9)
