@@ -270,3 +270,42 @@ def test_progress_bar_goes_to_stderr(ring: Model, capsys: pytest.CaptureFixture[
     captured = capsys.readouterr()
     assert captured.out == ""
     assert "2/2" in captured.err
+
+
+@pytest.mark.parametrize(
+    ("method", "record", "levels"),
+    [("operator", ("energy", "gap", "populations"), 2), ("lanczos", ("energy", "populations"), 1)],
+)
+def test_matrix_free_methods_match_dense(
+    ring: Model, method: str, record: tuple[str, ...], levels: int
+) -> None:
+    # Reference: numpy eigvalsh on the matrix rebuilt per point. The ring at unit filling
+    # is translation invariant, so every site holds one particle on average.
+    points = GRID[:4]
+    table = run_sweep(
+        ring,
+        points,
+        record=record,
+        levels=levels,
+        executor="serial",
+        solver_options={"method": method, "tol": 1e-12},
+        progress=False,
+    )
+    for row, point in zip(table, points, strict=True):
+        reference = dense_levels(ring, point)
+        assert row.method == method
+        assert row.energy == pytest.approx(reference[0], abs=1e-8)
+        if "gap" in record:
+            assert row.gap == pytest.approx(reference[1] - reference[0], abs=1e-8)
+        np.testing.assert_allclose(row.observables["populations"], 1.0, atol=1e-6)
+
+
+def test_lanczos_refuses_several_levels(ring: Model) -> None:
+    with pytest.raises(ValueError, match="ground state only"):
+        run_sweep(
+            ring,
+            GRID[:1],
+            executor="serial",
+            solver_options={"method": "lanczos"},
+            progress=False,
+        )

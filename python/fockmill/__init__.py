@@ -21,15 +21,25 @@ entanglement_entropy, top_level_weights
     Observables of a state, computed without building matrices.
 converge_cutoffs, CutoffScan
     Truncation diagnostics.
-Model
-    A Hamiltonian linear in named parameters on a fixed space (for sweeps).
+Model, models
+    A Hamiltonian linear in named parameters on a fixed space; ready-made builders
+    (Bose–Hubbard on any graph, Jaynes–Cummings–Hubbard arrays, Kerr networks, drives).
+load_model_file, parse_model_text, ModelFile, SweepGrid, ModelFileError
+    Model files in TOML.
 """
 
-from fockmill import exceptions
+from fockmill import exceptions, models
 from fockmill._build import build_matrix
 from fockmill._expr import LadderExpr, format_monomial, identity, lowering, number, raising
 from fockmill._memory import MemoryEstimate, available_memory, estimate_memory
 from fockmill._model import Model
+from fockmill._modelfile import (
+    ModelFile,
+    ModelFileError,
+    SweepGrid,
+    load_model_file,
+    parse_model_text,
+)
 from fockmill._native import __version__
 from fockmill._observe import (
     entanglement_entropy,
@@ -54,6 +64,9 @@ __all__ = [
     "Levels",
     "MemoryEstimate",
     "Model",
+    "ModelFile",
+    "ModelFileError",
+    "SweepGrid",
     "__version__",
     "available_memory",
     "build_matrix",
@@ -67,12 +80,15 @@ __all__ = [
     "format_monomial",
     "ground_state",
     "identity",
+    "load_model_file",
     "lowering",
     "lowest_levels",
+    "models",
     "number",
     "number_variances",
     "occupation_distribution",
     "one_body_matrix",
+    "parse_model_text",
     "populations",
     "raising",
     "top_level_weights",

@@ -6,8 +6,8 @@ import numpy as np
 import scipy.sparse as sp
 
 from fockmill._expr import LadderExpr
-from fockmill._memory import estimate_memory
-from fockmill._prepare import prepare
+from fockmill._memory import estimate_memory, format_bytes
+from fockmill._prepare import check_threads, prepare
 from fockmill._space import FockSpace
 from fockmill.exceptions import SizeLimitError
 
@@ -32,7 +32,7 @@ def build_matrix(
     space : FockSpace
         The basis; the matrix is ``(space.dim, space.dim)`` in the space's basis order.
     threads : int, optional
-        Worker threads (default: all cores, or ``RAYON_NUM_THREADS``).
+        Worker threads; None or 0 means all cores (or ``RAYON_NUM_THREADS``).
     memory_limit : int, optional
         Bytes the build may use; default: the memory available now.
     index_dtype : {numpy.int32, numpy.int64}, optional
@@ -70,14 +70,15 @@ def build_matrix(
     [[0.0, 1.414, 0.0], [1.414, 0.0, 1.414], [0.0, 1.414, 0.0]]
     """
     op = prepare(expr, space)
+    threads = check_threads(threads)
     if index_dtype not in (None, np.int32, np.int64):
         raise TypeError("index_dtype must be numpy.int32, numpy.int64 or None")
     estimate = estimate_memory(expr, space, threads=threads)
     limit = memory_limit if memory_limit is not None else estimate.available_bytes
     if limit is not None and estimate.build_peak_bytes > limit:
         raise SizeLimitError(
-            f"building this matrix needs about {estimate.build_peak_bytes / 2**30:.2f} GiB "
-            f"({estimate}), more than the {limit / 2**30:.2f} GiB allowed; use "
+            f"building this matrix needs about {format_bytes(estimate.build_peak_bytes)} "
+            f"({estimate}), more than the {format_bytes(limit)} allowed; use "
             "fm.build_operator(...) for matrix-free products or fm.ground_state(..., "
             "method='lanczos'), or raise memory_limit"
         )

@@ -9,12 +9,20 @@ from pathlib import Path
 import numpy as np
 
 from fockmill._expr import LadderExpr
-from fockmill._prepare import prepare
+from fockmill._prepare import check_threads, prepare
 from fockmill._space import FockSpace
 
-__all__ = ["MemoryEstimate", "available_memory", "estimate_memory"]
+__all__ = ["MemoryEstimate", "available_memory", "estimate_memory", "format_bytes"]
 
 _INT32_MAX = np.iinfo(np.int32).max
+
+
+def format_bytes(n: float) -> str:
+    """``n`` bytes in readable units (``"1.50 GiB"``, ``"12.0 KiB"``)."""
+    for unit, size in (("TiB", 2**40), ("GiB", 2**30), ("MiB", 2**20), ("KiB", 2**10)):
+        if abs(n) >= size:
+            return f"{n / size:.2f} {unit}"
+    return f"{int(n)} B"
 
 
 def available_memory() -> int | None:
@@ -89,13 +97,12 @@ class MemoryEstimate:
         return vectors * self.vector_bytes
 
     def __str__(self) -> str:
-        gib = 2.0**30
-        avail = "unknown" if self.available_bytes is None else f"{self.available_bytes / gib:.2f}"
+        avail = "unknown" if self.available_bytes is None else format_bytes(self.available_bytes)
         return (
             f"dim={self.dim:,}, nnz≈{self.nnz:,}{'' if self.nnz_exact else ' (sampled)'}, "
-            f"CSR {self.csr_bytes / gib:.2f} GiB (peak {self.build_peak_bytes / gib:.2f} GiB "
-            f"while building), one vector {self.vector_bytes / gib:.3f} GiB, "
-            f"available {avail} GiB"
+            f"CSR {format_bytes(self.csr_bytes)} (peak {format_bytes(self.build_peak_bytes)} "
+            f"while building), one vector {format_bytes(self.vector_bytes)}, "
+            f"available {avail}"
         )
 
 
@@ -127,7 +134,9 @@ def estimate_memory(
     MemoryEstimate
     """
     op = prepare(expr, space)
-    nnz_f, std_error, exact, _ = op.estimate_nnz(samples, threads)
+    if isinstance(samples, bool) or not isinstance(samples, int) or samples < 1:
+        raise ValueError(f"samples must be a positive integer; got {samples!r}")
+    nnz_f, std_error, exact, _ = op.estimate_nnz(samples, check_threads(threads))
     nnz = round(nnz_f)
     dim = space.dim
     wide = nnz > _INT32_MAX or dim > _INT32_MAX

@@ -14,7 +14,7 @@ import numpy.typing as npt
 
 from fockmill import _native
 from fockmill._expr import LadderExpr, MonomialKey
-from fockmill._prepare import as_expr, check_space
+from fockmill._prepare import as_expr, check_space, check_threads
 from fockmill._space import FockSpace
 from fockmill.exceptions import SizeLimitError
 
@@ -78,7 +78,7 @@ def _monomial_values(
     keep = [i for i, k in enumerate(keys) if _conserving(k, space)]
     if keep:
         values = _native.monomial_expectations(
-            space.native, [list(keys[i]) for i in keep], v, threads
+            space.native, [list(keys[i]) for i in keep], v, check_threads(threads)
         )
         out[keep] = values
     return out
@@ -140,7 +140,7 @@ def occupation_distribution(
     """
     s = check_space(space)
     v = check_vector(s, vector)
-    flat = _native.occupation_distributions(s.native, v, threads) / _norm_sq(v)
+    flat = _native.occupation_distributions(s.native, v, check_threads(threads)) / _norm_sq(v)
     out = np.zeros((s.modes, max(s.cutoffs) + 1))
     start = 0
     for i, c in enumerate(s.cutoffs):

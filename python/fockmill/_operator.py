@@ -10,7 +10,7 @@ from scipy.sparse.linalg import LinearOperator
 
 from fockmill import _native
 from fockmill._expr import LadderExpr
-from fockmill._prepare import as_expr, check_space, prepare
+from fockmill._prepare import as_expr, check_space, check_threads, prepare
 from fockmill._space import FockSpace
 
 __all__ = ["LadderOperator", "build_operator"]
@@ -43,7 +43,7 @@ class LadderOperator(LinearOperator):  # type: ignore[misc]
     def __init__(self, expr: LadderExpr, space: FockSpace, *, threads: int | None = None) -> None:
         self.expr = as_expr(expr)
         self.space = check_space(space)
-        self.threads = threads
+        self.threads = check_threads(threads)
         self._op = prepare(self.expr, self.space)
         self._adjoint_op: _native.NativeOperator | None = None
         self.products = 0

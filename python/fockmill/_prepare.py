@@ -7,10 +7,11 @@ import numbers
 import numpy as np
 
 from fockmill import _native
+from fockmill._args import check_threads
 from fockmill._expr import LadderExpr
 from fockmill._space import FockSpace
 
-__all__ = ["as_expr", "check_space", "prepare"]
+__all__ = ["as_expr", "check_space", "check_threads", "prepare"]
 
 
 def as_expr(expr: object) -> LadderExpr:

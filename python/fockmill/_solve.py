@@ -17,7 +17,7 @@ from fockmill._expr import LadderExpr
 from fockmill._memory import MemoryEstimate, estimate_memory
 from fockmill._observe import check_vector, top_level_weights
 from fockmill._operator import LadderOperator
-from fockmill._prepare import as_expr, check_space, prepare
+from fockmill._prepare import as_expr, check_space, check_threads, prepare
 from fockmill._space import FockSpace
 from fockmill.exceptions import (
     ConvergenceError,
@@ -196,6 +196,7 @@ def _solve_levels(
     threads: int | None,
     max_iterations: int | None,
     memory_limit: int | None,
+    seed: int = 0,
 ) -> tuple[npt.NDArray[np.float64], npt.NDArray[Any], npt.NDArray[np.float64], int]:
     """Energies, vectors, residuals and product count for the eigsh/dense methods."""
     dim = space.dim
@@ -225,20 +226,83 @@ def _solve_levels(
             f"k={k} levels need a space with more than {k + 1} states for an iterative "
             f"method; this one has {dim}: use method='dense'"
         )
+    if start is None:
+        start = np.random.default_rng(seed).standard_normal(dim)
     try:
         energies, vectors = sla.eigsh(
             target, k=k, which="SA", tol=tol, v0=start, maxiter=max_iterations
+        )
+        order = np.argsort(energies)
+        energies, vectors = energies[order], vectors[:, order]
+        energies, vectors = _recover_missed_copies(
+            target, energies, vectors, tol, seed, max_iterations
         )
     except sla.ArpackNoConvergence as exc:
         raise ConvergenceError(
             f"eigsh ({method}) did not converge to tol={tol} for k={k} levels "
             f"({len(exc.eigenvalues)} converged); raise max_iterations or tol"
         ) from exc
-    order = np.argsort(energies)
-    energies, vectors = energies[order], vectors[:, order]
     products = counter[0] if method == "csr" else operator.products
     residuals = _residuals(operator, energies, vectors)
     return energies, vectors, residuals, products
+
+
+def _lowest_outside(
+    target: LinearOperator,
+    basis: npt.NDArray[Any],
+    sigma: float,
+    tol: float,
+    rng: np.random.Generator,
+    max_iterations: int | None,
+) -> tuple[float, npt.NDArray[Any]]:
+    """Lowest eigenpair of ``H + σ B B†``: with ``σ`` above the spread of the levels in
+    ``B``, the lowest level of ``H`` not yet in ``B``."""
+    dim = target.shape[0]
+
+    def shifted(x: npt.NDArray[Any]) -> Any:
+        x = np.asarray(x).reshape(-1)
+        return target.matvec(x).reshape(-1) + sigma * (basis @ (basis.conj().T @ x))
+
+    op = LinearOperator((dim, dim), matvec=shifted, rmatvec=shifted, dtype=basis.dtype)
+    e, v = sla.eigsh(
+        op, k=1, which="SA", tol=tol, v0=rng.standard_normal(dim), maxiter=max_iterations
+    )
+    w = v[:, 0] - basis @ (basis.conj().T @ v[:, 0])
+    return float(e[0]), w / np.linalg.norm(w)
+
+
+def _recover_missed_copies(
+    target: LinearOperator,
+    energies: npt.NDArray[np.float64],
+    vectors: npt.NDArray[Any],
+    tol: float,
+    seed: int,
+    max_iterations: int | None,
+) -> tuple[npt.NDArray[np.float64], npt.NDArray[Any]]:
+    """Find degenerate copies a single-vector Krylov method skipped.
+
+    A Krylov space grown from one vector holds one vector per eigenspace, so eigsh can
+    miss the second copy of a degenerate level. Shift the levels found out of the way
+    (:func:`_lowest_outside` on all but the highest) and ask for the lowest remaining
+    level: anything below the highest level found is a missed copy and replaces it.
+    Repeat until none is left.
+    """
+    dim = target.shape[0]
+    k = energies.size
+    if k < 2 or k >= dim - 1:
+        return energies, vectors
+    rng = np.random.default_rng(seed + 1)
+    for _ in range(k):
+        scale = max(1.0, float(np.max(np.abs(energies))))
+        sigma = float(energies[-1] - energies[0]) + scale
+        e, w = _lowest_outside(target, vectors[:, :-1], sigma, tol, rng, max_iterations)
+        if e >= energies[-1] - max(1e3 * tol, 1e-9) * scale:
+            break
+        energies = np.append(energies[:-1], e)
+        vectors = np.column_stack([vectors[:, :-1], w])
+        order = np.argsort(energies)
+        energies, vectors = energies[order], vectors[:, order]
+    return energies, vectors
 
 
 def _validate(k: int, method: str, tol: float, space: FockSpace) -> None:
@@ -261,6 +325,7 @@ def lowest_levels(
     tol: float = 1e-9,
     v0: npt.ArrayLike | None = None,
     threads: int | None = None,
+    seed: int = 0,
     max_iterations: int | None = None,
     memory_limit: int | None = None,
 ) -> Levels:
@@ -283,6 +348,8 @@ def lowest_levels(
         Start vector (warm start from a nearby solution).
     threads : int, optional
         Threads for builds and products (default: all cores).
+    seed : int
+        Seed of the start vector when ``v0`` is not given: results are reproducible.
     max_iterations : int, optional
         eigsh's ``maxiter``.
     memory_limit : int, optional
@@ -312,6 +379,7 @@ def lowest_levels(
     t0 = time.perf_counter()
     e = as_expr(expr)
     s = check_space(space)
+    threads = check_threads(threads)
     _validate(k, method, tol, s)
     _check_hermitian(e)
     prepare(e, s)  # charge and mode errors before any size estimate
@@ -325,7 +393,14 @@ def lowest_levels(
                 "for several levels"
             )
         g = ground_state(
-            e, s, method="lanczos", tol=tol, v0=v0, threads=threads, memory_limit=memory_limit
+            e,
+            s,
+            method="lanczos",
+            tol=tol,
+            v0=v0,
+            threads=threads,
+            seed=seed,
+            memory_limit=memory_limit,
         )
         return Levels(
             np.array([g.energy]),
@@ -337,7 +412,7 @@ def lowest_levels(
             (1,),
         )
     energies, vectors, residuals, products = _solve_levels(
-        e, s, k, chosen, tol, v0, threads, max_iterations, memory_limit
+        e, s, k, chosen, tol, v0, threads, max_iterations, memory_limit, seed
     )
     degeneracy_tol = max(1e3 * tol, 1e-9)
     return Levels(
@@ -349,6 +424,31 @@ def lowest_levels(
         seconds=time.perf_counter() - t0,
         degeneracies=_degeneracy_groups(np.asarray(energies), degeneracy_tol),
     )
+
+
+def _probe_degeneracy(
+    expr: LadderExpr,
+    space: FockSpace,
+    method: str,
+    energies: npt.NDArray[np.float64],
+    vectors: npt.NDArray[Any],
+    tol: float,
+    degeneracy_tol: float,
+    threads: int | None,
+    seed: int,
+    max_iterations: int | None,
+) -> tuple[npt.NDArray[np.float64], npt.NDArray[Any], int]:
+    """Add the ground level's degenerate copies (found by deflation), up to 16."""
+    operator = LadderOperator(expr, space, threads=threads)
+    rng = np.random.default_rng(seed + 1)
+    scale = max(1.0, abs(float(energies[0])))
+    while energies.size < min(16, space.dim - 2):
+        e, w = _lowest_outside(operator, vectors, scale, tol, rng, max_iterations)
+        if e - energies[0] > degeneracy_tol * scale:
+            break
+        energies = np.append(energies, e)
+        vectors = np.column_stack([vectors, w])
+    return energies, vectors, operator.products
 
 
 def _warn_cutoff(space: FockSpace, vector: npt.NDArray[Any], threshold: float | None) -> None:
@@ -435,6 +535,7 @@ def ground_state(
     t0 = time.perf_counter()
     e = as_expr(expr)
     s = check_space(space)
+    threads = check_threads(threads)
     _validate(1, method, tol, s)
     _check_hermitian(e)
     native = prepare(e, s)
@@ -465,24 +566,19 @@ def ground_state(
             degeneracy=None,
             converged=True,
         )
-    k = min(2, s.dim - 2) if chosen != "dense" else min(2, s.dim)
-    k = max(k, 1)
-    energies, vectors, residuals, products = _solve_levels(
-        e, s, k, chosen, tol, v0, threads, max_iterations, memory_limit
-    )
     degeneracy_tol = max(1e3 * tol, 1e-9)
-    # Widen the search while every computed level is degenerate with the lowest.
-    while (
-        energies.size == k
-        and k < min(16, s.dim - 2 if chosen != "dense" else s.dim)
-        and _degeneracy_groups(energies, degeneracy_tol)[0] == k
-        and k > 1
-    ):
-        k = min(2 * k, 16, s.dim - 2 if chosen != "dense" else s.dim)
-        energies, vectors, residuals, products2 = _solve_levels(
-            e, s, k, chosen, tol, v0, threads, max_iterations, memory_limit
+    if chosen == "dense":
+        energies, vectors, residuals, products = _solve_levels(
+            e, s, min(17, s.dim), chosen, tol, v0, threads, max_iterations, memory_limit, seed
         )
-        products += products2
+    else:
+        energies, vectors, residuals, products = _solve_levels(
+            e, s, 1, chosen, tol, v0, threads, max_iterations, memory_limit, seed
+        )
+        energies, vectors, extra = _probe_degeneracy(
+            e, s, chosen, energies, vectors, tol, degeneracy_tol, threads, seed, max_iterations
+        )
+        products += extra
     degeneracy = _degeneracy_groups(energies, degeneracy_tol)[0]
     energy = float(energies[0])
     vector = vectors[:, 0]

@@ -10,6 +10,7 @@ import numpy as np
 import numpy.typing as npt
 
 from fockmill import _native
+from fockmill._args import check_threads
 from fockmill.exceptions import SpaceError
 
 __all__ = ["FockSpace"]
@@ -190,7 +191,7 @@ class FockSpace:
             Shape ``(dim, modes)``; row ``k`` is basis state ``k``. ``uint8`` when every
             cutoff is at most 255, else ``uint16``.
         """
-        return self._native.occupations(threads)
+        return self._native.occupations(check_threads(threads))
 
     def index(self, occupations: npt.ArrayLike) -> Any:
         """Basis index of one state or of each row of a 2-D array of states.

@@ -20,6 +20,7 @@ from __future__ import annotations
 
 import json
 import math
+import os
 import sqlite3
 from collections.abc import Iterator, Mapping, Sequence
 from dataclasses import dataclass, field
@@ -137,7 +138,7 @@ def _stack(values: Sequence[Any]) -> npt.NDArray[np.float64]:
         if value is None:
             continue
         arr = np.asarray(value, dtype=np.float64)
-        out[(row, *tuple(slice(0, n) for n in arr.shape))] = arr
+        out[row][tuple(slice(0, n) for n in arr.shape)] = arr
     return out
 
 
@@ -250,7 +251,7 @@ class ResultsStore:
     # -- opening -------------------------------------------------------------------
 
     @classmethod
-    def open(cls, path: str | Path) -> ResultsStore:
+    def open(cls, path: str | os.PathLike[str]) -> ResultsStore:
         """Open an existing results file and check it is one of ours, intact.
 
         Parameters
@@ -284,7 +285,7 @@ class ResultsStore:
         return cls(connection, file)
 
     @classmethod
-    def create(cls, path: str | Path, meta: Mapping[str, str]) -> ResultsStore:
+    def create(cls, path: str | os.PathLike[str], meta: Mapping[str, str]) -> ResultsStore:
         """Create a new, empty results file.
 
         Parameters

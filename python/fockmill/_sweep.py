@@ -25,7 +25,7 @@ import time
 from collections.abc import Callable, Iterable, Iterator, Mapping, Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Any
+from typing import Any, cast
 
 import numpy as np
 import numpy.typing as npt
@@ -42,7 +42,7 @@ from fockmill._observe import (
     populations,
     top_level_weights,
 )
-from fockmill._solve import ground_state, lowest_levels
+from fockmill._solve import Method, ground_state, lowest_levels
 from fockmill._space import FockSpace
 from fockmill._store import PointResult, ResultsStore, StoreError, SweepTable, utc_now
 from fockmill.exceptions import ConvergenceError, NotHermitianError
@@ -127,8 +127,8 @@ class SharedPattern:
     """
 
     dim: int
-    indptr: npt.NDArray[np.integer[Any]]
-    indices: npt.NDArray[np.integer[Any]]
+    indptr: npt.NDArray[Any]
+    indices: npt.NDArray[Any]
     data: dict[str, npt.NDArray[Any]]
     constant: npt.NDArray[Any]
 
@@ -486,20 +486,31 @@ def _lowest_matrix_free(
 ) -> tuple[npt.NDArray[np.float64], npt.NDArray[Any], float, str]:
     """Lowest levels from the expressions, with no stored matrix (large spaces)."""
     expr = prepared.hamiltonian(values)
-    common = {
-        "method": settings.method,
-        "tol": settings.tol,
-        "v0": start,
-        "threads": settings.threads,
-        "max_iterations": settings.max_iterations,
-    }
+    method = cast(Method, settings.method)
     if settings.levels == 1:
         found = ground_state(
-            expr, prepared.space, seed=settings.seed, cutoff_warning=None, **common
+            expr,
+            prepared.space,
+            method=method,
+            tol=settings.tol,
+            v0=start,
+            threads=settings.threads,
+            seed=settings.seed,
+            max_iterations=settings.max_iterations,
+            cutoff_warning=None,
         )
         energies = np.array([found.energy])
         return energies, found.vector[:, np.newaxis], float(found.residual), found.method
-    levels = lowest_levels(expr, prepared.space, settings.levels, **common)
+    levels = lowest_levels(
+        expr,
+        prepared.space,
+        settings.levels,
+        method=method,
+        tol=settings.tol,
+        v0=start,
+        threads=settings.threads,
+        max_iterations=settings.max_iterations,
+    )
     return levels.energies, levels.vectors, float(levels.residuals[0]), levels.method
 
 
@@ -804,13 +815,13 @@ def _resolve_executor(
         return executor, False, int(workers) if workers is not None else (os.cpu_count() or 1)
     get_executor = getattr(executor, "get_executor", None)
     if callable(get_executor):  # a dask.distributed Client
-        slots = workers
-        if slots is None:
-            try:
-                slots = sum(executor.nthreads().values()) or 1
-            except Exception:  # an unusual Client-like object: fall back to one slot each
-                slots = os.cpu_count() or 1
-        return get_executor(pure=False), True, int(slots)
+        if workers is not None:
+            return get_executor(pure=False), True, int(workers)
+        try:
+            slots = int(sum(executor.nthreads().values())) or 1
+        except Exception:  # an unusual Client-like object: assume one slot per core
+            slots = os.cpu_count() or 1
+        return get_executor(pure=False), True, slots
     raise TypeError(
         "executor must be a concurrent.futures.Executor, a dask.distributed Client, 'serial' "
         f"or None; got {type(executor).__name__}"
