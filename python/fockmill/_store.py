@@ -256,7 +256,7 @@ class ResultsStore:
 
         Parameters
         ----------
-        path : str or pathlib.Path
+        path : str or path-like
             The results file.
 
         Returns
@@ -290,7 +290,7 @@ class ResultsStore:
 
         Parameters
         ----------
-        path : str or pathlib.Path
+        path : str or path-like
             Where to write; must not exist yet. Parent directories are created.
         meta : Mapping[str, str]
             Extra ``meta`` entries (model fingerprint, name, settings ...). The format

@@ -34,18 +34,22 @@ impl From<PyCoreError> for PyErr {
         let message = e.0.to_string();
         match e.0 {
             CoreError::InvalidSpace(_) | CoreError::EmptySpace(_) => {
-                raise("SpaceError", message, |m| PyValueError::new_err(m))
+                raise("SpaceError", message, PyValueError::new_err::<String>)
             }
-            CoreError::TooLarge { .. } => raise("SizeLimitError", message, |m| PyMemoryError::new_err(m)),
+            CoreError::TooLarge { .. } => raise("SizeLimitError", message, PyMemoryError::new_err::<String>),
             CoreError::ModeOutOfRange { .. } => {
-                raise("ModeIndexError", message, |m| PyValueError::new_err(m))
+                raise("ModeIndexError", message, PyValueError::new_err::<String>)
             }
-            CoreError::ChargeViolation { .. } => raise("ChargeError", message, |m| PyValueError::new_err(m)),
+            CoreError::ChargeViolation { .. } => {
+                raise("ChargeError", message, PyValueError::new_err::<String>)
+            }
             CoreError::NonFinite(_) | CoreError::Shape(_) | CoreError::InvalidArgument(_) => {
                 PyValueError::new_err(message)
             }
             CoreError::Interrupted => PyKeyboardInterrupt::new_err("interrupted"),
-            CoreError::NotConverged(_) => raise("ConvergenceError", message, |m| PyRuntimeError::new_err(m)),
+            CoreError::NotConverged(_) => {
+                raise("ConvergenceError", message, PyRuntimeError::new_err::<String>)
+            }
         }
     }
 }

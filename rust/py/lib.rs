@@ -354,7 +354,7 @@ impl NativeOperator {
         seed: u64,
         start: Option<InVector<'py>>,
         threads: Option<usize>,
-    ) -> PyResult<(f64, Bound<'py, PyAny>, f64, usize, usize, usize, bool)> {
+    ) -> PyResult<LanczosTuple<'py>> {
         guarded(|| {
             let opts = LanczosOptions {
                 tol,

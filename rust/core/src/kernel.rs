@@ -163,7 +163,7 @@ impl<S: Scalar> ProductKernel<S> {
                 let hi = factors.last().map_or(0, |f| f.mode);
                 let mut span = Vec::with_capacity(hi - lo + 1);
                 let mut fi = 0;
-                for mode in lo..=hi {
+                for (mode, &cutoff) in cut.iter().enumerate().take(hi + 1).skip(lo) {
                     let factor = if fi < factors.len() && factors[fi].mode == mode {
                         fi += 1;
                         fi - 1
@@ -173,7 +173,7 @@ impl<S: Scalar> ProductKernel<S> {
                     span.push(SpanStep {
                         mode,
                         base: space.offset_base(mode),
-                        width: cut[mode] as usize + 2,
+                        width: cutoff as usize + 2,
                         weight: space.weights()[mode] as u64,
                         factor,
                     });

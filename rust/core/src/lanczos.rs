@@ -240,6 +240,7 @@ mod tests {
         fn dim(&self) -> usize {
             self.n
         }
+        #[allow(clippy::needless_range_loop)]
         fn apply(&self, x: &[f64], y: &mut [f64], _: &Runner, _: &dyn Interrupt) -> CoreResult<()> {
             for i in 0..self.n {
                 y[i] = (0..self.n).map(|j| self.a[i * self.n + j] * x[j]).sum();

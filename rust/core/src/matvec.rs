@@ -93,6 +93,7 @@ mod tests {
     }
 
     #[test]
+    #[allow(clippy::needless_range_loop)]
     fn product_equals_csr_product() {
         let space = FockSpace::new(vec![4; 5], None, Some(4), None).unwrap();
         let op = Operator::<f64>::new(&space, &ring_terms(5, 1.0, 2.5)).unwrap();

@@ -28,6 +28,9 @@ impl RawTerm {
     }
 }
 
+/// `(mode, creation power, annihilation power)` factors sorted by mode.
+pub type Monomial = Vec<(usize, u32, u32)>;
+
 /// Render a monomial as `a0†^2 a0 a3†` (the identity renders as `1`).
 pub fn format_monomial(factors: &[(usize, u32, u32)]) -> String {
     let mut out = String::new();
@@ -96,9 +99,8 @@ impl<S: Scalar> Operator<S> {
     /// modes in one term or powers beyond the largest cutoff;
     /// [`CoreError::ModeOutOfRange`]; [`CoreError::ChargeViolation`].
     pub fn new(space: &FockSpace, terms: &[RawTerm]) -> CoreResult<Self> {
-        let mut merged: Vec<(Vec<(usize, u32, u32)>, f64, f64)> = Vec::new();
-        let mut lookup: std::collections::HashMap<Vec<(usize, u32, u32)>, usize> =
-            std::collections::HashMap::new();
+        let mut merged: Vec<(Monomial, f64, f64)> = Vec::new();
+        let mut lookup: std::collections::HashMap<Monomial, usize> = std::collections::HashMap::new();
         for t in terms {
             if !t.re.is_finite() || !t.im.is_finite() {
                 return Err(CoreError::NonFinite(format!(
