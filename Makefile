@@ -3,7 +3,7 @@
 PYTHON ?= python3
 VENV ?= .venv
 PY := $(VENV)/bin/python
-EXTRAS := test,plot,progress,cluster
+EXTRAS := test,fast,plot,progress,cluster
 
 .PHONY: venv dev demo test test-rs test-py lint format bench clean
 

@@ -6,14 +6,17 @@ import csv
 import io
 import json
 import math
+import signal
 import subprocess
 import sys
+import time
 from pathlib import Path
 
 import numpy as np
 import pytest
 from fockmill import cli
 from fockmill._store import FORMAT_MARKER, ResultsStore
+from test_store import committed
 from test_sweep import pair_closed_form
 
 # Invented example: two coupled resonators holding two photons, U swept.
@@ -316,3 +319,53 @@ def test_bundled_demo_model_matches_example() -> None:
         "python/fockmill/_demo_model.toml must be a copy of "
         "examples/models/ring_kerr_crossover.toml; copy it over"
     )
+
+
+# Invented example: an eight-site ring, large enough that a sweep runs for a while.
+SLOW_RING_TOML = """\
+[model]
+kind = "bose-hubbard"
+lattice = "ring"
+sites = 8
+total = 8
+
+[sweep.U]
+start = 0.5
+stop = 20.0
+num = 400
+
+[record]
+quantities = ["energy", "gap"]
+"""
+
+
+def test_ctrl_c_during_pool_sweep_exits_130_and_keeps_rows(tmp_path: Path) -> None:
+    model = tmp_path / "slow.toml"
+    model.write_text(SLOW_RING_TOML)
+    results = tmp_path / "slow.sqlite"
+    process = subprocess.Popen(
+        [sys.executable, "-m", "fockmill", "sweep", str(model), "--out", str(results)]
+        + ["--workers", "2", "--no-progress"],
+        stdout=subprocess.PIPE,
+        stderr=subprocess.PIPE,
+        text=True,
+        # A test runner may start us with SIGINT ignored; the child must see it.
+        preexec_fn=lambda: signal.signal(signal.SIGINT, signal.SIG_DFL),
+    )
+    try:
+        deadline = time.monotonic() + 120
+        while committed(results) < 3:
+            assert process.poll() is None, process.communicate()
+            assert time.monotonic() < deadline, "the sweep committed no points in time"
+            time.sleep(0.02)
+        process.send_signal(signal.SIGINT)
+        _, err = process.communicate(timeout=60)
+    finally:
+        if process.poll() is None:
+            process.kill()
+            process.communicate()
+    assert process.returncode == 130
+    assert "interrupted" in err and "Traceback" not in err
+    with ResultsStore.open(results) as store:
+        assert store.integrity_ok()
+        assert 3 <= len(store.rows()) < 400

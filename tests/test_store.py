@@ -94,7 +94,7 @@ KILL_SCRIPT = textwrap.dedent(
 )
 
 
-def _committed(path: Path) -> int:
+def committed(path: Path) -> int:
     """Rows committed so far, read through a separate read-only connection."""
     try:
         with sqlite3.connect(f"file:{path}?mode=ro", uri=True, timeout=5) as reader:
@@ -114,7 +114,7 @@ def test_sigkill_mid_sweep_then_resume_equals_uninterrupted(tmp_path: Path) -> N
     )
     try:
         deadline = time.monotonic() + 120
-        while _committed(path) < 15:
+        while committed(path) < 15:
             assert process.poll() is None, process.stderr.read().decode() if process.stderr else ""
             assert time.monotonic() < deadline, "the sweep committed no points in time"
             time.sleep(0.01)
@@ -126,7 +126,7 @@ def test_sigkill_mid_sweep_then_resume_equals_uninterrupted(tmp_path: Path) -> N
         if process.stderr is not None:
             process.stderr.close()
     assert process.returncode == -signal.SIGKILL
-    at_kill = _committed(path)
+    at_kill = committed(path)
     assert 15 <= at_kill < total, "the kill must land mid-sweep for this test to mean anything"
     print(f"killed after {at_kill} of {total} points")
 

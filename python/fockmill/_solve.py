@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import contextlib
 import time
 import warnings
 from dataclasses import dataclass
@@ -110,6 +111,20 @@ class Levels:
         return float(self.energies[1] - self.energies[0])
 
 
+def _few_blas_threads() -> contextlib.AbstractContextManager[object]:
+    """Run ARPACK with single-threaded BLAS when threadpoolctl is installed.
+
+    eigsh's per-iteration BLAS work is small; on a busy machine a multi-threaded
+    OpenBLAS spends most of its time waking threads (measured: 8x slower on 2 cores
+    under load). The heavy work, the products, runs in our own Rust threads anyway.
+    """
+    try:
+        from threadpoolctl import threadpool_limits
+    except ImportError:
+        return contextlib.nullcontext()
+    return threadpool_limits(limits=1, user_api="blas")
+
+
 def _check_hermitian(expr: LadderExpr) -> None:
     if not expr.is_hermitian():
         anti = (expr - expr.adjoint()) * 0.5
@@ -181,9 +196,32 @@ def _start_vector(
     return v
 
 
-def _residuals(op: LinearOperator, energies: npt.NDArray[Any], vectors: npt.NDArray[Any]) -> Any:
-    hv = op.matmat(vectors)
+def _residuals(op: Any, energies: npt.NDArray[Any], vectors: npt.NDArray[Any]) -> Any:
+    hv = op @ vectors
     return np.linalg.norm(hv - vectors * energies[np.newaxis, :], axis=0)
+
+
+class _Counted(LinearOperator):  # type: ignore[misc]
+    """A Hermitian operator (CSR matrix or matrix-free) that counts its products."""
+
+    def __init__(self, inner: Any) -> None:
+        self.inner = inner
+        self.products = 0
+        super().__init__(dtype=np.dtype(inner.dtype), shape=inner.shape)
+
+    def _matvec(self, x: npt.NDArray[Any]) -> npt.NDArray[Any]:
+        self.products += 1
+        return self.inner @ x
+
+    def _matmat(self, x: npt.NDArray[Any]) -> npt.NDArray[Any]:
+        self.products += x.shape[1]
+        return self.inner @ x
+
+    _rmatvec = _matvec
+    _rmatmat = _matmat
+
+    def _adjoint(self) -> _Counted:
+        return self
 
 
 def _solve_levels(
@@ -197,30 +235,21 @@ def _solve_levels(
     max_iterations: int | None,
     memory_limit: int | None,
     seed: int = 0,
-) -> tuple[npt.NDArray[np.float64], npt.NDArray[Any], npt.NDArray[np.float64], int]:
-    """Energies, vectors, residuals and product count for the eigsh/dense methods."""
+) -> tuple[npt.NDArray[np.float64], npt.NDArray[Any], npt.NDArray[np.float64], _Counted | None]:
+    """Energies, vectors, residuals and the (counting) operator used, for the eigsh and
+    dense methods (the operator is None for dense)."""
     dim = space.dim
-    operator = LadderOperator(expr, space, threads=threads)
     if method == "dense":
         dense = build_matrix(expr, space, threads=threads, memory_limit=memory_limit).toarray()
         energies, vectors = np.linalg.eigh(dense)
         energies, vectors = energies[:k], vectors[:, :k]
         residuals = np.linalg.norm(dense @ vectors - vectors * energies, axis=0)
-        return energies, vectors, residuals, 0
-    start = _start_vector(v0, space, operator.dtype == np.float64)
-    counter: list[int] = [0]
+        return energies, vectors, residuals, None
     if method == "csr":
-        matrix = build_matrix(expr, space, threads=threads, memory_limit=memory_limit)
-
-        def matvec(x: npt.NDArray[Any]) -> npt.NDArray[Any]:
-            counter[0] += 1
-            return matrix @ x
-
-        target: LinearOperator = LinearOperator(
-            (dim, dim), matvec=matvec, rmatvec=matvec, dtype=matrix.dtype
-        )
+        target = _Counted(build_matrix(expr, space, threads=threads, memory_limit=memory_limit))
     else:
-        target = operator
+        target = _Counted(LadderOperator(expr, space, threads=threads))
+    start = _start_vector(v0, space, target.dtype == np.float64)
     if dim - 1 <= k:
         raise ValueError(
             f"k={k} levels need a space with more than {k + 1} states for an iterative "
@@ -229,9 +258,10 @@ def _solve_levels(
     if start is None:
         start = np.random.default_rng(seed).standard_normal(dim)
     try:
-        energies, vectors = sla.eigsh(
-            target, k=k, which="SA", tol=tol, v0=start, maxiter=max_iterations
-        )
+        with _few_blas_threads():
+            energies, vectors = sla.eigsh(
+                target, k=k, which="SA", tol=tol, v0=start, maxiter=max_iterations
+            )
         order = np.argsort(energies)
         energies, vectors = energies[order], vectors[:, order]
         energies, vectors = _recover_missed_copies(
@@ -242,9 +272,8 @@ def _solve_levels(
             f"eigsh ({method}) did not converge to tol={tol} for k={k} levels "
             f"({len(exc.eigenvalues)} converged); raise max_iterations or tol"
         ) from exc
-    products = counter[0] if method == "csr" else operator.products
-    residuals = _residuals(operator, energies, vectors)
-    return energies, vectors, residuals, products
+    residuals = _residuals(target.inner, energies, vectors)
+    return energies, vectors, residuals, target
 
 
 def _lowest_outside(
@@ -264,9 +293,10 @@ def _lowest_outside(
         return target.matvec(x).reshape(-1) + sigma * (basis @ (basis.conj().T @ x))
 
     op = LinearOperator((dim, dim), matvec=shifted, rmatvec=shifted, dtype=basis.dtype)
-    e, v = sla.eigsh(
-        op, k=1, which="SA", tol=tol, v0=rng.standard_normal(dim), maxiter=max_iterations
-    )
+    with _few_blas_threads():
+        e, v = sla.eigsh(
+            op, k=1, which="SA", tol=tol, v0=rng.standard_normal(dim), maxiter=max_iterations
+        )
     w = v[:, 0] - basis @ (basis.conj().T @ v[:, 0])
     return float(e[0]), w / np.linalg.norm(w)
 
@@ -411,9 +441,10 @@ def lowest_levels(
             time.perf_counter() - t0,
             (1,),
         )
-    energies, vectors, residuals, products = _solve_levels(
+    energies, vectors, residuals, target = _solve_levels(
         e, s, k, chosen, tol, v0, threads, max_iterations, memory_limit, seed
     )
+    products = 0 if target is None else target.products
     degeneracy_tol = max(1e3 * tol, 1e-9)
     return Levels(
         energies=np.asarray(energies, dtype=np.float64),
@@ -427,28 +458,25 @@ def lowest_levels(
 
 
 def _probe_degeneracy(
-    expr: LadderExpr,
+    target: _Counted,
     space: FockSpace,
-    method: str,
     energies: npt.NDArray[np.float64],
     vectors: npt.NDArray[Any],
     tol: float,
     degeneracy_tol: float,
-    threads: int | None,
     seed: int,
     max_iterations: int | None,
-) -> tuple[npt.NDArray[np.float64], npt.NDArray[Any], int]:
+) -> tuple[npt.NDArray[np.float64], npt.NDArray[Any]]:
     """Add the ground level's degenerate copies (found by deflation), up to 16."""
-    operator = LadderOperator(expr, space, threads=threads)
     rng = np.random.default_rng(seed + 1)
     scale = max(1.0, abs(float(energies[0])))
     while energies.size < min(16, space.dim - 2):
-        e, w = _lowest_outside(operator, vectors, scale, tol, rng, max_iterations)
+        e, w = _lowest_outside(target, vectors, scale, tol, rng, max_iterations)
         if e - energies[0] > degeneracy_tol * scale:
             break
         energies = np.append(energies, e)
         vectors = np.column_stack([vectors, w])
-    return energies, vectors, operator.products
+    return energies, vectors
 
 
 def _warn_cutoff(space: FockSpace, vector: npt.NDArray[Any], threshold: float | None) -> None:
@@ -567,18 +595,20 @@ def ground_state(
             converged=True,
         )
     degeneracy_tol = max(1e3 * tol, 1e-9)
+    products = 0
     if chosen == "dense":
-        energies, vectors, residuals, products = _solve_levels(
+        energies, vectors, residuals, _ = _solve_levels(
             e, s, min(17, s.dim), chosen, tol, v0, threads, max_iterations, memory_limit, seed
         )
     else:
-        energies, vectors, residuals, products = _solve_levels(
+        energies, vectors, residuals, target = _solve_levels(
             e, s, 1, chosen, tol, v0, threads, max_iterations, memory_limit, seed
         )
-        energies, vectors, extra = _probe_degeneracy(
-            e, s, chosen, energies, vectors, tol, degeneracy_tol, threads, seed, max_iterations
+        assert target is not None
+        energies, vectors = _probe_degeneracy(
+            target, s, energies, vectors, tol, degeneracy_tol, seed, max_iterations
         )
-        products += extra
+        products = target.products
     degeneracy = _degeneracy_groups(energies, degeneracy_tol)[0]
     energy = float(energies[0])
     vector = vectors[:, 0]

@@ -828,6 +828,15 @@ def _resolve_executor(
     )
 
 
+def _default_chunk(points: int, slots: int) -> int:
+    """About four tasks per slot (load balance), at most 64 points each.
+
+    The cap keeps progress updates regular and bounds the work redone after a crash;
+    each chunk starts one cold solve, a small cost at 64 points.
+    """
+    return max(1, min(64, math.ceil(points / (4 * slots))))
+
+
 def _chunks(order: list[int], size: int) -> list[list[int]]:
     return [order[i : i + size] for i in range(0, len(order), size)]
 
@@ -879,7 +888,8 @@ def run_sweep(
         Processes of the local pool (default: CPU count); also the parallelism assumed
         when sizing chunks for a given executor.
     chunk : int, optional
-        Consecutive points per task (default: enough for about four tasks per worker).
+        Consecutive points per task (default: about four tasks per worker, at most 64
+        points each).
     progress : bool
         Show a tqdm progress bar on stderr (when tqdm is installed).
     model_text_hash : str, optional
@@ -986,7 +996,7 @@ def _execute(
         for row in _solve_path(prepared, ((i, full[i]) for i in order), settings):
             finish(row)
         return
-    size = int(chunk) if chunk is not None else max(1, math.ceil(len(order) / (4 * slots)))
+    size = int(chunk) if chunk is not None else _default_chunk(len(order), slots)
     recipe = _ModelRecipe.from_model(model)
     futures: list[cf.Future[list[PointResult]]] = []
     failed = True
@@ -1007,8 +1017,26 @@ def _execute(
 
 
 def _close_pool(pool: cf.Executor, *, cancel: bool) -> None:
-    """Shut down an executor we created; drop queued work when the sweep failed."""
-    if isinstance(pool, cf.ProcessPoolExecutor):
-        pool.shutdown(wait=True, cancel_futures=cancel)
-    else:  # dask's ClientExecutor: wait=False cancels what is still pending
-        pool.shutdown(wait=not cancel)
+    """Shut down an executor we created; on failure or Ctrl-C, stop its work now.
+
+    Queued chunks are cancelled, and our own worker processes are terminated rather
+    than left to finish the chunk in hand (their finished rows are already stored).
+    """
+    if not isinstance(pool, cf.ProcessPoolExecutor):
+        pool.shutdown(wait=not cancel)  # dask's ClientExecutor: wait=False cancels
+        return
+    if not cancel:
+        pool.shutdown(wait=True)
+        return
+    terminate = getattr(pool, "terminate_workers", None)  # Python >= 3.14
+    if callable(terminate):
+        terminate()
+        return
+    # Older Pythons have no public way; the pool's process table is read before
+    # shutdown clears it.
+    processes = list((getattr(pool, "_processes", None) or {}).values())
+    pool.shutdown(wait=False, cancel_futures=True)
+    for process in processes:
+        process.terminate()
+    for process in processes:
+        process.join()

@@ -132,7 +132,7 @@ def build_parser() -> argparse.ArgumentParser:
         "--chunk",
         type=_positive_int,
         metavar="N",
-        help="consecutive points per task (default: about four tasks per worker)",
+        help="consecutive points per task (default: about four tasks per worker, at most 64)",
     )
     sweep.add_argument("--no-progress", action="store_true", help="hide the progress bar")
 

@@ -1,0 +1,161 @@
+"""Benchmark: what structure reuse, warm starts and worker processes buy in a sweep.
+
+Invented workload: a Bose–Hubbard ring at unit filling (default 8 sites, dim 6435),
+the on-site interaction U swept over 100 values at fixed hopping J = 1, two lowest
+levels per point (energy and gap), sparse Lanczos at every point.
+
+Variants, each timed ``--repeats`` times (the table shows medians):
+
+* rebuild + cold: per point, build ``H(p)`` from the expressions and start the
+  eigensolver from a random vector (what a plain loop over ``build_matrix`` does);
+* rebuild + warm: rebuild per point, start from the previous ground vector;
+* reuse + cold: pieces built once on a shared pattern, random start per point;
+* reuse + warm: pieces built once, warm starts (``run_sweep`` in-process);
+* run_sweep on 1 and on 2 worker processes (chunks of consecutive points).
+
+BLAS is pinned to one thread (unless set already) so that worker counts compare
+fairly on a small machine. Run ``python benchmarks/bench_sweep.py --help`` for sizes;
+``--quick`` runs a small version in a few seconds.
+"""
+
+from __future__ import annotations
+
+import os
+
+for _name in ("OPENBLAS_NUM_THREADS", "OMP_NUM_THREADS", "MKL_NUM_THREADS"):
+    os.environ.setdefault(_name, "1")
+
+import argparse  # noqa: E402
+import statistics  # noqa: E402
+import time  # noqa: E402
+from collections.abc import Callable  # noqa: E402
+
+import numpy as np  # noqa: E402
+from fockmill._build import build_matrix  # noqa: E402
+from fockmill._model import Model  # noqa: E402
+from fockmill._sweep import (  # noqa: E402
+    SharedPattern,
+    _check_settings,
+    _lowest,
+    _Settings,
+    _start_vector,
+    run_sweep,
+)
+from fockmill.models import bose_hubbard, ring_edges  # noqa: E402
+
+
+def manual_sweep(
+    model: Model, points: list[dict[str, float]], settings: _Settings, *, reuse: bool, warm: bool
+) -> list[float]:
+    """Ground energies point by point with the chosen reuse/warm-start policy."""
+    shared = SharedPattern.from_model(model) if reuse else None
+    previous = None
+    energies = []
+    for index, point in enumerate(points):
+        values = model.values(**point)
+        if shared is not None:
+            matrix = shared.assemble(values)
+        else:
+            matrix = build_matrix(model.hamiltonian(**values), model.space)
+        start = _start_vector(
+            model.space.dim, np.dtype(np.float64), 0, index, previous if warm else None
+        )
+        levels, vectors, _ = _lowest(matrix, settings.levels, start, settings)
+        previous = vectors[:, 0]
+        energies.append(float(levels[0]))
+    return energies
+
+
+def timed(action: Callable[[], object], repeats: int) -> tuple[float, object]:
+    """Median wall time of ``repeats`` runs, and the last result."""
+    times = []
+    result: object = None
+    for _ in range(repeats):
+        started = time.perf_counter()
+        result = action()
+        times.append(time.perf_counter() - started)
+    return statistics.median(times), result
+
+
+def main() -> None:
+    parser = argparse.ArgumentParser(description=__doc__.split("\n\n")[0])
+    parser.add_argument("--sites", type=int, default=8, help="ring sites = particles (8)")
+    parser.add_argument("--points", type=int, default=100, help="sweep points (100)")
+    parser.add_argument("--repeats", type=int, default=3, help="timings per variant (3)")
+    parser.add_argument("--quick", action="store_true", help="6 sites, 30 points, 1 repeat")
+    args = parser.parse_args()
+    if args.quick:
+        args.sites, args.points, args.repeats = 6, 30, 1
+
+    model = bose_hubbard(ring_edges(args.sites), total=args.sites)
+    points = [{"U": float(u)} for u in np.linspace(0.5, 20.0, args.points)]
+    options = {"method": "csr", "tol": 1e-10}
+    settings = _check_settings(model, ("energy", "gap"), 2, options, None)
+    print(
+        f"Bose–Hubbard ring, {args.sites} sites, {args.sites} particles: dim {model.space.dim}, "
+        f"{args.points} points of U, 2 levels each (eigsh, tol 1e-10); "
+        f"median of {args.repeats} runs; BLAS threads {os.environ['OPENBLAS_NUM_THREADS']}"
+    )
+
+    def sweep_with(workers: int) -> Callable[[], object]:
+        def action() -> list[float]:
+            table = run_sweep(
+                model,
+                points,
+                workers=workers,
+                solver_options=options,
+                progress=False,
+                chunk=max(1, args.points // (4 * workers)),
+            )
+            return [row.energy for row in table]
+
+        return action
+
+    variants: list[tuple[str, Callable[[], object]]] = [
+        (
+            "rebuild + cold start",
+            lambda: manual_sweep(model, points, settings, reuse=False, warm=False),
+        ),
+        (
+            "rebuild + warm start",
+            lambda: manual_sweep(model, points, settings, reuse=False, warm=True),
+        ),
+        (
+            "reuse + cold start",
+            lambda: manual_sweep(model, points, settings, reuse=True, warm=False),
+        ),
+        (
+            "reuse + warm start",
+            lambda: manual_sweep(model, points, settings, reuse=True, warm=True),
+        ),
+        ("run_sweep, 1 worker (in-process)", sweep_with(1)),
+        ("run_sweep, 2 worker processes", sweep_with(2)),
+    ]
+    rows = []
+    reference: list[float] | None = None
+    for label, action in variants:
+        seconds, energies = timed(action, args.repeats)
+        assert isinstance(energies, list)
+        if reference is None:
+            reference = energies
+        deviation = float(np.max(np.abs(np.subtract(energies, reference))))
+        rows.append((label, seconds, deviation))
+
+    baseline = rows[0][1]
+    one_worker = rows[4][1]
+    header = (
+        f"{'variant':<34} {'total s':>8} {'ms/point':>9} {'vs rebuild+cold':>16} "
+        f"{'vs 1 worker':>12} {'max |ΔE0|':>10}"
+    )
+    print(header)
+    print("-" * len(header))
+    for index, (label, seconds, deviation) in enumerate(rows):
+        versus_one = f"{one_worker / seconds:>11.2f}x" if index >= 4 else f"{'':>12}"
+        print(
+            f"{label:<34} {seconds:>8.2f} {1000 * seconds / args.points:>9.1f} "
+            f"{baseline / seconds:>15.2f}x {versus_one} {deviation:>10.1e}"
+        )
+
+
+if __name__ == "__main__":
+    main()

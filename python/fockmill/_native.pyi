@@ -1,0 +1,131 @@
+"""Typed stub of the compiled module ``fockmill._native`` (Rust, pyo3).
+
+Users import from ``fockmill``; these are the building blocks its public functions use.
+Every call that can run long releases the interpreter and polls for Ctrl-C; ``threads``
+is a thread count (None or 0: rayon's global pool, sized by ``RAYON_NUM_THREADS`` or the
+number of cores).
+"""
+
+from typing import final
+
+import numpy as np
+import numpy.typing as npt
+
+__all__ = [
+    "NativeOperator",
+    "NativeSpace",
+    "__version__",
+    "default_threads",
+    "monomial_expectations",
+    "occupation_distributions",
+]
+
+__version__: str
+
+_RealOrComplex1D = npt.NDArray[np.float64] | npt.NDArray[np.complex128]
+_RealOrComplex2D = npt.NDArray[np.float64] | npt.NDArray[np.complex128]
+
+@final
+class NativeSpace:
+    """A Fock space with its ranking tables.
+
+    Parameters
+    ----------
+    cutoffs : list of int
+        Highest occupation of each mode (>= 1).
+    weights : list of int, optional
+        Weight of each mode in the conserved charge (default all 1).
+    total : int, optional
+        Conserved weighted total (None: the full truncated space).
+    modulus : int, optional
+        Conserve the total modulo this (>= 2); needs ``total``.
+    """
+
+    def __new__(
+        cls,
+        cutoffs: list[int],
+        weights: list[int] | None = None,
+        total: int | None = None,
+        modulus: int | None = None,
+    ) -> NativeSpace: ...
+    @property
+    def dim(self) -> int: ...
+    @property
+    def modes(self) -> int: ...
+    @property
+    def cutoffs(self) -> list[int]: ...
+    @property
+    def weights(self) -> list[int]: ...
+    def occupations(
+        self, threads: int | None = None
+    ) -> npt.NDArray[np.uint8] | npt.NDArray[np.uint16]:
+        """Occupations of all basis states, shape ``(dim, modes)``."""
+    def index(
+        self, occ: npt.NDArray[np.int64], threads: int | None = None
+    ) -> npt.NDArray[np.int64]:
+        """Ranks of the rows of ``occ`` (``(n, modes)`` int64); -1 outside the space."""
+
+@final
+class NativeOperator:
+    """Validated, merged terms of an operator on a space.
+
+    Parameters
+    ----------
+    space : NativeSpace
+        The space.
+    terms : list of (re, im, [(mode, p, q), ...])
+        Coefficient parts and normal-ordered factors ``(a_mode†)^p (a_mode)^q``.
+    """
+
+    def __new__(
+        cls, space: NativeSpace, terms: list[tuple[float, float, list[tuple[int, int, int]]]]
+    ) -> NativeOperator: ...
+    @property
+    def is_real(self) -> bool: ...
+    @property
+    def terms(self) -> int: ...
+    @property
+    def dim(self) -> int: ...
+    def build_csr(
+        self, threads: int | None = None, force_wide: bool = False
+    ) -> tuple[
+        npt.NDArray[np.int32] | npt.NDArray[np.int64],
+        npt.NDArray[np.int32] | npt.NDArray[np.int64],
+        _RealOrComplex1D,
+    ]:
+        """CSR arrays ``(indptr, indices, data)``, moved to NumPy without a copy."""
+    def matvec(self, x: _RealOrComplex1D, threads: int | None = None) -> _RealOrComplex1D:
+        """``H x`` (complex128 when ``x`` or ``H`` is complex)."""
+    def matmat(self, x: _RealOrComplex2D, threads: int | None = None) -> _RealOrComplex2D:
+        """``H X`` for a ``(dim, k)`` block."""
+    def estimate_nnz(
+        self, samples: int = 2048, threads: int | None = None
+    ) -> tuple[float, float, bool, int]:
+        """``(nnz, standard error, exact, largest row)`` without building."""
+    def lanczos_ground(
+        self,
+        tol: float = 1e-9,
+        max_steps: int = 400,
+        max_restarts: int = 8,
+        seed: int = 0x5EED,
+        start: _RealOrComplex1D | None = None,
+        threads: int | None = None,
+    ) -> tuple[float, _RealOrComplex1D, float, int, int, int, bool]:
+        """Four-vector Lanczos ground state:
+        ``(energy, vector, residual, steps, products, restarts, converged)``."""
+
+def monomial_expectations(
+    space: NativeSpace,
+    monomials: list[list[tuple[int, int, int]]],
+    psi: _RealOrComplex1D,
+    threads: int | None = None,
+) -> npt.NDArray[np.complex128]:
+    """``⟨ψ|m|ψ⟩`` for each (distinct, charge-conserving) monomial ``m``."""
+
+def occupation_distributions(
+    space: NativeSpace, psi: _RealOrComplex1D, threads: int | None = None
+) -> npt.NDArray[np.float64]:
+    """``Σ |ψ|²`` per mode and occupation, concatenated over modes."""
+
+def default_threads() -> int:
+    """Threads of rayon's global pool."""
