@@ -344,8 +344,10 @@ def test_ctrl_c_during_pool_sweep_exits_130_and_keeps_rows(tmp_path: Path) -> No
     model.write_text(SLOW_RING_TOML)
     results = tmp_path / "slow.sqlite"
     process = subprocess.Popen(
-        [sys.executable, "-m", "fockmill", "sweep", str(model), "--out", str(results)]
-        + ["--workers", "2", "--no-progress"],
+        [
+            *(sys.executable, "-m", "fockmill", "sweep", str(model)),
+            *("--out", str(results), "--workers", "2", "--no-progress"),
+        ],
         stdout=subprocess.PIPE,
         stderr=subprocess.PIPE,
         text=True,
@@ -369,3 +371,17 @@ def test_ctrl_c_during_pool_sweep_exits_130_and_keeps_rows(tmp_path: Path) -> No
     with ResultsStore.open(results) as store:
         assert store.integrity_ok()
         assert 3 <= len(store.rows()) < 400
+
+
+def test_optional_dependencies_load_lazily() -> None:
+    # Project rule: `import fockmill` needs only numpy and scipy; tqdm, matplotlib and
+    # dask load only inside the functions that use them.
+    probe = (
+        "import sys, fockmill, fockmill._sweep, fockmill._store, fockmill._plot, fockmill.cli\n"
+        "print(sorted(m for m in ('tqdm', 'matplotlib', 'dask', 'distributed') "
+        "if m in sys.modules))"
+    )
+    result = subprocess.run(
+        [sys.executable, "-c", probe], capture_output=True, text=True, check=True
+    )
+    assert result.stdout.strip() == "[]"

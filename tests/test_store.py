@@ -242,3 +242,8 @@ def test_complex_model_round_trips(tmp_path: Path) -> None:
     matrix = np.array(row.observables["one_body"]) + 1j * np.array(row.observables["one_body_imag"])
     np.testing.assert_allclose(matrix, matrix.conj().T, atol=1e-12)  # Hermitian, as ⟨a_i† a_j⟩
     assert row.energy == pytest.approx(dense_levels(model, {"J": 1.0})[0], abs=1e-9)
+
+
+def test_directory_is_not_a_results_file(tmp_path: Path) -> None:
+    with pytest.raises(StoreError, match="is a directory"):
+        ResultsStore.open(tmp_path)

@@ -138,7 +138,8 @@ def _stack(values: Sequence[Any]) -> npt.NDArray[np.float64]:
         if value is None:
             continue
         arr = np.asarray(value, dtype=np.float64)
-        out[row][tuple(slice(0, n) for n in arr.shape)] = arr
+        index: tuple[int | slice, ...] = (row, *(slice(0, n) for n in arr.shape))
+        out[index] = arr
     return out
 
 
@@ -270,6 +271,11 @@ class ResultsStore:
             has a newer schema, or fails SQLite's quick integrity check.
         """
         file = Path(path)
+        if file.is_dir():
+            raise StoreError(
+                f"{str(file)!r} is a directory, not a results file; give the path of a file "
+                f"inside it, e.g. {str(file / 'results.sqlite')!r}"
+            )
         if not file.is_file():
             raise StoreError(
                 f"results file {str(file)!r} does not exist; run a sweep with "

@@ -344,31 +344,38 @@ def format_json(table: SweepTable, meta: dict[str, str]) -> str:
     return json.dumps({"meta": meta, "rows": [_row_dict(r) for r in table.rows]}, indent=2)
 
 
-def _format_point(row: PointResult, model: Any, swept_labels: Sequence[str]) -> str:
-    lines = [f"model      {model.name} (dim {model.space.dim}, {model.space.modes} modes)"]
-    lines.append("parameters " + ", ".join(f"{k}={v:g}" for k, v in row.parameters.items()))
+def _format_point(row: PointResult, model: Any, mode_labels: Sequence[str]) -> str:
+    """Human-readable report of one solved point (``fockmill solve``)."""
+    entries: list[tuple[str, str]] = [
+        ("model", f"{model.name} (dim {model.space.dim}, {model.space.modes} modes)"),
+        ("parameters", ", ".join(f"{k}={v:g}" for k, v in row.parameters.items())),
+    ]
     if row.levels is not None:
-        energies = "  ".join(f"E{k}={e:.10g}" for k, e in enumerate(row.levels))
-        lines.append(f"energies   {energies}")
+        entries.append(("energies", "  ".join(f"E{k}={e:.10g}" for k, e in enumerate(row.levels))))
     else:
-        lines.append(f"energy     E0={row.energy:.10g}")
+        entries.append(("energy", f"E0={row.energy:.10g}"))
     if row.gap is not None:
-        lines.append(f"gap        {row.gap:.10g}")
-    labels = list(swept_labels)
+        entries.append(("gap", f"{row.gap:.10g}"))
+    labels = list(mode_labels)
+    matrices: list[tuple[str, Any]] = []
     for key, value in row.observables.items():
         if key in _MATRIX_KEYS:
-            lines.append(f"{key}:")
-            lines.extend("  " + _short_list(line) for line in value)
+            matrices.append((key, value))
         elif isinstance(value, list):
             named = (
                 ", ".join(f"{label}={v:.6g}" for label, v in zip(labels, value, strict=True))
                 if len(labels) == len(value)
                 else _short_list(value)
             )
-            lines.append(f"{key:<10} {named}")
+            entries.append((key, named))
         else:
-            lines.append(f"{key:<10} {float(value):.10g}")
-    lines.append(f"residual   {row.residual:.2e}  ({row.method}, {row.seconds:.3f} s)")
+            entries.append((key, f"{float(value):.10g}"))
+    entries.append(("residual", f"{row.residual:.2e}  ({row.method}, {row.seconds:.3f} s)"))
+    width = max(len(name) for name, _ in entries)
+    lines = [f"{name:<{width}}  {text}" for name, text in entries]
+    for key, matrix in matrices:
+        lines.append(f"{key}:")
+        lines.extend("  " + _short_list(line) for line in matrix)
     return "\n".join(lines)
 
 

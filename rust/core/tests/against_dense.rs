@@ -1,0 +1,236 @@
+//! Integration tests: the CSR build, the fast product and the Lanczos solver against an
+//! independent dense reference (brute-force enumeration, direct ladder-operator action),
+//! on boundary cases: cutoff 1, one mode, total 0, the maximal total, zero weights,
+//! parity sectors and forced 64-bit indices.
+
+use fockmill_core::build::{build_csr, Csr, CsrAny, CsrIndex};
+use fockmill_core::lanczos::{ground_state, FockMap, LanczosOptions};
+use fockmill_core::matvec::apply;
+use fockmill_core::{FockSpace, NoInterrupt, Operator, RawTerm, Runner};
+
+/// Every occupation tuple of the sector, in lexicographic order (mode 0 first).
+fn enumerate(cutoffs: &[u32], weights: &[u32], total: Option<u64>, modulus: Option<u64>) -> Vec<Vec<u32>> {
+    let mut out = Vec::new();
+    let mut occ = vec![0u32; cutoffs.len()];
+    loop {
+        let charge: u64 = occ.iter().zip(weights).map(|(&n, &w)| n as u64 * w as u64).sum();
+        let keep = match (total, modulus) {
+            (None, _) => true,
+            (Some(t), None) => charge == t,
+            (Some(t), Some(m)) => charge % m == t % m,
+        };
+        if keep {
+            out.push(occ.clone());
+        }
+        let mut i = cutoffs.len();
+        loop {
+            if i == 0 {
+                return out;
+            }
+            i -= 1;
+            if occ[i] < cutoffs[i] {
+                occ[i] += 1;
+                occ.iter_mut().skip(i + 1).for_each(|o| *o = 0);
+                break;
+            }
+        }
+    }
+}
+
+/// ⟨target| c Π (a†)^p a^q |state⟩ by direct action: a^q first, then (a†)^p.
+fn act(term: &RawTerm, state: &[u32], cutoffs: &[u32]) -> Option<(Vec<u32>, f64)> {
+    let mut out = state.to_vec();
+    let mut amp = 1.0f64;
+    for &(mode, p, q) in &term.factors {
+        for _ in 0..q {
+            if out[mode] == 0 {
+                return None;
+            }
+            amp *= (out[mode] as f64).sqrt();
+            out[mode] -= 1;
+        }
+        for _ in 0..p {
+            out[mode] += 1;
+            amp *= (out[mode] as f64).sqrt();
+        }
+        if out[mode] > cutoffs[mode] {
+            return None;
+        }
+    }
+    Some((out, amp * term.re))
+}
+
+fn dense(states: &[Vec<u32>], terms: &[RawTerm], cutoffs: &[u32]) -> Vec<Vec<f64>> {
+    let n = states.len();
+    let mut h = vec![vec![0.0; n]; n];
+    for (c, s) in states.iter().enumerate() {
+        for t in terms {
+            if let Some((target, v)) = act(t, s, cutoffs) {
+                let r = states
+                    .iter()
+                    .position(|x| *x == target)
+                    .expect("conserving terms stay in the sector");
+                h[r][c] += v;
+            }
+        }
+    }
+    h
+}
+
+fn to_dense<I: CsrIndex>(csr: &Csr<f64, I>) -> Vec<Vec<f64>> {
+    let n = csr.dim as usize;
+    let mut h = vec![vec![0.0; n]; n];
+    for (r, row) in h.iter_mut().enumerate() {
+        let (a, b) = (
+            csr.indptr[r].to_u64() as usize,
+            csr.indptr[r + 1].to_u64() as usize,
+        );
+        for e in a..b {
+            row[csr.indices[e].to_u64() as usize] = csr.data[e];
+        }
+    }
+    h
+}
+
+fn check(cutoffs: &[u32], weights: &[u32], total: Option<u64>, modulus: Option<u64>, terms: &[RawTerm]) {
+    let states = enumerate(cutoffs, weights, total, modulus);
+    let space = FockSpace::new(cutoffs.to_vec(), Some(weights.to_vec()), total, modulus).unwrap();
+    assert_eq!(space.dim() as usize, states.len());
+    let op = Operator::<f64>::new(&space, terms).unwrap();
+    let expected = dense(&states, terms, cutoffs);
+    for threads in [1, 2] {
+        let runner = Runner::with_threads(Some(threads)).unwrap();
+        for wide in [false, true] {
+            let got = match build_csr(&space, &op, &runner, &NoInterrupt, wide).unwrap() {
+                CsrAny::Narrow(c) => {
+                    assert!(!wide);
+                    to_dense(&c)
+                }
+                CsrAny::Wide(c) => {
+                    assert!(wide);
+                    to_dense(&c)
+                }
+            };
+            for (r, (g, e)) in got.iter().zip(&expected).enumerate() {
+                for (c, (a, b)) in g.iter().zip(e).enumerate() {
+                    assert!((a - b).abs() < 1e-12, "entry ({r},{c}): {a} vs {b}");
+                }
+            }
+        }
+        let x: Vec<f64> = (0..states.len()).map(|i| (i as f64 * 0.37).sin()).collect();
+        let mut y = vec![0.0; states.len()];
+        apply(&space, &op, &x, &mut y, &runner, &NoInterrupt).unwrap();
+        for (r, row) in expected.iter().enumerate() {
+            let want: f64 = row.iter().zip(&x).map(|(a, b)| a * b).sum();
+            assert!((want - y[r]).abs() < 1e-10, "row {r}: {want} vs {}", y[r]);
+        }
+    }
+}
+
+fn hop(i: usize, j: usize, t: f64) -> [RawTerm; 2] {
+    let (a, b) = if i < j { (i, j) } else { (j, i) };
+    [
+        RawTerm::new(-t, 0.0, vec![(a, 1, 0), (b, 0, 1)]),
+        RawTerm::new(-t, 0.0, vec![(a, 0, 1), (b, 1, 0)]),
+    ]
+}
+
+fn ring(l: usize, u: f64) -> Vec<RawTerm> {
+    let mut t = Vec::new();
+    for i in 0..l {
+        t.extend(hop(i, (i + 1) % l, 1.0));
+        t.push(RawTerm::new(u / 2.0, 0.0, vec![(i, 2, 2)]));
+    }
+    t
+}
+
+#[test]
+fn bose_hubbard_sectors() {
+    check(&[4; 4], &[1; 4], Some(4), None, &ring(4, 3.0));
+    check(&[2; 5], &[1; 5], Some(5), None, &ring(5, 1.5)); // cutoff below the total
+    check(&[3; 3], &[1; 3], None, None, &ring(3, 0.7)); // full truncated space
+}
+
+#[test]
+fn hard_core_bosons_cutoff_one() {
+    check(&[1; 6], &[1; 6], Some(3), None, &ring(6, 0.0));
+}
+
+#[test]
+fn single_mode_and_extreme_totals() {
+    // One mode: a Kerr oscillator with a constant.
+    let kerr = vec![
+        RawTerm::new(2.0, 0.0, vec![(0, 1, 1)]),
+        RawTerm::new(0.25, 0.0, vec![(0, 2, 2)]),
+        RawTerm::new(-1.0, 0.0, vec![]),
+    ];
+    check(&[7], &[1], None, None, &kerr);
+    check(&[7], &[1], Some(3), None, &kerr);
+    // Total 0 and the maximal total: one state each.
+    check(&[3; 3], &[1; 3], Some(0), None, &ring(3, 1.0));
+    check(&[3; 3], &[1; 3], Some(9), None, &ring(3, 1.0));
+}
+
+#[test]
+fn weighted_and_parity_sectors() {
+    // Cavity (weight 1) coupled to an emitter (weight 1) and a spectator mode of weight 0.
+    let mut terms = vec![
+        RawTerm::new(1.0, 0.0, vec![(0, 1, 1)]),
+        RawTerm::new(0.5, 0.0, vec![(2, 1, 1)]),
+    ];
+    terms.extend(hop(0, 1, 0.3));
+    terms.push(RawTerm::new(0.2, 0.0, vec![(2, 1, 0)]));
+    terms.push(RawTerm::new(0.2, 0.0, vec![(2, 0, 1)]));
+    check(&[4, 1, 3], &[1, 1, 0], Some(2), None, &terms);
+    // Two-photon drive keeps parity.
+    let squeeze = vec![
+        RawTerm::new(1.0, 0.0, vec![(0, 1, 1)]),
+        RawTerm::new(0.3, 0.0, vec![(0, 2, 0)]),
+        RawTerm::new(0.3, 0.0, vec![(0, 0, 2)]),
+        RawTerm::new(0.1, 0.0, vec![(0, 1, 0), (1, 1, 0)]),
+        RawTerm::new(0.1, 0.0, vec![(0, 0, 1), (1, 0, 1)]),
+    ];
+    check(&[6, 5], &[1, 1], Some(0), Some(2), &squeeze);
+    check(&[6, 5], &[1, 1], Some(1), Some(2), &squeeze);
+    // Weights 2 and 1: a pair on mode 1 converts to one quantum of mode 0.
+    let convert = vec![
+        RawTerm::new(0.4, 0.0, vec![(0, 1, 0), (1, 0, 2)]),
+        RawTerm::new(0.4, 0.0, vec![(0, 0, 1), (1, 2, 0)]),
+    ];
+    check(&[3, 6], &[2, 1], Some(6), None, &convert);
+}
+
+#[test]
+fn long_range_and_multi_mode_terms() {
+    let terms = vec![
+        RawTerm::new(0.7, 0.0, vec![(0, 1, 0), (4, 0, 1)]),
+        RawTerm::new(0.7, 0.0, vec![(0, 0, 1), (4, 1, 0)]),
+        RawTerm::new(0.3, 0.0, vec![(1, 1, 1), (3, 1, 1)]),
+        RawTerm::new(0.2, 0.0, vec![(0, 1, 0), (2, 1, 0), (1, 0, 1), (4, 0, 1)]),
+        RawTerm::new(0.2, 0.0, vec![(0, 0, 1), (2, 0, 1), (1, 1, 0), (4, 1, 0)]),
+        RawTerm::new(0.1, 0.0, vec![(1, 2, 0), (3, 0, 2)]),
+        RawTerm::new(0.1, 0.0, vec![(1, 0, 2), (3, 2, 0)]),
+    ];
+    check(&[2, 3, 2, 3, 2], &[1; 5], Some(4), None, &terms);
+}
+
+#[test]
+fn lanczos_matches_dense_ground_energy() {
+    // Two-site Bose–Hubbard with two bosons: E0 = U/2 − sqrt(U²/4 + 4J²)
+    // (common practice, no source; J = 1, U = 3 here).
+    let space = FockSpace::new(vec![2, 2], None, Some(2), None).unwrap();
+    let mut terms = hop(0, 1, 1.0).to_vec();
+    terms.push(RawTerm::new(1.5, 0.0, vec![(0, 2, 2)]));
+    terms.push(RawTerm::new(1.5, 0.0, vec![(1, 2, 2)]));
+    let op = Operator::<f64>::new(&space, &terms).unwrap();
+    let out = ground_state(
+        &FockMap::new(&space, &op),
+        None,
+        &LanczosOptions::default(),
+        &Runner::global(),
+        &NoInterrupt,
+    )
+    .unwrap();
+    let exact = 1.5 - (2.25f64 + 4.0).sqrt();
+    assert!((out.energy - exact).abs() < 1e-12, "{} vs {exact}", out.energy);
+}
