@@ -1,0 +1,93 @@
+"""Benchmark: the largest ground states, low-memory Lanczos (four vectors, no matrix)
+on the Bose–Hubbard ring at unit filling, with wall time and peak memory.
+
+Each size runs in a fresh subprocess so that its peak resident memory is its own.
+Targets: L = N = 14 (20,058,300 states) in < 10 min with < 12 GB; moonshot L = 15
+(77,558,760 states) within 24 GB.
+
+Usage: python benchmarks/bench_ground.py [--sites 12 13 14] [--interaction 1.0]
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import os
+import resource
+import subprocess
+import sys
+import time
+
+sys.path.insert(0, os.path.dirname(__file__))
+from _common import table
+
+CHILD = """
+import json, sys, time
+sys.path.insert(0, {here!r})
+from _common import bose_hubbard_ring, unit_filling
+import fockmill as fm
+sites, interaction, method = {sites}, {interaction}, {method!r}
+h = bose_hubbard_ring(sites, 1.0, interaction)
+space = unit_filling(sites)
+t0 = time.perf_counter()
+g = fm.ground_state(h, space, method=method, tol=1e-8, cutoff_warning=None)
+print(json.dumps(dict(dim=space.dim, energy=g.energy, residual=g.residual,
+                      products=g.products, seconds=time.perf_counter() - t0)))
+"""
+
+
+def run(sites: int, interaction: float, method: str) -> dict[str, float]:
+    code = CHILD.format(
+        here=os.path.dirname(os.path.abspath(__file__)),
+        sites=sites,
+        interaction=interaction,
+        method=method,
+    )
+    before = resource.getrusage(resource.RUSAGE_CHILDREN).ru_maxrss
+    t0 = time.perf_counter()
+    out = subprocess.run(
+        [sys.executable, "-c", code], capture_output=True, text=True, check=True
+    ).stdout
+    wall = time.perf_counter() - t0
+    peak_kib = resource.getrusage(resource.RUSAGE_CHILDREN).ru_maxrss
+    result = json.loads(out.strip().splitlines()[-1])
+    # ru_maxrss of children is the maximum over all children so far.
+    result["peak_gib"] = max(peak_kib, before) / 2**20
+    result["wall"] = wall
+    return result
+
+
+def main() -> None:
+    parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    parser.add_argument("--sites", type=int, nargs="+", default=[12, 13, 14])
+    parser.add_argument("--interaction", type=float, default=1.0)
+    parser.add_argument("--method", default="lanczos")
+    args = parser.parse_args()
+    rows = []
+    for sites in sorted(args.sites):
+        r = run(sites, args.interaction, args.method)
+        rows.append(
+            [
+                str(sites),
+                f"{int(r['dim']):,}",
+                f"{r['energy']:.10f}",
+                f"{r['residual']:.1e}",
+                str(int(r["products"])),
+                f"{r['seconds']:.1f}",
+                f"{r['seconds'] / max(r['products'], 1) * 1e3:.0f}",
+                f"{r['peak_gib']:.2f}",
+            ]
+        )
+        print(table(HEADERS, rows[-1:]).splitlines()[-1], flush=True)
+    print()
+    print(table(HEADERS, rows))
+    print(
+        f"\nmethod={args.method}, J=1, U={args.interaction}; peak = max resident set of the "
+        "child processes so far (so it is cumulative across rows, ascending sizes)."
+    )
+
+
+HEADERS = ["L=N", "states", "E0", "residual", "products", "solve s", "ms/product", "peak GiB"]
+
+if __name__ == "__main__":
+    main()
