@@ -32,6 +32,7 @@ lint: dev
 	cargo clippy --workspace --all-targets -- -D warnings
 	$(VENV)/bin/ruff check python tests benchmarks examples
 	$(VENV)/bin/ruff format --check python tests benchmarks examples
+	$(PY) -m mypy.stubtest fockmill._native
 
 test: test-rs lint test-py
 
@@ -42,6 +43,9 @@ format: venv
 
 bench: dev
 	$(PY) benchmarks/bench_build.py
+	$(PY) benchmarks/bench_matvec.py
+	$(PY) benchmarks/bench_ground.py
+	$(PY) benchmarks/bench_sweep.py
 
 clean:
 	rm -rf target $(VENV) .pytest_cache .ruff_cache .hypothesis

@@ -25,6 +25,7 @@ import time
 from collections.abc import Callable, Iterable, Iterator, Mapping, Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
+from types import MappingProxyType
 from typing import Any, cast
 
 import numpy as np
@@ -68,14 +69,16 @@ RECORDABLE = (
 )
 """Quantities a sweep can record at each point."""
 
-SOLVER_OPTIONS: dict[str, object] = {
-    "method": "auto",
-    "tol": 1e-12,
-    "dense_limit": 300,
-    "max_iterations": None,
-    "seed": 0,
-    "threads": None,
-}
+SOLVER_OPTIONS: Mapping[str, object] = MappingProxyType(
+    {
+        "method": "auto",
+        "tol": 1e-12,
+        "dense_limit": 300,
+        "max_iterations": None,
+        "seed": 0,
+        "threads": None,
+    }
+)
 """Solver options of :func:`run_sweep` and their defaults.
 
 ``method``: ``"auto"`` (dense below ``dense_limit``, else sparse Lanczos on the shared
