@@ -4,7 +4,10 @@ from __future__ import annotations
 
 import numbers
 
-__all__ = ["check_threads"]
+__all__ = ["MAX_THREADS", "check_threads"]
+
+#: Largest thread count accepted (the Rust core refuses more).
+MAX_THREADS = 1024
 
 
 def check_threads(threads: object) -> int | None:
@@ -16,6 +19,10 @@ def check_threads(threads: object) -> int | None:
             f"threads must be a positive integer, 0 or None (all cores); got {threads!r}"
         )
     value = int(threads)
+    if value > MAX_THREADS:
+        raise ValueError(
+            f"threads={value} is too many; pass at most {MAX_THREADS}, 0 or None (all cores)"
+        )
     if value < 0:
         raise ValueError(f"threads must be a positive integer, 0 or None (all cores); got {value}")
     return value

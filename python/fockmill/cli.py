@@ -46,14 +46,9 @@ class _Parser(argparse.ArgumentParser):
 # -- parser -------------------------------------------------------------------------
 
 _DESCRIPTION = """\
-Ground states and observables of coupled bosonic modes from a model file (TOML).
-
-subcommands:
-  solve   one point at the model file's default parameters
-  sweep   the model file's parameter grid, saved point by point (resumable)
-  show    print a results file as a table, CSV or JSON
-  plot    draw recorded quantities against a swept parameter (needs matplotlib)
-  demo    run the bundled example sweep (an invented ring of Kerr resonators)
+Ground states, gaps and observables of coupled bosonic modes described by a TOML
+model file: solve one point, run a resumable parameter sweep into an SQLite results
+file, then show or plot the results. 'fockmill demo' runs a bundled invented example.
 """
 
 _EPILOG = """\

@@ -110,6 +110,8 @@ pub struct ProductKernel<S: Scalar> {
     multi_diag: Vec<(S, Vec<FactorPlan>)>,
     off: Vec<OffDiagonal<S>>,
     hops: Vec<Hop<S>>,
+    /// Hops `..hops_below` land below the diagonal; they are emitted before it.
+    hops_below: usize,
     sqrt: Vec<f64>,
 }
 
@@ -206,7 +208,20 @@ impl<S: Scalar> ProductKernel<S> {
             }
         }
         let diag_modes = (0..m).filter(|&i| diag_used[i]).collect();
-        let _ = SQRT_TABLE;
+        // Emit hops in roughly ascending column order so the per-row sort of a build
+        // has little to do: in the lexicographic basis, a hop that lowers the more
+        // significant mode lands below the row, further the more significant the mode
+        // (and, for equal modes, the less significant the other one); one that raises
+        // it lands above. The order only changes how duplicates are grouped, and it is
+        // the same on every thread.
+        hops.sort_by_key(|h: &Hop<S>| {
+            if h.d_lo < 0 {
+                (0u8, h.lo as i64, -(h.hi as i64))
+            } else {
+                (1u8, -(h.lo as i64), h.hi as i64)
+            }
+        });
+        let hops_below = hops.iter().take_while(|h| h.d_lo < 0).count();
         let sqrt_len = ((space.max_cutoff() as usize + 1).pow(2) + 1).clamp(SQRT_TABLE, 1 << 20);
         let sqrt = (0..sqrt_len).map(|k| (k as f64).sqrt()).collect();
         ProductKernel {
@@ -217,6 +232,7 @@ impl<S: Scalar> ProductKernel<S> {
             multi_diag,
             off,
             hops,
+            hops_below,
             sqrt,
         }
     }
@@ -362,8 +378,8 @@ impl<S: Scalar> ProductKernel<S> {
     }
 
     /// Emit `(row_in_block, column, value)` for every entry of the block's rows: the
-    /// diagonal first (when the operator has diagonal terms), then hop terms, then
-    /// other off-diagonal terms, each in term order.
+    /// hops that land below the diagonal, the diagonal (when the operator has diagonal
+    /// terms), the other hops, then the remaining off-diagonal terms.
     #[inline(always)]
     fn block_entries<R: ResidueRule>(
         &self,
@@ -374,6 +390,10 @@ impl<S: Scalar> ProductKernel<S> {
         mut emit: impl FnMut(usize, u64, S),
     ) {
         let m = self.modes;
+        let offsets = space.offset_table();
+        for hop in &self.hops[..self.hops_below] {
+            self.hop_rows(rule, hop, b, n, offsets, &mut emit);
+        }
         if !self.diag_modes.is_empty() || !self.multi_diag.is_empty() {
             for r in 0..n {
                 let occ = &b.occ[r * m..(r + 1) * m];
@@ -396,8 +416,7 @@ impl<S: Scalar> ProductKernel<S> {
                 emit(r, b.rank[r], d);
             }
         }
-        let offsets = space.offset_table();
-        for hop in &self.hops {
+        for hop in &self.hops[self.hops_below..] {
             self.hop_rows(rule, hop, b, n, offsets, &mut emit);
         }
         let mut new_occ: Vec<u32> = Vec::with_capacity(8);

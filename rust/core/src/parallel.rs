@@ -10,6 +10,10 @@ pub const BLOCK_ROWS: u64 = 4096;
 /// Blocks run between two interruption checks (about a million rows).
 pub const BLOCKS_PER_CHECK: usize = 256;
 
+/// Most threads a private pool may have (far above any real machine's useful count;
+/// larger requests are mistakes that would exhaust the process's thread limit).
+pub const MAX_THREADS: usize = 1024;
+
 /// Asked between groups of blocks whether the caller wants to stop.
 pub trait Interrupt {
     /// `true` when the work should stop now.
@@ -46,6 +50,9 @@ impl Runner {
     pub fn with_threads(threads: Option<usize>) -> CoreResult<Self> {
         match threads {
             None | Some(0) => Ok(Self::global()),
+            Some(n) if n > MAX_THREADS => Err(CoreError::InvalidArgument(format!(
+                "threads={n} is too many; pass at most {MAX_THREADS} (or None for all cores)"
+            ))),
             Some(n) => rayon::ThreadPoolBuilder::new()
                 .num_threads(n)
                 .build()
