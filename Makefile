@@ -20,6 +20,7 @@ dev: venv
 
 demo: dev
 	$(PY) examples/demo.py
+	$(VENV)/bin/fockmill demo --out-dir out/demo
 
 test-rs:
 	cargo test -p fockmill-core --release

@@ -75,7 +75,7 @@ def manual_sweep(
         )
         target = matrix if products is None else _counting(matrix, products)
         levels, vectors, _ = _lowest(target, settings.levels, start, settings)
-        previous = vectors[:, 0]
+        previous = vectors
         energies.append(float(levels[0]))
     return energies
 

@@ -26,6 +26,8 @@ Model, models
     (Bose–Hubbard on any graph, Jaynes–Cummings–Hubbard arrays, Kerr networks, drives).
 load_model_file, parse_model_text, ModelFile, SweepGrid, ModelFileError
     Model files in TOML.
+run_sweep, SweepTable, PointResult, ResultsStore, StoreError, plot_sweep
+    Parameter sweeps (process pool, any Executor, Dask), resumable SQLite results, plots.
 """
 
 from fockmill import exceptions, models
@@ -51,8 +53,11 @@ from fockmill._observe import (
     top_level_weights,
 )
 from fockmill._operator import LadderOperator, build_operator
+from fockmill._plot import plot_sweep
 from fockmill._solve import GroundState, Levels, choose_method, ground_state, lowest_levels
 from fockmill._space import FockSpace
+from fockmill._store import ResultsStore, StoreError
+from fockmill._sweep import PointResult, SweepTable, run_sweep
 from fockmill._truncation import CutoffScan, converge_cutoffs
 
 __all__ = [
@@ -66,7 +71,11 @@ __all__ = [
     "Model",
     "ModelFile",
     "ModelFileError",
+    "PointResult",
+    "ResultsStore",
+    "StoreError",
     "SweepGrid",
+    "SweepTable",
     "__version__",
     "available_memory",
     "build_matrix",
@@ -89,7 +98,9 @@ __all__ = [
     "occupation_distribution",
     "one_body_matrix",
     "parse_model_text",
+    "plot_sweep",
     "populations",
     "raising",
+    "run_sweep",
     "top_level_weights",
 ]

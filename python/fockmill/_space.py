@@ -233,6 +233,13 @@ class FockSpace:
         occ = self.occupations()
         return [int(v) for v in occ[k]]
 
+    def __reduce__(self) -> tuple[Any, ...]:
+        # Rebuilt from its specification: the ranking tables are cheap to recompute.
+        return (
+            _rebuild_space,
+            (self._cutoffs, self._weights, self._total, self._modulus),
+        )
+
     def __eq__(self, other: object) -> bool:
         if not isinstance(other, FockSpace):
             return NotImplemented
@@ -259,3 +266,13 @@ class FockSpace:
         if self._modulus is not None:
             parts.append(f"modulus={self._modulus}")
         return f"FockSpace({', '.join(parts)}) with dim={self.dim}"
+
+
+def _rebuild_space(
+    cutoffs: tuple[int, ...],
+    weights: tuple[int, ...],
+    total: int | None,
+    modulus: int | None,
+) -> FockSpace:
+    """Unpickle a :class:`FockSpace`."""
+    return FockSpace(len(cutoffs), list(cutoffs), total, weights=list(weights), modulus=modulus)

@@ -43,3 +43,11 @@ class ConvergenceError(RuntimeError):
 
 class CutoffWarning(UserWarning):
     """A state has weight on the highest kept level of a mode whose cutoff truncates."""
+
+
+# Errors that belong to the file formats live beside them; re-exported here so that
+# every exception fockmill raises can be imported from one place.
+from fockmill._modelfile import ModelFileError  # noqa: E402
+from fockmill._store import StoreError  # noqa: E402
+
+__all__ += ["ModelFileError", "StoreError"]
