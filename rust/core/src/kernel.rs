@@ -285,9 +285,7 @@ impl<S: Scalar> ProductKernel<S> {
                 block.load(space, &mut row, n, done == 0);
                 let ys = &mut out[done..done + n];
                 ys.fill(S::ZERO);
-                self.block_entries(space, rule, &block, n, |r, col, val| {
-                    ys[r] += val * x[col as usize]
-                });
+                self.block_entries(space, rule, &block, n, &mut ProductSink { ys, x });
                 done += n;
             }
             Ok(())
@@ -345,28 +343,33 @@ impl<S: Scalar> ProductKernel<S> {
             let n = rows_per_block.min(count - done);
             block.load(space, &mut row, n, done == 0);
             lens[..n].fill(0);
-            self.block_entries(space, rule, &block, n, |r, col, val| {
-                buf[r * cap + lens[r]] = (col, val);
-                lens[r] += 1;
-            });
+            self.block_entries(
+                space,
+                rule,
+                &block,
+                n,
+                &mut BufferSink {
+                    buf: &mut buf,
+                    lens: &mut lens,
+                    cap,
+                },
+            );
             for r in 0..n {
                 let entries = &mut buf[r * cap..r * cap + lens[r]];
                 // Stable: duplicates are summed in term order whatever the threads.
                 entries.sort_by_key(|e| e.0);
-                let mut w = 0usize;
-                for k in 0..entries.len() {
-                    let (col, val) = entries[k];
-                    if w > 0 && entries[w - 1].0 == col {
-                        entries[w - 1].1 += val;
-                    } else {
-                        entries[w] = (col, val);
-                        w += 1;
-                    }
-                }
+                // Sum runs of equal columns and keep nonzero sums, in one pass.
                 let mut kept = 0usize;
-                for k in 0..w {
-                    if entries[k].1 != S::ZERO {
-                        entries[kept] = entries[k];
+                let mut k = 0usize;
+                while k < entries.len() {
+                    let (col, mut val) = entries[k];
+                    k += 1;
+                    while k < entries.len() && entries[k].0 == col {
+                        val += entries[k].1;
+                        k += 1;
+                    }
+                    if val != S::ZERO {
+                        entries[kept] = (col, val);
                         kept += 1;
                     }
                 }
@@ -387,12 +390,12 @@ impl<S: Scalar> ProductKernel<S> {
         rule: R,
         b: &Block,
         n: usize,
-        mut emit: impl FnMut(usize, u64, S),
+        sink: &mut impl Sink<S>,
     ) {
         let m = self.modes;
         let offsets = space.offset_table();
         for hop in &self.hops[..self.hops_below] {
-            self.hop_rows(rule, hop, b, n, offsets, &mut emit);
+            self.hop_rows(rule, hop, b, n, offsets, sink);
         }
         if !self.diag_modes.is_empty() || !self.multi_diag.is_empty() {
             for r in 0..n {
@@ -413,11 +416,11 @@ impl<S: Scalar> ProductKernel<S> {
                     }
                     d += coef.scale(amp);
                 }
-                emit(r, b.rank[r], d);
+                sink.push(r, b.rank[r], d);
             }
         }
         for hop in &self.hops[self.hops_below..] {
-            self.hop_rows(rule, hop, b, n, offsets, &mut emit);
+            self.hop_rows(rule, hop, b, n, offsets, sink);
         }
         let mut new_occ: Vec<u32> = Vec::with_capacity(8);
         for term in &self.off {
@@ -456,7 +459,7 @@ impl<S: Scalar> ProductKernel<S> {
                 } else {
                     amp_sq.sqrt()
                 };
-                emit(r, col, term.coef.scale(amp));
+                sink.push(r, col, term.coef.scale(amp));
             }
         }
     }
@@ -466,7 +469,7 @@ impl<S: Scalar> ProductKernel<S> {
     /// One hop term over a block of rows. Wrapping arithmetic: every index computed
     /// here is that of a valid basis state (checked cutoffs, conserved charge), so no
     /// intermediate can overflow, and the overflow checks would only cost branches.
-    #[inline]
+    #[inline(always)]
     fn hop_rows<R: ResidueRule>(
         &self,
         rule: R,
@@ -474,7 +477,7 @@ impl<S: Scalar> ProductKernel<S> {
         b: &Block,
         n: usize,
         offsets: &[u64],
-        emit: &mut impl FnMut(usize, u64, S),
+        sink: &mut impl Sink<S>,
     ) {
         let m = self.modes;
         let sqrt_len = self.sqrt.len();
@@ -506,8 +509,41 @@ impl<S: Scalar> ProductKernel<S> {
             } else {
                 (amp_sq as f64).sqrt()
             };
-            emit(r, col, hop.coef.scale(amp));
+            sink.push(r, col, hop.coef.scale(amp));
         }
+    }
+}
+
+/// Where the kernel sends the entries it generates.
+trait Sink<S> {
+    fn push(&mut self, row: usize, col: u64, val: S);
+}
+
+/// Accumulates `y[row] += val · x[col]` (a product).
+struct ProductSink<'a, S> {
+    ys: &'a mut [S],
+    x: &'a [S],
+}
+
+impl<S: Scalar> Sink<S> for ProductSink<'_, S> {
+    #[inline(always)]
+    fn push(&mut self, row: usize, col: u64, val: S) {
+        self.ys[row] += val * self.x[col as usize];
+    }
+}
+
+/// Buffers each row's entries (a build), `cap` slots a row.
+struct BufferSink<'a, S> {
+    buf: &'a mut [(u64, S)],
+    lens: &'a mut [usize],
+    cap: usize,
+}
+
+impl<S: Scalar> Sink<S> for BufferSink<'_, S> {
+    #[inline(always)]
+    fn push(&mut self, row: usize, col: u64, val: S) {
+        self.buf[row * self.cap + self.lens[row]] = (col, val);
+        self.lens[row] += 1;
     }
 }
 
