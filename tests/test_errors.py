@@ -27,14 +27,14 @@ from pathlib import Path
 import fockmill as fm
 import numpy as np
 import pytest
-from fockmill import cli
-from fockmill._store import ResultsStore, StoreError
+from fockmill import ResultsStore, cli
 from fockmill.exceptions import (
     ChargeError,
     ModeIndexError,
     NotHermitianError,
     SizeLimitError,
     SpaceError,
+    StoreError,
 )
 
 # -- shared small objects (invented examples) ---------------------------------------------

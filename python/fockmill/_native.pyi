@@ -110,6 +110,7 @@ class NativeOperator:
         seed: int = 0x5EED,
         start: _RealOrComplex1D | None = None,
         threads: int | None = None,
+        stored: bool = False,
     ) -> tuple[float, _RealOrComplex1D, float, int, int, int, bool]:
         """Four-vector Lanczos ground state:
         ``(energy, vector, residual, steps, products, restarts, converged)``."""

@@ -512,6 +512,7 @@ def ground_state(
     max_iterations: int | None = None,
     memory_limit: int | None = None,
     cutoff_warning: float | None = 1e-6,
+    store_matrix: bool | None = None,
 ) -> GroundState:
     """The lowest eigenpair of a Hermitian expression on a space.
 
@@ -537,6 +538,10 @@ def ground_state(
         Most products (Lanczos) or eigsh's ``maxiter``.
     memory_limit : int, optional
         Bytes the solve may plan to use (default: available memory).
+    store_matrix : bool or None
+        For ``method="lanczos"``: run on a CSR matrix built and kept inside Rust
+        (several times faster products) instead of the matrix-free product. None
+        (default) stores it when the matrix and five vectors fit in the memory budget.
     cutoff_warning : float or None
         Warn with :class:`~fockmill.exceptions.CutoffWarning` when a mode whose cutoff
         truncates (cutoff >= 2 and below what the total allows) holds more than this
@@ -572,10 +577,15 @@ def ground_state(
         chosen = choose_method(estimate_memory(e, s, threads=threads), 1, memory_limit)
     if chosen == "lanczos":
         start = _start_vector(v0, s, native.is_real)
+        if store_matrix is None:
+            estimate = estimate_memory(e, s, threads=threads)
+            limit = memory_limit if memory_limit is not None else estimate.available_bytes
+            budget = float("inf") if limit is None else MEMORY_BUDGET * limit
+            store_matrix = estimate.build_peak_bytes + estimate.krylov_bytes(5) <= budget
         max_steps = 400
         restarts = 8 if max_iterations is None else max(0, max_iterations // max_steps)
         energy, vector, residual, steps, products, _, converged = native.lanczos_ground(
-            tol, max_steps, restarts, seed, start, threads
+            tol, max_steps, restarts, seed, start, threads, bool(store_matrix)
         )
         if not converged:
             raise ConvergenceError(

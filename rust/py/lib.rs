@@ -341,9 +341,10 @@ impl NativeOperator {
         })
     }
 
-    /// Low-memory Lanczos ground state:
+    /// Lanczos ground state keeping four vectors, on the matrix-free product or (with
+    /// `stored`) on a CSR matrix built and kept inside Rust:
     /// (energy, vector, residual, steps, products, restarts, converged).
-    #[pyo3(signature = (tol=1e-9, max_steps=400, max_restarts=8, seed=0x5EED, start=None, threads=None))]
+    #[pyo3(signature = (tol=1e-9, max_steps=400, max_restarts=8, seed=0x5EED, start=None, threads=None, stored=false))]
     #[allow(clippy::too_many_arguments)]
     fn lanczos_ground<'py>(
         &self,
@@ -354,6 +355,7 @@ impl NativeOperator {
         seed: u64,
         start: Option<InVector<'py>>,
         threads: Option<usize>,
+        stored: bool,
     ) -> PyResult<LanczosTuple<'py>> {
         guarded(|| {
             let opts = LanczosOptions {
@@ -372,7 +374,7 @@ impl NativeOperator {
                         Some(OwnedVector::Complex(v)) => Some(v.iter().map(|z| z.re).collect()),
                     };
                     let out = detached(py, threads, |r, s| {
-                        lanczos::ground_state(&FockMap::new(space, op), start, &opts, r, s)
+                        lanczos_on(space, op, stored, start, &opts, r, s)
                     })?;
                     Ok(outcome_to_python(py, out))
                 }
@@ -383,12 +385,31 @@ impl NativeOperator {
                     });
                     let op = &self.complex;
                     let out = detached(py, threads, |r, s| {
-                        lanczos::ground_state(&FockMap::new(space, op), start, &opts, r, s)
+                        lanczos_on(space, op, stored, start, &opts, r, s)
                     })?;
                     Ok(outcome_to_python(py, out))
                 }
             }
         })
+    }
+}
+
+/// Lanczos on the matrix-free product, or on a CSR matrix built first when `stored`.
+fn lanczos_on<S: Scalar>(
+    space: &FockSpace,
+    op: &Operator<S>,
+    stored: bool,
+    start: Option<Vec<S>>,
+    opts: &LanczosOptions,
+    runner: &Runner,
+    stop: &dyn Interrupt,
+) -> CoreResult<lanczos::LanczosOutcome<S>> {
+    if !stored {
+        return lanczos::ground_state(&FockMap::new(space, op), start, opts, runner, stop);
+    }
+    match build_csr(space, op, runner, stop, false)? {
+        CsrAny::Narrow(c) => lanczos::ground_state(&lanczos::CsrMap::new(c), start, opts, runner, stop),
+        CsrAny::Wide(c) => lanczos::ground_state(&lanczos::CsrMap::new(c), start, opts, runner, stop),
     }
 }
 
