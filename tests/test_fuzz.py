@@ -34,7 +34,7 @@ import numpy as np
 import pytest
 from fockmill._expr import format_monomial
 from fockmill.exceptions import ChargeError, ModeIndexError, SpaceError
-from hypothesis import HealthCheck, given, settings
+from hypothesis import HealthCheck, example, given, settings
 from hypothesis import strategies as st
 from reference import dense_matrix, full_basis, restrict, sector_occupations, single_mode_matrices
 
@@ -319,9 +319,9 @@ WORKER = textwrap.dedent(
         if action == "estimate_nnz":
             return ("estimate_nnz", op.estimate_nnz(args[0], threads))
         if action == "lanczos":
-            tol, steps, restarts, seed, start = args
+            tol, steps, restarts, seed, start, stored = args
             v0 = None if start is None else vector(length + start, np.float64, 1.0)
-            out = op.lanczos_ground(tol, steps, restarts, seed, v0, threads)
+            out = op.lanczos_ground(tol, steps, restarts, seed, v0, threads, stored)
             return ("lanczos", out[0], out[2], out[6])
         raise AssertionError(f"unknown action {action}")
 
@@ -459,11 +459,13 @@ def valid_spaces(draw: st.DrawFn) -> tuple[Any, ...]:
 
 @st.composite
 def huge_spaces(draw: st.DrawFn) -> tuple[Any, ...]:
-    """Valid specifications of enormous spaces (near the cutoff and total limits)."""
-    modes = draw(st.integers(1, 6))
-    cutoffs = draw(st.lists(st.sampled_from([65533, 65534, 65535]), min_size=modes, max_size=modes))
-    total = draw(st.none() | st.sampled_from([0, 1, 7000, 65535, 65535 * modes]))
-    return (cutoffs, None, total, draw(st.none() | st.just(2)) if total is not None else None)
+    """Valid specifications of enormous spaces (near the cutoff, total and size limits)."""
+    modes = draw(st.sampled_from([2, 3, 3, 4, 5]))
+    top = {2: 65535, 3: 65535, 4: 8000, 5: 1300}[modes]  # full spaces stay below 4.5e15
+    cutoffs = draw(st.lists(st.integers(top - 3, top), min_size=modes, max_size=modes))
+    total = draw(st.none() | st.none() | st.sampled_from([0, 1, 7000, sum(cutoffs)]))
+    modulus = None if total is None else draw(st.none() | st.just(2))
+    return (cutoffs, None, total, modulus)
 
 
 NATIVE_SPACES = st.one_of(valid_spaces(), valid_spaces(), huge_spaces(), hostile_spaces())
@@ -521,6 +523,7 @@ ACTIONS = st.one_of(
             st.integers(0, 2),
             st.sampled_from([0, 1, 2**64 - 1, 2**64, -1]),
             st.sampled_from([None, None, 0, 1]),
+            st.booleans(),
         ),
     ),
     st.tuples(st.just("distributions"), VECTOR),
@@ -537,6 +540,10 @@ def native_calls(draw: st.DrawFn) -> tuple[Any, ...]:
     return (draw(NATIVE_SPACES), draw(TERMS), action, args, draw(THREADS))
 
 
+NUMBER_0 = [(1.0, 0.0, [(0, 1, 1)])]
+LANCZOS_ARGS = (1e-9, 30, 1, 0, None, False)
+
+
 def test_native_layer_raises_only_python_errors() -> None:
     worker = NativeWorker()
     seen: dict[str, int] = {}
@@ -547,6 +554,10 @@ def test_native_layer_raises_only_python_errors() -> None:
         database=None,
     )
     @given(call=native_calls())
+    # Always tried: the largest full spaces the core accepts (2.8e14 states).
+    @example(call=(([65535] * 3, None, None, None), [], "occupations", (), None))
+    @example(call=(([65535] * 3, None, None, None), NUMBER_0, "build_csr", (False,), 2))
+    @example(call=(([65535] * 3, None, None, None), NUMBER_0, "lanczos", LANCZOS_ARGS, 2))
     def check(call: tuple[Any, ...]) -> None:
         try:
             reply = worker.call(call)
