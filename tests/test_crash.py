@@ -1,0 +1,154 @@
+"""Crash safety of sweeps: a sweep process killed with SIGKILL at several points, and a
+Dask worker killed mid-sweep, must still end with every point exactly once and the
+same table as an uninterrupted run. References: the uninterrupted serial sweep, and
+SQLite's own ``PRAGMA integrity_check``."""
+
+from __future__ import annotations
+
+import os
+import signal
+import sqlite3
+import subprocess
+import sys
+import textwrap
+import threading
+import time
+from pathlib import Path
+
+import numpy as np
+import pytest
+from fockmill._store import ResultsStore
+from fockmill._sweep import run_sweep
+from test_sweep import hubbard_ring
+
+TOTAL = 90
+KILL_AFTER = (5, 19, 37, 58)  # committed points at which successive runs are killed
+
+SCRIPT = textwrap.dedent(
+    """
+    import sys
+    sys.path.insert(0, sys.argv[2])
+    from fockmill._sweep import run_sweep
+    from test_sweep import hubbard_ring
+
+    model = hubbard_ring(sites=6, particles=6, cutoff=6)
+    points = [{"U": 0.07 * k} for k in range(int(sys.argv[3]))]
+    run_sweep(model, points, store=sys.argv[1], executor="serial", progress=False,
+              solver_options={"dense_limit": 0})
+    """
+)
+
+
+def committed(path: Path) -> int:
+    try:
+        with sqlite3.connect(f"file:{path}?mode=ro", uri=True, timeout=5) as reader:
+            return int(reader.execute("SELECT COUNT(*) FROM points").fetchone()[0])
+    except sqlite3.Error:
+        return 0
+
+
+def points() -> list[dict[str, float]]:
+    return [{"U": 0.07 * k} for k in range(TOTAL)]
+
+
+def test_repeated_sigkill_then_resume_loses_nothing(tmp_path: Path) -> None:
+    path = tmp_path / "results.sqlite"
+    tests_dir = str(Path(__file__).parent)
+    faults = 0
+    for threshold in KILL_AFTER:
+        process = subprocess.Popen(
+            [sys.executable, "-c", SCRIPT, str(path), tests_dir, str(TOTAL)],
+            stdout=subprocess.DEVNULL,
+            stderr=subprocess.DEVNULL,
+        )
+        try:
+            deadline = time.monotonic() + 180
+            while committed(path) < threshold and process.poll() is None:
+                assert time.monotonic() < deadline, "the sweep committed too few points"
+                time.sleep(0.005)
+            if process.poll() is None:
+                os.kill(process.pid, signal.SIGKILL)
+                faults += 1
+        finally:
+            if process.poll() is None:
+                process.kill()
+            process.wait()
+        # After every kill the file is a consistent database with distinct points.
+        with ResultsStore.open(path) as store:
+            assert store.integrity_ok()
+            indices = [row.index for row in store.rows()]
+        assert len(indices) == len(set(indices))
+    assert faults >= 3, "most kills must land mid-sweep for this test to mean anything"
+
+    model = hubbard_ring(sites=6, particles=6, cutoff=6)
+    options = {"dense_limit": 0}
+    resumed = run_sweep(
+        model, points(), store=path, executor="serial", progress=False, solver_options=options
+    )
+    uninterrupted = run_sweep(
+        model, points(), executor="serial", progress=False, solver_options=options
+    )
+    with ResultsStore.open(path) as store:
+        assert store.integrity_ok()
+        indices = sorted(row.index for row in store.rows())
+    assert indices == list(range(TOTAL))  # none lost, none duplicated
+    for key in ("energy", "gap"):
+        np.testing.assert_allclose(
+            resumed.to_arrays()[key], uninterrupted.to_arrays()[key], rtol=0, atol=1e-9
+        )
+
+
+def test_dask_worker_killed_mid_sweep_still_completes(tmp_path: Path) -> None:
+    distributed = pytest.importorskip(
+        "distributed", reason="dask.distributed is not installed (extra fockmill[cluster])"
+    )
+    model = hubbard_ring(sites=6, particles=6, cutoff=6)
+    grid = points()[:40]
+    options = {"dense_limit": 0}
+    reference = run_sweep(model, grid, executor="serial", progress=False, solver_options=options)
+    path = tmp_path / "dask.sqlite"
+    done: list[int] = []
+    result: dict[str, object] = {}
+    with (
+        distributed.LocalCluster(
+            n_workers=2, processes=True, threads_per_worker=1, dashboard_address=None
+        ) as cluster,
+        distributed.Client(cluster) as client,
+    ):
+        pids = list(client.run(os.getpid).values())
+
+        def run() -> None:
+            try:
+                result["table"] = run_sweep(
+                    model,
+                    grid,
+                    store=path,
+                    executor=client,
+                    chunk=2,
+                    progress=False,
+                    solver_options=options,
+                    on_point=lambda row: done.append(row.index),
+                )
+            except BaseException as exc:  # reported below
+                result["error"] = exc
+
+        worker = threading.Thread(target=run)
+        worker.start()
+        deadline = time.monotonic() + 120
+        while len(done) < 4 and worker.is_alive():
+            assert time.monotonic() < deadline
+            time.sleep(0.01)
+        killed = len(done) < len(grid)
+        os.kill(pids[0], signal.SIGKILL)  # the nanny restarts it; tasks are rescheduled
+        worker.join(timeout=300)
+        assert not worker.is_alive(), "the sweep did not finish after the worker died"
+    assert "error" not in result, result.get("error")
+    assert killed, "the worker must die mid-sweep for this test to mean anything"
+    table = result["table"]
+    assert sorted(table.to_arrays()["index"].tolist()) == list(range(len(grid)))
+    np.testing.assert_allclose(
+        table.to_arrays()["energy"], reference.to_arrays()["energy"], rtol=0, atol=1e-9
+    )
+    with ResultsStore.open(path) as store:
+        assert store.integrity_ok()
+        assert sorted(row.index for row in store.rows()) == list(range(len(grid)))
