@@ -7,7 +7,6 @@ from __future__ import annotations
 
 import os
 import signal
-import sqlite3
 import subprocess
 import sys
 import textwrap
@@ -19,6 +18,7 @@ import numpy as np
 import pytest
 from fockmill._store import ResultsStore
 from fockmill._sweep import run_sweep
+from test_store import committed
 from test_sweep import hubbard_ring
 
 TOTAL = 90
@@ -37,14 +37,6 @@ SCRIPT = textwrap.dedent(
               solver_options={"dense_limit": 0})
     """
 )
-
-
-def committed(path: Path) -> int:
-    try:
-        with sqlite3.connect(f"file:{path}?mode=ro", uri=True, timeout=5) as reader:
-            return int(reader.execute("SELECT COUNT(*) FROM points").fetchone()[0])
-    except sqlite3.Error:
-        return 0
 
 
 def points() -> list[dict[str, float]]:

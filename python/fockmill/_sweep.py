@@ -36,6 +36,7 @@ import scipy.sparse.linalg as spla
 from fockmill._build import build_matrix
 from fockmill._expr import LadderExpr
 from fockmill._model import Model
+from fockmill._modelfile import RECORDABLE as _RECORDABLE
 from fockmill._observe import (
     entanglement_entropy,
     number_variances,
@@ -56,17 +57,8 @@ __all__ = [
     "serpentine_order",
 ]
 
-RECORDABLE = (
-    "energy",
-    "gap",
-    "levels",
-    "populations",
-    "number_variance",
-    "one_body",
-    "entropy",
-    "top_weight",
-    "residual",
-)
+# The vocabulary of what a sweep can record is the model-file schema's.
+RECORDABLE = _RECORDABLE
 """Quantities a sweep can record at each point."""
 
 SOLVER_OPTIONS: Mapping[str, object] = MappingProxyType(
