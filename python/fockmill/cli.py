@@ -557,6 +557,9 @@ def _command_demo(args: argparse.Namespace, out: IO[str]) -> int:
     )
     with ResultsStore.open(results) as store:
         print(format_table(table, store.meta), file=out)
+    table_path = directory / f"{DEMO_STEM}.csv"
+    table_path.write_text(format_csv(table))
+    print(f"table: {table_path}", file=out)
     try:
         from fockmill._plot import plot_sweep
 
