@@ -14,11 +14,15 @@ diagonalisation of the oracle matrix (tests/reference.py).
 
 from __future__ import annotations
 
+import ast
 import concurrent.futures as cf
 import itertools
 import random
+import subprocess
+import sys
 import threading
 from collections.abc import Callable, Iterator
+from pathlib import Path
 from typing import Any
 
 import fockmill as fm
@@ -109,8 +113,6 @@ def build_tasks() -> dict[str, Callable[[], Any]]:
     tasks["build driven"] = lambda: fm.build_matrix(*DRIVEN)
     tasks["product driven"] = lambda: fm.build_operator(*DRIVEN) @ probe(3, DRIVEN[1].dim)
     tasks["dense ground small"] = lambda: ground(*SMALL, method="dense")
-    tasks["dense ground medium"] = lambda: ground(*MEDIUM, method="dense")
-    tasks["dense levels medium"] = lambda: fm.lowest_levels(*MEDIUM, k=3, method="dense")
     tasks["dense ground driven"] = lambda: ground(*DRIVEN, method="dense")
     tasks["lanczos large"] = lambda: ground(*LARGE, method="lanczos", seed=5)
     tasks["estimate large"] = lambda: fm.estimate_memory(*LARGE).nnz
@@ -125,6 +127,10 @@ def build_tasks() -> dict[str, Callable[[], Any]]:
     tasks["index"] = lambda: LARGE[1].index(LARGE[1].occupations()[::7])
     return tasks
 
+
+DENSE_TASKS: dict[str, Callable[[], Any]] = {  # big enough for BLAS to use its threads
+    "dense levels medium": lambda: fm.lowest_levels(*MEDIUM, k=3, method="dense"),
+}
 
 EIGSH_TASKS: dict[str, Callable[[], Any]] = {
     "csr ground large": lambda: ground(*LARGE, method="csr", seed=3),
@@ -185,33 +191,33 @@ def test_calls_from_python_threads_match_serial(blas_threads_restored: None) -> 
     assert differing == []
 
 
-def test_solves_from_python_threads_match_serial(blas_threads_restored: None) -> None:
-    """eigsh-based solves mixed with dense ones, all at once."""
-    tasks = {**EIGSH_TASKS, **{k: v for k, v in build_tasks().items() if k.startswith("dense")}}
+def mixed_solves_differing() -> list[str]:
+    """Names of eigsh and dense solves whose concurrent results differ from serial ones."""
+    tasks = {**EIGSH_TASKS, **DENSE_TASKS}
     serial = {name: task() for name, task in tasks.items()}
     concurrent = run_concurrently(tasks)
-    differing = [
+    return [
         name
         for name, outcomes in concurrent.items()
         if not all(identical(serial[name], o) for o in outcomes)
     ]
-    assert differing == []
 
 
-def test_overlapping_solves_leave_blas_threads_alone(
-    monkeypatch: pytest.MonkeyPatch, blas_threads_restored: None
-) -> None:
-    """Two solves whose eigsh calls overlap, the first finishing first.
+def blas_threads_around_overlapping_solves() -> tuple[list[int], list[int]] | None:
+    """BLAS thread counts before and after two solves whose eigsh calls overlap.
 
     The interleaving is forced (a wrapper around scipy's eigsh holds the first call until
-    the second has started, and the second until the first has returned), so the test
-    does not depend on timing. Afterwards the BLAS thread count must be what it was.
+    the second has started, and the second until the first has returned), so the outcome
+    does not depend on timing. None when BLAS runs one thread anyway.
     """
     threadpoolctl = pytest.importorskip("threadpoolctl")
-    before = [(i["internal_api"], i["num_threads"]) for i in threadpoolctl.threadpool_info()]
-    if max(count for _, count in before) < 2:
-        pytest.skip("BLAS already runs one thread: a leaked limit of one would not show")
 
+    def counts() -> list[int]:
+        return [info["num_threads"] for info in threadpoolctl.threadpool_info()]
+
+    before = counts()
+    if max(before, default=1) < 2:
+        return None
     real_eigsh = scipy.sparse.linalg.eigsh
     calls = itertools.count()
     first_inside, second_inside, first_done = (threading.Event() for _ in range(3))
@@ -230,14 +236,45 @@ def test_overlapping_solves_leave_blas_threads_alone(
             first_done.wait(timeout=60)
         return real_eigsh(*args, **kwargs)
 
-    monkeypatch.setattr(scipy.sparse.linalg, "eigsh", choreographed_eigsh)
-    with cf.ThreadPoolExecutor(2) as pool:
-        first = pool.submit(ground, *LARGE, method="csr", seed=3)
-        assert first_inside.wait(timeout=60)
-        second = pool.submit(ground, *LARGE, method="operator", seed=3)
-        energies = (first.result().energy, second.result().energy)
-    assert energies[0] == pytest.approx(energies[1], abs=1e-9)
-    after = [(i["internal_api"], i["num_threads"]) for i in threadpoolctl.threadpool_info()]
+    scipy.sparse.linalg.eigsh = choreographed_eigsh
+    try:
+        with cf.ThreadPoolExecutor(2) as pool:
+            first = pool.submit(ground, *LARGE, method="csr", seed=3)
+            assert first_inside.wait(timeout=60)
+            second = pool.submit(ground, *LARGE, method="operator", seed=3)
+            assert first.result().energy == pytest.approx(second.result().energy, abs=1e-9)
+    finally:
+        scipy.sparse.linalg.eigsh = real_eigsh
+    return before, counts()
+
+
+def in_fresh_process(function: str) -> Any:
+    """Run a function of this module in a new interpreter and return its result.
+
+    For checks of process-wide settings: a fresh process has no history of BLAS calls,
+    and whatever the check leaves behind cannot affect other tests.
+    """
+    code = (
+        f"import sys; sys.path.insert(0, {str(Path(__file__).parent)!r}); "
+        f"import test_concurrency as t; print(repr(t.{function}()))"
+    )
+    child = subprocess.run(
+        [sys.executable, "-c", code], capture_output=True, text=True, timeout=300
+    )
+    assert child.returncode == 0, child.stderr[-2000:]
+    return ast.literal_eval(child.stdout.strip().splitlines()[-1])
+
+
+def test_solves_from_python_threads_match_serial() -> None:
+    """eigsh-based solves mixed with dense ones, all at once, match serial calls."""
+    assert in_fresh_process("mixed_solves_differing") == []
+
+
+def test_overlapping_solves_leave_blas_threads_alone() -> None:
+    outcome = in_fresh_process("blas_threads_around_overlapping_solves")
+    if outcome is None:
+        pytest.skip("BLAS already runs one thread: a leaked limit of one would not show")
+    before, after = outcome
     assert after == before
 
 

@@ -5,6 +5,7 @@ from __future__ import annotations
 import numpy as np
 import scipy.sparse as sp
 
+from fockmill._args import check_memory_limit
 from fockmill._expr import LadderExpr
 from fockmill._memory import estimate_memory, format_bytes
 from fockmill._prepare import check_threads, prepare
@@ -71,6 +72,7 @@ def build_matrix(
     """
     op = prepare(expr, space)
     threads = check_threads(threads)
+    memory_limit = check_memory_limit(memory_limit)
     if index_dtype not in (None, np.int32, np.int64):
         raise TypeError("index_dtype must be numpy.int32, numpy.int64 or None")
     estimate = estimate_memory(expr, space, threads=threads)

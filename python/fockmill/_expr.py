@@ -320,6 +320,12 @@ class LadderExpr:
     @classmethod
     def _wrap(cls, terms: dict[MonomialKey, complex]) -> LadderExpr:
         """Build from an already clean dict (canonical keys, no zeros); no copy."""
+        for value in terms.values():
+            if not cmath.isfinite(value):
+                raise ValueError(
+                    f"an operation produced the coefficient {value}; coefficients must be "
+                    "finite numbers (check for overflow, NaN or inf parameters)"
+                )
         expr = object.__new__(cls)
         object.__setattr__(expr, "_terms", terms)
         return expr

@@ -60,6 +60,8 @@ class NativeSpace:
         self, threads: int | None = None
     ) -> npt.NDArray[np.uint8] | npt.NDArray[np.uint16]:
         """Occupations of all basis states, shape ``(dim, modes)``."""
+    def state(self, index: int) -> list[int]:
+        """Occupations of basis state ``index``."""
     def index(
         self, occ: npt.NDArray[np.int64], threads: int | None = None
     ) -> npt.NDArray[np.int64]:

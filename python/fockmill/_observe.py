@@ -239,6 +239,13 @@ def entanglement_entropy(
     """
     s = check_space(space)
     v = check_vector(s, vector)
+    if isinstance(subsystem, str | bytes) or not isinstance(subsystem, Sequence | np.ndarray):
+        raise TypeError(
+            f"subsystem must be a sequence of mode indices such as [0, 1]; got {subsystem!r}"
+        )
+    for i in subsystem:
+        if isinstance(i, bool | np.bool_) or not isinstance(i, int | np.integer):
+            raise TypeError(f"subsystem must list integer mode indices; got {i!r}")
     a = sorted({int(i) for i in subsystem})
     if any(i < 0 or i >= s.modes for i in a) or len(a) != len(list(subsystem)):
         raise ValueError(

@@ -55,6 +55,35 @@ class LadderOperator(LinearOperator):  # type: ignore[misc]
         """The compiled operator."""
         return self._op
 
+    def _check_input(self, x: npt.ArrayLike, block: bool) -> npt.NDArray[Any]:
+        arr = np.asarray(x)
+        if arr.dtype.kind not in "fciub" or arr.dtype.kind == "b":
+            raise TypeError(
+                f"products need a float or complex array; got dtype {arr.dtype}. Convert "
+                "with numpy.asarray(x, dtype=float)"
+            )
+        n = self.shape[1]
+        ok = arr.ndim == 2 and arr.shape[0] == n if block else arr.shape in ((n,), (n, 1))
+        if not ok:
+            want = f"({n}, k)" if block else f"({n},) or ({n}, 1)"
+            raise ValueError(
+                f"the vector has shape {arr.shape} but this operator needs shape {want}: "
+                f"the space's dimension is {n}"
+            )
+        return arr
+
+    def matvec(self, x: npt.ArrayLike) -> Any:
+        """``H x``; ``x`` of shape ``(dim,)`` or ``(dim, 1)``."""
+        return super().matvec(self._check_input(x, block=False))
+
+    def rmatvec(self, x: npt.ArrayLike) -> Any:
+        """``H† x``; ``x`` of shape ``(dim,)`` or ``(dim, 1)``."""
+        return super().rmatvec(self._check_input(x, block=False))
+
+    def matmat(self, x: npt.ArrayLike) -> Any:
+        """``H X``; ``X`` of shape ``(dim, k)``."""
+        return super().matmat(self._check_input(x, block=True))
+
     def _vector(self, x: npt.NDArray[Any]) -> npt.NDArray[Any]:
         x = np.asarray(x)
         if x.dtype.kind == "c":

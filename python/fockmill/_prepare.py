@@ -2,16 +2,21 @@
 
 from __future__ import annotations
 
+import cmath
 import numbers
 
 import numpy as np
 
 from fockmill import _native
 from fockmill._args import check_threads
-from fockmill._expr import LadderExpr
+from fockmill._expr import LadderExpr, format_monomial
 from fockmill._space import FockSpace
+from fockmill.exceptions import ModeIndexError
 
-__all__ = ["as_expr", "check_space", "check_threads", "prepare"]
+__all__ = ["MAX_POWER", "as_expr", "check_space", "check_threads", "prepare"]
+
+#: Largest creation or annihilation power of one mode in a term (the largest cutoff).
+MAX_POWER = 65_535
 
 
 def as_expr(expr: object) -> LadderExpr:
@@ -46,4 +51,22 @@ def prepare(expr: object, space: object) -> _native.NativeOperator:
     """
     e = as_expr(expr)
     s = check_space(space)
+    for coefficient, key in e.terms():
+        for mode, p, q in key:
+            if mode >= s.modes:
+                raise ModeIndexError(
+                    f"term {format_monomial(key)} acts on mode {mode}, but the space has only "
+                    f"{s.modes} modes (valid indices 0..{s.modes - 1}); use a space with more "
+                    "modes or fix the index"
+                )
+            if p > MAX_POWER or q > MAX_POWER:
+                raise ValueError(
+                    f"term {format_monomial(key)} has a power above {MAX_POWER}; such powers "
+                    "vanish on every supported space, drop the term"
+                )
+        if not cmath.isfinite(coefficient):
+            raise ValueError(
+                f"term {format_monomial(key)} has the coefficient {coefficient}, which is not "
+                "finite; check the parameters for NaN, inf or overflow"
+            )
     return _native.NativeOperator(s.native, e.to_native())

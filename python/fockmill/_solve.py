@@ -2,7 +2,6 @@
 
 from __future__ import annotations
 
-import contextlib
 import time
 import warnings
 from dataclasses import dataclass
@@ -13,9 +12,10 @@ import numpy.typing as npt
 import scipy.sparse.linalg as sla
 from scipy.sparse.linalg import LinearOperator
 
+from fockmill._args import check_memory_limit
 from fockmill._build import build_matrix
 from fockmill._expr import LadderExpr
-from fockmill._memory import MemoryEstimate, estimate_memory
+from fockmill._memory import MemoryEstimate, estimate_memory, format_bytes
 from fockmill._observe import check_vector, top_level_weights
 from fockmill._operator import LadderOperator
 from fockmill._prepare import as_expr, check_space, check_threads, prepare
@@ -111,20 +111,6 @@ class Levels:
         return float(self.energies[1] - self.energies[0])
 
 
-def _few_blas_threads() -> contextlib.AbstractContextManager[object]:
-    """Run ARPACK with single-threaded BLAS when threadpoolctl is installed.
-
-    eigsh's per-iteration BLAS work is small; on a busy machine a multi-threaded
-    OpenBLAS spends most of its time waking threads (measured: 8x slower on 2 cores
-    under load). The heavy work, the products, runs in our own Rust threads anyway.
-    """
-    try:
-        from threadpoolctl import threadpool_limits
-    except ImportError:
-        return contextlib.nullcontext()
-    return threadpool_limits(limits=1, user_api="blas")
-
-
 def _check_hermitian(expr: LadderExpr) -> None:
     if not expr.is_hermitian():
         anti = (expr - expr.adjoint()) * 0.5
@@ -181,6 +167,25 @@ def choose_method(
         f"no solver fits in memory: {estimate}; even the four-vector Lanczos solver needs "
         f"{estimate.krylov_bytes(5) / 2**30:.2f} GiB. Use a smaller sector or cutoffs"
     )
+
+
+def _check_fits(estimate: MemoryEstimate, method: str, k: int, memory_limit: int | None) -> None:
+    """Refuse an explicitly chosen method whose vectors alone exceed the memory."""
+    limit = memory_limit if memory_limit is not None else estimate.available_bytes
+    if limit is None:
+        return
+    vectors = {
+        "dense": estimate.dim * estimate.dim * estimate.value_dtype.itemsize * 3,
+        "csr": estimate.krylov_bytes(_krylov_vectors(k)),
+        "operator": estimate.krylov_bytes(_krylov_vectors(k)),
+        "lanczos": estimate.krylov_bytes(5),
+    }[method]
+    if vectors > limit:
+        raise SizeLimitError(
+            f"method={method!r} needs about {format_bytes(vectors)} for its vectors alone "
+            f"({estimate}), more than the {format_bytes(limit)} available; use a smaller "
+            "sector or cutoffs, or method='lanczos' (four vectors)"
+        )
 
 
 def _start_vector(
@@ -258,10 +263,9 @@ def _solve_levels(
     if start is None:
         start = np.random.default_rng(seed).standard_normal(dim)
     try:
-        with _few_blas_threads():
-            energies, vectors = sla.eigsh(
-                target, k=k, which="SA", tol=tol, v0=start, maxiter=max_iterations
-            )
+        energies, vectors = sla.eigsh(
+            target, k=k, which="SA", tol=tol, v0=start, maxiter=max_iterations
+        )
         order = np.argsort(energies)
         energies, vectors = energies[order], vectors[:, order]
         energies, vectors = _recover_missed_copies(
@@ -293,10 +297,9 @@ def _lowest_outside(
         return target.matvec(x).reshape(-1) + sigma * (basis @ (basis.conj().T @ x))
 
     op = LinearOperator((dim, dim), matvec=shifted, rmatvec=shifted, dtype=basis.dtype)
-    with _few_blas_threads():
-        e, v = sla.eigsh(
-            op, k=1, which="SA", tol=tol, v0=rng.standard_normal(dim), maxiter=max_iterations
-        )
+    e, v = sla.eigsh(
+        op, k=1, which="SA", tol=tol, v0=rng.standard_normal(dim), maxiter=max_iterations
+    )
     w = v[:, 0] - basis @ (basis.conj().T @ v[:, 0])
     return float(e[0]), w / np.linalg.norm(w)
 
@@ -335,11 +338,33 @@ def _recover_missed_copies(
     return energies, vectors
 
 
-def _validate(k: int, method: str, tol: float, space: FockSpace) -> None:
+def _validate(
+    k: int,
+    method: str,
+    tol: float,
+    space: FockSpace,
+    v0: npt.ArrayLike | None = None,
+    seed: object = 0,
+    max_iterations: object = None,
+) -> None:
     if method not in _METHODS:
         raise ValueError(f"method must be one of {_METHODS}; got {method!r}")
-    if not (isinstance(tol, float | int) and np.isfinite(tol) and tol > 0):
-        raise ValueError(f"tol must be a positive finite number; got {tol!r}")
+    if isinstance(tol, bool) or not (isinstance(tol, float | int) and np.isfinite(tol) and tol > 0):
+        raise ValueError(f"tol must be a positive finite number such as 1e-9; got {tol!r}")
+    if isinstance(seed, bool) or not isinstance(seed, int | np.integer):
+        raise TypeError(f"seed must be a non-negative integer; got {seed!r}")
+    if seed < 0 or seed >= 2**63:
+        raise ValueError(f"seed must be a non-negative integer below 2**63; got {seed}")
+    if max_iterations is not None and (
+        isinstance(max_iterations, bool)
+        or not isinstance(max_iterations, int | np.integer)
+        or max_iterations < 1
+    ):
+        raise ValueError(
+            f"max_iterations must be a positive integer or None; got {max_iterations!r}"
+        )
+    if v0 is not None:
+        check_vector(space, v0, "v0")
     if isinstance(k, bool) or not isinstance(k, int | np.integer):
         raise TypeError(f"k must be an integer; got {k!r}")
     if k < 1 or k > space.dim:
@@ -410,12 +435,15 @@ def lowest_levels(
     e = as_expr(expr)
     s = check_space(space)
     threads = check_threads(threads)
-    _validate(k, method, tol, s)
+    memory_limit = check_memory_limit(memory_limit)
+    _validate(k, method, tol, s, v0, seed, max_iterations)
     _check_hermitian(e)
     prepare(e, s)  # charge and mode errors before any size estimate
     chosen = method
     if method == "auto":
         chosen = choose_method(estimate_memory(e, s, threads=threads), k, memory_limit)
+    else:
+        _check_fits(estimate_memory(e, s, threads=threads), chosen, k, memory_limit)
     if chosen == "lanczos":
         if k != 1:
             raise ValueError(
@@ -569,12 +597,15 @@ def ground_state(
     e = as_expr(expr)
     s = check_space(space)
     threads = check_threads(threads)
-    _validate(1, method, tol, s)
+    memory_limit = check_memory_limit(memory_limit)
+    _validate(1, method, tol, s, v0, seed, max_iterations)
     _check_hermitian(e)
     native = prepare(e, s)
     chosen = method
     if method == "auto":
         chosen = choose_method(estimate_memory(e, s, threads=threads), 1, memory_limit)
+    else:
+        _check_fits(estimate_memory(e, s, threads=threads), chosen, 1, memory_limit)
     if chosen == "lanczos":
         start = _start_vector(v0, s, native.is_real)
         if store_matrix is None:

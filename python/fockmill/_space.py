@@ -11,9 +11,43 @@ import numpy.typing as npt
 
 from fockmill import _native
 from fockmill._args import check_threads
-from fockmill.exceptions import SpaceError
+from fockmill.exceptions import SizeLimitError, SpaceError
 
 __all__ = ["FockSpace"]
+
+_MAX_WEIGHT = 2**32 - 1
+_MAX_TOTAL = 2**63 - 1
+
+
+def _describe_size(
+    cutoffs: list[int], weights: list[int] | None, total: int | None, modulus: int | None
+) -> str:
+    """The exact number of states in words, when cheap to count; else a bound."""
+    full = 1
+    for c in cutoffs:
+        full *= c + 1
+    if total is None:
+        return f"{full:,} (about 10^{len(str(full)) - 1})"
+    w = weights if weights is not None else [1] * len(cutoffs)
+    span = modulus if modulus is not None else total + 1
+    if span * sum(c + 1 for c in cutoffs) > 10**7:
+        return f"at most {full:,}"
+    counts = [0] * span
+    counts[0] = 1
+    for c, weight in zip(cutoffs, w, strict=True):
+        new = [0] * span
+        for r, n in enumerate(counts):
+            if n:
+                for v in range(c + 1):
+                    t = r + weight * v
+                    if modulus is not None:
+                        t %= modulus
+                    elif t >= span:
+                        break
+                    new[t] += n
+        counts = new
+    exact = counts[total % modulus if modulus is not None else total]
+    return f"{exact:,}"
 
 
 def _as_count(value: object, name: str, minimum: int) -> int:
@@ -120,7 +154,28 @@ class FockSpace:
                 "a modulus needs a total (the residue class); pass total=0 or total=1 for "
                 "the even or odd parity sector"
             )
-        self._native = _native.NativeSpace(cutoffs, weight_list, total_value, modulus_value)
+        if weight_list is not None and max(weight_list) > _MAX_WEIGHT:
+            raise SpaceError(
+                f"weights must be at most {_MAX_WEIGHT}; got {max(weight_list)}. Divide all "
+                "weights by their common factor"
+            )
+        if total_value is not None and total_value > _MAX_TOTAL:
+            raise SpaceError(f"total must be at most {_MAX_TOTAL}; got {total_value}")
+        if modulus_value is not None and modulus_value > _MAX_TOTAL:
+            raise SpaceError(f"modulus must be at most {_MAX_TOTAL}; got {modulus_value}")
+        try:
+            self._native = _native.NativeSpace(cutoffs, weight_list, total_value, modulus_value)
+        except SizeLimitError as exc:
+            size = _describe_size(cutoffs, weight_list, total_value, modulus_value)
+            reason = (
+                str(exc)
+                if "ranking tables" in str(exc)
+                else ("the dimension of the space exceeds the supported 2^52 states")
+            )
+            raise SizeLimitError(
+                f"this space has {size} states and cannot be used ({reason}); restrict it "
+                "to a conserved total (total=...), lower the cutoffs or use fewer modes"
+            ) from None
         self._cutoffs = tuple(cutoffs)
         self._weights = tuple(self._native.weights)
         self._total = total_value
@@ -219,19 +274,17 @@ class FockSpace:
         return int(ranks[0]) if single else ranks
 
     def state(self, index: int) -> tuple[int, ...]:
-        """Occupations of basis state ``index``."""
+        """Occupations of basis state ``index`` (unranked in O(M log cutoff)).
+
+        Raises
+        ------
+        IndexError
+            When ``index`` is not in ``0 .. dim - 1``.
+        """
         k = _as_count(index, "index", 0)
         if k >= self.dim:
             raise IndexError(f"basis index {k} is out of range for dim {self.dim}")
-        return (
-            tuple(int(v) for v in self.occupations()[k])
-            if self.dim <= 4096
-            else tuple(self._state_by_search(k))
-        )
-
-    def _state_by_search(self, k: int) -> list[int]:
-        occ = self.occupations()
-        return [int(v) for v in occ[k]]
+        return tuple(self._native.state(k))
 
     def __reduce__(self) -> tuple[Any, ...]:
         # Rebuilt from its specification: the ranking tables are cheap to recompute.

@@ -90,11 +90,24 @@ def converge_cutoffs(
     """
     e = as_expr(expr)
     s = check_space(space)
+    for name, value in (("step", step), ("max_cutoff", max_cutoff)):
+        if isinstance(value, bool) or not isinstance(value, int | np.integer):
+            raise TypeError(f"{name} must be a positive integer; got {value!r}")
     if step < 1:
         raise ValueError(f"step must be >= 1; got {step}")
+    if max_cutoff < max(s.cutoffs):
+        raise ValueError(
+            f"max_cutoff={max_cutoff} is below the starting cutoffs {s.cutoffs}; the scan only "
+            f"raises cutoffs, so pass max_cutoff >= {max(s.cutoffs)} or start lower"
+        )
+    for name, tol in (("energy_tol", energy_tol), ("weight_tol", weight_tol)):
+        if isinstance(tol, bool) or not isinstance(tol, float | int) or not tol > 0:
+            raise ValueError(f"{name} must be a positive number such as 1e-8; got {tol!r}")
     binding = s.binding_cutoffs()
     chosen = [i for i in range(s.modes) if binding[i]] if modes is None else list(modes)
     for i in chosen:
+        if isinstance(i, bool) or not isinstance(i, int | np.integer):
+            raise TypeError(f"modes must list integer mode indices; got {i!r}")
         if not 0 <= i < s.modes:
             raise ValueError(f"mode {i} is not in the space (0..{s.modes - 1})")
     solve_options.setdefault("cutoff_warning", None)

@@ -129,6 +129,16 @@ impl NativeSpace {
                     limit: usize::MAX as u128,
                 })
             })?;
+            let cell = if space.max_cutoff() <= u8::MAX as u32 {
+                1
+            } else {
+                2
+            };
+            fockmill_core::memory::ensure_room(
+                len as u128 * cell,
+                &format!("the occupations of all {dim} states of the space"),
+            )
+            .map_err(PyCoreError)?;
             if space.max_cutoff() <= u8::MAX as u32 {
                 let table = detached(py, threads, |runner, stop| {
                     let mut out = vec![0u8; len];
@@ -146,6 +156,18 @@ impl NativeSpace {
                 let arr = Array2::from_shape_vec((dim, m), table).expect("length checked above");
                 Ok(arr.into_pyarray(py).into_any())
             }
+        })
+    }
+
+    /// Occupations of basis state `index` (O(M log cutoff) unranking).
+    fn state(&self, index: u64) -> PyResult<Vec<u32>> {
+        guarded(|| {
+            let m = self.inner.modes();
+            let (mut occ, mut residues) = (vec![0u32; m], vec![0usize; m]);
+            self.inner
+                .unrank_into(index, &mut occ, &mut residues)
+                .map_err(PyCoreError)?;
+            Ok(occ)
         })
     }
 

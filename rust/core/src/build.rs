@@ -112,6 +112,7 @@ fn row_counts_with<S: Scalar>(
     runner: &Runner,
     interrupt: &dyn Interrupt,
 ) -> CoreResult<Vec<u64>> {
+    crate::memory::ensure_room(space.dim() as u128 * 8, "row counts of the sparse matrix")?;
     let mut counts = vec![0u64; space.dim() as usize];
     runner.for_row_chunks(&mut counts, interrupt, |first, out| {
         let mut k = 0usize;
@@ -175,6 +176,11 @@ fn fill<S: Scalar, I: CsrIndex>(
 ) -> CoreResult<Csr<S, I>> {
     let dim = space.dim();
     let nnz = indptr[dim as usize] as usize;
+    let entry = (std::mem::size_of::<I>() + std::mem::size_of::<S>()) as u128;
+    crate::memory::ensure_room(
+        nnz as u128 * entry + (dim as u128 + 1) * std::mem::size_of::<I>() as u128,
+        "the sparse matrix",
+    )?;
     let mut indices = vec![I::default(); nnz];
     let mut data = vec![S::ZERO; nnz];
     {

@@ -56,6 +56,13 @@ impl fmt::Display for CoreError {
                 what,
                 requested,
                 limit,
+            } if *requested >= u64::MAX as u128 => {
+                write!(f, "{what}: needs more than {}, limit {limit}", u64::MAX)
+            }
+            CoreError::TooLarge {
+                what,
+                requested,
+                limit,
             } => write!(f, "{what}: needs {requested}, limit {limit}"),
             CoreError::ModeOutOfRange { mode, modes, term } => write!(
                 f,

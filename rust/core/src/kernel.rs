@@ -128,7 +128,7 @@ impl<S: Scalar> ProductKernel<S> {
     /// Prepare `op` (already validated for `space`).
     pub fn new(space: &FockSpace, op: &Operator<S>) -> Self {
         let m = space.modes();
-        let cut = space.cutoffs();
+        let cut = space.caps();
         let mut diag_start = Vec::with_capacity(m);
         let mut size = 0;
         for &c in cut {

@@ -149,6 +149,10 @@ pub fn ground_state<S: Scalar, A: HermitianMap<S>>(
             "tolerance must be a positive finite number and max_steps at least 2".into(),
         ));
     }
+    crate::memory::ensure_room(
+        5 * dim as u128 * std::mem::size_of::<S>() as u128,
+        "the Lanczos vectors (five of the space's dimension)",
+    )?;
     let mut v0 = match start {
         Some(v) if v.len() != dim => {
             return Err(CoreError::Shape(format!(

@@ -17,6 +17,7 @@ pub mod estimate;
 pub mod kernel;
 pub mod lanczos;
 pub mod matvec;
+pub mod memory;
 pub mod observe;
 pub mod parallel;
 pub mod scalar;

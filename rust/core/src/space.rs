@@ -48,6 +48,9 @@ pub enum Constraint {
 #[derive(Debug, Clone)]
 pub struct FockSpace {
     cutoffs: Vec<u32>,
+    /// Highest occupation a state of the sector can have in each mode: the cutoff, or
+    /// less when the conserved total caps it (`total / weight`). Tables use these.
+    caps: Vec<u32>,
     weights: Vec<u32>,
     constraint: Constraint,
     residues: usize,
@@ -148,11 +151,21 @@ impl FockSpace {
             }
             Constraint::Modular { modulus, .. } => modulus as u128,
         };
-        let entries: u128 = cutoffs.iter().map(|&c| residues * (c as u128 + 2)).sum::<u128>()
-            + residues * (modes as u128 + 1);
+        let caps: Vec<u32> = cutoffs
+            .iter()
+            .zip(&weights)
+            .map(|(&c, &w)| match constraint {
+                Constraint::Exact { total } if w > 0 => c.min((total / w as u64).min(u32::MAX as u64) as u32),
+                _ => c,
+            })
+            .collect();
+        let entries: u128 =
+            caps.iter().map(|&c| residues * (c as u128 + 2)).sum::<u128>() + residues * (modes as u128 + 1);
         if entries > MAX_TABLE_ENTRIES {
             return Err(CoreError::TooLarge {
-                what: "ranking tables for this total, weights and cutoffs (entries)".into(),
+                what: "ranking tables for this total, weights and cutoffs (entries); use a \
+                       smaller total or cutoffs, or weights with a smaller common scale"
+                    .into(),
                 requested: entries,
                 limit: MAX_TABLE_ENTRIES,
             });
@@ -165,6 +178,7 @@ impl FockSpace {
         };
         let mut space = FockSpace {
             cutoffs,
+            caps,
             weights,
             constraint,
             residues,
@@ -197,7 +211,7 @@ impl FockSpace {
         for i in (0..modes).rev() {
             for r in 0..r_count {
                 let mut acc: u64 = 0;
-                for v in 0..=self.cutoffs[i] {
+                for v in 0..=self.caps[i] {
                     match self.step(r, i, v) {
                         Some(r2) => acc = acc.saturating_add(self.counts[(i + 1) * r_count + r2]),
                         None => break,
@@ -217,15 +231,15 @@ impl FockSpace {
         let mut base = 0usize;
         for i in 0..modes {
             self.offset_base.push(base);
-            base += r_count * (self.cutoffs[i] as usize + 2);
+            base += r_count * (self.caps[i] as usize + 2);
         }
         self.offsets = vec![0; base];
         for i in 0..modes {
-            let width = self.cutoffs[i] as usize + 2;
+            let width = self.caps[i] as usize + 2;
             for r in 0..r_count {
                 let row = self.offset_base[i] + r * width;
                 let mut acc = 0u64;
-                for v in 0..=self.cutoffs[i] {
+                for v in 0..=self.caps[i] {
                     self.offsets[row + v as usize] = acc;
                     if let Some(r2) = self.step(r, i, v) {
                         acc = acc.saturating_add(self.counts[(i + 1) * r_count + r2]);
@@ -253,7 +267,7 @@ impl FockSpace {
     /// The rank contribution of mode `mode` holding `v` quanta with residue `residue` owed.
     #[inline(always)]
     pub fn offset(&self, mode: usize, residue: usize, v: u32) -> u64 {
-        let width = self.cutoffs[mode] as usize + 2;
+        let width = self.caps[mode] as usize + 2;
         self.offsets[self.offset_base[mode] + residue * width + v as usize]
     }
 
@@ -286,6 +300,11 @@ impl FockSpace {
     pub fn cutoffs(&self) -> &[u32] {
         &self.cutoffs
     }
+    /// Highest occupation each mode reaches in the sector (the cutoff, or less when
+    /// the conserved total caps it). Products and tables work with these.
+    pub fn caps(&self) -> &[u32] {
+        &self.caps
+    }
     /// Per-mode weights of the conserved charge.
     pub fn weights(&self) -> &[u32] {
         &self.weights
@@ -300,7 +319,7 @@ impl FockSpace {
     }
     /// Largest cutoff over the modes.
     pub fn max_cutoff(&self) -> u32 {
-        self.cutoffs.iter().copied().max().unwrap_or(0)
+        self.caps.iter().copied().max().unwrap_or(0)
     }
 
     /// The constraint in words, for messages.
@@ -331,7 +350,7 @@ impl FockSpace {
         let mut residue = self.start_residue;
         let mut rank = 0u64;
         for (i, &v) in occ.iter().enumerate() {
-            if v > self.cutoffs[i] {
+            if v > self.caps[i] {
                 return None;
             }
             rank += self.offset(i, residue, v);
@@ -355,7 +374,7 @@ impl FockSpace {
         let mut k = index;
         let mut residue = self.start_residue;
         for i in 0..self.modes() {
-            let width = self.cutoffs[i] as usize + 2;
+            let width = self.caps[i] as usize + 2;
             let row = &self.offsets[self.offset_base[i] + residue * width..][..width];
             // Number of offsets <= k; offsets are non-decreasing and row[0] = 0 <= k.
             let v = row.partition_point(|&o| o <= k) - 1;
@@ -376,7 +395,7 @@ impl FockSpace {
         for i in (0..modes).rev() {
             let r = residues[i];
             let mut v = occ[i] + 1;
-            while v <= self.cutoffs[i] {
+            while v <= self.caps[i] {
                 match self.step(r, i, v) {
                     Some(r2) if self.completions(i + 1, r2) > 0 => {
                         occ[i] = v;
@@ -405,7 +424,7 @@ impl FockSpace {
                     }
                 }
                 v += 1;
-                debug_assert!(v <= self.cutoffs[j], "a reachable residue has a completion");
+                debug_assert!(v <= self.caps[j], "a reachable residue has a completion");
             }
         }
     }
@@ -535,6 +554,14 @@ mod tests {
             FockSpace::new(vec![60_000; 3000], None, Some(1_000_000), None),
             Err(CoreError::TooLarge { .. })
         ));
+    }
+
+    #[test]
+    fn a_total_caps_the_tables() {
+        // Weight 2 and total 6: mode 0 never holds more than 3 quanta.
+        let s = FockSpace::new(vec![65_535, 65_535], Some(vec![2, 1]), Some(6), None).unwrap();
+        assert_eq!(s.caps(), &[3, 6]);
+        assert_eq!(s.dim(), 4);
     }
 
     #[test]

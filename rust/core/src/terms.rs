@@ -218,7 +218,7 @@ impl<S: Scalar> Operator<S> {
     /// `coef(term) * amplitude`. Entries are visited in term order.
     #[inline]
     pub fn for_each_in_row(&self, space: &FockSpace, row: &RowState, mut visit: impl FnMut(usize, u64, f64)) {
-        let cutoffs = space.cutoffs();
+        let cutoffs = space.caps();
         'terms: for t in 0..self.coefs.len() {
             let (a, b) = (self.starts[t] as usize, self.starts[t + 1] as usize);
             // Product of the integer factors n!/(n−lower)! · m!/(n−lower)!, exact in f64 for
