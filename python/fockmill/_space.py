@@ -243,8 +243,8 @@ class FockSpace:
         Returns
         -------
         numpy.ndarray
-            Shape ``(dim, modes)``; row ``k`` is basis state ``k``. ``uint8`` when every
-            cutoff is at most 255, else ``uint16``.
+            Shape ``(dim, modes)``; row ``k`` is basis state ``k``. ``uint8`` when no
+            mode can hold more than 255 quanta in this sector, else ``uint16``.
         """
         return self._native.occupations(check_threads(threads))
 
