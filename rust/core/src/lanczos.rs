@@ -190,7 +190,6 @@ pub fn ground_state<S: Scalar, A: HermitianMap<S>>(
             vecops::zero(&mut v_prev);
         });
         let max_steps = opts.max_steps.min(dim.max(1));
-        let mut theta;
         loop {
             map.apply(&v, &mut w, runner, interrupt)?;
             products += 1;
@@ -201,8 +200,7 @@ pub fn ground_state<S: Scalar, A: HermitianMap<S>>(
             runner.install(|| vecops::sub2(&mut w, alpha, &v, beta_prev, &v_prev));
             alphas.push(alpha);
             let beta = runner.install(|| vecops::norm(&w));
-            let (t, s) = tridiag::lowest_pair(&alphas, &betas);
-            theta = t;
+            let (theta, s) = tridiag::lowest_pair(&alphas, &betas);
             let scale = theta.abs().max(1.0);
             let estimate = beta * s[j].abs();
             if estimate <= 0.25 * opts.tol * scale || beta <= 1e-13 * scale || alphas.len() >= max_steps {
@@ -246,7 +244,6 @@ pub fn ground_state<S: Scalar, A: HermitianMap<S>>(
         let energy = runner.install(|| vecops::dot_re(psi, &w));
         runner.install(|| vecops::axpy(-energy, psi, &mut w));
         let residual = runner.install(|| vecops::norm(&w));
-        let _ = theta;
         let converged = residual <= opts.tol * energy.abs().max(1.0);
         if converged || restarts >= opts.max_restarts {
             return Ok(LanczosOutcome {
