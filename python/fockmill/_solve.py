@@ -439,11 +439,12 @@ def lowest_levels(
     _validate(k, method, tol, s, v0, seed, max_iterations)
     _check_hermitian(e)
     prepare(e, s)  # charge and mode errors before any size estimate
+    estimate = estimate_memory(e, s, threads=threads)
     chosen = method
     if method == "auto":
-        chosen = choose_method(estimate_memory(e, s, threads=threads), k, memory_limit)
+        chosen = choose_method(estimate, k, memory_limit)
     else:
-        _check_fits(estimate_memory(e, s, threads=threads), chosen, k, memory_limit)
+        _check_fits(estimate, chosen, k, memory_limit)
     if chosen == "lanczos":
         if k != 1:
             raise ValueError(
@@ -601,15 +602,15 @@ def ground_state(
     _validate(1, method, tol, s, v0, seed, max_iterations)
     _check_hermitian(e)
     native = prepare(e, s)
+    estimate = estimate_memory(e, s, threads=threads)
     chosen = method
     if method == "auto":
-        chosen = choose_method(estimate_memory(e, s, threads=threads), 1, memory_limit)
+        chosen = choose_method(estimate, 1, memory_limit)
     else:
-        _check_fits(estimate_memory(e, s, threads=threads), chosen, 1, memory_limit)
+        _check_fits(estimate, chosen, 1, memory_limit)
     if chosen == "lanczos":
         start = _start_vector(v0, s, native.is_real)
         if store_matrix is None:
-            estimate = estimate_memory(e, s, threads=threads)
             limit = memory_limit if memory_limit is not None else estimate.available_bytes
             budget = float("inf") if limit is None else MEMORY_BUDGET * limit
             store_matrix = estimate.build_peak_bytes + estimate.krylov_bytes(5) <= budget
