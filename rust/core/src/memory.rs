@@ -32,3 +32,37 @@ pub fn ensure_room(bytes: u128, what: &str) -> CoreResult<()> {
     }
     Ok(())
 }
+
+/// A vector of `len` copies of `value`, allocated fallibly: a failed allocation (an
+/// address-space limit, a cgroup limit, or plain exhaustion) becomes
+/// [`CoreError::TooLarge`] instead of aborting the process. Every buffer whose size
+/// depends on user input goes through this (or [`try_with_capacity`]).
+///
+/// # Errors
+/// [`CoreError::TooLarge`] when the request exceeds the available memory or the
+/// allocator refuses it.
+pub fn try_filled<T: Clone>(len: usize, value: T, what: &str) -> CoreResult<Vec<T>> {
+    let mut v = try_with_capacity(len, what)?;
+    v.resize(len, value);
+    Ok(v)
+}
+
+/// An empty vector with room for `len` elements, allocated fallibly (see [`try_filled`]).
+///
+/// # Errors
+/// [`CoreError::TooLarge`] when the request exceeds the available memory or the
+/// allocator refuses it.
+pub fn try_with_capacity<T>(len: usize, what: &str) -> CoreResult<Vec<T>> {
+    let bytes = len as u128 * std::mem::size_of::<T>().max(1) as u128;
+    ensure_room(bytes, what)?;
+    let mut v = Vec::new();
+    v.try_reserve_exact(len).map_err(|_| CoreError::TooLarge {
+        what: format!(
+            "{what} (bytes); the allocator refused it (an address-space or container memory \
+             limit is likely): use a smaller sector or cutoffs, or a method that stores less"
+        ),
+        requested: bytes,
+        limit: available_bytes().unwrap_or(UNKNOWN_LIMIT),
+    })?;
+    Ok(v)
+}
