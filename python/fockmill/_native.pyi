@@ -3,7 +3,7 @@
 Users import from ``fockmill``; these are the building blocks its public functions use.
 Every call that can run long releases the interpreter and polls for Ctrl-C; ``threads``
 is a thread count (None or 0: rayon's global pool, sized by ``RAYON_NUM_THREADS`` or the
-number of cores).
+number of cores) or a :class:`NativePool` kept between calls.
 """
 
 from typing import final
@@ -13,6 +13,7 @@ import numpy.typing as npt
 
 __all__ = [
     "NativeOperator",
+    "NativePool",
     "NativeSpace",
     "__version__",
     "default_threads",
@@ -24,6 +25,14 @@ __version__: str
 
 _RealOrComplex1D = npt.NDArray[np.float64] | npt.NDArray[np.complex128]
 _RealOrComplex2D = npt.NDArray[np.float64] | npt.NDArray[np.complex128]
+
+@final
+class NativePool:
+    """A thread pool kept between calls (``threads=None`` or 0: rayon's global pool)."""
+
+    def __new__(cls, threads: int | None = None) -> NativePool: ...
+    @property
+    def threads(self) -> int: ...
 
 @final
 class NativeSpace:
@@ -57,13 +66,13 @@ class NativeSpace:
     @property
     def weights(self) -> list[int]: ...
     def occupations(
-        self, threads: int | None = None
+        self, threads: int | NativePool | None = None
     ) -> npt.NDArray[np.uint8] | npt.NDArray[np.uint16]:
         """Occupations of all basis states, shape ``(dim, modes)``."""
     def state(self, index: int) -> list[int]:
         """Occupations of basis state ``index``."""
     def index(
-        self, occ: npt.NDArray[np.int64], threads: int | None = None
+        self, occ: npt.NDArray[np.int64], threads: int | NativePool | None = None
     ) -> npt.NDArray[np.int64]:
         """Ranks of the rows of ``occ`` (``(n, modes)`` int64); -1 outside the space."""
 
@@ -89,19 +98,23 @@ class NativeOperator:
     @property
     def dim(self) -> int: ...
     def build_csr(
-        self, threads: int | None = None, force_wide: bool = False
+        self, threads: int | NativePool | None = None, force_wide: bool = False
     ) -> tuple[
         npt.NDArray[np.int32] | npt.NDArray[np.int64],
         npt.NDArray[np.int32] | npt.NDArray[np.int64],
         _RealOrComplex1D,
     ]:
         """CSR arrays ``(indptr, indices, data)``, moved to NumPy without a copy."""
-    def matvec(self, x: _RealOrComplex1D, threads: int | None = None) -> _RealOrComplex1D:
+    def matvec(
+        self, x: _RealOrComplex1D, threads: int | NativePool | None = None
+    ) -> _RealOrComplex1D:
         """``H x`` (complex128 when ``x`` or ``H`` is complex)."""
-    def matmat(self, x: _RealOrComplex2D, threads: int | None = None) -> _RealOrComplex2D:
+    def matmat(
+        self, x: _RealOrComplex2D, threads: int | NativePool | None = None
+    ) -> _RealOrComplex2D:
         """``H X`` for a ``(dim, k)`` block."""
     def estimate_nnz(
-        self, samples: int = 2048, threads: int | None = None
+        self, samples: int = 2048, threads: int | NativePool | None = None
     ) -> tuple[float, float, bool, int]:
         """``(nnz, standard error, exact, largest row)`` without building."""
     def lanczos_ground(
@@ -111,7 +124,7 @@ class NativeOperator:
         max_restarts: int = 8,
         seed: int = 0x5EED,
         start: _RealOrComplex1D | None = None,
-        threads: int | None = None,
+        threads: int | NativePool | None = None,
         stored: bool = False,
     ) -> tuple[float, _RealOrComplex1D, float, int, int, int, bool]:
         """Four-vector Lanczos ground state:
@@ -121,12 +134,12 @@ def monomial_expectations(
     space: NativeSpace,
     monomials: list[list[tuple[int, int, int]]],
     psi: _RealOrComplex1D,
-    threads: int | None = None,
+    threads: int | NativePool | None = None,
 ) -> npt.NDArray[np.complex128]:
     """``⟨ψ|m|ψ⟩`` for each (distinct, charge-conserving) monomial ``m``."""
 
 def occupation_distributions(
-    space: NativeSpace, psi: _RealOrComplex1D, threads: int | None = None
+    space: NativeSpace, psi: _RealOrComplex1D, threads: int | NativePool | None = None
 ) -> npt.NDArray[np.float64]:
     """``Σ |ψ|²`` per mode and occupation, concatenated over modes."""
 

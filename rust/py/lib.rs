@@ -20,14 +20,60 @@ use pyo3::exceptions::PyKeyboardInterrupt;
 use pyo3::prelude::*;
 use std::sync::Arc;
 
-/// Run core work with the interpreter released, on `threads` threads (None: rayon's
-/// global pool), polling for Ctrl-C between groups of rows.
+/// A thread pool kept between calls, so that repeated products do not start threads
+/// each time (a prepared problem holds one).
+#[pyclass(frozen, module = "fockmill._native")]
+struct NativePool {
+    runner: Arc<Runner>,
+}
+
+#[pymethods]
+impl NativePool {
+    #[new]
+    #[pyo3(signature = (threads=None))]
+    fn new(threads: Option<usize>) -> PyResult<Self> {
+        guarded(|| {
+            let runner = Runner::with_threads(threads).map_err(PyCoreError)?;
+            Ok(NativePool {
+                runner: Arc::new(runner),
+            })
+        })
+    }
+
+    /// Number of threads work in this pool uses.
+    #[getter]
+    fn threads(&self) -> usize {
+        self.runner.threads()
+    }
+}
+
+/// `threads=` as Python passes it: a count (0: rayon's global pool) or a kept pool.
+#[derive(FromPyObject)]
+enum Threads<'py> {
+    Pool(Bound<'py, NativePool>),
+    Count(usize),
+}
+
+impl Threads<'_> {
+    fn runner(threads: Option<Threads<'_>>) -> PyResult<Arc<Runner>> {
+        match threads {
+            Some(Threads::Pool(pool)) => Ok(pool.get().runner.clone()),
+            Some(Threads::Count(n)) => Ok(Arc::new(Runner::with_threads(Some(n)).map_err(PyCoreError)?)),
+            None => Ok(Arc::new(Runner::global())),
+        }
+    }
+}
+
+/// Run core work with the interpreter released, on `threads` (None: rayon's global
+/// pool; a count: a pool of that size; a `NativePool`: that pool), polling for Ctrl-C
+/// between groups of rows.
 fn detached<T: Send>(
     py: Python<'_>,
-    threads: Option<usize>,
+    threads: Option<Threads<'_>>,
     work: impl FnOnce(&Runner, &dyn Interrupt) -> CoreResult<T> + Send,
 ) -> PyResult<T> {
-    let runner = Runner::with_threads(threads).map_err(PyCoreError)?;
+    let runner = Threads::runner(threads)?;
+    let runner = runner.as_ref();
     let (result, raised) = py.detach(|| {
         let check = SignalCheck::new();
         let result = work(&runner, &check);
@@ -118,7 +164,7 @@ impl NativeSpace {
 
     /// Occupations of every basis state, shape (dim, modes), uint8 or uint16.
     #[pyo3(signature = (threads=None))]
-    fn occupations<'py>(&self, py: Python<'py>, threads: Option<usize>) -> PyResult<Bound<'py, PyAny>> {
+    fn occupations<'py>(&self, py: Python<'py>, threads: Option<Threads<'_>>) -> PyResult<Bound<'py, PyAny>> {
         guarded(|| {
             let space = self.inner.clone();
             let (dim, m) = (space.dim() as usize, space.modes());
@@ -178,7 +224,7 @@ impl NativeSpace {
         &self,
         py: Python<'py>,
         occ: PyReadonlyArray2<'py, i64>,
-        threads: Option<usize>,
+        threads: Option<Threads<'_>>,
     ) -> PyResult<Bound<'py, PyArray1<i64>>> {
         guarded(|| {
             let shape = occ.shape();
@@ -254,7 +300,7 @@ impl NativeOperator {
     fn build_csr<'py>(
         &self,
         py: Python<'py>,
-        threads: Option<usize>,
+        threads: Option<Threads<'_>>,
         force_wide: bool,
     ) -> PyResult<Bound<'py, PyAny>> {
         guarded(|| match &self.real {
@@ -277,7 +323,7 @@ impl NativeOperator {
         &self,
         py: Python<'py>,
         x: InVector<'py>,
-        threads: Option<usize>,
+        threads: Option<Threads<'_>>,
     ) -> PyResult<Bound<'py, PyAny>> {
         guarded(|| {
             let space = &self.space;
@@ -310,7 +356,7 @@ impl NativeOperator {
         &self,
         py: Python<'py>,
         x: InBlock<'py>,
-        threads: Option<usize>,
+        threads: Option<Threads<'_>>,
     ) -> PyResult<Bound<'py, PyAny>> {
         guarded(|| {
             let space = &self.space;
@@ -350,7 +396,7 @@ impl NativeOperator {
         &self,
         py: Python<'_>,
         samples: usize,
-        threads: Option<usize>,
+        threads: Option<Threads<'_>>,
     ) -> PyResult<(f64, f64, bool, u64)> {
         guarded(|| {
             let est = match &self.real {
@@ -376,7 +422,7 @@ impl NativeOperator {
         max_restarts: usize,
         seed: u64,
         start: Option<InVector<'py>>,
-        threads: Option<usize>,
+        threads: Option<Threads<'_>>,
         stored: bool,
     ) -> PyResult<LanczosTuple<'py>> {
         guarded(|| {
@@ -460,7 +506,7 @@ fn monomial_expectations<'py>(
     space: &NativeSpace,
     monomials: Vec<Vec<(usize, u32, u32)>>,
     psi: InVector<'py>,
-    threads: Option<usize>,
+    threads: Option<Threads<'_>>,
 ) -> PyResult<Bound<'py, PyArray1<Complex64>>> {
     guarded(|| {
         let sp = &space.inner;
@@ -483,7 +529,7 @@ fn occupation_distributions<'py>(
     py: Python<'py>,
     space: &NativeSpace,
     psi: InVector<'py>,
-    threads: Option<usize>,
+    threads: Option<Threads<'_>>,
 ) -> PyResult<Bound<'py, PyArray1<f64>>> {
     guarded(|| {
         let sp = &space.inner;
@@ -510,6 +556,7 @@ fn _native(m: &Bound<'_, PyModule>) -> PyResult<()> {
     m.add("__version__", env!("CARGO_PKG_VERSION"))?;
     m.add_class::<NativeSpace>()?;
     m.add_class::<NativeOperator>()?;
+    m.add_class::<NativePool>()?;
     m.add_function(wrap_pyfunction!(monomial_expectations, m)?)?;
     m.add_function(wrap_pyfunction!(occupation_distributions, m)?)?;
     m.add_function(wrap_pyfunction!(default_threads, m)?)?;
