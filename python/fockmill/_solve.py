@@ -454,8 +454,10 @@ def _native_ground(
     stored = _store_matrix(problem, store_matrix)
     if stored:
         problem.check_build_fits()
-    max_steps = 400
-    restarts = 8 if max_iterations is None else max(0, max_iterations // max_steps)
+    # Each Lanczos step costs about two products (the second pass regenerates the
+    # Krylov vectors), so a product budget allows half as many steps.
+    max_steps = 400 if max_iterations is None else max(2, min(400, max_iterations // 2))
+    restarts = 8 if max_iterations is None else max(0, max_iterations // (2 * max_steps) - 1)
     energy, vector, residual, steps, products, _, converged = problem.native.lanczos_ground(
         tol, max_steps, restarts, seed, start, problem.pool, stored
     )
