@@ -159,3 +159,35 @@ def test_max_iterations_counts_products_for_every_method(ring6) -> None:
             fm.ground_state(h, space, method=method, max_iterations=5, tol=1e-12)
     g = fm.ground_state(h, space, method="operator", max_iterations=5000)
     assert g.products <= 5000 + 200  # one restart's worth of slack (ncv products)
+
+
+@pytest.mark.parametrize("method", ["dense", "csr", "operator", "lanczos"])
+def test_each_solve_compiles_and_estimates_once(
+    ring6, method: str, monkeypatch: pytest.MonkeyPatch
+) -> None:
+    # Before the prepared problem, ground_state(method="csr") compiled the expression
+    # four times and estimated the memory twice. Counted here at the native boundary.
+    from fockmill import _native, _prepare
+
+    h, space = ring6
+    compiled: list[int] = []
+    estimated: list[int] = []
+    real_operator = _native.NativeOperator
+
+    class CountingOperator:
+        def __init__(self, *args: object) -> None:
+            compiled.append(1)
+            self._inner = real_operator(*args)
+
+        def estimate_nnz(self, *args: object) -> object:
+            estimated.append(1)
+            return self._inner.estimate_nnz(*args)
+
+        def __getattr__(self, name: str) -> object:
+            return getattr(self._inner, name)
+
+    monkeypatch.setattr(_prepare._native, "NativeOperator", CountingOperator)
+    g = fm.ground_state(h, space, method=method)
+    assert np.isfinite(g.energy)
+    assert len(compiled) == 1
+    assert len(estimated) == 1
