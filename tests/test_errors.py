@@ -675,13 +675,6 @@ CATALOGUE: list[BadInput] = [
         r"must be an integer",
     ),
     BadInput(
-        "several levels from Lanczos",
-        lambda t: fm.lowest_levels(HOP, pair(), k=2, method="lanczos"),
-        ValueError,
-        r"only the ground state",
-        r"use method='operator'",
-    ),
-    BadInput(
         "k = dim for an iterative method",
         lambda t: fm.lowest_levels(ring_hopping(6), hexamer(), k=462, method="csr"),
         ValueError,
