@@ -86,11 +86,20 @@ class NativeOperator:
         The space.
     terms : list of (re, im, [(mode, p, q), ...])
         Coefficient parts and normal-ordered factors ``(a_mode†)^p (a_mode)^q``.
+    cut : int or None
+        Product kernel: None chooses automatically; 0 is the row kernel; ``k`` the
+        bipartite kernel with left modes ``0..k``. Built once, on first use.
     """
 
     def __new__(
-        cls, space: NativeSpace, terms: list[tuple[float, float, list[tuple[int, int, int]]]]
+        cls,
+        space: NativeSpace,
+        terms: list[tuple[float, float, list[tuple[int, int, int]]]],
+        cut: int | None = None,
     ) -> NativeOperator: ...
+    @property
+    def cut(self) -> int:
+        """The cut of the product kernel in use (0: the row kernel)."""
     @property
     def is_real(self) -> bool: ...
     @property

@@ -9,8 +9,9 @@ use errors::{guarded, PyCoreError};
 use fockmill_core::build::{build_csr, CsrAny};
 use fockmill_core::estimate::estimate_nnz;
 use fockmill_core::lanczos::{self, FockMap, LanczosOptions};
+use fockmill_core::matvec::Product;
 use fockmill_core::{
-    matvec, observe, CoreError, CoreResult, FockSpace, Interrupt, Operator, RawTerm, Runner, Scalar,
+    observe, CoreError, CoreResult, FockSpace, Interrupt, Operator, RawTerm, Runner, Scalar,
 };
 use interrupt::SignalCheck;
 use num_complex::Complex64;
@@ -18,7 +19,7 @@ use numpy::ndarray::Array2;
 use numpy::{IntoPyArray, PyArray1, PyReadonlyArray1, PyReadonlyArray2, PyUntypedArrayMethods};
 use pyo3::exceptions::PyKeyboardInterrupt;
 use pyo3::prelude::*;
-use std::sync::Arc;
+use std::sync::{Arc, OnceLock};
 
 /// A thread pool kept between calls, so that repeated products do not start threads
 /// each time (a prepared problem holds one).
@@ -248,18 +249,63 @@ impl NativeSpace {
 type InTerm = (f64, f64, Vec<(usize, u32, u32)>);
 
 /// An operator prepared on a space: validated, merged terms ready for builds and products.
+/// The product kernel is built once, on first use, and reused by every product.
 #[pyclass(frozen, module = "fockmill._native")]
 struct NativeOperator {
     space: Arc<FockSpace>,
     real: Option<Operator<f64>>,
     complex: Operator<Complex64>,
+    /// Requested cut (None: automatic; 0: row kernel; k: left modes 0..k).
+    cut: Option<usize>,
+    real_product: OnceLock<Product<f64>>,
+    complex_product: OnceLock<Product<Complex64>>,
+}
+
+/// The kernel kept in `cell`, built on first use.
+fn product_in<'a, S: Scalar>(
+    cell: &'a OnceLock<Product<S>>,
+    space: &FockSpace,
+    op: &Operator<S>,
+    cut: Option<usize>,
+) -> CoreResult<&'a Product<S>> {
+    if let Some(p) = cell.get() {
+        return Ok(p);
+    }
+    let built = match cut {
+        None => Product::new(space, op),
+        Some(c) => Product::with_cut(space, op, c)?,
+    };
+    // Another thread may have won the race; either kernel is the same.
+    let _ = cell.set(built);
+    Ok(cell.get().expect("set above"))
+}
+
+impl NativeOperator {
+    fn real_product(&self, op: &Operator<f64>) -> CoreResult<&Product<f64>> {
+        product_in(&self.real_product, &self.space, op, self.cut)
+    }
+    fn complex_product(&self) -> CoreResult<&Product<Complex64>> {
+        product_in(&self.complex_product, &self.space, &self.complex, self.cut)
+    }
 }
 
 #[pymethods]
 impl NativeOperator {
     #[new]
-    fn new(space: &NativeSpace, terms: Vec<InTerm>) -> PyResult<Self> {
+    #[pyo3(signature = (space, terms, cut=None))]
+    fn new(space: &NativeSpace, terms: Vec<InTerm>, cut: Option<usize>) -> PyResult<Self> {
         guarded(|| {
+            if let Some(c) = cut {
+                if c > space.inner.modes() {
+                    return Err(PyCoreError(CoreError::InvalidArgument(format!(
+                        "cut={c} is above the number of modes ({}); pass None, 0 (row kernel) \
+                         or 1..={}",
+                        space.inner.modes(),
+                        space.inner.modes()
+                    )))
+                    .into());
+                }
+            }
             let raw: Vec<RawTerm> = terms
                 .into_iter()
                 .map(|(re, im, f)| RawTerm::new(re, im, f))
@@ -274,7 +320,21 @@ impl NativeOperator {
                 space: space.inner.clone(),
                 real,
                 complex,
+                cut,
+                real_product: OnceLock::new(),
+                complex_product: OnceLock::new(),
             })
+        })
+    }
+
+    /// The cut of the product kernel (0: the row kernel; k: left modes 0..k).
+    #[getter]
+    fn cut(&self, py: Python<'_>) -> PyResult<usize> {
+        guarded(|| match &self.real {
+            Some(op) => Ok(detached(py, None, |_, _| self.real_product(op).map(|p| p.cut()))?),
+            None => Ok(detached(py, None, |_, _| {
+                self.complex_product().map(|p| p.cut())
+            })?),
         })
     }
 
@@ -330,8 +390,9 @@ impl NativeOperator {
             match (x.to_owned_vec(), &self.real) {
                 (OwnedVector::Real(x), Some(op)) => {
                     let y = detached(py, threads, |r, s| {
-                        let mut y = vec![0.0; x.len()];
-                        matvec::apply(space, op, &x, &mut y, r, s).map(|_| y)
+                        let product = self.real_product(op)?;
+                        let mut y = fockmill_core::memory::try_filled(x.len(), 0.0, "the product vector")?;
+                        product.apply(space, &x, &mut y, r, s).map(|_| y)
                     })?;
                     Ok(y.into_pyarray(py).into_any())
                 }
@@ -341,8 +402,13 @@ impl NativeOperator {
                         OwnedVector::Complex(v) => v,
                     };
                     let y = detached(py, threads, |r, s| {
-                        let mut y = vec![Complex64::ZERO; x.len()];
-                        matvec::apply(space, &self.complex, &x, &mut y, r, s).map(|_| y)
+                        let product = self.complex_product()?;
+                        let mut y = fockmill_core::memory::try_filled(
+                            x.len(),
+                            Complex64::ZERO,
+                            "the product vector",
+                        )?;
+                        product.apply(space, &x, &mut y, r, s).map(|_| y)
                     })?;
                     Ok(y.into_pyarray(py).into_any())
                 }
@@ -368,8 +434,9 @@ impl NativeOperator {
                 (InBlock::Real(a), Some(op)) => {
                     let xs: Vec<f64> = a.as_array().iter().copied().collect();
                     let y = detached(py, threads, |r, s| {
-                        let mut y = vec![0.0; xs.len()];
-                        matvec::apply_many(space, op, &xs, &mut y, k, r, s).map(|_| y)
+                        let product = self.real_product(op)?;
+                        let mut y = fockmill_core::memory::try_filled(xs.len(), 0.0, "the product block")?;
+                        product.apply_many(space, &xs, &mut y, k, r, s).map(|_| y)
                     })?;
                     let arr = Array2::from_shape_vec((n, k), y).expect("shape kept");
                     Ok(arr.into_pyarray(py).into_any())
@@ -380,8 +447,13 @@ impl NativeOperator {
                         InBlock::Complex(a) => a.as_array().iter().copied().collect(),
                     };
                     let y = detached(py, threads, |r, s| {
-                        let mut y = vec![Complex64::ZERO; xs.len()];
-                        matvec::apply_many(space, &self.complex, &xs, &mut y, k, r, s).map(|_| y)
+                        let product = self.complex_product()?;
+                        let mut y = fockmill_core::memory::try_filled(
+                            xs.len(),
+                            Complex64::ZERO,
+                            "the product block",
+                        )?;
+                        product.apply_many(space, &xs, &mut y, k, r, s).map(|_| y)
                     })?;
                     let arr = Array2::from_shape_vec((n, k), y).expect("shape kept");
                     Ok(arr.into_pyarray(py).into_any())
@@ -442,7 +514,12 @@ impl NativeOperator {
                         Some(OwnedVector::Complex(v)) => Some(v.iter().map(|z| z.re).collect()),
                     };
                     let out = detached(py, threads, |r, s| {
-                        lanczos_on(space, op, stored, start, &opts, r, s)
+                        let product = if stored {
+                            None
+                        } else {
+                            Some(self.real_product(op)?)
+                        };
+                        lanczos_on(space, op, product, start, &opts, r, s)
                     })?;
                     Ok(outcome_to_python(py, out))
                 }
@@ -453,7 +530,12 @@ impl NativeOperator {
                     });
                     let op = &self.complex;
                     let out = detached(py, threads, |r, s| {
-                        lanczos_on(space, op, stored, start, &opts, r, s)
+                        let product = if stored {
+                            None
+                        } else {
+                            Some(self.complex_product()?)
+                        };
+                        lanczos_on(space, op, product, start, &opts, r, s)
                     })?;
                     Ok(outcome_to_python(py, out))
                 }
@@ -462,18 +544,19 @@ impl NativeOperator {
     }
 }
 
-/// Lanczos on the matrix-free product, or on a CSR matrix built first when `stored`.
+/// Lanczos on the matrix-free product (the kept kernel `product`), or on a CSR matrix
+/// built first when `product` is None.
 fn lanczos_on<S: Scalar>(
     space: &FockSpace,
     op: &Operator<S>,
-    stored: bool,
+    product: Option<&Product<S>>,
     start: Option<Vec<S>>,
     opts: &LanczosOptions,
     runner: &Runner,
     stop: &dyn Interrupt,
 ) -> CoreResult<lanczos::LanczosOutcome<S>> {
-    if !stored {
-        return lanczos::ground_state(&FockMap::new(space, op), start, opts, runner, stop);
+    if let Some(product) = product {
+        return lanczos::ground_state(&FockMap::with_product(space, product), start, opts, runner, stop);
     }
     match build_csr(space, op, runner, stop, false)? {
         CsrAny::Narrow(c) => lanczos::ground_state(&lanczos::CsrMap::new(c), start, opts, runner, stop),

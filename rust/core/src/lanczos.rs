@@ -6,7 +6,7 @@
 
 use crate::build::{Csr, CsrIndex};
 use crate::error::{CoreError, CoreResult};
-use crate::kernel::ProductKernel;
+use crate::matvec::Product;
 use crate::parallel::{Interrupt, Runner};
 use crate::scalar::Scalar;
 use crate::space::FockSpace;
@@ -28,7 +28,12 @@ pub trait HermitianMap<S: Scalar> {
 /// The matrix-free product of an operator on a space.
 pub struct FockMap<'a, S: Scalar> {
     space: &'a FockSpace,
-    kernel: ProductKernel<S>,
+    product: ProductRef<'a, S>,
+}
+
+enum ProductRef<'a, S: Scalar> {
+    Owned(Box<Product<S>>),
+    Borrowed(&'a Product<S>),
 }
 
 impl<'a, S: Scalar> FockMap<'a, S> {
@@ -37,7 +42,16 @@ impl<'a, S: Scalar> FockMap<'a, S> {
     pub fn new(space: &'a FockSpace, op: &Operator<S>) -> Self {
         FockMap {
             space,
-            kernel: ProductKernel::new(space, op),
+            product: ProductRef::Owned(Box::new(Product::new(space, op))),
+        }
+    }
+
+    /// Use an operator already prepared for products on `space` (built once, reused
+    /// by every call).
+    pub fn with_product(space: &'a FockSpace, product: &'a Product<S>) -> Self {
+        FockMap {
+            space,
+            product: ProductRef::Borrowed(product),
         }
     }
 }
@@ -47,7 +61,11 @@ impl<S: Scalar> HermitianMap<S> for FockMap<'_, S> {
         self.space.dim() as usize
     }
     fn apply(&self, x: &[S], y: &mut [S], runner: &Runner, interrupt: &dyn Interrupt) -> CoreResult<()> {
-        self.kernel.apply(self.space, x, y, runner, interrupt)
+        let product = match &self.product {
+            ProductRef::Owned(p) => p,
+            ProductRef::Borrowed(p) => *p,
+        };
+        product.apply(self.space, x, y, runner, interrupt)
     }
 }
 
