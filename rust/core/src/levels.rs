@@ -584,7 +584,10 @@ pub fn lowest_levels<S: Scalar, A: HermitianMap<S>>(
     let size = std::mem::size_of::<S>() as u128;
     memory::ensure_room(
         (m as u128 + 1) * dim as u128 * size,
-        &format!("the Lanczos basis for {k} levels ({} vectors of the space's dimension)", m + 1),
+        &format!(
+            "the Lanczos basis for {k} levels ({} vectors of the space's dimension)",
+            m + 1
+        ),
     )?;
     let what = "the Lanczos basis";
     let basis = memory::try_filled(
@@ -672,11 +675,15 @@ pub fn lowest_levels<S: Scalar, A: HermitianMap<S>>(
                 break;
             }
             let (found, found_energy) = (kr.locked - 1, kr.energies[kr.locked - 1]);
-            let (highest, highest_energy) = kr.energies[..found]
-                .iter()
-                .copied()
-                .enumerate()
-                .fold((0, f64::NEG_INFINITY), |a, (i, e)| if e > a.1 { (i, e) } else { a });
+            let (highest, highest_energy) =
+                kr.energies[..found]
+                    .iter()
+                    .copied()
+                    .enumerate()
+                    .fold(
+                        (0, f64::NEG_INFINITY),
+                        |a, (i, e)| if e > a.1 { (i, e) } else { a },
+                    );
             let margin = opts.tol * highest_energy.abs().max(1.0);
             if found_energy < highest_energy - margin {
                 // A level was missed: keep it in place of the highest, check again.
@@ -799,6 +806,7 @@ fn symmetric_eigen(a: &[f64], stride: usize, n: usize) -> (Vec<f64>, Vec<f64>) {
 }
 
 #[cfg(test)]
+#[allow(clippy::needless_range_loop)]
 mod tests {
     use super::*;
     use crate::parallel::NoInterrupt;
@@ -896,7 +904,11 @@ mod tests {
             let exact = ring_levels(400, 1.0);
             assert!(out.converged, "{:?}", out.residuals);
             for i in 0..k {
-                assert!((out.energies[i] - exact[i]).abs() < 1e-9, "k={k} level {i}: {:?}", out.energies);
+                assert!(
+                    (out.energies[i] - exact[i]).abs() < 1e-9,
+                    "k={k} level {i}: {:?}",
+                    out.energies
+                );
                 assert!(out.residuals[i] <= 1e-9 * out.energies[i].abs().max(1.0));
             }
             check_orthonormal(&out.vectors, 400, k);
@@ -915,8 +927,10 @@ mod tests {
         };
         let one = solve(&map, 3, 1);
         let two = solve(&map, 3, 2);
-        assert_eq!(one.energies.iter().map(|e| e.to_bits()).collect::<Vec<_>>(),
-                   two.energies.iter().map(|e| e.to_bits()).collect::<Vec<_>>());
+        assert_eq!(
+            one.energies.iter().map(|e| e.to_bits()).collect::<Vec<_>>(),
+            two.energies.iter().map(|e| e.to_bits()).collect::<Vec<_>>()
+        );
         assert_eq!(one.vectors, two.vectors);
         assert_eq!(one.products, two.products);
     }
@@ -961,7 +975,12 @@ mod tests {
             .collect();
         exact.sort_by(f64::total_cmp);
         for i in 0..4 {
-            assert!((out.energies[i] - exact[i]).abs() < 1e-10, "{:?} vs {:?}", out.energies, exact);
+            assert!(
+                (out.energies[i] - exact[i]).abs() < 1e-10,
+                "{:?} vs {:?}",
+                out.energies,
+                exact
+            );
         }
         check_orthonormal(&out.vectors, l, 4);
     }
@@ -1009,15 +1028,27 @@ mod tests {
         let run = |k, opts: LevelsOptions, start: Option<Vec<f64>>| {
             lowest_levels(&map, k, start, &opts, &Runner::global(), &NoInterrupt)
         };
-        assert!(matches!(run(0, LevelsOptions::default(), None), Err(CoreError::InvalidArgument(_))));
-        assert!(matches!(run(21, LevelsOptions::default(), None), Err(CoreError::InvalidArgument(_))));
+        assert!(matches!(
+            run(0, LevelsOptions::default(), None),
+            Err(CoreError::InvalidArgument(_))
+        ));
+        assert!(matches!(
+            run(21, LevelsOptions::default(), None),
+            Err(CoreError::InvalidArgument(_))
+        ));
         let small = LevelsOptions {
             basis: 5,
             ..Default::default()
         };
         assert!(matches!(run(3, small, None), Err(CoreError::InvalidArgument(_))));
-        assert!(matches!(run(2, LevelsOptions::default(), Some(vec![1.0; 7])), Err(CoreError::Shape(_))));
-        assert!(matches!(run(2, LevelsOptions::default(), Some(vec![0.0; 20])), Err(CoreError::InvalidArgument(_))));
+        assert!(matches!(
+            run(2, LevelsOptions::default(), Some(vec![1.0; 7])),
+            Err(CoreError::Shape(_))
+        ));
+        assert!(matches!(
+            run(2, LevelsOptions::default(), Some(vec![0.0; 20])),
+            Err(CoreError::InvalidArgument(_))
+        ));
     }
 
     #[test]
