@@ -92,7 +92,7 @@ pub fn fill_seeded<S: Scalar>(seed: u64, out: &mut [S]) {
 /// Weight of the seeded noise mixed into a caller's start vector (relative to its
 /// norm): enough that every symmetry sector has weight in the Krylov space, small
 /// enough to keep most of a warm start's advantage.
-pub const START_NOISE: f64 = 1e-3;
+pub const START_NOISE: f64 = 1e-4;
 
 /// Normalise `v`, add [`START_NOISE`] times a unit seeded noise vector (drawn into
 /// `scratch`, same length) and normalise again. Returns `false` (and leaves `v`
