@@ -217,7 +217,10 @@ pub struct NativeCsr {
     held: Held,
 }
 
-fn copy_data<S: Copy + numpy::Element, T>(a: &PyReadonlyArray1<'_, S>, f: impl Fn(S) -> T) -> PyResult<Vec<T>> {
+fn copy_data<S: Copy + numpy::Element, T>(
+    a: &PyReadonlyArray1<'_, S>,
+    f: impl Fn(S) -> T,
+) -> PyResult<Vec<T>> {
     let mut out = memory::try_with_capacity(a.len(), "a copy of the CSR values").map_err(PyCoreError)?;
     out.extend(a.as_array().iter().map(|&v| f(v)));
     Ok(out)
