@@ -309,3 +309,113 @@ def test_lanczos_refuses_several_levels(ring: Model) -> None:
             solver_options={"method": "lanczos"},
             progress=False,
         )
+
+
+# -- failures are results (issue 8, defect 4) ---------------------------------------------
+
+
+def test_failing_point_does_not_stop_the_sweep(ring: Model) -> None:
+    # U = 1e308 overflows the interaction matrix elements (U/2 · n(n − 1) > max float), so
+    # that point cannot give a finite energy; the points around it must still be solved.
+    # Reference for the others: numpy eigvalsh on the matrix rebuilt per point.
+    points = [{"U": 1.0}, {"U": 2.0}, {"U": 1e308}, {"U": 3.0}]
+    table = run_sweep(ring, points, executor="serial", progress=False)
+    assert [row.index for row in table] == [0, 1, 2, 3]
+    assert [row.status for row in table] == ["ok", "ok", "failed", "ok"]
+    bad = table.rows[2]
+    assert "finite" in bad.message
+    assert bad.energy is None or not math.isfinite(bad.energy)
+    for row, point in zip(table, points, strict=True):
+        if row.status == "ok":
+            assert row.message == ""
+            assert row.energy == pytest.approx(dense_levels(ring, point)[0], abs=1e-9)
+
+
+def test_unconverged_point_is_recorded_not_raised(ring: Model) -> None:
+    # Four matrix-vector products cannot converge Lanczos on 121 states (common
+    # practice, no source): every point is recorded as not converged, none raises.
+    table = run_sweep(
+        ring,
+        GRID[:3],
+        quantities=("energy",),
+        levels=1,
+        method="lanczos",
+        max_iterations=4,
+        executor="serial",
+        progress=False,
+    )
+    assert [row.status for row in table] == ["not_converged"] * 3
+    assert all("max_iterations" in row.message for row in table)
+
+
+# -- one solver stack, one vocabulary (issue 8 item 4, issue 12) ---------------------------
+
+
+def test_point_is_solved_like_ground_state() -> None:
+    # Same code, same defaults: a one-point sweep gives what fm.ground_state gives for
+    # the same Hamiltonian (numbers and chosen method), which in turn is checked against
+    # numpy eigvalsh.
+    space = fm.FockSpace(modes=6, cutoff=6, total=6)  # dim 462 (above the old limit 300)
+    model = hubbard_ring(sites=6, particles=6, cutoff=6)
+    assert model.space.dim == space.dim
+    table = run_sweep(model, [{"U": 2.0}], quantities=("energy",), levels=1, progress=False)
+    expected = fm.ground_state(model.hamiltonian(U=2.0), model.space, cutoff_warning=None)
+    row = table.rows[0]
+    assert row.method == expected.method
+    assert row.energy == pytest.approx(expected.energy, abs=1e-10)
+    assert row.energy == pytest.approx(dense_levels(model, {"U": 2.0})[0], abs=1e-9)
+
+
+def test_quantities_keyword_and_deprecated_aliases(ring: Model) -> None:
+    table = run_sweep(
+        ring, [{"U": 1.0}], quantities=["energy", "populations"], levels=1, progress=False
+    )
+    assert "populations" in table.rows[0].observables
+    with pytest.warns(DeprecationWarning, match="quantities"):
+        old = run_sweep(ring, [{"U": 1.0}], record=("energy",), levels=1, progress=False)
+    assert old.rows[0].energy == pytest.approx(table.rows[0].energy, abs=1e-12)
+    with pytest.warns(DeprecationWarning, match="solver_options"):
+        run_sweep(
+            ring,
+            [{"U": 1.0}],
+            quantities=("energy",),
+            levels=1,
+            solver_options={"tol": 1e-10},
+            progress=False,
+        )
+
+
+def test_sweep_grid_is_accepted(ring: Model) -> None:
+    grid = fm.SweepGrid({"U": np.array([0.5, 1.5]), "J": np.array([1.0])})
+    table = run_sweep(ring, grid, quantities=("energy",), levels=1, progress=False)
+    assert [row.parameters for row in table] == grid.points()
+    assert table.swept == ("U", "J")
+
+
+def test_default_pool_without_main_guard_names_the_fix(tmp_path) -> None:
+    # Defect 10: a script calling run_sweep at top level with the default process pool.
+    import subprocess
+    import sys
+    import textwrap
+
+    script = tmp_path / "unguarded.py"
+    script.write_text(
+        textwrap.dedent(
+            """
+            import fockmill as fm
+            from fockmill._model import Model
+
+            space = fm.FockSpace(modes=2, cutoff=2, total=2)
+            hop = -(fm.raising(0) * fm.lowering(1) + fm.raising(1) * fm.lowering(0))
+            model = Model("pair", space, {"J": hop}, {"J": 1.0})
+            fm.run_sweep(model, [{"J": 1.0}, {"J": 2.0}], workers=2, progress=False)
+            print("finished")
+            """
+        )
+    )
+    done = subprocess.run(
+        [sys.executable, str(script)], capture_output=True, text=True, timeout=120, check=False
+    )
+    assert done.returncode != 0
+    last = done.stderr.strip().splitlines()[-1]
+    assert 'if __name__ == "__main__":' in last, done.stderr
