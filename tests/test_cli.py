@@ -396,7 +396,9 @@ def test_show_lists_failed_points_and_retry_is_explicit(
     # U = 1e308 overflows the interaction matrix elements: that point fails, the others
     # are solved (reference: the two-boson closed form of test_sweep.pair_closed_form).
     path = tmp_path / "pair.toml"
-    path.write_text(PAIR_TOML.replace("values = [0.0, 1.0, 2.5, 4.0, 8.0]", "values = [1.0, 1e308]"))
+    path.write_text(
+        PAIR_TOML.replace("values = [0.0, 1.0, 2.5, 4.0, 8.0]", "values = [1.0, 1e308]")
+    )
     out = tmp_path / "pair.sqlite"
     argv = ["sweep", str(path), "--out", str(out), "--workers", "1", "--no-progress"]
     code, text, _ = run(argv, capsys)

@@ -29,7 +29,7 @@ def ring() -> Model:
 
 
 def sweep(model: Model, store: Path | ResultsStore, points=POINTS, **kwargs):
-    options = {"record": RECORD, "executor": "serial", "progress": False}
+    options = {"quantities": RECORD, "executor": "serial", "progress": False}
     options.update(kwargs)
     return run_sweep(model, points, store=store, **options)
 
@@ -89,7 +89,7 @@ KILL_SCRIPT = textwrap.dedent(
     model = hubbard_ring(sites=6, particles=6, cutoff=6)
     points = [{"U": 0.05 * k} for k in range(int(sys.argv[3]))]
     run_sweep(model, points, store=sys.argv[1], executor="serial", progress=False,
-              solver_options={"dense_limit": 0})
+              method="csr")
     """
 )
 
@@ -132,7 +132,7 @@ def test_sigkill_mid_sweep_then_resume_equals_uninterrupted(tmp_path: Path) -> N
 
     model = hubbard_ring(sites=6, particles=6, cutoff=6)
     points = [{"U": 0.05 * k} for k in range(total)]
-    options = {"dense_limit": 0}
+    options = {"method": "csr"}
     redone: list[int] = []
     resumed = run_sweep(
         model,
@@ -140,13 +140,11 @@ def test_sigkill_mid_sweep_then_resume_equals_uninterrupted(tmp_path: Path) -> N
         store=path,
         executor="serial",
         progress=False,
-        solver_options=options,
+        **options,
         on_point=lambda row: redone.append(row.index),
     )
     assert len(redone) == total - at_kill
-    uninterrupted = run_sweep(
-        model, points, executor="serial", progress=False, solver_options=options
-    )
+    uninterrupted = run_sweep(model, points, executor="serial", progress=False, **options)
     with ResultsStore.open(path) as store:
         assert store.integrity_ok()
         indices = [row.index for row in store.rows()]
@@ -195,8 +193,8 @@ def test_refuses_changed_grid_or_record(ring: Model, tmp_path: Path) -> None:
     shifted = [{"U": p["U"] + 0.5} for p in POINTS[:3]]
     with pytest.raises(StoreError, match="grid or a default value changed"):
         sweep(ring, path, points=shifted)
-    with pytest.raises(StoreError, match="recording"):
-        sweep(ring, path, points=POINTS[:3], record=("energy",))
+    with pytest.raises(StoreError, match="quantities"):
+        sweep(ring, path, points=POINTS[:3], quantities=("energy",))
     # A changed default of an unswept parameter changes every point too.
     retuned = Model(
         ring.name, ring.space, ring.pieces, {"J": 0.9, "U": 1.0}, constant=ring.constant
@@ -235,7 +233,7 @@ def test_complex_model_round_trips(tmp_path: Path) -> None:
     space = fm.FockSpace(modes=sites, cutoff=2, total=2)
     model = Model("flux-ring", space, {"J": hop}, {"J": 1.0})
     path = tmp_path / "flux.sqlite"
-    table = sweep(model, path, points=[{"J": 1.0}], record=("energy", "gap", "one_body"))
+    table = sweep(model, path, points=[{"J": 1.0}], quantities=("energy", "gap", "one_body"))
     with ResultsStore.open(path) as store:
         row = store.rows()[0]
     assert row == table.rows[0]

@@ -46,10 +46,8 @@ def ring() -> Model:
 
 @pytest.fixture(scope="module")
 def serial_table(ring: Model):
-    # dense_limit=0 forces the sparse Lanczos path with warm starts even at this size.
-    return run_sweep(
-        ring, GRID, executor="serial", solver_options={"dense_limit": 0}, progress=False
-    )
+    # method="csr" forces the sparse eigensolver with warm starts even at this size.
+    return run_sweep(ring, GRID, executor="serial", method="csr", progress=False)
 
 
 def test_serial_sweep_matches_dense_reference(ring: Model, serial_table) -> None:
@@ -72,7 +70,7 @@ def test_chunked_pool_equals_serial(ring: Model, serial_table) -> None:
         GRID,
         workers=2,
         chunk=3,
-        solver_options={"dense_limit": 0},
+        method="csr",
         progress=False,
     )
     a, b = serial_table.to_arrays(), pooled.to_arrays()
@@ -92,7 +90,8 @@ def test_thread_executor_is_accepted(ring: Model, serial_table) -> None:
             GRID,
             executor=executor,
             chunk=5,
-            solver_options={"dense_limit": 0, "threads": 1},
+            method="csr",
+            threads=1,
             progress=False,
         )
     np.testing.assert_allclose(
@@ -110,9 +109,7 @@ def test_dask_local_cluster_equals_serial(ring: Model, serial_table) -> None:
         ) as cluster,
         distributed.Client(cluster) as client,
     ):
-        table = run_sweep(
-            ring, GRID, executor=client, chunk=4, solver_options={"dense_limit": 0}, progress=False
-        )
+        table = run_sweep(ring, GRID, executor=client, chunk=4, method="csr", progress=False)
     np.testing.assert_array_equal(table.to_arrays()["index"], np.arange(len(GRID)))
     np.testing.assert_allclose(
         table.to_arrays()["energy"], serial_table.to_arrays()["energy"], rtol=0, atol=1e-9
@@ -156,7 +153,7 @@ def test_two_site_pair_closed_form() -> None:
     table = run_sweep(
         model,
         points,
-        record=("energy", "gap", "populations", "number_variance", "one_body", "entropy"),
+        quantities=("energy", "gap", "populations", "number_variance", "one_body", "entropy"),
         executor="serial",
         progress=False,
     )
@@ -219,7 +216,7 @@ def test_levels_and_top_weight_recorded(ring: Model) -> None:
     table = run_sweep(
         ring,
         [{"U": 0.5}],
-        record=("levels", "top_weight"),
+        quantities=("levels", "top_weight"),
         levels=4,
         executor="serial",
         progress=False,
@@ -236,12 +233,12 @@ def test_levels_and_top_weight_recorded(ring: Model) -> None:
 @pytest.mark.parametrize(
     ("kwargs", "message"),
     [
-        ({"record": ("energy", "magnetisation")}, "cannot record"),
+        ({"quantities": ("energy", "magnetisation")}, "cannot record"),
         ({"levels": 1}, "needs levels >= 2"),
-        ({"levels": 0, "record": ("energy",)}, "levels must be an integer >= 1"),
-        ({"solver_options": {"tolerance": 1e-3}}, "unknown solver option"),
-        ({"solver_options": {"method": "magic"}}, "method must be"),
-        ({"entropy_modes": (7,), "record": ("entropy",)}, "entropy_modes"),
+        ({"levels": 0, "quantities": ("energy",)}, "levels must be between 1"),
+        ({"tol": -1.0}, "tol must be a positive"),
+        ({"method": "magic"}, "method must be"),
+        ({"entropy_modes": (7,), "quantities": ("entropy",)}, "entropy_modes"),
         ({"chunk": 0}, "chunk must be"),
     ],
 )
@@ -273,11 +270,11 @@ def test_progress_bar_goes_to_stderr(ring: Model, capsys: pytest.CaptureFixture[
 
 
 @pytest.mark.parametrize(
-    ("method", "record", "levels"),
+    ("method", "quantities", "levels"),
     [("operator", ("energy", "gap", "populations"), 2), ("lanczos", ("energy", "populations"), 1)],
 )
 def test_matrix_free_methods_match_dense(
-    ring: Model, method: str, record: tuple[str, ...], levels: int
+    ring: Model, method: str, quantities: tuple[str, ...], levels: int
 ) -> None:
     # Reference: numpy eigvalsh on the matrix rebuilt per point. The ring at unit filling
     # is translation invariant, so every site holds one particle on average.
@@ -285,17 +282,18 @@ def test_matrix_free_methods_match_dense(
     table = run_sweep(
         ring,
         points,
-        record=record,
+        quantities=quantities,
         levels=levels,
         executor="serial",
-        solver_options={"method": method, "tol": 1e-12},
+        method=method,
+        tol=1e-12,
         progress=False,
     )
     for row, point in zip(table, points, strict=True):
         reference = dense_levels(ring, point)
         assert row.method == method
         assert row.energy == pytest.approx(reference[0], abs=1e-8)
-        if "gap" in record:
+        if "gap" in quantities:
             assert row.gap == pytest.approx(reference[1] - reference[0], abs=1e-8)
         np.testing.assert_allclose(row.observables["populations"], 1.0, atol=1e-6)
 
@@ -306,7 +304,7 @@ def test_lanczos_refuses_several_levels(ring: Model) -> None:
             ring,
             GRID[:1],
             executor="serial",
-            solver_options={"method": "lanczos"},
+            method="lanczos",
             progress=False,
         )
 

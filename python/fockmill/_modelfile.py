@@ -65,6 +65,7 @@ import numpy as np
 import numpy.typing as npt
 
 from fockmill._model import Model
+from fockmill.exceptions import ModelFileError
 from fockmill.models import (
     bose_hubbard,
     chain_edges,
@@ -115,31 +116,6 @@ _LATTICES = ("chain", "ring", "rectangle", "edges")
 _SPACINGS = ("linear", "geometric")
 _DEFAULT_LEVELS = {"gap": 2, "levels": 4}
 _BARE_KEY = re.compile(r"^[A-Za-z0-9_-]+$")
-
-
-class ModelFileError(ValueError):
-    """A model file is not valid TOML or does not follow the schema.
-
-    Attributes
-    ----------
-    source : str
-        The file path (or ``"<string>"`` for text).
-    key : str or None
-        Dotted key path of the offending entry (``"sweep.U.num"``), None for the
-        whole file.
-    problem : str
-        What was expected and what was found.
-    """
-
-    def __init__(self, source: str, key: str | None, problem: str) -> None:
-        self.source = source
-        self.key = key
-        self.problem = problem
-        where = f"{source}: {key}: " if key else f"{source}: "
-        super().__init__(where + problem)
-
-    def __reduce__(self) -> tuple[type[ModelFileError], tuple[str, str | None, str]]:
-        return (type(self), (self.source, self.key, self.problem))
 
 
 @dataclass(frozen=True)
