@@ -393,11 +393,14 @@ def test_optional_dependencies_load_lazily() -> None:
 def test_show_lists_failed_points_and_retry_is_explicit(
     tmp_path: Path, capsys: pytest.CaptureFixture[str]
 ) -> None:
-    # U = 1e308 overflows the interaction matrix elements: that point fails, the others
-    # are solved (reference: the two-boson closed form of test_sweep.pair_closed_form).
+    # J = 1.5e308 overflows the hopping matrix elements (√2 J > max float): that point
+    # fails, the other is solved (reference: the two-boson closed form of
+    # test_sweep.pair_closed_form).
     path = tmp_path / "pair.toml"
     path.write_text(
-        PAIR_TOML.replace("values = [0.0, 1.0, 2.5, 4.0, 8.0]", "values = [1.0, 1e308]")
+        PAIR_TOML.replace(
+            "[sweep.U]\nvalues = [0.0, 1.0, 2.5, 4.0, 8.0]", "[sweep.J]\nvalues = [1.0, 1.5e308]"
+        )
     )
     out = tmp_path / "pair.sqlite"
     argv = ["sweep", str(path), "--out", str(out), "--workers", "1", "--no-progress"]
@@ -407,11 +410,11 @@ def test_show_lists_failed_points_and_retry_is_explicit(
     code, table, _ = run(["show", str(out)], capsys)
     assert code == 0
     assert "failed points" in table
-    failure = [line for line in table.splitlines() if "U=1e+308" in line]
+    failure = [line for line in table.splitlines() if "J=1.5e+308" in line]
     assert failure and "finite" in failure[0]
     with ResultsStore.open(out) as store:
         first = store.rows()
-    assert first[0].energy == pytest.approx(pair_closed_form(1.0, 1.0)["energy"], abs=1e-10)
+    assert first[0].energy == pytest.approx(pair_closed_form(1.0, 2.0)["energy"], abs=1e-10)
     code, text, _ = run([*argv, "--retry-failed"], capsys)
     assert code == 0
     with ResultsStore.open(out) as store:
