@@ -239,13 +239,14 @@ class _Solution:
     residual: float
     method: str
     converged: bool
+    products: int
 
 
 def _tolerance_met(residual: float, energy: float, tol: float) -> bool:
     return residual <= 10 * max(tol, 1e-12) * max(1.0, abs(energy))
 
 
-def _solve(problem: Any, settings: SweepSettings, start: npt.NDArray[Any] | None) -> _Solution:
+def solve_levels(problem: Any, settings: SweepSettings, start: npt.NDArray[Any] | None) -> _Solution:
     """The point's levels by the library's ground_state / lowest_levels."""
     options: dict[str, Any] = {
         "method": settings.method,
@@ -262,6 +263,7 @@ def _solve(problem: Any, settings: SweepSettings, start: npt.NDArray[Any] | None
             residual=float(found.residual),
             method=str(found.method),
             converged=bool(found.converged),
+            products=int(found.products),
         )
     levels = problem.lowest_levels(settings.levels, **options)
     residual = float(levels.residuals[0])
@@ -277,6 +279,7 @@ def _solve(problem: Any, settings: SweepSettings, start: npt.NDArray[Any] | None
         residual=residual,
         method=str(levels.method),
         converged=bool(converged),
+        products=int(levels.products),
     )
 
 
@@ -335,7 +338,7 @@ def solve_point(
             problem = prepared.problem(values)
             dtype = np.dtype(getattr(problem, "dtype", np.float64))
             start = start_vector(prepared.space.dim, dtype, settings.seed, index, previous)
-            solution = _solve(problem, settings, start)
+            solution = solve_levels(problem, settings, start)
     except ConvergenceError as exc:
         return _failure(index, values, "not_converged", str(exc), started), None
     except _NOT_POINT_ERRORS:
