@@ -186,7 +186,8 @@ def test_sweep_resumes_and_show_formats(
     assert code == 0
     lines = table.splitlines()
     assert lines[0].startswith("# model bose-hubbard")
-    assert lines[1].split()[:4] == ["point", "U", "energy", "gap"]
+    assert lines[1] == "# modes (order of per-mode lists): site 0, site 1"
+    assert lines[2].split()[:4] == ["point", "U", "energy", "gap"]
     assert len([ln for ln in lines if not ln.startswith("#")]) == 1 + 5
 
     code, text, _ = run(["show", str(pair_results), "--format", "csv"], capsys)

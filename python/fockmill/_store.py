@@ -297,9 +297,13 @@ def _describe_file(file: Path) -> str:
         return "it could not be read"
     if not head:
         return "it is empty"
+    if head.startswith(_SQLITE_HEADER[:6]):
+        return "it is an SQLite database, damaged"
     try:
         text = head.decode("utf-8")
     except UnicodeDecodeError:
+        text = "\x00"
+    if "\x00" in text:
         return "it is not an SQLite database (binary data of another kind)"
     if "[model]" in text:
         return (
@@ -474,9 +478,15 @@ class ResultsStore:
                 for row in connection.execute("SELECT name FROM sqlite_master WHERE type='table'")
             }
         except sqlite3.DatabaseError as exc:
+            what = _describe_file(file)
+            if what.endswith("damaged"):
+                raise StoreError(
+                    f"{name} is damaged (SQLite says: {exc}); restore it from a copy or "
+                    "re-run the sweep into a new file"
+                ) from exc
             raise StoreError(
-                f"{name} is not a fockmill results file: {_describe_file(file)} (SQLite "
-                f"says: {exc}); {advice}"
+                f"{name} is not a fockmill results file: {what} (SQLite says: {exc}); "
+                f"{advice}"
             ) from exc
         marker = None
         if {"meta", "points"} <= tables:

@@ -287,7 +287,7 @@ def _cell(row: PointResult, column: str) -> str:
     return _short_list(value) if isinstance(value, list) else _number(float(value))
 
 
-def format_table(table: SweepTable, meta: dict[str, str] | None = None) -> str:
+def format_table(table: SweepTable, meta: dict[str, Any] | None = None) -> str:
     """Aligned text table of a sweep (matrices are left to the CSV/JSON formats)."""
     lines: list[str] = []
     if meta:
@@ -296,6 +296,12 @@ def format_table(table: SweepTable, meta: dict[str, str] | None = None) -> str:
             f"# model {meta.get('model_name', '?')} (fingerprint "
             f"{meta.get('model_fingerprint', '?')}), {len(table)} of {total} points finished"
         )
+        labels = list(table.mode_labels)
+        if labels and labels != [f"mode {i}" for i in range(len(labels))]:
+            lines.append(f"# modes (order of per-mode lists): {', '.join(labels)}")
+        units = dict(table.units)
+        if units:
+            lines.append("# units: " + ", ".join(f"{k} in {v}" for k, v in units.items()))
     columns = _table_columns(table)
     cells = [[_cell(row, c) for c in columns] for row in table.rows]
     widths = [max(len(c), *(len(r[i]) for r in cells)) for i, c in enumerate(columns)]
