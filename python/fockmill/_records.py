@@ -246,7 +246,9 @@ def _tolerance_met(residual: float, energy: float, tol: float) -> bool:
     return residual <= 10 * max(tol, 1e-12) * max(1.0, abs(energy))
 
 
-def solve_levels(problem: Any, settings: SweepSettings, start: npt.NDArray[Any] | None) -> _Solution:
+def solve_levels(
+    problem: Any, settings: SweepSettings, start: npt.NDArray[Any] | None
+) -> _Solution:
     """The point's levels by the library's ground_state / lowest_levels."""
     options: dict[str, Any] = {
         "method": settings.method,

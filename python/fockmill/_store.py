@@ -485,8 +485,7 @@ class ResultsStore:
                     "re-run the sweep into a new file"
                 ) from exc
             raise StoreError(
-                f"{name} is not a fockmill results file: {what} (SQLite says: {exc}); "
-                f"{advice}"
+                f"{name} is not a fockmill results file: {what} (SQLite says: {exc}); {advice}"
             ) from exc
         marker = None
         if {"meta", "points"} <= tables:
