@@ -8,6 +8,9 @@ Public names
 ------------
 FockSpace
     Truncated multi-mode Fock space or conserved-charge sector.
+prepare, Problem
+    An expression compiled on a space once (validation, compiled terms, product
+    kernel, thread pool, memory estimate), reused by every build, product and solve.
 lowering, raising, number, identity, LadderExpr
     Ladder-operator expressions.
 build_matrix, build_operator, LadderOperator
@@ -54,6 +57,7 @@ from fockmill._observe import (
 )
 from fockmill._operator import LadderOperator, build_operator
 from fockmill._plot import plot_sweep
+from fockmill._problem import Problem, prepare
 from fockmill._solve import GroundState, Levels, choose_method, ground_state, lowest_levels
 from fockmill._space import FockSpace
 from fockmill._store import PointResult, ResultsStore, StoreError, SweepTable
@@ -72,6 +76,7 @@ __all__ = [
     "ModelFile",
     "ModelFileError",
     "PointResult",
+    "Problem",
     "ResultsStore",
     "StoreError",
     "SweepGrid",
@@ -100,6 +105,7 @@ __all__ = [
     "parse_model_text",
     "plot_sweep",
     "populations",
+    "prepare",
     "raising",
     "run_sweep",
     "top_level_weights",
