@@ -21,7 +21,6 @@ import numpy as np
 import numpy.typing as npt
 import scipy.sparse as sp
 
-from fockmill._build import build_matrix
 from fockmill._expr import LadderExpr
 from fockmill._model import Model
 from fockmill._space import FockSpace
@@ -101,14 +100,14 @@ class SharedPattern:
     dtype: np.dtype[Any]
 
     @classmethod
-    def from_model(cls, model: Model, *, threads: Any = None) -> SharedPattern:
+    def from_model(cls, model: Model, *, threads: int | None = None) -> SharedPattern:
         """Build each piece once and place all of them on the union pattern.
 
         Parameters
         ----------
         model : Model
             The parametrised Hamiltonian.
-        threads : int, NativePool or None
+        threads : int, optional
             Threads for the matrix builds (default: all cores).
 
         Returns
@@ -133,15 +132,19 @@ class SharedPattern:
         constant: LadderExpr,
         *,
         name: str = "model",
-        threads: Any = None,
+        threads: int | None = None,
+        pool: Any = None,
     ) -> SharedPattern:
-        """Like :meth:`from_model`, from the parts of a model."""
+        """Like :meth:`from_model`, from the parts of a model (``pool``: a NativePool
+        of ``threads`` threads to build on)."""
+        from fockmill._problem import Problem
+
         check_hermitian_pieces(pieces, constant, name)
         parts = {label: expr for label, expr in pieces.items() if not expr.is_zero()}
         if not constant.is_zero():
             parts[""] = constant
         matrices = {
-            label: _canonical(build_matrix(expr, space, threads=threads))
+            label: _canonical(Problem._from_parts(expr, space, pool=pool, threads=threads).matrix())
             for label, expr in parts.items()
         }
         return cls.from_matrices(space.dim, matrices)

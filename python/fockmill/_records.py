@@ -61,6 +61,7 @@ class ModelRecipe:
     pieces: tuple[tuple[str, LadderExpr], ...]
     constant: LadderExpr
     fingerprint: str
+    defaults: tuple[tuple[str, float], ...] = ()
 
     @classmethod
     def from_model(cls, model: Model) -> ModelRecipe:
@@ -70,6 +71,7 @@ class ModelRecipe:
             pieces=tuple(model.pieces.items()),
             constant=model.constant,
             fingerprint=model.fingerprint(),
+            defaults=tuple((k, float(v)) for k, v in model.parameters.items()),
         )
 
     def __hash__(self) -> int:
@@ -81,22 +83,15 @@ class ModelRecipe:
         return (self.fingerprint, self.name) == (other.fingerprint, other.name)
 
 
-def resolved_method(space: FockSpace, expr: LadderExpr, settings: SweepSettings) -> str:
-    """The method a point of this model will run (``"auto"`` resolved as the solvers do)."""
-    if settings.method != "auto":
-        return settings.method
-    from fockmill._memory import estimate_memory
-    from fockmill._solve import choose_method
-
-    return str(choose_method(estimate_memory(expr, space), settings.levels))
-
-
 @dataclass(frozen=True, eq=False)
 class PreparedModel:
     """A model ready to solve at any point.
 
     ``shared`` holds the pieces on one sparsity pattern when points are solved on a
-    stored matrix; None when each point is prepared from its expression.
+    stored matrix (methods ``"dense"`` and ``"csr"``, several points); None when each
+    point's Hamiltonian is prepared from its expression (the Lanczos solver and the
+    matrix-free methods, which compile the point's terms: cheap next to a solve). One
+    thread pool and one memory estimate serve every point.
     """
 
     name: str
@@ -106,6 +101,8 @@ class PreparedModel:
     shared: SharedPattern | None
     pool: Any
     threads: int | None
+    estimate: Any
+    method: str
 
     @classmethod
     def build(
@@ -116,22 +113,54 @@ class PreparedModel:
         points: int,
         first: Mapping[str, float] | None = None,
     ) -> PreparedModel:
-        """Prepare ``recipe`` for ``points`` points (``first``: the first point's values)."""
+        """Prepare ``recipe`` for ``points`` points (``first``: the first point's values).
+
+        Raises
+        ------
+        NotHermitianError
+            A piece is not Hermitian.
+        SizeLimitError
+            No solver method fits in memory.
+        """
         from fockmill import _native
+        from fockmill._problem import Problem
 
         pieces = dict(recipe.pieces)
         check_hermitian_pieces(pieces, recipe.constant, recipe.name)
         pool = _native.NativePool(settings.threads)
+        values = dict(recipe.defaults) if first is None else dict(first)
+        for label in pieces:
+            values.setdefault(label, 1.0)
+        probe = Problem._from_parts(
+            _combine(recipe.constant, pieces, values),
+            recipe.space,
+            pool=pool,
+            threads=settings.threads,
+        )
+        estimate = probe.estimate
+        method = settings.method
+        if method == "auto":
+            method = str(probe.choose_method(settings.levels))
         shared = None
-        if points >= 2 and _with_matrix_hook() is not None:
-            values = dict(first) if first is not None else dict.fromkeys(pieces, 1.0)
-            expr = _combine(recipe.constant, pieces, values)
-            if resolved_method(recipe.space, expr, settings) in STORED_MATRIX_METHODS:
-                shared = SharedPattern.from_pieces(
-                    recipe.space, pieces, recipe.constant, name=recipe.name, threads=pool
-                )
+        if points >= 2 and method in STORED_MATRIX_METHODS:
+            shared = SharedPattern.from_pieces(
+                recipe.space,
+                pieces,
+                recipe.constant,
+                name=recipe.name,
+                threads=settings.threads,
+                pool=pool,
+            )
         return cls(
-            recipe.name, recipe.space, pieces, recipe.constant, shared, pool, settings.threads
+            recipe.name,
+            recipe.space,
+            pieces,
+            recipe.constant,
+            shared,
+            pool,
+            settings.threads,
+            estimate,
+            method,
         )
 
     def hamiltonian(self, values: Mapping[str, float]) -> LadderExpr:
@@ -139,41 +168,24 @@ class PreparedModel:
         return _combine(self.constant, self.pieces, values)
 
     def problem(self, values: Mapping[str, float]) -> Any:
-        """A prepared problem for the point ``values``.
+        """A prepared problem (:class:`fockmill.Problem`) for the point ``values``.
 
         On the shared pattern, the point's matrix is assembled from the stored pieces
-        and handed to the solvers ready-made; otherwise the point's expression is
-        prepared (validated and compiled) like ``fm.prepare`` does.
+        and the problem is built around it (``Problem._from_parts``); otherwise the
+        point's expression is prepared as ``fm.prepare`` does. Both share this model's
+        thread pool and memory estimate.
         """
-        expr = self.hamiltonian(values)
-        if self.shared is not None:
-            hook = _with_matrix_hook()
-            assert hook is not None
-            return hook(expr, self.space, self.shared.assemble(values), threads=self.pool)
-        try:
-            from fockmill._problem import prepare
-        except ImportError:  # before the prepared-problem module landed
-            return _ExpressionProblem(expr, self.space, self.threads)
-        return prepare(expr, self.space, threads=self.pool)
+        from fockmill._problem import Problem
 
-
-class _ExpressionProblem:
-    """Stand-in for a prepared problem: the module-level solvers on one expression."""
-
-    def __init__(self, expr: LadderExpr, space: FockSpace, threads: int | None) -> None:
-        self.expr, self.space, self.threads = expr, space, threads
-        real = all(complex(c).imag == 0 for c, _ in expr.terms())
-        self.dtype = np.dtype(np.float64 if real else np.complex128)
-
-    def ground_state(self, **options: Any) -> Any:
-        from fockmill._solve import ground_state
-
-        return ground_state(self.expr, self.space, threads=self.threads, **options)
-
-    def lowest_levels(self, k: int, **options: Any) -> Any:
-        from fockmill._solve import lowest_levels
-
-        return lowest_levels(self.expr, self.space, k, threads=self.threads, **options)
+        matrix = self.shared.assemble(values) if self.shared is not None else None
+        return Problem._from_parts(
+            self.hamiltonian(values),
+            self.space,
+            matrix=matrix,
+            pool=self.pool,
+            threads=self.threads,
+            estimate=self.estimate,
+        )
 
 
 def _combine(
@@ -184,15 +196,6 @@ def _combine(
         if values[label] != 0.0:
             expr = expr + values[label] * piece
     return expr
-
-
-def _with_matrix_hook() -> Any:
-    """``Problem._with_matrix`` when the prepared-problem module provides it."""
-    try:
-        from fockmill._problem import Problem
-    except ImportError:
-        return None
-    return getattr(Problem, "_with_matrix", None)
 
 
 @functools.lru_cache(maxsize=1)
