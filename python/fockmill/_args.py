@@ -104,7 +104,10 @@ def check_max_iterations(value: object) -> int | None:
     if value is None:
         return None
     if not _is_int(value) or int(value) < 1:  # type: ignore[call-overload]
-        raise ValueError(f"max_iterations must be a positive integer or None; got {value!r}")
+        raise ValueError(
+            f"max_iterations must be a positive integer (matrix-vector products) or None; "
+            f"got {value!r}"
+        )
     return int(value)  # type: ignore[call-overload]
 
 
