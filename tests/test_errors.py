@@ -1134,6 +1134,13 @@ CATALOGUE: list[BadInput] = [
         "results file that is another SQLite database",
         lambda t: ResultsStore.open(foreign_database(t)),
         StoreError,
+        r"SQLite database of another program, not a fockmill results file",
+        r"give the path of a file written by a fockmill sweep",
+    ),
+    BadInput(
+        "sweep output that is another SQLite database",
+        lambda t: ResultsStore.open(foreign_database(t), purpose="resume"),
+        StoreError,
         r"not a fockmill results file",
         r"choose another output path",
     ),
@@ -1451,7 +1458,7 @@ CLI_CASES: list[tuple[str, Callable[[Path], list[str]], str, str | None]] = [
         "show another SQLite database",
         lambda t: ["show", str(foreign_database(t))],
         r"not a fockmill results file",
-        r"choose another output path",
+        r"give the path of a file written by a fockmill sweep",
     ),
     (
         "show a damaged results file",

@@ -60,8 +60,8 @@ from fockmill._plot import plot_sweep
 from fockmill._problem import Problem, prepare
 from fockmill._solve import GroundState, Levels, choose_method, ground_state, lowest_levels
 from fockmill._space import FockSpace
-from fockmill._store import ResultsStore, StoreError
-from fockmill._sweep import PointResult, SweepTable, run_sweep
+from fockmill._store import PointResult, ResultsStore, StoreError, SweepTable
+from fockmill._sweep import run_sweep
 from fockmill._truncation import CutoffScan, converge_cutoffs
 
 __all__ = [

@@ -12,6 +12,7 @@ import numpy.typing as npt
 import scipy.sparse.linalg as sla
 from scipy.sparse.linalg import LinearOperator
 
+from fockmill._args import METHODS, check_max_iterations, check_method, check_seed, check_tol
 from fockmill._expr import LadderExpr
 from fockmill._memory import MemoryEstimate, format_bytes
 from fockmill._observe import check_vector, top_level_weights
@@ -35,7 +36,7 @@ __all__ = [
 ]
 
 Method = Literal["auto", "dense", "csr", "operator", "lanczos"]
-_METHODS = ("auto", "dense", "csr", "operator", "lanczos")
+_METHODS = METHODS
 #: Spaces up to this dimension are diagonalised densely.
 DENSE_MAX_DIM = 1500
 #: Fraction of the available memory a solve may plan to use.
@@ -393,23 +394,11 @@ def _validate(
     seed: object = 0,
     max_iterations: object = None,
 ) -> None:
-    if method not in _METHODS:
-        raise ValueError(f"method must be one of {_METHODS}; got {method!r}")
-    if isinstance(tol, bool) or not (isinstance(tol, float | int) and np.isfinite(tol) and tol > 0):
-        raise ValueError(f"tol must be a positive finite number such as 1e-9; got {tol!r}")
-    if isinstance(seed, bool) or not isinstance(seed, int | np.integer):
-        raise TypeError(f"seed must be a non-negative integer; got {seed!r}")
-    if seed < 0 or seed >= 2**63:
-        raise ValueError(f"seed must be a non-negative integer below 2**63; got {seed}")
-    if max_iterations is not None and (
-        isinstance(max_iterations, bool)
-        or not isinstance(max_iterations, int | np.integer)
-        or max_iterations < 1
-    ):
-        raise ValueError(
-            f"max_iterations must be a positive integer (matrix-vector products) or None; "
-            f"got {max_iterations!r}"
-        )
+    # One set of checks and messages for solvers, sweeps and model files (_args).
+    check_method(method)
+    check_tol(tol)
+    check_seed(seed)
+    check_max_iterations(max_iterations)
     if v0 is not None:
         check_vector(problem.space, v0, "v0")
     if isinstance(k, bool) or not isinstance(k, int | np.integer):
