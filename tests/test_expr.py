@@ -413,7 +413,10 @@ def test_exact_zero_dropped_but_tiny_values_kept() -> None:
 
 def test_monomial_format_contract() -> None:
     # Shared text format with the Rust core (project contract, no outside source).
-    assert format_monomial(((0, 2, 1), (3, 1, 0))) == "a0†^2 a0 a3†"
+    assert format_monomial(((0, 2, 1), (3, 1, 0))) == "a0†^2 a3† a0"
+    # Normal order as written: creators stand left of annihilators across modes.
+    assert format_monomial(((0, 0, 1), (1, 1, 0))) == "a1† a0"
+    assert str(0.03 * lowering(0) * raising(1)) == "0.03·a1† a0"
     assert format_monomial(((12, 0, 3),)) == "a12^3"
     assert format_monomial(((1, 1, 1),)) == "a1† a1"
     assert format_monomial(()) == "1"

@@ -298,16 +298,18 @@ def test_kerr_network_pieces_match_hand_built() -> None:
         total=3,
     )
     assert model.space == fm.FockSpace(3, [2, 3, 2], 3)
-    assert model.pieces["omega"] == 1.0 * n(0) + 1.5 * n(1) + 2.0 * n(2)
-    assert model.pieces["kerr"] == -0.1 * ad(0) ** 2 * a(0) ** 2 + 0.2 * ad(2) ** 2 * a(2) ** 2
-    assert model.pieces["cross_kerr"] == 0.05 * n(0) * n(2)
-    assert model.pieces["exchange"] == 0.1 * hop(0, 1) + (
+    assert model.pieces["frequency_scale"] == 1.0 * n(0) + 1.5 * n(1) + 2.0 * n(2)
+    assert model.pieces["kerr_scale"] == -0.1 * ad(0) ** 2 * a(0) ** 2 + 0.2 * ad(2) ** 2 * a(2) ** 2
+    assert model.pieces["cross_kerr_scale"] == 0.05 * n(0) * n(2)
+    assert model.pieces["exchange_scale"] == 0.1 * hop(0, 1) + (
         0.25j * ad(1) * a(2) - 0.25j * ad(2) * a(1)
     )
-    assert dict(model.parameters) == dict.fromkeys(["omega", "kerr", "cross_kerr", "exchange"], 1.0)
+    assert dict(model.parameters) == dict.fromkeys(
+        ["frequency_scale", "kerr_scale", "cross_kerr_scale", "exchange_scale"], 1.0
+    )
     assert model.hamiltonian().is_hermitian()
     empty = kerr_network([1.0], cutoff=2)
-    assert empty.pieces["kerr"].is_zero() and empty.pieces["exchange"].is_zero()
+    assert empty.pieces["kerr_scale"].is_zero() and empty.pieces["exchange_scale"].is_zero()
 
 
 def test_single_kerr_oscillator_spectrum() -> None:
@@ -317,9 +319,21 @@ def test_single_kerr_oscillator_spectrum() -> None:
     levels = np.arange(cutoff + 1)
     expected = np.sort(omega * levels + kerr / 2 * levels * (levels - 1))
     np.testing.assert_allclose(spectrum(model), expected, atol=1e-12)
-    # The "kerr" parameter scales the whole family.
+    # The "kerr_scale" parameter scales the whole family.
     scaled = np.sort(omega * levels + 2 * kerr / 2 * levels * (levels - 1))
-    np.testing.assert_allclose(spectrum(model, kerr=2.0), scaled, atol=1e-12)
+    np.testing.assert_allclose(spectrum(model, kerr_scale=2.0), scaled, atol=1e-12)
+    # The old name is a deprecated alias for one release.
+    with pytest.warns(DeprecationWarning, match="now called 'kerr_scale'"):
+        old_name = spectrum(model, kerr=2.0)
+    np.testing.assert_allclose(old_name, scaled, atol=1e-12)
+
+
+def test_models_namespace_lists_only_builders() -> None:
+    # dir() shows the public builders, not numpy or typing helpers (project contract).
+    import fockmill.models as models_module
+
+    assert set(dir(models_module)) == set(models_module.__all__)
+    assert not {"np", "math", "cast", "Any"} & set(dir(models_module))
 
 
 def test_cross_kerr_and_exchange_closed_forms() -> None:
@@ -365,7 +379,7 @@ def test_with_drives_pieces_and_spaces() -> None:
     assert coherent.pieces["drive"] == 0.3 * (a(1) + ad(1))
     assert coherent.space == fm.FockSpace(2, 4)
     assert coherent.parameters["drive"] == 1.0
-    assert coherent.pieces["exchange"] == base.pieces["exchange"]
+    assert coherent.pieces["exchange_scale"] == base.pieces["exchange_scale"]
     assert coherent.name == "driven kerr-network"
 
     squeezed = with_drives(base, two_photon={0: 0.2j})

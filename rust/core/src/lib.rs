@@ -12,6 +12,7 @@
 #![warn(missing_docs)]
 
 pub mod build;
+pub mod correlations;
 pub mod error;
 pub mod estimate;
 pub mod kernel;
