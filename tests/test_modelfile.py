@@ -48,6 +48,8 @@ def parse(text: str) -> ModelFile:
 
 def test_every_example_is_covered() -> None:
     assert sorted(p.name for p in EXAMPLES.glob("*.toml")) == [
+        "disordered_plaquette.toml",
+        "driven_triangle.toml",
         "kerr_trimer.toml",
         "polariton_chain.toml",
         "ring_kerr_crossover.toml",
@@ -108,7 +110,7 @@ def test_kerr_trimer_example() -> None:
     )
     assert spec.model == expected
     assert spec.sweep is not None
-    np.testing.assert_allclose(spec.sweep.axes["exchange"], np.linspace(0.0, 3.0, 13))
+    np.testing.assert_allclose(spec.sweep.axes["exchange_scale"], np.linspace(0.0, 3.0, 13))
     assert spec.levels == 4
 
 
@@ -376,7 +378,12 @@ SCHEMA_ERRORS: list[tuple[str, str, str | None, str]] = [
         "sweep",
         "grid points",
     ),
-    ("sweep of zero piece", KERR + "[sweep.cross_kerr]\nvalues = [1]\n", "sweep.cross_kerr", "no"),
+    (
+        "sweep of zero piece",
+        KERR + "[sweep.cross_kerr_scale]\nvalues = [1]\n",
+        "sweep.cross_kerr_scale",
+        "no",
+    ),
     (
         "unknown quantity",
         BASE + '[record]\nquantities = ["energies"]\n',

@@ -7,6 +7,9 @@ settings. :func:`load_model_file` checks everything up front and turns the file 
 :class:`ModelFile`; every mistake raises :class:`ModelFileError` naming the file, the
 key and what was expected.
 
+The user-facing description of every key, with types, defaults and examples, is
+``docs/model-files.md``; this is a summary.
+
 Schema (every table but ``[model]`` is optional; unknown keys are errors)
 -----------------------------------------------------------------------
 ``schema = 1``
@@ -24,10 +27,19 @@ Schema (every table but ``[model]`` is optional; unknown keys are errors)
     * kerr-network: ``frequencies = [...]``, optional ``self_kerr`` (number or one per
       mode), ``cross_kerr = [[i, j, chi], ...]``, ``couplings = [[i, j, g], ...]``;
       ``cutoff`` (integer or one per mode), optional ``total``.
+``[terms.NAME]``
+    The user's own terms, multiplied by parameter ``NAME`` (new, or an existing one
+    whose family they join): ``value`` (default of a new parameter, 1.0), ``fixed``
+    (add to every point instead), ``terms = ["0.5 raise(0) lower(1)", ...]`` (syntax
+    in :mod:`fockmill._userterms`), ``per_mode = "count(@)"`` with ``modes``,
+    ``weights`` or ``random = {distribution, seed, low/high or mean/std}``, and
+    ``add_adjoint``.
 ``[parameters]``
     Default value of any model parameter (``J``, ``U``, ``mu``; ``wc``, ``we``,
-    ``g``, ``J``; ``omega``, ``kerr``, ``cross_kerr``, ``exchange``; ``drive``,
-    ``two_photon``).
+    ``g``, ``J``; ``frequency_scale``, ``kerr_scale``, ``cross_kerr_scale``,
+    ``exchange_scale``; ``drive``, ``two_photon``; names made in ``[terms]``).
+``[units]``
+    ``energy = "J"`` and ``NAME = "unit"`` per parameter: labels for plots and tables.
 ``[drives]``
     ``coherent = [[mode, amplitude], ...]``, ``two_photon = [[mode, amplitude], ...]``
     (see :func:`fockmill.models.with_drives`).
