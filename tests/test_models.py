@@ -299,7 +299,9 @@ def test_kerr_network_pieces_match_hand_built() -> None:
     )
     assert model.space == fm.FockSpace(3, [2, 3, 2], 3)
     assert model.pieces["frequency_scale"] == 1.0 * n(0) + 1.5 * n(1) + 2.0 * n(2)
-    assert model.pieces["kerr_scale"] == -0.1 * ad(0) ** 2 * a(0) ** 2 + 0.2 * ad(2) ** 2 * a(2) ** 2
+    assert (
+        model.pieces["kerr_scale"] == -0.1 * ad(0) ** 2 * a(0) ** 2 + 0.2 * ad(2) ** 2 * a(2) ** 2
+    )
     assert model.pieces["cross_kerr_scale"] == 0.05 * n(0) * n(2)
     assert model.pieces["exchange_scale"] == 0.1 * hop(0, 1) + (
         0.25j * ad(1) * a(2) - 0.25j * ad(2) * a(1)
