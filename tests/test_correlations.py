@@ -74,3 +74,15 @@ def test_bad_input() -> None:
         fm.density_correlations(space, np.ones(3))
     with pytest.raises(ValueError, match="zero"):
         fm.density_correlations(space, np.zeros(space.dim))
+
+
+def test_docstring_examples_of_the_new_modules_run() -> None:
+    import doctest
+
+    import fockmill._correlations
+    import fockmill._plot
+    import fockmill._statefile
+
+    for module in (fockmill._correlations, fockmill._statefile, fockmill._plot):
+        result = doctest.testmod(module)
+        assert result.failed == 0 and result.attempted > 0, module.__name__

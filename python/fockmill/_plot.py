@@ -34,10 +34,12 @@ import numpy.typing as npt
 from fockmill._store import ResultsStore, SweepTable
 
 if TYPE_CHECKING:
+    from matplotlib.figure import Figure
+
     from fockmill._modelfile import ModelFile
     from fockmill._space import FockSpace
 
-__all__ = ["axis_label", "plot_sweep"]
+__all__ = ["axis_label", "plot_sweep", "sweep_figure"]
 
 _QUANTITIES = {
     "energy": "ground energy $E_0$",
@@ -85,7 +87,8 @@ def _describe(name: str, model_name: str) -> tuple[str, str]:
         return _MODEL_SPECIFIC[(base, name)]
     if name in _PARAMETERS:
         return _PARAMETERS[name]
-    return ("parameter", name)
+    # A user's parameter: one letter reads as a symbol, a longer name as written.
+    return ("parameter", f"${name}$" if re.fullmatch(r"[A-Za-z]", name) else name)
 
 
 def axis_label(name: str, units: Mapping[str, str], model_name: str = "") -> str:
@@ -116,11 +119,12 @@ def axis_label(name: str, units: Mapping[str, str], model_name: str = "") -> str
     unit = units.get(name)
     if not unit:
         return f"{description} {symbol}"
-    if unit in _PARAMETERS or unit in units or unit == units.get("energy"):
-        unit_symbol = _describe(unit, model_name)[1] if unit in _PARAMETERS else unit
+    if unit in _PARAMETERS or (unit in units and unit != "energy"):
+        # The unit is another parameter: write the ratio, U/J.
+        unit_symbol = _describe(unit, model_name)[1]
         if symbol.startswith("$") and unit_symbol.startswith("$"):
             return f"{description} {symbol[:-1]}/{unit_symbol[1:]}"
-        return f"{description} {symbol}/{unit_symbol}"
+        return f"{description} {symbol} / {unit_symbol}"
     return f"{description} {symbol} ({unit})"
 
 
@@ -212,6 +216,8 @@ def _sites(labels: Sequence[str], modes: int) -> tuple[int, str]:
     indices = {m.group(2) for m in (_TRAILING_INDEX.match(x) for x in labels) if m}
     if labels and len(indices) < modes and len(indices) * 2 <= modes:
         return len(indices), "sites"
+    if labels and all(label.startswith("site ") for label in labels):
+        return modes, "sites"
     return modes, "modes"
 
 
@@ -297,9 +303,8 @@ def _hold_constant(axis: Any, values: npt.NDArray[np.float64]) -> None:
         axis.set_ylim(middle - pad, middle + pad)
 
 
-def plot_sweep(
+def sweep_figure(
     source: SweepTable | ResultsStore | str | os.PathLike[str],
-    out: str | os.PathLike[str],
     *,
     x: str | None = None,
     y: Sequence[str] = ("energy", "gap"),
@@ -309,15 +314,16 @@ def plot_sweep(
     space: FockSpace | None = None,
     entropy_modes: Sequence[int] | None = None,
     model_file: ModelFile | None = None,
-) -> Path:
-    """Draw recorded quantities against a swept parameter and save the figure.
+) -> Figure:
+    """Draw recorded quantities against a swept parameter, as a matplotlib Figure.
+
+    The figure is not shown or saved (see :func:`plot_sweep`); its axes, labels and
+    legends can be inspected or changed before saving with ``figure.savefig``.
 
     Parameters
     ----------
     source : SweepTable, ResultsStore, str or path
         The results (a results file is only read).
-    out : str or path
-        Image file to write; the format follows the suffix (``.png``, ``.pdf``, ``.svg``).
     x : str, optional
         Swept parameter on the horizontal axis (default: the first one that varies).
         Other varying parameters give one line per combination of their values. A
@@ -345,8 +351,8 @@ def plot_sweep(
 
     Returns
     -------
-    pathlib.Path
-        The file written.
+    matplotlib.figure.Figure
+        One panel per quantity, on an Agg canvas.
 
     Raises
     ------
@@ -453,6 +459,56 @@ def plot_sweep(
     heading = _title(title if title is not None else model_name, context.get("space"), labels)
     if heading:
         figure.suptitle(heading)
+    return figure
+
+
+def plot_sweep(
+    source: SweepTable | ResultsStore | str | os.PathLike[str],
+    out: str | os.PathLike[str],
+    *,
+    x: str | None = None,
+    y: Sequence[str] = ("energy", "gap"),
+    title: str | None = None,
+    mode_labels: Sequence[str] | None = None,
+    units: Mapping[str, str] | None = None,
+    space: FockSpace | None = None,
+    entropy_modes: Sequence[int] | None = None,
+    model_file: ModelFile | None = None,
+) -> Path:
+    """Draw recorded quantities against a swept parameter and save the figure.
+
+    Parameters
+    ----------
+    source : SweepTable, ResultsStore, str or path
+        The results (a results file is only read).
+    out : str or path
+        Image file to write; the format follows the suffix (``.png``, ``.pdf``, ``.svg``).
+    x, y, title, mode_labels, units, space, entropy_modes, model_file
+        As for :func:`sweep_figure`.
+
+    Returns
+    -------
+    pathlib.Path
+        The file written.
+
+    Raises
+    ------
+    ValueError
+        No finished points, an unknown ``x`` or ``y``, or nothing swept.
+    ImportError
+        matplotlib is not installed (``pip install matplotlib``).
+    """
+    figure = sweep_figure(
+        source,
+        x=x,
+        y=y,
+        title=title,
+        mode_labels=mode_labels,
+        units=units,
+        space=space,
+        entropy_modes=entropy_modes,
+        model_file=model_file,
+    )
     path = Path(out)
     path.parent.mkdir(parents=True, exist_ok=True)
     figure.savefig(path, dpi=120)
