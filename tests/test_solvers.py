@@ -10,6 +10,7 @@ import fockmill as fm
 import numpy as np
 import pytest
 from fockmill.exceptions import CutoffWarning, NotHermitianError, SizeLimitError
+from reference import sector_matrix, sector_occupations
 
 
 def ring(sites: int, hopping: float, interaction: float, disorder: float = 0.0) -> fm.LadderExpr:
@@ -25,16 +26,17 @@ def ring(sites: int, hopping: float, interaction: float, disorder: float = 0.0) 
 
 @pytest.mark.parametrize("method", ["dense", "csr", "operator"])
 def test_lowest_levels_match_dense_numpy(method: str) -> None:
-    # Reference: numpy.linalg.eigh of the same matrix (LAPACK).
+    # Reference: numpy.linalg.eigh (LAPACK) of the matrix built by hand in
+    # tests/reference.sector_matrix, independent of the package's builder.
     h = ring(6, 1.0, 2.5, disorder=0.3)
     space = fm.FockSpace(modes=6, cutoff=6, total=6)
-    reference = np.linalg.eigvalsh(fm.build_matrix(h, space).toarray())[:4]
+    m = sector_matrix(h, [6] * 6, total=6).real
+    reference = np.linalg.eigvalsh(m)[:4]
     levels = fm.lowest_levels(h, space, k=4, method=method, tol=1e-12)
     np.testing.assert_allclose(levels.energies, reference, atol=1e-9)
     assert levels.method == method
     assert np.all(levels.residuals < 1e-7)
     # Residuals are real: recompute one by hand.
-    m = fm.build_matrix(h, space)
     v = levels.vectors[:, 1]
     assert np.linalg.norm(m @ v - levels.energies[1] * v) == pytest.approx(
         levels.residuals[1], abs=1e-10
@@ -45,7 +47,7 @@ def test_lowest_levels_match_dense_numpy(method: str) -> None:
 def test_ground_state_matches_dense_numpy(method: str) -> None:
     h = ring(7, 1.0, 4.0, disorder=0.2)
     space = fm.FockSpace(modes=7, cutoff=3, total=7)
-    reference = np.linalg.eigvalsh(fm.build_matrix(h, space).toarray())[0]
+    reference = np.linalg.eigvalsh(sector_matrix(h, [3] * 7, total=7))[0]
     # Cutoff 3 below the total 7 truncates on purpose here.
     g = fm.ground_state(h, space, method=method, tol=1e-10, cutoff_warning=None)
     assert g.energy == pytest.approx(reference, abs=1e-8)
@@ -191,7 +193,7 @@ def test_observables_against_dense_matrices() -> None:
     space = fm.FockSpace(modes=5, cutoff=3, total=5)
     g = fm.ground_state(h, space, method="dense", cutoff_warning=None)
     v = g.vector
-    occ = space.occupations().astype(float)
+    occ = sector_occupations([3] * 5, total=5).astype(float)  # brute-force basis
     np.testing.assert_allclose(fm.populations(space, v), (v**2) @ occ, atol=1e-12)
     np.testing.assert_allclose(
         fm.number_variances(space, v), (v**2) @ occ**2 - ((v**2) @ occ) ** 2, atol=1e-12
@@ -199,8 +201,8 @@ def test_observables_against_dense_matrices() -> None:
     g1 = fm.one_body_matrix(space, v)
     for i in range(5):
         for j in range(5):
-            m = fm.build_matrix(fm.raising(i) * fm.lowering(j), space)
-            assert g1[i, j] == pytest.approx(v @ (m @ v), abs=1e-12)
+            m = sector_matrix(fm.raising(i) * fm.lowering(j), space.cutoffs, total=space.total)
+            assert g1[i, j] == pytest.approx(v @ (m.real @ v), abs=1e-12)
     assert np.trace(g1) == pytest.approx(5.0)
     dist = fm.occupation_distribution(space, v)
     np.testing.assert_allclose(dist.sum(axis=1), 1.0)
