@@ -100,7 +100,8 @@ def test_bose_hubbard_complex_hopping_is_hermitian() -> None:
 def test_bose_hubbard_cutoff_defaults_to_total() -> None:
     model = bose_hubbard(ring_edges(6), total=6)
     assert model.space.cutoffs == (6,) * 6
-    # Unit filling of 6 sites: C(11, 5) = 462 states (stars and bars, common practice).
+    # Unit filling of 6 sites: C(11, 5) = 462 states (stars and bars: Feller, An
+    # Introduction to Probability Theory vol. 1, 3rd ed. 1968, Sec. II.5; from memory).
     assert model.space.dim == math.comb(11, 5)
     assert not any(model.space.binding_cutoffs())
     assert bose_hubbard([], sites=2, total=0).space.dim == 1
@@ -108,8 +109,10 @@ def test_bose_hubbard_cutoff_defaults_to_total() -> None:
 
 @pytest.mark.parametrize(("hopping", "mu"), [(1.0, 0.0), (0.7, 0.3), (-1.3, -2.0)])
 def test_two_sites_one_particle(hopping: float, mu: float) -> None:
-    # The bonding and antibonding orbitals of a dimer sit at ∓J (common practice, no
-    # source); the chemical potential shifts both by −μ.
+    # The bonding and antibonding orbitals of a dimer sit at ∓J (two-state system with
+    # coupling −J: Feynman, Leighton & Sands, The Feynman Lectures on Physics vol. III,
+    # 1965, Chaps. 9–10; from memory for the chapters); the chemical potential shifts
+    # both by −μ.
     model = bose_hubbard([(0, 1)], total=1, hopping=hopping, interaction=5.0)
     expected = np.sort([-hopping - mu, hopping - mu])
     np.testing.assert_allclose(spectrum(model, mu=mu), expected, atol=1e-12)
@@ -128,7 +131,8 @@ def test_two_sites_two_particles(hopping: float, interaction: float) -> None:
 
 def test_open_chain_single_particle_band() -> None:
     # Tight-binding chain of L sites: E_m = −2J cos(π m / (L + 1)), m = 1..L
-    # (common practice, no source).
+    # (tight-binding band, Ashcroft & Mermin, Solid State Physics, 1976, Chap. 10, with
+    # the standing-wave boundary condition of an open chain).
     sites = 7
     model = bose_hubbard(chain_edges(sites), total=1, hopping=0.8)
     m = np.arange(1, sites + 1)
@@ -138,7 +142,8 @@ def test_open_chain_single_particle_band() -> None:
 
 def test_torus_single_particle_band() -> None:
     # Square lattice with periodic boundaries: E = −2J (cos kx + cos ky) with
-    # kx = 2π p / cols, ky = 2π q / rows (common practice, no source).
+    # kx = 2π p / cols, ky = 2π q / rows (simple-cubic-type tight-binding band in two
+    # dimensions: Ashcroft & Mermin, Solid State Physics, 1976, Chap. 10).
     rows, cols = 3, 4
     model = bose_hubbard(rectangular_edges(rows, cols, periodic=True), total=1)
     kx = 2 * np.pi * np.arange(cols) / cols
@@ -257,8 +262,9 @@ def test_jaynes_cummings_detuned_doublet() -> None:
 def test_jaynes_cummings_hubbard_ring_one_excitation() -> None:
     # One excitation on a ring of L cavities: each Bloch mode k has photon energy
     # ε_k = ω_c − 2J cos k and mixes with the emitter at ω_e, giving
-    # E = (ε_k + ω_e)/2 ± √((ε_k − ω_e)²/4 + g²) with k = 2π m / L
-    # (common practice, no source).
+    # E = (ε_k + ω_e)/2 ± √((ε_k − ω_e)²/4 + g²) with k = 2π m / L (Bloch modes of the
+    # ring: Ashcroft & Mermin, Solid State Physics, 1976, Chap. 10; each mixed with its
+    # emitter as in Jaynes & Cummings, Proc. IEEE 51, 89 (1963), one excitation).
     sites, wc, we, g, hopping = 5, 1.0, 0.9, 0.08, 0.03
     model = jaynes_cummings_hubbard(
         sites,

@@ -192,8 +192,9 @@ def test_eigsh_on_a_free_ring_with_flux_matches_the_band(
 ) -> None:
     # Free bosons (U = 0) on an L-site ring threaded by a flux Φ (Peierls phase e^{iΦ/L}
     # on each bond a_{i+1}† a_i): single-particle energies ε_k = -2t cos((2πk + Φ)/L),
-    # k = 0..L-1 (tight-binding band with Peierls substitution, common practice, no
-    # source). Without interactions the N-boson levels are the sums of N of them,
+    # k = 0..L-1 (tight-binding band: Ashcroft & Mermin, Solid State Physics, 1976,
+    # Chap. 10; Peierls substitution: Peierls, Z. Phys. 80, 763 (1933), from memory for
+    # the reference). Without interactions the N-boson levels are the sums of N of them,
     # repetition allowed. The complex phase makes the operator complex Hermitian; the
     # sign of t matters on this odd (non-bipartite) ring, and dropping or mis-conjugating
     # the phase would change the levels. With 0 < |Φ| < π the three lowest levels are

@@ -61,7 +61,8 @@ def test_ground_state_matches_dense_numpy(method: str) -> None:
 
 def test_degenerate_ground_state_is_reported() -> None:
     # Two free bosons on a 3-site ring with hopping +J: the single-particle levels are
-    # 2J cos(2πk/3) = 2J, −J, −J (common practice, no source); both bosons in the
+    # 2J cos(2πk/3) = 2J, −J, −J (tight-binding ring: Ashcroft & Mermin, Solid State
+    # Physics, 1976, Chap. 10, with periodic boundaries); both bosons in the
     # doubly degenerate orbital give a 3-fold degenerate ground level at −2J.
     h = fm.LadderExpr()
     for i in range(3):
@@ -79,7 +80,8 @@ def test_degenerate_ground_state_is_reported() -> None:
 
 def test_single_particle_ring_degenerate_pairs_found_by_eigsh() -> None:
     # One particle on a ring of 12 sites, hopping −1: energies −2 cos(2πk/12), so every
-    # level but the lowest and the highest comes in pairs (common practice, no source).
+    # level but the lowest and the highest comes in pairs (tight-binding ring: Ashcroft &
+    # Mermin, Solid State Physics, 1976, Chap. 10).
     h = ring(12, 1.0, 0.0)
     space = fm.FockSpace(modes=12, cutoff=1, total=1)
     exact = np.sort(-2 * np.cos(2 * np.pi * np.arange(12) / 12))[:5]
@@ -111,7 +113,9 @@ def test_lanczos_matches_eigsh_on_a_mid_size_sector() -> None:
 def test_bose_hubbard_strong_coupling_second_order() -> None:
     # Mott insulator at unit filling, U ≫ J: second-order perturbation theory gives
     # E0 ≈ −(2 bonds per site) · |−J√2|² · 2 directions / U = −4 L J² / U for a ring
-    # (virtual doublon–holon pairs; common practice, derived here). The error is
+    # (virtual doublon–holon pairs; second-order non-degenerate perturbation theory,
+    # Sakurai & Napolitano, Modern Quantum Mechanics, 2nd ed. 2011, Sec. 5.1; the
+    # Bose–Hubbard numbers derived here). The error is
     # O(J⁴/U³), so doubling U must shrink the relative error about fourfold.
     sites = 6
     space = fm.FockSpace(modes=sites, cutoff=sites, total=sites)
@@ -153,7 +157,9 @@ def test_cutoff_warning_only_for_truncating_cutoffs() -> None:
 
 def test_two_mode_squeezed_vacuum_entropy() -> None:
     # |ψ⟩ = sqrt(1−λ²) Σ λⁿ |n, n⟩ with λ = tanh r has Schmidt weights (1−λ²)λ^{2n}, so
-    # S = cosh²r ln cosh²r − sinh²r ln sinh²r (common practice, no source).
+    # S = cosh²r ln cosh²r − sinh²r ln sinh²r (entropy of the Schmidt weights: Nielsen &
+    # Chuang, Quantum Computation and Quantum Information, 2000, Secs. 2.5 and 11.3; the
+    # closed form from memory, as in Barnett & Phoenix, Phys. Rev. A 40, 2404 (1989)).
     r = 0.7
     lam = math.tanh(r)
     cutoff = 60
