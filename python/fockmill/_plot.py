@@ -423,8 +423,9 @@ def sweep_figure(
             for label, values in _series(quantity, arrays[quantity][rows], labels):
                 text = "; ".join(part for part in (prefix, label) if part)
                 lines.append((text, rows, np.asarray(values, dtype=np.float64)))
+        colours: list[Any]
         if len(lines) > _MAX_CYCLE:
-            colours = colormaps["viridis"](np.linspace(0.0, 0.95, len(lines)))
+            colours = list(colormaps["viridis"](np.linspace(0.0, 0.95, len(lines))))
         else:
             colours = [f"C{k}" for k in range(len(lines))]
         for (text, rows, values), colour in zip(lines, colours, strict=True):
