@@ -8,6 +8,9 @@ Public names
 ------------
 FockSpace
     Truncated multi-mode Fock space or conserved-charge sector.
+prepare, Problem
+    An expression compiled on a space once (validation, compiled terms, product
+    kernel, thread pool, memory estimate), reused by every build, product and solve.
 lowering, raising, number, identity, LadderExpr
     Ladder-operator expressions.
 build_matrix, build_operator, LadderOperator
@@ -59,6 +62,7 @@ from fockmill._observe import (
 )
 from fockmill._operator import LadderOperator, build_operator
 from fockmill._plot import plot_sweep
+from fockmill._problem import Problem, prepare
 from fockmill._solve import GroundState, Levels, choose_method, ground_state, lowest_levels
 from fockmill._space import FockSpace
 from fockmill._statefile import SavedState, StateFileError, load_state, save_state
@@ -80,6 +84,7 @@ __all__ = [
     "ModelFile",
     "ModelFileError",
     "PointResult",
+    "Problem",
     "ResultsStore",
     "SavedState",
     "StateFileError",
@@ -112,6 +117,7 @@ __all__ = [
     "parse_model_text",
     "plot_sweep",
     "populations",
+    "prepare",
     "raising",
     "run_sweep",
     "save_state",

@@ -5,14 +5,17 @@ from __future__ import annotations
 import os
 from dataclasses import dataclass
 from pathlib import Path
+from typing import Any
 
 import numpy as np
 
-from fockmill._expr import LadderExpr
-from fockmill._prepare import check_threads, prepare
-from fockmill._space import FockSpace
-
-__all__ = ["MemoryEstimate", "available_memory", "estimate_memory", "format_bytes"]
+__all__ = [
+    "MemoryEstimate",
+    "available_memory",
+    "estimate_memory",
+    "estimate_native",
+    "format_bytes",
+]
 
 _INT32_MAX = np.iinfo(np.int32).max
 
@@ -107,8 +110,8 @@ class MemoryEstimate:
 
 
 def estimate_memory(
-    expr: LadderExpr,
-    space: FockSpace,
+    expr: Any,
+    space: Any = None,
     *,
     samples: int = 2048,
     threads: int | None = None,
@@ -120,8 +123,8 @@ def estimate_memory(
 
     Parameters
     ----------
-    expr : LadderExpr
-        The operator.
+    expr : LadderExpr or Problem
+        The operator, or a prepared problem (then ``space`` is omitted).
     space : FockSpace
         The space it acts on.
     samples : int
@@ -133,16 +136,27 @@ def estimate_memory(
     -------
     MemoryEstimate
     """
-    op = prepare(expr, space)
+    from fockmill._problem import as_problem
+
+    problem = as_problem(expr, space, threads=threads)
+    if samples == 2048:
+        return problem.estimate
+    return estimate_native(problem.native, problem.shape, samples, problem.pool)
+
+
+def estimate_native(
+    native: Any, shape: tuple[int, int], samples: int, threads: Any
+) -> MemoryEstimate:
+    """The :class:`MemoryEstimate` of a compiled operator of the given shape."""
     if isinstance(samples, bool) or not isinstance(samples, int) or samples < 1:
         raise ValueError(f"samples must be a positive integer; got {samples!r}")
-    nnz_f, std_error, exact, _ = op.estimate_nnz(samples, check_threads(threads))
+    nnz_f, std_error, exact, _ = native.estimate_nnz(samples, threads)
     nnz = round(nnz_f)
-    dim = space.dim
-    wide = nnz > _INT32_MAX or dim > _INT32_MAX
+    rows, dim = shape
+    wide = nnz > _INT32_MAX or max(rows, dim) > _INT32_MAX
     index_dtype = np.dtype(np.int64 if wide else np.int32)
-    value_dtype = np.dtype(np.float64 if op.is_real else np.complex128)
-    csr = (dim + 1) * index_dtype.itemsize + nnz * (index_dtype.itemsize + value_dtype.itemsize)
+    value_dtype = np.dtype(np.float64 if native.is_real else np.complex128)
+    csr = (rows + 1) * index_dtype.itemsize + nnz * (index_dtype.itemsize + value_dtype.itemsize)
     return MemoryEstimate(
         dim=dim,
         nnz=nnz,
@@ -151,7 +165,7 @@ def estimate_memory(
         index_dtype=index_dtype,
         value_dtype=value_dtype,
         csr_bytes=csr,
-        build_peak_bytes=csr + 8 * (dim + 1),
+        build_peak_bytes=csr + 8 * (rows + 1),
         vector_bytes=dim * value_dtype.itemsize,
         available_bytes=available_memory(),
     )
