@@ -147,10 +147,13 @@ def test_labels_come_from_the_results_file_metadata(tmp_path: Path) -> None:
     figure = sweep_figure(path, y=["energy"])
     assert figure.axes[0].get_ylabel() == "ground energy $E_0$"
     assert figure.axes[0].get_xlabel() == "on-site interaction $U$"
+    assert "dim 35" in figure.get_suptitle() and "0 modes" not in figure.get_suptitle()
     with fm.ResultsStore.open(path) as store:
         store.set_meta("units", json.dumps({"energy": "meV", "U": "meV"}))
         store.set_meta("mode_labels", json.dumps(["a", "b", "c", "d"]))
+        store.set_meta("space", json.dumps({"cutoffs": [4] * 4, "total": 4, "dim": 35}))
     figure = sweep_figure(path, y=["energy"])
+    assert "4 modes, dim 35, N = 4 on 4 modes, filling 1" in figure.get_suptitle()
     assert figure.axes[0].get_ylabel() == "ground energy $E_0$ (meV)"
     assert figure.axes[0].get_xlabel() == "on-site interaction $U$ (meV)"
     out = plot_sweep(path, tmp_path / "ring.png", y=["energy", "populations"])

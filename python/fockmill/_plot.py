@@ -222,33 +222,43 @@ def _sites(labels: Sequence[str], modes: int) -> tuple[int, str]:
 
 
 def _title(model_name: str, space: Mapping[str, Any] | None, labels: Sequence[str]) -> str:
-    """``model_name`` over a line with modes, dimension, sector and filling."""
+    """``model_name`` over a line with modes, dimension, sector and filling (what is known)."""
     if not space:
         return model_name
-    modes = int(space.get("modes") or len(space.get("cutoffs", [])) or 0)
-    parts = [f"{modes} modes", f"dim {int(space['dim']):,}"] if "dim" in space else []
-    total, modulus = space.get("total"), space.get("modulus")
-    if total is None:
-        parts.append("all occupations up to the cutoffs")
-    elif modulus:
-        parts.append(f"sector N ≡ {total} (mod {modulus})")
-    else:
-        count, word = _sites(labels, modes)
-        parts.append(f"N = {total} on {count} {word}, filling {total / max(count, 1):g}")
+    modes = int(space.get("modes") or len(space.get("cutoffs") or []) or 0)
+    parts = [f"{modes} modes"] if modes else []
+    if "dim" in space:
+        parts.append(f"dim {int(space['dim']):,}")
+    if modes:
+        total, modulus = space.get("total"), space.get("modulus")
+        if total is None:
+            parts.append("all occupations up to the cutoffs")
+        elif modulus:
+            parts.append(f"sector N ≡ {total} (mod {modulus})")
+        else:
+            count, word = _sites(labels, modes)
+            parts.append(f"N = {total} on {count} {word}, filling {total / max(count, 1):g}")
     heading = ", ".join(parts)
+    if not heading:
+        return model_name
     return f"{model_name}\n{heading}" if model_name else heading
 
 
 def _group_equal(
     series: list[tuple[int, npt.NDArray[np.float64]]],
 ) -> list[list[tuple[int, npt.NDArray[np.float64]]]]:
-    """Group columns whose values coincide (to rounding) at every point."""
+    """Group columns whose values coincide at every point to 1e-6 of their scale.
+
+    Equal up to what a figure can show: symmetry-equivalent modes agree to the
+    eigensolver's accuracy, which may be far above rounding, and one drawn curve then
+    stands for all of them.
+    """
     groups: list[list[tuple[int, npt.NDArray[np.float64]]]] = []
     for j, values in series:
         for group in groups:
             reference = group[0][1]
             scale = max(1.0, float(np.nanmax(np.abs(reference))) if reference.size else 1.0)
-            if np.allclose(values, reference, rtol=0, atol=1e-9 * scale, equal_nan=True):
+            if np.allclose(values, reference, rtol=0, atol=1e-6 * scale, equal_nan=True):
                 group.append((j, values))
                 break
         else:
