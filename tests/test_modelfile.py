@@ -11,6 +11,7 @@ import hashlib
 import json
 import math
 import pickle
+import warnings
 from pathlib import Path
 from typing import Any
 
@@ -536,9 +537,12 @@ VOCABULARY = [
     "sweep", "values", "start", "stop", "num", "spacing", "geometric", "record",
     "quantities", "levels", "entropy_modes", "solver", "tol", "method", "threads",
     "J", "U", "mu", "wc", "we", "g", "omega", "kerr", "exchange", "drive", "schema",
+    "frequency_scale", "kerr_scale", "cross_kerr_scale", "exchange_scale",
+    "terms", "units", "energy", "value", "fixed", "per_mode", "modes", "weights",
+    "random", "add_adjoint", "distribution", "seed", "count(@)", "raise(0) lower(1)",
     *RECORDABLE,
 ]  # fmt: skip
-TABLES = ["model", "parameters", "drives", "sweep", "record", "solver"]
+TABLES = ["model", "terms", "parameters", "units", "drives", "sweep", "record", "solver"]
 KEYS = st.one_of(st.sampled_from(VOCABULARY), st.text(max_size=4))
 SCALARS = st.one_of(
     st.integers(-2, 8),
@@ -591,12 +595,18 @@ def check_invariants(spec: ModelFile) -> None:
 
 
 def parse_or_model_file_error(text: str) -> None:
-    try:
-        spec = parse(text)
-    except ModelFileError as error:
-        assert str(error).startswith("<test>: ")
-    else:
-        check_invariants(spec)
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        try:
+            spec = parse(text)
+        except ModelFileError as error:
+            assert str(error).startswith("<test>: ")
+        else:
+            check_invariants(spec)
+    # The only warning a file may cause: a deprecated parameter name, with its new name.
+    for warning in caught:
+        assert issubclass(warning.category, DeprecationWarning), warning
+        assert "is now called" in str(warning.message)
 
 
 @FUZZ

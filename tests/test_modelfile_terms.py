@@ -10,9 +10,12 @@ from __future__ import annotations
 
 import functools
 import itertools
+import json
+import math
 import re
 import warnings
 from pathlib import Path
+from typing import Any
 
 import fockmill as fm
 import numpy as np
@@ -21,6 +24,8 @@ from fockmill._expr import lowering as a
 from fockmill._expr import number as n
 from fockmill._expr import raising as ad
 from fockmill._userterms import TermSyntaxError, parse_term
+from hypothesis import given, settings
+from hypothesis import strategies as st
 from reference import full_basis, restrict, sector_occupations, single_mode_matrices
 
 EXAMPLES = Path(__file__).resolve().parents[1] / "examples" / "models"
@@ -329,3 +334,70 @@ def test_examples_cover_every_section_and_key() -> None:
         ("distribution", "seed", "low", "high", "mean", "std", "energy"),
     ):
         assert f"`{word}`" in docs, word
+
+
+TERM_TEXT = st.text(alphabet="raiselowcnt()@^0123 .-+*je", max_size=24) | st.sampled_from(
+    ["count(@)", "raise(0) lower(1)", "lower(site 1)^2", "(0.5+1j) raise(2)", "-"]
+)
+TERM_VALUES = st.recursive(
+    st.one_of(
+        TERM_TEXT,
+        st.integers(-2, 4),
+        st.floats(-3, 3) | st.sampled_from([math.nan, math.inf]),
+        st.booleans(),
+        st.sampled_from(["uniform", "normal", "site 0", "W", "J"]),
+    ),
+    lambda inner: (
+        st.lists(inner, max_size=4)
+        | st.dictionaries(
+            st.sampled_from(["distribution", "seed", "low", "high", "mean", "std", "x"]),
+            inner,
+            max_size=4,
+        )
+    ),
+    max_leaves=10,
+)
+TERM_TABLES = st.dictionaries(
+    st.sampled_from(
+        ["value", "fixed", "terms", "per_mode", "modes", "weights", "random", "add_adjoint"]
+    ),
+    TERM_VALUES,
+    max_size=5,
+)
+
+
+@settings(max_examples=300, deadline=None)
+@given(st.dictionaries(st.sampled_from(["x", "U", "W", "omega", "2y"]), TERM_TABLES, max_size=2))
+def test_fuzzed_terms_give_a_model_or_a_model_file_error(tables: dict[str, Any]) -> None:
+    # Anything goes in: the reader either builds a model or raises ModelFileError with
+    # a key path (project contract, no outside source); nothing else escapes.
+    text = CHAIN3 + "".join(
+        f"[terms.{json.dumps(name)}]\n"
+        + "".join(f"{key} = {toml_value(value)}\n" for key, value in table.items())
+        for name, table in tables.items()
+    )
+    try:
+        spec = fm.parse_model_text(text, source="fuzz.toml")
+    except fm.ModelFileError as error:
+        assert str(error).startswith("fuzz.toml: ")
+    else:
+        assert spec.model.hamiltonian().is_hermitian()
+
+
+def toml_value(value: Any) -> str:
+    """TOML text of a value (inline tables for dicts; nan/inf as TOML spells them)."""
+    if isinstance(value, bool):
+        return "true" if value else "false"
+    if isinstance(value, float):
+        if math.isnan(value):
+            return "nan"
+        if math.isinf(value):
+            return "inf" if value > 0 else "-inf"
+        return repr(value)
+    if isinstance(value, int):
+        return str(value)
+    if isinstance(value, str):
+        return json.dumps(value)
+    if isinstance(value, list):
+        return "[" + ", ".join(toml_value(v) for v in value) + "]"
+    return "{" + ", ".join(f"{json.dumps(k)} = {toml_value(v)}" for k, v in value.items()) + "}"

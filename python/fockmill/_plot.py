@@ -213,8 +213,9 @@ def _space_summary(space: FockSpace) -> dict[str, Any]:
 
 def _sites(labels: Sequence[str], modes: int) -> tuple[int, str]:
     """Number of sites and what to call them: modes sharing a trailing index form a site."""
-    indices = {m.group(2) for m in (_TRAILING_INDEX.match(x) for x in labels) if m}
-    if labels and len(indices) < modes and len(indices) * 2 <= modes:
+    matches = [_TRAILING_INDEX.match(x) for x in labels]
+    indices = {m.group(2) for m in matches if m}
+    if labels and all(matches) and 0 < len(indices) < modes and len(indices) * 2 <= modes:
         return len(indices), "sites"
     if labels and all(label.startswith("site ") for label in labels):
         return modes, "sites"
