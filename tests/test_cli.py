@@ -302,8 +302,10 @@ def test_demo_runs_bundled_model(tmp_path: Path, capsys: pytest.CaptureFixture[s
     with ResultsStore.open(out_dir / "ring_kerr_crossover.sqlite") as store:
         rows = store.rows()
     assert len(rows) == 25
-    # Limits (common practice, no source): the Mott-like side has Var n → 0 and a gap of
-    # order U; the superfluid-like side has the larger number fluctuations.
+    # Limits (Fisher, Weichman, Grinstein & Fisher, Phys. Rev. B 40, 546 (1989), for the
+    # Mott and superfluid sides of the Bose–Hubbard model; the finite-ring numbers are
+    # common practice, no source): the Mott-like side has Var n → 0 and a gap of order
+    # U; the superfluid-like side has the larger number fluctuations.
     variances = [row.observables["number_variance"][0] for row in rows]
     assert variances[0] > 0.5 > 0.05 > variances[-1]
     assert rows[-1].gap > 0.5 * rows[-1].parameters["U"]

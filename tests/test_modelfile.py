@@ -11,6 +11,7 @@ import hashlib
 import json
 import math
 import pickle
+import warnings
 from pathlib import Path
 from typing import Any
 
@@ -48,6 +49,8 @@ def parse(text: str) -> ModelFile:
 
 def test_every_example_is_covered() -> None:
     assert sorted(p.name for p in EXAMPLES.glob("*.toml")) == [
+        "disordered_plaquette.toml",
+        "driven_triangle.toml",
         "kerr_trimer.toml",
         "polariton_chain.toml",
         "ring_kerr_crossover.toml",
@@ -114,7 +117,7 @@ def test_kerr_trimer_example() -> None:
     )
     assert spec.model == expected
     assert spec.sweep is not None
-    np.testing.assert_allclose(spec.sweep.axes["exchange"], np.linspace(0.0, 3.0, 13))
+    np.testing.assert_allclose(spec.sweep.axes["exchange_scale"], np.linspace(0.0, 3.0, 13))
     assert spec.levels == 4
 
 
@@ -388,7 +391,12 @@ SCHEMA_ERRORS: list[tuple[str, str, str | None, str]] = [
         "sweep",
         "grid points",
     ),
-    ("sweep of zero piece", KERR + "[sweep.cross_kerr]\nvalues = [1]\n", "sweep.cross_kerr", "no"),
+    (
+        "sweep of zero piece",
+        KERR + "[sweep.cross_kerr_scale]\nvalues = [1]\n",
+        "sweep.cross_kerr_scale",
+        "no",
+    ),
     (
         "unknown quantity",
         BASE + '[record]\nquantities = ["energies"]\n',
@@ -541,9 +549,12 @@ VOCABULARY = [
     "sweep", "values", "start", "stop", "num", "spacing", "geometric", "record",
     "quantities", "levels", "entropy_modes", "solver", "tol", "method", "threads",
     "J", "U", "mu", "wc", "we", "g", "omega", "kerr", "exchange", "drive", "schema",
+    "frequency_scale", "kerr_scale", "cross_kerr_scale", "exchange_scale",
+    "terms", "units", "energy", "value", "fixed", "per_mode", "modes", "weights",
+    "random", "add_adjoint", "distribution", "seed", "count(@)", "raise(0) lower(1)",
     *RECORDABLE,
 ]  # fmt: skip
-TABLES = ["model", "parameters", "drives", "sweep", "record", "solver"]
+TABLES = ["model", "terms", "parameters", "units", "drives", "sweep", "record", "solver"]
 KEYS = st.one_of(st.sampled_from(VOCABULARY), st.text(max_size=4))
 SCALARS = st.one_of(
     st.integers(-2, 8),
@@ -596,12 +607,18 @@ def check_invariants(spec: ModelFile) -> None:
 
 
 def parse_or_model_file_error(text: str) -> None:
-    try:
-        spec = parse(text)
-    except ModelFileError as error:
-        assert str(error).startswith("<test>: ")
-    else:
-        check_invariants(spec)
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        try:
+            spec = parse(text)
+        except ModelFileError as error:
+            assert str(error).startswith("<test>: ")
+        else:
+            check_invariants(spec)
+    # The only warning a file may cause: a deprecated parameter name, with its new name.
+    for warning in caught:
+        assert issubclass(warning.category, DeprecationWarning), warning
+        assert "is now called" in str(warning.message)
 
 
 @FUZZ

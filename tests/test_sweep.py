@@ -11,7 +11,7 @@ import pytest
 from fockmill._model import Model
 from fockmill._sweep import SharedPattern, run_sweep, serpentine_order
 from fockmill.exceptions import NotHermitianError
-from reference import dense_matrix, full_basis, restrict, sector_occupations
+from reference import dense_matrix, full_basis, restrict, sector_matrix, sector_occupations
 
 
 def hubbard_ring(sites: int, particles: int, cutoff: int) -> Model:
@@ -31,8 +31,10 @@ def hubbard_ring(sites: int, particles: int, cutoff: int) -> Model:
 
 
 def dense_levels(model: Model, point: dict[str, float], count: int = 2) -> np.ndarray:
-    """External reference: numpy's dense eigvalsh of the matrix rebuilt from expressions."""
-    matrix = fm.build_matrix(model.hamiltonian(**point), model.space).toarray()
+    """External reference: numpy's dense eigvalsh of the matrix built by hand from the
+    expressions (tests/reference.sector_matrix, independent of the package's builder)."""
+    space = model.space
+    matrix = sector_matrix(model.hamiltonian(**point), space.cutoffs, space.total)
     return np.linalg.eigvalsh(matrix)[:count]
 
 

@@ -17,6 +17,7 @@ __all__ = [
     "NativeSpace",
     "__version__",
     "default_threads",
+    "density_correlations",
     "monomial_expectations",
     "occupation_distributions",
 ]
@@ -229,6 +230,11 @@ def occupation_distributions(
     space: NativeSpace, psi: _RealOrComplex1D, threads: int | NativePool | None = None
 ) -> npt.NDArray[np.float64]:
     """``Σ |ψ|²`` per mode and occupation, concatenated over modes."""
+
+def density_correlations(
+    space: NativeSpace, psi: _RealOrComplex1D, threads: int | NativePool | None = None
+) -> npt.NDArray[np.float64]:
+    """``Σ |ψ_s|² n_i(s) n_j(s)``, flat row-major ``(modes, modes)``, not normalised."""
 
 def default_threads() -> int:
     """Threads of rayon's global pool."""

@@ -2,6 +2,7 @@
 //! arguments to owned Rust values, releases the interpreter around the core call, and
 //! hands results to NumPy without copying. No algorithms live here.
 
+mod correlations;
 mod errors;
 mod interrupt;
 mod levels;
@@ -707,6 +708,7 @@ fn _native(m: &Bound<'_, PyModule>) -> PyResult<()> {
     m.add_function(wrap_pyfunction!(occupation_distributions, m)?)?;
     m.add_function(wrap_pyfunction!(default_threads, m)?)?;
     levels::register(m)?;
+    m.add_function(wrap_pyfunction!(correlations::density_correlations, m)?)?;
     Ok(())
 }
 

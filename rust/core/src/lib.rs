@@ -14,6 +14,7 @@
 
 pub mod bipartite;
 pub mod build;
+pub mod correlations;
 pub mod error;
 pub mod estimate;
 pub mod kernel;
