@@ -77,7 +77,7 @@ fn detached<T: Send>(
     let runner = runner.as_ref();
     let (result, raised) = py.detach(|| {
         let check = SignalCheck::new();
-        let result = work(&runner, &check);
+        let result = work(runner, &check);
         (result, check.take())
     });
     match result {

@@ -95,6 +95,9 @@ pub fn assemble_row<S: Scalar>(
     scratch.retain(|e| e.1 != S::ZERO);
 }
 
+/// Receives each row's merged entries: `(row, [(column, value), ...])`.
+pub type RowVisitor<'a, S> = dyn FnMut(u64, &[(u64, S)]) + 'a;
+
 /// A prepared operator that lists the merged entries of consecutive rows.
 pub trait RowEntries<S: Scalar>: Sync {
     /// Call `visit(row, entries)` for rows `first..first + count` in order, with each
@@ -103,47 +106,23 @@ pub trait RowEntries<S: Scalar>: Sync {
     ///
     /// # Errors
     /// [`CoreError::InvalidArgument`] when the rows are out of range.
-    fn rows(
-        &self,
-        space: &FockSpace,
-        first: u64,
-        count: usize,
-        visit: &mut dyn FnMut(u64, &[(u64, S)]),
-    ) -> CoreResult<()>;
+    fn rows(&self, space: &FockSpace, first: u64, count: usize, visit: &mut RowVisitor<S>) -> CoreResult<()>;
 }
 
 impl<S: Scalar> RowEntries<S> for ProductKernel<S> {
-    fn rows(
-        &self,
-        space: &FockSpace,
-        first: u64,
-        count: usize,
-        visit: &mut dyn FnMut(u64, &[(u64, S)]),
-    ) -> CoreResult<()> {
+    fn rows(&self, space: &FockSpace, first: u64, count: usize, visit: &mut RowVisitor<S>) -> CoreResult<()> {
         self.for_each_row(space, first, count, visit)
     }
 }
 
 impl<S: Scalar> RowEntries<S> for Bipartite<S> {
-    fn rows(
-        &self,
-        _: &FockSpace,
-        first: u64,
-        count: usize,
-        visit: &mut dyn FnMut(u64, &[(u64, S)]),
-    ) -> CoreResult<()> {
+    fn rows(&self, _: &FockSpace, first: u64, count: usize, visit: &mut RowVisitor<S>) -> CoreResult<()> {
         self.for_each_row(first, count, visit)
     }
 }
 
 impl<S: Scalar> RowEntries<S> for Product<S> {
-    fn rows(
-        &self,
-        space: &FockSpace,
-        first: u64,
-        count: usize,
-        visit: &mut dyn FnMut(u64, &[(u64, S)]),
-    ) -> CoreResult<()> {
+    fn rows(&self, space: &FockSpace, first: u64, count: usize, visit: &mut RowVisitor<S>) -> CoreResult<()> {
         match self {
             Product::Split(b) => b.for_each_row(first, count, visit),
             Product::Rows(k) => k.for_each_row(space, first, count, visit),
