@@ -12,6 +12,7 @@ import numpy as np
 import numpy.typing as npt
 
 __all__ = [
+    "NativeCsr",
     "NativeOperator",
     "NativePool",
     "NativeSpace",
@@ -143,9 +144,7 @@ class NativeOperator:
         threads: int | NativePool | None = None,
         stored: bool = False,
         basis: int = 0,
-    ) -> tuple[
-        npt.NDArray[np.float64], _RealOrComplex2D, npt.NDArray[np.float64], int, int, bool
-    ]:
+    ) -> tuple[npt.NDArray[np.float64], _RealOrComplex2D, npt.NDArray[np.float64], int, int, bool]:
         """Lowest ``k`` levels by thick-restart Lanczos (Wu & Simon 2000) in Rust:
         ``(energies, vectors, residuals, products, restarts, converged)``.
 
@@ -203,9 +202,7 @@ class NativeCsr:
         start: _RealOrComplex1D | _RealOrComplex2D | None = None,
         threads: int | NativePool | None = None,
         basis: int = 0,
-    ) -> tuple[
-        npt.NDArray[np.float64], _RealOrComplex2D, npt.NDArray[np.float64], int, int, bool
-    ]:
+    ) -> tuple[npt.NDArray[np.float64], _RealOrComplex2D, npt.NDArray[np.float64], int, int, bool]:
         """As :meth:`NativeOperator.lanczos_levels`, on this matrix."""
 
 def monomial_expectations(
