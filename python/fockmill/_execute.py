@@ -79,7 +79,7 @@ def _refuse_nested_start() -> None:
 
 
 def _resolve_executor(
-    executor: cf.Executor | str | Any | None, workers: int | None
+    executor: cf.Executor | str | Any | None, workers: int | None, points: int
 ) -> tuple[cf.Executor | None, bool, int]:
     """(executor or None for in-process, whether we own it, parallel slots)."""
     if workers is not None:
@@ -91,7 +91,8 @@ def _resolve_executor(
             )
         return None, False, 1
     if executor is None:
-        slots = workers if workers is not None else (os.cpu_count() or 1)
+        # No more processes than points: a single point never starts a pool.
+        slots = workers if workers is not None else min(points, os.cpu_count() or 1)
         if slots == 1:
             return None, False, 1
         _refuse_nested_start()
@@ -142,7 +143,7 @@ def execute(
     """Solve the points ``order`` (already in path order), handing each row to ``finish``."""
     if chunk is not None:
         chunk = check_positive_int("chunk", chunk)
-    pool, owned, slots = _resolve_executor(executor, workers)
+    pool, owned, slots = _resolve_executor(executor, workers, len(order))
     if pool is None:
         prepared = PreparedModel.build(recipe, settings, points=len(order), first=full[order[0]])
         for row in solve_path(prepared, ((i, full[i]) for i in order), settings):

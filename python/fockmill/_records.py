@@ -45,7 +45,8 @@ __all__ = ["ModelRecipe", "PreparedModel", "solve_path"]
 #: Weight of a fresh random vector added to a warm start (see :func:`start_vector`).
 WARM_MIX = 1e-2
 
-#: Methods that solve on a stored matrix, which the shared pattern can provide.
+#: Methods that solve on a stored matrix, which the shared pattern can provide
+#: (``"lanczos"`` too when the matrix fits in memory: the Rust solvers take it).
 STORED_MATRIX_METHODS = ("dense", "csr")
 
 #: Errors that are bugs or broken installs, not a property of the point: never recorded.
@@ -87,10 +88,11 @@ class ModelRecipe:
 class PreparedModel:
     """A model ready to solve at any point.
 
-    ``shared`` holds the pieces on one sparsity pattern when points are solved on a
-    stored matrix (methods ``"dense"`` and ``"csr"``, several points); None when each
-    point's Hamiltonian is prepared from its expression (the Lanczos solver and the
-    matrix-free methods, which compile the point's terms: cheap next to a solve). One
+    ``shared`` holds the pieces on one sparsity pattern when several points are solved
+    on a stored matrix (methods ``"dense"`` and ``"csr"``, and ``"lanczos"`` when the
+    matrix fits, whose Rust solvers take the assembled matrix); None when each point's
+    Hamiltonian is prepared from its expression (matrix-free methods: compiling a
+    point's terms takes well under a millisecond, next to hundreds of products). One
     thread pool and one memory estimate serve every point.
     """
 
@@ -144,7 +146,12 @@ class PreparedModel:
         if method == "auto":
             method = str(probe.choose_method(settings.levels))
         shared = None
-        if points >= 2 and method in STORED_MATRIX_METHODS:
+        stores = method in STORED_MATRIX_METHODS
+        if method == "lanczos":
+            from fockmill._solve import _store_matrix
+
+            stores = _store_matrix(probe, None, settings.levels)
+        if points >= 2 and stores:
             shared = SharedPattern.from_pieces(
                 recipe.space,
                 pieces,
