@@ -172,3 +172,5 @@ def test_scale_factors_and_user_parameters_say_what_they_are() -> None:
     )
     assert axis_label("W", {"W": "J"}, "bose-hubbard") == "parameter $W/J$"
     assert axis_label("pair_split", {"pair_split": "MHz"}) == "parameter pair_split (MHz)"
+    described = axis_label("W", {"W": "J"}, "bose-hubbard", {"W": "disorder strength"})
+    assert described == "disorder strength $W/J$"
