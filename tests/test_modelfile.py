@@ -83,9 +83,15 @@ def test_ring_kerr_crossover_example() -> None:
     assert spec.model.space.dim == 462
     assert spec.sweep is not None and list(spec.sweep.axes) == ["U"]
     np.testing.assert_allclose(spec.sweep.axes["U"], np.geomspace(0.5, 20.0, 25))
-    assert spec.record == ("energy", "gap", "number_variance")
+    assert spec.quantities == ("energy", "gap", "number_variance")
     assert spec.levels == 2
-    assert spec.solver == {"tol": 1e-9, "method": "auto", "threads": None}
+    assert spec.solver == {
+        "method": "auto",
+        "tol": 1e-9,
+        "seed": 0,
+        "max_iterations": None,
+        "threads": None,
+    }
     assert spec.entropy_modes == ()
 
 
@@ -94,7 +100,7 @@ def test_polariton_chain_example() -> None:
     expected = jaynes_cummings_hubbard(4, cavity_cutoff=4, total=4, coupling=0.02, hopping=0.001)
     assert spec.model == expected
     assert spec.sweep is not None and spec.sweep.shape == (8,)
-    assert spec.record == ("energy", "gap", "populations", "entropy")
+    assert spec.quantities == ("energy", "gap", "populations", "entropy")
     assert spec.entropy_modes == (0, 1)
     assert spec.solver["tol"] == 1e-10
 
@@ -146,9 +152,15 @@ BASE = '[model]\nkind = "bose-hubbard"\nlattice = "chain"\nsites = 3\ntotal = 2\
 def test_defaults_without_optional_tables() -> None:
     spec = parse(BASE)
     assert spec.sweep is None
-    assert spec.record == ("energy",)
+    assert spec.quantities == ("energy",)
     assert spec.levels == 1
-    assert spec.solver == {"tol": 1e-9, "method": "auto", "threads": None}
+    assert spec.solver == {
+        "method": "auto",
+        "tol": 1e-9,
+        "seed": 0,
+        "max_iterations": None,
+        "threads": None,
+    }
     assert spec.model == bose_hubbard([(0, 1), (1, 2)], total=2)
 
 
@@ -585,9 +597,9 @@ VALID_DOCUMENTS: list[dict[str, Any]] = [
 
 
 def check_invariants(spec: ModelFile) -> None:
-    assert set(spec.record) <= set(RECORDABLE)
+    assert set(spec.quantities) <= set(RECORDABLE)
     assert 1 <= spec.levels <= spec.model.space.dim
-    if "gap" in spec.record:
+    if "gap" in spec.quantities:
         assert spec.levels >= 2
     assert all(0 <= m < spec.model.space.modes for m in spec.entropy_modes)
     if spec.sweep is not None:

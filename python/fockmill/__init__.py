@@ -66,8 +66,8 @@ from fockmill._problem import Problem, prepare
 from fockmill._solve import GroundState, Levels, choose_method, ground_state, lowest_levels
 from fockmill._space import FockSpace
 from fockmill._statefile import SavedState, StateFileError, load_state, save_state
-from fockmill._store import ResultsStore, StoreError
-from fockmill._sweep import PointResult, SweepTable, run_sweep
+from fockmill._store import PointResult, ResultsStore, StoreError, SweepTable
+from fockmill._sweep import run_sweep
 from fockmill._truncation import CutoffScan, converge_cutoffs
 from fockmill.exceptions import CutoffWarning
 

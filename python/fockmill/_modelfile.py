@@ -54,8 +54,10 @@ Schema (every table but ``[model]`` is optional; unknown keys are errors)
     ``entropy_modes`` (the subsystem for ``entropy``; default the first half of the
     modes).
 ``[solver]``
-    ``tol`` (default 1e-9), ``method`` (``"auto"``, ``"dense"``, ``"csr"``,
-    ``"operator"``, ``"lanczos"``), ``threads``.
+    The keywords of :func:`fockmill.ground_state`, same names, defaults and meanings:
+    ``method`` (``"auto"``, ``"dense"``, ``"csr"``, ``"operator"``, ``"lanczos"``;
+    default ``"auto"``), ``tol`` (default 1e-9), ``seed`` (default 0),
+    ``max_iterations`` (matrix-vector products; default: the solver's own), ``threads``.
 """
 
 from __future__ import annotations
@@ -77,9 +79,11 @@ from typing import Any, NoReturn
 import numpy as np
 import numpy.typing as npt
 
+from fockmill._args import MAX_SEED, MAX_THREADS, METHODS
 from fockmill._expr import LadderExpr
 from fockmill._model import Model
 from fockmill._userterms import TermSyntaxError, parse_term
+from fockmill.exceptions import ModelFileError
 from fockmill.models import (
     bose_hubbard,
     chain_edges,
@@ -116,45 +120,19 @@ RECORDABLE: tuple[str, ...] = (
 )
 """Values allowed in ``record.quantities``."""
 
-SOLVER_METHODS: tuple[str, ...] = ("auto", "dense", "csr", "operator", "lanczos")
-"""Values of ``solver.method``."""
+SOLVER_METHODS: tuple[str, ...] = METHODS
+"""Values of ``solver.method`` (the solvers' own methods)."""
 
 SCHEMA_VERSION = 1
 MAX_MODES = 4096
 MAX_CUTOFF = 65535
 MAX_TOTAL = 2**31 - 1
 MAX_POINTS = 1_000_000
-MAX_THREADS = 4096
 
 _LATTICES = ("chain", "ring", "rectangle", "edges")
 _SPACINGS = ("linear", "geometric")
 _DEFAULT_LEVELS = {"gap": 2, "levels": 4}
 _BARE_KEY = re.compile(r"^[A-Za-z0-9_-]+$")
-
-
-class ModelFileError(ValueError):
-    """A model file is not valid TOML or does not follow the schema.
-
-    Attributes
-    ----------
-    source : str
-        The file path (or ``"<string>"`` for text).
-    key : str or None
-        Dotted key path of the offending entry (``"sweep.U.num"``), None for the
-        whole file.
-    problem : str
-        What was expected and what was found.
-    """
-
-    def __init__(self, source: str, key: str | None, problem: str) -> None:
-        self.source = source
-        self.key = key
-        self.problem = problem
-        where = f"{source}: {key}: " if key else f"{source}: "
-        super().__init__(where + problem)
-
-    def __reduce__(self) -> tuple[type[ModelFileError], tuple[str, str | None, str]]:
-        return (type(self), (self.source, self.key, self.problem))
 
 
 @dataclass(frozen=True)
@@ -241,12 +219,13 @@ class ModelFile:
         The model with the file's parameter defaults (and drives, if any).
     sweep : SweepGrid or None
         The parameter grid, None for a single point at the defaults.
-    record : tuple of str
-        Quantities to record per point (see ``RECORDABLE``).
+    quantities : tuple of str
+        Quantities to record per point (``record.quantities``, see ``RECORDABLE``).
     levels : int
         How many lowest levels to compute (>= 2 when ``"gap"`` is recorded).
     solver : dict
-        ``{"tol": float, "method": str, "threads": int | None}``.
+        The keywords of ``ground_state``/``run_sweep``: ``{"method": str, "tol": float,
+        "seed": int, "max_iterations": int | None, "threads": int | None}``.
     entropy_modes : tuple of int
         Subsystem modes for ``"entropy"`` (empty when it is not recorded).
     text_hash : str
@@ -264,7 +243,7 @@ class ModelFile:
     path: str | None
     model: Model
     sweep: SweepGrid | None
-    record: tuple[str, ...]
+    quantities: tuple[str, ...]
     levels: int
     solver: dict[str, object]
     entropy_modes: tuple[int, ...]
@@ -275,6 +254,18 @@ class ModelFile:
 
     def __hash__(self) -> int:
         return hash(self.text_hash)
+
+    @property
+    def record(self) -> tuple[str, ...]:
+        """Deprecated name of :attr:`quantities`."""
+        import warnings
+
+        warnings.warn(
+            "ModelFile.record is deprecated; use ModelFile.quantities",
+            DeprecationWarning,
+            stacklevel=2,
+        )
+        return self.quantities
 
 
 # -- reading values with key paths --------------------------------------------------------
@@ -775,8 +766,14 @@ def _record(
 
 def _solver(reader: _Reader, value: object) -> dict[str, object]:
     table = reader.table(value, "solver")
-    reader.check_keys(table, "solver", ["tol", "method", "threads"])
-    settings: dict[str, object] = {"tol": 1e-9, "method": "auto", "threads": None}
+    reader.check_keys(table, "solver", ["method", "tol", "seed", "max_iterations", "threads"])
+    settings: dict[str, object] = {
+        "method": "auto",
+        "tol": 1e-9,
+        "seed": 0,
+        "max_iterations": None,
+        "threads": None,
+    }
     if "tol" in table:
         tol = reader.number(table["tol"], "solver.tol")
         if not 0 < tol < 1:
@@ -786,6 +783,12 @@ def _solver(reader: _Reader, value: object) -> dict[str, object]:
         settings["method"] = reader.choice(table["method"], "solver.method", SOLVER_METHODS)
     if "threads" in table:
         settings["threads"] = reader.integer(table["threads"], "solver.threads", 1, MAX_THREADS)
+    if "seed" in table:
+        settings["seed"] = reader.integer(table["seed"], "solver.seed", 0, MAX_SEED - 1)
+    if "max_iterations" in table:
+        settings["max_iterations"] = reader.integer(
+            table["max_iterations"], "solver.max_iterations", 1, 2**62
+        )
     return settings
 
 
@@ -1043,13 +1046,13 @@ def _parse(text: str, source: str, path: str | None) -> ModelFile:
         model = _parameters(reader, document["parameters"], model)
     units = _units(reader, document["units"], model) if "units" in document else {}
     sweep = _sweep(reader, document["sweep"], model) if "sweep" in document else None
-    record, levels, entropy_modes = _record(reader, document.get("record", {}), model)
+    quantities, levels, entropy_modes = _record(reader, document.get("record", {}), model)
     solver = _solver(reader, document.get("solver", {}))
     return ModelFile(
         path=path,
         model=model,
         sweep=sweep,
-        record=record,
+        quantities=quantities,
         levels=levels,
         solver=solver,
         entropy_modes=entropy_modes,

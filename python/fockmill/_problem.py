@@ -80,6 +80,43 @@ class Problem:
         self.shape: tuple[int, int] = (int(self.target.dim), int(self.space.dim))
         self.dtype = np.dtype(np.float64 if self.native.is_real else np.complex128)
         self.products = 0
+        self._ready_matrix: sp.csr_array | None = None
+
+    @classmethod
+    def _from_parts(
+        cls,
+        expr: Any,
+        space: Any,
+        *,
+        matrix: sp.csr_array | None = None,
+        pool: Any = None,
+        threads: int | None = None,
+        estimate: MemoryEstimate | None = None,
+    ) -> Problem:
+        """Internal hook (sweeps): a problem built around parts made elsewhere.
+
+        ``matrix``: its CSR matrix, ready-made (a sweep assembles it from the model's
+        shared sparsity pattern); :meth:`matrix` returns it instead of building, so
+        the dense and eigsh methods solve on it. ``pool``: a ``NativePool`` kept by the
+        caller (with ``threads`` its size). ``estimate``: a memory estimate made once
+        for many points. The expression is still validated and compiled (matrix-free
+        methods and the Lanczos solver use it).
+        """
+        problem = cls(expr, space)  # threads=None: rayon's global pool, no new threads
+        problem.threads = check_threads(threads)
+        if pool is not None:
+            problem.pool = pool
+        elif problem.threads is not None:
+            problem.pool = _native.NativePool(problem.threads)
+        if matrix is not None:
+            if matrix.shape != problem.shape:
+                raise ValueError(
+                    f"the matrix has shape {matrix.shape}, the problem {problem.shape}"
+                )
+            problem._ready_matrix = matrix
+        if estimate is not None:
+            problem.__dict__["estimate"] = estimate  # the cached_property's slot
+        return problem
 
     def with_options(
         self, *, threads: int | None = None, memory_limit: int | None = None
@@ -188,6 +225,9 @@ class Problem:
         :func:`fockmill.build_matrix`)."""
         if index_dtype not in (None, np.int32, np.int64):
             raise TypeError("index_dtype must be numpy.int32, numpy.int64 or None")
+        ready = self._ready_matrix
+        if ready is not None and index_dtype in (None, ready.indices.dtype.type):
+            return ready
         self.check_build_fits()
         indptr, indices, data = self.native.build_csr(self.pool, index_dtype is np.int64)
         if index_dtype is np.int32 and indices.dtype != np.int32:

@@ -12,6 +12,7 @@ import numpy.typing as npt
 import scipy.sparse.linalg as sla
 from scipy.sparse.linalg import LinearOperator
 
+from fockmill._args import METHODS, check_max_iterations, check_method, check_seed, check_tol
 from fockmill._expr import LadderExpr
 from fockmill._memory import MemoryEstimate, format_bytes
 from fockmill._observe import check_vector, top_level_weights
@@ -35,7 +36,7 @@ __all__ = [
 ]
 
 Method = Literal["auto", "dense", "csr", "operator", "lanczos"]
-_METHODS = ("auto", "dense", "csr", "operator", "lanczos")
+_METHODS = METHODS
 #: Spaces up to this dimension are diagonalised densely.
 DENSE_MAX_DIM = 1500
 #: Fraction of the available memory a solve may plan to use.
@@ -193,7 +194,7 @@ def _check_fits(estimate: MemoryEstimate, method: str, k: int, memory_limit: int
         "dense": estimate.dim * estimate.dim * estimate.value_dtype.itemsize * 3,
         "csr": estimate.krylov_bytes(_krylov_vectors(k)),
         "operator": estimate.krylov_bytes(_krylov_vectors(k)),
-        "lanczos": estimate.krylov_bytes(5),
+        "lanczos": estimate.krylov_bytes(_lanczos_vectors(k)),
     }[method]
     if vectors > limit:
         raise SizeLimitError(
@@ -393,23 +394,11 @@ def _validate(
     seed: object = 0,
     max_iterations: object = None,
 ) -> None:
-    if method not in _METHODS:
-        raise ValueError(f"method must be one of {_METHODS}; got {method!r}")
-    if isinstance(tol, bool) or not (isinstance(tol, float | int) and np.isfinite(tol) and tol > 0):
-        raise ValueError(f"tol must be a positive finite number such as 1e-9; got {tol!r}")
-    if isinstance(seed, bool) or not isinstance(seed, int | np.integer):
-        raise TypeError(f"seed must be a non-negative integer; got {seed!r}")
-    if seed < 0 or seed >= 2**63:
-        raise ValueError(f"seed must be a non-negative integer below 2**63; got {seed}")
-    if max_iterations is not None and (
-        isinstance(max_iterations, bool)
-        or not isinstance(max_iterations, int | np.integer)
-        or max_iterations < 1
-    ):
-        raise ValueError(
-            f"max_iterations must be a positive integer (matrix-vector products) or None; "
-            f"got {max_iterations!r}"
-        )
+    # One set of checks and messages for solvers, sweeps and model files (_args).
+    check_method(method)
+    check_tol(tol)
+    check_seed(seed)
+    check_max_iterations(max_iterations)
     if v0 is not None:
         check_vector(problem.space, v0, "v0")
     if isinstance(k, bool) or not isinstance(k, int | np.integer):
@@ -432,13 +421,13 @@ def _pick(problem: Problem, k: int, method: str) -> str:
     return method
 
 
-def _store_matrix(problem: Problem, store_matrix: bool | None) -> bool:
+def _store_matrix(problem: Problem, store_matrix: bool | None, k: int = 1) -> bool:
     if store_matrix is not None:
         return bool(store_matrix)
     estimate = problem.estimate
     limit = problem.memory_limit if problem.memory_limit is not None else estimate.available_bytes
     budget = float("inf") if limit is None else MEMORY_BUDGET * limit
-    return estimate.build_peak_bytes + estimate.krylov_bytes(5) <= budget
+    return estimate.build_peak_bytes + estimate.krylov_bytes(_lanczos_vectors(k)) <= budget
 
 
 def _native_ground(
@@ -467,6 +456,48 @@ def _native_ground(
             f"short of tol={tol}; raise max_iterations or tol, or pass v0"
         )
     return float(energy), vector, float(residual), int(steps), int(products)
+
+
+def _lanczos_vectors(k: int) -> int:
+    """Vectors the Rust Lanczos solvers keep: four for one level; the thick-restart
+    basis (``2k + 8``) plus one for several."""
+    return 5 if k == 1 else 2 * k + 9
+
+
+def _native_levels(
+    problem: Problem,
+    k: int,
+    tol: float,
+    v0: npt.ArrayLike | None,
+    seed: int,
+    max_iterations: int | None,
+    store_matrix: bool | None,
+) -> tuple[npt.NDArray[np.float64], npt.NDArray[Any], npt.NDArray[np.float64], int]:
+    """Thick-restart Lanczos in Rust for ``k >= 2`` levels (every degenerate copy that
+    fits in ``k``): (energies, vectors, residuals, products)."""
+    if not hasattr(problem.native, "lanczos_levels"):
+        raise ValueError(
+            "method='lanczos' for several levels is not available for this space type; "
+            "use method='csr' or 'operator'"
+        )
+    start = None if v0 is None else check_vector(problem.space, v0, "v0")
+    if start is not None and problem.is_real and start.dtype.kind == "c":
+        start = np.ascontiguousarray(start.real) if np.any(start.real) else None
+    stored = _store_matrix(problem, store_matrix, k)
+    if stored:
+        problem.check_build_fits()
+    max_products = 20_000 if max_iterations is None else int(max_iterations)
+    energies, vectors, residuals, products, _, converged = problem.native.lanczos_levels(
+        k, tol, max_products, seed, start, problem.pool, stored
+    )
+    if not converged:
+        worst = int(np.argmax(residuals / np.maximum(1.0, np.abs(energies))))
+        raise ConvergenceError(
+            f"Lanczos (k={k}) reached a residual of {float(residuals[worst]):.3e} on level "
+            f"{worst} after {products} products, short of tol={tol}; raise max_iterations "
+            "or tol, or pass v0"
+        )
+    return np.asarray(energies, dtype=np.float64), vectors, np.asarray(residuals), int(products)
 
 
 def _require_converged(
@@ -499,22 +530,25 @@ def solve_levels(
     _validate(k, method, tol, problem, v0, seed, max_iterations)
     chosen = _pick(problem, k, method)
     if chosen == "lanczos":
-        if k != 1:
-            raise ValueError(
-                "method='lanczos' computes only the ground state; use method='operator' "
-                "for several levels"
+        if k == 1:
+            energy, vector, residual, _, products = _native_ground(
+                problem, tol, v0, seed, max_iterations, store_matrix
             )
-        energy, vector, residual, _, products = _native_ground(
-            problem, tol, v0, seed, max_iterations, store_matrix
-        )
+            energies = np.array([energy])
+            vectors = vector[:, np.newaxis]
+            residuals = np.array([residual])
+        else:
+            energies, vectors, residuals, products = _native_levels(
+                problem, k, tol, v0, seed, max_iterations, store_matrix
+            )
         return Levels(
-            np.array([energy]),
-            vector[:, np.newaxis],
-            np.array([residual]),
-            "lanczos",
-            products,
-            time.perf_counter() - t0,
-            (1,),
+            energies=energies,
+            vectors=vectors,
+            residuals=residuals,
+            method="lanczos",
+            products=products,
+            seconds=time.perf_counter() - t0,
+            degeneracies=_degeneracy_groups(energies, max(1e3 * tol, 1e-9)),
         )
     energies, vectors, residuals, target = _eigsh_levels(
         problem, k, chosen, tol, v0, max_iterations, seed
@@ -560,7 +594,10 @@ def lowest_levels(
         Number of levels (1 <= k <= dim).
     method : {"auto", "dense", "csr", "operator", "lanczos"}
         ``"auto"`` chooses from the size and the free memory (see
-        :func:`choose_method`); ``"lanczos"`` only computes one level.
+        :func:`choose_method`). ``"lanczos"`` runs in Rust: for one level a four-vector
+        Lanczos, for several a thick-restart Lanczos (Wu & Simon 2000) keeping
+        ``2k + 9`` vectors that returns every copy of a degenerate level that fits in
+        ``k``; both on a CSR matrix kept in Rust when it fits (``store_matrix``).
     tol : float
         Target relative accuracy; eigsh's ``tol``.
     v0 : array_like, optional
@@ -579,7 +616,8 @@ def lowest_levels(
         Bytes the solve may plan to use (default: available memory).
     store_matrix : bool or None
         For ``method="lanczos"``: run on a CSR matrix kept inside Rust instead of the
-        matrix-free product; None decides from the memory.
+        matrix-free product; None stores it when the matrix and the solver's vectors
+        fit in the memory budget.
 
     Returns
     -------

@@ -17,7 +17,7 @@ pub(crate) fn density_correlations<'py>(
 ) -> PyResult<Bound<'py, PyArray1<f64>>> {
     guarded(|| {
         let sp = &space.inner;
-        let values = match psi.to_owned_vec() {
+        let values = match psi.to_owned_vec()? {
             OwnedVector::Real(v) => detached(py, threads, |r, s| {
                 correlations::density_correlations(sp, &v, r, s)
             })?,
