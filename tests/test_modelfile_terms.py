@@ -227,7 +227,7 @@ quantities = ["energy", "gap"]
     spec = fm.parse_model_text(text)
     assert spec.sweep is not None
     table = fm.run_sweep(
-        spec.model, spec.sweep.points(), record=["energy", "gap"], progress=False, workers=1
+        spec.model, spec.sweep.points(), quantities=["energy", "gap"], progress=False, workers=1
     )
     for row in table:
         delta = row.parameters["delta"]

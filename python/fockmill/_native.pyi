@@ -153,9 +153,7 @@ class NativeOperator:
         threads: int | NativePool | None = None,
         stored: bool = False,
         basis: int = 0,
-    ) -> tuple[
-        npt.NDArray[np.float64], _RealOrComplex2D, npt.NDArray[np.float64], int, int, bool
-    ]:
+    ) -> tuple[npt.NDArray[np.float64], _RealOrComplex2D, npt.NDArray[np.float64], int, int, bool]:
         """Lowest ``k`` levels by thick-restart Lanczos (Wu & Simon 2000) in Rust:
         ``(energies, vectors, residuals, products, restarts, converged)``.
 
@@ -213,9 +211,7 @@ class NativeCsr:
         start: _RealOrComplex1D | _RealOrComplex2D | None = None,
         threads: int | NativePool | None = None,
         basis: int = 0,
-    ) -> tuple[
-        npt.NDArray[np.float64], _RealOrComplex2D, npt.NDArray[np.float64], int, int, bool
-    ]:
+    ) -> tuple[npt.NDArray[np.float64], _RealOrComplex2D, npt.NDArray[np.float64], int, int, bool]:
         """As :meth:`NativeOperator.lanczos_levels`, on this matrix."""
 
 def monomial_expectations(

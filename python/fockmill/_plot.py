@@ -164,8 +164,8 @@ def _describe_modes(indices: Sequence[int], labels: Sequence[str]) -> str:
     return ", ".join(names)
 
 
-def _meta_json(meta: Mapping[str, str], key: str) -> Any:
-    """A JSON value stored in the results metadata, or None when absent or unreadable."""
+def _meta_json(meta: Mapping[str, Any], key: str) -> Any:
+    """A metadata value (plain JSON, or JSON text in older files), None when unreadable."""
     text = meta.get(key)
     if text is None:
         return None
@@ -177,7 +177,7 @@ def _meta_json(meta: Mapping[str, str], key: str) -> Any:
         return None
 
 
-def _context_from_meta(meta: Mapping[str, str]) -> dict[str, Any]:
+def _context_from_meta(meta: Mapping[str, Any]) -> dict[str, Any]:
     """What the results file says about the model (each entry may be missing)."""
     out: dict[str, Any] = {"model_name": meta.get("model_name", "")}
     labels = _meta_json(meta, "mode_labels")
@@ -207,7 +207,15 @@ def _as_table(
     source: SweepTable | ResultsStore | str | os.PathLike[str],
 ) -> tuple[SweepTable, dict[str, Any]]:
     if isinstance(source, SweepTable):
-        return source, {}
+        # A table carries the mode labels and units of its sweep (when it kept them).
+        context: dict[str, Any] = {}
+        labels = list(getattr(source, "mode_labels", ()) or ())
+        if labels:
+            context["mode_labels"] = [str(label) for label in labels]
+        units = dict(getattr(source, "units", {}) or {})
+        if units:
+            context["units"] = {str(k): str(v) for k, v in units.items()}
+        return source, context
     if isinstance(source, ResultsStore):
         return source.to_table(), _context_from_meta(source.meta)
     with ResultsStore.open(source) as store:
