@@ -261,31 +261,30 @@ struct NativeOperator {
     complex_product: OnceLock<Product<Complex64>>,
 }
 
-/// The kernel kept in `cell`, built on first use.
+/// The kernel kept in `cell`, built on first use (interruptible: large sectors take
+/// seconds to prepare).
 fn product_in<'a, S: Scalar>(
     cell: &'a OnceLock<Product<S>>,
     space: &FockSpace,
     op: &Operator<S>,
     cut: Option<usize>,
+    stop: &dyn Interrupt,
 ) -> CoreResult<&'a Product<S>> {
     if let Some(p) = cell.get() {
         return Ok(p);
     }
-    let built = match cut {
-        None => Product::new(space, op),
-        Some(c) => Product::with_cut(space, op, c)?,
-    };
+    let built = Product::prepare(space, op, cut, stop)?;
     // Another thread may have won the race; either kernel is the same.
     let _ = cell.set(built);
     Ok(cell.get().expect("set above"))
 }
 
 impl NativeOperator {
-    fn real_product(&self, op: &Operator<f64>) -> CoreResult<&Product<f64>> {
-        product_in(&self.real_product, &self.space, op, self.cut)
+    fn real_product(&self, op: &Operator<f64>, stop: &dyn Interrupt) -> CoreResult<&Product<f64>> {
+        product_in(&self.real_product, &self.space, op, self.cut, stop)
     }
-    fn complex_product(&self) -> CoreResult<&Product<Complex64>> {
-        product_in(&self.complex_product, &self.space, &self.complex, self.cut)
+    fn complex_product(&self, stop: &dyn Interrupt) -> CoreResult<&Product<Complex64>> {
+        product_in(&self.complex_product, &self.space, &self.complex, self.cut, stop)
     }
 }
 
@@ -331,9 +330,11 @@ impl NativeOperator {
     #[getter]
     fn cut(&self, py: Python<'_>) -> PyResult<usize> {
         guarded(|| match &self.real {
-            Some(op) => Ok(detached(py, None, |_, _| self.real_product(op).map(|p| p.cut()))?),
-            None => Ok(detached(py, None, |_, _| {
-                self.complex_product().map(|p| p.cut())
+            Some(op) => Ok(detached(py, None, |_, s| {
+                self.real_product(op, s).map(|p| p.cut())
+            })?),
+            None => Ok(detached(py, None, |_, s| {
+                self.complex_product(s).map(|p| p.cut())
             })?),
         })
     }
@@ -368,13 +369,13 @@ impl NativeOperator {
             Some(op) => csr_to_python(
                 py,
                 detached(py, threads, |r, s| {
-                    build_csr_with(&self.space, self.real_product(op)?, r, s, force_wide)
+                    build_csr_with(&self.space, self.real_product(op, s)?, r, s, force_wide)
                 })?,
             ),
             None => csr_to_python(
                 py,
                 detached(py, threads, |r, s| {
-                    build_csr_with(&self.space, self.complex_product()?, r, s, force_wide)
+                    build_csr_with(&self.space, self.complex_product(s)?, r, s, force_wide)
                 })?,
             ),
         })
@@ -393,7 +394,7 @@ impl NativeOperator {
             match (x.to_owned_vec(), &self.real) {
                 (OwnedVector::Real(x), Some(op)) => {
                     let y = detached(py, threads, |r, s| {
-                        let product = self.real_product(op)?;
+                        let product = self.real_product(op, s)?;
                         let mut y = fockmill_core::memory::try_filled(x.len(), 0.0, "the product vector")?;
                         product.apply(space, &x, &mut y, r, s).map(|_| y)
                     })?;
@@ -405,7 +406,7 @@ impl NativeOperator {
                         OwnedVector::Complex(v) => v,
                     };
                     let y = detached(py, threads, |r, s| {
-                        let product = self.complex_product()?;
+                        let product = self.complex_product(s)?;
                         let mut y = fockmill_core::memory::try_filled(
                             x.len(),
                             Complex64::ZERO,
@@ -437,7 +438,7 @@ impl NativeOperator {
                 (InBlock::Real(a), Some(op)) => {
                     let xs: Vec<f64> = a.as_array().iter().copied().collect();
                     let y = detached(py, threads, |r, s| {
-                        let product = self.real_product(op)?;
+                        let product = self.real_product(op, s)?;
                         let mut y = fockmill_core::memory::try_filled(xs.len(), 0.0, "the product block")?;
                         product.apply_many(space, &xs, &mut y, k, r, s).map(|_| y)
                     })?;
@@ -450,7 +451,7 @@ impl NativeOperator {
                         InBlock::Complex(a) => a.as_array().iter().copied().collect(),
                     };
                     let y = detached(py, threads, |r, s| {
-                        let product = self.complex_product()?;
+                        let product = self.complex_product(s)?;
                         let mut y = fockmill_core::memory::try_filled(
                             xs.len(),
                             Complex64::ZERO,
@@ -520,7 +521,7 @@ impl NativeOperator {
                         let product = if stored {
                             None
                         } else {
-                            Some(self.real_product(op)?)
+                            Some(self.real_product(op, s)?)
                         };
                         lanczos_on(space, op, product, start, &opts, r, s)
                     })?;
@@ -536,7 +537,7 @@ impl NativeOperator {
                         let product = if stored {
                             None
                         } else {
-                            Some(self.complex_product()?)
+                            Some(self.complex_product(s)?)
                         };
                         lanczos_on(space, op, product, start, &opts, r, s)
                     })?;
