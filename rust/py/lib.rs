@@ -113,8 +113,15 @@ enum OwnedVector {
 impl InVector<'_> {
     fn to_owned_vec(&self) -> OwnedVector {
         match self {
-            InVector::Real(a) => OwnedVector::Real(a.as_array().iter().copied().collect()),
-            InVector::Complex(a) => OwnedVector::Complex(a.as_array().iter().copied().collect()),
+            // Contiguous arrays are copied with one memcpy; others element by element.
+            InVector::Real(a) => OwnedVector::Real(match a.as_slice() {
+                Ok(s) => s.to_vec(),
+                Err(_) => a.as_array().iter().copied().collect(),
+            }),
+            InVector::Complex(a) => OwnedVector::Complex(match a.as_slice() {
+                Ok(s) => s.to_vec(),
+                Err(_) => a.as_array().iter().copied().collect(),
+            }),
         }
     }
 }
@@ -436,7 +443,10 @@ impl NativeOperator {
             };
             match (&x, &self.real) {
                 (InBlock::Real(a), Some(op)) => {
-                    let xs: Vec<f64> = a.as_array().iter().copied().collect();
+                    let xs: Vec<f64> = match a.as_slice() {
+                        Ok(s) => s.to_vec(),
+                        Err(_) => a.as_array().iter().copied().collect(),
+                    };
                     let y = detached(py, threads, |r, s| {
                         let product = self.real_product(op, s)?;
                         let mut y = fockmill_core::memory::try_filled(xs.len(), 0.0, "the product block")?;
