@@ -2,11 +2,13 @@
 //! arguments to owned Rust values, releases the interpreter around the core call, and
 //! hands results to NumPy without copying. No algorithms live here.
 
+mod correlations;
 mod errors;
 mod interrupt;
+mod levels;
 
 use errors::{guarded, PyCoreError};
-use fockmill_core::build::{build_csr, build_csr_with, CsrAny};
+use fockmill_core::build::{build_csr_with, CsrAny};
 use fockmill_core::estimate::estimate_nnz;
 use fockmill_core::lanczos::{self, FockMap, LanczosOptions};
 use fockmill_core::matvec::Product;
@@ -110,19 +112,36 @@ enum OwnedVector {
     Complex(Vec<Complex64>),
 }
 
-impl InVector<'_> {
-    fn to_owned_vec(&self) -> OwnedVector {
+/// A copy of `items` (`len` of them) allocated fallibly.
+fn owned_copy<T>(len: usize, items: impl Iterator<Item = T>, what: &str) -> PyResult<Vec<T>> {
+    let mut out = fockmill_core::memory::try_with_capacity(len, what).map_err(PyCoreError)?;
+    out.extend(items);
+    Ok(out)
+}
+
+impl OwnedVector {
+    /// As complex numbers (a real vector is copied, fallibly).
+    fn into_complex(self) -> PyResult<Vec<Complex64>> {
         match self {
-            // Contiguous arrays are copied with one memcpy; others element by element.
-            InVector::Real(a) => OwnedVector::Real(match a.as_slice() {
-                Ok(s) => s.to_vec(),
-                Err(_) => a.as_array().iter().copied().collect(),
-            }),
-            InVector::Complex(a) => OwnedVector::Complex(match a.as_slice() {
-                Ok(s) => s.to_vec(),
-                Err(_) => a.as_array().iter().copied().collect(),
-            }),
+            OwnedVector::Real(v) => owned_copy(
+                v.len(),
+                v.into_iter().map(|re| Complex64::new(re, 0.0)),
+                "a complex copy of the vector",
+            ),
+            OwnedVector::Complex(v) => Ok(v),
         }
+    }
+}
+
+impl InVector<'_> {
+    fn to_owned_vec(&self) -> PyResult<OwnedVector> {
+        let what = "a copy of the input vector";
+        Ok(match self {
+            InVector::Real(a) => OwnedVector::Real(owned_copy(a.len(), a.as_array().iter().copied(), what)?),
+            InVector::Complex(a) => {
+                OwnedVector::Complex(owned_copy(a.len(), a.as_array().iter().copied(), what)?)
+            }
+        })
     }
 }
 
@@ -195,7 +214,7 @@ impl NativeSpace {
             .map_err(PyCoreError)?;
             if space.max_cutoff() <= u8::MAX as u32 {
                 let table = detached(py, threads, |runner, stop| {
-                    let mut out = vec![0u8; len];
+                    let mut out = fockmill_core::memory::try_filled(len, 0u8, "the occupation table")?;
                     observe::occupations_into(&space, &mut out, runner, stop)?;
                     Ok(out)
                 })?;
@@ -203,7 +222,7 @@ impl NativeSpace {
                 Ok(arr.into_pyarray(py).into_any())
             } else {
                 let table = detached(py, threads, |runner, stop| {
-                    let mut out = vec![0u16; len];
+                    let mut out = fockmill_core::memory::try_filled(len, 0u16, "the occupation table")?;
                     observe::occupations_into(&space, &mut out, runner, stop)?;
                     Ok(out)
                 })?;
@@ -244,7 +263,11 @@ impl NativeSpace {
                 )))
                 .into());
             }
-            let flat: Vec<i64> = occ.as_array().iter().copied().collect();
+            let flat: Vec<i64> = owned_copy(
+                occ.len(),
+                occ.as_array().iter().copied(),
+                "a copy of the occupations",
+            )?;
             let space = self.inner.clone();
             let ranks = detached(py, threads, |runner, _| observe::ranks(&space, &flat, runner))?;
             Ok(ranks.into_pyarray(py))
@@ -398,7 +421,7 @@ impl NativeOperator {
     ) -> PyResult<Bound<'py, PyAny>> {
         guarded(|| {
             let space = &self.space;
-            match (x.to_owned_vec(), &self.real) {
+            match (x.to_owned_vec()?, &self.real) {
                 (OwnedVector::Real(x), Some(op)) => {
                     let y = detached(py, threads, |r, s| {
                         let product = self.real_product(op, s)?;
@@ -408,10 +431,7 @@ impl NativeOperator {
                     Ok(y.into_pyarray(py).into_any())
                 }
                 (owned, _) => {
-                    let x: Vec<Complex64> = match owned {
-                        OwnedVector::Real(v) => v.into_iter().map(|re| Complex64::new(re, 0.0)).collect(),
-                        OwnedVector::Complex(v) => v,
-                    };
+                    let x: Vec<Complex64> = owned.into_complex()?;
                     let y = detached(py, threads, |r, s| {
                         let product = self.complex_product(s)?;
                         let mut y = fockmill_core::memory::try_filled(
@@ -443,10 +463,8 @@ impl NativeOperator {
             };
             match (&x, &self.real) {
                 (InBlock::Real(a), Some(op)) => {
-                    let xs: Vec<f64> = match a.as_slice() {
-                        Ok(s) => s.to_vec(),
-                        Err(_) => a.as_array().iter().copied().collect(),
-                    };
+                    let xs: Vec<f64> =
+                        owned_copy(n * k, a.as_array().iter().copied(), "a copy of the input block")?;
                     let y = detached(py, threads, |r, s| {
                         let product = self.real_product(op, s)?;
                         let mut y = fockmill_core::memory::try_filled(xs.len(), 0.0, "the product block")?;
@@ -456,9 +474,12 @@ impl NativeOperator {
                     Ok(arr.into_pyarray(py).into_any())
                 }
                 _ => {
+                    let what = "a copy of the input block";
                     let xs: Vec<Complex64> = match &x {
-                        InBlock::Real(a) => a.as_array().iter().map(|&v| Complex64::new(v, 0.0)).collect(),
-                        InBlock::Complex(a) => a.as_array().iter().copied().collect(),
+                        InBlock::Real(a) => {
+                            owned_copy(n * k, a.as_array().iter().map(|&v| Complex64::new(v, 0.0)), what)?
+                        }
+                        InBlock::Complex(a) => owned_copy(n * k, a.as_array().iter().copied(), what)?,
                     };
                     let y = detached(py, threads, |r, s| {
                         let product = self.complex_product(s)?;
@@ -495,6 +516,38 @@ impl NativeOperator {
         })
     }
 
+    /// Lowest `k` levels by thick-restart Lanczos with locking and a deflated re-check
+    /// (every degenerate copy that fits in `k`), on the matrix-free product or (with
+    /// `stored`) on a CSR matrix built and kept inside Rust:
+    /// (energies, vectors (dim, k), residuals, products, restarts, converged).
+    #[pyo3(signature = (k, tol=1e-9, max_products=10_000, seed=0x5EED, start=None, threads=None, stored=false, basis=0))]
+    #[allow(clippy::too_many_arguments)]
+    fn lanczos_levels<'py>(
+        &self,
+        py: Python<'py>,
+        k: usize,
+        tol: f64,
+        max_products: usize,
+        seed: u64,
+        start: Option<levels::InStart<'py>>,
+        threads: Option<Threads<'_>>,
+        stored: bool,
+        basis: usize,
+    ) -> PyResult<levels::LevelsTuple<'py>> {
+        levels::operator_levels(
+            self,
+            py,
+            k,
+            tol,
+            max_products,
+            seed,
+            start,
+            threads,
+            stored,
+            basis,
+        )
+    }
+
     /// Lanczos ground state keeping four vectors, on the matrix-free product or (with
     /// `stored`) on a CSR matrix built and kept inside Rust:
     /// (energy, vector, residual, steps, products, restarts, converged).
@@ -519,37 +572,27 @@ impl NativeOperator {
                 seed,
             };
             let space = &self.space;
-            let start = start.map(|s| s.to_owned_vec());
+            let start = start.map(|s| s.to_owned_vec()).transpose()?;
             match &self.real {
                 Some(op) => {
                     let start: Option<Vec<f64>> = match start {
                         None => None,
                         Some(OwnedVector::Real(v)) => Some(v),
-                        Some(OwnedVector::Complex(v)) => Some(v.iter().map(|z| z.re).collect()),
+                        Some(OwnedVector::Complex(v)) => Some(owned_copy(
+                            v.len(),
+                            v.iter().map(|z| z.re),
+                            "a real copy of the start",
+                        )?),
                     };
                     let out = detached(py, threads, |r, s| {
-                        let product = if stored {
-                            None
-                        } else {
-                            Some(self.real_product(op, s)?)
-                        };
-                        lanczos_on(space, op, product, start, &opts, r, s)
+                        lanczos_on(space, self.real_product(op, s)?, stored, start, &opts, r, s)
                     })?;
                     Ok(outcome_to_python(py, out))
                 }
                 None => {
-                    let start: Option<Vec<Complex64>> = start.map(|v| match v {
-                        OwnedVector::Real(v) => v.into_iter().map(|re| Complex64::new(re, 0.0)).collect(),
-                        OwnedVector::Complex(v) => v,
-                    });
-                    let op = &self.complex;
+                    let start: Option<Vec<Complex64>> = start.map(OwnedVector::into_complex).transpose()?;
                     let out = detached(py, threads, |r, s| {
-                        let product = if stored {
-                            None
-                        } else {
-                            Some(self.complex_product(s)?)
-                        };
-                        lanczos_on(space, op, product, start, &opts, r, s)
+                        lanczos_on(space, self.complex_product(s)?, stored, start, &opts, r, s)
                     })?;
                     Ok(outcome_to_python(py, out))
                 }
@@ -559,20 +602,20 @@ impl NativeOperator {
 }
 
 /// Lanczos on the matrix-free product (the kept kernel `product`), or on a CSR matrix
-/// built first when `product` is None.
+/// built first (by the same kernel) when `stored`.
 fn lanczos_on<S: Scalar>(
     space: &FockSpace,
-    op: &Operator<S>,
-    product: Option<&Product<S>>,
+    product: &Product<S>,
+    stored: bool,
     start: Option<Vec<S>>,
     opts: &LanczosOptions,
     runner: &Runner,
     stop: &dyn Interrupt,
 ) -> CoreResult<lanczos::LanczosOutcome<S>> {
-    if let Some(product) = product {
+    if !stored {
         return lanczos::ground_state(&FockMap::with_product(space, product), start, opts, runner, stop);
     }
-    match build_csr(space, op, runner, stop, false)? {
+    match build_csr_with(space, product, runner, stop, false)? {
         CsrAny::Narrow(c) => lanczos::ground_state(&lanczos::CsrMap::new(c), start, opts, runner, stop),
         CsrAny::Wide(c) => lanczos::ground_state(&lanczos::CsrMap::new(c), start, opts, runner, stop),
     }
@@ -607,7 +650,7 @@ fn monomial_expectations<'py>(
 ) -> PyResult<Bound<'py, PyArray1<Complex64>>> {
     guarded(|| {
         let sp = &space.inner;
-        let values = match psi.to_owned_vec() {
+        let values = match psi.to_owned_vec()? {
             OwnedVector::Real(v) => detached(py, threads, |r, s| {
                 observe::monomial_expectations(sp, &monomials, &v, r, s)
             })?,
@@ -630,7 +673,7 @@ fn occupation_distributions<'py>(
 ) -> PyResult<Bound<'py, PyArray1<f64>>> {
     guarded(|| {
         let sp = &space.inner;
-        let values = match psi.to_owned_vec() {
+        let values = match psi.to_owned_vec()? {
             OwnedVector::Real(v) => detached(py, threads, |r, s| {
                 observe::occupation_distributions(sp, &v, r, s)
             })?,
@@ -657,6 +700,8 @@ fn _native(m: &Bound<'_, PyModule>) -> PyResult<()> {
     m.add_function(wrap_pyfunction!(monomial_expectations, m)?)?;
     m.add_function(wrap_pyfunction!(occupation_distributions, m)?)?;
     m.add_function(wrap_pyfunction!(default_threads, m)?)?;
+    levels::register(m)?;
+    m.add_function(wrap_pyfunction!(correlations::density_correlations, m)?)?;
     Ok(())
 }
 
