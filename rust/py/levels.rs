@@ -3,10 +3,11 @@
 
 use crate::errors::{guarded, PyCoreError};
 use crate::{detached, NativeOperator, Threads};
-use fockmill_core::build::{build_csr, CsrAny, CsrIndex};
+use fockmill_core::build::{build_csr_with, CsrAny, CsrIndex};
 use fockmill_core::lanczos::{self, CsrMap, FockMap, HermitianMap, LanczosOptions};
 use fockmill_core::levels::{self, LevelsOptions, LevelsOutcome};
-use fockmill_core::{memory, CoreResult, FockSpace, Interrupt, Operator, Runner, Scalar};
+use fockmill_core::matvec::Product;
+use fockmill_core::{memory, CoreResult, FockSpace, Interrupt, Runner, Scalar};
 use num_complex::Complex64;
 use numpy::ndarray::{Array2, ShapeBuilder};
 use numpy::{IntoPyArray, PyArray1, PyReadonlyArray1, PyReadonlyArray2, PyUntypedArrayMethods};
@@ -97,7 +98,7 @@ fn levels_to_python<'py, S: Scalar + numpy::Element>(
 #[allow(clippy::too_many_arguments)]
 fn levels_on_space<S: Scalar>(
     space: &FockSpace,
-    op: &Operator<S>,
+    product: &Product<S>,
     stored: bool,
     k: usize,
     start: Option<Vec<S>>,
@@ -105,10 +106,18 @@ fn levels_on_space<S: Scalar>(
     runner: &Runner,
     stop: &dyn Interrupt,
 ) -> CoreResult<LevelsOutcome<S>> {
+    // The operator's kept kernel serves the products and the build alike.
     if !stored {
-        return levels::lowest_levels(&FockMap::new(space, op), k, start, opts, runner, stop);
+        return levels::lowest_levels(
+            &FockMap::with_product(space, product),
+            k,
+            start,
+            opts,
+            runner,
+            stop,
+        );
     }
-    match build_csr(space, op, runner, stop, false)? {
+    match build_csr_with(space, product, runner, stop, false)? {
         CsrAny::Narrow(c) => levels::lowest_levels(&CsrMap::new(c), k, start, opts, runner, stop),
         CsrAny::Wide(c) => levels::lowest_levels(&CsrMap::new(c), k, start, opts, runner, stop),
     }
@@ -141,15 +150,14 @@ pub fn operator_levels<'py>(
             Some(op) => {
                 let start = start.as_ref().map(owned_start::<f64>).transpose()?;
                 let out = detached(py, threads, |r, s| {
-                    levels_on_space(space, op, stored, k, start, &opts, r, s)
+                    levels_on_space(space, this.real_product(op, s)?, stored, k, start, &opts, r, s)
                 })?;
                 levels_to_python(py, dim, out)
             }
             None => {
                 let start = start.as_ref().map(owned_start::<Complex64>).transpose()?;
-                let op = &this.complex;
                 let out = detached(py, threads, |r, s| {
-                    levels_on_space(space, op, stored, k, start, &opts, r, s)
+                    levels_on_space(space, this.complex_product(s)?, stored, k, start, &opts, r, s)
                 })?;
                 levels_to_python(py, dim, out)
             }

@@ -8,7 +8,7 @@ mod interrupt;
 mod levels;
 
 use errors::{guarded, PyCoreError};
-use fockmill_core::build::{build_csr, build_csr_with, CsrAny};
+use fockmill_core::build::{build_csr_with, CsrAny};
 use fockmill_core::estimate::estimate_nnz;
 use fockmill_core::lanczos::{self, FockMap, LanczosOptions};
 use fockmill_core::matvec::Product;
@@ -291,31 +291,30 @@ struct NativeOperator {
     complex_product: OnceLock<Product<Complex64>>,
 }
 
-/// The kernel kept in `cell`, built on first use.
+/// The kernel kept in `cell`, built on first use (interruptible: large sectors take
+/// seconds to prepare).
 fn product_in<'a, S: Scalar>(
     cell: &'a OnceLock<Product<S>>,
     space: &FockSpace,
     op: &Operator<S>,
     cut: Option<usize>,
+    stop: &dyn Interrupt,
 ) -> CoreResult<&'a Product<S>> {
     if let Some(p) = cell.get() {
         return Ok(p);
     }
-    let built = match cut {
-        None => Product::new(space, op),
-        Some(c) => Product::with_cut(space, op, c)?,
-    };
+    let built = Product::prepare(space, op, cut, stop)?;
     // Another thread may have won the race; either kernel is the same.
     let _ = cell.set(built);
     Ok(cell.get().expect("set above"))
 }
 
 impl NativeOperator {
-    fn real_product(&self, op: &Operator<f64>) -> CoreResult<&Product<f64>> {
-        product_in(&self.real_product, &self.space, op, self.cut)
+    fn real_product(&self, op: &Operator<f64>, stop: &dyn Interrupt) -> CoreResult<&Product<f64>> {
+        product_in(&self.real_product, &self.space, op, self.cut, stop)
     }
-    fn complex_product(&self) -> CoreResult<&Product<Complex64>> {
-        product_in(&self.complex_product, &self.space, &self.complex, self.cut)
+    fn complex_product(&self, stop: &dyn Interrupt) -> CoreResult<&Product<Complex64>> {
+        product_in(&self.complex_product, &self.space, &self.complex, self.cut, stop)
     }
 }
 
@@ -361,9 +360,11 @@ impl NativeOperator {
     #[getter]
     fn cut(&self, py: Python<'_>) -> PyResult<usize> {
         guarded(|| match &self.real {
-            Some(op) => Ok(detached(py, None, |_, _| self.real_product(op).map(|p| p.cut()))?),
-            None => Ok(detached(py, None, |_, _| {
-                self.complex_product().map(|p| p.cut())
+            Some(op) => Ok(detached(py, None, |_, s| {
+                self.real_product(op, s).map(|p| p.cut())
+            })?),
+            None => Ok(detached(py, None, |_, s| {
+                self.complex_product(s).map(|p| p.cut())
             })?),
         })
     }
@@ -398,13 +399,13 @@ impl NativeOperator {
             Some(op) => csr_to_python(
                 py,
                 detached(py, threads, |r, s| {
-                    build_csr_with(&self.space, self.real_product(op)?, r, s, force_wide)
+                    build_csr_with(&self.space, self.real_product(op, s)?, r, s, force_wide)
                 })?,
             ),
             None => csr_to_python(
                 py,
                 detached(py, threads, |r, s| {
-                    build_csr_with(&self.space, self.complex_product()?, r, s, force_wide)
+                    build_csr_with(&self.space, self.complex_product(s)?, r, s, force_wide)
                 })?,
             ),
         })
@@ -423,7 +424,7 @@ impl NativeOperator {
             match (x.to_owned_vec()?, &self.real) {
                 (OwnedVector::Real(x), Some(op)) => {
                     let y = detached(py, threads, |r, s| {
-                        let product = self.real_product(op)?;
+                        let product = self.real_product(op, s)?;
                         let mut y = fockmill_core::memory::try_filled(x.len(), 0.0, "the product vector")?;
                         product.apply(space, &x, &mut y, r, s).map(|_| y)
                     })?;
@@ -432,7 +433,7 @@ impl NativeOperator {
                 (owned, _) => {
                     let x: Vec<Complex64> = owned.into_complex()?;
                     let y = detached(py, threads, |r, s| {
-                        let product = self.complex_product()?;
+                        let product = self.complex_product(s)?;
                         let mut y = fockmill_core::memory::try_filled(
                             x.len(),
                             Complex64::ZERO,
@@ -465,7 +466,7 @@ impl NativeOperator {
                     let xs: Vec<f64> =
                         owned_copy(n * k, a.as_array().iter().copied(), "a copy of the input block")?;
                     let y = detached(py, threads, |r, s| {
-                        let product = self.real_product(op)?;
+                        let product = self.real_product(op, s)?;
                         let mut y = fockmill_core::memory::try_filled(xs.len(), 0.0, "the product block")?;
                         product.apply_many(space, &xs, &mut y, k, r, s).map(|_| y)
                     })?;
@@ -481,7 +482,7 @@ impl NativeOperator {
                         InBlock::Complex(a) => owned_copy(n * k, a.as_array().iter().copied(), what)?,
                     };
                     let y = detached(py, threads, |r, s| {
-                        let product = self.complex_product()?;
+                        let product = self.complex_product(s)?;
                         let mut y = fockmill_core::memory::try_filled(
                             xs.len(),
                             Complex64::ZERO,
@@ -584,25 +585,14 @@ impl NativeOperator {
                         )?),
                     };
                     let out = detached(py, threads, |r, s| {
-                        let product = if stored {
-                            None
-                        } else {
-                            Some(self.real_product(op)?)
-                        };
-                        lanczos_on(space, op, product, start, &opts, r, s)
+                        lanczos_on(space, self.real_product(op, s)?, stored, start, &opts, r, s)
                     })?;
                     Ok(outcome_to_python(py, out))
                 }
                 None => {
                     let start: Option<Vec<Complex64>> = start.map(OwnedVector::into_complex).transpose()?;
-                    let op = &self.complex;
                     let out = detached(py, threads, |r, s| {
-                        let product = if stored {
-                            None
-                        } else {
-                            Some(self.complex_product()?)
-                        };
-                        lanczos_on(space, op, product, start, &opts, r, s)
+                        lanczos_on(space, self.complex_product(s)?, stored, start, &opts, r, s)
                     })?;
                     Ok(outcome_to_python(py, out))
                 }
@@ -612,20 +602,20 @@ impl NativeOperator {
 }
 
 /// Lanczos on the matrix-free product (the kept kernel `product`), or on a CSR matrix
-/// built first when `product` is None.
+/// built first (by the same kernel) when `stored`.
 fn lanczos_on<S: Scalar>(
     space: &FockSpace,
-    op: &Operator<S>,
-    product: Option<&Product<S>>,
+    product: &Product<S>,
+    stored: bool,
     start: Option<Vec<S>>,
     opts: &LanczosOptions,
     runner: &Runner,
     stop: &dyn Interrupt,
 ) -> CoreResult<lanczos::LanczosOutcome<S>> {
-    if let Some(product) = product {
+    if !stored {
         return lanczos::ground_state(&FockMap::with_product(space, product), start, opts, runner, stop);
     }
-    match build_csr(space, op, runner, stop, false)? {
+    match build_csr_with(space, product, runner, stop, false)? {
         CsrAny::Narrow(c) => lanczos::ground_state(&lanczos::CsrMap::new(c), start, opts, runner, stop),
         CsrAny::Wide(c) => lanczos::ground_state(&lanczos::CsrMap::new(c), start, opts, runner, stop),
     }

@@ -373,6 +373,20 @@ impl<S: Scalar> Bipartite<S> {
     /// would not fit 32-bit indices; [`CoreError::TooLarge`] when the tables do not fit
     /// in memory.
     pub fn new(space: &FockSpace, op: &Operator<S>, cut: usize) -> CoreResult<Self> {
+        Self::new_interruptible(space, op, cut, &crate::parallel::NoInterrupt)
+    }
+
+    /// As [`Bipartite::new`], polling `interrupt` while the tables are built (large
+    /// sectors take seconds).
+    ///
+    /// # Errors
+    /// As [`Bipartite::new`], and [`CoreError::Interrupted`].
+    pub fn new_interruptible(
+        space: &FockSpace,
+        op: &Operator<S>,
+        cut: usize,
+        interrupt: &dyn Interrupt,
+    ) -> CoreResult<Self> {
         let m = space.modes();
         if cut == 0 || cut > m {
             return Err(CoreError::InvalidArgument(format!(
@@ -458,6 +472,9 @@ impl<S: Scalar> Bipartite<S> {
             .partition(|(_, f)| f.iter().all(|&(_, lower, raise)| lower == raise));
         let mut rights = Vec::with_capacity(used.len());
         for &r in &used {
+            if interrupt.requested() {
+                return Err(CoreError::Interrupted);
+            }
             right_of_residue[r] = rights.len() as u32;
             let states = right_occ_of(r);
             let mut diag = Vec::new();
@@ -523,6 +540,9 @@ impl<S: Scalar> Bipartite<S> {
         let mut row: Vec<(u32, S)> = Vec::new();
         let mut cross_row: Vec<(u32, u32, S, S, f64)> = Vec::new();
         for l in 0..nl {
+            if l % 4096 == 0 && interrupt.requested() {
+                return Err(CoreError::Interrupted);
+            }
             let occ = &left_occ[l * cut..(l + 1) * cut];
             let r_out = left_residue[l] as usize;
             row.clear();

@@ -27,12 +27,38 @@ impl<S: Scalar> Product<S> {
     /// bipartite kernel at the cheapest cut, or the row kernel when no cut keeps the
     /// tables well below the stored matrix or the tables do not fit in memory.
     pub fn new(space: &FockSpace, op: &Operator<S>) -> Self {
-        match choose_cut(space, op) {
-            Some(cut) => match Bipartite::new(space, op, cut) {
-                Ok(b) => Product::Split(b),
-                Err(_) => Product::Rows(ProductKernel::new(space, op)),
+        match Self::prepare(space, op, None, &crate::parallel::NoInterrupt) {
+            Ok(p) => p,
+            Err(_) => Product::Rows(ProductKernel::new(space, op)),
+        }
+    }
+
+    /// Prepare `op` with the kernel `cut` asks for (None: the automatic choice, as
+    /// [`Product::new`]; 0: the row kernel; `1..=M`: bipartite with left modes
+    /// `0..cut`), polling `interrupt` while the tables are built.
+    ///
+    /// # Errors
+    /// [`CoreError::Interrupted`]; for an explicit cut, as [`Product::with_cut`].
+    pub fn prepare(
+        space: &FockSpace,
+        op: &Operator<S>,
+        cut: Option<usize>,
+        interrupt: &dyn Interrupt,
+    ) -> CoreResult<Self> {
+        match cut {
+            Some(0) => Ok(Product::Rows(ProductKernel::new(space, op))),
+            Some(c) => Ok(Product::Split(Bipartite::new_interruptible(
+                space, op, c, interrupt,
+            )?)),
+            None => match choose_cut(space, op) {
+                Some(c) => match Bipartite::new_interruptible(space, op, c, interrupt) {
+                    Ok(b) => Ok(Product::Split(b)),
+                    Err(CoreError::Interrupted) => Err(CoreError::Interrupted),
+                    // Tables that do not fit: the row kernel needs none.
+                    Err(_) => Ok(Product::Rows(ProductKernel::new(space, op))),
+                },
+                None => Ok(Product::Rows(ProductKernel::new(space, op))),
             },
-            None => Product::Rows(ProductKernel::new(space, op)),
         }
     }
 
@@ -43,11 +69,7 @@ impl<S: Scalar> Product<S> {
     /// [`CoreError::InvalidArgument`] for a cut above the number of modes;
     /// [`CoreError::TooLarge`] when the bipartite tables do not fit in memory.
     pub fn with_cut(space: &FockSpace, op: &Operator<S>, cut: usize) -> CoreResult<Self> {
-        if cut == 0 {
-            Ok(Product::Rows(ProductKernel::new(space, op)))
-        } else {
-            Ok(Product::Split(Bipartite::new(space, op, cut)?))
-        }
+        Self::prepare(space, op, Some(cut), &crate::parallel::NoInterrupt)
     }
 
     /// The cut in use (0: the row kernel).
