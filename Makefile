@@ -69,6 +69,7 @@ bench: dev
 	$(PY) benchmarks/bench_build.py
 	$(PY) benchmarks/bench_matvec.py
 	$(PY) benchmarks/bench_ground.py
+	$(PY) benchmarks/bench_levels.py
 	$(PY) benchmarks/bench_sweep.py
 
 clean:
