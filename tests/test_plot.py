@@ -171,3 +171,23 @@ def test_scale_factors_and_user_parameters_say_what_they_are() -> None:
     )
     assert axis_label("W", {"W": "J"}, "bose-hubbard") == "parameter $W/J$"
     assert axis_label("pair_split", {"pair_split": "MHz"}) == "parameter pair_split (MHz)"
+    described = axis_label("W", {"W": "J"}, "bose-hubbard", {"W": "disorder strength"})
+    assert described == "disorder strength $W/J$"
+
+
+def test_a_table_brings_its_own_labels_and_units() -> None:
+    # What `fockmill demo` draws: a SweepTable, no model file, no results file.
+    spec = fm.parse_model_text(RING)
+    assert spec.sweep is not None
+    table = fm.run_sweep(
+        spec.model,
+        spec.sweep,
+        quantities=["energy", "populations"],
+        units=spec.units,
+        progress=False,
+        workers=1,
+    )
+    figure = sweep_figure(table, y=["energy", "populations"])
+    assert figure.axes[0].get_ylabel() == "ground energy $E_0$ / $J$"
+    assert figure.axes[1].get_xlabel() == "on-site interaction $U/J$"
+    assert [line.get_label() for line in figure.axes[1].get_lines()] == ["site 0–3 (equal)"]

@@ -12,6 +12,7 @@ import numpy as np
 import numpy.typing as npt
 
 __all__ = [
+    "NativeCsr",
     "NativeOperator",
     "NativePool",
     "NativeSpace",
