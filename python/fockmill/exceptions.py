@@ -14,6 +14,7 @@ __all__ = [
     "NotHermitianError",
     "SizeLimitError",
     "SpaceError",
+    "SymmetryError",
 ]
 
 
@@ -31,6 +32,11 @@ class ModeIndexError(ValueError, IndexError):
 
 class NotHermitianError(ValueError):
     """A Hermitian operator was required (an energy, a ground state) but not given."""
+
+
+class SymmetryError(ValueError):
+    """A symmetry is invalid for the space, its labels are no one-dimensional
+    representation, or an operator to be used on a sector does not commute with it."""
 
 
 class SizeLimitError(MemoryError):

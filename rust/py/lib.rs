@@ -4,6 +4,7 @@
 
 mod errors;
 mod interrupt;
+mod symmetry;
 
 use errors::{guarded, PyCoreError};
 use fockmill_core::build::{build_csr, CsrAny};
@@ -560,6 +561,7 @@ fn _native(m: &Bound<'_, PyModule>) -> PyResult<()> {
     m.add_function(wrap_pyfunction!(monomial_expectations, m)?)?;
     m.add_function(wrap_pyfunction!(occupation_distributions, m)?)?;
     m.add_function(wrap_pyfunction!(default_threads, m)?)?;
+    symmetry::register(m)?;
     Ok(())
 }
 
