@@ -21,6 +21,9 @@ entanglement_entropy, top_level_weights
     Observables of a state, computed without building matrices.
 converge_cutoffs, CutoffScan
     Truncation diagnostics.
+SymmetricSpace, ModePermutation, ring_translation, ring_reflection, torus_translations,
+momentum_levels, Dispersion
+    Symmetry sectors of mode-permutation groups (momentum, reflection) and E(k) tables.
 Model, models
     A Hamiltonian linear in named parameters on a fixed space; ready-made builders
     (Bose–Hubbard on any graph, Jaynes–Cummings–Hubbard arrays, Kerr networks, drives).
@@ -56,12 +59,22 @@ from fockmill._operator import LadderOperator, build_operator
 from fockmill._plot import plot_sweep
 from fockmill._solve import GroundState, Levels, choose_method, ground_state, lowest_levels
 from fockmill._space import FockSpace
+from fockmill._symmetry import (
+    Dispersion,
+    ModePermutation,
+    SymmetricSpace,
+    momentum_levels,
+    ring_reflection,
+    ring_translation,
+    torus_translations,
+)
 from fockmill._store import ResultsStore, StoreError
 from fockmill._sweep import PointResult, SweepTable, run_sweep
 from fockmill._truncation import CutoffScan, converge_cutoffs
 
 __all__ = [
     "CutoffScan",
+    "Dispersion",
     "FockSpace",
     "GroundState",
     "LadderExpr",
@@ -71,11 +84,13 @@ __all__ = [
     "Model",
     "ModelFile",
     "ModelFileError",
+    "ModePermutation",
     "PointResult",
     "ResultsStore",
     "StoreError",
     "SweepGrid",
     "SweepTable",
+    "SymmetricSpace",
     "__version__",
     "available_memory",
     "build_matrix",
@@ -93,6 +108,7 @@ __all__ = [
     "lowering",
     "lowest_levels",
     "models",
+    "momentum_levels",
     "number",
     "number_variances",
     "occupation_distribution",
@@ -101,6 +117,9 @@ __all__ = [
     "plot_sweep",
     "populations",
     "raising",
+    "ring_reflection",
+    "ring_translation",
     "run_sweep",
     "top_level_weights",
+    "torus_translations",
 ]

@@ -11,6 +11,7 @@ from fockmill import _native
 from fockmill._args import check_threads
 from fockmill._expr import LadderExpr, format_monomial
 from fockmill._space import FockSpace
+from fockmill._symmetry import SymmetricSpace
 from fockmill.exceptions import ModeIndexError
 
 __all__ = ["MAX_POWER", "as_expr", "check_space", "check_threads", "prepare"]
@@ -31,10 +32,10 @@ def as_expr(expr: object) -> LadderExpr:
 
 
 def check_space(space: object) -> FockSpace:
-    """The space, or a clear error."""
-    if not isinstance(space, FockSpace):
-        raise TypeError(f"expected a fm.FockSpace; got {type(space).__name__}")
-    return space
+    """The space (a FockSpace or a SymmetricSpace sector), or a clear error."""
+    if not isinstance(space, FockSpace | SymmetricSpace):
+        raise TypeError(f"expected a fm.FockSpace or fm.SymmetricSpace; got {type(space).__name__}")
+    return space  # type: ignore[return-value]
 
 
 def prepare(expr: object, space: object) -> _native.NativeOperator:
@@ -69,4 +70,6 @@ def prepare(expr: object, space: object) -> _native.NativeOperator:
                 f"term {format_monomial(key)} has the coefficient {coefficient}, which is not "
                 "finite; check the parameters for NaN, inf or overflow"
             )
+    if isinstance(s, SymmetricSpace):
+        return s._compile(e)  # type: ignore[return-value]
     return _native.NativeOperator(s.native, e.to_native())

@@ -9,7 +9,7 @@ use crate::{
 };
 use fockmill_core::lanczos::LanczosOptions;
 use fockmill_core::symmetry::{Generator, SectorOperator, SymmetricSpace};
-use fockmill_core::{Operator, RawTerm, Scalar};
+use fockmill_core::{Operator, RawTerm};
 use num_complex::Complex64;
 use numpy::ndarray::Array2;
 use numpy::{IntoPyArray, PyArray1, PyUntypedArrayMethods};
