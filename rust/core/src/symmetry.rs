@@ -318,11 +318,18 @@ impl SymmetricSpace {
                 let pair = [gens[a].clone(), gens[b].clone()];
                 let sub = close_group(m, &pair, &[steps[a], steps[b]], denominator);
                 if matches!(sub, Ok(ref c) if !c.consistent) {
+                    let commute =
+                        (0..m).all(|i| gens[a][gens[b][i] as usize] == gens[b][gens[a][i] as usize]);
+                    let why = if commute {
+                        "these generators satisfy a relation (one is a product of powers of the \
+                         other) that the two characters contradict"
+                    } else {
+                        "these generators do not commute, and their commutator must act as 1 on \
+                         the sector (a translation with a reflection: only momentum 0 or L/2)"
+                    };
                     return CoreError::Symmetry(format!(
                         "the labels {} of generator {a} and {} of generator {b} do not define a \
-                         one-dimensional representation: these generators do not commute, and \
-                         their commutator must act as 1 on the sector (a translation with a \
-                         reflection: only momentum 0 or L/2); change the labels or drop one of \
+                         one-dimensional representation: {why}; change the labels or drop one of \
                          the two generators",
                         generators[a].label, generators[b].label
                     ));
