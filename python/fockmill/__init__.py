@@ -59,6 +59,8 @@ from fockmill._operator import LadderOperator, build_operator
 from fockmill._plot import plot_sweep
 from fockmill._solve import GroundState, Levels, choose_method, ground_state, lowest_levels
 from fockmill._space import FockSpace
+from fockmill._store import ResultsStore, StoreError
+from fockmill._sweep import PointResult, SweepTable, run_sweep
 from fockmill._symmetry import (
     Dispersion,
     ModePermutation,
@@ -68,8 +70,6 @@ from fockmill._symmetry import (
     ring_translation,
     torus_translations,
 )
-from fockmill._store import ResultsStore, StoreError
-from fockmill._sweep import PointResult, SweepTable, run_sweep
 from fockmill._truncation import CutoffScan, converge_cutoffs
 
 __all__ = [
@@ -81,10 +81,10 @@ __all__ = [
     "LadderOperator",
     "Levels",
     "MemoryEstimate",
+    "ModePermutation",
     "Model",
     "ModelFile",
     "ModelFileError",
-    "ModePermutation",
     "PointResult",
     "ResultsStore",
     "StoreError",
