@@ -165,6 +165,124 @@ pub struct SymmetricSpace {
     directory: Vec<u64>,
     /// Base ranks of the kept representatives, ascending (the sector basis).
     reps: Vec<u64>,
+    /// Packed-string shortcut when every element is a cyclic shift or a reflection of
+    /// the mode order (rings, with any number of orbitals per site).
+    shifts: Option<Shifts>,
+}
+
+/// Occupation tuples packed into one `u128` (`bits` per mode, mode 0 most significant,
+/// so that numeric order is the basis order), for groups whose elements all rotate the
+/// mode order, possibly after reversing it: the image of a state is then a rotation of
+/// its packed string or of the reversed one, and the smallest image a minimum over
+/// `|G|` integers with no data-dependent branches.
+#[derive(Debug, Clone)]
+struct Shifts {
+    modes: usize,
+    bits: u32,
+    width: u32,
+    field: u128,
+    mask: u128,
+    /// Per element: whether it reverses the mode order, and the rotation in bits.
+    moves: Vec<(bool, u32)>,
+}
+
+impl Shifts {
+    /// The shortcut for these elements (`inverse` as in [`SymmetricSpace`]), if it applies.
+    fn detect(modes: usize, max_cap: u32, inverse: &[u32], order: usize) -> Option<Shifts> {
+        let bits = 32 - max_cap.max(1).leading_zeros();
+        let width = bits as usize * modes;
+        if width > 128 || modes == 0 {
+            return None;
+        }
+        let mut moves = Vec::with_capacity(order);
+        for h in 0..order {
+            let inv = &inverse[h * modes..(h + 1) * modes];
+            // Rotation right by r modes: position j holds mode (j - r) mod M; after a
+            // reversal it holds mode M - 1 - ((j - r) mod M).
+            let found = (0..modes).find_map(|r| {
+                let src = |j: usize| (j + modes - r) % modes;
+                if (0..modes).all(|j| inv[j] as usize == src(j)) {
+                    Some((false, r))
+                } else if (0..modes).all(|j| inv[j] as usize == modes - 1 - src(j)) {
+                    Some((true, r))
+                } else {
+                    None
+                }
+            })?;
+            moves.push((found.0, found.1 as u32 * bits));
+        }
+        let mask = if width == 128 {
+            u128::MAX
+        } else {
+            (1u128 << width) - 1
+        };
+        Some(Shifts {
+            modes,
+            bits,
+            width: width as u32,
+            field: (1u128 << bits) - 1,
+            mask,
+            moves,
+        })
+    }
+
+    /// The packed string and the packed reversed string of `occ`.
+    #[inline(always)]
+    fn pack(&self, occ: &[u32]) -> (u128, u128) {
+        let mut p = 0u128;
+        let mut r = 0u128;
+        for (i, &v) in occ.iter().enumerate() {
+            p |= (v as u128) << ((self.modes - 1 - i) as u32 * self.bits);
+            r |= (v as u128) << (i as u32 * self.bits);
+        }
+        (p, r)
+    }
+
+    /// Set mode `mode` to `v` in both packed strings.
+    #[inline(always)]
+    fn patch(&self, p: &mut u128, r: &mut u128, mode: usize, v: u32) {
+        let sp = (self.modes - 1 - mode) as u32 * self.bits;
+        let sr = mode as u32 * self.bits;
+        *p = (*p & !(self.field << sp)) | ((v as u128) << sp);
+        *r = (*r & !(self.field << sr)) | ((v as u128) << sr);
+    }
+
+    #[inline(always)]
+    fn image(&self, h: usize, p: u128, r: u128) -> u128 {
+        let (rev, shift) = self.moves[h];
+        let x = if rev { r } else { p };
+        if shift == 0 {
+            x
+        } else {
+            ((x >> shift) | (x << (self.width - shift))) & self.mask
+        }
+    }
+
+    /// Smallest image, the element giving it and how many elements do.
+    #[inline(always)]
+    fn smallest(&self, p: u128, r: u128) -> (u128, usize, usize) {
+        let mut best = u128::MAX;
+        let mut which = 0usize;
+        let mut ties = 0usize;
+        for h in 0..self.moves.len() {
+            let v = self.image(h, p, r);
+            if v < best {
+                best = v;
+                which = h;
+                ties = 1;
+            } else if v == best {
+                ties += 1;
+            }
+        }
+        (best, which, ties)
+    }
+
+    #[inline(always)]
+    fn unpack(&self, x: u128, occ: &mut [u32]) {
+        for (i, o) in occ.iter_mut().enumerate() {
+            *o = ((x >> ((self.modes - 1 - i) as u32 * self.bits)) & self.field) as u32;
+        }
+    }
 }
 
 /// `exp(2πi p / n)`, exact at multiples of a quarter turn.
@@ -301,7 +419,9 @@ impl SymmetricSpace {
             bits: Vec::new(),
             directory: Vec::new(),
             reps: Vec::new(),
+            shifts: None,
         };
+        sector.shifts = Shifts::detect(m, sector.base.max_cutoff(), &sector.inverse, order);
         sector.enumerate(runner, interrupt)?;
         Ok(sector)
     }
@@ -428,6 +548,16 @@ impl SymmetricSpace {
     /// trivial character.
     #[inline]
     fn is_kept_representative(&self, occ: &[u32]) -> bool {
+        if let Some(f) = &self.shifts {
+            let (p, r) = f.pack(occ);
+            for h in 1..self.order {
+                let v = f.image(h, p, r);
+                if v < p || (v == p && self.phases[h] != 0) {
+                    return false;
+                }
+            }
+            return true;
+        }
         let m = occ.len();
         for h in 1..self.order {
             let inv = &self.inverse[h * m..(h + 1) * m];
@@ -453,6 +583,12 @@ impl SymmetricSpace {
     /// (the stabiliser's order).
     #[inline]
     pub fn canonical(&self, occ: &[u32], best: &mut [u32]) -> (usize, usize) {
+        if let Some(f) = &self.shifts {
+            let (p, r) = f.pack(occ);
+            let (x, which, ties) = f.smallest(p, r);
+            f.unpack(x, best);
+            return (which, ties);
+        }
         let m = occ.len();
         best.copy_from_slice(occ);
         let mut which = 0usize;
@@ -786,6 +922,36 @@ impl<S: Scalar> SectorOperator<S> {
         }
         if any_diagonal {
             visit(row, d);
+        }
+        if let Some(f) = &sector.shifts {
+            let (p0, r0) = f.pack(&s.occ);
+            'fast: for term in &self.off {
+                let (mut p, mut r) = (p0, r0);
+                let mut amp_sq = 1.0f64;
+                for &(mode, lower, raise) in &term.factors {
+                    let n = s.occ[mode];
+                    if n < lower {
+                        continue 'fast;
+                    }
+                    let w = n - lower + raise;
+                    if w > caps[mode] {
+                        continue 'fast;
+                    }
+                    amp_sq *= falling(n, lower) * falling(w, raise);
+                    f.patch(&mut p, &mut r, mode, w);
+                }
+                let (x, h, ties) = f.smallest(p, r);
+                f.unpack(x, &mut s.best);
+                let Some(rank) = base.rank(&s.best) else {
+                    continue;
+                };
+                let Some(col) = sector.sector_index(rank) else {
+                    continue;
+                };
+                let amp = (amp_sq * ties as f64 / ties_row as f64).sqrt();
+                visit(col, (term.coef * self.characters[h]).scale(amp));
+            }
+            return Ok(());
         }
         'terms: for term in &self.off {
             s.image.copy_from_slice(&s.occ);
@@ -1244,6 +1410,56 @@ mod tests {
     }
 
     #[test]
+    fn packed_shortcut_matches_the_general_path() {
+        // Two orbitals a site (cutoffs 3 and 1), translation (packed shortcut) and
+        // reflection (general path): clearing the shortcut must change nothing.
+        let sites = 4;
+        let m = 2 * sites;
+        let t: Vec<usize> = (0..m).map(|i| ((i / 2 + 1) % sites) * 2 + i % 2).collect();
+        let r: Vec<usize> = (0..m).map(|i| (sites - 1 - i / 2) * 2 + i % 2).collect();
+        let base = FockSpace::new([3, 1].repeat(sites), None, Some(5), None).unwrap();
+        let mut raw = Vec::new();
+        for s in 0..sites {
+            let (c, e, c2) = (2 * s, 2 * s + 1, 2 * ((s + 1) % sites));
+            raw.push(RawTerm::new(0.3, 0.0, vec![(c.min(c2), 1, 0), (c.max(c2), 0, 1)]));
+            raw.push(RawTerm::new(0.3, 0.0, vec![(c.min(c2), 0, 1), (c.max(c2), 1, 0)]));
+            raw.push(RawTerm::new(0.2, 0.0, vec![(c, 1, 0), (e, 0, 1)]));
+            raw.push(RawTerm::new(0.2, 0.0, vec![(c, 0, 1), (e, 1, 0)]));
+            raw.push(RawTerm::new(0.7, 0.0, vec![(c, 2, 2)]));
+        }
+        let op = Operator::<Complex64>::new(&base, &raw).unwrap();
+        for (k, q) in [(0, 0), (0, 1), (2, 1), (1, 0)] {
+            let mut g = vec![Generator {
+                images: t.clone(),
+                label: k,
+            }];
+            if k == 0 || k == 2 {
+                g.push(Generator {
+                    images: r.clone(),
+                    label: q,
+                });
+            }
+            let fast = SymmetricSpace::new(base.clone(), &g, &Runner::global(), &NoInterrupt).unwrap();
+            // The site reflection keeps orbitals in place: no reversal of the mode order.
+            assert_eq!(fast.shifts.is_some(), g.len() == 1);
+            let mut slow = fast.clone();
+            slow.shifts = None;
+            slow.enumerate(&Runner::global(), &NoInterrupt).unwrap();
+            assert_eq!(fast.representatives(), slow.representatives());
+            let sop = SectorOperator::new(&fast, &op, &g).unwrap();
+            let a = dense_of(
+                &sop.build_csr(&fast, &Runner::global(), &NoInterrupt, false)
+                    .unwrap(),
+            );
+            let b = dense_of(
+                &sop.build_csr(&slow, &Runner::global(), &NoInterrupt, false)
+                    .unwrap(),
+            );
+            assert_eq!(a, b);
+        }
+    }
+
+    #[test]
     fn refusals() {
         let base = FockSpace::new(vec![2, 2, 1], None, None, None).unwrap();
         let r = Runner::global();
@@ -1311,6 +1527,11 @@ mod tests {
         let s = SymmetricSpace::new(base.clone(), &g, &one, &NoInterrupt).unwrap();
         let s2 = SymmetricSpace::new(base.clone(), &g, &two, &NoInterrupt).unwrap();
         assert_eq!(s.representatives(), s2.representatives());
+        assert!(s.shifts.is_some());
+        let mut slow = s.clone();
+        slow.shifts = None;
+        slow.enumerate(&one, &NoInterrupt).unwrap();
+        assert_eq!(s.representatives(), slow.representatives());
         let op = Operator::<f64>::new(&base, &bose_hubbard_ring(l, 1.0, 3.0)).unwrap();
         let sop = SectorOperator::new(&s, &op, &g).unwrap();
         let x: Vec<f64> = (0..s.dim() as usize)
