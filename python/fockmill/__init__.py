@@ -8,6 +8,9 @@ Public names
 ------------
 FockSpace
     Truncated multi-mode Fock space or conserved-charge sector.
+prepare, Problem
+    An expression compiled on a space once (validation, compiled terms, product
+    kernel, thread pool, memory estimate), reused by every build, product and solve.
 lowering, raising, number, identity, LadderExpr
     Ladder-operator expressions.
 build_matrix, build_operator, LadderOperator
@@ -19,8 +22,12 @@ ground_state, lowest_levels, GroundState, Levels, choose_method
 expectation, populations, number_variances, one_body_matrix, occupation_distribution,
 entanglement_entropy, top_level_weights
     Observables of a state, computed without building matrices.
-converge_cutoffs, CutoffScan
+converge_cutoffs, CutoffScan, CutoffWarning
     Truncation diagnostics.
+density_correlations
+    ``⟨n_i n_j⟩`` for every pair of modes in one pass.
+save_state, load_state, SavedState, StateFileError
+    A state saved with its basis (``.npz``), refused on load when the basis differs.
 SymmetricSpace, ModePermutation, ring_translation, ring_reflection, torus_translations,
 momentum_levels, Dispersion
     Symmetry sectors of mode-permutation groups (momentum, reflection) and E(k) tables.
@@ -35,6 +42,7 @@ run_sweep, SweepTable, PointResult, ResultsStore, StoreError, plot_sweep
 
 from fockmill import exceptions, models
 from fockmill._build import build_matrix
+from fockmill._correlations import density_correlations
 from fockmill._expr import LadderExpr, format_monomial, identity, lowering, number, raising
 from fockmill._memory import MemoryEstimate, available_memory, estimate_memory
 from fockmill._model import Model
@@ -57,10 +65,12 @@ from fockmill._observe import (
 )
 from fockmill._operator import LadderOperator, build_operator
 from fockmill._plot import plot_sweep
+from fockmill._problem import Problem, prepare
 from fockmill._solve import GroundState, Levels, choose_method, ground_state, lowest_levels
 from fockmill._space import FockSpace
-from fockmill._store import ResultsStore, StoreError
-from fockmill._sweep import PointResult, SweepTable, run_sweep
+from fockmill._statefile import SavedState, StateFileError, load_state, save_state
+from fockmill._store import PointResult, ResultsStore, StoreError, SweepTable
+from fockmill._sweep import run_sweep
 from fockmill._symmetry import (
     Dispersion,
     ModePermutation,
@@ -71,9 +81,11 @@ from fockmill._symmetry import (
     torus_translations,
 )
 from fockmill._truncation import CutoffScan, converge_cutoffs
+from fockmill.exceptions import CutoffWarning
 
 __all__ = [
     "CutoffScan",
+    "CutoffWarning",
     "Dispersion",
     "FockSpace",
     "GroundState",
@@ -86,7 +98,10 @@ __all__ = [
     "ModelFile",
     "ModelFileError",
     "PointResult",
+    "Problem",
     "ResultsStore",
+    "SavedState",
+    "StateFileError",
     "StoreError",
     "SweepGrid",
     "SweepTable",
@@ -97,6 +112,7 @@ __all__ = [
     "build_operator",
     "choose_method",
     "converge_cutoffs",
+    "density_correlations",
     "entanglement_entropy",
     "estimate_memory",
     "exceptions",
@@ -105,6 +121,7 @@ __all__ = [
     "ground_state",
     "identity",
     "load_model_file",
+    "load_state",
     "lowering",
     "lowest_levels",
     "models",
@@ -116,10 +133,12 @@ __all__ = [
     "parse_model_text",
     "plot_sweep",
     "populations",
+    "prepare",
     "raising",
     "ring_reflection",
     "ring_translation",
     "run_sweep",
+    "save_state",
     "top_level_weights",
     "torus_translations",
 ]

@@ -10,8 +10,7 @@ from scipy.sparse.linalg import LinearOperator
 
 from fockmill import _native
 from fockmill._expr import LadderExpr
-from fockmill._prepare import as_expr, check_space, check_threads, prepare
-from fockmill._space import FockSpace
+from fockmill._problem import Problem, as_problem
 
 __all__ = ["LadderOperator", "build_operator"]
 
@@ -21,8 +20,8 @@ class LadderOperator(LinearOperator):  # type: ignore[misc]
 
     Parameters
     ----------
-    expr : LadderExpr
-        The operator.
+    expr : LadderExpr or Problem
+        The operator, or a prepared problem (then ``space`` is omitted).
     space : FockSpace
         The basis it acts on.
     threads : int, optional
@@ -30,6 +29,8 @@ class LadderOperator(LinearOperator):  # type: ignore[misc]
 
     Attributes
     ----------
+    problem : Problem
+        The prepared problem whose compiled operator and thread pool the products use.
     products : int
         Number of vectors multiplied so far (a block of k vectors counts k).
 
@@ -40,20 +41,33 @@ class LadderOperator(LinearOperator):  # type: ignore[misc]
     count: each row is summed by one thread in a fixed order.
     """
 
-    def __init__(self, expr: LadderExpr, space: FockSpace, *, threads: int | None = None) -> None:
-        self.expr = as_expr(expr)
-        self.space = check_space(space)
-        self.threads = check_threads(threads)
-        self._op = prepare(self.expr, self.space)
+    def __init__(
+        self, expr: LadderExpr | Problem, space: Any = None, *, threads: int | None = None
+    ) -> None:
+        self.problem = as_problem(expr, space, threads=threads)
         self._adjoint_op: _native.NativeOperator | None = None
         self.products = 0
-        dtype = np.float64 if self._op.is_real else np.complex128
-        super().__init__(dtype=np.dtype(dtype), shape=(space.dim, space.dim))
+        super().__init__(dtype=self.problem.dtype, shape=self.problem.shape)
 
     @property
-    def native(self) -> _native.NativeOperator:
+    def expr(self) -> LadderExpr:
+        """The operator's expression."""
+        return self.problem.expr
+
+    @property
+    def space(self) -> Any:
+        """The space it acts on."""
+        return self.problem.space
+
+    @property
+    def threads(self) -> int | None:
+        """Worker threads per product."""
+        return self.problem.threads
+
+    @property
+    def native(self) -> Any:
         """The compiled operator."""
-        return self._op
+        return self.problem.native
 
     def _check_input(self, x: npt.ArrayLike, block: bool) -> npt.NDArray[Any]:
         arr = np.asarray(x)
@@ -91,37 +105,51 @@ class LadderOperator(LinearOperator):  # type: ignore[misc]
         return np.ascontiguousarray(x, dtype=np.float64)
 
     def _matvec(self, x: npt.NDArray[Any]) -> npt.NDArray[Any]:
-        shape = x.shape
         self.products += 1
-        y = self._op.matvec(self._vector(x).reshape(-1), self.threads)
-        return y.reshape(shape)
+        y = self.problem.native.matvec(self._vector(x).reshape(-1), self.problem.pool)
+        return y.reshape(-1, 1) if x.ndim == 2 else y  # type: ignore[no-any-return]
 
     def _matmat(self, x: npt.NDArray[Any]) -> npt.NDArray[Any]:
         self.products += x.shape[1]
-        return self._op.matmat(self._vector(x), self.threads)
+        return self.problem.native.matmat(self._vector(x), self.problem.pool)  # type: ignore[no-any-return]
 
-    def _adjoint_native(self) -> _native.NativeOperator:
+    def _adjoint_native(self) -> Any:
         if self._adjoint_op is None:
             adj = self.expr.adjoint()
-            self._adjoint_op = self._op if adj == self.expr else prepare(adj, self.space)
+            if adj == self.expr and self.problem.is_square:
+                self._adjoint_op = self.problem.native
+            else:
+                self._adjoint_op = LadderOperator(
+                    as_problem(
+                        adj, self.problem.target, target=self.problem.space, threads=self.threads
+                    )
+                ).native
         return self._adjoint_op
 
     def _rmatvec(self, x: npt.NDArray[Any]) -> npt.NDArray[Any]:
-        shape = x.shape
         self.products += 1
-        y = self._adjoint_native().matvec(self._vector(x).reshape(-1), self.threads)
-        return y.reshape(shape)
+        y = self._adjoint_native().matvec(self._vector(x).reshape(-1), self.problem.pool)
+        return y.reshape(-1, 1) if x.ndim == 2 else y  # type: ignore[no-any-return]
 
     def _rmatmat(self, x: npt.NDArray[Any]) -> npt.NDArray[Any]:
         self.products += x.shape[1]
-        return self._adjoint_native().matmat(self._vector(x), self.threads)
+        return self._adjoint_native().matmat(self._vector(x), self.problem.pool)  # type: ignore[no-any-return]
 
     def _adjoint(self) -> LadderOperator:
-        return LadderOperator(self.expr.adjoint(), self.space, threads=self.threads)
+        if self.problem.is_square:
+            return LadderOperator(self.expr.adjoint(), self.space, threads=self.threads)
+        return LadderOperator(
+            as_problem(
+                self.expr.adjoint(),
+                self.problem.target,
+                target=self.problem.space,
+                threads=self.threads,
+            )
+        )
 
 
 def build_operator(
-    expr: LadderExpr, space: FockSpace, *, threads: int | None = None
+    expr: LadderExpr | Problem, space: Any = None, *, threads: int | None = None
 ) -> LadderOperator:
     """A matrix-free ``LinearOperator`` for ``expr`` on ``space``.
 
@@ -130,8 +158,9 @@ def build_operator(
 
     Parameters
     ----------
-    expr : LadderExpr
-        The operator (same convention as :func:`build_matrix`).
+    expr : LadderExpr or Problem
+        The operator (same convention as :func:`build_matrix`), or a prepared problem
+        (then ``space`` is omitted and its compiled operator is reused).
     space : FockSpace
         The basis.
     threads : int, optional

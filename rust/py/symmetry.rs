@@ -3,11 +3,13 @@
 //! and Lanczos methods as `NativeOperator`).
 
 use crate::errors::{guarded, PyCoreError};
+use crate::levels::{levels_to_python, owned_start, InStart, LevelsTuple};
 use crate::{
     csr_to_python, detached, outcome_to_python, InBlock, InTerm, InVector, LanczosTuple, NativeSpace,
     OwnedVector, Threads,
 };
 use fockmill_core::lanczos::LanczosOptions;
+use fockmill_core::levels::LevelsOptions;
 use fockmill_core::symmetry::{Generator, SectorOperator, SymmetricSpace};
 use fockmill_core::{Operator, RawTerm};
 use num_complex::Complex64;
@@ -89,7 +91,7 @@ impl NativeSymmetricSpace {
         guarded(|| {
             let sector = &self.inner;
             let n = sector.base().dim() as usize;
-            match v.to_owned_vec() {
+            match v.to_owned_vec()? {
                 OwnedVector::Real(x) if sector.is_real() => {
                     let w = detached(py, threads, |r, s| {
                         let mut w = fockmill_core::memory::try_filled(n, 0.0, "the expanded vector")?;
@@ -121,7 +123,7 @@ impl NativeSymmetricSpace {
         guarded(|| {
             let sector = &self.inner;
             let n = sector.dim() as usize;
-            match w.to_owned_vec() {
+            match w.to_owned_vec()? {
                 OwnedVector::Real(x) if sector.is_real() => {
                     let v = detached(py, threads, |r, s| {
                         let mut v = fockmill_core::memory::try_filled(n, 0.0, "the projected vector")?;
@@ -231,7 +233,7 @@ impl NativeSymmetricOperator {
     ) -> PyResult<Bound<'py, PyAny>> {
         guarded(|| {
             let sector = &self.sector;
-            match (x.to_owned_vec(), &self.real) {
+            match (x.to_owned_vec()?, &self.real) {
                 (OwnedVector::Real(x), Some(op)) => {
                     let y = detached(py, threads, |r, s| {
                         let mut y = fockmill_core::memory::try_filled(x.len(), 0.0, "the product")?;
@@ -336,7 +338,7 @@ impl NativeSymmetricOperator {
                 seed,
             };
             let sector = &self.sector;
-            let start = start.map(|s| s.to_owned_vec());
+            let start = start.map(|s| s.to_owned_vec()).transpose()?;
             match &self.real {
                 Some(op) => {
                     let start: Option<Vec<f64>> = match start {
@@ -355,6 +357,50 @@ impl NativeSymmetricOperator {
                         self.complex.lanczos_ground(sector, stored, start, &opts, r, s)
                     })?;
                     Ok(outcome_to_python(py, out))
+                }
+            }
+        })
+    }
+
+    /// Lowest `k` levels on the sector (as `NativeOperator.lanczos_levels`):
+    /// (energies, vectors (dim, k), residuals, products, restarts, converged).
+    #[pyo3(signature = (k, tol=1e-9, max_products=10_000, seed=0x5EED, start=None, threads=None, stored=false, basis=0))]
+    #[allow(clippy::too_many_arguments)]
+    fn lanczos_levels<'py>(
+        &self,
+        py: Python<'py>,
+        k: usize,
+        tol: f64,
+        max_products: usize,
+        seed: u64,
+        start: Option<InStart<'py>>,
+        threads: Option<Threads<'_>>,
+        stored: bool,
+        basis: usize,
+    ) -> PyResult<LevelsTuple<'py>> {
+        guarded(|| {
+            let opts = LevelsOptions {
+                tol,
+                max_products,
+                seed,
+                basis,
+            };
+            let sector = &self.sector;
+            let dim = sector.dim() as usize;
+            match &self.real {
+                Some(op) => {
+                    let start = start.as_ref().map(owned_start::<f64>).transpose()?;
+                    let out = detached(py, threads, |r, s| {
+                        op.lowest_levels(sector, stored, k, start, &opts, r, s)
+                    })?;
+                    levels_to_python(py, dim, out)
+                }
+                None => {
+                    let start = start.as_ref().map(owned_start::<Complex64>).transpose()?;
+                    let out = detached(py, threads, |r, s| {
+                        self.complex.lowest_levels(sector, stored, k, start, &opts, r, s)
+                    })?;
+                    levels_to_python(py, dim, out)
                 }
             }
         })

@@ -33,6 +33,7 @@
 use crate::build::{Csr, CsrAny, CsrIndex};
 use crate::error::{CoreError, CoreResult};
 use crate::lanczos::{self, HermitianMap, LanczosOptions, LanczosOutcome};
+use crate::levels::{self, LevelsOptions, LevelsOutcome};
 use crate::memory::try_filled;
 use crate::parallel::{Interrupt, Runner, BLOCKS_PER_CHECK, BLOCK_ROWS};
 use crate::scalar::Scalar;
@@ -1255,6 +1256,38 @@ impl<S: Scalar> SectorOperator<S> {
             }
             CsrAny::Wide(c) => {
                 lanczos::ground_state(&lanczos::CsrMap::new(c), start, opts, runner, interrupt)
+            }
+        }
+    }
+}
+
+impl<S: Scalar> SectorOperator<S> {
+    /// The `k` lowest levels on the sector (thick-restart Lanczos), matrix-free or on a
+    /// CSR matrix built first when `stored`.
+    ///
+    /// # Errors
+    /// As [`levels::lowest_levels`] and [`SectorOperator::build_csr`].
+    #[allow(clippy::too_many_arguments)]
+    pub fn lowest_levels(
+        &self,
+        sector: &SymmetricSpace,
+        stored: bool,
+        k: usize,
+        start: Option<Vec<S>>,
+        opts: &LevelsOptions,
+        runner: &Runner,
+        interrupt: &dyn Interrupt,
+    ) -> CoreResult<LevelsOutcome<S>> {
+        if !stored {
+            let map = SectorMap { sector, op: self };
+            return levels::lowest_levels(&map, k, start, opts, runner, interrupt);
+        }
+        match self.build_csr(sector, runner, interrupt, false)? {
+            CsrAny::Narrow(c) => {
+                levels::lowest_levels(&lanczos::CsrMap::new(c), k, start, opts, runner, interrupt)
+            }
+            CsrAny::Wide(c) => {
+                levels::lowest_levels(&lanczos::CsrMap::new(c), k, start, opts, runner, interrupt)
             }
         }
     }
