@@ -354,8 +354,9 @@ def test_solvers_agree_on_a_sector() -> None:
     )
     assert np.ptp(energies) < 1e-9
     reference = np.linalg.eigvalsh(fm.build_matrix(h, s).toarray())
-    levels = fm.lowest_levels(h, s, k=3, method="operator")
-    np.testing.assert_allclose(levels.energies, reference[:3], atol=1e-8)
+    for method in ("operator", "lanczos"):
+        levels = fm.lowest_levels(h, s, k=3, method=method)
+        np.testing.assert_allclose(levels.energies, reference[:3], atol=1e-8)
     op = fm.build_operator(h, s)
     x = np.random.default_rng(1).normal(size=s.dim)
     np.testing.assert_allclose(op @ x, fm.build_matrix(h, s) @ x, atol=1e-12)
