@@ -46,7 +46,10 @@ def as_expr(expr: object) -> LadderExpr:
 def check_space(space: object) -> FockSpace:
     """The space (a FockSpace or a SymmetricSpace sector), or a clear error."""
     if not isinstance(space, FockSpace | SymmetricSpace):
-        raise TypeError(f"expected a fm.FockSpace or fm.SymmetricSpace; got {type(space).__name__}")
+        raise TypeError(
+            f"expected a fm.FockSpace; got {type(space).__name__} (a fm.SymmetricSpace "
+            "sector is accepted too)"
+        )
     return space  # type: ignore[return-value]
 
 
