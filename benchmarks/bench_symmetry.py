@@ -29,13 +29,13 @@ import os
 import subprocess
 import sys
 import time
+from collections.abc import Callable
 
 import numpy as np
 
 sys.path.insert(0, os.path.dirname(__file__))
-from _common import bose_hubbard_ring, median_time, table, unit_filling
-
 import fockmill as fm
+from _common import bose_hubbard_ring, median_time, table, unit_filling
 
 
 def sector_of(sites: int) -> fm.SymmetricSpace:
@@ -45,40 +45,62 @@ def sector_of(sites: int) -> fm.SymmetricSpace:
     )
 
 
+def cpu_time(run: Callable[[], object], repeats: int) -> float:
+    """Median CPU time (all threads of this process) of ``repeats`` calls: on a shared,
+    overloaded machine it tracks the work done better than the wall time."""
+    times = []
+    for _ in range(repeats):
+        t0 = time.process_time()
+        run()
+        times.append(time.process_time() - t0)
+    return float(np.median(times))
+
+
+def rate_row(sites: int, repeats: int) -> list[str]:
+    """One row of the rates table."""
+    h = bose_hubbard_ring(sites)
+    base = unit_filling(sites)
+    t_enum, sector = median_time(lambda: sector_of(sites), repeats)
+    t_sb, m_sector = median_time(lambda: fm.build_matrix(h, sector), repeats)
+    t_fb, _ = median_time(lambda: fm.build_matrix(h, base), repeats)
+    op_s = fm.build_operator(h, sector)
+    op_f = fm.build_operator(h, base)
+    xs = np.random.default_rng(0).normal(size=sector.dim)
+    xf = np.random.default_rng(0).normal(size=base.dim)
+    t_sp, _ = median_time(lambda: op_s @ xs, repeats)
+    t_fp, _ = median_time(lambda: op_f @ xf, repeats)
+    t_sc, _ = median_time(lambda: m_sector @ xs, repeats)
+    c_sb = cpu_time(lambda: fm.build_matrix(h, sector), repeats)
+    c_fb = cpu_time(lambda: fm.build_matrix(h, base), repeats)
+    c_sp = cpu_time(lambda: op_s @ xs, repeats)
+    c_fp = cpu_time(lambda: op_f @ xf, repeats)
+    return [
+        str(sites),
+        f"{base.dim:,}",
+        f"{sector.dim:,}",
+        f"{t_enum:.2f}",
+        f"{t_sb:.2f}",
+        f"{t_fb:.2f}",
+        f"{t_fb / t_sb:.1f}",
+        f"{sector.dim / t_sp:.3g}",
+        f"{base.dim / t_fp:.3g}",
+        f"{t_sp * 1e3:.0f}",
+        f"{t_fp * 1e3:.0f}",
+        f"{t_fp / t_sp:.1f}",
+        f"{t_sc * 1e3:.1f}",
+        f"{c_sb:.2f}",
+        f"{c_fb:.2f}",
+        f"{sector.dim / c_sp:.3g}",
+        f"{base.dim / c_fp:.3g}",
+        f"{c_fp / c_sp:.2f}",
+    ]
+
+
 def rates(sites_list: list[int], repeats: int) -> None:
     rows = []
     for sites in sites_list:
-        h = bose_hubbard_ring(sites)
-        base = unit_filling(sites)
-        t_enum, sector = median_time(lambda s=sites: sector_of(s), repeats)
-        t_sb, m_sector = median_time(lambda: fm.build_matrix(h, sector), repeats)
-        t_fb, m_full = median_time(lambda: fm.build_matrix(h, base), repeats)
-        op_s = fm.build_operator(h, sector)
-        op_f = fm.build_operator(h, base)
-        xs = np.random.default_rng(0).normal(size=sector.dim)
-        xf = np.random.default_rng(0).normal(size=base.dim)
-        t_sp, _ = median_time(lambda: op_s @ xs, repeats)
-        t_fp, _ = median_time(lambda: op_f @ xf, repeats)
-        t_sc, _ = median_time(lambda: m_sector @ xs, repeats)
-        rows.append(
-            [
-                str(sites),
-                f"{base.dim:,}",
-                f"{sector.dim:,}",
-                f"{t_enum:.2f}",
-                f"{t_sb:.2f}",
-                f"{t_fb:.2f}",
-                f"{t_fb / t_sb:.1f}",
-                f"{sector.dim / t_sp:.3g}",
-                f"{base.dim / t_fp:.3g}",
-                f"{t_sp * 1e3:.0f}",
-                f"{t_fp * 1e3:.0f}",
-                f"{t_fp / t_sp:.1f}",
-                f"{t_sc * 1e3:.1f}",
-            ]
-        )
+        rows.append(rate_row(sites, repeats))
         print(rows[-1], flush=True)
-        del m_sector, m_full
     headers = [
         "L=N",
         "base dim",
@@ -93,13 +115,20 @@ def rates(sites_list: list[int], repeats: int) -> None:
         "full ms/prod",
         "prod ratio",
         "sector CSR ms/prod",
+        "sector build cpu s",
+        "full build cpu s",
+        "sector rows/cpu-s",
+        "full rows/cpu-s",
+        "prod cpu ratio",
     ]
     print()
     print(table(headers, rows))
     print(
         f"\nmedians of {repeats}; sector = momentum 0, reflection-even (group of order 2L); "
         "ratio = full-space time / sector time; 'sector CSR' = scipy product with the "
-        "stored sector matrix."
+        "stored sector matrix; 'cpu' columns use the process CPU time (all threads), "
+        f"steadier than wall time on a shared machine; load average at the end "
+        f"{os.getloadavg()[0]:.1f} on {os.cpu_count()} cores."
     )
 
 
@@ -168,9 +197,7 @@ def child(sites: int, store: bool, probe: bool, full: bool, products: int) -> di
     return result
 
 
-def ground(
-    sites_list: list[int], store: bool, probe: bool, full: list[int], products: int
-) -> None:
+def ground(sites_list: list[int], store: bool, probe: bool, full: list[int], products: int) -> None:
     rows = []
     for sites in sites_list:
         r = child(sites, store, probe, sites in full, products)
