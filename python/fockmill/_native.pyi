@@ -12,6 +12,7 @@ import numpy as np
 import numpy.typing as npt
 
 __all__ = [
+    "NativeCsr",
     "NativeOperator",
     "NativePool",
     "NativeSpace",
@@ -300,6 +301,18 @@ class NativeSymmetricOperator:
         stored: bool = False,
     ) -> tuple[float, _RealOrComplex1D, float, int, int, int, bool]:
         """Four-vector Lanczos ground state on the sector."""
+    def lanczos_levels(
+        self,
+        k: int,
+        tol: float = 1e-9,
+        max_products: int = 10_000,
+        seed: int = 0x5EED,
+        start: _RealOrComplex1D | _RealOrComplex2D | None = None,
+        threads: int | NativePool | None = None,
+        stored: bool = False,
+        basis: int = 0,
+    ) -> tuple[npt.NDArray[np.float64], _RealOrComplex2D, npt.NDArray[np.float64], int, int, bool]:
+        """Lowest ``k`` levels on the sector, as ``NativeOperator.lanczos_levels``."""
 
 def monomial_expectations(
     space: NativeSpace,
