@@ -769,8 +769,7 @@ impl SymmetricSpace {
                 // v[u] = (1/|stab|) Σ_g χ(g) w[g u] / sqrt(o_u) = Σ_g χ(g) w[g u] / sqrt(|G| |stab|).
                 let mut acc = S::ZERO;
                 let mut stab = 0usize;
-                for h in 0..self.order {
-                    let inv = &self.inverse[h * m..(h + 1) * m];
+                for (inv, &chi) in self.inverse.chunks_exact(m).zip(&chars) {
                     for (j, &src) in inv.iter().enumerate() {
                         image[j] = occ[src as usize];
                     }
@@ -778,7 +777,7 @@ impl SymmetricSpace {
                         stab += 1;
                     }
                     let s = self.base.rank(&image).expect("images of states are states");
-                    acc += chars[h] * w[s as usize];
+                    acc += chi * w[s as usize];
                 }
                 *slot = acc.scale(1.0 / ((self.order * stab) as f64).sqrt());
             }
