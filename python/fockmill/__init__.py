@@ -28,6 +28,9 @@ density_correlations
     ``⟨n_i n_j⟩`` for every pair of modes in one pass.
 save_state, load_state, SavedState, StateFileError
     A state saved with its basis (``.npz``), refused on load when the basis differs.
+SymmetricSpace, ModePermutation, ring_translation, ring_reflection, torus_translations,
+momentum_levels, Dispersion
+    Symmetry sectors of mode-permutation groups (momentum, reflection) and E(k) tables.
 Model, models
     A Hamiltonian linear in named parameters on a fixed space; ready-made builders
     (Bose–Hubbard on any graph, Jaynes–Cummings–Hubbard arrays, Kerr networks, drives).
@@ -68,18 +71,29 @@ from fockmill._space import FockSpace
 from fockmill._statefile import SavedState, StateFileError, load_state, save_state
 from fockmill._store import PointResult, ResultsStore, StoreError, SweepTable
 from fockmill._sweep import run_sweep
+from fockmill._symmetry import (
+    Dispersion,
+    ModePermutation,
+    SymmetricSpace,
+    momentum_levels,
+    ring_reflection,
+    ring_translation,
+    torus_translations,
+)
 from fockmill._truncation import CutoffScan, converge_cutoffs
 from fockmill.exceptions import CutoffWarning
 
 __all__ = [
     "CutoffScan",
     "CutoffWarning",
+    "Dispersion",
     "FockSpace",
     "GroundState",
     "LadderExpr",
     "LadderOperator",
     "Levels",
     "MemoryEstimate",
+    "ModePermutation",
     "Model",
     "ModelFile",
     "ModelFileError",
@@ -91,6 +105,7 @@ __all__ = [
     "StoreError",
     "SweepGrid",
     "SweepTable",
+    "SymmetricSpace",
     "__version__",
     "available_memory",
     "build_matrix",
@@ -110,6 +125,7 @@ __all__ = [
     "lowering",
     "lowest_levels",
     "models",
+    "momentum_levels",
     "number",
     "number_variances",
     "occupation_distribution",
@@ -119,7 +135,10 @@ __all__ = [
     "populations",
     "prepare",
     "raising",
+    "ring_reflection",
+    "ring_translation",
     "run_sweep",
     "save_state",
     "top_level_weights",
+    "torus_translations",
 ]

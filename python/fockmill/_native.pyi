@@ -16,6 +16,8 @@ __all__ = [
     "NativeOperator",
     "NativePool",
     "NativeSpace",
+    "NativeSymmetricOperator",
+    "NativeSymmetricSpace",
     "__version__",
     "default_threads",
     "density_correlations",
@@ -214,6 +216,103 @@ class NativeCsr:
         basis: int = 0,
     ) -> tuple[npt.NDArray[np.float64], _RealOrComplex2D, npt.NDArray[np.float64], int, int, bool]:
         """As :meth:`NativeOperator.lanczos_levels`, on this matrix."""
+
+@final
+class NativeSymmetricSpace:
+    """A symmetry sector: orbit representatives of a group of mode permutations whose
+    stabilisers carry the trivial character.
+
+    Parameters
+    ----------
+    space : NativeSpace
+        The base space.
+    generators : list of (images, label)
+        ``images[i]``: the mode the occupation of mode ``i`` moves to; ``label`` in
+        ``range(order)`` selects the character ``exp(2πi label / order)``.
+    """
+
+    def __new__(
+        cls,
+        space: NativeSpace,
+        generators: list[tuple[list[int], int]],
+        threads: int | NativePool | None = None,
+    ) -> NativeSymmetricSpace: ...
+    @property
+    def dim(self) -> int: ...
+    @property
+    def order(self) -> int: ...
+    @property
+    def is_real(self) -> bool: ...
+    def representatives(self) -> npt.NDArray[np.uint64]:
+        """Base ranks of the orbit representatives, ascending (the sector basis)."""
+    def expand(
+        self, v: _RealOrComplex1D, threads: int | NativePool | None = None
+    ) -> _RealOrComplex1D:
+        """The base-space vector of a sector vector (norm-preserving)."""
+    def project(
+        self, w: _RealOrComplex1D, threads: int | NativePool | None = None
+    ) -> _RealOrComplex1D:
+        """The adjoint of ``expand``."""
+
+@final
+class NativeSymmetricOperator:
+    """An operator commuting with a sector's group, on the sector (same protocol as
+    :class:`NativeOperator`)."""
+
+    def __new__(
+        cls,
+        sector: NativeSymmetricSpace,
+        terms: list[tuple[float, float, list[tuple[int, int, int]]]],
+    ) -> NativeSymmetricOperator: ...
+    @property
+    def is_real(self) -> bool: ...
+    @property
+    def terms(self) -> int: ...
+    @property
+    def dim(self) -> int: ...
+    def build_csr(
+        self, threads: int | NativePool | None = None, force_wide: bool = False
+    ) -> tuple[
+        npt.NDArray[np.int32] | npt.NDArray[np.int64],
+        npt.NDArray[np.int32] | npt.NDArray[np.int64],
+        _RealOrComplex1D,
+    ]:
+        """Canonical CSR arrays of the sector matrix."""
+    def matvec(
+        self, x: _RealOrComplex1D, threads: int | NativePool | None = None
+    ) -> _RealOrComplex1D:
+        """``H x`` on the sector."""
+    def matmat(
+        self, x: _RealOrComplex2D, threads: int | NativePool | None = None
+    ) -> _RealOrComplex2D:
+        """``H X`` for a ``(dim, k)`` block."""
+    def estimate_nnz(
+        self, samples: int = 2048, threads: int | NativePool | None = None
+    ) -> tuple[float, float, bool, int]:
+        """``(nnz, standard error, exact, largest row)`` without building."""
+    def lanczos_ground(
+        self,
+        tol: float = 1e-9,
+        max_steps: int = 400,
+        max_restarts: int = 8,
+        seed: int = 0x5EED,
+        start: _RealOrComplex1D | None = None,
+        threads: int | NativePool | None = None,
+        stored: bool = False,
+    ) -> tuple[float, _RealOrComplex1D, float, int, int, int, bool]:
+        """Four-vector Lanczos ground state on the sector."""
+    def lanczos_levels(
+        self,
+        k: int,
+        tol: float = 1e-9,
+        max_products: int = 10_000,
+        seed: int = 0x5EED,
+        start: _RealOrComplex1D | _RealOrComplex2D | None = None,
+        threads: int | NativePool | None = None,
+        stored: bool = False,
+        basis: int = 0,
+    ) -> tuple[npt.NDArray[np.float64], _RealOrComplex2D, npt.NDArray[np.float64], int, int, bool]:
+        """Lowest ``k`` levels on the sector, as ``NativeOperator.lanczos_levels``."""
 
 def monomial_expectations(
     space: NativeSpace,

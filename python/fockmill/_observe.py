@@ -16,6 +16,7 @@ from fockmill import _native
 from fockmill._expr import LadderExpr, MonomialKey
 from fockmill._prepare import as_expr, check_space, check_threads
 from fockmill._space import FockSpace
+from fockmill._symmetry import SymmetricSpace
 from fockmill.exceptions import SizeLimitError
 
 __all__ = [
@@ -116,6 +117,8 @@ def expectation(
     e = as_expr(expr)
     s = check_space(space)
     v = check_vector(s, vector)
+    if isinstance(s, SymmetricSpace):  # any expression: through the base space
+        return expectation(e, s.base, s.expand(v, threads=threads), threads=threads)
     terms = e.terms()
     for _, key in terms:
         _check_modes(key, s)
@@ -140,6 +143,8 @@ def occupation_distribution(
     """
     s = check_space(space)
     v = check_vector(s, vector)
+    if isinstance(s, SymmetricSpace):
+        return occupation_distribution(s.base, s.expand(v, threads=threads), threads=threads)
     flat = _native.occupation_distributions(s.native, v, check_threads(threads)) / _norm_sq(v)
     out = np.zeros((s.modes, max(s.cutoffs) + 1))
     start = 0
@@ -193,6 +198,8 @@ def one_body_matrix(
     """
     s = check_space(space)
     v = check_vector(s, vector)
+    if isinstance(s, SymmetricSpace):
+        return one_body_matrix(s.base, s.expand(v, threads=threads), threads=threads)
     m = s.modes
     pairs = [(i, j) for i in range(m) for j in range(i + 1, m)]
     keys: list[MonomialKey] = [((i, 1, 0), (j, 0, 1)) for i, j in pairs]
@@ -239,6 +246,8 @@ def entanglement_entropy(
     """
     s = check_space(space)
     v = check_vector(s, vector)
+    if isinstance(s, SymmetricSpace):
+        return entanglement_entropy(s.base, s.expand(v), subsystem, max_block_bytes=max_block_bytes)
     if isinstance(subsystem, str | bytes) or not isinstance(subsystem, Sequence | np.ndarray):
         raise TypeError(
             f"subsystem must be a sequence of mode indices such as [0, 1]; got {subsystem!r}"

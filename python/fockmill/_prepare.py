@@ -16,6 +16,7 @@ from fockmill import _native
 from fockmill._args import check_threads
 from fockmill._expr import LadderExpr, format_monomial
 from fockmill._space import FockSpace
+from fockmill._symmetry import SymmetricSpace
 from fockmill.exceptions import ModeIndexError
 
 __all__ = [
@@ -43,10 +44,13 @@ def as_expr(expr: object) -> LadderExpr:
 
 
 def check_space(space: object) -> FockSpace:
-    """The space, or a clear error."""
-    if not isinstance(space, FockSpace):
-        raise TypeError(f"expected a fm.FockSpace; got {type(space).__name__}")
-    return space
+    """The space (a FockSpace or a SymmetricSpace sector), or a clear error."""
+    if not isinstance(space, FockSpace | SymmetricSpace):
+        raise TypeError(
+            f"expected a fm.FockSpace; got {type(space).__name__} (a fm.SymmetricSpace "
+            "sector is accepted too)"
+        )
+    return space  # type: ignore[return-value]
 
 
 def check_terms(e: LadderExpr, s: FockSpace) -> None:
@@ -100,4 +104,6 @@ def compile_operator(expr: object, space: object, target: object = None) -> Any:
     if target is not None and target != s:
         raise NotImplementedError("operators between two different spaces are not available yet")
     check_terms(e, s)
+    if isinstance(s, SymmetricSpace):
+        return s._compile(e)
     return _native.NativeOperator(s.native, e.to_native())

@@ -120,6 +120,8 @@ def converge_cutoffs(
     """
     e = as_expr(expr)
     s = check_space(space)
+    if not isinstance(s, FockSpace):
+        raise TypeError("converge_cutoffs needs a fm.FockSpace; pass the sector's .base")
     for name, value in (("step", step), ("max_cutoff", max_cutoff)):
         if isinstance(value, bool) or not isinstance(value, int | np.integer):
             raise TypeError(f"{name} must be a positive integer; got {value!r}")

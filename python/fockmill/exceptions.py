@@ -19,6 +19,7 @@ __all__ = [
     "SizeLimitError",
     "SpaceError",
     "StoreError",
+    "SymmetryError",
 ]
 
 
@@ -36,6 +37,11 @@ class ModeIndexError(ValueError, IndexError):
 
 class NotHermitianError(ValueError):
     """A Hermitian operator was required (an energy, a ground state) but not given."""
+
+
+class SymmetryError(ValueError):
+    """A symmetry is invalid for the space, its labels are no one-dimensional
+    representation, or an operator to be used on a sector does not commute with it."""
 
 
 class SizeLimitError(MemoryError):

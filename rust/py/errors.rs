@@ -47,6 +47,7 @@ impl From<PyCoreError> for PyErr {
                 PyValueError::new_err(message)
             }
             CoreError::Interrupted => PyKeyboardInterrupt::new_err("interrupted"),
+            CoreError::Symmetry(_) => raise("SymmetryError", message, PyValueError::new_err::<String>),
             CoreError::NotConverged(_) => {
                 raise("ConvergenceError", message, PyRuntimeError::new_err::<String>)
             }

@@ -45,7 +45,7 @@ impl FromInput for Complex64 {
 }
 
 /// Owned copy (vector after vector) of a start, allocated fallibly.
-fn owned_start<S: FromInput>(start: &InStart<'_>) -> PyResult<Vec<S>> {
+pub(crate) fn owned_start<S: FromInput>(start: &InStart<'_>) -> PyResult<Vec<S>> {
     fn copy<T: Copy, S>(len: usize, items: impl Iterator<Item = T>, f: impl Fn(T) -> S) -> PyResult<Vec<S>> {
         let mut out = memory::try_with_capacity(len, "a copy of the start vectors").map_err(PyCoreError)?;
         out.extend(items.map(f));
@@ -76,7 +76,7 @@ pub type LevelsTuple<'py> = (
     bool,
 );
 
-fn levels_to_python<'py, S: Scalar + numpy::Element>(
+pub(crate) fn levels_to_python<'py, S: Scalar + numpy::Element>(
     py: Python<'py>,
     dim: usize,
     out: LevelsOutcome<S>,

@@ -6,6 +6,7 @@ mod correlations;
 mod errors;
 mod interrupt;
 mod levels;
+mod symmetry;
 
 use errors::{guarded, PyCoreError};
 use fockmill_core::build::{build_csr_with, CsrAny};
@@ -700,6 +701,7 @@ fn _native(m: &Bound<'_, PyModule>) -> PyResult<()> {
     m.add_function(wrap_pyfunction!(monomial_expectations, m)?)?;
     m.add_function(wrap_pyfunction!(occupation_distributions, m)?)?;
     m.add_function(wrap_pyfunction!(default_threads, m)?)?;
+    symmetry::register(m)?;
     levels::register(m)?;
     m.add_function(wrap_pyfunction!(correlations::density_correlations, m)?)?;
     Ok(())

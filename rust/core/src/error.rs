@@ -46,6 +46,9 @@ pub enum CoreError {
     Interrupted,
     /// An iterative solver did not reach its tolerance.
     NotConverged(String),
+    /// A symmetry specification is invalid (not a permutation, breaks the space, labels
+    /// out of range or not a one-dimensional representation, operator not invariant).
+    Symmetry(String),
 }
 
 impl fmt::Display for CoreError {
@@ -83,7 +86,8 @@ impl fmt::Display for CoreError {
             CoreError::NonFinite(m)
             | CoreError::Shape(m)
             | CoreError::InvalidArgument(m)
-            | CoreError::NotConverged(m) => write!(f, "{m}"),
+            | CoreError::NotConverged(m)
+            | CoreError::Symmetry(m) => write!(f, "{m}"),
             CoreError::Interrupted => write!(f, "interrupted"),
         }
     }

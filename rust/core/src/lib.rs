@@ -26,6 +26,7 @@ pub mod observe;
 pub mod parallel;
 pub mod scalar;
 pub mod space;
+pub mod symmetry;
 pub mod terms;
 pub mod tridiag;
 pub mod vecops;

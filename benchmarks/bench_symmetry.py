@@ -1,0 +1,279 @@
+"""Benchmark: symmetry sectors of the Bose–Hubbard ring at unit filling.
+
+Two tables:
+
+``rates``
+    Sector (momentum 0, reflection-even) build and product rates beside the full-space
+    kernel on the same model, as rows per second and as time per operation.
+``ground``
+    Ground state in the momentum-0, reflection-even sector, each size in a fresh process
+    (peak resident memory from wait4): orbit enumeration time, solve time, products,
+    E0, and E0 of the full space where it is cheap. ``--probe`` sizes only enumerate the
+    sector and time a few matrix-free products, then project the solve.
+
+Targets: L = 16 in < 5 min, L = 17 in < 30 min; L = 18: measure, run only if the
+projection is under 3 h.
+
+Usage::
+
+    python benchmarks/bench_symmetry.py rates --sites 11 12 13
+    python benchmarks/bench_symmetry.py ground --sites 12 13 14 15 16 [--full 12 13]
+    python benchmarks/bench_symmetry.py ground --sites 18 --probe
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import os
+import subprocess
+import sys
+import time
+from collections.abc import Callable
+
+import numpy as np
+
+sys.path.insert(0, os.path.dirname(__file__))
+import fockmill as fm
+from _common import bose_hubbard_ring, median_time, table, unit_filling
+
+
+def sector_of(sites: int) -> fm.SymmetricSpace:
+    """Momentum 0, reflection-even sector of the unit-filled ring."""
+    return fm.SymmetricSpace(
+        unit_filling(sites), [(fm.ring_translation(sites), 0), (fm.ring_reflection(sites), 0)]
+    )
+
+
+def cpu_time(run: Callable[[], object], repeats: int) -> float:
+    """Median CPU time (all threads of this process) of ``repeats`` calls: on a shared,
+    overloaded machine it tracks the work done better than the wall time."""
+    times = []
+    for _ in range(repeats):
+        t0 = time.process_time()
+        run()
+        times.append(time.process_time() - t0)
+    return float(np.median(times))
+
+
+def rate_row(sites: int, repeats: int) -> list[str]:
+    """One row of the rates table."""
+    h = bose_hubbard_ring(sites)
+    base = unit_filling(sites)
+    t_enum, sector = median_time(lambda: sector_of(sites), repeats)
+    t_sb, m_sector = median_time(lambda: fm.build_matrix(h, sector), repeats)
+    t_fb, _ = median_time(lambda: fm.build_matrix(h, base), repeats)
+    op_s = fm.build_operator(h, sector)
+    op_f = fm.build_operator(h, base)
+    xs = np.random.default_rng(0).normal(size=sector.dim)
+    xf = np.random.default_rng(0).normal(size=base.dim)
+    t_sp, _ = median_time(lambda: op_s @ xs, repeats)
+    t_fp, _ = median_time(lambda: op_f @ xf, repeats)
+    t_sc, _ = median_time(lambda: m_sector @ xs, repeats)
+    c_sb = cpu_time(lambda: fm.build_matrix(h, sector), repeats)
+    c_fb = cpu_time(lambda: fm.build_matrix(h, base), repeats)
+    c_sp = cpu_time(lambda: op_s @ xs, repeats)
+    c_fp = cpu_time(lambda: op_f @ xf, repeats)
+    return [
+        str(sites),
+        f"{base.dim:,}",
+        f"{sector.dim:,}",
+        f"{t_enum:.2f}",
+        f"{t_sb:.2f}",
+        f"{t_fb:.2f}",
+        f"{t_fb / t_sb:.1f}",
+        f"{sector.dim / t_sp:.3g}",
+        f"{base.dim / t_fp:.3g}",
+        f"{t_sp * 1e3:.0f}",
+        f"{t_fp * 1e3:.0f}",
+        f"{t_fp / t_sp:.1f}",
+        f"{t_sc * 1e3:.1f}",
+        f"{c_sb:.2f}",
+        f"{c_fb:.2f}",
+        f"{sector.dim / c_sp:.3g}",
+        f"{base.dim / c_fp:.3g}",
+        f"{c_fp / c_sp:.2f}",
+    ]
+
+
+def rates(sites_list: list[int], repeats: int) -> None:
+    rows = []
+    for sites in sites_list:
+        rows.append(rate_row(sites, repeats))
+        print(rows[-1], flush=True)
+    headers = [
+        "L=N",
+        "base dim",
+        "sector dim",
+        "enum s",
+        "sector build s",
+        "full build s",
+        "build ratio",
+        "sector rows/s",
+        "full rows/s",
+        "sector ms/prod",
+        "full ms/prod",
+        "prod ratio",
+        "sector CSR ms/prod",
+        "sector build cpu s",
+        "full build cpu s",
+        "sector rows/cpu-s",
+        "full rows/cpu-s",
+        "prod cpu ratio",
+    ]
+    print()
+    print(table(headers, rows))
+    print(
+        f"\nmedians of {repeats}; sector = momentum 0, reflection-even (group of order 2L); "
+        "ratio = full-space time / sector time; 'sector CSR' = scipy product with the "
+        "stored sector matrix; 'cpu' columns use the process CPU time (all threads), "
+        f"steadier than wall time on a shared machine; load average at the end "
+        f"{os.getloadavg()[0]:.1f} on {os.cpu_count()} cores."
+    )
+
+
+CHILD = """
+import json, sys, time
+import numpy as np
+sys.path.insert(0, {here!r})
+from bench_symmetry import sector_of
+from _common import bose_hubbard_ring, unit_filling
+import fockmill as fm
+sites, store, probe, full = {sites}, {store}, {probe}, {full}
+h = bose_hubbard_ring(sites)
+t0 = time.perf_counter()
+sector = sector_of(sites)
+enum = time.perf_counter() - t0
+print(json.dumps(dict(stage="enumerated", dim=sector.dim, seconds=enum)), flush=True)
+out = dict(dim=sector.dim, enum=enum)
+if probe:
+    op = sector._compile(h)
+    x = np.random.default_rng(0).normal(size=sector.dim)
+    times = []
+    for _ in range({products}):
+        t = time.perf_counter()
+        op.matvec(x)
+        times.append(time.perf_counter() - t)
+        print(json.dumps(dict(stage="product", seconds=times[-1])), flush=True)
+    out["product"] = float(np.median(times))
+else:
+    t0 = time.perf_counter()
+    g = fm.ground_state(h, sector, method="lanczos", tol=1e-8, cutoff_warning=None,
+                        store_matrix=store)
+    out.update(energy=g.energy, residual=g.residual, products=g.products,
+               seconds=time.perf_counter() - t0)
+    if full:
+        t0 = time.perf_counter()
+        gf = fm.ground_state(h, unit_filling(sites), method="lanczos", tol=1e-8,
+                             cutoff_warning=None)
+        out.update(full_energy=gf.energy, full_seconds=time.perf_counter() - t0)
+print(json.dumps(out), flush=True)
+"""
+
+
+def child(sites: int, store: bool, probe: bool, full: bool, products: int) -> dict[str, float]:
+    """Run one size in a fresh process; its peak resident memory comes from wait4."""
+    code = CHILD.format(
+        here=os.path.dirname(os.path.abspath(__file__)),
+        sites=sites,
+        store=store,
+        probe=probe,
+        full=full,
+        products=products,
+    )
+    t0 = time.perf_counter()
+    proc = subprocess.Popen([sys.executable, "-c", code], stdout=subprocess.PIPE, text=True)
+    lines = []
+    assert proc.stdout is not None
+    for line in proc.stdout:
+        lines.append(line)
+        print(f"  [L={sites}] {line.strip()}", flush=True)
+    _, status, usage = os.wait4(proc.pid, 0)
+    if status != 0:
+        raise RuntimeError(f"child for L={sites} failed with status {status}")
+    result = json.loads(lines[-1])
+    result["peak_gib"] = usage.ru_maxrss / 2**20  # KiB on Linux
+    result["wall"] = time.perf_counter() - t0
+    return result
+
+
+def ground(sites_list: list[int], store: bool, probe: bool, full: list[int], products: int) -> None:
+    rows = []
+    for sites in sites_list:
+        r = child(sites, store, probe, sites in full, products)
+        if probe:
+            rows.append(
+                [
+                    str(sites),
+                    f"{int(r['dim']):,}",
+                    f"{r['enum']:.1f}",
+                    f"{r['product']:.1f}",
+                    f"{r['product'] * 300 / 3600:.1f}",
+                    f"{r['peak_gib']:.2f}",
+                ]
+            )
+        else:
+            rows.append(
+                [
+                    str(sites),
+                    "stored" if store else "free",
+                    f"{int(r['dim']):,}",
+                    f"{r['enum']:.1f}",
+                    f"{r['seconds']:.1f}",
+                    f"{r['wall']:.1f}",
+                    str(int(r["products"])),
+                    f"{r['energy']:.10f}",
+                    f"{r['residual']:.1e}",
+                    f"{r['full_energy']:.10f}" if "full_energy" in r else "-",
+                    f"{r['peak_gib']:.2f}",
+                ]
+            )
+        print(rows[-1], flush=True)
+    if probe:
+        headers = ["L=N", "sector dim", "enum s", "s/product", "h per 300 products", "peak GiB"]
+    else:
+        headers = [
+            "L=N",
+            "variant",
+            "sector dim",
+            "enum s",
+            "solve s",
+            "wall s",
+            "products",
+            "E0 (sector)",
+            "residual",
+            "E0 (full space)",
+            "peak GiB",
+        ]
+    print()
+    print(table(headers, rows))
+    load = os.getloadavg()
+    print(
+        f"\nJ = U = 1, tol = 1e-8, sector = momentum 0, reflection-even; wall includes the "
+        f"process start and the expression build; load average at the end {load[0]:.1f}, "
+        f"{load[1]:.1f}, {load[2]:.1f} on {os.cpu_count()} cores."
+    )
+
+
+def main() -> None:
+    parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    sub = parser.add_subparsers(dest="what", required=True)
+    p_rates = sub.add_parser("rates")
+    p_rates.add_argument("--sites", type=int, nargs="+", default=[11, 12, 13])
+    p_rates.add_argument("--repeats", type=int, default=3)
+    p_ground = sub.add_parser("ground")
+    p_ground.add_argument("--sites", type=int, nargs="+", default=[12, 13, 14])
+    p_ground.add_argument("--free", action="store_true", help="matrix-free Lanczos")
+    p_ground.add_argument("--probe", action="store_true", help="time products only")
+    p_ground.add_argument("--products", type=int, default=3, help="products in --probe")
+    p_ground.add_argument("--full", type=int, nargs="*", default=[12, 13])
+    args = parser.parse_args()
+    print(f"uptime load at start: {os.getloadavg()}", flush=True)
+    if args.what == "rates":
+        rates(args.sites, args.repeats)
+    else:
+        ground(args.sites, not args.free, args.probe, args.full, args.products)
+
+
+if __name__ == "__main__":
+    main()
