@@ -11,6 +11,7 @@
 #![forbid(unsafe_code)]
 #![warn(missing_docs)]
 
+pub mod between;
 pub mod build;
 pub mod error;
 pub mod estimate;
