@@ -6,6 +6,7 @@ import numpy as np
 import scipy.sparse as sp
 
 from fockmill._args import check_memory_limit
+from fockmill._between import between_matrix, same_space
 from fockmill._expr import LadderExpr
 from fockmill._memory import estimate_memory, format_bytes
 from fockmill._prepare import check_threads, prepare
@@ -19,6 +20,7 @@ def build_matrix(
     expr: LadderExpr,
     space: FockSpace,
     *,
+    target: FockSpace | None = None,
     threads: int | None = None,
     memory_limit: int | None = None,
     index_dtype: type[np.int32] | type[np.int64] | None = None,
@@ -32,6 +34,10 @@ def build_matrix(
         identity.
     space : FockSpace
         The basis; the matrix is ``(space.dim, space.dim)`` in the space's basis order.
+    target : FockSpace, optional
+        The space the operator lands in (same modes and cutoffs as ``space``): the
+        matrix is then ``(target.dim, space.dim)``, e.g. ``fm.lowering(0)`` from the
+        N-quanta sector into the N − 1 sector. None (default): ``space``.
     threads : int, optional
         Worker threads; None or 0 means all cores (or ``RAYON_NUM_THREADS``).
     memory_limit : int, optional
@@ -49,7 +55,8 @@ def build_matrix(
     Raises
     ------
     ChargeError
-        A term changes the conserved charge of the space.
+        A term changes the conserved charge of the space (with ``target``: a term
+        carries states of ``space`` outside ``target``; the message names both).
     ModeIndexError
         A term acts on a mode the space does not have.
     SizeLimitError
@@ -70,6 +77,16 @@ def build_matrix(
     >>> fm.build_matrix(h, space).toarray().round(3).tolist()
     [[0.0, 1.414, 0.0], [1.414, 0.0, 1.414], [0.0, 1.414, 0.0]]
     """
+    if not same_space(space, target):
+        assert target is not None
+        return between_matrix(
+            expr,
+            space,
+            target,
+            threads=threads,
+            memory_limit=memory_limit,
+            index_dtype=index_dtype,
+        )
     op = prepare(expr, space)
     threads = check_threads(threads)
     memory_limit = check_memory_limit(memory_limit)

@@ -9,6 +9,7 @@ import numpy.typing as npt
 from scipy.sparse.linalg import LinearOperator
 
 from fockmill import _native
+from fockmill._between import BetweenOperator, same_space
 from fockmill._expr import LadderExpr
 from fockmill._prepare import as_expr, check_space, check_threads, prepare
 from fockmill._space import FockSpace
@@ -121,8 +122,12 @@ class LadderOperator(LinearOperator):  # type: ignore[misc]
 
 
 def build_operator(
-    expr: LadderExpr, space: FockSpace, *, threads: int | None = None
-) -> LadderOperator:
+    expr: LadderExpr,
+    space: FockSpace,
+    *,
+    target: FockSpace | None = None,
+    threads: int | None = None,
+) -> LadderOperator | BetweenOperator:
     """A matrix-free ``LinearOperator`` for ``expr`` on ``space``.
 
     Memory is O(number of terms), not O(nnz): use it for sectors whose matrix would not
@@ -134,12 +139,15 @@ def build_operator(
         The operator (same convention as :func:`build_matrix`).
     space : FockSpace
         The basis.
+    target : FockSpace, optional
+        The space products land in (same modes and cutoffs): the operator then has
+        shape ``(target.dim, space.dim)`` and is a ``BetweenOperator``. None: ``space``.
     threads : int, optional
         Worker threads per product (default: all cores).
 
     Returns
     -------
-    LadderOperator
+    LadderOperator or BetweenOperator
         ``dtype`` float64 when every coefficient is real, else complex128; supports
         ``@``, ``.matvec``, ``.matmat``, ``.rmatvec`` and ``.H``.
 
@@ -151,4 +159,7 @@ def build_operator(
     >>> (op @ np.ones(space.dim)).tolist()
     [-2.0, 0.0, 2.0]
     """
+    if not same_space(space, target):
+        assert target is not None
+        return BetweenOperator(expr, space, target, threads=threads)
     return LadderOperator(expr, space, threads=threads)
