@@ -21,6 +21,9 @@ entanglement_entropy, top_level_weights
     Observables of a state, computed without building matrices.
 converge_cutoffs, CutoffScan
     Truncation diagnostics.
+evolve, Evolution, spectral_function, spectral_poles, SpectralPoles, thermal, Thermal,
+BetweenOperator
+    Time evolution, spectral functions, thermal averages; operators between sectors.
 Model, models
     A Hamiltonian linear in named parameters on a fixed space; ready-made builders
     (Bose–Hubbard on any graph, Jaynes–Cummings–Hubbard arrays, Kerr networks, drives).
@@ -31,7 +34,9 @@ run_sweep, SweepTable, PointResult, ResultsStore, StoreError, plot_sweep
 """
 
 from fockmill import exceptions, models
+from fockmill._between import BetweenOperator
 from fockmill._build import build_matrix
+from fockmill._evolve import Evolution, evolve
 from fockmill._expr import LadderExpr, format_monomial, identity, lowering, number, raising
 from fockmill._memory import MemoryEstimate, available_memory, estimate_memory
 from fockmill._model import Model
@@ -56,12 +61,16 @@ from fockmill._operator import LadderOperator, build_operator
 from fockmill._plot import plot_sweep
 from fockmill._solve import GroundState, Levels, choose_method, ground_state, lowest_levels
 from fockmill._space import FockSpace
+from fockmill._spectral import SpectralPoles, spectral_function, spectral_poles
 from fockmill._store import ResultsStore, StoreError
 from fockmill._sweep import PointResult, SweepTable, run_sweep
+from fockmill._thermal import Thermal, thermal
 from fockmill._truncation import CutoffScan, converge_cutoffs
 
 __all__ = [
+    "BetweenOperator",
     "CutoffScan",
+    "Evolution",
     "FockSpace",
     "GroundState",
     "LadderExpr",
@@ -73,9 +82,11 @@ __all__ = [
     "ModelFileError",
     "PointResult",
     "ResultsStore",
+    "SpectralPoles",
     "StoreError",
     "SweepGrid",
     "SweepTable",
+    "Thermal",
     "__version__",
     "available_memory",
     "build_matrix",
@@ -84,6 +95,7 @@ __all__ = [
     "converge_cutoffs",
     "entanglement_entropy",
     "estimate_memory",
+    "evolve",
     "exceptions",
     "expectation",
     "format_monomial",
@@ -102,5 +114,8 @@ __all__ = [
     "populations",
     "raising",
     "run_sweep",
+    "spectral_function",
+    "spectral_poles",
+    "thermal",
     "top_level_weights",
 ]

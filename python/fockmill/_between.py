@@ -141,9 +141,7 @@ def between_matrix(
             f"the matrix has {indices.size:,} entries: too many for int32 indices; use "
             "index_dtype=numpy.int64 or None"
         )
-    matrix = sp.csr_array(
-        (data, indices, indptr), shape=(target.dim, space.dim), copy=False
-    )
+    matrix = sp.csr_array((data, indices, indptr), shape=(target.dim, space.dim), copy=False)
     matrix.has_sorted_indices = True
     matrix.has_canonical_format = True
     return matrix

@@ -137,6 +137,29 @@ def _krylov_space(
     return alpha[:n], beta[: n - 1], float(beta[n - 1]), n
 
 
+class _Propagator:
+    """``exp(−iτT) e₁`` in one Krylov space and its a posteriori error estimate."""
+
+    def __init__(
+        self, alpha: npt.NDArray[np.float64], beta: npt.NDArray[np.float64], beta_next: float
+    ) -> None:
+        if alpha.size > 1:
+            self.lam, self.u = sla.eigh_tridiagonal(alpha, beta)
+        else:
+            self.lam, self.u = alpha.copy(), np.ones((1, 1))
+        self.first = self.u[0, :]
+        self.last = self.u[-1, :] * self.first
+        self.beta_next = beta_next
+
+    def coefficients(self, tau: float) -> npt.NDArray[np.complex128]:
+        """Coordinates of ψ(τ) in the Krylov basis."""
+        return self.u @ (np.exp(-1j * tau * self.lam) * self.first)  # type: ignore[no-any-return]
+
+    def error(self, tau: float) -> float:
+        """``β_m |[exp(−iτT)]_{m,1}|``."""
+        return self.beta_next * abs(np.dot(self.last, np.exp(-1j * tau * self.lam)))
+
+
 def evolve(
     H: LadderExpr,
     space: Any,
@@ -273,17 +296,8 @@ def evolve(
     while k < t.size:
         alpha, beta, beta_next, n = _krylov_space(hmap, psi, m, basis)
         steps += 1
-        lam, u = sla.eigh_tridiagonal(alpha, beta) if n > 1 else (alpha.copy(), np.ones((1, 1)))
-        first = u[0, :]
-
-        def coefficients(tau: float) -> npt.NDArray[np.complex128]:
-            return u @ (np.exp(-1j * tau * lam) * first)  # type: ignore[no-any-return]
-
-        last = u[-1, :] * first
-
-        def error(tau: float) -> float:
-            return beta_next * abs(np.dot(last, np.exp(-1j * tau * lam)))
-
+        step = _Propagator(alpha, beta, beta_next)
+        coefficients, error = step.coefficients, step.error
         remaining = t_end - now
         allowed = tol / t_end
         # The estimate cannot resolve values below round-off (its eigenbasis sum
@@ -302,8 +316,7 @@ def evolve(
             tau = lo
             if tau <= 1e-14 * max(t_end, 1.0):
                 raise ConvergenceError(
-                    f"the Krylov step shrank to {tau:.3e} at t = {now:.6g}; raise tol or "
-                    "krylov_dim"
+                    f"the Krylov step shrank to {tau:.3e} at t = {now:.6g}; raise tol or krylov_dim"
                 )
         error_sum += error(tau)
         # Requested times inside this step come from the same Krylov space.
@@ -332,4 +345,3 @@ def evolve(
         error_estimate=error_sum,
         seconds=time.perf_counter() - t_start,
     )
-

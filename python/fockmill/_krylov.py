@@ -140,8 +140,7 @@ def check_state(space: Any, psi: object, name: str = "psi", tol: float = 1e-8) -
     norm = float(np.linalg.norm(v))
     if abs(norm - 1.0) > tol:
         raise ValueError(
-            f"{name} has norm {norm:.12g}, not 1; normalise it first (psi / "
-            "numpy.linalg.norm(psi))"
+            f"{name} has norm {norm:.12g}, not 1; normalise it first (psi / numpy.linalg.norm(psi))"
         )
     return v
 
@@ -172,7 +171,9 @@ def check_observables(
 def check_positive(value: object, name: str, example: str) -> float:
     """A positive finite real number."""
     if isinstance(value, bool) or not isinstance(value, numbers.Real) or not np.isfinite(value):
-        raise ValueError(f"{name} must be a positive finite number such as {example}; got {value!r}")
+        raise ValueError(
+            f"{name} must be a positive finite number such as {example}; got {value!r}"
+        )
     if value <= 0:
         raise ValueError(f"{name} must be > 0; got {value}")
     return float(value)
@@ -286,7 +287,9 @@ def as_float_array(values: Sequence[object] | npt.ArrayLike, name: str) -> npt.N
     if arr.ndim == 0:
         arr = arr.reshape(1)
     if arr.ndim != 1 or arr.size == 0:
-        raise ValueError(f"{name} must be a non-empty 1-D sequence of numbers; got shape {arr.shape}")
+        raise ValueError(
+            f"{name} must be a non-empty 1-D sequence of numbers; got shape {arr.shape}"
+        )
     if not np.all(np.isfinite(arr)):
         raise ValueError(f"{name} contains NaN or inf")
     return arr

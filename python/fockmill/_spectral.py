@@ -107,7 +107,9 @@ def _start(
         ref = _expectation_function(e, space, threads)(v).real
     else:
         if isinstance(reference_energy, bool) or not isinstance(reference_energy, numbers.Real):
-            raise TypeError(f"reference_energy must be a real number or None; got {reference_energy!r}")
+            raise TypeError(
+                f"reference_energy must be a real number or None; got {reference_energy!r}"
+            )
         ref = float(reference_energy)
         if not np.isfinite(ref):
             raise ValueError("reference_energy must be finite")
