@@ -55,7 +55,8 @@ class Evolution:
         ψ at the last requested time (complex, shape ``(dim,)``).
     top_weights : numpy.ndarray
         For each mode, the largest weight on its highest kept level over the recorded
-        times (the truncation diagnostic; NaN for spaces without a mode structure).
+        times (the truncation diagnostic); NaN for modes whose cutoff does not truncate
+        (the conserved total caps them there) and for spaces without modes.
     steps : int
         Krylov steps taken (each builds one Krylov space).
     products : int
@@ -132,7 +133,8 @@ def _krylov_space(
         if j > 0:
             w -= beta[j - 1] * basis[j - 1]
         if reorthogonalize:
-            w -= basis[: j + 1].T @ (basis[: j + 1].conj() @ w)
+            # ⟨v_i|w⟩ as conj(v_i · conj(w)): no conjugated copy of the basis.
+            w -= basis[: j + 1].T @ (basis[: j + 1] @ w.conj()).conj()
         b = float(np.linalg.norm(w))
         beta[j] = b
         scale = max(float(np.max(np.abs(alpha[: j + 1]))), float(np.max(beta[: j + 1])), 1e-300)

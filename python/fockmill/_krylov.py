@@ -227,7 +227,7 @@ def lanczos_coefficients(
             w = w - beta[-1] * v_prev
         if basis is not None:
             for _ in range(2):
-                w = w - basis[: j + 1].T @ (basis[: j + 1].conj() @ w)
+                w = w - basis[: j + 1].T @ (basis[: j + 1] @ w.conj()).conj()
         b = float(np.linalg.norm(w))
         scale = max(scale, abs(a), b)
         if done is not None and done(alpha, beta):
@@ -244,13 +244,22 @@ def lanczos_coefficients(
 
 
 def top_weights(space: Any, vector: npt.NDArray[Any], threads: int | None) -> npt.NDArray[Any]:
-    """Weight on each mode's highest kept level (NaN for spaces without modes)."""
+    """Weight on each mode's highest kept level where that level is a truncation.
+
+    NaN for modes whose cutoff does not truncate (the conserved total caps the mode
+    there, so its top level is physical) and for spaces without modes; no pass over
+    the state is made when no cutoff truncates.
+    """
     from fockmill._observe import top_level_weights
     from fockmill._space import FockSpace
 
+    out = np.full(getattr(space, "modes", 0), np.nan)
     if not isinstance(space, FockSpace):
-        return np.full(getattr(space, "modes", 0), np.nan)
-    return top_level_weights(space, vector, threads=threads)
+        return out
+    binding = np.asarray(space.binding_cutoffs(), dtype=bool)
+    if binding.any():
+        out[binding] = top_level_weights(space, vector, threads=threads)[binding]
+    return out
 
 
 def warn_top_weights(
