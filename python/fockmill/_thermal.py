@@ -129,7 +129,7 @@ def _exact(
     for name, o in obs.items():
         mat = build_matrix(o, space, threads=threads, memory_limit=memory_limit)
         diag = np.einsum("ij,ij->j", vectors.conj(), np.asarray(mat @ vectors))
-        values[name] = (p @ diag.real) if o.is_hermitian() else p @ diag
+        values[name] = (p @ diag.real) if o.is_hermitian() else (p @ diag).astype(complex)
     modes, masks = _masks(space)
     top = np.full((t.size, getattr(space, "modes", 0)), np.nan)
     if modes:
