@@ -29,6 +29,8 @@ from fockmill.exceptions import ConvergenceError, SizeLimitError
 
 __all__ = ["Evolution", "evolve"]
 
+#: Krylov vectors per step by default (fewer when memory is short).
+DEFAULT_KRYLOV_DIM = 50
 #: Full reorthogonalisation when the Krylov basis has at most this many entries; beyond,
 #: the three-term recurrence alone (its loss of orthogonality leaves the Krylov
 #: exponential accurate: Druskin & Knizhnerman 1991, USSR Comput. Math. Math. Phys. 31, 20)
@@ -146,6 +148,19 @@ def _krylov_space(
     return alpha[:n], beta[: n - 1], float(beta[n - 1]), n
 
 
+def _default_krylov_dim(dim: int, memory_limit: int | None) -> int:
+    """``DEFAULT_KRYLOV_DIM``, or fewer vectors when they would take more than a quarter
+    of the memory budget (never below 10)."""
+    from fockmill._krylov import MEMORY_BUDGET
+    from fockmill._memory import available_memory
+
+    limit = memory_limit if memory_limit is not None else available_memory()
+    if limit is None:
+        return DEFAULT_KRYLOV_DIM
+    fits = int(0.25 * MEMORY_BUDGET * limit // (16 * max(dim, 1)))
+    return max(10, min(DEFAULT_KRYLOV_DIM, fits))
+
+
 class _Propagator:
     """``exp(−iτT) e₁`` in one Krylov space and its a posteriori error estimate."""
 
@@ -178,7 +193,7 @@ def evolve(
     keep_states: bool = False,
     tol: float = 1e-10,
     *,
-    krylov_dim: int = 30,
+    krylov_dim: int | None = None,
     method: str = "auto",
     threads: int | None = None,
     memory_limit: int | None = None,
@@ -202,8 +217,10 @@ def evolve(
         Also return every recorded state (``(dim, len(times))`` complex; memory!).
     tol : float
         Target accuracy of ψ at the last time, in norm (see Notes).
-    krylov_dim : int
+    krylov_dim : int, optional
         Largest Krylov space per step (memory: ``krylov_dim + 4`` complex vectors).
+        Default: ``DEFAULT_KRYLOV_DIM`` = 50 (larger spaces take longer steps and fewer
+        products overall), lowered to what fits in a quarter of the memory budget.
     method : {"auto", "csr", "operator"}
         Products on the stored matrix or matrix-free; ``"auto"`` stores the matrix when
         it and the Krylov vectors fit in the memory budget.
@@ -255,15 +272,18 @@ def evolve(
     threads, memory_limit = check_common(threads, memory_limit)
     t = _check_times(times)
     tol = check_positive(tol, "tol", "1e-10")
-    if isinstance(krylov_dim, bool) or not isinstance(krylov_dim, numbers.Integral):
-        raise TypeError(f"krylov_dim must be an integer >= 2; got {krylov_dim!r}")
-    if krylov_dim < 2:
-        raise ValueError(f"krylov_dim must be >= 2; got {krylov_dim}")
+    if krylov_dim is not None:
+        if isinstance(krylov_dim, bool) or not isinstance(krylov_dim, numbers.Integral):
+            raise TypeError(f"krylov_dim must be an integer >= 2 or None; got {krylov_dim!r}")
+        if krylov_dim < 2:
+            raise ValueError(f"krylov_dim must be >= 2; got {krylov_dim}")
     if not isinstance(keep_states, bool | np.bool_):
         raise TypeError(f"keep_states must be True or False; got {keep_states!r}")
     psi = check_state(space, psi0, "psi0").astype(np.complex128)
     obs = check_observables(observables, space)
     dim = psi.shape[0]
+    if krylov_dim is None:
+        krylov_dim = _default_krylov_dim(dim, memory_limit)
     m = int(min(krylov_dim, dim))
     kept = dim * t.size * 16 if keep_states else 0
     hmap = hermitian_map(
