@@ -5,7 +5,13 @@ VENV ?= .venv
 PY := $(VENV)/bin/python
 EXTRAS := test,fast,plot,progress,cluster
 
-.PHONY: venv dev demo test test-rs test-py lint format bench clean
+WHEEL_DIR := target/wheels
+WHEEL_VENV := target/wheel-venv
+# The wheel test runs with only the system directories on PATH: no cargo, no rustc.
+BARE_PATH := /usr/bin:/bin
+WHEEL_TESTS := tests/test_space.py tests/test_spectra.py tests/test_statefile.py
+
+.PHONY: venv dev demo test test-rs test-py test-wheel wheel lint format bench clean
 
 venv: $(VENV)/.ready
 
@@ -35,7 +41,24 @@ lint: dev
 	$(VENV)/bin/ruff format --check python tests benchmarks examples
 	$(PY) -m mypy.stubtest fockmill._native
 
-test: test-rs lint test-py
+# The abi3 wheel (one file for every CPython >= 3.11 on this platform) in target/wheels.
+wheel: venv
+	rm -f $(WHEEL_DIR)/fockmill-*.whl
+	$(VENV)/bin/maturin build --release --quiet --out $(WHEEL_DIR)
+
+# Install the wheel into a fresh venv that has no Rust toolchain on PATH, then run the
+# README example and a few test files against the installed package.
+test-wheel: wheel
+	rm -rf $(WHEEL_VENV)
+	env PATH=$(BARE_PATH) $$($(PY) -c 'import sys; print(sys._base_executable)') -m venv $(WHEEL_VENV)
+	env PATH=$(abspath $(WHEEL_VENV))/bin:$(BARE_PATH) sh -c '! command -v cargo && ! command -v rustc'
+	env PATH=$(abspath $(WHEEL_VENV))/bin:$(BARE_PATH) $(WHEEL_VENV)/bin/python -m pip install \
+		--quiet $(WHEEL_DIR)/fockmill-*.whl "pytest>=8" "hypothesis>=6.100"
+	env PATH=$(abspath $(WHEEL_VENV))/bin:$(BARE_PATH) $(WHEEL_VENV)/bin/python .ci/wheel_smoke.py
+	env PATH=$(abspath $(WHEEL_VENV))/bin:$(BARE_PATH) $(WHEEL_VENV)/bin/python -m pytest -q \
+		-p no:cacheprovider $(WHEEL_TESTS)
+
+test: test-rs lint test-py test-wheel
 
 format: venv
 	cargo fmt --all

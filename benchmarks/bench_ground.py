@@ -2,8 +2,8 @@
 on the Bose–Hubbard ring at unit filling, with wall time and peak memory.
 
 Each size runs in a fresh subprocess so that its peak resident memory is its own.
-Targets: L = N = 14 (20,058,300 states) in < 10 min with < 12 GB; moonshot L = 15
-(77,558,760 states) within 24 GB.
+Targets (matrix-free): L = N = 15 (77,558,760 states) in < 6 min with < 4 GB peak;
+L = 16 (300,540,195 states) in < 45 min with < 16 GB peak.
 
 Usage: python benchmarks/bench_ground.py [--sites 12 13 14] [--interaction 1.0]
 """
@@ -25,9 +25,23 @@ import json, sys, time
 sys.path.insert(0, {here!r})
 from _common import bose_hubbard_ring, unit_filling
 import fockmill as fm
+import numpy as np
 sites, interaction, method, store = {sites}, {interaction}, {method!r}, {store}
 h = bose_hubbard_ring(sites, 1.0, interaction)
 space = unit_filling(sites)
+if {probe}:
+    # One product first, timed on its own (two vectors, freed before the solve), so a
+    # run that cannot finish still reports the time per product.
+    native = fm._native.NativeOperator(space.native, h.to_native())
+    x = np.ones(space.dim)
+    t0 = time.perf_counter()
+    native.matvec(x)
+    first = time.perf_counter() - t0
+    t0 = time.perf_counter()
+    native.matvec(x)
+    print(json.dumps(dict(probe=True, cut=native.cut, first=first,
+                          product=time.perf_counter() - t0)), file=sys.stderr, flush=True)
+    del native, x
 t0 = time.perf_counter()
 options = dict(store_matrix=store) if method == "lanczos" else dict()
 g = fm.ground_state(h, space, method=method, tol=1e-8, cutoff_warning=None, **options)
@@ -36,7 +50,7 @@ print(json.dumps(dict(dim=space.dim, energy=g.energy, residual=g.residual,
 """
 
 
-def run(sites: int, interaction: float, method: str, store: bool) -> dict[str, float]:
+def run(sites: int, interaction: float, method: str, store: bool, probe: bool) -> dict[str, float]:
     """Solve in a child process; its peak resident memory comes from wait4."""
     code = CHILD.format(
         here=os.path.dirname(os.path.abspath(__file__)),
@@ -44,6 +58,7 @@ def run(sites: int, interaction: float, method: str, store: bool) -> dict[str, f
         interaction=interaction,
         method=method,
         store=store,
+        probe=probe,
     )
     t0 = time.perf_counter()
     child = subprocess.Popen([sys.executable, "-c", code], stdout=subprocess.PIPE, text=True)
@@ -61,6 +76,11 @@ def main() -> None:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--sites", type=int, nargs="+", default=[12, 13, 14])
     parser.add_argument("--interaction", type=float, default=1.0)
+    parser.add_argument(
+        "--probe",
+        action="store_true",
+        help="time one matrix-free product before each solve (printed as it happens)",
+    )
     parser.add_argument("--method", default="lanczos")
     parser.add_argument(
         "--variants",
@@ -73,13 +93,14 @@ def main() -> None:
     rows = []
     for sites in sorted(args.sites):
         for variant in args.variants:
-            r = run(sites, args.interaction, args.method, variant == "stored")
+            r = run(sites, args.interaction, args.method, variant == "stored", args.probe)
             rows.append(
                 [
                     str(sites),
                     variant,
                     f"{int(r['dim']):,}",
                     f"{r['energy']:.10f}",
+                    f"{r['energy'] / sites:.10f}",
                     f"{r['residual']:.1e}",
                     str(int(r["products"])),
                     f"{r['seconds']:.1f}",
@@ -102,6 +123,7 @@ HEADERS = [
     "variant",
     "states",
     "E0",
+    "E0/L",
     "residual",
     "products",
     "solve s",

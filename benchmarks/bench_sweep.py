@@ -6,8 +6,9 @@ levels per point (energy and gap), sparse Lanczos at every point.
 
 Variants, each timed ``--repeats`` times (the table shows medians):
 
-* rebuild + cold: per point, build ``H(p)`` from the expressions and start the
-  eigensolver from a random vector (what a plain loop over ``build_matrix`` does);
+* rebuild + cold: per point, prepare and build ``H(p)`` from the expressions and
+  start the eigensolver from its seeded random vector (a plain loop over
+  ``lowest_levels``);
 * rebuild + warm: rebuild per point, start from the previous ground vector;
 * reuse + cold: pieces built once on a shared pattern, random start per point;
 * reuse + warm: pieces built once, warm starts (``run_sweep`` in-process);
@@ -29,27 +30,24 @@ import argparse  # noqa: E402
 import statistics  # noqa: E402
 import time  # noqa: E402
 from collections.abc import Callable  # noqa: E402
-from typing import Any  # noqa: E402
 
 import numpy as np  # noqa: E402
-import scipy.sparse.linalg as spla  # noqa: E402
-from fockmill._build import build_matrix  # noqa: E402
 from fockmill._model import Model  # noqa: E402
-from fockmill._sweep import (  # noqa: E402
-    SharedPattern,
-    _check_settings,
-    _lowest,
-    _Settings,
-    _start_vector,
-    run_sweep,
+from fockmill._plan import SweepSettings, sweep_settings  # noqa: E402
+from fockmill._records import (  # noqa: E402
+    ModelRecipe,
+    PreparedModel,
+    solve_levels,
+    start_vector,
 )
+from fockmill._sweep import run_sweep  # noqa: E402
 from fockmill.models import bose_hubbard, ring_edges  # noqa: E402
 
 
 def manual_sweep(
     model: Model,
     points: list[dict[str, float]],
-    settings: _Settings,
+    settings: SweepSettings,
     *,
     reuse: bool,
     warm: bool,
@@ -57,38 +55,29 @@ def manual_sweep(
 ) -> list[float]:
     """Ground energies point by point with the chosen reuse/warm-start policy.
 
-    With ``products`` given, the eigensolver works through a counting wrapper and the
-    number of matrix-vector products per point is appended there (an untimed pass: the
-    count does not depend on machine load, unlike the times).
+    The points are solved by the sweep's own code (prepared problems and
+    ``lowest_levels``); ``reuse`` assembles each point's matrix from the shared pattern
+    (pieces built once), otherwise every point's Hamiltonian is prepared and built from
+    its expression. With ``products`` given, the products per point are appended there.
     """
-    shared = SharedPattern.from_model(model) if reuse else None
+    recipe = ModelRecipe.from_model(model)
+    prepared = PreparedModel.build(recipe, settings, points=len(points) if reuse else 1)
+    if reuse and prepared.shared is None:
+        raise SystemExit("the shared pattern is not in use (no Problem._with_matrix hook)")
     previous = None
     energies = []
     for index, point in enumerate(points):
         values = model.values(**point)
-        if shared is not None:
-            matrix = shared.assemble(values)
-        else:
-            matrix = build_matrix(model.hamiltonian(**values), model.space)
-        start = _start_vector(
+        problem = prepared.problem(values)
+        start = start_vector(
             model.space.dim, np.dtype(np.float64), 0, index, previous if warm else None
         )
-        target = matrix if products is None else _counting(matrix, products)
-        levels, vectors, _ = _lowest(target, settings.levels, start, settings)
-        previous = vectors
-        energies.append(float(levels[0]))
+        solution = solve_levels(problem, settings, start)
+        if products is not None:
+            products.append(solution.products)
+        previous = solution.vectors
+        energies.append(float(solution.energies[0]))
     return energies
-
-
-def _counting(matrix: Any, products: list[int]) -> Any:
-    """``matrix`` as a LinearOperator that appends its product count to ``products``."""
-    products.append(0)
-
-    def apply(x: np.ndarray) -> np.ndarray:
-        products[-1] += 1
-        return matrix @ x
-
-    return spla.LinearOperator(matrix.shape, matvec=apply, dtype=matrix.dtype)
 
 
 def timed(action: Callable[[], object], repeats: int) -> tuple[float, object]:
@@ -115,7 +104,17 @@ def main() -> None:
     model = bose_hubbard(ring_edges(args.sites), total=args.sites)
     points = [{"U": float(u)} for u in np.linspace(0.5, 20.0, args.points)]
     options = {"method": "csr", "tol": 1e-10}
-    settings = _check_settings(model, ("energy", "gap"), 2, options, None)
+    settings = sweep_settings(
+        model,
+        quantities=("energy", "gap"),
+        levels=2,
+        entropy_modes=None,
+        method="csr",
+        tol=1e-10,
+        seed=0,
+        max_iterations=None,
+        threads=None,
+    )
     print(
         f"Bose–Hubbard ring, {args.sites} sites, {args.sites} particles: dim {model.space.dim}, "
         f"{args.points} points of U, 2 levels each (eigsh, tol 1e-10); "
@@ -128,7 +127,9 @@ def main() -> None:
                 model,
                 points,
                 workers=workers,
-                solver_options=options,
+                quantities=("energy", "gap"),
+                levels=2,
+                **options,
                 progress=False,
                 chunk=max(1, args.points // (4 * workers)),
             )

@@ -29,6 +29,7 @@ __all__ = [
     "dense_matrix",
     "full_basis",
     "restrict",
+    "sector_matrix",
     "sector_occupations",
     "single_mode_matrices",
 ]
@@ -189,3 +190,43 @@ def bounded_composition_count(total: int, cutoffs: Sequence[int]) -> int:
             if remaining >= 0:
                 count += (-1) ** size * math.comb(remaining + modes - 1, modes - 1)
     return count
+
+
+def sector_matrix(
+    expr: LadderExpr,
+    cutoffs: Sequence[int],
+    total: int | None = None,
+    weights: Sequence[int] | None = None,
+    modulus: int | None = None,
+) -> NDArray[np.complex128]:
+    """Return ``P X P`` on a sector, by acting with every monomial on every state by hand.
+
+    For sectors whose full product space is too large for :func:`dense_matrix`: the
+    states come from :func:`sector_occupations` (brute force), and each normal-ordered
+    monomial ``a_i†^p a_i^q`` acts as ``a^q`` then ``a†^p`` with
+    ``a|n> = sqrt(n)|n-1>``, ``a†|n> = sqrt(n+1)|n+1>`` (Sakurai & Napolitano, Modern
+    Quantum Mechanics, 2nd ed. 2011, Sec. 2.3); results above a cutoff or outside the
+    sector are dropped. A plain Python loop, independent of the package's Rust code.
+    """
+    checked = _check_cutoffs(cutoffs)
+    basis = sector_occupations(checked, weights, total, modulus).tolist()
+    position = {tuple(state): k for k, state in enumerate(basis)}
+    out: NDArray[np.complex128] = np.zeros((len(basis), len(basis)), dtype=np.complex128)
+    terms = expr.terms()
+    for column, state in enumerate(basis):
+        for coefficient, key in terms:
+            occupation = list(state)
+            amplitude = 1.0
+            for mode, creation, annihilation in key:
+                n = occupation[mode]
+                if annihilation > n or n - annihilation + creation > checked[mode]:
+                    amplitude = 0.0
+                    break
+                amplitude *= math.sqrt(math.factorial(n) / math.factorial(n - annihilation))
+                n -= annihilation
+                amplitude *= math.sqrt(math.factorial(n + creation) / math.factorial(n))
+                occupation[mode] = n + creation
+            row = position.get(tuple(occupation)) if amplitude else None
+            if row is not None:
+                out[row, column] += coefficient * amplitude
+    return out

@@ -259,7 +259,8 @@ def test_commutator_of_truncated_matrices_single_mode(cutoff: int) -> None:
 
 def test_commutators_of_truncated_matrices_several_modes() -> None:
     # Canonical relations [a_i, a_j†] = δ_ij, [a_i, a_j] = 0, [n_i, a_j†] = δ_ij a_j†
-    # (Dirac 1927; Sakurai & Napolitano 2011, Sec. 2.3, from memory).
+    # (Dirac, Proc. R. Soc. Lond. A 114, 243 (1927); Sakurai & Napolitano, Modern Quantum
+    # Mechanics, 2nd ed. 2011, Sec. 2.3).
     # [a_i, a_j†] for i == j holds exactly on states with n_i < c_i (as in the single
     # mode test). Operators on different modes are Kronecker factors on different
     # tensor slots, so they commute exactly even when truncated. [n_i, A_i†] is exact

@@ -186,7 +186,8 @@ def test_sweep_resumes_and_show_formats(
     assert code == 0
     lines = table.splitlines()
     assert lines[0].startswith("# model bose-hubbard")
-    assert lines[1].split()[:4] == ["point", "U", "energy", "gap"]
+    assert lines[1] == "# modes (order of per-mode lists): site 0, site 1"
+    assert lines[2].split()[:4] == ["point", "U", "energy", "gap"]
     assert len([ln for ln in lines if not ln.startswith("#")]) == 1 + 5
 
     code, text, _ = run(["show", str(pair_results), "--format", "csv"], capsys)
@@ -301,8 +302,10 @@ def test_demo_runs_bundled_model(tmp_path: Path, capsys: pytest.CaptureFixture[s
     with ResultsStore.open(out_dir / "ring_kerr_crossover.sqlite") as store:
         rows = store.rows()
     assert len(rows) == 25
-    # Limits (common practice, no source): the Mott-like side has Var n → 0 and a gap of
-    # order U; the superfluid-like side has the larger number fluctuations.
+    # Limits (Fisher, Weichman, Grinstein & Fisher, Phys. Rev. B 40, 546 (1989), for the
+    # Mott and superfluid sides of the Bose–Hubbard model; the finite-ring numbers are
+    # common practice, no source): the Mott-like side has Var n → 0 and a gap of order
+    # U; the superfluid-like side has the larger number fluctuations.
     variances = [row.observables["number_variance"][0] for row in rows]
     assert variances[0] > 0.5 > 0.05 > variances[-1]
     assert rows[-1].gap > 0.5 * rows[-1].parameters["U"]
@@ -385,3 +388,62 @@ def test_optional_dependencies_load_lazily() -> None:
         [sys.executable, "-c", probe], capture_output=True, text=True, check=True
     )
     assert result.stdout.strip() == "[]"
+
+
+# -- failures, retries, messages (issue 8 item 5, issue 12) -------------------------------
+
+
+def test_show_lists_failed_points_and_retry_is_explicit(
+    tmp_path: Path, capsys: pytest.CaptureFixture[str]
+) -> None:
+    # J = 1.5e308 overflows the hopping matrix elements (√2 J > max float): that point
+    # fails, the other is solved (reference: the two-boson closed form of
+    # test_sweep.pair_closed_form).
+    path = tmp_path / "pair.toml"
+    path.write_text(
+        PAIR_TOML.replace(
+            "[sweep.U]\nvalues = [0.0, 1.0, 2.5, 4.0, 8.0]", "[sweep.J]\nvalues = [1.0, 1.5e308]"
+        )
+    )
+    out = tmp_path / "pair.sqlite"
+    argv = ["sweep", str(path), "--out", str(out), "--workers", "1", "--no-progress"]
+    code, text, _ = run(argv, capsys)
+    assert code == 0
+    assert "1 failed" in text
+    code, table, _ = run(["show", str(out)], capsys)
+    assert code == 0
+    assert "failed points" in table
+    failure = [line for line in table.splitlines() if "J=1.5e+308" in line]
+    assert failure and failure[0].split(": failed: ", 1)[1].strip()  # the reason
+    with ResultsStore.open(out) as store:
+        first = store.rows()
+    assert first[0].energy == pytest.approx(pair_closed_form(1.0, 2.0)["energy"], abs=1e-10)
+    code, text, _ = run([*argv, "--retry-failed"], capsys)
+    assert code == 0
+    with ResultsStore.open(out) as store:
+        again = store.rows()
+    assert again[0] == first[0]  # the finished point is kept
+    assert again[1].status == "failed"
+    assert again[1].finished >= first[1].finished
+
+
+def test_show_on_a_file_that_is_not_results(
+    tmp_path: Path, capsys: pytest.CaptureFixture[str]
+) -> None:
+    notes = tmp_path / "notes.sqlite"
+    notes.write_text("invented lab notes, not a database\n" * 20)
+    code, _, err = run(["show", str(notes)], capsys)
+    assert code == 2
+    assert_one_line_error(err, "notes.sqlite", "not an SQLite database")
+    assert "new path" not in err
+    assert "fockmill sweep" in err
+
+
+def test_solve_reports_the_whole_time(pair_file: Path, capsys: pytest.CaptureFixture[str]) -> None:
+    code, text, _ = run(["solve", str(pair_file)], capsys)
+    assert code == 0
+    assert "total" in text
+    code, out, _ = run(["solve", str(pair_file), "--format", "json"], capsys)
+    row = json.loads(out)
+    assert row["status"] == "ok"
+    assert row["total_seconds"] >= row["seconds"] > 0

@@ -34,7 +34,7 @@ SCRIPT = textwrap.dedent(
     model = hubbard_ring(sites=6, particles=6, cutoff=6)
     points = [{"U": 0.07 * k} for k in range(int(sys.argv[3]))]
     run_sweep(model, points, store=sys.argv[1], executor="serial", progress=False,
-              solver_options={"dense_limit": 0})
+              method="csr")
     """
 )
 
@@ -73,13 +73,9 @@ def test_repeated_sigkill_then_resume_loses_nothing(tmp_path: Path) -> None:
     assert faults >= 3, "most kills must land mid-sweep for this test to mean anything"
 
     model = hubbard_ring(sites=6, particles=6, cutoff=6)
-    options = {"dense_limit": 0}
-    resumed = run_sweep(
-        model, points(), store=path, executor="serial", progress=False, solver_options=options
-    )
-    uninterrupted = run_sweep(
-        model, points(), executor="serial", progress=False, solver_options=options
-    )
+    options = {"method": "csr"}
+    resumed = run_sweep(model, points(), store=path, executor="serial", progress=False, **options)
+    uninterrupted = run_sweep(model, points(), executor="serial", progress=False, **options)
     with ResultsStore.open(path) as store:
         assert store.integrity_ok()
         indices = sorted(row.index for row in store.rows())
@@ -96,8 +92,8 @@ def test_dask_worker_killed_mid_sweep_still_completes(tmp_path: Path) -> None:
     )
     model = hubbard_ring(sites=6, particles=6, cutoff=6)
     grid = points()[:40]
-    options = {"dense_limit": 0}
-    reference = run_sweep(model, grid, executor="serial", progress=False, solver_options=options)
+    options = {"method": "csr"}
+    reference = run_sweep(model, grid, executor="serial", progress=False, **options)
     path = tmp_path / "dask.sqlite"
     done: list[int] = []
     result: dict[str, object] = {}
@@ -118,7 +114,7 @@ def test_dask_worker_killed_mid_sweep_still_completes(tmp_path: Path) -> None:
                     executor=client,
                     chunk=2,
                     progress=False,
-                    solver_options=options,
+                    **options,
                     on_point=lambda row: done.append(row.index),
                 )
             except BaseException as exc:  # reported below

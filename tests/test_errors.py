@@ -675,13 +675,6 @@ CATALOGUE: list[BadInput] = [
         r"must be an integer",
     ),
     BadInput(
-        "several levels from Lanczos",
-        lambda t: fm.lowest_levels(HOP, pair(), k=2, method="lanczos"),
-        ValueError,
-        r"only the ground state",
-        r"use method='operator'",
-    ),
-    BadInput(
         "k = dim for an iterative method",
         lambda t: fm.lowest_levels(ring_hopping(6), hexamer(), k=462, method="csr"),
         ValueError,
@@ -1141,6 +1134,13 @@ CATALOGUE: list[BadInput] = [
         "results file that is another SQLite database",
         lambda t: ResultsStore.open(foreign_database(t)),
         StoreError,
+        r"SQLite database of another program, not a fockmill results file",
+        r"give the path of a file written by a fockmill sweep",
+    ),
+    BadInput(
+        "sweep output that is another SQLite database",
+        lambda t: ResultsStore.open(foreign_database(t), purpose="resume"),
+        StoreError,
         r"not a fockmill results file",
         r"choose another output path",
     ),
@@ -1458,7 +1458,7 @@ CLI_CASES: list[tuple[str, Callable[[Path], list[str]], str, str | None]] = [
         "show another SQLite database",
         lambda t: ["show", str(foreign_database(t))],
         r"not a fockmill results file",
-        r"choose another output path",
+        r"give the path of a file written by a fockmill sweep",
     ),
     (
         "show a damaged results file",

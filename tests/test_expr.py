@@ -94,7 +94,8 @@ def test_number_operator_commutators(i: int, j: int) -> None:
 
 
 def test_a_adag_normal_orders_to_n_plus_one() -> None:
-    # a a† = a†a + 1 (canonical commutation relation, Dirac 1927).
+    # a a† = a†a + 1 (canonical commutation relation; Dirac, Proc. R. Soc. Lond. A 114,
+    # 243 (1927); Sakurai & Napolitano, Modern Quantum Mechanics, 2nd ed. 2011, Sec. 2.3).
     assert lowering(0) * raising(0) == number(0) + 1
 
 
@@ -134,7 +135,8 @@ def test_product_distributes_over_sum(x: LadderExpr, y: LadderExpr, z: LadderExp
 @SMALL
 @given(EXPRESSIONS, EXPRESSIONS)
 def test_adjoint_reverses_products(x: LadderExpr, y: LadderExpr) -> None:
-    # (XY)† = Y†X† (common practice, no source).
+    # (XY)† = Y†X† (Sakurai & Napolitano, Modern Quantum Mechanics, 2nd ed. 2011,
+    # Sec. 1.2).
     assert (x * y).adjoint() == y.adjoint() * x.adjoint()
 
 
@@ -244,7 +246,7 @@ def test_charge_matches_dense_matrix_elements(
 
 @pytest.mark.parametrize("cutoff", [0, 1, 4])
 def test_number_operator_is_diagonal(cutoff: int) -> None:
-    # n|k> = k|k> (common practice, no source).
+    # n|k> = k|k> (Sakurai & Napolitano, Modern Quantum Mechanics, 2nd ed. 2011, Sec. 2.3).
     np.testing.assert_allclose(
         dense_matrix(number(0), [cutoff]), np.diag(np.arange(cutoff + 1)), atol=1e-12
     )
@@ -286,7 +288,9 @@ def test_full_basis_matches_kron_order() -> None:
 def test_two_mode_hopping_spectrum(total: int) -> None:
     # a0†a1 + a1†a0 = 2 J_x in the Jordan-Schwinger map with j = N/2, so in the
     # N-boson sector its eigenvalues are -N, -N+2, ..., N (Schwinger, "On Angular
-    # Momentum", 1952; from memory). Cutoffs >= N keep the whole sector.
+    # Momentum", U.S. AEC report NYO-3071, 1952, reprinted in Biedenharn & Van Dam,
+    # Quantum Theory of Angular Momentum, 1965; from memory: the map and the spectrum
+    # of 2 J_x, not the page). Cutoffs >= N keep the whole sector.
     hopping = raising(0) * lowering(1) + raising(1) * lowering(0)
     cutoffs = [total, total]
     block = restrict(
@@ -413,7 +417,10 @@ def test_exact_zero_dropped_but_tiny_values_kept() -> None:
 
 def test_monomial_format_contract() -> None:
     # Shared text format with the Rust core (project contract, no outside source).
-    assert format_monomial(((0, 2, 1), (3, 1, 0))) == "a0†^2 a0 a3†"
+    assert format_monomial(((0, 2, 1), (3, 1, 0))) == "a0†^2 a3† a0"
+    # Normal order as written: creators stand left of annihilators across modes.
+    assert format_monomial(((0, 0, 1), (1, 1, 0))) == "a1† a0"
+    assert str(0.03 * lowering(0) * raising(1)) == "0.03·a1† a0"
     assert format_monomial(((12, 0, 3),)) == "a12^3"
     assert format_monomial(((1, 1, 1),)) == "a1† a1"
     assert format_monomial(()) == "1"

@@ -11,6 +11,7 @@ import hashlib
 import json
 import math
 import pickle
+import warnings
 from pathlib import Path
 from typing import Any
 
@@ -48,6 +49,8 @@ def parse(text: str) -> ModelFile:
 
 def test_every_example_is_covered() -> None:
     assert sorted(p.name for p in EXAMPLES.glob("*.toml")) == [
+        "disordered_plaquette.toml",
+        "driven_triangle.toml",
         "kerr_trimer.toml",
         "polariton_chain.toml",
         "ring_kerr_crossover.toml",
@@ -80,9 +83,15 @@ def test_ring_kerr_crossover_example() -> None:
     assert spec.model.space.dim == 462
     assert spec.sweep is not None and list(spec.sweep.axes) == ["U"]
     np.testing.assert_allclose(spec.sweep.axes["U"], np.geomspace(0.5, 20.0, 25))
-    assert spec.record == ("energy", "gap", "number_variance")
+    assert spec.quantities == ("energy", "gap", "number_variance")
     assert spec.levels == 2
-    assert spec.solver == {"tol": 1e-9, "method": "auto", "threads": None}
+    assert spec.solver == {
+        "method": "auto",
+        "tol": 1e-9,
+        "seed": 0,
+        "max_iterations": None,
+        "threads": None,
+    }
     assert spec.entropy_modes == ()
 
 
@@ -91,7 +100,7 @@ def test_polariton_chain_example() -> None:
     expected = jaynes_cummings_hubbard(4, cavity_cutoff=4, total=4, coupling=0.02, hopping=0.001)
     assert spec.model == expected
     assert spec.sweep is not None and spec.sweep.shape == (8,)
-    assert spec.record == ("energy", "gap", "populations", "entropy")
+    assert spec.quantities == ("energy", "gap", "populations", "entropy")
     assert spec.entropy_modes == (0, 1)
     assert spec.solver["tol"] == 1e-10
 
@@ -108,7 +117,7 @@ def test_kerr_trimer_example() -> None:
     )
     assert spec.model == expected
     assert spec.sweep is not None
-    np.testing.assert_allclose(spec.sweep.axes["exchange"], np.linspace(0.0, 3.0, 13))
+    np.testing.assert_allclose(spec.sweep.axes["exchange_scale"], np.linspace(0.0, 3.0, 13))
     assert spec.levels == 4
 
 
@@ -143,9 +152,15 @@ BASE = '[model]\nkind = "bose-hubbard"\nlattice = "chain"\nsites = 3\ntotal = 2\
 def test_defaults_without_optional_tables() -> None:
     spec = parse(BASE)
     assert spec.sweep is None
-    assert spec.record == ("energy",)
+    assert spec.quantities == ("energy",)
     assert spec.levels == 1
-    assert spec.solver == {"tol": 1e-9, "method": "auto", "threads": None}
+    assert spec.solver == {
+        "method": "auto",
+        "tol": 1e-9,
+        "seed": 0,
+        "max_iterations": None,
+        "threads": None,
+    }
     assert spec.model == bose_hubbard([(0, 1), (1, 2)], total=2)
 
 
@@ -376,7 +391,12 @@ SCHEMA_ERRORS: list[tuple[str, str, str | None, str]] = [
         "sweep",
         "grid points",
     ),
-    ("sweep of zero piece", KERR + "[sweep.cross_kerr]\nvalues = [1]\n", "sweep.cross_kerr", "no"),
+    (
+        "sweep of zero piece",
+        KERR + "[sweep.cross_kerr_scale]\nvalues = [1]\n",
+        "sweep.cross_kerr_scale",
+        "no",
+    ),
     (
         "unknown quantity",
         BASE + '[record]\nquantities = ["energies"]\n',
@@ -529,9 +549,12 @@ VOCABULARY = [
     "sweep", "values", "start", "stop", "num", "spacing", "geometric", "record",
     "quantities", "levels", "entropy_modes", "solver", "tol", "method", "threads",
     "J", "U", "mu", "wc", "we", "g", "omega", "kerr", "exchange", "drive", "schema",
+    "frequency_scale", "kerr_scale", "cross_kerr_scale", "exchange_scale",
+    "terms", "units", "energy", "value", "fixed", "per_mode", "modes", "weights",
+    "random", "add_adjoint", "distribution", "seed", "count(@)", "raise(0) lower(1)",
     *RECORDABLE,
 ]  # fmt: skip
-TABLES = ["model", "parameters", "drives", "sweep", "record", "solver"]
+TABLES = ["model", "terms", "parameters", "units", "drives", "sweep", "record", "solver"]
 KEYS = st.one_of(st.sampled_from(VOCABULARY), st.text(max_size=4))
 SCALARS = st.one_of(
     st.integers(-2, 8),
@@ -573,9 +596,9 @@ VALID_DOCUMENTS: list[dict[str, Any]] = [
 
 
 def check_invariants(spec: ModelFile) -> None:
-    assert set(spec.record) <= set(RECORDABLE)
+    assert set(spec.quantities) <= set(RECORDABLE)
     assert 1 <= spec.levels <= spec.model.space.dim
-    if "gap" in spec.record:
+    if "gap" in spec.quantities:
         assert spec.levels >= 2
     assert all(0 <= m < spec.model.space.modes for m in spec.entropy_modes)
     if spec.sweep is not None:
@@ -584,12 +607,18 @@ def check_invariants(spec: ModelFile) -> None:
 
 
 def parse_or_model_file_error(text: str) -> None:
-    try:
-        spec = parse(text)
-    except ModelFileError as error:
-        assert str(error).startswith("<test>: ")
-    else:
-        check_invariants(spec)
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        try:
+            spec = parse(text)
+        except ModelFileError as error:
+            assert str(error).startswith("<test>: ")
+        else:
+            check_invariants(spec)
+    # The only warning a file may cause: a deprecated parameter name, with its new name.
+    for warning in caught:
+        assert issubclass(warning.category, DeprecationWarning), warning
+        assert "is now called" in str(warning.message)
 
 
 @FUZZ

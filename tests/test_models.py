@@ -100,7 +100,8 @@ def test_bose_hubbard_complex_hopping_is_hermitian() -> None:
 def test_bose_hubbard_cutoff_defaults_to_total() -> None:
     model = bose_hubbard(ring_edges(6), total=6)
     assert model.space.cutoffs == (6,) * 6
-    # Unit filling of 6 sites: C(11, 5) = 462 states (stars and bars, common practice).
+    # Unit filling of 6 sites: C(11, 5) = 462 states (stars and bars: Feller, An
+    # Introduction to Probability Theory vol. 1, 3rd ed. 1968, Sec. II.5; from memory).
     assert model.space.dim == math.comb(11, 5)
     assert not any(model.space.binding_cutoffs())
     assert bose_hubbard([], sites=2, total=0).space.dim == 1
@@ -108,8 +109,10 @@ def test_bose_hubbard_cutoff_defaults_to_total() -> None:
 
 @pytest.mark.parametrize(("hopping", "mu"), [(1.0, 0.0), (0.7, 0.3), (-1.3, -2.0)])
 def test_two_sites_one_particle(hopping: float, mu: float) -> None:
-    # The bonding and antibonding orbitals of a dimer sit at ∓J (common practice, no
-    # source); the chemical potential shifts both by −μ.
+    # The bonding and antibonding orbitals of a dimer sit at ∓J (two-state system with
+    # coupling −J: Feynman, Leighton & Sands, The Feynman Lectures on Physics vol. III,
+    # 1965, Chaps. 9–10; from memory for the chapters); the chemical potential shifts
+    # both by −μ.
     model = bose_hubbard([(0, 1)], total=1, hopping=hopping, interaction=5.0)
     expected = np.sort([-hopping - mu, hopping - mu])
     np.testing.assert_allclose(spectrum(model, mu=mu), expected, atol=1e-12)
@@ -128,7 +131,8 @@ def test_two_sites_two_particles(hopping: float, interaction: float) -> None:
 
 def test_open_chain_single_particle_band() -> None:
     # Tight-binding chain of L sites: E_m = −2J cos(π m / (L + 1)), m = 1..L
-    # (common practice, no source).
+    # (tight-binding band, Ashcroft & Mermin, Solid State Physics, 1976, Chap. 10, with
+    # the standing-wave boundary condition of an open chain).
     sites = 7
     model = bose_hubbard(chain_edges(sites), total=1, hopping=0.8)
     m = np.arange(1, sites + 1)
@@ -138,7 +142,8 @@ def test_open_chain_single_particle_band() -> None:
 
 def test_torus_single_particle_band() -> None:
     # Square lattice with periodic boundaries: E = −2J (cos kx + cos ky) with
-    # kx = 2π p / cols, ky = 2π q / rows (common practice, no source).
+    # kx = 2π p / cols, ky = 2π q / rows (simple-cubic-type tight-binding band in two
+    # dimensions: Ashcroft & Mermin, Solid State Physics, 1976, Chap. 10).
     rows, cols = 3, 4
     model = bose_hubbard(rectangular_edges(rows, cols, periodic=True), total=1)
     kx = 2 * np.pi * np.arange(cols) / cols
@@ -257,8 +262,9 @@ def test_jaynes_cummings_detuned_doublet() -> None:
 def test_jaynes_cummings_hubbard_ring_one_excitation() -> None:
     # One excitation on a ring of L cavities: each Bloch mode k has photon energy
     # ε_k = ω_c − 2J cos k and mixes with the emitter at ω_e, giving
-    # E = (ε_k + ω_e)/2 ± √((ε_k − ω_e)²/4 + g²) with k = 2π m / L
-    # (common practice, no source).
+    # E = (ε_k + ω_e)/2 ± √((ε_k − ω_e)²/4 + g²) with k = 2π m / L (Bloch modes of the
+    # ring: Ashcroft & Mermin, Solid State Physics, 1976, Chap. 10; each mixed with its
+    # emitter as in Jaynes & Cummings, Proc. IEEE 51, 89 (1963), one excitation).
     sites, wc, we, g, hopping = 5, 1.0, 0.9, 0.08, 0.03
     model = jaynes_cummings_hubbard(
         sites,
@@ -298,16 +304,20 @@ def test_kerr_network_pieces_match_hand_built() -> None:
         total=3,
     )
     assert model.space == fm.FockSpace(3, [2, 3, 2], 3)
-    assert model.pieces["omega"] == 1.0 * n(0) + 1.5 * n(1) + 2.0 * n(2)
-    assert model.pieces["kerr"] == -0.1 * ad(0) ** 2 * a(0) ** 2 + 0.2 * ad(2) ** 2 * a(2) ** 2
-    assert model.pieces["cross_kerr"] == 0.05 * n(0) * n(2)
-    assert model.pieces["exchange"] == 0.1 * hop(0, 1) + (
+    assert model.pieces["frequency_scale"] == 1.0 * n(0) + 1.5 * n(1) + 2.0 * n(2)
+    assert (
+        model.pieces["kerr_scale"] == -0.1 * ad(0) ** 2 * a(0) ** 2 + 0.2 * ad(2) ** 2 * a(2) ** 2
+    )
+    assert model.pieces["cross_kerr_scale"] == 0.05 * n(0) * n(2)
+    assert model.pieces["exchange_scale"] == 0.1 * hop(0, 1) + (
         0.25j * ad(1) * a(2) - 0.25j * ad(2) * a(1)
     )
-    assert dict(model.parameters) == dict.fromkeys(["omega", "kerr", "cross_kerr", "exchange"], 1.0)
+    assert dict(model.parameters) == dict.fromkeys(
+        ["frequency_scale", "kerr_scale", "cross_kerr_scale", "exchange_scale"], 1.0
+    )
     assert model.hamiltonian().is_hermitian()
     empty = kerr_network([1.0], cutoff=2)
-    assert empty.pieces["kerr"].is_zero() and empty.pieces["exchange"].is_zero()
+    assert empty.pieces["kerr_scale"].is_zero() and empty.pieces["exchange_scale"].is_zero()
 
 
 def test_single_kerr_oscillator_spectrum() -> None:
@@ -317,9 +327,21 @@ def test_single_kerr_oscillator_spectrum() -> None:
     levels = np.arange(cutoff + 1)
     expected = np.sort(omega * levels + kerr / 2 * levels * (levels - 1))
     np.testing.assert_allclose(spectrum(model), expected, atol=1e-12)
-    # The "kerr" parameter scales the whole family.
+    # The "kerr_scale" parameter scales the whole family.
     scaled = np.sort(omega * levels + 2 * kerr / 2 * levels * (levels - 1))
-    np.testing.assert_allclose(spectrum(model, kerr=2.0), scaled, atol=1e-12)
+    np.testing.assert_allclose(spectrum(model, kerr_scale=2.0), scaled, atol=1e-12)
+    # The old name is a deprecated alias for one release.
+    with pytest.warns(DeprecationWarning, match="now called 'kerr_scale'"):
+        old_name = spectrum(model, kerr=2.0)
+    np.testing.assert_allclose(old_name, scaled, atol=1e-12)
+
+
+def test_models_namespace_lists_only_builders() -> None:
+    # dir() shows the public builders, not numpy or typing helpers (project contract).
+    import fockmill.models as models_module
+
+    assert set(dir(models_module)) == set(models_module.__all__)
+    assert not {"np", "math", "cast", "Any"} & set(dir(models_module))
 
 
 def test_cross_kerr_and_exchange_closed_forms() -> None:
@@ -365,7 +387,7 @@ def test_with_drives_pieces_and_spaces() -> None:
     assert coherent.pieces["drive"] == 0.3 * (a(1) + ad(1))
     assert coherent.space == fm.FockSpace(2, 4)
     assert coherent.parameters["drive"] == 1.0
-    assert coherent.pieces["exchange"] == base.pieces["exchange"]
+    assert coherent.pieces["exchange_scale"] == base.pieces["exchange_scale"]
     assert coherent.name == "driven kerr-network"
 
     squeezed = with_drives(base, two_photon={0: 0.2j})

@@ -10,6 +10,7 @@ import fockmill as fm
 import numpy as np
 import pytest
 from fockmill.exceptions import CutoffWarning, NotHermitianError, SizeLimitError
+from reference import sector_matrix, sector_occupations
 
 
 def ring(sites: int, hopping: float, interaction: float, disorder: float = 0.0) -> fm.LadderExpr:
@@ -25,16 +26,17 @@ def ring(sites: int, hopping: float, interaction: float, disorder: float = 0.0) 
 
 @pytest.mark.parametrize("method", ["dense", "csr", "operator"])
 def test_lowest_levels_match_dense_numpy(method: str) -> None:
-    # Reference: numpy.linalg.eigh of the same matrix (LAPACK).
+    # Reference: numpy.linalg.eigh (LAPACK) of the matrix built by hand in
+    # tests/reference.sector_matrix, independent of the package's builder.
     h = ring(6, 1.0, 2.5, disorder=0.3)
     space = fm.FockSpace(modes=6, cutoff=6, total=6)
-    reference = np.linalg.eigvalsh(fm.build_matrix(h, space).toarray())[:4]
+    m = sector_matrix(h, [6] * 6, total=6).real
+    reference = np.linalg.eigvalsh(m)[:4]
     levels = fm.lowest_levels(h, space, k=4, method=method, tol=1e-12)
     np.testing.assert_allclose(levels.energies, reference, atol=1e-9)
     assert levels.method == method
     assert np.all(levels.residuals < 1e-7)
     # Residuals are real: recompute one by hand.
-    m = fm.build_matrix(h, space)
     v = levels.vectors[:, 1]
     assert np.linalg.norm(m @ v - levels.energies[1] * v) == pytest.approx(
         levels.residuals[1], abs=1e-10
@@ -45,7 +47,7 @@ def test_lowest_levels_match_dense_numpy(method: str) -> None:
 def test_ground_state_matches_dense_numpy(method: str) -> None:
     h = ring(7, 1.0, 4.0, disorder=0.2)
     space = fm.FockSpace(modes=7, cutoff=3, total=7)
-    reference = np.linalg.eigvalsh(fm.build_matrix(h, space).toarray())[0]
+    reference = np.linalg.eigvalsh(sector_matrix(h, [3] * 7, total=7))[0]
     # Cutoff 3 below the total 7 truncates on purpose here.
     g = fm.ground_state(h, space, method=method, tol=1e-10, cutoff_warning=None)
     assert g.energy == pytest.approx(reference, abs=1e-8)
@@ -59,7 +61,8 @@ def test_ground_state_matches_dense_numpy(method: str) -> None:
 
 def test_degenerate_ground_state_is_reported() -> None:
     # Two free bosons on a 3-site ring with hopping +J: the single-particle levels are
-    # 2J cos(2πk/3) = 2J, −J, −J (common practice, no source); both bosons in the
+    # 2J cos(2πk/3) = 2J, −J, −J (tight-binding ring: Ashcroft & Mermin, Solid State
+    # Physics, 1976, Chap. 10, with periodic boundaries); both bosons in the
     # doubly degenerate orbital give a 3-fold degenerate ground level at −2J.
     h = fm.LadderExpr()
     for i in range(3):
@@ -77,7 +80,8 @@ def test_degenerate_ground_state_is_reported() -> None:
 
 def test_single_particle_ring_degenerate_pairs_found_by_eigsh() -> None:
     # One particle on a ring of 12 sites, hopping −1: energies −2 cos(2πk/12), so every
-    # level but the lowest and the highest comes in pairs (common practice, no source).
+    # level but the lowest and the highest comes in pairs (tight-binding ring: Ashcroft &
+    # Mermin, Solid State Physics, 1976, Chap. 10).
     h = ring(12, 1.0, 0.0)
     space = fm.FockSpace(modes=12, cutoff=1, total=1)
     exact = np.sort(-2 * np.cos(2 * np.pi * np.arange(12) / 12))[:5]
@@ -109,7 +113,9 @@ def test_lanczos_matches_eigsh_on_a_mid_size_sector() -> None:
 def test_bose_hubbard_strong_coupling_second_order() -> None:
     # Mott insulator at unit filling, U ≫ J: second-order perturbation theory gives
     # E0 ≈ −(2 bonds per site) · |−J√2|² · 2 directions / U = −4 L J² / U for a ring
-    # (virtual doublon–holon pairs; common practice, derived here). The error is
+    # (virtual doublon–holon pairs; second-order non-degenerate perturbation theory,
+    # Sakurai & Napolitano, Modern Quantum Mechanics, 2nd ed. 2011, Sec. 5.1; the
+    # Bose–Hubbard numbers derived here). The error is
     # O(J⁴/U³), so doubling U must shrink the relative error about fourfold.
     sites = 6
     space = fm.FockSpace(modes=sites, cutoff=sites, total=sites)
@@ -151,7 +157,9 @@ def test_cutoff_warning_only_for_truncating_cutoffs() -> None:
 
 def test_two_mode_squeezed_vacuum_entropy() -> None:
     # |ψ⟩ = sqrt(1−λ²) Σ λⁿ |n, n⟩ with λ = tanh r has Schmidt weights (1−λ²)λ^{2n}, so
-    # S = cosh²r ln cosh²r − sinh²r ln sinh²r (common practice, no source).
+    # S = cosh²r ln cosh²r − sinh²r ln sinh²r (entropy of the Schmidt weights: Nielsen &
+    # Chuang, Quantum Computation and Quantum Information, 2000, Secs. 2.5 and 11.3; the
+    # closed form from memory, as in Barnett & Phoenix, Phys. Rev. A 40, 2404 (1989)).
     r = 0.7
     lam = math.tanh(r)
     cutoff = 60
@@ -191,7 +199,7 @@ def test_observables_against_dense_matrices() -> None:
     space = fm.FockSpace(modes=5, cutoff=3, total=5)
     g = fm.ground_state(h, space, method="dense", cutoff_warning=None)
     v = g.vector
-    occ = space.occupations().astype(float)
+    occ = sector_occupations([3] * 5, total=5).astype(float)  # brute-force basis
     np.testing.assert_allclose(fm.populations(space, v), (v**2) @ occ, atol=1e-12)
     np.testing.assert_allclose(
         fm.number_variances(space, v), (v**2) @ occ**2 - ((v**2) @ occ) ** 2, atol=1e-12
@@ -199,8 +207,8 @@ def test_observables_against_dense_matrices() -> None:
     g1 = fm.one_body_matrix(space, v)
     for i in range(5):
         for j in range(5):
-            m = fm.build_matrix(fm.raising(i) * fm.lowering(j), space)
-            assert g1[i, j] == pytest.approx(v @ (m @ v), abs=1e-12)
+            m = sector_matrix(fm.raising(i) * fm.lowering(j), space.cutoffs, total=space.total)
+            assert g1[i, j] == pytest.approx(v @ (m.real @ v), abs=1e-12)
     assert np.trace(g1) == pytest.approx(5.0)
     dist = fm.occupation_distribution(space, v)
     np.testing.assert_allclose(dist.sum(axis=1), 1.0)

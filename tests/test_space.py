@@ -181,7 +181,8 @@ def test_sector_size_is_stars_and_bars_without_truncation(
     particles: int, sites: int, cutoff: int
 ) -> None:
     # N bosons on L modes with no cutoff below N: C(N + L - 1, N) states (stars and
-    # bars, common practice, no source).
+    # bars: Feller, An Introduction to Probability Theory vol. 1, 3rd ed. 1968,
+    # Sec. II.5; from memory).
     assert cutoff >= particles
     space = fm.FockSpace(modes=sites, cutoff=cutoff, total=particles)
     assert space.dim == math.comb(particles + sites - 1, particles)

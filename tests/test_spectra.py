@@ -147,7 +147,7 @@ def test_jaynes_cummings_full_truncated_space() -> None:
     # Without a sector the matrix is block diagonal in the excitation number: the
     # vacuum (0), the doublets for n = 1..C, and |C, e> alone at C ω_c + ω_e, whose
     # partner |C+1, g> lies above the cavity cutoff C (the one truncation artefact;
-    # Jaynes & Cummings 1963 for the doublets, from memory).
+    # Jaynes & Cummings, Proc. IEEE 51, 89 (1963) for the doublets; form from memory).
     cavity, emitter, coupling, top = 4.0, 4.3, 0.25, 6
     space = fm.FockSpace(cutoff=[top, 1])
     expected = [0.0, top * cavity + emitter]
@@ -176,7 +176,8 @@ def test_hard_core_bosons_open_chain(sites: int, particles: int, hopping: float)
     # Cutoff 1 makes the bosons hard-core; on an open chain the Jordan–Wigner mapping
     # turns them into free fermions with no boundary term (Lieb, Schultz & Mattis 1961,
     # Ann. Phys. 16, 407). Single-particle energies -2t cos(kπ/(L+1)), k = 1..L (open
-    # tight-binding chain, common practice); the N-particle levels are the sums over all
+    # tight-binding chain: Ashcroft & Mermin, Solid State Physics, 1976, Chap. 10, with
+    # the standing-wave boundary condition); the N-particle levels are the sums over all
     # N-subsets, and the ground energy is the sum of the N lowest.
     expr = open_chain(sites, hopping)
     space = fm.FockSpace(modes=sites, cutoff=1, total=particles)
@@ -190,7 +191,8 @@ def test_hard_core_bosons_open_chain(sites: int, particles: int, hopping: float)
 def test_soft_core_bosons_differ_from_hard_core() -> None:
     # Negative control for the test above: with cutoff 2 double occupancy is allowed
     # and the ground energy drops below the free-fermion value (more states, same
-    # hopping; Rayleigh–Ritz, common practice, no source).
+    # hopping; Rayleigh–Ritz variational principle: Sakurai & Napolitano, Modern Quantum
+    # Mechanics, 2nd ed. 2011, Sec. 5.4, from memory for the section number).
     sites, particles = 6, 3
     expr = open_chain(sites, 1.0)
     single = -2 * np.cos(np.arange(1, sites + 1) * np.pi / (sites + 1))
@@ -208,7 +210,8 @@ def test_displaced_oscillator_converges_with_cutoff(epsilon: float) -> None:
     # so E_k = ω k - ε²/ω and the ground state is the coherent state with
     # <a> = -ε/ω (common practice, no source). The truncated matrix is P H P, a
     # Rayleigh–Ritz restriction: E0 never goes below the exact value and does not rise
-    # as the cutoff grows (Cauchy interlacing, common practice).
+    # as the cutoff grows (Cauchy interlacing: Horn & Johnson, Matrix Analysis, 2nd ed.
+    # 2013, Sec. 4.3; from memory for the section).
     omega = 1.3
     exact = -(epsilon**2) / omega
     expr = omega * n(0) + epsilon * (a(0) + adag(0))
@@ -251,7 +254,7 @@ def closed_form_cases() -> list[tuple[str, fm.LadderExpr, fm.FockSpace, list[flo
             fm.FockSpace(modes=sites, cutoff=1, total=particles),
             chain_levels,
         ),
-        # Jaynes & Cummings 1963 (from memory), full truncated space.
+        # Jaynes & Cummings, Proc. IEEE 51, 89 (1963) (form from memory), full space.
         (
             "Jaynes–Cummings",
             jaynes_cummings(cavity, emitter, coupling),

@@ -29,7 +29,7 @@ def ring() -> Model:
 
 
 def sweep(model: Model, store: Path | ResultsStore, points=POINTS, **kwargs):
-    options = {"record": RECORD, "executor": "serial", "progress": False}
+    options = {"quantities": RECORD, "executor": "serial", "progress": False}
     options.update(kwargs)
     return run_sweep(model, points, store=store, **options)
 
@@ -89,7 +89,7 @@ KILL_SCRIPT = textwrap.dedent(
     model = hubbard_ring(sites=6, particles=6, cutoff=6)
     points = [{"U": 0.05 * k} for k in range(int(sys.argv[3]))]
     run_sweep(model, points, store=sys.argv[1], executor="serial", progress=False,
-              solver_options={"dense_limit": 0})
+              method="csr")
     """
 )
 
@@ -132,7 +132,7 @@ def test_sigkill_mid_sweep_then_resume_equals_uninterrupted(tmp_path: Path) -> N
 
     model = hubbard_ring(sites=6, particles=6, cutoff=6)
     points = [{"U": 0.05 * k} for k in range(total)]
-    options = {"dense_limit": 0}
+    options = {"method": "csr"}
     redone: list[int] = []
     resumed = run_sweep(
         model,
@@ -140,13 +140,11 @@ def test_sigkill_mid_sweep_then_resume_equals_uninterrupted(tmp_path: Path) -> N
         store=path,
         executor="serial",
         progress=False,
-        solver_options=options,
+        **options,
         on_point=lambda row: redone.append(row.index),
     )
     assert len(redone) == total - at_kill
-    uninterrupted = run_sweep(
-        model, points, executor="serial", progress=False, solver_options=options
-    )
+    uninterrupted = run_sweep(model, points, executor="serial", progress=False, **options)
     with ResultsStore.open(path) as store:
         assert store.integrity_ok()
         indices = [row.index for row in store.rows()]
@@ -195,8 +193,8 @@ def test_refuses_changed_grid_or_record(ring: Model, tmp_path: Path) -> None:
     shifted = [{"U": p["U"] + 0.5} for p in POINTS[:3]]
     with pytest.raises(StoreError, match="grid or a default value changed"):
         sweep(ring, path, points=shifted)
-    with pytest.raises(StoreError, match="recording"):
-        sweep(ring, path, points=POINTS[:3], record=("energy",))
+    with pytest.raises(StoreError, match="quantities"):
+        sweep(ring, path, points=POINTS[:3], quantities=("energy",))
     # A changed default of an unswept parameter changes every point too.
     retuned = Model(
         ring.name, ring.space, ring.pieces, {"J": 0.9, "U": 1.0}, constant=ring.constant
@@ -235,7 +233,7 @@ def test_complex_model_round_trips(tmp_path: Path) -> None:
     space = fm.FockSpace(modes=sites, cutoff=2, total=2)
     model = Model("flux-ring", space, {"J": hop}, {"J": 1.0})
     path = tmp_path / "flux.sqlite"
-    table = sweep(model, path, points=[{"J": 1.0}], record=("energy", "gap", "one_body"))
+    table = sweep(model, path, points=[{"J": 1.0}], quantities=("energy", "gap", "one_body"))
     with ResultsStore.open(path) as store:
         row = store.rows()[0]
     assert row == table.rows[0]
@@ -247,3 +245,142 @@ def test_complex_model_round_trips(tmp_path: Path) -> None:
 def test_directory_is_not_a_results_file(tmp_path: Path) -> None:
     with pytest.raises(StoreError, match="is a directory"):
         ResultsStore.open(tmp_path)
+
+
+# -- failures are results; safe creation; resume checks (issue 8, defects 5-7) ------------
+
+
+def test_nan_result_is_stored_as_a_failed_point(ring: Model, tmp_path: Path) -> None:
+    # Defect 5: U = 1e308 overflows the matrix (U/2 · n(n − 1) > max float). The point
+    # must be stored as failed with a message, not rejected by a NOT NULL constraint
+    # and reported as a point "already stored".
+    path = tmp_path / "ring.sqlite"
+    points = [{"U": 1.0}, {"U": 1e308}, {"U": 2.0}]
+    table = sweep(ring, path, points=points)
+    assert [row.status for row in table] == ["ok", "failed", "ok"]
+    with ResultsStore.open(path) as store:
+        rows = store.rows()
+        assert store.integrity_ok()
+    assert [row.status for row in rows] == ["ok", "failed", "ok"]
+    assert "finite" in rows[1].message
+    assert rows[0].energy == pytest.approx(dense_levels(ring, points[0])[0], abs=1e-9)
+
+
+def test_interrupted_creation_leaves_no_file(
+    ring: Model, tmp_path: Path, monkeypatch: pytest.MonkeyPatch
+) -> None:
+    # Defect 6: a failure between creating the file and committing its schema must not
+    # leave a half-made file that every later run refuses as foreign.
+    import fockmill._store as store_module
+
+    path = tmp_path / "ring.sqlite"
+    monkeypatch.setattr(store_module, "_SCHEMA", store_module._SCHEMA + "\nCREATE TABLE (;")
+    with pytest.raises(sqlite3.Error):
+        sweep(ring, path, points=POINTS[:2])
+    monkeypatch.undo()
+    assert not path.exists()
+    assert [p.name for p in tmp_path.iterdir()] == []
+    table = sweep(ring, path, points=POINTS[:2])
+    assert len(table) == 2
+
+
+@pytest.mark.parametrize(
+    ("changed", "setting"),
+    [
+        ({"method": "csr"}, "method"),
+        ({"tol": 1e-6}, "tol"),
+        ({"seed": 7}, "seed"),
+        ({"levels": 3}, "levels"),
+    ],
+)
+def test_resume_refuses_other_solver_settings(
+    ring: Model, tmp_path: Path, changed: dict, setting: str
+) -> None:
+    # Defect 7: results solved one way must not be mixed with results solved another.
+    path = tmp_path / "ring.sqlite"
+    sweep(ring, path, points=POINTS[:3], method="dense", tol=1e-9, seed=0, levels=2)
+    options = {"method": "dense", "tol": 1e-9, "seed": 0, "levels": 2}
+    options.update(changed)
+    with pytest.raises(StoreError, match=rf"\b{setting}\b"):
+        sweep(ring, path, points=POINTS[:3], **options)
+    # The same settings resume fine.
+    assert len(sweep(ring, path, points=POINTS[:3], method="dense", tol=1e-9, levels=2)) == 3
+
+
+def test_failed_points_are_retried_only_when_asked(ring: Model, tmp_path: Path) -> None:
+    # Lanczos with 4 products cannot converge on 35 states; with the default limit it
+    # does. Reference: numpy eigvalsh on the matrix rebuilt per point.
+    path = tmp_path / "ring.sqlite"
+    options = {"quantities": ("energy",), "levels": 1, "method": "lanczos"}
+    first = sweep(ring, path, points=POINTS[:3], max_iterations=4, **options)
+    assert {row.status for row in first} == {"not_converged"}
+    kept = sweep(ring, path, points=POINTS[:3], **options)
+    assert [row.status for row in kept] == ["not_converged"] * 3
+    redone: list[int] = []
+    retried = sweep(
+        ring,
+        path,
+        points=POINTS[:3],
+        retry_failed=True,
+        on_point=lambda r: redone.append(r.index),
+        **options,
+    )
+    assert sorted(redone) == [0, 1, 2]
+    assert [row.status for row in retried] == ["ok"] * 3
+    for row, point in zip(retried, POINTS[:3], strict=True):
+        assert row.energy == pytest.approx(dense_levels(ring, point)[0], abs=1e-8)
+    with ResultsStore.open(path) as store:
+        assert sorted(store.finished_indices()) == [0, 1, 2]
+        assert store.integrity_ok()
+
+
+def test_metadata_is_plain_json_with_mode_labels_and_units(ring: Model, tmp_path: Path) -> None:
+    import json
+
+    path = tmp_path / "ring.sqlite"
+    sweep(ring, path, points=POINTS[:2], units={"U": "J", "energy": "J"})
+    with sqlite3.connect(path) as raw:
+        stored = dict(raw.execute("SELECT key, value FROM meta").fetchall())
+    raw.close()
+    decoded = {key: json.loads(value) for key, value in stored.items()}
+    assert decoded["swept_parameters"] == ["U"]
+    assert isinstance(decoded["settings"], dict)
+    assert decoded["settings"]["quantities"] == list(RECORD)
+    assert decoded["mode_labels"] == ["mode 0", "mode 1", "mode 2", "mode 3"]
+    assert decoded["units"] == {"U": "J", "energy": "J"}
+    with ResultsStore.open(path) as store:
+        assert store.meta["swept_parameters"] == ["U"]
+        assert store.mode_labels == ("mode 0", "mode 1", "mode 2", "mode 3")
+        assert store.units == {"U": "J", "energy": "J"}
+        table = store.to_table()
+    assert table.mode_labels == ("mode 0", "mode 1", "mode 2", "mode 3")
+    assert table.units == {"U": "J", "energy": "J"}
+
+
+def test_nan_energy_is_not_reported_as_a_duplicate(ring: Model, tmp_path: Path) -> None:
+    # Defect 5 at the store itself: SQLite stores NaN as NULL, which used to hit the
+    # NOT NULL constraint and be reported as "already stored ... another sweep".
+    from fockmill._store import PointResult
+
+    path = tmp_path / "ring.sqlite"
+    sweep(ring, path, points=POINTS[:1])
+    nan = float("nan")
+    row = PointResult(
+        index=1,
+        parameters={"J": 1.0, "U": 9.0},
+        energy=nan,
+        gap=nan,
+        levels=None,
+        observables={"entropy": nan},
+        residual=nan,
+        method="dense",
+        seconds=0.1,
+        finished="2026-01-01T00:00:00+00:00",
+    )
+    with ResultsStore.open(path) as store:
+        store.add_point(row)
+        stored = store.rows()[1]
+    assert stored.status == "failed"
+    assert "not finite" in stored.message
+    assert stored.energy is None and stored.residual is None
+    assert stored.observables == {"entropy": None}

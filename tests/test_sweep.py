@@ -11,7 +11,7 @@ import pytest
 from fockmill._model import Model
 from fockmill._sweep import SharedPattern, run_sweep, serpentine_order
 from fockmill.exceptions import NotHermitianError
-from reference import dense_matrix, full_basis, restrict, sector_occupations
+from reference import dense_matrix, full_basis, restrict, sector_matrix, sector_occupations
 
 
 def hubbard_ring(sites: int, particles: int, cutoff: int) -> Model:
@@ -31,8 +31,10 @@ def hubbard_ring(sites: int, particles: int, cutoff: int) -> Model:
 
 
 def dense_levels(model: Model, point: dict[str, float], count: int = 2) -> np.ndarray:
-    """External reference: numpy's dense eigvalsh of the matrix rebuilt from expressions."""
-    matrix = fm.build_matrix(model.hamiltonian(**point), model.space).toarray()
+    """External reference: numpy's dense eigvalsh of the matrix built by hand from the
+    expressions (tests/reference.sector_matrix, independent of the package's builder)."""
+    space = model.space
+    matrix = sector_matrix(model.hamiltonian(**point), space.cutoffs, space.total)
     return np.linalg.eigvalsh(matrix)[:count]
 
 
@@ -46,10 +48,8 @@ def ring() -> Model:
 
 @pytest.fixture(scope="module")
 def serial_table(ring: Model):
-    # dense_limit=0 forces the sparse Lanczos path with warm starts even at this size.
-    return run_sweep(
-        ring, GRID, executor="serial", solver_options={"dense_limit": 0}, progress=False
-    )
+    # method="csr" forces the sparse eigensolver with warm starts even at this size.
+    return run_sweep(ring, GRID, executor="serial", method="csr", progress=False)
 
 
 def test_serial_sweep_matches_dense_reference(ring: Model, serial_table) -> None:
@@ -72,7 +72,7 @@ def test_chunked_pool_equals_serial(ring: Model, serial_table) -> None:
         GRID,
         workers=2,
         chunk=3,
-        solver_options={"dense_limit": 0},
+        method="csr",
         progress=False,
     )
     a, b = serial_table.to_arrays(), pooled.to_arrays()
@@ -92,7 +92,8 @@ def test_thread_executor_is_accepted(ring: Model, serial_table) -> None:
             GRID,
             executor=executor,
             chunk=5,
-            solver_options={"dense_limit": 0, "threads": 1},
+            method="csr",
+            threads=1,
             progress=False,
         )
     np.testing.assert_allclose(
@@ -110,9 +111,7 @@ def test_dask_local_cluster_equals_serial(ring: Model, serial_table) -> None:
         ) as cluster,
         distributed.Client(cluster) as client,
     ):
-        table = run_sweep(
-            ring, GRID, executor=client, chunk=4, solver_options={"dense_limit": 0}, progress=False
-        )
+        table = run_sweep(ring, GRID, executor=client, chunk=4, method="csr", progress=False)
     np.testing.assert_array_equal(table.to_arrays()["index"], np.arange(len(GRID)))
     np.testing.assert_allclose(
         table.to_arrays()["energy"], serial_table.to_arrays()["energy"], rtol=0, atol=1e-9
@@ -156,7 +155,7 @@ def test_two_site_pair_closed_form() -> None:
     table = run_sweep(
         model,
         points,
-        record=("energy", "gap", "populations", "number_variance", "one_body", "entropy"),
+        quantities=("energy", "gap", "populations", "number_variance", "one_body", "entropy"),
         executor="serial",
         progress=False,
     )
@@ -219,7 +218,7 @@ def test_levels_and_top_weight_recorded(ring: Model) -> None:
     table = run_sweep(
         ring,
         [{"U": 0.5}],
-        record=("levels", "top_weight"),
+        quantities=("levels", "top_weight"),
         levels=4,
         executor="serial",
         progress=False,
@@ -236,12 +235,12 @@ def test_levels_and_top_weight_recorded(ring: Model) -> None:
 @pytest.mark.parametrize(
     ("kwargs", "message"),
     [
-        ({"record": ("energy", "magnetisation")}, "cannot record"),
+        ({"quantities": ("energy", "magnetisation")}, "cannot record"),
         ({"levels": 1}, "needs levels >= 2"),
-        ({"levels": 0, "record": ("energy",)}, "levels must be an integer >= 1"),
-        ({"solver_options": {"tolerance": 1e-3}}, "unknown solver option"),
-        ({"solver_options": {"method": "magic"}}, "method must be"),
-        ({"entropy_modes": (7,), "record": ("entropy",)}, "entropy_modes"),
+        ({"levels": 0, "quantities": ("energy",)}, "levels must be between 1"),
+        ({"tol": -1.0}, "tol must be a positive"),
+        ({"method": "magic"}, "method must be"),
+        ({"entropy_modes": (7,), "quantities": ("entropy",)}, "entropy_modes"),
         ({"chunk": 0}, "chunk must be"),
     ],
 )
@@ -273,11 +272,11 @@ def test_progress_bar_goes_to_stderr(ring: Model, capsys: pytest.CaptureFixture[
 
 
 @pytest.mark.parametrize(
-    ("method", "record", "levels"),
+    ("method", "quantities", "levels"),
     [("operator", ("energy", "gap", "populations"), 2), ("lanczos", ("energy", "populations"), 1)],
 )
 def test_matrix_free_methods_match_dense(
-    ring: Model, method: str, record: tuple[str, ...], levels: int
+    ring: Model, method: str, quantities: tuple[str, ...], levels: int
 ) -> None:
     # Reference: numpy eigvalsh on the matrix rebuilt per point. The ring at unit filling
     # is translation invariant, so every site holds one particle on average.
@@ -285,17 +284,18 @@ def test_matrix_free_methods_match_dense(
     table = run_sweep(
         ring,
         points,
-        record=record,
+        quantities=quantities,
         levels=levels,
         executor="serial",
-        solver_options={"method": method, "tol": 1e-12},
+        method=method,
+        tol=1e-12,
         progress=False,
     )
     for row, point in zip(table, points, strict=True):
         reference = dense_levels(ring, point)
         assert row.method == method
         assert row.energy == pytest.approx(reference[0], abs=1e-8)
-        if "gap" in record:
+        if "gap" in quantities:
             assert row.gap == pytest.approx(reference[1] - reference[0], abs=1e-8)
         np.testing.assert_allclose(row.observables["populations"], 1.0, atol=1e-6)
 
@@ -306,6 +306,116 @@ def test_lanczos_refuses_several_levels(ring: Model) -> None:
             ring,
             GRID[:1],
             executor="serial",
-            solver_options={"method": "lanczos"},
+            method="lanczos",
             progress=False,
         )
+
+
+# -- failures are results (issue 8, defect 4) ---------------------------------------------
+
+
+def test_failing_point_does_not_stop_the_sweep(ring: Model) -> None:
+    # U = 1e308 overflows the interaction matrix elements (U/2 · n(n − 1) > max float), so
+    # that point cannot give a finite energy; the points around it must still be solved.
+    # Reference for the others: numpy eigvalsh on the matrix rebuilt per point.
+    points = [{"U": 1.0}, {"U": 2.0}, {"U": 1e308}, {"U": 3.0}]
+    table = run_sweep(ring, points, executor="serial", progress=False)
+    assert [row.index for row in table] == [0, 1, 2, 3]
+    assert [row.status for row in table] == ["ok", "ok", "failed", "ok"]
+    bad = table.rows[2]
+    assert "finite" in bad.message
+    assert bad.energy is None or not math.isfinite(bad.energy)
+    for row, point in zip(table, points, strict=True):
+        if row.status == "ok":
+            assert row.message == ""
+            assert row.energy == pytest.approx(dense_levels(ring, point)[0], abs=1e-9)
+
+
+def test_unconverged_point_is_recorded_not_raised(ring: Model) -> None:
+    # Four matrix-vector products cannot converge Lanczos on 121 states (common
+    # practice, no source): every point is recorded as not converged, none raises.
+    table = run_sweep(
+        ring,
+        GRID[:3],
+        quantities=("energy",),
+        levels=1,
+        method="lanczos",
+        max_iterations=4,
+        executor="serial",
+        progress=False,
+    )
+    assert [row.status for row in table] == ["not_converged"] * 3
+    assert all("max_iterations" in row.message for row in table)
+
+
+# -- one solver stack, one vocabulary (issue 8 item 4, issue 12) ---------------------------
+
+
+def test_point_is_solved_like_ground_state() -> None:
+    # Same code, same defaults: a one-point sweep gives what fm.ground_state gives for
+    # the same Hamiltonian (numbers and chosen method), which in turn is checked against
+    # numpy eigvalsh.
+    space = fm.FockSpace(modes=6, cutoff=6, total=6)  # dim 462 (above the old limit 300)
+    model = hubbard_ring(sites=6, particles=6, cutoff=6)
+    assert model.space.dim == space.dim
+    table = run_sweep(model, [{"U": 2.0}], quantities=("energy",), levels=1, progress=False)
+    expected = fm.ground_state(model.hamiltonian(U=2.0), model.space, cutoff_warning=None)
+    row = table.rows[0]
+    assert row.method == expected.method
+    assert row.energy == pytest.approx(expected.energy, abs=1e-10)
+    assert row.energy == pytest.approx(dense_levels(model, {"U": 2.0})[0], abs=1e-9)
+
+
+def test_quantities_keyword_and_deprecated_aliases(ring: Model) -> None:
+    table = run_sweep(
+        ring, [{"U": 1.0}], quantities=["energy", "populations"], levels=1, progress=False
+    )
+    assert "populations" in table.rows[0].observables
+    with pytest.warns(DeprecationWarning, match="quantities"):
+        old = run_sweep(ring, [{"U": 1.0}], record=("energy",), levels=1, progress=False)
+    assert old.rows[0].energy == pytest.approx(table.rows[0].energy, abs=1e-12)
+    with pytest.warns(DeprecationWarning, match="solver_options"):
+        run_sweep(
+            ring,
+            [{"U": 1.0}],
+            quantities=("energy",),
+            levels=1,
+            solver_options={"tol": 1e-10},
+            progress=False,
+        )
+
+
+def test_sweep_grid_is_accepted(ring: Model) -> None:
+    grid = fm.SweepGrid({"U": np.array([0.5, 1.5]), "J": np.array([1.0])})
+    table = run_sweep(ring, grid, quantities=("energy",), levels=1, progress=False)
+    assert [row.parameters for row in table] == grid.points()
+    assert table.swept == ("U", "J")
+
+
+def test_default_pool_without_main_guard_names_the_fix(tmp_path) -> None:
+    # Defect 10: a script calling run_sweep at top level with the default process pool.
+    import subprocess
+    import sys
+    import textwrap
+
+    script = tmp_path / "unguarded.py"
+    script.write_text(
+        textwrap.dedent(
+            """
+            import fockmill as fm
+            from fockmill._model import Model
+
+            space = fm.FockSpace(modes=2, cutoff=2, total=2)
+            hop = -(fm.raising(0) * fm.lowering(1) + fm.raising(1) * fm.lowering(0))
+            model = Model("pair", space, {"J": hop}, {"J": 1.0})
+            fm.run_sweep(model, [{"J": 1.0}, {"J": 2.0}], workers=2, progress=False)
+            print("finished")
+            """
+        )
+    )
+    done = subprocess.run(
+        [sys.executable, str(script)], capture_output=True, text=True, timeout=120, check=False
+    )
+    assert done.returncode != 0
+    last = done.stderr.strip().splitlines()[-1]
+    assert 'if __name__ == "__main__":' in last, done.stderr

@@ -33,9 +33,7 @@ def test_exact_method_equals_dense_numpy_at_all_temperatures(bose_hubbard_ring):
     # (Landau & Lifshitz, Statistical Physics Part 1, 3rd ed. 1980, §112; from memory).
     h, space = bose_hubbard_ring
     hop = fm.raising(0) * fm.lowering(1)
-    th = fm.thermal(
-        h, space, TEMPERATURES, {"n0": fm.number(0), "hop": hop}, cutoff_warning=None
-    )
+    th = fm.thermal(h, space, TEMPERATURES, {"n0": fm.number(0), "hop": hop}, cutoff_warning=None)
     assert th.method == "exact"
     np.testing.assert_array_equal(th.errors, 0.0)
     for k, t in enumerate(TEMPERATURES):
@@ -105,12 +103,8 @@ def test_ftlm_agrees_with_exact_within_its_error_bar(bose_hubbard_ring):
     assert ftlm.method == "ftlm" and ftlm.samples == 40
     assert np.all(ftlm.errors > 0)
     assert np.all(np.abs(ftlm.energy - exact.energy) <= 4 * ftlm.errors)
-    assert np.all(
-        np.abs(ftlm.heat_capacity - exact.heat_capacity) <= 4 * ftlm.heat_capacity_errors
-    )
-    assert np.all(
-        np.abs(ftlm.values["n0"] - exact.values["n0"]) <= 4 * ftlm.value_errors["n0"]
-    )
+    assert np.all(np.abs(ftlm.heat_capacity - exact.heat_capacity) <= 4 * ftlm.heat_capacity_errors)
+    assert np.all(np.abs(ftlm.values["n0"] - exact.values["n0"]) <= 4 * ftlm.value_errors["n0"])
     again = fm.thermal(
         h, space, temperatures, observables, method="ftlm", samples=40, seed=7, cutoff_warning=None
     )
@@ -120,8 +114,10 @@ def test_ftlm_agrees_with_exact_within_its_error_bar(bose_hubbard_ring):
 def test_ftlm_top_weights_follow_the_exact_ones():
     # A free space: every cutoff truncates, so the top-level weight is reported.
     space = fm.FockSpace(modes=2, cutoff=3)
-    h = fm.number(0) + 0.5 * fm.number(1) + 0.3 * (
-        fm.raising(0) * fm.lowering(1) + fm.raising(1) * fm.lowering(0)
+    h = (
+        fm.number(0)
+        + 0.5 * fm.number(1)
+        + 0.3 * (fm.raising(0) * fm.lowering(1) + fm.raising(1) * fm.lowering(0))
     )
     temperatures = np.array([1.0, 4.0])
     exact = fm.thermal(h, space, temperatures, method="exact", cutoff_warning=None)

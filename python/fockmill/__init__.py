@@ -8,6 +8,9 @@ Public names
 ------------
 FockSpace
     Truncated multi-mode Fock space or conserved-charge sector.
+prepare, Problem
+    An expression compiled on a space once (validation, compiled terms, product
+    kernel, thread pool, memory estimate), reused by every build, product and solve.
 lowering, raising, number, identity, LadderExpr
     Ladder-operator expressions.
 build_matrix, build_operator, LadderOperator
@@ -19,11 +22,15 @@ ground_state, lowest_levels, GroundState, Levels, choose_method
 expectation, populations, number_variances, one_body_matrix, occupation_distribution,
 entanglement_entropy, top_level_weights
     Observables of a state, computed without building matrices.
-converge_cutoffs, CutoffScan
+converge_cutoffs, CutoffScan, CutoffWarning
     Truncation diagnostics.
-evolve, Evolution, spectral_function, spectral_poles, SpectralPoles, thermal, Thermal,
-BetweenOperator
-    Time evolution, spectral functions, thermal averages; operators between sectors.
+evolve, Evolution, spectral_function, spectral_poles, SpectralPoles, thermal, Thermal
+    Time evolution, spectral functions and thermal averages (``build_matrix``,
+    ``build_operator`` and ``prepare`` take ``target=`` for operators between sectors).
+density_correlations
+    ``⟨n_i n_j⟩`` for every pair of modes in one pass.
+save_state, load_state, SavedState, StateFileError
+    A state saved with its basis (``.npz``), refused on load when the basis differs.
 Model, models
     A Hamiltonian linear in named parameters on a fixed space; ready-made builders
     (Bose–Hubbard on any graph, Jaynes–Cummings–Hubbard arrays, Kerr networks, drives).
@@ -34,8 +41,8 @@ run_sweep, SweepTable, PointResult, ResultsStore, StoreError, plot_sweep
 """
 
 from fockmill import exceptions, models
-from fockmill._between import BetweenOperator
 from fockmill._build import build_matrix
+from fockmill._correlations import density_correlations
 from fockmill._evolve import Evolution, evolve
 from fockmill._expr import LadderExpr, format_monomial, identity, lowering, number, raising
 from fockmill._memory import MemoryEstimate, available_memory, estimate_memory
@@ -59,17 +66,20 @@ from fockmill._observe import (
 )
 from fockmill._operator import LadderOperator, build_operator
 from fockmill._plot import plot_sweep
+from fockmill._problem import Problem, prepare
 from fockmill._solve import GroundState, Levels, choose_method, ground_state, lowest_levels
 from fockmill._space import FockSpace
 from fockmill._spectral import SpectralPoles, spectral_function, spectral_poles
-from fockmill._store import ResultsStore, StoreError
-from fockmill._sweep import PointResult, SweepTable, run_sweep
+from fockmill._statefile import SavedState, StateFileError, load_state, save_state
+from fockmill._store import PointResult, ResultsStore, StoreError, SweepTable
+from fockmill._sweep import run_sweep
 from fockmill._thermal import Thermal, thermal
 from fockmill._truncation import CutoffScan, converge_cutoffs
+from fockmill.exceptions import CutoffWarning
 
 __all__ = [
-    "BetweenOperator",
     "CutoffScan",
+    "CutoffWarning",
     "Evolution",
     "FockSpace",
     "GroundState",
@@ -81,8 +91,11 @@ __all__ = [
     "ModelFile",
     "ModelFileError",
     "PointResult",
+    "Problem",
     "ResultsStore",
+    "SavedState",
     "SpectralPoles",
+    "StateFileError",
     "StoreError",
     "SweepGrid",
     "SweepTable",
@@ -93,6 +106,7 @@ __all__ = [
     "build_operator",
     "choose_method",
     "converge_cutoffs",
+    "density_correlations",
     "entanglement_entropy",
     "estimate_memory",
     "evolve",
@@ -102,6 +116,7 @@ __all__ = [
     "ground_state",
     "identity",
     "load_model_file",
+    "load_state",
     "lowering",
     "lowest_levels",
     "models",
@@ -112,8 +127,10 @@ __all__ = [
     "parse_model_text",
     "plot_sweep",
     "populations",
+    "prepare",
     "raising",
     "run_sweep",
+    "save_state",
     "spectral_function",
     "spectral_poles",
     "thermal",

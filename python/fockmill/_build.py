@@ -2,25 +2,22 @@
 
 from __future__ import annotations
 
+from typing import Any
+
 import numpy as np
 import scipy.sparse as sp
 
-from fockmill._args import check_memory_limit
-from fockmill._between import between_matrix, same_space
 from fockmill._expr import LadderExpr
-from fockmill._memory import estimate_memory, format_bytes
-from fockmill._prepare import check_threads, prepare
-from fockmill._space import FockSpace
-from fockmill.exceptions import SizeLimitError
+from fockmill._problem import Problem, as_problem
 
 __all__ = ["build_matrix"]
 
 
 def build_matrix(
-    expr: LadderExpr,
-    space: FockSpace,
+    expr: LadderExpr | Problem,
+    space: Any = None,
     *,
-    target: FockSpace | None = None,
+    target: Any = None,
     threads: int | None = None,
     memory_limit: int | None = None,
     index_dtype: type[np.int32] | type[np.int64] | None = None,
@@ -29,9 +26,10 @@ def build_matrix(
 
     Parameters
     ----------
-    expr : LadderExpr
+    expr : LadderExpr or Problem
         Any expression (need not be Hermitian); plain numbers mean multiples of the
-        identity.
+        identity. Or a prepared problem (:func:`fockmill.prepare`), whose compiled
+        operator is then reused; ``space`` is omitted.
     space : FockSpace
         The basis; the matrix is ``(space.dim, space.dim)`` in the space's basis order.
     target : FockSpace, optional
@@ -77,39 +75,5 @@ def build_matrix(
     >>> fm.build_matrix(h, space).toarray().round(3).tolist()
     [[0.0, 1.414, 0.0], [1.414, 0.0, 1.414], [0.0, 1.414, 0.0]]
     """
-    if not same_space(space, target):
-        assert target is not None
-        return between_matrix(
-            expr,
-            space,
-            target,
-            threads=threads,
-            memory_limit=memory_limit,
-            index_dtype=index_dtype,
-        )
-    op = prepare(expr, space)
-    threads = check_threads(threads)
-    memory_limit = check_memory_limit(memory_limit)
-    if index_dtype not in (None, np.int32, np.int64):
-        raise TypeError("index_dtype must be numpy.int32, numpy.int64 or None")
-    estimate = estimate_memory(expr, space, threads=threads)
-    limit = memory_limit if memory_limit is not None else estimate.available_bytes
-    if limit is not None and estimate.build_peak_bytes > limit:
-        raise SizeLimitError(
-            f"building this matrix needs about {format_bytes(estimate.build_peak_bytes)} "
-            f"({estimate}), more than the {format_bytes(limit)} allowed; use "
-            "fm.build_operator(...) for matrix-free products or fm.ground_state(..., "
-            "method='lanczos'), or raise memory_limit"
-        )
-    force_wide = index_dtype is np.int64
-    indptr, indices, data = op.build_csr(threads, force_wide)
-    if index_dtype is np.int32 and indices.dtype != np.int32:
-        raise SizeLimitError(
-            f"the matrix has {indices.size:,} entries for dim {space.dim:,}: too many for "
-            "int32 indices; use index_dtype=numpy.int64 or None"
-        )
-    dim = space.dim
-    matrix = sp.csr_array((data, indices, indptr), shape=(dim, dim), copy=False)
-    matrix.has_sorted_indices = True
-    matrix.has_canonical_format = True
-    return matrix
+    problem = as_problem(expr, space, threads=threads, memory_limit=memory_limit, target=target)
+    return problem.matrix(index_dtype=index_dtype)

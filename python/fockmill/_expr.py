@@ -25,7 +25,8 @@ Monomial keys and the text format
 ---------------------------------
 A monomial key is a tuple of ``(mode, p, q)`` triples sorted by mode, one per
 mode present, each with ``p + q > 0``; the empty tuple is the identity. Keys are
-rendered as space-separated factors such as ``a0†^2 a0 a3†``: the mode index
+rendered in normal order, creators left, as space-separated factors such as
+``a0†^2 a3† a0``: the mode index
 directly after ``a``, ``†`` for creation, and ``^k`` only when ``k > 1``. The
 Rust core renders monomials in the same format.
 """
@@ -225,22 +226,23 @@ def format_monomial(key: Iterable[Factor]) -> str:
     Returns
     -------
     str
-        Space-separated factors, creation before annihilation within a mode,
-        ``^k`` shown only for ``k > 1``; ``"1"`` for the identity.
+        Space-separated factors in normal order: every creation factor (by mode)
+        before every annihilation factor (by mode), ``^k`` shown only for ``k > 1``;
+        ``"1"`` for the identity. Factors of different modes commute, so this is the
+        same operator as the mode-sorted key, written the way it is read.
 
     Examples
     --------
     >>> format_monomial(((0, 2, 1), (3, 1, 0)))
-    'a0†^2 a0 a3†'
+    'a0†^2 a3† a0'
+    >>> format_monomial(((0, 0, 1), (1, 1, 0)))
+    'a1† a0'
     >>> format_monomial(())
     '1'
     """
-    parts: list[str] = []
-    for mode, creation, annihilation in key:
-        if creation:
-            parts.append(_format_power(f"a{mode}†", creation))
-        if annihilation:
-            parts.append(_format_power(f"a{mode}", annihilation))
+    creators = [_format_power(f"a{mode}†", p) for mode, p, _ in key if p]
+    annihilators = [_format_power(f"a{mode}", q) for mode, _, q in key if q]
+    parts = creators + annihilators
     return " ".join(parts) if parts else "1"
 
 
@@ -508,7 +510,7 @@ class LadderExpr:
         Examples
         --------
         >>> (2j * raising(0) * lowering(1)).adjoint()
-        LadderExpr(-2j·a0 a1†)
+        LadderExpr(-2j·a1† a0)
         """
         return LadderExpr._wrap(
             {

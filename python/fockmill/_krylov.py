@@ -89,14 +89,14 @@ def hermitian_map(
     product (parallel, in Rust, O(terms) memory); refuses with
     :class:`~fockmill.exceptions.SizeLimitError` when even the vectors do not fit.
     """
-    from fockmill._build import build_matrix
-    from fockmill._memory import estimate_memory, format_bytes
-    from fockmill._operator import build_operator
+    from fockmill._memory import format_bytes
+    from fockmill._problem import prepare
 
     if method not in ("auto", "csr", "operator"):
         raise ValueError(f"method must be 'auto', 'csr' or 'operator'; got {method!r}")
     check_hermitian(expr)
-    estimate = estimate_memory(expr, space, threads=threads)
+    problem = prepare(expr, space, threads=threads, memory_limit=memory_limit)
+    estimate = problem.estimate
     item = 16 if complex_vectors else estimate.value_dtype.itemsize
     vector_bytes = vectors * estimate.dim * item
     budget = _budget(memory_limit, estimate.available_bytes)
@@ -109,9 +109,9 @@ def hermitian_map(
     chosen = method
     if method == "auto":
         chosen = "csr" if estimate.build_peak_bytes + vector_bytes <= budget else "operator"
-    is_real = estimate.value_dtype == np.float64
+    is_real = problem.is_real
     if chosen == "csr":
-        matrix = build_matrix(expr, space, threads=threads, memory_limit=memory_limit)
+        matrix = problem.matrix()
 
         def apply(x: npt.NDArray[Any]) -> npt.NDArray[Any]:
             if is_real and x.dtype.kind == "c":
@@ -122,12 +122,10 @@ def hermitian_map(
             return np.asarray(matrix @ x)
 
         return HermitianMap(estimate.dim, is_real, "csr", apply)
-    operator = build_operator(expr, space, threads=threads)
-    native = operator.native
-    pool_threads = operator.threads
+    native, pool = problem.native, problem.pool
 
     def apply_free(x: npt.NDArray[Any]) -> npt.NDArray[Any]:
-        return native.matvec(np.ascontiguousarray(x), pool_threads)
+        return native.matvec(np.ascontiguousarray(x), pool)  # type: ignore[no-any-return]
 
     return HermitianMap(estimate.dim, is_real, "operator", apply_free)
 
@@ -149,7 +147,7 @@ def check_observables(
     observables: Mapping[str, object] | None, space: Any
 ) -> dict[str, LadderExpr]:
     """The observables as a name -> expression dict, each validated on the space."""
-    from fockmill._prepare import as_expr, prepare
+    from fockmill._prepare import as_expr, compile_operator
 
     if observables is None:
         return {}
@@ -163,7 +161,7 @@ def check_observables(
         if not isinstance(name, str):
             raise TypeError(f"observable names must be strings; got {name!r}")
         e = as_expr(expr)
-        prepare(e, space)  # mode indices, charge, finiteness
+        compile_operator(e, space)  # mode indices, charge, finiteness
         out[name] = e
     return out
 

@@ -5,14 +5,17 @@ from __future__ import annotations
 import os
 from dataclasses import dataclass
 from pathlib import Path
+from typing import Any
 
 import numpy as np
 
-from fockmill._expr import LadderExpr
-from fockmill._prepare import check_threads, prepare
-from fockmill._space import FockSpace
-
-__all__ = ["MemoryEstimate", "available_memory", "estimate_memory", "format_bytes"]
+__all__ = [
+    "MemoryEstimate",
+    "available_memory",
+    "estimate_memory",
+    "estimate_native",
+    "format_bytes",
+]
 
 _INT32_MAX = np.iinfo(np.int32).max
 
@@ -25,11 +28,102 @@ def format_bytes(n: float) -> str:
     return f"{int(n)} B"
 
 
+#: Limits at or above this mean "no limit" (cgroup v1 reports 2**63 rounded to a page).
+_NO_LIMIT = 1 << 60
+
+
+def _read_int(path: Path) -> int | None:
+    try:
+        return int(path.read_text().strip())
+    except (OSError, ValueError):
+        return None
+
+
+def _stat_value(path: Path, key: str) -> int | None:
+    try:
+        for line in path.read_text().splitlines():
+            name, _, value = line.partition(" ")
+            if name == key:
+                return int(value)
+    except (OSError, ValueError):
+        pass
+    return None
+
+
+def _cgroup_dir_room(directory: Path) -> int | None:
+    """Room under the memory limit of one cgroup directory (v2 or v1 file names),
+    counting reclaimable page cache (inactive files) as free; None without a limit."""
+    if (directory / "memory.max").exists():
+        limit = _read_int(directory / "memory.max")  # "max" reads as None: no limit
+        usage = _read_int(directory / "memory.current")
+        cache = _stat_value(directory / "memory.stat", "inactive_file")
+    else:
+        limit = _read_int(directory / "memory.limit_in_bytes")
+        usage = _read_int(directory / "memory.usage_in_bytes")
+        cache = _stat_value(directory / "memory.stat", "total_inactive_file")
+    if limit is None or usage is None or limit >= _NO_LIMIT:
+        return None
+    return max(limit - max(usage - (cache or 0), 0), 0)
+
+
+def _cgroup_room(root: Path = Path("/sys/fs/cgroup")) -> int | None:
+    """Smallest room under the memory limits of this process's cgroups: its own
+    directory and every ancestor (limits are hierarchical), for cgroup v2 (``0::path``)
+    and v1 (the ``memory`` controller), plus the mount roots (inside a cgroup namespace
+    the root is the process's own cgroup)."""
+    directories = [root, root / "memory"]
+    try:
+        lines = Path("/proc/self/cgroup").read_text().splitlines()
+    except OSError:
+        lines = []
+    for line in lines:
+        parts = line.split(":", 2)
+        if len(parts) != 3:
+            continue
+        _, controllers, path = parts
+        if controllers == "":
+            base = root
+        elif "memory" in controllers.split(","):
+            base = root / "memory"
+        else:
+            continue
+        directory = base / path.lstrip("/")
+        while directory != base and base in directory.parents:
+            directories.append(directory)
+            directory = directory.parent
+    rooms = [r for r in map(_cgroup_dir_room, directories) if r is not None]
+    return min(rooms) if rooms else None
+
+
+def _address_space_room() -> int | None:
+    """Room under the soft address-space limit (``RLIMIT_AS``, as ``ulimit -v`` and
+    batch schedulers set it): the limit minus the current ``VmSize``."""
+    try:
+        import resource
+    except ImportError:  # not on this platform
+        return None
+    soft, _ = resource.getrlimit(resource.RLIMIT_AS)
+    if soft == resource.RLIM_INFINITY or soft < 0:
+        return None
+    size = 0
+    try:
+        for line in Path("/proc/self/status").read_text().splitlines():
+            if line.startswith("VmSize:"):
+                size = int(line.split()[1]) * 1024
+                break
+    except (OSError, ValueError, IndexError):
+        pass
+    return max(soft - size, 0)
+
+
 def available_memory() -> int | None:
     """Bytes of memory this process can still use, or None when unknown.
 
-    Reads ``MemAvailable`` from ``/proc/meminfo`` and, when the process runs in a cgroup
-    with a memory limit, the room left under that limit; the smaller one wins.
+    The smallest of: ``MemAvailable`` from ``/proc/meminfo``; the room left under a
+    cgroup memory limit (v2 ``memory.max`` or v1 ``memory.limit_in_bytes``, for the
+    process's own cgroup and its ancestors, page cache counted as free); and the room
+    left under the address-space limit (``RLIMIT_AS``) after the current ``VmSize``.
+    The Rust core applies the same rules before its large allocations.
     """
     candidates: list[int] = []
     try:
@@ -39,18 +133,14 @@ def available_memory() -> int | None:
                 break
     except (OSError, ValueError, IndexError):
         pass
-    try:
-        limit = Path("/sys/fs/cgroup/memory.max").read_text().strip()
-        used = Path("/sys/fs/cgroup/memory.current").read_text().strip()
-        if limit != "max":
-            candidates.append(max(int(limit) - int(used), 0))
-    except (OSError, ValueError):
-        pass
     if not candidates and hasattr(os, "sysconf"):
         try:
             candidates.append(os.sysconf("SC_AVPHYS_PAGES") * os.sysconf("SC_PAGE_SIZE"))
         except (ValueError, OSError):
             pass
+    for room in (_cgroup_room(), _address_space_room()):
+        if room is not None:
+            candidates.append(room)
     return min(candidates) if candidates else None
 
 
@@ -107,8 +197,8 @@ class MemoryEstimate:
 
 
 def estimate_memory(
-    expr: LadderExpr,
-    space: FockSpace,
+    expr: Any,
+    space: Any = None,
     *,
     samples: int = 2048,
     threads: int | None = None,
@@ -120,8 +210,8 @@ def estimate_memory(
 
     Parameters
     ----------
-    expr : LadderExpr
-        The operator.
+    expr : LadderExpr or Problem
+        The operator, or a prepared problem (then ``space`` is omitted).
     space : FockSpace
         The space it acts on.
     samples : int
@@ -133,16 +223,27 @@ def estimate_memory(
     -------
     MemoryEstimate
     """
-    op = prepare(expr, space)
+    from fockmill._problem import as_problem
+
+    problem = as_problem(expr, space, threads=threads)
+    if samples == 2048:
+        return problem.estimate
+    return estimate_native(problem.native, problem.shape, samples, problem.pool)
+
+
+def estimate_native(
+    native: Any, shape: tuple[int, int], samples: int, threads: Any
+) -> MemoryEstimate:
+    """The :class:`MemoryEstimate` of a compiled operator of the given shape."""
     if isinstance(samples, bool) or not isinstance(samples, int) or samples < 1:
         raise ValueError(f"samples must be a positive integer; got {samples!r}")
-    nnz_f, std_error, exact, _ = op.estimate_nnz(samples, check_threads(threads))
+    nnz_f, std_error, exact, _ = native.estimate_nnz(samples, threads)
     nnz = round(nnz_f)
-    dim = space.dim
-    wide = nnz > _INT32_MAX or dim > _INT32_MAX
+    rows, dim = shape
+    wide = nnz > _INT32_MAX or max(rows, dim) > _INT32_MAX
     index_dtype = np.dtype(np.int64 if wide else np.int32)
-    value_dtype = np.dtype(np.float64 if op.is_real else np.complex128)
-    csr = (dim + 1) * index_dtype.itemsize + nnz * (index_dtype.itemsize + value_dtype.itemsize)
+    value_dtype = np.dtype(np.float64 if native.is_real else np.complex128)
+    csr = (rows + 1) * index_dtype.itemsize + nnz * (index_dtype.itemsize + value_dtype.itemsize)
     return MemoryEstimate(
         dim=dim,
         nnz=nnz,
@@ -151,7 +252,7 @@ def estimate_memory(
         index_dtype=index_dtype,
         value_dtype=value_dtype,
         csr_bytes=csr,
-        build_peak_bytes=csr + 8 * (dim + 1),
+        build_peak_bytes=csr + 8 * (rows + 1),
         vector_bytes=dim * value_dtype.itemsize,
         available_bytes=available_memory(),
     )

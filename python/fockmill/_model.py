@@ -7,6 +7,7 @@ recombine coefficients per parameter point.
 from __future__ import annotations
 
 import hashlib
+import warnings
 from collections.abc import Mapping
 from dataclasses import dataclass, field
 
@@ -34,6 +35,10 @@ class Model:
         Parameter-independent part (zero by default).
     mode_labels : tuple of str
         Human-readable label of each mode (``"cavity 0"``, ``"emitter 0"``, ...).
+    renamed : Mapping[str, str]
+        Deprecated parameter name -> current name. :meth:`values`,
+        :meth:`hamiltonian` and :meth:`canonical_names` accept the old names with a
+        ``DeprecationWarning``.
     """
 
     name: str
@@ -42,6 +47,7 @@ class Model:
     parameters: Mapping[str, float]
     constant: LadderExpr = field(default_factory=LadderExpr)
     mode_labels: tuple[str, ...] = ()
+    renamed: Mapping[str, str] = field(default_factory=dict)
 
     def __post_init__(self) -> None:
         missing = set(self.pieces) - set(self.parameters)
@@ -59,6 +65,7 @@ class Model:
         KeyError
             For a parameter the model does not have.
         """
+        overrides = self.canonical_names(overrides)
         unknown = set(overrides) - set(self.parameters)
         if unknown:
             raise KeyError(
@@ -67,6 +74,38 @@ class Model:
             )
         out = dict(self.parameters)
         out.update({k: float(v) for k, v in overrides.items()})
+        return out
+
+    def canonical_names(self, values: Mapping[str, float]) -> dict[str, float]:
+        """``values`` with deprecated parameter names replaced by their current names.
+
+        Warns
+        -----
+        DeprecationWarning
+            For each deprecated name used.
+
+        Raises
+        ------
+        KeyError
+            When a deprecated name and its current name are both given.
+        """
+        out: dict[str, float] = {}
+        for name, value in values.items():
+            current = self.renamed.get(name)
+            if current is not None and current not in self.parameters:
+                current = None
+            if current is None:
+                out[name] = value
+                continue
+            warnings.warn(
+                f"parameter {name!r} of model {self.name!r} is now called {current!r}; "
+                "the old name will be removed in the next release",
+                DeprecationWarning,
+                stacklevel=3,
+            )
+            if current in values:
+                raise KeyError(f"both {name!r} and its new name {current!r} were given")
+            out[current] = value
         return out
 
     def hamiltonian(self, **overrides: float) -> LadderExpr:

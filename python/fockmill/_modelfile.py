@@ -7,6 +7,9 @@ settings. :func:`load_model_file` checks everything up front and turns the file 
 :class:`ModelFile`; every mistake raises :class:`ModelFileError` naming the file, the
 key and what was expected.
 
+The user-facing description of every key, with types, defaults and examples, is
+``docs/model-files.md``; this is a summary.
+
 Schema (every table but ``[model]`` is optional; unknown keys are errors)
 -----------------------------------------------------------------------
 ``schema = 1``
@@ -24,10 +27,19 @@ Schema (every table but ``[model]`` is optional; unknown keys are errors)
     * kerr-network: ``frequencies = [...]``, optional ``self_kerr`` (number or one per
       mode), ``cross_kerr = [[i, j, chi], ...]``, ``couplings = [[i, j, g], ...]``;
       ``cutoff`` (integer or one per mode), optional ``total``.
+``[terms.NAME]``
+    The user's own terms, multiplied by parameter ``NAME`` (new, or an existing one
+    whose family they join): ``value`` (default of a new parameter, 1.0), ``fixed``
+    (add to every point instead), ``terms = ["0.5 raise(0) lower(1)", ...]`` (syntax
+    in :mod:`fockmill._userterms`), ``per_mode = "count(@)"`` with ``modes``,
+    ``weights`` or ``random = {distribution, seed, low/high or mean/std}``, and
+    ``add_adjoint``.
 ``[parameters]``
     Default value of any model parameter (``J``, ``U``, ``mu``; ``wc``, ``we``,
-    ``g``, ``J``; ``omega``, ``kerr``, ``cross_kerr``, ``exchange``; ``drive``,
-    ``two_photon``).
+    ``g``, ``J``; ``frequency_scale``, ``kerr_scale``, ``cross_kerr_scale``,
+    ``exchange_scale``; ``drive``, ``two_photon``; names made in ``[terms]``).
+``[units]``
+    ``energy = "J"`` and ``NAME = "unit"`` per parameter: labels for plots and tables.
 ``[drives]``
     ``coherent = [[mode, amplitude], ...]``, ``two_photon = [[mode, amplitude], ...]``
     (see :func:`fockmill.models.with_drives`).
@@ -42,8 +54,10 @@ Schema (every table but ``[model]`` is optional; unknown keys are errors)
     ``entropy_modes`` (the subsystem for ``entropy``; default the first half of the
     modes).
 ``[solver]``
-    ``tol`` (default 1e-9), ``method`` (``"auto"``, ``"dense"``, ``"csr"``,
-    ``"operator"``, ``"lanczos"``), ``threads``.
+    The keywords of :func:`fockmill.ground_state`, same names, defaults and meanings:
+    ``method`` (``"auto"``, ``"dense"``, ``"csr"``, ``"operator"``, ``"lanczos"``;
+    default ``"auto"``), ``tol`` (default 1e-9), ``seed`` (default 0),
+    ``max_iterations`` (matrix-vector products; default: the solver's own), ``threads``.
 """
 
 from __future__ import annotations
@@ -57,14 +71,19 @@ import math
 import os
 import re
 import tomllib
+import warnings
 from collections.abc import Mapping, Sequence
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from typing import Any, NoReturn
 
 import numpy as np
 import numpy.typing as npt
 
+from fockmill._args import MAX_SEED, MAX_THREADS, METHODS
+from fockmill._expr import LadderExpr
 from fockmill._model import Model
+from fockmill._userterms import TermSyntaxError, parse_term
+from fockmill.exceptions import ModelFileError
 from fockmill.models import (
     bose_hubbard,
     chain_edges,
@@ -101,45 +120,19 @@ RECORDABLE: tuple[str, ...] = (
 )
 """Values allowed in ``record.quantities``."""
 
-SOLVER_METHODS: tuple[str, ...] = ("auto", "dense", "csr", "operator", "lanczos")
-"""Values of ``solver.method``."""
+SOLVER_METHODS: tuple[str, ...] = METHODS
+"""Values of ``solver.method`` (the solvers' own methods)."""
 
 SCHEMA_VERSION = 1
 MAX_MODES = 4096
 MAX_CUTOFF = 65535
 MAX_TOTAL = 2**31 - 1
 MAX_POINTS = 1_000_000
-MAX_THREADS = 4096
 
 _LATTICES = ("chain", "ring", "rectangle", "edges")
 _SPACINGS = ("linear", "geometric")
 _DEFAULT_LEVELS = {"gap": 2, "levels": 4}
 _BARE_KEY = re.compile(r"^[A-Za-z0-9_-]+$")
-
-
-class ModelFileError(ValueError):
-    """A model file is not valid TOML or does not follow the schema.
-
-    Attributes
-    ----------
-    source : str
-        The file path (or ``"<string>"`` for text).
-    key : str or None
-        Dotted key path of the offending entry (``"sweep.U.num"``), None for the
-        whole file.
-    problem : str
-        What was expected and what was found.
-    """
-
-    def __init__(self, source: str, key: str | None, problem: str) -> None:
-        self.source = source
-        self.key = key
-        self.problem = problem
-        where = f"{source}: {key}: " if key else f"{source}: "
-        super().__init__(where + problem)
-
-    def __reduce__(self) -> tuple[type[ModelFileError], tuple[str, str | None, str]]:
-        return (type(self), (self.source, self.key, self.problem))
 
 
 @dataclass(frozen=True)
@@ -226,29 +219,50 @@ class ModelFile:
         The model with the file's parameter defaults (and drives, if any).
     sweep : SweepGrid or None
         The parameter grid, None for a single point at the defaults.
-    record : tuple of str
-        Quantities to record per point (see ``RECORDABLE``).
+    quantities : tuple of str
+        Quantities to record per point (``record.quantities``, see ``RECORDABLE``).
     levels : int
         How many lowest levels to compute (>= 2 when ``"gap"`` is recorded).
     solver : dict
-        ``{"tol": float, "method": str, "threads": int | None}``.
+        The keywords of ``ground_state``/``run_sweep``: ``{"method": str, "tol": float,
+        "seed": int, "max_iterations": int | None, "threads": int | None}``.
     entropy_modes : tuple of int
         Subsystem modes for ``"entropy"`` (empty when it is not recorded).
     text_hash : str
         SHA-256 (hex) of the file's text.
+    units : dict of str to str
+        ``[units]``: unit of ``"energy"`` and of any parameter, e.g.
+        ``{"energy": "J", "U": "J"}`` (empty when the file has none).
+    mode_weights : dict of str to tuple of float
+        For every ``[terms.NAME]`` table with ``per_mode``, the weight used on each
+        listed mode (the listed ``weights`` or the drawn disorder), in ``modes`` order.
     """
 
     path: str | None
     model: Model
     sweep: SweepGrid | None
-    record: tuple[str, ...]
+    quantities: tuple[str, ...]
     levels: int
     solver: dict[str, object]
     entropy_modes: tuple[int, ...]
     text_hash: str
+    units: dict[str, str] = field(default_factory=dict)
+    mode_weights: dict[str, tuple[float, ...]] = field(default_factory=dict)
 
     def __hash__(self) -> int:
         return hash(self.text_hash)
+
+    @property
+    def record(self) -> tuple[str, ...]:
+        """Deprecated name of :attr:`quantities`."""
+        import warnings
+
+        warnings.warn(
+            "ModelFile.record is deprecated; use ModelFile.quantities",
+            DeprecationWarning,
+            stacklevel=2,
+        )
+        return self.quantities
 
 
 # -- reading values with key paths --------------------------------------------------------
@@ -603,8 +617,31 @@ def _build_model(reader: _Reader, document: Mapping[str, Any]) -> Model:
 # -- parameters, sweep, record, solver ----------------------------------------------------
 
 
+def _current_names(
+    reader: _Reader, table: dict[str, Any], path: str, model: Model
+) -> dict[str, Any]:
+    """``table`` with deprecated parameter names replaced by the current ones (warning)."""
+    out: dict[str, Any] = {}
+    for name, entry in table.items():
+        current = model.renamed.get(name)
+        if current is None or current not in model.parameters:
+            out[name] = entry
+            continue
+        if current in table:
+            reader.fail(_join(path, name), f"given together with its new name {current!r}")
+        warnings.warn(
+            f"{reader.source}: {_join(path, name)}: parameter {name!r} of model "
+            f"{model.name!r} is now called {current!r}; the old name will be removed in "
+            "the next release",
+            DeprecationWarning,
+            stacklevel=2,
+        )
+        out[current] = entry
+    return out
+
+
 def _parameters(reader: _Reader, value: object, model: Model) -> Model:
-    table = reader.table(value, "parameters")
+    table = _current_names(reader, reader.table(value, "parameters"), "parameters", model)
     known = list(model.parameters)
     hint = f" for model {model.name!r}"
     reader.check_keys(table, "parameters", known, hint=hint)
@@ -655,7 +692,7 @@ def _axis(reader: _Reader, value: object, path: str) -> npt.NDArray[np.float64]:
 
 
 def _sweep(reader: _Reader, value: object, model: Model) -> SweepGrid:
-    table = reader.table(value, "sweep")
+    table = _current_names(reader, reader.table(value, "sweep"), "sweep", model)
     if not table:
         reader.fail("sweep", "empty; expected one [sweep.NAME] table per swept parameter")
     reader.check_keys(table, "sweep", list(model.parameters), hint=f" for model {model.name!r}")
@@ -726,8 +763,14 @@ def _record(
 
 def _solver(reader: _Reader, value: object) -> dict[str, object]:
     table = reader.table(value, "solver")
-    reader.check_keys(table, "solver", ["tol", "method", "threads"])
-    settings: dict[str, object] = {"tol": 1e-9, "method": "auto", "threads": None}
+    reader.check_keys(table, "solver", ["method", "tol", "seed", "max_iterations", "threads"])
+    settings: dict[str, object] = {
+        "method": "auto",
+        "tol": 1e-9,
+        "seed": 0,
+        "max_iterations": None,
+        "threads": None,
+    }
     if "tol" in table:
         tol = reader.number(table["tol"], "solver.tol")
         if not 0 < tol < 1:
@@ -737,7 +780,212 @@ def _solver(reader: _Reader, value: object) -> dict[str, object]:
         settings["method"] = reader.choice(table["method"], "solver.method", SOLVER_METHODS)
     if "threads" in table:
         settings["threads"] = reader.integer(table["threads"], "solver.threads", 1, MAX_THREADS)
+    if "seed" in table:
+        settings["seed"] = reader.integer(table["seed"], "solver.seed", 0, MAX_SEED - 1)
+    if "max_iterations" in table:
+        settings["max_iterations"] = reader.integer(
+            table["max_iterations"], "solver.max_iterations", 1, 2**62
+        )
     return settings
+
+
+# -- [terms] and [units] ------------------------------------------------------------------
+
+_PARAMETER_NAME = re.compile(r"^[A-Za-z][A-Za-z0-9_]*$")
+_TERM_KEYS = ["value", "fixed", "terms", "per_mode", "modes", "weights", "random", "add_adjoint"]
+_DISTRIBUTIONS = ("uniform", "normal")
+MAX_UNIT_LENGTH = 40
+
+
+def _term(
+    reader: _Reader, text: object, path: str, model: Model, here: int | None = None
+) -> LadderExpr:
+    if not isinstance(text, str):
+        reader.wrong(path, 'a term string such as "0.5 raise(0) lower(1)"', text)
+    labels = list(model.mode_labels) or [f"mode {i}" for i in range(model.space.modes)]
+    try:
+        return parse_term(text, labels, model.space.modes, here)
+    except TermSyntaxError as error:
+        reader.fail(path, f"{error} in {text!r}")
+
+
+def _check_charge(reader: _Reader, expr: LadderExpr, path: str, text: str, model: Model) -> None:
+    """A term must keep the model's sector (a conserved total or its parity)."""
+    space = model.space
+    if space.total is None or expr.is_zero():
+        return
+    modulus = space.modulus or 0
+    for charge in sorted(expr.charge(space.weights)):
+        if (charge % modulus if modulus else charge) != 0:
+            kept = f"Σ w_i n_i mod {modulus}" if modulus else "the total number of quanta"
+            reader.fail(
+                path,
+                f"{text!r} changes {kept} by {charge}, so it leaves the model's sector "
+                "(model.total); pair creations with annihilations, or drop model.total",
+            )
+
+
+def _mode_weights(
+    reader: _Reader, table: Mapping[str, Any], path: str, count: int
+) -> tuple[float, ...]:
+    if "weights" in table and "random" in table:
+        reader.fail(_join(path, "random"), "give either weights = [...] or random = {...}")
+    if "weights" in table:
+        items = reader.array(table["weights"], _join(path, "weights"), "numbers (one per mode)")
+        if len(items) != count:
+            reader.fail(
+                _join(path, "weights"),
+                f"expected {count} numbers (one per mode in {path}.modes); got {len(items)}",
+            )
+        return tuple(
+            reader.number(v, _join(_join(path, "weights"), k)) for k, v in enumerate(items)
+        )
+    if "random" not in table:
+        return (1.0,) * count
+    rpath = _join(path, "random")
+    spec = reader.table(table["random"], rpath)
+    kind = reader.choice(
+        reader.required(spec, "distribution", rpath, '"uniform" or "normal"'),
+        _join(rpath, "distribution"),
+        _DISTRIBUTIONS,
+    )
+    allowed = ["distribution", "seed"] + (["low", "high"] if kind == "uniform" else ["mean", "std"])
+    reader.check_keys(spec, rpath, allowed, hint=f' for distribution = "{kind}"')
+    seed = reader.integer(
+        reader.required(spec, "seed", rpath, "an integer >= 0 (the same seed, the same draw)"),
+        _join(rpath, "seed"),
+        0,
+        2**63 - 1,
+    )
+    generator = np.random.default_rng(seed)
+    if kind == "uniform":
+        low = reader.number(reader.required(spec, "low", rpath, "a number"), _join(rpath, "low"))
+        high = reader.number(reader.required(spec, "high", rpath, "a number"), _join(rpath, "high"))
+        if not low < high:
+            reader.fail(_join(rpath, "high"), f"expected high > low; got low={low}, high={high}")
+        draws = generator.uniform(low, high, size=count)
+    else:
+        mean = reader.number(spec.get("mean", 0.0), _join(rpath, "mean"))
+        std = reader.number(
+            reader.required(spec, "std", rpath, "a number > 0"), _join(rpath, "std")
+        )
+        if not std > 0:
+            reader.wrong(_join(rpath, "std"), "a number > 0", spec["std"])
+        draws = generator.normal(mean, std, size=count)
+    return tuple(float(v) for v in draws)
+
+
+def _term_modes(reader: _Reader, table: Mapping[str, Any], path: str, model: Model) -> list[int]:
+    modes = model.space.modes
+    if "modes" not in table:
+        return list(range(modes))
+    mpath = _join(path, "modes")
+    labels = list(model.mode_labels)
+    picked: list[int] = []
+    for k, item in enumerate(reader.array(table["modes"], mpath, "mode indices or labels")):
+        if isinstance(item, str):
+            if item not in labels:
+                reader.fail(_join(mpath, k), f"{item!r} is not a mode label of this model")
+            mode = labels.index(item)
+        else:
+            mode = reader.integer(item, _join(mpath, k), 0, modes - 1)
+        if mode in picked:
+            reader.fail(_join(mpath, k), f"mode {mode} is listed twice")
+        picked.append(mode)
+    return picked
+
+
+def _terms(
+    reader: _Reader, value: object, model: Model
+) -> tuple[Model, dict[str, tuple[float, ...]]]:
+    """``[terms.NAME]`` tables: the user's own terms, each family scaled by parameter NAME."""
+    sections = reader.table(value, "terms")
+    if not sections:
+        reader.fail("terms", "empty; expected one [terms.NAME] table per parameter")
+    pieces = dict(model.pieces)
+    parameters = dict(model.parameters)
+    constant = model.constant
+    weights_used: dict[str, tuple[float, ...]] = {}
+    for name, raw in sections.items():
+        path = _join("terms", name)
+        table = reader.table(raw, path)
+        reader.check_keys(table, path, _TERM_KEYS)
+        if name in model.renamed:
+            reader.fail(path, f"{name!r} is an old parameter name; use {model.renamed[name]!r}")
+        fixed = reader.boolean(table.get("fixed", False), _join(path, "fixed"))
+        existing = name in model.parameters
+        if existing and ("value" in table or fixed):
+            reader.fail(
+                path,
+                f"{name!r} is already a parameter of model {model.name!r}: these terms are "
+                "added to its piece; set its value in [parameters], or pick a new name",
+            )
+        if not existing and not _PARAMETER_NAME.match(name):
+            reader.fail(
+                path,
+                "a new parameter name must start with a letter and hold only letters, digits and _",
+            )
+        scale = reader.number(table.get("value", 1.0), _join(path, "value"))
+        if "terms" not in table and "per_mode" not in table:
+            reader.fail(path, 'expected terms = ["..."] and/or per_mode = "..."')
+        for key in ("modes", "weights", "random"):
+            if key in table and "per_mode" not in table:
+                reader.fail(_join(path, key), 'only meaningful with per_mode = "..."')
+        adjoint = reader.boolean(table.get("add_adjoint", False), _join(path, "add_adjoint"))
+        piece = LadderExpr()
+        if "terms" in table:
+            tpath = _join(path, "terms")
+            for k, text in enumerate(reader.array(table["terms"], tpath, "term strings")):
+                term = _term(reader, text, _join(tpath, k), model)
+                if adjoint:
+                    term = term + term.adjoint()
+                _check_charge(reader, term, _join(tpath, k), str(text), model)
+                piece = piece + term
+        if "per_mode" in table:
+            ppath = _join(path, "per_mode")
+            template = table["per_mode"]
+            if not isinstance(template, str) or "@" not in template:
+                reader.wrong(ppath, 'a term string using @ for the mode, e.g. "count(@)"', template)
+            modes = _term_modes(reader, table, path, model)
+            weights = _mode_weights(reader, table, path, len(modes))
+            weights_used[name] = weights
+            for mode, weight in zip(modes, weights, strict=True):
+                term = _term(reader, template, ppath, model, here=mode)
+                if adjoint:
+                    term = term + term.adjoint()
+                _check_charge(reader, term, ppath, template, model)
+                piece = piece + weight * term
+        if not piece.is_hermitian():
+            reader.fail(
+                path,
+                "these terms are not Hermitian, and a Hamiltonian must be; add "
+                "add_adjoint = true or list the conjugate of every term",
+            )
+        if fixed:
+            constant = constant + scale * piece
+        elif existing:
+            pieces[name] = pieces[name] + piece
+        else:
+            pieces[name] = piece
+            parameters[name] = scale
+    return (
+        dataclasses.replace(model, pieces=pieces, parameters=parameters, constant=constant),
+        weights_used,
+    )
+
+
+def _units(reader: _Reader, value: object, model: Model) -> dict[str, str]:
+    table = reader.table(value, "units")
+    reader.check_keys(table, "units", ["energy", *model.parameters])
+    units: dict[str, str] = {}
+    for name, unit in table.items():
+        path = _join("units", name)
+        if not isinstance(unit, str) or not unit.strip() or len(unit) > MAX_UNIT_LENGTH:
+            reader.wrong(
+                path, f'a unit such as "MHz" or "J" (1 to {MAX_UNIT_LENGTH} characters)', unit
+            )
+        units[name] = unit.strip()
+    return units
 
 
 # -- entry points -------------------------------------------------------------------------
@@ -751,27 +999,43 @@ def _parse(text: str, source: str, path: str | None) -> ModelFile:
         reader.fail(None, f"not valid TOML: {error}")
     except RecursionError:
         reader.fail(None, "not valid TOML: arrays or tables nested too deeply")
-    allowed = ["schema", "model", "parameters", "drives", "sweep", "record", "solver"]
+    allowed = [
+        "schema",
+        "model",
+        "terms",
+        "parameters",
+        "units",
+        "drives",
+        "sweep",
+        "record",
+        "solver",
+    ]
     reader.check_keys(document, "", allowed)
     if "schema" in document:
         version = document["schema"]
         if isinstance(version, bool) or version != SCHEMA_VERSION:
             reader.wrong("schema", f"{SCHEMA_VERSION} (the only layout so far)", version)
     model = _build_model(reader, document)
+    mode_weights: dict[str, tuple[float, ...]] = {}
+    if "terms" in document:
+        model, mode_weights = _terms(reader, document["terms"], model)
     if "parameters" in document:
         model = _parameters(reader, document["parameters"], model)
+    units = _units(reader, document["units"], model) if "units" in document else {}
     sweep = _sweep(reader, document["sweep"], model) if "sweep" in document else None
-    record, levels, entropy_modes = _record(reader, document.get("record", {}), model)
+    quantities, levels, entropy_modes = _record(reader, document.get("record", {}), model)
     solver = _solver(reader, document.get("solver", {}))
     return ModelFile(
         path=path,
         model=model,
         sweep=sweep,
-        record=record,
+        quantities=quantities,
         levels=levels,
         solver=solver,
         entropy_modes=entropy_modes,
         text_hash=hashlib.sha256(text.encode("utf-8", "surrogatepass")).hexdigest(),
+        units=units,
+        mode_weights=mode_weights,
     )
 
 

@@ -18,6 +18,7 @@ __all__ = [
     "NativeSpace",
     "__version__",
     "default_threads",
+    "density_correlations",
     "monomial_expectations",
     "occupation_distributions",
 ]
@@ -87,11 +88,20 @@ class NativeOperator:
         The space.
     terms : list of (re, im, [(mode, p, q), ...])
         Coefficient parts and normal-ordered factors ``(a_mode†)^p (a_mode)^q``.
+    cut : int or None
+        Product kernel: None chooses automatically; 0 is the row kernel; ``k`` the
+        bipartite kernel with left modes ``0..k``. Built once, on first use.
     """
 
     def __new__(
-        cls, space: NativeSpace, terms: list[tuple[float, float, list[tuple[int, int, int]]]]
+        cls,
+        space: NativeSpace,
+        terms: list[tuple[float, float, list[tuple[int, int, int]]]],
+        cut: int | None = None,
     ) -> NativeOperator: ...
+    @property
+    def cut(self) -> int:
+        """The cut of the product kernel in use (0: the row kernel)."""
     @property
     def is_real(self) -> bool: ...
     @property
@@ -129,7 +139,81 @@ class NativeOperator:
         stored: bool = False,
     ) -> tuple[float, _RealOrComplex1D, float, int, int, int, bool]:
         """Four-vector Lanczos ground state:
-        ``(energy, vector, residual, steps, products, restarts, converged)``."""
+        ``(energy, vector, residual, steps, products, restarts, converged)``.
+
+        A ``start`` is normalised and mixed with seeded noise of relative weight 1e-4
+        (seed ``seed``), so that a start with no weight on the ground state's symmetry
+        sector still converges to the true ground state."""
+    def lanczos_levels(
+        self,
+        k: int,
+        tol: float = 1e-9,
+        max_products: int = 10_000,
+        seed: int = 0x5EED,
+        start: _RealOrComplex1D | _RealOrComplex2D | None = None,
+        threads: int | NativePool | None = None,
+        stored: bool = False,
+        basis: int = 0,
+    ) -> tuple[npt.NDArray[np.float64], _RealOrComplex2D, npt.NDArray[np.float64], int, int, bool]:
+        """Lowest ``k`` levels by thick-restart Lanczos (Wu & Simon 2000) in Rust:
+        ``(energies, vectors, residuals, products, restarts, converged)``.
+
+        ``energies`` ascending; ``vectors`` shape ``(dim, k)`` (Fortran order, no copy),
+        orthonormal; ``residuals`` the measured ``‖Hv − Ev‖``; ``converged`` when every
+        residual is ``<= tol · max(1, |E|)`` and the iteration ended within
+        ``max_products`` (the final residual checks add up to ``k`` products). Every
+        copy of a degenerate level that fits in ``k`` is returned: converged levels are
+        locked, then fresh seeded runs on their orthogonal complement re-check that no
+        lower level remains. Memory: ``basis + 1`` vectors (``basis`` 0 means
+        ``min(dim, 2k + 8)``; at least ``k + 4``), plus the CSR matrix when ``stored``.
+        ``start``: one vector ``(dim,)`` or a block ``(dim, b)`` (summed, each column
+        normalised), mixed with seeded noise of relative weight 1e-4."""
+
+@final
+class NativeCsr:
+    """A square Hermitian CSR matrix copied in from Python, for the Rust solvers.
+
+    Parameters
+    ----------
+    indptr, indices : numpy.ndarray
+        int32 or int64 CSR row pointers and column indices (int64 kept when either is).
+    data : numpy.ndarray
+        float64 or complex128 values. Hermiticity is assumed, not checked.
+    """
+
+    def __new__(
+        cls,
+        indptr: npt.NDArray[np.int32] | npt.NDArray[np.int64],
+        indices: npt.NDArray[np.int32] | npt.NDArray[np.int64],
+        data: _RealOrComplex1D,
+    ) -> NativeCsr: ...
+    @property
+    def dim(self) -> int: ...
+    @property
+    def nnz(self) -> int: ...
+    @property
+    def is_real(self) -> bool: ...
+    def lanczos_ground(
+        self,
+        tol: float = 1e-9,
+        max_steps: int = 400,
+        max_restarts: int = 8,
+        seed: int = 0x5EED,
+        start: _RealOrComplex1D | _RealOrComplex2D | None = None,
+        threads: int | NativePool | None = None,
+    ) -> tuple[float, _RealOrComplex1D, float, int, int, int, bool]:
+        """As :meth:`NativeOperator.lanczos_ground`, on this matrix."""
+    def lanczos_levels(
+        self,
+        k: int,
+        tol: float = 1e-9,
+        max_products: int = 10_000,
+        seed: int = 0x5EED,
+        start: _RealOrComplex1D | _RealOrComplex2D | None = None,
+        threads: int | NativePool | None = None,
+        basis: int = 0,
+    ) -> tuple[npt.NDArray[np.float64], _RealOrComplex2D, npt.NDArray[np.float64], int, int, bool]:
+        """As :meth:`NativeOperator.lanczos_levels`, on this matrix."""
 
 @final
 class NativeBetween:
@@ -195,6 +279,11 @@ def occupation_distributions(
     space: NativeSpace, psi: _RealOrComplex1D, threads: int | NativePool | None = None
 ) -> npt.NDArray[np.float64]:
     """``Σ |ψ|²`` per mode and occupation, concatenated over modes."""
+
+def density_correlations(
+    space: NativeSpace, psi: _RealOrComplex1D, threads: int | NativePool | None = None
+) -> npt.NDArray[np.float64]:
+    """``Σ |ψ_s|² n_i(s) n_j(s)``, flat row-major ``(modes, modes)``, not normalised."""
 
 def default_threads() -> int:
     """Threads of rayon's global pool."""

@@ -9,10 +9,8 @@ import numpy.typing as npt
 from scipy.sparse.linalg import LinearOperator
 
 from fockmill import _native
-from fockmill._between import BetweenOperator, same_space
 from fockmill._expr import LadderExpr
-from fockmill._prepare import as_expr, check_space, check_threads, prepare
-from fockmill._space import FockSpace
+from fockmill._problem import Problem, as_problem
 
 __all__ = ["LadderOperator", "build_operator"]
 
@@ -22,8 +20,8 @@ class LadderOperator(LinearOperator):  # type: ignore[misc]
 
     Parameters
     ----------
-    expr : LadderExpr
-        The operator.
+    expr : LadderExpr or Problem
+        The operator, or a prepared problem (then ``space`` is omitted).
     space : FockSpace
         The basis it acts on.
     threads : int, optional
@@ -31,6 +29,8 @@ class LadderOperator(LinearOperator):  # type: ignore[misc]
 
     Attributes
     ----------
+    problem : Problem
+        The prepared problem whose compiled operator and thread pool the products use.
     products : int
         Number of vectors multiplied so far (a block of k vectors counts k).
 
@@ -41,29 +41,49 @@ class LadderOperator(LinearOperator):  # type: ignore[misc]
     count: each row is summed by one thread in a fixed order.
     """
 
-    def __init__(self, expr: LadderExpr, space: FockSpace, *, threads: int | None = None) -> None:
-        self.expr = as_expr(expr)
-        self.space = check_space(space)
-        self.threads = check_threads(threads)
-        self._op = prepare(self.expr, self.space)
+    def __init__(
+        self,
+        expr: LadderExpr | Problem,
+        space: Any = None,
+        *,
+        target: Any = None,
+        threads: int | None = None,
+    ) -> None:
+        self.problem = as_problem(expr, space, threads=threads, target=target)
         self._adjoint_op: _native.NativeOperator | None = None
         self.products = 0
-        dtype = np.float64 if self._op.is_real else np.complex128
-        super().__init__(dtype=np.dtype(dtype), shape=(space.dim, space.dim))
+        super().__init__(dtype=self.problem.dtype, shape=self.problem.shape)
 
     @property
-    def native(self) -> _native.NativeOperator:
-        """The compiled operator."""
-        return self._op
+    def expr(self) -> LadderExpr:
+        """The operator's expression."""
+        return self.problem.expr
 
-    def _check_input(self, x: npt.ArrayLike, block: bool) -> npt.NDArray[Any]:
+    @property
+    def space(self) -> Any:
+        """The space it acts on."""
+        return self.problem.space
+
+    @property
+    def threads(self) -> int | None:
+        """Worker threads per product."""
+        return self.problem.threads
+
+    @property
+    def native(self) -> Any:
+        """The compiled operator."""
+        return self.problem.native
+
+    def _check_input(
+        self, x: npt.ArrayLike, block: bool, adjoint: bool = False
+    ) -> npt.NDArray[Any]:
         arr = np.asarray(x)
         if arr.dtype.kind not in "fciub" or arr.dtype.kind == "b":
             raise TypeError(
                 f"products need a float or complex array; got dtype {arr.dtype}. Convert "
                 "with numpy.asarray(x, dtype=float)"
             )
-        n = self.shape[1]
+        n = self.shape[0] if adjoint else self.shape[1]
         ok = arr.ndim == 2 and arr.shape[0] == n if block else arr.shape in ((n,), (n, 1))
         if not ok:
             want = f"({n}, k)" if block else f"({n},) or ({n}, 1)"
@@ -79,7 +99,7 @@ class LadderOperator(LinearOperator):  # type: ignore[misc]
 
     def rmatvec(self, x: npt.ArrayLike) -> Any:
         """``H† x``; ``x`` of shape ``(dim,)`` or ``(dim, 1)``."""
-        return super().rmatvec(self._check_input(x, block=False))
+        return super().rmatvec(self._check_input(x, block=False, adjoint=True))
 
     def matmat(self, x: npt.ArrayLike) -> Any:
         """``H X``; ``X`` of shape ``(dim, k)``."""
@@ -92,42 +112,61 @@ class LadderOperator(LinearOperator):  # type: ignore[misc]
         return np.ascontiguousarray(x, dtype=np.float64)
 
     def _matvec(self, x: npt.NDArray[Any]) -> npt.NDArray[Any]:
-        shape = x.shape
         self.products += 1
-        y = self._op.matvec(self._vector(x).reshape(-1), self.threads)
-        return y.reshape(shape)
+        y = self.problem.native.matvec(self._vector(x).reshape(-1), self.problem.pool)
+        return y.reshape(-1, 1) if x.ndim == 2 else y  # type: ignore[no-any-return]
 
     def _matmat(self, x: npt.NDArray[Any]) -> npt.NDArray[Any]:
         self.products += x.shape[1]
-        return self._op.matmat(self._vector(x), self.threads)
+        return self.problem.native.matmat(self._vector(x), self.problem.pool)  # type: ignore[no-any-return]
 
-    def _adjoint_native(self) -> _native.NativeOperator:
+    def _adjoint_native(self) -> Any:
         if self._adjoint_op is None:
             adj = self.expr.adjoint()
-            self._adjoint_op = self._op if adj == self.expr else prepare(adj, self.space)
+            if adj == self.expr and self.problem.is_square:
+                self._adjoint_op = self.problem.native
+            elif self.problem.is_square:
+                self._adjoint_op = LadderOperator(adj, self.space, threads=self.threads).native
+            else:
+                # The transpose of P_target A P_space is P_space A† P_target: the part
+                # of A†'s image outside ``space`` is dropped, not refused.
+                from fockmill._between import compile_between
+
+                self._adjoint_op = compile_between(
+                    adj, self.problem.target, self.problem.space, project=True
+                )
         return self._adjoint_op
 
     def _rmatvec(self, x: npt.NDArray[Any]) -> npt.NDArray[Any]:
-        shape = x.shape
         self.products += 1
-        y = self._adjoint_native().matvec(self._vector(x).reshape(-1), self.threads)
-        return y.reshape(shape)
+        y = self._adjoint_native().matvec(self._vector(x).reshape(-1), self.problem.pool)
+        return y.reshape(-1, 1) if x.ndim == 2 else y  # type: ignore[no-any-return]
 
     def _rmatmat(self, x: npt.NDArray[Any]) -> npt.NDArray[Any]:
         self.products += x.shape[1]
-        return self._adjoint_native().matmat(self._vector(x), self.threads)
+        return self._adjoint_native().matmat(self._vector(x), self.problem.pool)  # type: ignore[no-any-return]
 
-    def _adjoint(self) -> LadderOperator:
-        return LadderOperator(self.expr.adjoint(), self.space, threads=self.threads)
+    def _adjoint(self) -> LinearOperator:
+        if self.problem.is_square:
+            return LadderOperator(self.expr.adjoint(), self.space, threads=self.threads)
+        # Between two spaces the adjoint is this operator's products swapped.
+        return LinearOperator(
+            shape=(self.shape[1], self.shape[0]),
+            matvec=self._rmatvec,
+            rmatvec=self._matvec,
+            matmat=self._rmatmat,
+            rmatmat=self._matmat,
+            dtype=self.dtype,
+        )
 
 
 def build_operator(
-    expr: LadderExpr,
-    space: FockSpace,
+    expr: LadderExpr | Problem,
+    space: Any = None,
     *,
-    target: FockSpace | None = None,
+    target: Any = None,
     threads: int | None = None,
-) -> LadderOperator | BetweenOperator:
+) -> LadderOperator:
     """A matrix-free ``LinearOperator`` for ``expr`` on ``space``.
 
     Memory is O(number of terms), not O(nnz): use it for sectors whose matrix would not
@@ -135,19 +174,20 @@ def build_operator(
 
     Parameters
     ----------
-    expr : LadderExpr
-        The operator (same convention as :func:`build_matrix`).
+    expr : LadderExpr or Problem
+        The operator (same convention as :func:`build_matrix`), or a prepared problem
+        (then ``space`` is omitted and its compiled operator is reused).
     space : FockSpace
         The basis.
     target : FockSpace, optional
         The space products land in (same modes and cutoffs): the operator then has
-        shape ``(target.dim, space.dim)`` and is a ``BetweenOperator``. None: ``space``.
+        shape ``(target.dim, space.dim)``; ``.H`` maps back. None: ``space``.
     threads : int, optional
         Worker threads per product (default: all cores).
 
     Returns
     -------
-    LadderOperator or BetweenOperator
+    LadderOperator
         ``dtype`` float64 when every coefficient is real, else complex128; supports
         ``@``, ``.matvec``, ``.matmat``, ``.rmatvec`` and ``.H``.
 
@@ -159,7 +199,4 @@ def build_operator(
     >>> (op @ np.ones(space.dim)).tolist()
     [-2.0, 0.0, 2.0]
     """
-    if not same_space(space, target):
-        assert target is not None
-        return BetweenOperator(expr, space, target, threads=threads)
-    return LadderOperator(expr, space, threads=threads)
+    return LadderOperator(expr, space, target=target, threads=threads)

@@ -1,44 +1,270 @@
 """Figures of sweep results: recorded quantities against one swept parameter.
 
-matplotlib is optional (``fockmill[plot]``) and imported only when a figure is drawn;
-figures are rendered with the non-interactive Agg canvas, never through pyplot.
+matplotlib is optional and imported only when a figure is drawn; figures are rendered
+with the non-interactive Agg canvas, never through pyplot.
+
+What a figure says, and where it comes from (explicit keywords win, then the results
+file's metadata, then a plain fallback):
+
+* axis labels name what a parameter is (``on-site interaction U``), with its unit from
+  the model file's ``[units]`` table (``U/J`` when the unit is another parameter,
+  ``ω_c (GHz)`` otherwise) and the energy unit on energy axes;
+* the title gives the model, the number of modes, the dimension and the sector
+  (conserved total or parity, with the filling);
+* per-mode curves that coincide (symmetry-equivalent modes) are drawn once, labelled
+  with all the modes they stand for; beyond ten curves colours come from a colour map;
+  legends sit outside the axes;
+* an axis whose data are constant is centred on the value instead of magnifying
+  rounding noise, and no axis uses offset notation;
+* the entropy axis names its bipartition.
 """
 
 from __future__ import annotations
 
+import json
 import os
-from collections.abc import Sequence
+import re
+from collections.abc import Mapping, Sequence
 from pathlib import Path
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 import numpy as np
 import numpy.typing as npt
 
 from fockmill._store import ResultsStore, SweepTable
 
-__all__ = ["plot_sweep"]
+if TYPE_CHECKING:
+    from matplotlib.figure import Figure
 
-_LABELS = {
+    from fockmill._modelfile import ModelFile
+    from fockmill._space import FockSpace
+
+__all__ = ["axis_label", "plot_sweep", "sweep_figure"]
+
+_QUANTITIES = {
     "energy": "ground energy $E_0$",
     "gap": "gap $E_1-E_0$",
     "levels": "levels $E_k$",
-    "populations": r"$\langle n_i\rangle$",
-    "number_variance": r"Var $n_i$",
+    "populations": r"mean occupation $\langle n_i\rangle$",
+    "number_variance": r"number variance Var $n_i$",
     "one_body": r"$\langle a_0^\dagger a_j\rangle$",
-    "entropy": "entropy (nats)",
+    "entropy": "entanglement entropy $S$ (nats)",
     "top_weight": "top-level weight",
     "residual": r"residual $\|Hv-Ev\|$",
     "seconds": "seconds per point",
 }
+_ENERGY_QUANTITIES = ("energy", "gap", "levels", "residual")
+
+# What each built-in parameter is: (description, symbol in mathtext).
+_PARAMETERS: dict[str, tuple[str, str]] = {
+    "U": ("on-site interaction", "$U$"),
+    "J": ("hopping", "$J$"),
+    "mu": ("chemical potential", r"$\mu$"),
+    "wc": ("cavity frequency", r"$\omega_c$"),
+    "we": ("emitter frequency", r"$\omega_e$"),
+    "g": ("cavity–emitter coupling", "$g$"),
+    "frequency_scale": ("scale factor of all frequencies", r"$s_\omega$"),
+    "kerr_scale": ("scale factor of all self-Kerr shifts", "$s_K$"),
+    "cross_kerr_scale": ("scale factor of all cross-Kerr shifts", r"$s_\chi$"),
+    "exchange_scale": ("scale factor of all exchange couplings", "$s_g$"),
+    "omega": ("scale factor of all frequencies", r"$s_\omega$"),
+    "kerr": ("scale factor of all self-Kerr shifts", "$s_K$"),
+    "cross_kerr": ("scale factor of all cross-Kerr shifts", r"$s_\chi$"),
+    "exchange": ("scale factor of all exchange couplings", "$s_g$"),
+    "drive": ("scale factor of the coherent drives", r"$s_\varepsilon$"),
+    "two_photon": ("scale factor of the two-photon drives", r"$s_\lambda$"),
+}
+_MODEL_SPECIFIC: dict[tuple[str, str], tuple[str, str]] = {
+    ("jaynes-cummings-hubbard", "J"): ("photon hopping", "$J$"),
+}
+_MAX_CYCLE = 10
+_TRAILING_INDEX = re.compile(r"^(.*?)(\d+)$")
 
 
-def _as_table(source: SweepTable | ResultsStore | str | os.PathLike[str]) -> tuple[SweepTable, str]:
+def _describe(name: str, model_name: str) -> tuple[str, str]:
+    base = model_name.removeprefix("driven ")
+    if (base, name) in _MODEL_SPECIFIC:
+        return _MODEL_SPECIFIC[(base, name)]
+    if name in _PARAMETERS:
+        return _PARAMETERS[name]
+    # A user's parameter: one letter reads as a symbol, a longer name as written.
+    return ("parameter", f"${name}$" if re.fullmatch(r"[A-Za-z]", name) else name)
+
+
+def axis_label(name: str, units: Mapping[str, str], model_name: str = "") -> str:
+    """The axis label of parameter ``name``: what it is, its symbol and its unit.
+
+    Parameters
+    ----------
+    name : str
+        The parameter (``"U"``, ``"we"``, ``"exchange_scale"``, a user term's name).
+    units : mapping of str to str
+        ``[units]`` of the model file; a unit that is itself a parameter name is
+        written as a ratio (``U/J``), any other in parentheses (``ω_e (GHz)``).
+    model_name : str, optional
+        The model's name, for parameters whose meaning depends on the model.
+
+    Returns
+    -------
+    str
+
+    Examples
+    --------
+    >>> axis_label("U", {"U": "J"}, "bose-hubbard")
+    'on-site interaction $U/J$'
+    >>> axis_label("we", {"we": "GHz"}, "jaynes-cummings-hubbard")
+    'emitter frequency $\\\\omega_e$ (GHz)'
+    """
+    description, symbol = _describe(name, model_name)
+    unit = units.get(name)
+    if not unit:
+        return f"{description} {symbol}"
+    if unit in _PARAMETERS or (unit in units and unit != "energy"):
+        # The unit is another parameter: write the ratio, U/J.
+        unit_symbol = _describe(unit, model_name)[1]
+        if symbol.startswith("$") and unit_symbol.startswith("$"):
+            return f"{description} {symbol[:-1]}/{unit_symbol[1:]}"
+        return f"{description} {symbol} / {unit_symbol}"
+    return f"{description} {symbol} ({unit})"
+
+
+def _energy_label(quantity: str, units: Mapping[str, str]) -> str:
+    text = _QUANTITIES[quantity]
+    unit = units.get("energy")
+    if not unit:
+        return text
+    if unit in _PARAMETERS:
+        symbol = _PARAMETERS[unit][1]
+        return f"{text} / {symbol}"
+    return f"{text} ({unit})"
+
+
+def _describe_modes(indices: Sequence[int], labels: Sequence[str]) -> str:
+    """``site 0–2`` for a run of modes sharing a label word, else the labels joined."""
+    names = [labels[i] if i < len(labels) else f"mode {i}" for i in indices]
+    matches = [_TRAILING_INDEX.match(n) for n in names]
+    if len(names) > 1 and all(matches):
+        stems = {m.group(1) for m in matches if m}
+        numbers = [int(m.group(2)) for m in matches if m]
+        if len(stems) == 1 and numbers == list(range(numbers[0], numbers[0] + len(numbers))):
+            return f"{stems.pop()}{numbers[0]}–{numbers[-1]}"
+    if len(names) > 4:
+        return ", ".join(names[:3]) + f", … ({len(names)} modes)"
+    return ", ".join(names)
+
+
+def _meta_json(meta: Mapping[str, str], key: str) -> Any:
+    """A JSON value stored in the results metadata, or None when absent or unreadable."""
+    text = meta.get(key)
+    if text is None:
+        return None
+    if not isinstance(text, str):
+        return text
+    try:
+        return json.loads(text)
+    except json.JSONDecodeError:
+        return None
+
+
+def _context_from_meta(meta: Mapping[str, str]) -> dict[str, Any]:
+    """What the results file says about the model (each entry may be missing)."""
+    out: dict[str, Any] = {"model_name": meta.get("model_name", "")}
+    labels = _meta_json(meta, "mode_labels")
+    if isinstance(labels, list) and all(isinstance(x, str) for x in labels):
+        out["mode_labels"] = labels
+    units = _meta_json(meta, "units")
+    if isinstance(units, dict):
+        out["units"] = {str(k): str(v) for k, v in units.items()}
+    space = _meta_json(meta, "space")
+    if isinstance(space, dict):
+        out["space"] = space
+    settings = _meta_json(meta, "settings")
+    if isinstance(settings, dict) and isinstance(settings.get("entropy_modes"), list):
+        out["entropy_modes"] = [int(i) for i in settings["entropy_modes"]]
+    if "dim" in meta:
+        try:
+            out["dim"] = int(meta["dim"])
+        except (TypeError, ValueError):
+            pass
+    return out
+
+
+def _as_table(
+    source: SweepTable | ResultsStore | str | os.PathLike[str],
+) -> tuple[SweepTable, dict[str, Any]]:
     if isinstance(source, SweepTable):
-        return source, ""
+        return source, {}
     if isinstance(source, ResultsStore):
-        return source.to_table(), source.meta.get("model_name", "")
+        return source.to_table(), _context_from_meta(source.meta)
     with ResultsStore.open(source) as store:
-        return store.to_table(), store.meta.get("model_name", "")
+        return store.to_table(), _context_from_meta(store.meta)
+
+
+def _space_summary(space: FockSpace) -> dict[str, Any]:
+    return {
+        "modes": space.modes,
+        "cutoffs": list(space.cutoffs),
+        "weights": list(space.weights),
+        "total": space.total,
+        "modulus": space.modulus,
+        "dim": space.dim,
+    }
+
+
+def _sites(labels: Sequence[str], modes: int) -> tuple[int, str]:
+    """Number of sites and what to call them: modes sharing a trailing index form a site."""
+    matches = [_TRAILING_INDEX.match(x) for x in labels]
+    indices = {m.group(2) for m in matches if m}
+    if labels and all(matches) and 0 < len(indices) < modes and len(indices) * 2 <= modes:
+        return len(indices), "sites"
+    if labels and all(label.startswith("site ") for label in labels):
+        return modes, "sites"
+    return modes, "modes"
+
+
+def _title(model_name: str, space: Mapping[str, Any] | None, labels: Sequence[str]) -> str:
+    """``model_name`` over a line with modes, dimension, sector and filling (what is known)."""
+    if not space:
+        return model_name
+    modes = int(space.get("modes") or len(space.get("cutoffs") or []) or 0)
+    parts = [f"{modes} modes"] if modes else []
+    if "dim" in space:
+        parts.append(f"dim {int(space['dim']):,}")
+    if modes:
+        total, modulus = space.get("total"), space.get("modulus")
+        if total is None:
+            parts.append("all occupations up to the cutoffs")
+        elif modulus:
+            parts.append(f"sector N ≡ {total} (mod {modulus})")
+        else:
+            count, word = _sites(labels, modes)
+            parts.append(f"N = {total} on {count} {word}, filling {total / max(count, 1):g}")
+    heading = ", ".join(parts)
+    if not heading:
+        return model_name
+    return f"{model_name}\n{heading}" if model_name else heading
+
+
+def _group_equal(
+    series: list[tuple[int, npt.NDArray[np.float64]]],
+) -> list[list[tuple[int, npt.NDArray[np.float64]]]]:
+    """Group columns whose values coincide at every point to 1e-6 of their scale.
+
+    Equal up to what a figure can show: symmetry-equivalent modes agree to the
+    eigensolver's accuracy, which may be far above rounding, and one drawn curve then
+    stands for all of them.
+    """
+    groups: list[list[tuple[int, npt.NDArray[np.float64]]]] = []
+    for j, values in series:
+        for group in groups:
+            reference = group[0][1]
+            scale = max(1.0, float(np.nanmax(np.abs(reference))) if reference.size else 1.0)
+            if np.allclose(values, reference, rtol=0, atol=1e-6 * scale, equal_nan=True):
+                group.append((j, values))
+                break
+        else:
+            groups.append([(j, values)])
+    return groups
 
 
 def _series(
@@ -48,15 +274,23 @@ def _series(
     if values.ndim == 1:
         return [("", values)]
     if values.ndim == 2:
-
-        def label(j: int) -> str:
-            if name == "levels":
-                return f"$E_{j}$"
-            return mode_labels[j] if j < len(mode_labels) else f"mode {j}"
-
-        return [(label(j), values[:, j]) for j in range(values.shape[1])]
+        if name == "levels":
+            return [(f"$E_{j}$", values[:, j]) for j in range(values.shape[1])]
+        groups = _group_equal([(j, values[:, j]) for j in range(values.shape[1])])
+        out = []
+        for group in groups:
+            text = _describe_modes([j for j, _ in group], mode_labels)
+            if len(group) > 1:
+                text += " (equal)"
+            out.append((text, group[0][1]))
+        return out
     # A (rows, modes, modes) matrix: correlations of mode 0 with every other mode.
-    return [(f"j={j}", values[:, 0, j]) for j in range(1, values.shape[2])]
+    columns = [(j, values[:, 0, j].real) for j in range(1, values.shape[2])]
+    groups = _group_equal(columns)
+    return [
+        ("j = " + _describe_modes([j for j, _ in group], mode_labels), group[0][1])
+        for group in groups
+    ]
 
 
 def _evenly_spaced_in_log(values: npt.NDArray[np.float64]) -> bool:
@@ -68,23 +302,39 @@ def _evenly_spaced_in_log(values: npt.NDArray[np.float64]) -> bool:
     return bool(np.allclose(steps, steps[0], rtol=1e-6))
 
 
-def plot_sweep(
+def _hold_constant(axis: Any, values: npt.NDArray[np.float64]) -> None:
+    """Centre a constant axis on its value instead of magnifying rounding noise."""
+    finite = values[np.isfinite(values)]
+    if finite.size == 0:
+        return
+    low, high = float(finite.min()), float(finite.max())
+    middle = 0.5 * (low + high)
+    if high - low <= 1e-9 * max(1.0, abs(middle)):
+        pad = max(0.05 * abs(middle), 1e-3)
+        axis.set_ylim(middle - pad, middle + pad)
+
+
+def sweep_figure(
     source: SweepTable | ResultsStore | str | os.PathLike[str],
-    out: str | os.PathLike[str],
     *,
     x: str | None = None,
     y: Sequence[str] = ("energy", "gap"),
     title: str | None = None,
-    mode_labels: Sequence[str] = (),
-) -> Path:
-    """Draw recorded quantities against a swept parameter and save the figure.
+    mode_labels: Sequence[str] | None = None,
+    units: Mapping[str, str] | None = None,
+    space: FockSpace | None = None,
+    entropy_modes: Sequence[int] | None = None,
+    model_file: ModelFile | None = None,
+) -> Figure:
+    """Draw recorded quantities against a swept parameter, as a matplotlib Figure.
+
+    The figure is not shown or saved (see :func:`plot_sweep`); its axes, labels and
+    legends can be inspected or changed before saving with ``figure.savefig``.
 
     Parameters
     ----------
     source : SweepTable, ResultsStore, str or path
-        The results (a results file is opened read-only in effect).
-    out : str or path
-        Image file to write; the format follows the suffix (``.png``, ``.pdf``, ``.svg``).
+        The results (a results file is only read).
     x : str, optional
         Swept parameter on the horizontal axis (default: the first one that varies).
         Other varying parameters give one line per combination of their values. A
@@ -94,23 +344,51 @@ def plot_sweep(
         ``number_variance``, ``one_body`` (row of mode 0), ``entropy``, ``top_weight``,
         ``residual``, ``seconds``.
     title : str, optional
-        Figure title (default: the model name stored in the results file).
-    mode_labels : sequence of str
-        Line labels for per-mode quantities (default ``mode 0``, ``mode 1``, ...).
+        First line of the title (default: the model name); a second line gives the
+        number of modes, the dimension, the sector and the filling when known.
+    mode_labels : sequence of str, optional
+        Names of the modes for per-mode curves (default: the results file's
+        ``mode_labels``, else ``mode 0``, ``mode 1``, ...).
+    units : mapping of str to str, optional
+        Unit of ``"energy"`` and of parameters (default: the results file's ``units``).
+    space : FockSpace, optional
+        The model's space, for the title (default: the results file's ``space``).
+    entropy_modes : sequence of int, optional
+        Subsystem of the recorded entropy, for its label (default: from the results
+        file's settings).
+    model_file : ModelFile, optional
+        Supplies mode labels, units, space, entropy modes and model name at once (for
+        a ``SweepTable`` that carries no metadata).
 
     Returns
     -------
-    pathlib.Path
-        The file written.
+    matplotlib.figure.Figure
+        One panel per quantity, on an Agg canvas.
 
     Raises
     ------
     ValueError
         No finished points, an unknown ``x`` or ``y``, or nothing swept.
     ImportError
-        matplotlib is not installed (install ``fockmill[plot]``).
+        matplotlib is not installed (``pip install matplotlib``).
     """
-    table, model_name = _as_table(source)
+    table, context = _as_table(source)
+    if model_file is not None:
+        context.setdefault("model_name", model_file.model.name)
+        if not context.get("model_name"):
+            context["model_name"] = model_file.model.name
+        context.setdefault("mode_labels", list(model_file.model.mode_labels))
+        context.setdefault("units", dict(model_file.units))
+        context.setdefault("space", _space_summary(model_file.model.space))
+        context.setdefault("entropy_modes", list(model_file.entropy_modes))
+    if space is not None:
+        context["space"] = _space_summary(space)
+    elif "space" not in context and "dim" in context:
+        context["space"] = {"dim": context["dim"]}
+    labels = list(mode_labels) if mode_labels is not None else context.get("mode_labels", [])
+    unit_map = dict(units) if units is not None else context.get("units", {})
+    subsystem = list(entropy_modes) if entropy_modes is not None else context.get("entropy_modes")
+    model_name = str(context.get("model_name", ""))
     if len(table) == 0:
         raise ValueError("the results hold no finished point yet; nothing to plot")
     arrays = table.to_arrays()
@@ -131,42 +409,118 @@ def plot_sweep(
         raise ValueError(f"cannot plot {unknown or 'nothing'}; recorded quantities: {available}")
 
     try:
+        from matplotlib import colormaps
         from matplotlib.backends.backend_agg import FigureCanvasAgg
         from matplotlib.figure import Figure
     except ImportError as exc:
         raise ImportError(
-            "plotting needs matplotlib; install it with: pip install 'fockmill[plot]'"
+            "plotting needs matplotlib; install it into this environment with: "
+            "pip install matplotlib"
         ) from exc
 
     others = [name for name in varying if name != x]
     keys = [tuple(float(arrays[name][r]) for name in others) for r in range(len(table))]
     groups = sorted(set(keys))
-    figure = Figure(figsize=(6.4, 0.6 + 2.4 * len(y)), layout="constrained")
+    figure = Figure(figsize=(7.4, 1.0 + 2.4 * len(y)), layout="constrained")
     FigureCanvasAgg(figure)
     axes = figure.subplots(len(y), 1, sharex=True, squeeze=False)[:, 0]
     xs = arrays[x]
     for axis, quantity in zip(axes, y, strict=True):
-        lines = 0
+        lines: list[tuple[str, npt.NDArray[np.int64], npt.NDArray[np.float64]]] = []
         for group in groups:
             rows = np.array([r for r, key in enumerate(keys) if key == group], dtype=np.int64)
             rows = rows[np.argsort(xs[rows], kind="stable")]
-            prefix = ", ".join(f"{n}={v:g}" for n, v in zip(others, group, strict=True))
-            for label, values in _series(quantity, arrays[quantity][rows], mode_labels):
+            prefix = ", ".join(f"{n} = {v:g}" for n, v in zip(others, group, strict=True))
+            for label, values in _series(quantity, arrays[quantity][rows], labels):
                 text = "; ".join(part for part in (prefix, label) if part)
-                axis.plot(xs[rows], values, marker="o", markersize=3, label=text or None)
-                lines += 1
-        axis.set_ylabel(_LABELS.get(quantity, quantity))
-        if quantity == "residual" and np.all(arrays[quantity] > 0):
+                lines.append((text, rows, np.asarray(values, dtype=np.float64)))
+        colours: list[Any]
+        if len(lines) > _MAX_CYCLE:
+            colours = list(colormaps["viridis"](np.linspace(0.0, 0.95, len(lines))))
+        else:
+            colours = [f"C{k}" for k in range(len(lines))]
+        for (text, rows, values), colour in zip(lines, colours, strict=True):
+            axis.plot(xs[rows], values, marker="o", markersize=3, color=colour, label=text or None)
+        if quantity in _ENERGY_QUANTITIES and quantity != "residual":
+            ylabel = _energy_label(quantity, unit_map)
+        elif quantity == "entropy" and subsystem:
+            ylabel = f"entropy $S_A$ (nats)\nA = {_describe_modes(subsystem, labels)}"
+        else:
+            ylabel = _QUANTITIES.get(quantity, quantity)
+        axis.set_ylabel(ylabel)
+        stacked = np.concatenate([values for _, _, values in lines])
+        if quantity == "residual" and np.all(stacked > 0):
             axis.set_yscale("log")
-        if 1 < lines <= 12:
-            axis.legend(fontsize="small")
+        else:
+            axis.ticklabel_format(axis="y", useOffset=False)
+            _hold_constant(axis, stacked)
+        if len(lines) > 1 and any(text for text, _, _ in lines):
+            axis.legend(
+                loc="upper left",
+                bbox_to_anchor=(1.01, 1.0),
+                fontsize="small",
+                frameon=False,
+                ncols=1 if len(lines) <= 16 else 2,
+            )
         axis.grid(alpha=0.3)
-    axes[-1].set_xlabel(x)
+    axes[-1].set_xlabel(axis_label(x, unit_map, model_name))
     if _evenly_spaced_in_log(xs):
         axes[-1].set_xscale("log")
-    heading = title if title is not None else model_name
+    else:
+        axes[-1].ticklabel_format(axis="x", useOffset=False)
+    heading = _title(title if title is not None else model_name, context.get("space"), labels)
     if heading:
         figure.suptitle(heading)
+    return figure
+
+
+def plot_sweep(
+    source: SweepTable | ResultsStore | str | os.PathLike[str],
+    out: str | os.PathLike[str],
+    *,
+    x: str | None = None,
+    y: Sequence[str] = ("energy", "gap"),
+    title: str | None = None,
+    mode_labels: Sequence[str] | None = None,
+    units: Mapping[str, str] | None = None,
+    space: FockSpace | None = None,
+    entropy_modes: Sequence[int] | None = None,
+    model_file: ModelFile | None = None,
+) -> Path:
+    """Draw recorded quantities against a swept parameter and save the figure.
+
+    Parameters
+    ----------
+    source : SweepTable, ResultsStore, str or path
+        The results (a results file is only read).
+    out : str or path
+        Image file to write; the format follows the suffix (``.png``, ``.pdf``, ``.svg``).
+    x, y, title, mode_labels, units, space, entropy_modes, model_file
+        As for :func:`sweep_figure`.
+
+    Returns
+    -------
+    pathlib.Path
+        The file written.
+
+    Raises
+    ------
+    ValueError
+        No finished points, an unknown ``x`` or ``y``, or nothing swept.
+    ImportError
+        matplotlib is not installed (``pip install matplotlib``).
+    """
+    figure = sweep_figure(
+        source,
+        x=x,
+        y=y,
+        title=title,
+        mode_labels=mode_labels,
+        units=units,
+        space=space,
+        entropy_modes=entropy_modes,
+        model_file=model_file,
+    )
     path = Path(out)
     path.parent.mkdir(parents=True, exist_ok=True)
     figure.savefig(path, dpi=120)

@@ -1,9 +1,14 @@
-"""Turn a user's expression and space into the compiled operator, checking types."""
+"""Turn a user's expression and space into the compiled (native) operator, checking types.
+
+:func:`compile_operator` is the one place where an expression meets a space type; the
+public entry point is :func:`fockmill.prepare` (``_problem.py``), which calls it once.
+"""
 
 from __future__ import annotations
 
 import cmath
 import numbers
+from typing import Any
 
 import numpy as np
 
@@ -13,7 +18,14 @@ from fockmill._expr import LadderExpr, format_monomial
 from fockmill._space import FockSpace
 from fockmill.exceptions import ModeIndexError
 
-__all__ = ["MAX_POWER", "as_expr", "check_space", "check_threads", "prepare"]
+__all__ = [
+    "MAX_POWER",
+    "as_expr",
+    "check_space",
+    "check_terms",
+    "check_threads",
+    "compile_operator",
+]
 
 #: Largest creation or annihilation power of one mode in a term (the largest cutoff).
 MAX_POWER = 65_535
@@ -37,20 +49,16 @@ def check_space(space: object) -> FockSpace:
     return space
 
 
-def prepare(expr: object, space: object) -> _native.NativeOperator:
-    """Validate ``expr`` against ``space`` and return the compiled operator.
+def check_terms(e: LadderExpr, s: FockSpace) -> None:
+    """Refuse terms on missing modes, with absurd powers or non-finite coefficients.
 
     Raises
     ------
-    ChargeError
-        A term changes the conserved charge.
     ModeIndexError
         A term acts on a mode beyond the space.
-    TypeError
-        For arguments of the wrong type.
+    ValueError
+        A power above :data:`MAX_POWER` or a NaN/inf coefficient.
     """
-    e = as_expr(expr)
-    s = check_space(space)
     for coefficient, key in e.terms():
         for mode, p, q in key:
             if mode >= s.modes:
@@ -69,4 +77,29 @@ def prepare(expr: object, space: object) -> _native.NativeOperator:
                 f"term {format_monomial(key)} has the coefficient {coefficient}, which is not "
                 "finite; check the parameters for NaN, inf or overflow"
             )
+
+
+def compile_operator(expr: object, space: object, target: object = None) -> Any:
+    """Validate ``expr`` against ``space`` and return the compiled native operator.
+
+    The result follows the native operator protocol (``is_real``, ``dim``,
+    ``build_csr``, ``matvec``, ``matmat``, ``estimate_nnz``, ``lanczos_ground``): see
+    DEVELOPERS.md. ``target`` (None: ``space``) is the space products land in.
+
+    Raises
+    ------
+    ChargeError
+        A term changes the conserved charge.
+    ModeIndexError
+        A term acts on a mode beyond the space.
+    TypeError
+        For arguments of the wrong type.
+    """
+    e = as_expr(expr)
+    s = check_space(space)
+    if target is not None and target != s:
+        from fockmill._between import compile_between
+
+        return compile_between(e, s, target)
+    check_terms(e, s)
     return _native.NativeOperator(s.native, e.to_native())

@@ -12,14 +12,11 @@ import numpy.typing as npt
 import scipy.sparse.linalg as sla
 from scipy.sparse.linalg import LinearOperator
 
-from fockmill._args import check_memory_limit
-from fockmill._build import build_matrix
+from fockmill._args import METHODS, check_max_iterations, check_method, check_seed, check_tol
 from fockmill._expr import LadderExpr
-from fockmill._memory import MemoryEstimate, estimate_memory, format_bytes
+from fockmill._memory import MemoryEstimate, format_bytes
 from fockmill._observe import check_vector, top_level_weights
-from fockmill._operator import LadderOperator
-from fockmill._prepare import as_expr, check_space, check_threads, prepare
-from fockmill._space import FockSpace
+from fockmill._problem import Problem, as_problem
 from fockmill.exceptions import (
     ConvergenceError,
     CutoffWarning,
@@ -27,10 +24,19 @@ from fockmill.exceptions import (
     SizeLimitError,
 )
 
-__all__ = ["GroundState", "Levels", "Method", "choose_method", "ground_state", "lowest_levels"]
+__all__ = [
+    "GroundState",
+    "Levels",
+    "Method",
+    "choose_method",
+    "ground_state",
+    "lowest_levels",
+    "solve_ground",
+    "solve_levels",
+]
 
 Method = Literal["auto", "dense", "csr", "operator", "lanczos"]
-_METHODS = ("auto", "dense", "csr", "operator", "lanczos")
+_METHODS = METHODS
 #: Spaces up to this dimension are diagonalised densely.
 DENSE_MAX_DIM = 1500
 #: Fraction of the available memory a solve may plan to use.
@@ -62,7 +68,8 @@ class GroundState:
         How many computed levels equal the lowest within the tolerance (1: unique);
         None when the method computes a single vector (``"lanczos"``).
     converged : bool
-        Whether ``residual <= 10 · tol · max(1, |energy|)``.
+        Always True: a solve that misses its tolerance raises
+        :class:`~fockmill.exceptions.ConvergenceError` instead of returning.
     """
 
     energy: float
@@ -93,6 +100,9 @@ class Levels:
         Sizes of the groups of equal energies, in ascending order of energy
         (``(2, 1, 1)``: a degenerate doublet then two single levels). The last group
         may continue beyond the ``k`` levels computed.
+    gap : float
+        ``energies[1] − energies[0]`` (property; 0 for a degenerate ground state,
+        needs ``k >= 2``).
     """
 
     energies: npt.NDArray[np.float64]
@@ -137,15 +147,21 @@ def _krylov_vectors(k: int) -> int:
     return max(2 * k + 1, 20) + 2
 
 
+#: Relative weight of the seeded noise mixed into a user's start vector, so that a
+#: ``v0`` without weight in the ground state's symmetry sector still reaches it.
+START_NOISE = 1e-4
+
+
 def choose_method(
     estimate: MemoryEstimate, k: int, memory_limit: int | None = None
 ) -> Literal["dense", "csr", "operator", "lanczos"]:
     """The method ``"auto"`` picks for ``k`` levels given a memory estimate.
 
-    Dense for at most ``DENSE_MAX_DIM`` states; eigsh on the stored matrix when the
-    matrix and a Krylov basis fit in ``MEMORY_BUDGET`` of the memory; eigsh on the
-    matrix-free operator when only the Krylov basis fits; the four-vector Lanczos solver
-    (ground state only) when even that does not fit.
+    Dense for at most ``DENSE_MAX_DIM`` states. For one level, the Lanczos solver in
+    Rust (on a stored matrix when it fits, see ``store_matrix``), which keeps only four
+    vectors. For several levels, eigsh on the stored matrix when the matrix and a
+    Krylov basis fit in ``MEMORY_BUDGET`` of the memory, else eigsh on the matrix-free
+    operator. The thresholds come from ``benchmarks/bench_methods.py``.
 
     Raises
     ------
@@ -157,15 +173,15 @@ def choose_method(
     krylov = estimate.krylov_bytes(_krylov_vectors(k))
     if estimate.dim <= DENSE_MAX_DIM:
         return "dense"
+    if k == 1 and estimate.krylov_bytes(5) <= budget:
+        return "lanczos"
     if estimate.build_peak_bytes + krylov <= budget:
         return "csr"
     if krylov <= budget:
         return "operator"
-    if k == 1 and estimate.krylov_bytes(5) <= budget:
-        return "lanczos"
     raise SizeLimitError(
         f"no solver fits in memory: {estimate}; even the four-vector Lanczos solver needs "
-        f"{estimate.krylov_bytes(5) / 2**30:.2f} GiB. Use a smaller sector or cutoffs"
+        f"{format_bytes(estimate.krylov_bytes(5))}. Use a smaller sector or cutoffs"
     )
 
 
@@ -178,7 +194,7 @@ def _check_fits(estimate: MemoryEstimate, method: str, k: int, memory_limit: int
         "dense": estimate.dim * estimate.dim * estimate.value_dtype.itemsize * 3,
         "csr": estimate.krylov_bytes(_krylov_vectors(k)),
         "operator": estimate.krylov_bytes(_krylov_vectors(k)),
-        "lanczos": estimate.krylov_bytes(5),
+        "lanczos": estimate.krylov_bytes(_lanczos_vectors(k)),
     }[method]
     if vectors > limit:
         raise SizeLimitError(
@@ -188,22 +204,30 @@ def _check_fits(estimate: MemoryEstimate, method: str, k: int, memory_limit: int
         )
 
 
-def _start_vector(
-    v0: npt.ArrayLike | None, space: FockSpace, real: bool
-) -> npt.NDArray[Any] | None:
+def _start_vector(v0: npt.ArrayLike | None, problem: Problem, seed: int) -> npt.NDArray[Any] | None:
+    """The user's start vector, normalised and mixed with ``START_NOISE`` of seeded
+    noise (so that no symmetry sector is excluded), or None."""
     if v0 is None:
         return None
-    v = check_vector(space, v0, "v0")
-    if real and v.dtype.kind == "c":
+    v = check_vector(problem.space, v0, "v0")
+    if problem.is_real and v.dtype.kind == "c":
         v = np.ascontiguousarray(v.real)
         if not np.any(v):
             return None
-    return v
+    v = v / np.linalg.norm(v)
+    noise = np.random.default_rng([seed, 0x5EED]).standard_normal(v.shape[0])
+    mixed = v + START_NOISE * noise / np.linalg.norm(noise)
+    return np.ascontiguousarray(mixed / np.linalg.norm(mixed))
 
 
 def _residuals(op: Any, energies: npt.NDArray[Any], vectors: npt.NDArray[Any]) -> Any:
     hv = op @ vectors
     return np.linalg.norm(hv - vectors * energies[np.newaxis, :], axis=0)
+
+
+def _converged(residual: float, energy: float, tol: float) -> bool:
+    """The one convergence rule of the iterative methods."""
+    return residual <= 10 * max(tol, 1e-12) * max(1.0, abs(energy))
 
 
 class _Counted(LinearOperator):  # type: ignore[misc]
@@ -216,11 +240,11 @@ class _Counted(LinearOperator):  # type: ignore[misc]
 
     def _matvec(self, x: npt.NDArray[Any]) -> npt.NDArray[Any]:
         self.products += 1
-        return self.inner @ x
+        return self.inner @ x  # type: ignore[no-any-return]
 
     def _matmat(self, x: npt.NDArray[Any]) -> npt.NDArray[Any]:
         self.products += x.shape[1]
-        return self.inner @ x
+        return self.inner @ x  # type: ignore[no-any-return]
 
     _rmatvec = _matvec
     _rmatmat = _matmat
@@ -229,54 +253,49 @@ class _Counted(LinearOperator):  # type: ignore[misc]
         return self
 
 
-def _solve_levels(
-    expr: LadderExpr,
-    space: FockSpace,
+def _eigsh_levels(
+    problem: Problem,
     k: int,
     method: str,
     tol: float,
     v0: npt.ArrayLike | None,
-    threads: int | None,
     max_iterations: int | None,
-    memory_limit: int | None,
-    seed: int = 0,
+    seed: int,
 ) -> tuple[npt.NDArray[np.float64], npt.NDArray[Any], npt.NDArray[np.float64], _Counted | None]:
     """Energies, vectors, residuals and the (counting) operator used, for the eigsh and
     dense methods (the operator is None for dense)."""
-    dim = space.dim
+    dim = problem.dim
     if method == "dense":
-        dense = build_matrix(expr, space, threads=threads, memory_limit=memory_limit).toarray()
+        dense = problem.matrix().toarray()
         energies, vectors = np.linalg.eigh(dense)
         energies, vectors = energies[:k], vectors[:, :k]
         residuals = np.linalg.norm(dense @ vectors - vectors * energies, axis=0)
         return energies, vectors, residuals, None
-    if method == "csr":
-        target = _Counted(build_matrix(expr, space, threads=threads, memory_limit=memory_limit))
-    else:
-        target = _Counted(LadderOperator(expr, space, threads=threads))
-    start = _start_vector(v0, space, target.dtype == np.float64)
     if dim - 1 <= k:
         raise ValueError(
             f"k={k} levels need a space with more than {k + 1} states for an iterative "
             f"method; this one has {dim}: use method='dense'"
         )
+    inner = problem.matrix() if method == "csr" else problem.operator()
+    target = _Counted(inner)
+    start = _start_vector(v0, problem, seed)
     if start is None:
         start = np.random.default_rng(seed).standard_normal(dim)
+    # eigsh's maxiter counts restarts; ours counts products (about ncv per restart).
+    ncv = min(dim, max(2 * k + 1, 20))
+    maxiter = None if max_iterations is None else max(1, max_iterations // ncv)
     try:
-        energies, vectors = sla.eigsh(
-            target, k=k, which="SA", tol=tol, v0=start, maxiter=max_iterations
-        )
+        energies, vectors = sla.eigsh(target, k=k, which="SA", tol=tol, v0=start, maxiter=maxiter)
         order = np.argsort(energies)
         energies, vectors = energies[order], vectors[:, order]
-        energies, vectors = _recover_missed_copies(
-            target, energies, vectors, tol, seed, max_iterations
-        )
+        energies, vectors = _recover_missed_copies(target, energies, vectors, tol, seed, maxiter)
     except sla.ArpackNoConvergence as exc:
         raise ConvergenceError(
             f"eigsh ({method}) did not converge to tol={tol} for k={k} levels "
-            f"({len(exc.eigenvalues)} converged); raise max_iterations or tol"
+            f"({len(exc.eigenvalues)} converged, {target.products} products); raise "
+            "max_iterations or tol, or pass v0"
         ) from exc
-    residuals = _residuals(target.inner, energies, vectors)
+    residuals = _residuals(inner, energies, vectors)
     return energies, vectors, residuals, target
 
 
@@ -286,7 +305,7 @@ def _lowest_outside(
     sigma: float,
     tol: float,
     rng: np.random.Generator,
-    max_iterations: int | None,
+    maxiter: int | None,
 ) -> tuple[float, npt.NDArray[Any]]:
     """Lowest eigenpair of ``H + σ B B†``: with ``σ`` above the spread of the levels in
     ``B``, the lowest level of ``H`` not yet in ``B``."""
@@ -297,9 +316,7 @@ def _lowest_outside(
         return target.matvec(x).reshape(-1) + sigma * (basis @ (basis.conj().T @ x))
 
     op = LinearOperator((dim, dim), matvec=shifted, rmatvec=shifted, dtype=basis.dtype)
-    e, v = sla.eigsh(
-        op, k=1, which="SA", tol=tol, v0=rng.standard_normal(dim), maxiter=max_iterations
-    )
+    e, v = sla.eigsh(op, k=1, which="SA", tol=tol, v0=rng.standard_normal(dim), maxiter=maxiter)
     w = v[:, 0] - basis @ (basis.conj().T @ v[:, 0])
     return float(e[0]), w / np.linalg.norm(w)
 
@@ -310,7 +327,7 @@ def _recover_missed_copies(
     vectors: npt.NDArray[Any],
     tol: float,
     seed: int,
-    max_iterations: int | None,
+    maxiter: int | None,
 ) -> tuple[npt.NDArray[np.float64], npt.NDArray[Any]]:
     """Find degenerate copies a single-vector Krylov method skipped.
 
@@ -328,7 +345,7 @@ def _recover_missed_copies(
     for _ in range(k):
         scale = max(1.0, float(np.max(np.abs(energies))))
         sigma = float(energies[-1] - energies[0]) + scale
-        e, w = _lowest_outside(target, vectors[:, :-1], sigma, tol, rng, max_iterations)
+        e, w = _lowest_outside(target, vectors[:, :-1], sigma, tol, rng, maxiter)
         if e >= energies[-1] - max(1e3 * tol, 1e-9) * scale:
             break
         energies = np.append(energies[:-1], e)
@@ -338,141 +355,205 @@ def _recover_missed_copies(
     return energies, vectors
 
 
+def _probe_degeneracy(
+    target: LinearOperator,
+    dim: int,
+    energies: npt.NDArray[np.float64],
+    vectors: npt.NDArray[Any],
+    tol: float,
+    degeneracy_tol: float,
+    seed: int,
+    maxiter: int | None,
+) -> tuple[npt.NDArray[np.float64], npt.NDArray[Any]]:
+    """Add the ground level's degenerate copies (found by deflation), up to 16.
+
+    The probe can also find a level *below* the one the solver returned (when the solver
+    stalled on an excited level): the levels are kept sorted, so the lowest found is
+    always reported first.
+    """
+    rng = np.random.default_rng(seed + 1)
+    while energies.size < min(16, dim - 2):
+        scale = max(1.0, abs(float(energies[0])))
+        spread = float(energies[-1] - energies[0])
+        e, w = _lowest_outside(target, vectors, spread + scale, tol, rng, maxiter)
+        if e - energies[0] > degeneracy_tol * scale:
+            break
+        energies = np.append(energies, e)
+        vectors = np.column_stack([vectors, w])
+        order = np.argsort(energies, kind="stable")
+        energies, vectors = energies[order], vectors[:, order]
+    return energies, vectors
+
+
 def _validate(
     k: int,
     method: str,
     tol: float,
-    space: FockSpace,
+    problem: Problem,
     v0: npt.ArrayLike | None = None,
     seed: object = 0,
     max_iterations: object = None,
 ) -> None:
-    if method not in _METHODS:
-        raise ValueError(f"method must be one of {_METHODS}; got {method!r}")
-    if isinstance(tol, bool) or not (isinstance(tol, float | int) and np.isfinite(tol) and tol > 0):
-        raise ValueError(f"tol must be a positive finite number such as 1e-9; got {tol!r}")
-    if isinstance(seed, bool) or not isinstance(seed, int | np.integer):
-        raise TypeError(f"seed must be a non-negative integer; got {seed!r}")
-    if seed < 0 or seed >= 2**63:
-        raise ValueError(f"seed must be a non-negative integer below 2**63; got {seed}")
-    if max_iterations is not None and (
-        isinstance(max_iterations, bool)
-        or not isinstance(max_iterations, int | np.integer)
-        or max_iterations < 1
-    ):
-        raise ValueError(
-            f"max_iterations must be a positive integer or None; got {max_iterations!r}"
-        )
+    # One set of checks and messages for solvers, sweeps and model files (_args).
+    check_method(method)
+    check_tol(tol)
+    check_seed(seed)
+    check_max_iterations(max_iterations)
     if v0 is not None:
-        check_vector(space, v0, "v0")
+        check_vector(problem.space, v0, "v0")
     if isinstance(k, bool) or not isinstance(k, int | np.integer):
         raise TypeError(f"k must be an integer; got {k!r}")
-    if k < 1 or k > space.dim:
-        raise ValueError(f"k must be between 1 and the space's dimension {space.dim}; got {k}")
+    if k < 1 or k > problem.dim:
+        raise ValueError(f"k must be between 1 and the space's dimension {problem.dim}; got {k}")
+    if not problem.is_square:
+        raise ValueError(
+            "eigenvalues need an operator from a space to itself; this problem maps "
+            "between two spaces (drop target=)"
+        )
+    if not problem.is_hermitian:
+        _check_hermitian(problem.expr)
 
 
-def lowest_levels(
-    expr: LadderExpr,
-    space: FockSpace,
+def _pick(problem: Problem, k: int, method: str) -> str:
+    if method == "auto":
+        return choose_method(problem.estimate, k, problem.memory_limit)
+    _check_fits(problem.estimate, method, k, problem.memory_limit)
+    return method
+
+
+def _store_matrix(problem: Problem, store_matrix: bool | None, k: int = 1) -> bool:
+    if store_matrix is not None:
+        return bool(store_matrix)
+    estimate = problem.estimate
+    limit = problem.memory_limit if problem.memory_limit is not None else estimate.available_bytes
+    budget = float("inf") if limit is None else MEMORY_BUDGET * limit
+    return estimate.build_peak_bytes + estimate.krylov_bytes(_lanczos_vectors(k)) <= budget
+
+
+def _native_ground(
+    problem: Problem,
+    tol: float,
+    v0: npt.ArrayLike | None,
+    seed: int,
+    max_iterations: int | None,
+    store_matrix: bool | None,
+) -> tuple[float, npt.NDArray[Any], float, int, int]:
+    """The four-vector Lanczos in Rust: (energy, vector, residual, steps, products)."""
+    start = _start_vector(v0, problem, seed)
+    stored = _store_matrix(problem, store_matrix)
+    if stored:
+        problem.check_build_fits()
+    # Each Lanczos step costs about two products (the second pass regenerates the
+    # Krylov vectors), so a product budget allows half as many steps.
+    max_steps = 400 if max_iterations is None else max(2, min(400, max_iterations // 2))
+    restarts = 8 if max_iterations is None else max(0, max_iterations // (2 * max_steps) - 1)
+    energy, vector, residual, steps, products, _, converged = problem.native.lanczos_ground(
+        tol, max_steps, restarts, seed, start, problem.pool, stored
+    )
+    if not converged:
+        raise ConvergenceError(
+            f"Lanczos reached a residual of {residual:.3e} after {products} products, "
+            f"short of tol={tol}; raise max_iterations or tol, or pass v0"
+        )
+    return float(energy), vector, float(residual), int(steps), int(products)
+
+
+def _lanczos_vectors(k: int) -> int:
+    """Vectors the Rust Lanczos solvers keep: four for one level; the thick-restart
+    basis (``2k + 8``) plus one for several."""
+    return 5 if k == 1 else 2 * k + 9
+
+
+def _native_levels(
+    problem: Problem,
+    k: int,
+    tol: float,
+    v0: npt.ArrayLike | None,
+    seed: int,
+    max_iterations: int | None,
+    store_matrix: bool | None,
+) -> tuple[npt.NDArray[np.float64], npt.NDArray[Any], npt.NDArray[np.float64], int]:
+    """Thick-restart Lanczos in Rust for ``k >= 2`` levels (every degenerate copy that
+    fits in ``k``): (energies, vectors, residuals, products)."""
+    if not hasattr(problem.native, "lanczos_levels"):
+        raise ValueError(
+            "method='lanczos' for several levels is not available for this space type; "
+            "use method='csr' or 'operator'"
+        )
+    start = None if v0 is None else check_vector(problem.space, v0, "v0")
+    if start is not None and problem.is_real and start.dtype.kind == "c":
+        start = np.ascontiguousarray(start.real) if np.any(start.real) else None
+    stored = _store_matrix(problem, store_matrix, k)
+    if stored:
+        problem.check_build_fits()
+    max_products = 20_000 if max_iterations is None else int(max_iterations)
+    energies, vectors, residuals, products, _, converged = problem.native.lanczos_levels(
+        k, tol, max_products, seed, start, problem.pool, stored
+    )
+    if not converged:
+        worst = int(np.argmax(residuals / np.maximum(1.0, np.abs(energies))))
+        raise ConvergenceError(
+            f"Lanczos (k={k}) reached a residual of {float(residuals[worst]):.3e} on level "
+            f"{worst} after {products} products, short of tol={tol}; raise max_iterations "
+            "or tol, or pass v0"
+        )
+    return np.asarray(energies, dtype=np.float64), vectors, np.asarray(residuals), int(products)
+
+
+def _require_converged(
+    method: str, energies: npt.NDArray[Any], residuals: npt.NDArray[Any], tol: float
+) -> None:
+    if method == "dense":
+        return
+    for i, (e, r) in enumerate(zip(energies, residuals, strict=True)):
+        if not _converged(float(r), float(e), tol):
+            raise ConvergenceError(
+                f"{method}: level {i} (E = {float(e):.10g}) has residual ‖Hv − Ev‖ = "
+                f"{float(r):.3e}, above 10·tol·max(1, |E|) for tol={tol}; raise "
+                "max_iterations or tol"
+            )
+
+
+def solve_levels(
+    problem: Problem,
     k: int = 4,
     *,
     method: Method = "auto",
     tol: float = 1e-9,
     v0: npt.ArrayLike | None = None,
-    threads: int | None = None,
     seed: int = 0,
     max_iterations: int | None = None,
-    memory_limit: int | None = None,
+    store_matrix: bool | None = None,
 ) -> Levels:
-    """The ``k`` lowest eigenvalues and eigenvectors of a Hermitian expression.
-
-    Parameters
-    ----------
-    expr : LadderExpr
-        A Hermitian Hamiltonian.
-    space : FockSpace
-        The basis (a sector, or the full truncated space).
-    k : int
-        Number of levels (1 <= k <= dim).
-    method : {"auto", "dense", "csr", "operator", "lanczos"}
-        ``"auto"`` chooses from the size and the free memory (see
-        :func:`choose_method`); ``"lanczos"`` only computes one level.
-    tol : float
-        Target relative accuracy; eigsh's ``tol``.
-    v0 : array_like, optional
-        Start vector (warm start from a nearby solution).
-    threads : int, optional
-        Threads for builds and products (default: all cores).
-    seed : int
-        Seed of the start vector when ``v0`` is not given: results are reproducible.
-    max_iterations : int, optional
-        eigsh's ``maxiter``.
-    memory_limit : int, optional
-        Bytes the solve may plan to use (default: available memory).
-
-    Returns
-    -------
-    Levels
-
-    Raises
-    ------
-    NotHermitianError
-        When ``expr`` is not Hermitian.
-    SizeLimitError
-        When no method fits in memory.
-    ConvergenceError
-        When the iterative solver does not converge.
-
-    Examples
-    --------
-    >>> import fockmill as fm
-    >>> space = fm.FockSpace(modes=2, cutoff=1, total=1)
-    >>> h = fm.raising(0) * fm.lowering(1) + fm.raising(1) * fm.lowering(0)
-    >>> fm.lowest_levels(h, space, k=2).energies.round(6).tolist()
-    [-1.0, 1.0]
-    """
+    """:func:`lowest_levels` on a prepared problem."""
     t0 = time.perf_counter()
-    e = as_expr(expr)
-    s = check_space(space)
-    threads = check_threads(threads)
-    memory_limit = check_memory_limit(memory_limit)
-    _validate(k, method, tol, s, v0, seed, max_iterations)
-    _check_hermitian(e)
-    prepare(e, s)  # charge and mode errors before any size estimate
-    estimate = estimate_memory(e, s, threads=threads)
-    chosen = method
-    if method == "auto":
-        chosen = choose_method(estimate, k, memory_limit)
-    else:
-        _check_fits(estimate, chosen, k, memory_limit)
+    _validate(k, method, tol, problem, v0, seed, max_iterations)
+    chosen = _pick(problem, k, method)
     if chosen == "lanczos":
-        if k != 1:
-            raise ValueError(
-                "method='lanczos' computes only the ground state; use method='operator' "
-                "for several levels"
+        if k == 1:
+            energy, vector, residual, _, products = _native_ground(
+                problem, tol, v0, seed, max_iterations, store_matrix
             )
-        g = ground_state(
-            e,
-            s,
-            method="lanczos",
-            tol=tol,
-            v0=v0,
-            threads=threads,
-            seed=seed,
-            memory_limit=memory_limit,
-        )
+            energies = np.array([energy])
+            vectors = vector[:, np.newaxis]
+            residuals = np.array([residual])
+        else:
+            energies, vectors, residuals, products = _native_levels(
+                problem, k, tol, v0, seed, max_iterations, store_matrix
+            )
         return Levels(
-            np.array([g.energy]),
-            g.vector[:, np.newaxis],
-            np.array([g.residual]),
-            g.method,
-            g.products,
-            time.perf_counter() - t0,
-            (1,),
+            energies=energies,
+            vectors=vectors,
+            residuals=residuals,
+            method="lanczos",
+            products=products,
+            seconds=time.perf_counter() - t0,
+            degeneracies=_degeneracy_groups(energies, max(1e3 * tol, 1e-9)),
         )
-    energies, vectors, residuals, target = _solve_levels(
-        e, s, k, chosen, tol, v0, threads, max_iterations, memory_limit, seed
+    energies, vectors, residuals, target = _eigsh_levels(
+        problem, k, chosen, tol, v0, max_iterations, seed
     )
+    _require_converged(chosen, energies, residuals, tol)
     products = 0 if target is None else target.products
     degeneracy_tol = max(1e3 * tol, 1e-9)
     return Levels(
@@ -486,30 +567,102 @@ def lowest_levels(
     )
 
 
-def _probe_degeneracy(
-    target: _Counted,
-    space: FockSpace,
-    energies: npt.NDArray[np.float64],
-    vectors: npt.NDArray[Any],
-    tol: float,
-    degeneracy_tol: float,
-    seed: int,
-    max_iterations: int | None,
-) -> tuple[npt.NDArray[np.float64], npt.NDArray[Any]]:
-    """Add the ground level's degenerate copies (found by deflation), up to 16."""
-    rng = np.random.default_rng(seed + 1)
-    scale = max(1.0, abs(float(energies[0])))
-    while energies.size < min(16, space.dim - 2):
-        e, w = _lowest_outside(target, vectors, scale, tol, rng, max_iterations)
-        if e - energies[0] > degeneracy_tol * scale:
-            break
-        energies = np.append(energies, e)
-        vectors = np.column_stack([vectors, w])
-    return energies, vectors
+def lowest_levels(
+    expr: LadderExpr | Problem,
+    space: Any = None,
+    k: int = 4,
+    *,
+    method: Method = "auto",
+    tol: float = 1e-9,
+    v0: npt.ArrayLike | None = None,
+    threads: int | None = None,
+    seed: int = 0,
+    max_iterations: int | None = None,
+    memory_limit: int | None = None,
+    store_matrix: bool | None = None,
+) -> Levels:
+    """The ``k`` lowest eigenvalues and eigenvectors of a Hermitian expression.
+
+    Parameters
+    ----------
+    expr : LadderExpr or Problem
+        A Hermitian Hamiltonian, or a prepared problem (:func:`fockmill.prepare`; then
+        ``space`` is omitted and its compiled operator is reused).
+    space : FockSpace
+        The basis (a sector, or the full truncated space).
+    k : int
+        Number of levels (1 <= k <= dim).
+    method : {"auto", "dense", "csr", "operator", "lanczos"}
+        ``"auto"`` chooses from the size and the free memory (see
+        :func:`choose_method`). ``"lanczos"`` runs in Rust: for one level a four-vector
+        Lanczos, for several a thick-restart Lanczos (Wu & Simon 2000) keeping
+        ``2k + 9`` vectors that returns every copy of a degenerate level that fits in
+        ``k``; both on a CSR matrix kept in Rust when it fits (``store_matrix``).
+    tol : float
+        Target relative accuracy; eigsh's ``tol``.
+    v0 : array_like, optional
+        Start vector (warm start from a nearby solution). It is normalised and mixed
+        with seeded noise of relative weight ``START_NOISE`` (1e-4), so that a start
+        vector without weight in the ground state's symmetry sector still converges to
+        the true lowest levels.
+    threads : int, optional
+        Threads for builds and products (default: all cores).
+    seed : int
+        Seed of the start vector and of the noise: results are reproducible.
+    max_iterations : int, optional
+        Most matrix-vector products (approximately, for eigsh: it counts restarts of
+        about ``max(2k+1, 20)`` products each).
+    memory_limit : int, optional
+        Bytes the solve may plan to use (default: available memory).
+    store_matrix : bool or None
+        For ``method="lanczos"``: run on a CSR matrix kept inside Rust instead of the
+        matrix-free product; None stores it when the matrix and the solver's vectors
+        fit in the memory budget.
+
+    Returns
+    -------
+    Levels
+
+    Raises
+    ------
+    NotHermitianError
+        When ``expr`` is not Hermitian.
+    SizeLimitError
+        When no method fits in memory.
+    ConvergenceError
+        When an iterative solver misses its tolerance: every returned level has
+        ``‖Hv − Ev‖ <= 10·tol·max(1, |E|)``.
+
+    Examples
+    --------
+    >>> import fockmill as fm
+    >>> space = fm.FockSpace(modes=2, cutoff=1, total=1)
+    >>> h = fm.raising(0) * fm.lowering(1) + fm.raising(1) * fm.lowering(0)
+    >>> fm.lowest_levels(h, space, k=2).energies.round(6).tolist()
+    [-1.0, 1.0]
+    """
+    if isinstance(expr, Problem) and space is not None and not _is_space_like(space):
+        # lowest_levels(problem, k) written positionally
+        space, k = None, space
+    problem = as_problem(expr, space, threads=threads, memory_limit=memory_limit)
+    return solve_levels(
+        problem,
+        k,
+        method=method,
+        tol=tol,
+        v0=v0,
+        seed=seed,
+        max_iterations=max_iterations,
+        store_matrix=store_matrix,
+    )
 
 
-def _warn_cutoff(space: FockSpace, vector: npt.NDArray[Any], threshold: float | None) -> None:
-    if threshold is None:
+def _is_space_like(obj: object) -> bool:
+    return hasattr(obj, "dim") and hasattr(obj, "modes")
+
+
+def _warn_cutoff(space: Any, vector: npt.NDArray[Any], threshold: float | None) -> None:
+    if threshold is None or not hasattr(space, "binding_cutoffs"):
         return
     weights = top_level_weights(space, vector)
     binding = space.binding_cutoffs()
@@ -525,13 +678,80 @@ def _warn_cutoff(space: FockSpace, vector: npt.NDArray[Any], threshold: float | 
             "cutoff may be too low. Raise it (see fm.converge_cutoffs) or pass "
             "cutoff_warning=None if the truncation is intended",
             CutoffWarning,
-            stacklevel=3,
+            stacklevel=4,
         )
 
 
+def solve_ground(
+    problem: Problem,
+    *,
+    method: Method = "auto",
+    tol: float = 1e-9,
+    v0: npt.ArrayLike | None = None,
+    seed: int = 0,
+    max_iterations: int | None = None,
+    cutoff_warning: float | None = 1e-6,
+    store_matrix: bool | None = None,
+) -> GroundState:
+    """:func:`ground_state` on a prepared problem."""
+    t0 = time.perf_counter()
+    _validate(1, method, tol, problem, v0, seed, max_iterations)
+    chosen = _pick(problem, 1, method)
+    if chosen == "lanczos":
+        energy, vector, residual, steps, products = _native_ground(
+            problem, tol, v0, seed, max_iterations, store_matrix
+        )
+        _warn_cutoff(problem.space, vector, cutoff_warning)
+        return GroundState(
+            energy=energy,
+            vector=vector,
+            residual=residual,
+            method="lanczos",
+            products=products,
+            iterations=steps,
+            seconds=time.perf_counter() - t0,
+            degeneracy=None,
+            converged=True,
+        )
+    degeneracy_tol = max(1e3 * tol, 1e-9)
+    products = 0
+    if chosen == "dense":
+        energies, vectors, residuals, _ = _eigsh_levels(
+            problem, min(17, problem.dim), chosen, tol, v0, max_iterations, seed
+        )
+    else:
+        energies, vectors, _, target = _eigsh_levels(
+            problem, 1, chosen, tol, v0, max_iterations, seed
+        )
+        assert target is not None
+        ncv = min(problem.dim, 20)
+        maxiter = None if max_iterations is None else max(1, max_iterations // ncv)
+        energies, vectors = _probe_degeneracy(
+            target, problem.dim, energies, vectors, tol, degeneracy_tol, seed, maxiter
+        )
+        residuals = _residuals(target.inner, energies, vectors)
+        products = target.products
+    _require_converged(chosen, energies[:1], residuals[:1], tol)
+    degeneracy = _degeneracy_groups(energies, degeneracy_tol)[0]
+    energy = float(energies[0])
+    vector = vectors[:, 0]
+    _warn_cutoff(problem.space, vector, cutoff_warning)
+    return GroundState(
+        energy=energy,
+        vector=vector,
+        residual=float(residuals[0]),
+        method=chosen,
+        products=products,
+        iterations=products,
+        seconds=time.perf_counter() - t0,
+        degeneracy=int(degeneracy),
+        converged=True,
+    )
+
+
 def ground_state(
-    expr: LadderExpr,
-    space: FockSpace,
+    expr: LadderExpr | Problem,
+    space: Any = None,
     *,
     method: Method = "auto",
     tol: float = 1e-9,
@@ -547,24 +767,25 @@ def ground_state(
 
     Parameters
     ----------
-    expr : LadderExpr
-        A Hermitian Hamiltonian.
+    expr : LadderExpr or Problem
+        A Hermitian Hamiltonian, or a prepared problem (:func:`fockmill.prepare`; then
+        ``space`` is omitted and its compiled operator is reused).
     space : FockSpace
         The basis.
     method : {"auto", "dense", "csr", "operator", "lanczos"}
-        See :func:`lowest_levels`; ``"lanczos"`` keeps only four vectors in memory and
-        never stores the matrix.
+        See :func:`lowest_levels`; ``"lanczos"`` keeps only four vectors in memory.
     tol : float
         Target: ``‖Hv − Ev‖ <= tol · max(1, |E|)`` (Lanczos), eigsh's ``tol`` otherwise.
     v0 : array_like, optional
-        Start vector (warm start).
+        Start vector (warm start), mixed with a little seeded noise (see
+        :func:`lowest_levels`).
     threads : int, optional
         Threads for builds and products (default: all cores).
     seed : int
-        Seed of the Lanczos start vector when ``v0`` is not given (results are
-        reproducible for a given seed, whatever the thread count).
+        Seed of the start vector when ``v0`` is not given (results are reproducible
+        for a given seed, whatever the thread count).
     max_iterations : int, optional
-        Most products (Lanczos) or eigsh's ``maxiter``.
+        Most matrix-vector products (see :func:`lowest_levels`).
     memory_limit : int, optional
         Bytes the solve may plan to use (default: available memory).
     store_matrix : bool or None
@@ -594,77 +815,14 @@ def ground_state(
     >>> round(fm.ground_state(h, space).energy, 9)
     -1.0
     """
-    t0 = time.perf_counter()
-    e = as_expr(expr)
-    s = check_space(space)
-    threads = check_threads(threads)
-    memory_limit = check_memory_limit(memory_limit)
-    _validate(1, method, tol, s, v0, seed, max_iterations)
-    _check_hermitian(e)
-    native = prepare(e, s)
-    estimate = estimate_memory(e, s, threads=threads)
-    chosen = method
-    if method == "auto":
-        chosen = choose_method(estimate, 1, memory_limit)
-    else:
-        _check_fits(estimate, chosen, 1, memory_limit)
-    if chosen == "lanczos":
-        start = _start_vector(v0, s, native.is_real)
-        if store_matrix is None:
-            limit = memory_limit if memory_limit is not None else estimate.available_bytes
-            budget = float("inf") if limit is None else MEMORY_BUDGET * limit
-            store_matrix = estimate.build_peak_bytes + estimate.krylov_bytes(5) <= budget
-        max_steps = 400
-        restarts = 8 if max_iterations is None else max(0, max_iterations // max_steps)
-        energy, vector, residual, steps, products, _, converged = native.lanczos_ground(
-            tol, max_steps, restarts, seed, start, threads, bool(store_matrix)
-        )
-        if not converged:
-            raise ConvergenceError(
-                f"Lanczos reached a residual of {residual:.3e} after {products} products, "
-                f"short of tol={tol}; raise max_iterations or tol, or pass v0"
-            )
-        _warn_cutoff(s, vector, cutoff_warning)
-        return GroundState(
-            energy=float(energy),
-            vector=vector,
-            residual=float(residual),
-            method="lanczos",
-            products=int(products),
-            iterations=int(steps),
-            seconds=time.perf_counter() - t0,
-            degeneracy=None,
-            converged=True,
-        )
-    degeneracy_tol = max(1e3 * tol, 1e-9)
-    products = 0
-    if chosen == "dense":
-        energies, vectors, residuals, _ = _solve_levels(
-            e, s, min(17, s.dim), chosen, tol, v0, threads, max_iterations, memory_limit, seed
-        )
-    else:
-        energies, vectors, residuals, target = _solve_levels(
-            e, s, 1, chosen, tol, v0, threads, max_iterations, memory_limit, seed
-        )
-        assert target is not None
-        energies, vectors = _probe_degeneracy(
-            target, s, energies, vectors, tol, degeneracy_tol, seed, max_iterations
-        )
-        products = target.products
-    degeneracy = _degeneracy_groups(energies, degeneracy_tol)[0]
-    energy = float(energies[0])
-    vector = vectors[:, 0]
-    residual = float(residuals[0])
-    converged = residual <= 10 * max(tol, 1e-12) * max(1.0, abs(energy))
-    _warn_cutoff(s, vector, cutoff_warning)
-    return GroundState(
-        energy=energy,
-        vector=vector,
-        residual=residual,
-        method=chosen,
-        products=products,
-        iterations=products,
-        seconds=time.perf_counter() - t0,
-        degeneracy=int(degeneracy),
-        converged=bool(converged),
+    problem = as_problem(expr, space, threads=threads, memory_limit=memory_limit)
+    return solve_ground(
+        problem,
+        method=method,
+        tol=tol,
+        v0=v0,
+        seed=seed,
+        max_iterations=max_iterations,
+        cutoff_warning=cutoff_warning,
+        store_matrix=store_matrix,
     )

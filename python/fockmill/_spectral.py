@@ -11,7 +11,6 @@ import numpy as np
 import numpy.typing as npt
 import scipy.linalg as sla
 
-from fockmill._between import BetweenOperator, same_space
 from fockmill._expr import LadderExpr
 from fockmill._krylov import (
     MEMORY_BUDGET,
@@ -92,17 +91,15 @@ def _start(
 ) -> tuple[LadderExpr, Any, npt.NDArray[Any], float]:
     """Validated Hamiltonian, target space, ``A|ψ⟩`` and the reference energy."""
     from fockmill._evolve import _expectation_function
-    from fockmill._operator import build_operator
+    from fockmill._problem import prepare
 
     e = as_expr(H)
     a = as_expr(A)
     check_hermitian(e)
     v = check_state(space, psi, "psi")
-    tgt = space if target is None else target
-    if same_space(space, tgt):
-        phi = build_operator(a, space, threads=threads) @ v
-    else:
-        phi = BetweenOperator(a, space, tgt, threads=threads) @ v
+    probe = prepare(a, space, target=target, threads=threads)
+    tgt = probe.target
+    phi = probe.matvec(v)
     if reference_energy is None:
         ref = _expectation_function(e, space, threads)(v).real
     else:

@@ -2,39 +2,52 @@
 
 A sweep writes one SQLite file. Each finished point is committed in its own
 transaction (write-ahead log, ``synchronous=FULL``), so a sweep killed at any moment
-leaves only whole rows behind and can resume where it stopped.
+leaves only whole rows behind and can resume where it stopped. A new file is written
+under a temporary name and appears under its real name only once its schema and meta
+data are committed, so a crash while creating it leaves nothing a later run refuses.
 
-File layout
------------
+File layout (schema version 2)
+------------------------------
 ``meta(key TEXT PRIMARY KEY, value TEXT)``
-    ``format`` (always ``fockmill-results``), ``schema_version``, ``package_version``,
-    ``model_name``, ``model_fingerprint``, ``model_text_hash``, ``created``,
-    ``swept_parameters`` (JSON list), ``settings`` (JSON object: what is recorded).
-``points(point INTEGER PRIMARY KEY, parameters TEXT, energy REAL, gap REAL, levels TEXT,
-observables TEXT, residual REAL, method TEXT, seconds REAL, finished TEXT)``
-    One row per finished point; ``parameters`` holds every parameter value (swept or
-    default) as JSON, ``levels`` and ``observables`` are JSON too.
+    Every value is one JSON document: ``format`` (always ``"fockmill-results"``),
+    ``schema_version``, ``package_version``, ``created``, ``model_name``,
+    ``model_fingerprint``, ``model_text_hash``, ``dim``, ``points``,
+    ``swept_parameters`` (list of str), ``settings`` (object: quantities, levels,
+    entropy modes, method, tol, seed, max_iterations), ``mode_labels`` (list of str, one
+    per mode), ``units`` (object: parameter name or ``"energy"`` -> unit string).
+``points(point INTEGER PRIMARY KEY, parameters TEXT, status TEXT, message TEXT,
+energy REAL, gap REAL, levels TEXT, observables TEXT, residual REAL, method TEXT,
+seconds REAL, finished TEXT)``
+    One row per attempted point. ``status`` is ``ok``, ``not_converged`` or ``failed``
+    with the reason in ``message``; numbers a failed point does not have are NULL.
+    ``parameters`` holds every parameter value (swept or default) as JSON, ``levels``
+    and ``observables`` are JSON too (non-finite values as null).
 """
 
 from __future__ import annotations
 
+import contextlib
 import json
 import math
 import os
 import sqlite3
+import uuid
 from collections.abc import Iterator, Mapping, Sequence
 from dataclasses import dataclass, field
 from datetime import UTC, datetime
 from pathlib import Path
-from types import TracebackType
-from typing import Any
+from types import MappingProxyType, TracebackType
+from typing import Any, Literal
 
 import numpy as np
 import numpy.typing as npt
 
+from fockmill.exceptions import StoreError
+
 __all__ = [
     "FORMAT_MARKER",
     "SCHEMA_VERSION",
+    "STATUSES",
     "PointResult",
     "ResultsStore",
     "StoreError",
@@ -44,10 +57,14 @@ __all__ = [
 FORMAT_MARKER = "fockmill-results"
 """Value of ``meta.format`` in every results file."""
 
-SCHEMA_VERSION = 1
+SCHEMA_VERSION = 2
 """Layout version of the results file; bumped on incompatible changes."""
 
+STATUSES: tuple[str, ...] = ("ok", "not_converged", "failed")
+"""Values of a point's ``status``."""
+
 _APPLICATION_ID = 0x464B4D4C  # "FKML": SQLite's header slot for a file-type tag
+_SQLITE_HEADER = b"SQLite format 3\x00"
 
 _SCHEMA = """
 CREATE TABLE meta (
@@ -57,11 +74,13 @@ CREATE TABLE meta (
 CREATE TABLE points (
     point INTEGER PRIMARY KEY,
     parameters TEXT NOT NULL,
-    energy REAL NOT NULL,
+    status TEXT NOT NULL,
+    message TEXT NOT NULL,
+    energy REAL,
     gap REAL,
     levels TEXT,
     observables TEXT NOT NULL,
-    residual REAL NOT NULL,
+    residual REAL,
     method TEXT NOT NULL,
     seconds REAL NOT NULL,
     finished TEXT NOT NULL
@@ -69,12 +88,9 @@ CREATE TABLE points (
 """
 
 _POINT_COLUMNS = (
-    "point, parameters, energy, gap, levels, observables, residual, method, seconds, finished"
+    "point, parameters, status, message, energy, gap, levels, observables, residual, method, "
+    "seconds, finished"
 )
-
-
-class StoreError(ValueError):
-    """A results file is missing, foreign, damaged, or belongs to another sweep."""
 
 
 def utc_now() -> str:
@@ -84,7 +100,7 @@ def utc_now() -> str:
 
 @dataclass(frozen=True)
 class PointResult:
-    """What one solved parameter point produced.
+    """What one attempted parameter point produced.
 
     Attributes
     ----------
@@ -92,8 +108,8 @@ class PointResult:
         Position of the point in the sweep's list of points.
     parameters : dict of str to float
         Every parameter value used at this point (swept values and defaults).
-    energy : float
-        Ground-state energy.
+    energy : float or None
+        Ground-state energy (None when the point failed).
     gap : float or None
         ``E1 − E0`` when recorded, else None.
     levels : tuple of float or None
@@ -102,26 +118,38 @@ class PointResult:
         Recorded ground-state observables as JSON-ready values (floats and nested
         lists): ``populations``, ``number_variance``, ``one_body`` (plus
         ``one_body_imag`` for complex states), ``entropy``, ``top_weight``.
-    residual : float
+    residual : float or None
         ``‖H v − E v‖`` of the returned ground vector.
     method : str
-        ``"dense"`` (full diagonalisation) or ``"csr"`` (sparse Lanczos on the matrix).
+        The solver method that ran (as in :attr:`fockmill.GroundState.method`).
     seconds : float
         Wall time spent on the point (assembly, solve and observables).
     finished : str
         UTC time the point finished, ISO 8601.
+    status : {"ok", "not_converged", "failed"}
+        ``"not_converged"``: the solver stopped short of its tolerance;
+        ``"failed"``: no result (an error, or a non-finite energy).
+    message : str
+        Why the point is not ``"ok"`` (empty when it is).
     """
 
     index: int
     parameters: dict[str, float]
-    energy: float
+    energy: float | None
     gap: float | None
     levels: tuple[float, ...] | None
     observables: dict[str, Any]
-    residual: float
+    residual: float | None
     method: str
     seconds: float
     finished: str
+    status: str = "ok"
+    message: str = ""
+
+    @property
+    def ok(self) -> bool:
+        """Whether the point was solved to its tolerance."""
+        return self.status == "ok"
 
 
 def _stack(values: Sequence[Any]) -> npt.NDArray[np.float64]:
@@ -143,16 +171,24 @@ def _stack(values: Sequence[Any]) -> npt.NDArray[np.float64]:
     return out
 
 
+def _nan_if_none(value: float | None) -> float:
+    return math.nan if value is None else float(value)
+
+
 @dataclass(frozen=True)
 class SweepTable:
-    """The finished points of a sweep, sorted by point index.
+    """The points of a sweep, sorted by point index.
 
     Attributes
     ----------
     rows : tuple of PointResult
-        One entry per finished point, ascending ``index``.
+        One entry per attempted point, ascending ``index`` (see ``status``).
     swept : tuple of str
         Names of the parameters that vary across the sweep (the table's key columns).
+    mode_labels : tuple of str
+        Label of each mode (``"cavity 0"``, ``"emitter 0"``, ...); empty when unknown.
+    units : Mapping[str, str]
+        Unit of a parameter or of ``"energy"`` (from the model file), when given.
 
     Examples
     --------
@@ -163,12 +199,19 @@ class SweepTable:
 
     rows: tuple[PointResult, ...]
     swept: tuple[str, ...] = field(default=())
+    mode_labels: tuple[str, ...] = field(default=())
+    units: Mapping[str, str] = field(default_factory=lambda: MappingProxyType({}))
 
     def __len__(self) -> int:
         return len(self.rows)
 
     def __iter__(self) -> Iterator[PointResult]:
         return iter(self.rows)
+
+    @property
+    def failed(self) -> tuple[PointResult, ...]:
+        """The rows whose status is not ``"ok"``."""
+        return tuple(r for r in self.rows if r.status != "ok")
 
     def quantities(self) -> tuple[str, ...]:
         """Names of the recorded quantities present in at least one row."""
@@ -190,12 +233,12 @@ class SweepTable:
         Returns
         -------
         dict of str to numpy.ndarray
-            ``index`` (int64); one float column per parameter; ``energy``, ``gap`` (NaN
-            where not recorded), ``residual``, ``seconds``; ``levels`` as
+            ``index`` (int64); one float column per parameter; ``energy``, ``gap``,
+            ``residual`` (NaN where not recorded or failed), ``seconds``; ``levels`` as
             ``(rows, k)``; each observable stacked along a first axis of length
             ``rows`` (``populations`` ``(rows, modes)``, ``one_body``
-            ``(rows, modes, modes)``, ``entropy`` ``(rows,)``, ...); ``method`` as a
-            string array.
+            ``(rows, modes, modes)``, ``entropy`` ``(rows,)``, ...); ``method`` and
+            ``status`` as string arrays.
         """
         rows = self.rows
         out: dict[str, npt.NDArray[Any]] = {
@@ -206,8 +249,8 @@ class SweepTable:
             names.extend(k for k in row.parameters if k not in names)
         for name in names:
             out[name] = np.array([r.parameters.get(name, np.nan) for r in rows], dtype=float)
-        out["energy"] = np.array([r.energy for r in rows], dtype=np.float64)
-        out["gap"] = np.array([np.nan if r.gap is None else r.gap for r in rows], dtype=float)
+        out["energy"] = np.array([_nan_if_none(r.energy) for r in rows], dtype=np.float64)
+        out["gap"] = np.array([_nan_if_none(r.gap) for r in rows], dtype=float)
         if any(r.levels is not None for r in rows):
             out["levels"] = _stack([r.levels for r in rows])
         keys: list[str] = []
@@ -215,14 +258,62 @@ class SweepTable:
             keys.extend(k for k in row.observables if k not in keys)
         for key in keys:
             out[key] = _stack([r.observables.get(key) for r in rows])
-        out["residual"] = np.array([r.residual for r in rows], dtype=np.float64)
+        out["residual"] = np.array([_nan_if_none(r.residual) for r in rows], dtype=np.float64)
         out["seconds"] = np.array([r.seconds for r in rows], dtype=np.float64)
         out["method"] = np.array([r.method for r in rows], dtype=str)
+        out["status"] = np.array([r.status for r in rows], dtype=str)
         return out
 
 
 def _finite_or_none(value: float | None) -> float | None:
     return None if value is None or not math.isfinite(value) else float(value)
+
+
+def json_ready(value: Any) -> Any:
+    """``value`` with non-finite floats replaced by None (strict JSON has no NaN)."""
+    if isinstance(value, float | np.floating):
+        return float(value) if math.isfinite(value) else None
+    if isinstance(value, Mapping):
+        return {str(k): json_ready(v) for k, v in value.items()}
+    if isinstance(value, list | tuple):
+        return [json_ready(v) for v in value]
+    if isinstance(value, np.ndarray):
+        return json_ready(value.tolist())
+    if isinstance(value, np.integer):
+        return int(value)
+    return value
+
+
+def _dumps(value: Any) -> str:
+    return json.dumps(json_ready(value), sort_keys=True, allow_nan=False)
+
+
+def _describe_file(file: Path) -> str:
+    """What a file that is not an SQLite database looks like, for messages."""
+    try:
+        with open(file, "rb") as handle:
+            head = handle.read(4096)
+    except OSError:
+        return "it could not be read"
+    if not head:
+        return "it is empty"
+    if head.startswith(_SQLITE_HEADER[:6]):
+        return "it is an SQLite database, damaged"
+    try:
+        text = head.decode("utf-8")
+    except UnicodeDecodeError:
+        text = "\x00"
+    if "\x00" in text:
+        return "it is not an SQLite database (binary data of another kind)"
+    if "[model]" in text:
+        return (
+            "it is not an SQLite database but looks like a model file; run "
+            f"'fockmill sweep {file.name} --out RESULTS.sqlite' to make a results file"
+        )
+    return "it is not an SQLite database (it holds text)"
+
+
+Purpose = Literal["read", "resume"]
 
 
 class ResultsStore:
@@ -252,13 +343,16 @@ class ResultsStore:
     # -- opening -------------------------------------------------------------------
 
     @classmethod
-    def open(cls, path: str | os.PathLike[str]) -> ResultsStore:
+    def open(cls, path: str | os.PathLike[str], *, purpose: Purpose = "read") -> ResultsStore:
         """Open an existing results file and check it is one of ours, intact.
 
         Parameters
         ----------
         path : str or path-like
             The results file.
+        purpose : {"read", "resume"}
+            Only changes the advice in error messages (read another file, or write
+            to another path).
 
         Returns
         -------
@@ -268,7 +362,7 @@ class ResultsStore:
         ------
         StoreError
             The file does not exist, is not SQLite, is an SQLite file of something else,
-            has a newer schema, or fails SQLite's quick integrity check.
+            has another schema version, or fails SQLite's quick integrity check.
         """
         file = Path(path)
         if file.is_dir():
@@ -283,24 +377,28 @@ class ResultsStore:
             )
         connection = cls._connect(file)
         try:
-            cls._check_ours(connection, file)
+            cls._check_ours(connection, file, purpose)
+            cls._configure(connection)
         except BaseException:
             connection.close()
             raise
-        cls._configure(connection)
         return cls(connection, file)
 
     @classmethod
-    def create(cls, path: str | os.PathLike[str], meta: Mapping[str, str]) -> ResultsStore:
+    def create(cls, path: str | os.PathLike[str], meta: Mapping[str, Any]) -> ResultsStore:
         """Create a new, empty results file.
+
+        The file is written under a temporary name in the same directory and linked
+        to ``path`` only after its schema and meta data are committed.
 
         Parameters
         ----------
         path : str or path-like
             Where to write; must not exist yet. Parent directories are created.
-        meta : Mapping[str, str]
-            Extra ``meta`` entries (model fingerprint, name, settings ...). The format
-            marker, schema version and creation time are added here.
+        meta : Mapping[str, Any]
+            Extra ``meta`` entries (model fingerprint, name, settings ...), any
+            JSON-ready values. The format marker, schema version and creation time are
+            added here.
 
         Returns
         -------
@@ -320,23 +418,35 @@ class ResultsStore:
                 "another path"
             )
         file.parent.mkdir(parents=True, exist_ok=True)
-        connection = cls._connect(file)
-        cls._configure(connection)
-        entries = {
+        entries: dict[str, Any] = {
             "format": FORMAT_MARKER,
-            "schema_version": str(SCHEMA_VERSION),
+            "schema_version": SCHEMA_VERSION,
             "package_version": str(__version__),
             "created": utc_now(),
         }
-        entries.update({k: str(v) for k, v in meta.items() if k not in entries})
-        with _transaction(connection):
-            connection.execute(f"PRAGMA application_id = {_APPLICATION_ID}")
-            connection.execute(f"PRAGMA user_version = {SCHEMA_VERSION}")
-            for statement in _SCHEMA.split(";"):
-                if statement.strip():
-                    connection.execute(statement)
-            connection.executemany("INSERT INTO meta(key, value) VALUES (?, ?)", entries.items())
-        return cls(connection, file)
+        entries.update({k: v for k, v in meta.items() if k not in entries})
+        temporary = file.with_name(f".{file.name}.{uuid.uuid4().hex[:12]}.creating")
+        try:
+            connection = cls._connect(temporary)
+            try:
+                with _transaction(connection):
+                    connection.execute(f"PRAGMA application_id = {_APPLICATION_ID}")
+                    connection.execute(f"PRAGMA user_version = {SCHEMA_VERSION}")
+                    for statement in _SCHEMA.split(";"):
+                        if statement.strip():
+                            connection.execute(statement)
+                    connection.executemany(
+                        "INSERT INTO meta(key, value) VALUES (?, ?)",
+                        [(k, _dumps(v)) for k, v in entries.items()],
+                    )
+            finally:
+                connection.close()
+            _publish(temporary, file)
+        finally:
+            for leftover in (temporary, temporary.with_name(temporary.name + "-journal")):
+                with contextlib.suppress(FileNotFoundError):
+                    leftover.unlink()
+        return cls.open(file, purpose="resume")
 
     @staticmethod
     def _connect(file: Path) -> sqlite3.Connection:
@@ -349,34 +459,45 @@ class ResultsStore:
         connection.execute("PRAGMA synchronous = FULL")
 
     @staticmethod
-    def _check_ours(connection: sqlite3.Connection, file: Path) -> None:
+    def _check_ours(connection: sqlite3.Connection, file: Path, purpose: Purpose) -> None:
         """Raise StoreError unless ``file`` is an intact fockmill results file.
 
         Only reads: a foreign database is left exactly as it was.
         """
         name = repr(str(file))
+        if purpose == "read":
+            advice = (
+                "give the path of a file written by a fockmill sweep ('fockmill sweep "
+                "MODEL.toml --out RESULTS.sqlite' or run_sweep(..., store=...))"
+            )
+        else:
+            advice = "choose another output path; this file is left untouched"
         try:
             tables = {
                 row[0]
                 for row in connection.execute("SELECT name FROM sqlite_master WHERE type='table'")
             }
         except sqlite3.DatabaseError as exc:
+            what = _describe_file(file)
+            if what.endswith("damaged"):
+                raise StoreError(
+                    f"{name} is damaged (SQLite says: {exc}); restore it from a copy or "
+                    "re-run the sweep into a new file"
+                ) from exc
             raise StoreError(
-                f"{name} is not a fockmill results file (SQLite says: {exc}); give the path of "
-                "a file written by a fockmill sweep, or a new path to start one"
+                f"{name} is not a fockmill results file: {what} (SQLite says: {exc}); {advice}"
             ) from exc
         marker = None
         if {"meta", "points"} <= tables:
             row = connection.execute("SELECT value FROM meta WHERE key='format'").fetchone()
-            marker = None if row is None else row[0]
+            marker = None if row is None else _loads_marker(row[0])
         if marker != FORMAT_MARKER:
             raise StoreError(
-                f"{name} is an SQLite file but not a fockmill results file (no "
-                f"{FORMAT_MARKER!r} marker); choose another output path, this file is left "
-                "untouched"
+                f"{name} is an SQLite database of another program, not a fockmill results "
+                f"file (no {FORMAT_MARKER!r} marker); {advice}"
             )
         row = connection.execute("SELECT value FROM meta WHERE key='schema_version'").fetchone()
-        version = int(row[0]) if row is not None and str(row[0]).isdigit() else -1
+        version = _loads_version(None if row is None else row[0])
         if version != SCHEMA_VERSION:
             raise StoreError(
                 f"{name} has results-file schema version {version}, this fockmill reads "
@@ -418,19 +539,34 @@ class ResultsStore:
         return self._path
 
     @property
-    def meta(self) -> dict[str, str]:
-        """All ``meta`` entries."""
-        return dict(self._connection.execute("SELECT key, value FROM meta").fetchall())
+    def meta(self) -> dict[str, Any]:
+        """All ``meta`` entries, decoded from JSON."""
+        return {
+            key: json.loads(value)
+            for key, value in self._connection.execute("SELECT key, value FROM meta")
+        }
 
     @property
     def swept(self) -> tuple[str, ...]:
-        """Names of the swept parameters (from ``meta.swept_parameters``)."""
-        text = self.meta.get("swept_parameters")
-        return tuple(json.loads(text)) if text else ()
+        """Names of the swept parameters (``meta.swept_parameters``)."""
+        return tuple(self.meta.get("swept_parameters") or ())
 
-    def finished_indices(self) -> set[int]:
-        """Indices of the points already committed."""
-        return {row[0] for row in self._connection.execute("SELECT point FROM points")}
+    @property
+    def mode_labels(self) -> tuple[str, ...]:
+        """Label of each mode (``meta.mode_labels``; empty when not stored)."""
+        return tuple(str(label) for label in self.meta.get("mode_labels") or ())
+
+    @property
+    def units(self) -> dict[str, str]:
+        """Units of parameters and of ``"energy"`` (``meta.units``; empty when not given)."""
+        return {str(k): str(v) for k, v in (self.meta.get("units") or {}).items()}
+
+    def finished_indices(self, *, include_failed: bool = True) -> set[int]:
+        """Indices of the points stored (all, or only those with status ``ok``)."""
+        query = "SELECT point FROM points"
+        if not include_failed:
+            query += " WHERE status = 'ok'"
+        return {row[0] for row in self._connection.execute(query)}
 
     def stored_parameters(self) -> dict[int, dict[str, float]]:
         """Point index -> the parameter values stored for it."""
@@ -440,13 +576,18 @@ class ResultsStore:
         }
 
     def rows(self) -> list[PointResult]:
-        """Every committed point, by ascending index."""
+        """Every stored point, by ascending index."""
         cursor = self._connection.execute(f"SELECT {_POINT_COLUMNS} FROM points ORDER BY point")
         return [self._decode(row) for row in cursor]
 
     def to_table(self) -> SweepTable:
-        """The committed points as a :class:`SweepTable`."""
-        return SweepTable(rows=tuple(self.rows()), swept=self.swept)
+        """The stored points as a :class:`SweepTable` (with mode labels and units)."""
+        return SweepTable(
+            rows=tuple(self.rows()),
+            swept=self.swept,
+            mode_labels=self.mode_labels,
+            units=MappingProxyType(self.units),
+        )
 
     def integrity_ok(self) -> bool:
         """True when SQLite's full ``PRAGMA integrity_check`` reports no problem."""
@@ -455,46 +596,85 @@ class ResultsStore:
 
     @staticmethod
     def _decode(row: tuple[Any, ...]) -> PointResult:
-        point, parameters, energy, gap, levels, observables, residual, method, seconds, done = row
+        (
+            point,
+            parameters,
+            status,
+            message,
+            energy,
+            gap,
+            levels,
+            observables,
+            residual,
+            method,
+            seconds,
+            done,
+        ) = row
         return PointResult(
             index=int(point),
             parameters=json.loads(parameters),
-            energy=float(energy),
+            energy=None if energy is None else float(energy),
             gap=None if gap is None else float(gap),
             levels=None if levels is None else tuple(json.loads(levels)),
             observables=json.loads(observables),
-            residual=float(residual),
+            residual=None if residual is None else float(residual),
             method=str(method),
             seconds=float(seconds),
             finished=str(done),
+            status=str(status),
+            message=str(message),
         )
 
     # -- writing -------------------------------------------------------------------
 
-    def add_point(self, result: PointResult) -> None:
-        """Commit one finished point in its own transaction.
+    def add_point(self, result: PointResult, *, replace_failed: bool = False) -> None:
+        """Commit one point in its own transaction.
+
+        Non-finite numbers are stored as NULL; an ``ok`` point whose energy is not
+        finite is stored as ``failed``.
+
+        Parameters
+        ----------
+        result : PointResult
+            The point.
+        replace_failed : bool
+            Replace a stored row of the same index whose status is not ``ok``
+            (retrying failed points).
 
         Raises
         ------
         StoreError
             The point is stored already (two sweeps writing one file?).
         """
+        status, message = result.status, result.message
+        if status not in STATUSES:
+            raise ValueError(f"status must be one of {STATUSES}; got {status!r}")
+        energy = _finite_or_none(result.energy)
+        if energy is None and status == "ok":
+            status, message = "failed", f"the energy is not finite ({result.energy})"
         values = (
             int(result.index),
-            json.dumps(result.parameters, sort_keys=True),
-            float(result.energy),
+            _dumps(result.parameters),
+            status,
+            str(message),
+            energy,
             _finite_or_none(result.gap),
-            None if result.levels is None else json.dumps(list(result.levels)),
-            json.dumps(result.observables, sort_keys=True),
-            float(result.residual),
+            None if result.levels is None else _dumps(list(result.levels)),
+            _dumps(result.observables),
+            _finite_or_none(result.residual),
             result.method,
             float(result.seconds),
             result.finished,
         )
         try:
             with _transaction(self._connection):
+                if replace_failed:
+                    self._connection.execute(
+                        "DELETE FROM points WHERE point = ? AND status != 'ok'", (values[0],)
+                    )
                 self._connection.execute(
-                    f"INSERT INTO points({_POINT_COLUMNS}) VALUES (?,?,?,?,?,?,?,?,?,?)", values
+                    f"INSERT INTO points({_POINT_COLUMNS}) VALUES (?,?,?,?,?,?,?,?,?,?,?,?)",
+                    values,
                 )
         except sqlite3.IntegrityError as exc:
             raise StoreError(
@@ -502,12 +682,41 @@ class ResultsStore:
                 "sweep writing the same file? Give each sweep its own output file"
             ) from exc
 
-    def set_meta(self, key: str, value: str) -> None:
-        """Insert or replace one ``meta`` entry (own transaction)."""
+    def set_meta(self, key: str, value: Any) -> None:
+        """Insert or replace one ``meta`` entry (any JSON-ready value; own transaction)."""
         with _transaction(self._connection):
             self._connection.execute(
-                "INSERT OR REPLACE INTO meta(key, value) VALUES (?, ?)", (key, value)
+                "INSERT OR REPLACE INTO meta(key, value) VALUES (?, ?)", (key, _dumps(value))
             )
+
+
+def _loads_marker(text: object) -> object:
+    try:
+        return json.loads(str(text))
+    except ValueError:
+        return None
+
+
+def _loads_version(text: object) -> int:
+    try:
+        value = json.loads(str(text))
+    except ValueError:
+        return -1
+    return value if isinstance(value, int) and not isinstance(value, bool) else -1
+
+
+def _publish(temporary: Path, file: Path) -> None:
+    """Give the finished ``temporary`` file its real name, never replacing a file."""
+    try:
+        os.link(temporary, file)  # atomic, and fails if ``file`` appeared meanwhile
+    except FileExistsError:
+        raise StoreError(
+            f"{str(file)!r} exists already (created while this sweep started); choose another path"
+        ) from None
+    except OSError:  # a file system without hard links
+        if file.exists():
+            raise StoreError(f"{str(file)!r} exists already; choose another path") from None
+        os.replace(temporary, file)
 
 
 class _transaction:

@@ -346,9 +346,9 @@ def thermal(
     if isinstance(seed, bool) or not isinstance(seed, numbers.Integral) or seed < 0:
         raise ValueError(f"seed must be a non-negative integer; got {seed!r}")
     check_hermitian(e)
-    from fockmill._prepare import prepare
+    from fockmill._prepare import compile_operator
 
-    prepare(e, space)  # charge and modes, before any work
+    compile_operator(e, space)  # charge and modes, before any work
     obs = check_observables(observables, space)
     chosen = method
     if method == "auto":

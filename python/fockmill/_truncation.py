@@ -31,11 +31,21 @@ class CutoffScan:
     top_weights : list of numpy.ndarray
         Top-level weight of every mode at each.
     converged : bool
-        Whether the last step met both tolerances.
+        Whether every scanned mode converged (see ``mode_converged``).
     ground : GroundState
         The ground state at the last cutoffs.
     space : FockSpace
         The space at the last cutoffs.
+    dims : list of int
+        Dimension of the space at each step (the cost of each solve).
+    raised : list of tuple of int
+        The modes whose cutoffs were raised to reach each step (``()`` for the start).
+    mode_converged : tuple of bool
+        Per mode: its top-level weight at the last cutoffs is below ``weight_tol`` and,
+        if it was raised, its last raise moved the energy by less than ``energy_tol``.
+        Modes that were not scanned report their weight test only.
+    energy_changes : dict of int to float
+        Per raised mode: ``|ΔE|`` caused by its last raise.
     """
 
     cutoffs: list[tuple[int, ...]]
@@ -45,6 +55,9 @@ class CutoffScan:
     ground: GroundState
     space: FockSpace
     dims: list[int] = field(default_factory=list)
+    raised: list[tuple[int, ...]] = field(default_factory=list)
+    mode_converged: tuple[bool, ...] = ()
+    energy_changes: dict[int, float] = field(default_factory=dict)
 
 
 def converge_cutoffs(
@@ -56,15 +69,21 @@ def converge_cutoffs(
     step: int = 1,
     max_cutoff: int = 200,
     modes: Sequence[int] | None = None,
+    one_at_a_time: bool = True,
     **solve_options: Any,
 ) -> CutoffScan:
-    """Raise cutoffs until the ground energy and the top-level weights settle.
+    """Raise cutoffs, only where the state needs it, until the ground state settles.
 
-    Starting from ``space``'s cutoffs, each round raises the cutoff of every mode in
-    ``modes`` (default: every mode whose cutoff truncates the sector) by ``step`` and
-    solves again. It stops when the energy changed by less than ``energy_tol`` (absolute)
-    since the previous round *and* every raised mode's top-level weight is below
-    ``weight_tol``.
+    Each round solves, measures every mode's top-level weight (the probability of its
+    highest kept level) and raises by ``step`` the cutoff of the scanned mode with the
+    largest weight at or above ``weight_tol`` (``one_at_a_time=True``, the default:
+    measured priority), or of every such mode at once (``one_at_a_time=False``). Modes
+    whose top level carries no weight are never raised, so the dimension grows only
+    along the modes that need it. A mode has converged when its top-level weight is
+    below ``weight_tol`` and its last raise (if any) changed the energy by less than
+    ``energy_tol``; when all weights are small but the last change was not, the
+    heaviest mode is raised once more to check. The scan stops when every scanned mode
+    has converged, or when the modes that still need raising are at ``max_cutoff``.
 
     Parameters
     ----------
@@ -73,13 +92,17 @@ def converge_cutoffs(
     space : FockSpace
         Starting space; total, weights and modulus are kept.
     energy_tol, weight_tol : float
-        Stopping tolerances.
+        Tolerances (absolute energy change per raise; top-level probability).
     step : int
-        Cutoff increment per round.
+        Cutoff increment per raise.
     max_cutoff : int
-        Never raise a cutoff beyond this; the scan then stops unconverged.
+        Never raise a cutoff beyond this.
     modes : sequence of int, optional
-        Modes whose cutoffs are raised.
+        Modes that may be raised (default: every mode whose cutoff truncates the
+        sector).
+    one_at_a_time : bool, default True
+        Raise one mode per round (the heaviest top level) or all modes above
+        ``weight_tol`` together.
     **solve_options
         Passed to :func:`ground_state` (``method``, ``tol``, ``threads``...). The
         cutoff warning is off during the scan: the scan is the diagnostic.
@@ -87,6 +110,13 @@ def converge_cutoffs(
     Returns
     -------
     CutoffScan
+        With the per-step history and the per-mode verdict ``mode_converged``.
+
+    Raises
+    ------
+    TypeError, ValueError
+        For non-integer ``step``/``max_cutoff``/``modes``, non-positive tolerances or
+        ``max_cutoff`` below the starting cutoffs.
     """
     e = as_expr(expr)
     s = check_space(space)
@@ -110,26 +140,59 @@ def converge_cutoffs(
             raise TypeError(f"modes must list integer mode indices; got {i!r}")
         if not 0 <= i < s.modes:
             raise ValueError(f"mode {i} is not in the space (0..{s.modes - 1})")
+    chosen = sorted({int(i) for i in chosen})
     solve_options.setdefault("cutoff_warning", None)
     scan_cutoffs: list[tuple[int, ...]] = []
     energies: list[float] = []
     weights: list[npt.NDArray[np.float64]] = []
     dims: list[int] = []
+    raised_log: list[tuple[int, ...]] = []
+    changes: dict[int, float] = {}
     current = s
+    raised_now: tuple[int, ...] = ()
     while True:
         g = ground_state(e, current, **solve_options)
         w = top_level_weights(current, g.vector)
+        if energies:
+            for i in raised_now:
+                changes[i] = abs(g.energy - energies[-1])
         scan_cutoffs.append(current.cutoffs)
         energies.append(g.energy)
         weights.append(w)
         dims.append(current.dim)
-        settled_weights = all(w[i] < weight_tol for i in chosen)
-        settled_energy = len(energies) >= 2 and abs(energies[-1] - energies[-2]) < energy_tol
-        if (settled_energy and settled_weights) or not chosen:
-            return CutoffScan(scan_cutoffs, energies, weights, True, g, current, dims)
-        raised = list(current.cutoffs)
-        for i in chosen:
-            raised[i] = min(raised[i] + step, max_cutoff)
-        if tuple(raised) == current.cutoffs:
-            return CutoffScan(scan_cutoffs, energies, weights, False, g, current, dims)
-        current = current.with_cutoffs(raised)
+        raised_log.append(raised_now)
+
+        def settled(i: int, w: npt.NDArray[np.float64] = w) -> bool:
+            return bool(w[i] < weight_tol) and changes.get(i, 0.0) < energy_tol
+
+        verdict = tuple(settled(i) for i in range(current.modes))
+        raisable = [i for i in chosen if current.cutoffs[i] < max_cutoff]
+        heavy = [i for i in raisable if w[i] >= weight_tol]
+        if not heavy:
+            unsettled = [i for i in raisable if not settled(i)]
+            if all(verdict[i] for i in chosen):
+                heavy = []
+            elif unsettled:
+                # Weights are small but the last raise still moved the energy: check again.
+                heavy = [max(unsettled, key=lambda i: (w[i], -i))]
+        if not heavy:
+            done = all(verdict[i] for i in chosen)
+            return CutoffScan(
+                scan_cutoffs,
+                energies,
+                weights,
+                done,
+                g,
+                current,
+                dims,
+                raised_log,
+                verdict,
+                changes,
+            )
+        if one_at_a_time:
+            heavy = [max(heavy, key=lambda i: (w[i], -i))]
+        new_cutoffs = list(current.cutoffs)
+        for i in heavy:
+            new_cutoffs[i] = min(new_cutoffs[i] + step, max_cutoff)
+        raised_now = tuple(heavy)
+        current = current.with_cutoffs(new_cutoffs)

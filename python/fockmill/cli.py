@@ -13,12 +13,13 @@ import json
 import math
 import os
 import sys
+import time
 from collections.abc import Sequence
 from pathlib import Path
 from typing import IO, Any, NoReturn
 
 from fockmill._store import PointResult, ResultsStore, SweepTable
-from fockmill.exceptions import ConvergenceError
+from fockmill.exceptions import ConvergenceError, PoolStartError
 
 __all__ = ["main"]
 
@@ -98,8 +99,9 @@ def build_parser() -> argparse.ArgumentParser:
         "sweep",
         help="run the model file's parameter sweep into a results file",
         description="Run the sweep grid of MODEL.toml and commit every finished point to "
-        "RESULTS.sqlite. Running the same command again resumes: finished points are kept "
-        "and skipped. The file refuses a different model, grid or record list.",
+        "RESULTS.sqlite. Running the same command again resumes: stored points are kept "
+        "and skipped (points that failed or did not converge too, unless --retry-failed). "
+        "The file refuses a different model, grid, quantity list or solver setting.",
     )
     sweep.add_argument("model", metavar="MODEL.toml", help="model file with a sweep grid")
     sweep.add_argument(
@@ -129,14 +131,20 @@ def build_parser() -> argparse.ArgumentParser:
         metavar="N",
         help="consecutive points per task (default: about four tasks per worker, at most 64)",
     )
+    sweep.add_argument(
+        "--retry-failed",
+        action="store_true",
+        help="when resuming, solve again the points that failed or did not converge",
+    )
     sweep.add_argument("--no-progress", action="store_true", help="hide the progress bar")
 
     show = commands.add_parser(
         "show",
         help="print a results file",
-        description="Print the finished points of RESULTS.sqlite. 'table' shows scalar "
-        "quantities and short per-mode lists; 'csv' flattens every recorded value into "
-        "columns; 'json' prints the meta data and every row.",
+        description="Print the points of RESULTS.sqlite. 'table' shows scalar "
+        "quantities and short per-mode lists, then the points that failed or did not "
+        "converge and why; 'csv' flattens every recorded value into columns; 'json' prints "
+        "the meta data and every row.",
     )
     show.add_argument("results", metavar="RESULTS.sqlite", help="results file")
     show.add_argument(
@@ -211,8 +219,17 @@ def _demo_model() -> Any:
     return parse_model_text(text)
 
 
-def _solver_options(model_file: Any) -> dict[str, object]:
-    return dict(getattr(model_file, "solver", None) or {})
+def _solver_keywords(model_file: Any) -> dict[str, Any]:
+    """The file's ``[solver]`` table as run_sweep keywords (the same words)."""
+    solver = dict(getattr(model_file, "solver", None) or {})
+    keys = ("method", "tol", "seed", "max_iterations", "threads")
+    return {key: solver[key] for key in keys if key in solver}
+
+
+def _units(model_file: Any) -> dict[str, str]:
+    """The model file's units (parameter or "energy" -> unit), when it gives any."""
+    units = getattr(model_file, "units", None) or {}
+    return {str(k): str(v) for k, v in dict(units).items()}
 
 
 # -- formatting -----------------------------------------------------------------------
@@ -240,6 +257,8 @@ def _table_columns(table: SweepTable) -> list[str]:
     for row in table.rows:
         columns.extend(k for k in row.observables if k not in columns and k not in _MATRIX_KEYS)
     columns += ["residual", "method", "seconds"]
+    if any(r.status != "ok" for r in table.rows):
+        columns.append("status")
     return columns
 
 
@@ -255,9 +274,11 @@ def _cell(row: PointResult, column: str) -> str:
     if column == "levels":
         return "-" if row.levels is None else _short_list(row.levels)
     if column == "residual":
-        return f"{row.residual:.1e}"
+        return "-" if row.residual is None else f"{row.residual:.1e}"
+    if column == "status":
+        return row.status
     if column == "method":
-        return row.method
+        return row.method or "-"
     if column == "seconds":
         return f"{row.seconds:.3f}"
     value = row.observables.get(column)
@@ -266,7 +287,7 @@ def _cell(row: PointResult, column: str) -> str:
     return _short_list(value) if isinstance(value, list) else _number(float(value))
 
 
-def format_table(table: SweepTable, meta: dict[str, str] | None = None) -> str:
+def format_table(table: SweepTable, meta: dict[str, Any] | None = None) -> str:
     """Aligned text table of a sweep (matrices are left to the CSV/JSON formats)."""
     lines: list[str] = []
     if meta:
@@ -275,6 +296,12 @@ def format_table(table: SweepTable, meta: dict[str, str] | None = None) -> str:
             f"# model {meta.get('model_name', '?')} (fingerprint "
             f"{meta.get('model_fingerprint', '?')}), {len(table)} of {total} points finished"
         )
+        labels = list(table.mode_labels)
+        if labels and labels != [f"mode {i}" for i in range(len(labels))]:
+            lines.append(f"# modes (order of per-mode lists): {', '.join(labels)}")
+        units = dict(table.units)
+        if units:
+            lines.append("# units: " + ", ".join(f"{k} in {v}" for k, v in units.items()))
     columns = _table_columns(table)
     cells = [[_cell(row, c) for c in columns] for row in table.rows]
     widths = [max(len(c), *(len(r[i]) for r in cells)) for i, c in enumerate(columns)]
@@ -282,7 +309,20 @@ def format_table(table: SweepTable, meta: dict[str, str] | None = None) -> str:
     lines.extend("  ".join(v.rjust(w) for v, w in zip(r, widths, strict=True)) for r in cells)
     if any(k in row.observables for row in table.rows for k in _MATRIX_KEYS):
         lines.append("# one_body matrices are not shown here; use --format csv or json")
+    lines.extend(_failure_lines(table))
     return "\n".join(lines)
+
+
+def _failure_lines(table: SweepTable) -> list[str]:
+    """The points that failed or did not converge, with their parameters and reasons."""
+    failed = table.failed
+    if not failed:
+        return []
+    lines = [f"# failed points ({len(failed)}; run the sweep again with --retry-failed to retry):"]
+    for row in failed:
+        where = ", ".join(f"{name}={row.parameters[name]:g}" for name in table.swept)
+        lines.append(f"#   point {row.index} ({where}): {row.status}: {row.message}")
+    return lines
 
 
 def _flatten(prefix: str, value: Any, out: dict[str, Any]) -> None:
@@ -307,6 +347,8 @@ def format_csv(table: SweepTable) -> str:
             _flatten(key, value, flat)
         flat.update(residual=row.residual, method=row.method, seconds=row.seconds)
         flat["finished"] = row.finished
+        flat["status"] = row.status
+        flat["message"] = row.message
         flat_rows.append(flat)
     columns: list[str] = []
     for flat in flat_rows:
@@ -331,21 +373,32 @@ def _row_dict(row: PointResult) -> dict[str, Any]:
         "method": row.method,
         "seconds": row.seconds,
         "finished": row.finished,
+        "status": row.status,
+        "message": row.message,
     }
 
 
-def format_json(table: SweepTable, meta: dict[str, str]) -> str:
-    """Meta data and every row as one JSON document."""
-    return json.dumps({"meta": meta, "rows": [_row_dict(r) for r in table.rows]}, indent=2)
+def format_json(table: SweepTable, meta: dict[str, Any]) -> str:
+    """Meta data and every row as one JSON document (plain JSON, no NaN)."""
+    from fockmill._store import json_ready
+
+    document = {"meta": meta, "rows": [_row_dict(r) for r in table.rows]}
+    return json.dumps(json_ready(document), indent=2, allow_nan=False)
 
 
-def _format_point(row: PointResult, model: Any, mode_labels: Sequence[str]) -> str:
+def _format_point(
+    row: PointResult, model: Any, mode_labels: Sequence[str], total_seconds: float
+) -> str:
     """Human-readable report of one solved point (``fockmill solve``)."""
     entries: list[tuple[str, str]] = [
         ("model", f"{model.name} (dim {model.space.dim}, {model.space.modes} modes)"),
         ("parameters", ", ".join(f"{k}={v:g}" for k, v in row.parameters.items())),
     ]
-    if row.levels is not None:
+    if row.status != "ok":
+        entries.append(("status", f"{row.status}: {row.message}"))
+    if row.energy is None:
+        pass
+    elif row.levels is not None:
         entries.append(("energies", "  ".join(f"E{k}={e:.10g}" for k, e in enumerate(row.levels))))
     else:
         entries.append(("energy", f"E0={row.energy:.10g}"))
@@ -365,7 +418,15 @@ def _format_point(row: PointResult, model: Any, mode_labels: Sequence[str]) -> s
             entries.append((key, named))
         else:
             entries.append((key, f"{float(value):.10g}"))
-    entries.append(("residual", f"{row.residual:.2e}  ({row.method}, {row.seconds:.3f} s)"))
+    if row.residual is not None:
+        entries.append(("residual", f"{row.residual:.2e}  ({row.method})"))
+    entries.append(
+        (
+            "time",
+            f"{total_seconds:.3f} s total (solve {row.seconds:.3f} s, the rest: reading "
+            "the file and preparing the model)",
+        )
+    )
     width = max(len(name) for name, _ in entries)
     lines = [f"{name:<{width}}  {text}" for name, text in entries]
     for key, matrix in matrices:
@@ -393,6 +454,7 @@ def _parse_overrides(items: Sequence[str]) -> dict[str, float]:
 def _command_solve(args: argparse.Namespace, out: IO[str]) -> int:
     from fockmill._sweep import run_sweep
 
+    started = time.perf_counter()
     model_file = _load_model(args.model)
     model = model_file.model
     overrides = _parse_overrides(args.overrides)
@@ -401,27 +463,31 @@ def _command_solve(args: argparse.Namespace, out: IO[str]) -> int:
         raise UsageError(
             f"--set names unknown parameter(s) {unknown}; the model has {sorted(model.parameters)}"
         )
-    record = tuple(dict.fromkeys((*model_file.record, "levels")))
-    levels = max(int(model_file.levels), 2 if "gap" in record else 1)
+    quantities = tuple(dict.fromkeys((*model_file.quantities, "levels")))
+    levels = max(int(model_file.levels), 2 if "gap" in quantities else 1)
     levels = min(levels, model.space.dim)
     if levels < 2:
-        record = tuple(r for r in record if r != "gap")
+        quantities = tuple(q for q in quantities if q != "gap")
     table = run_sweep(
         model,
         [overrides],
-        record=record,
+        quantities=quantities,
         levels=levels,
-        solver_options=_solver_options(model_file),
         entropy_modes=model_file.entropy_modes or None,
         executor="serial",
         progress=False,
+        **_solver_keywords(model_file),
     )
     row = table.rows[0]
+    total = time.perf_counter() - started
     if args.format == "json":
-        print(json.dumps(_row_dict(row), indent=2), file=out)
+        from fockmill._store import json_ready
+
+        document = {**_row_dict(row), "total_seconds": total}
+        print(json.dumps(json_ready(document), indent=2, allow_nan=False), file=out)
     else:
-        print(_format_point(row, model, model.mode_labels), file=out)
-    return EXIT_OK
+        print(_format_point(row, model, table.mode_labels, total), file=out)
+    return EXIT_OK if row.status == "ok" else EXIT_FAILED
 
 
 def _dask_client(args: argparse.Namespace) -> Any:
@@ -447,6 +513,7 @@ def _run_file_sweep(
     workers: int | None,
     chunk: int | None,
     progress: bool,
+    retry_failed: bool = False,
 ) -> SweepTable:
     from fockmill._sweep import run_sweep
 
@@ -455,20 +522,21 @@ def _run_file_sweep(
             f"{model_file.path or 'the model file'} defines no sweep grid; add one, or use "
             "'fockmill solve' for a single point"
         )
-    levels = int(model_file.levels)
     return run_sweep(
         model_file.model,
-        model_file.sweep.points(),
+        model_file.sweep,
         store=results,
-        record=tuple(model_file.record),
-        levels=levels,
-        solver_options=_solver_options(model_file),
+        quantities=tuple(model_file.quantities),
+        levels=int(model_file.levels),
         entropy_modes=model_file.entropy_modes or None,
         executor=executor,
         workers=workers,
         chunk=chunk,
         progress=progress,
+        retry_failed=retry_failed,
+        units=_units(model_file),
         model_text_hash=model_file.text_hash,
+        **_solver_keywords(model_file),
     )
 
 
@@ -495,6 +563,7 @@ def _command_sweep(args: argparse.Namespace, out: IO[str]) -> int:
             workers=args.workers,
             chunk=args.chunk,
             progress=not args.no_progress,
+            retry_failed=args.retry_failed,
         )
     finally:
         if client is not None:
@@ -502,14 +571,26 @@ def _command_sweep(args: argparse.Namespace, out: IO[str]) -> int:
             client.close()
             if cluster is not None:
                 cluster.close()
-    print(f"{len(table)} points in {args.out}", file=out)
+    print(_summary(table, args.out), file=out)
     return EXIT_OK
+
+
+def _summary(table: SweepTable, path: str | Path) -> str:
+    """``N points in FILE`` and, when some are not ok, how many and where to look."""
+    text = f"{len(table)} points in {path}"
+    counts: dict[str, int] = {}
+    for row in table.failed:
+        counts[row.status] = counts.get(row.status, 0) + 1
+    if counts:
+        parts = [f"{n} {status.replace('_', ' ')}" for status, n in sorted(counts.items())]
+        text += f" ({', '.join(parts)}; see 'fockmill show {path}')"
+    return text
 
 
 def _open_results(path: str) -> ResultsStore:
     if not Path(path).is_file():
         raise UsageError(f"results file {path!r} not found")
-    return ResultsStore.open(path)
+    return ResultsStore.open(path, purpose="read")
 
 
 def _command_show(args: argparse.Namespace, out: IO[str]) -> int:
@@ -531,7 +612,7 @@ def _command_plot(args: argparse.Namespace, out: IO[str]) -> int:
 
     quantities = [q.strip() for q in args.y.split(",") if q.strip()]
     with _open_results(args.results) as store:
-        path = plot_sweep(store, args.out, x=args.x, y=quantities)
+        path = plot_sweep(store, args.out, x=args.x, y=quantities, mode_labels=store.mode_labels)
     print(f"wrote {path}", file=out)
     return EXIT_OK
 
@@ -569,7 +650,7 @@ def _command_demo(args: argparse.Namespace, out: IO[str]) -> int:
             directory / f"{DEMO_STEM}.png",
             y=[q for q in wanted if q in table.quantities()],
             title=f"{model_file.model.name} (invented example)",
-            mode_labels=model_file.model.mode_labels,
+            mode_labels=table.mode_labels,
         )
         print(f"figure: {figure}", file=out)
     except ImportError as exc:
@@ -626,7 +707,7 @@ def main(argv: Sequence[str] | None = None, *, out: IO[str] | None = None) -> in
     except UsageError as exc:
         _report(str(exc))
         return EXIT_USAGE
-    except (ConvergenceError, MemoryError) as exc:
+    except (ConvergenceError, MemoryError, PoolStartError) as exc:
         print(f"{PROGRAM}: failed: {exc}", file=sys.stderr)
         return EXIT_FAILED
     except KeyError as exc:

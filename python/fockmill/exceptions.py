@@ -1,7 +1,9 @@
 """Exceptions and warnings raised by fockmill.
 
 Every class subclasses the builtin that callers already catch, so ``except ValueError``
-keeps working; the specific classes let callers tell the cases apart.
+keeps working; the specific classes let callers tell the cases apart. Every exception
+class fockmill raises is defined here, and this module imports nothing from the
+package (the file-format modules import their errors from here).
 """
 
 from __future__ import annotations
@@ -11,9 +13,12 @@ __all__ = [
     "ConvergenceError",
     "CutoffWarning",
     "ModeIndexError",
+    "ModelFileError",
     "NotHermitianError",
+    "PoolStartError",
     "SizeLimitError",
     "SpaceError",
+    "StoreError",
 ]
 
 
@@ -45,9 +50,34 @@ class CutoffWarning(UserWarning):
     """A state has weight on the highest kept level of a mode whose cutoff truncates."""
 
 
-# Errors that belong to the file formats live beside them; re-exported here so that
-# every exception fockmill raises can be imported from one place.
-from fockmill._modelfile import ModelFileError  # noqa: E402
-from fockmill._store import StoreError  # noqa: E402
+class ModelFileError(ValueError):
+    """A model file is not valid TOML or does not follow the schema.
 
-__all__ += ["ModelFileError", "StoreError"]
+    Attributes
+    ----------
+    source : str
+        The file path (or ``"<string>"`` for text).
+    key : str or None
+        Dotted key path of the offending entry (``"sweep.U.num"``), None for the
+        whole file.
+    problem : str
+        What was expected and what was found.
+    """
+
+    def __init__(self, source: str, key: str | None, problem: str) -> None:
+        self.source = source
+        self.key = key
+        self.problem = problem
+        where = f"{source}: {key}: " if key else f"{source}: "
+        super().__init__(where + problem)
+
+    def __reduce__(self) -> tuple[type[ModelFileError], tuple[str, str | None, str]]:
+        return (type(self), (self.source, self.key, self.problem))
+
+
+class StoreError(ValueError):
+    """A results file is missing, foreign, damaged, or belongs to another sweep."""
+
+
+class PoolStartError(RuntimeError):
+    """The worker processes of a sweep's process pool could not start."""

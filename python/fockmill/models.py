@@ -14,8 +14,9 @@ jaynes_cummings_hubbard
     ``we``, ``g``, ``J``.
 kerr_network
     Nonlinear oscillators with per-mode frequencies and Kerr shifts, cross-Kerr and
-    exchange couplings; one unit-scale piece per family: ``omega``, ``kerr``,
-    ``cross_kerr``, ``exchange``.
+    exchange couplings; one unit-default scale factor per family: ``frequency_scale``,
+    ``kerr_scale``, ``cross_kerr_scale``, ``exchange_scale`` (the old names ``omega``,
+    ``kerr``, ``cross_kerr``, ``exchange`` still work, with a DeprecationWarning).
 with_drives
     Adds coherent (one-photon) and two-photon drives to any model and moves it to the
     Fock space those drives leave invariant; pieces ``drive``, ``two_photon``.
@@ -26,19 +27,23 @@ lists for :func:`bose_hubbard`.
 
 from __future__ import annotations
 
-import cmath
-import math
-import numbers
+# Imports carry a leading underscore so that dir(fockmill.models) lists only the builders.
+import cmath as _cmath
+import math as _math
+import numbers as _numbers
 from collections.abc import Iterable, Mapping, Sequence
-from typing import Any, TypeAlias, cast
+from typing import Any as _Any
+from typing import TypeAlias
+from typing import cast as _cast
 
-import numpy as np
+import numpy as _np
 
 from fockmill._expr import LadderExpr, MonomialKey
 from fockmill._model import Model
 from fockmill._space import FockSpace
 
 __all__ = [
+    "KERR_NETWORK_RENAMED",
     "Edge",
     "bose_hubbard",
     "chain_edges",
@@ -48,6 +53,23 @@ __all__ = [
     "ring_edges",
     "with_drives",
 ]
+
+KERR_NETWORK_RENAMED: dict[str, str] = {
+    "omega": "frequency_scale",
+    "kerr": "kerr_scale",
+    "cross_kerr": "cross_kerr_scale",
+    "exchange": "exchange_scale",
+}
+"""Deprecated parameter names of :func:`kerr_network` -> their current names.
+
+The old names read as if they set one frequency or one coupling; each actually scales
+a whole family of terms. They are accepted (with a DeprecationWarning) for one release.
+"""
+
+
+def __dir__() -> list[str]:
+    return sorted(__all__)
+
 
 Edge: TypeAlias = tuple[int, int] | tuple[int, int, complex]
 """A bond ``(i, j)`` or ``(i, j, t_ij)`` with a per-bond hopping factor ``t_ij``."""
@@ -60,7 +82,7 @@ Cutoff: TypeAlias = int | Sequence[int]
 
 def _index(value: object, what: str) -> int:
     """A non-negative integer index, or a clear error."""
-    if isinstance(value, (bool, np.bool_)) or not isinstance(value, (numbers.Integral)):
+    if isinstance(value, (bool, _np.bool_)) or not isinstance(value, (_numbers.Integral)):
         raise TypeError(f"{what} must be a non-negative integer; got {value!r}")
     index = int(value)
     if index < 0:
@@ -70,7 +92,7 @@ def _index(value: object, what: str) -> int:
 
 def _count(value: object, what: str, minimum: int) -> int:
     """An integer count >= ``minimum``, or a clear error."""
-    if isinstance(value, (bool, np.bool_)) or not isinstance(value, (numbers.Integral)):
+    if isinstance(value, (bool, _np.bool_)) or not isinstance(value, (_numbers.Integral)):
         raise TypeError(f"{what} must be an integer >= {minimum}; got {value!r}")
     count = int(value)
     if count < minimum:
@@ -80,20 +102,20 @@ def _count(value: object, what: str, minimum: int) -> int:
 
 def _real(value: object, what: str) -> float:
     """A finite real number, or a clear error."""
-    if isinstance(value, (bool, np.bool_)) or not isinstance(value, (numbers.Real)):
+    if isinstance(value, (bool, _np.bool_)) or not isinstance(value, (_numbers.Real)):
         raise TypeError(f"{what} must be a finite real number; got {value!r}")
     result = float(value)
-    if not math.isfinite(result):
+    if not _math.isfinite(result):
         raise ValueError(f"{what} must be finite; got {value!r}")
     return result
 
 
 def _amplitude(value: object, what: str) -> complex:
     """A finite real or complex number, or a clear error."""
-    if isinstance(value, (bool, np.bool_)) or not isinstance(value, (numbers.Number)):
+    if isinstance(value, (bool, _np.bool_)) or not isinstance(value, (_numbers.Number)):
         raise TypeError(f"{what} must be a finite real or complex number; got {value!r}")
-    result = complex(cast(complex, value))
-    if not cmath.isfinite(result):
+    result = complex(_cast(complex, value))
+    if not _cmath.isfinite(result):
         raise ValueError(f"{what} must be finite; got {value!r}")
     return result
 
@@ -255,7 +277,7 @@ def rectangular_edges(rows: int, cols: int, periodic: bool = False) -> list[tupl
 
 
 def _checked_edges(
-    edges: Iterable[Sequence[Any]], sites: int | None
+    edges: Iterable[Sequence[_Any]], sites: int | None
 ) -> tuple[list[tuple[int, int, complex]], int]:
     """Validate an edge list; return ``(i, j, t_ij)`` triples and the number of sites."""
     if isinstance(edges, (str, bytes)) or not isinstance(edges, Iterable):
@@ -263,7 +285,7 @@ def _checked_edges(
     checked: list[tuple[int, int, complex]] = []
     seen: dict[frozenset[int], int] = {}
     for k, edge in enumerate(edges):
-        if isinstance(edge, (str, bytes)) or not isinstance(edge, (Sequence, np.ndarray)):
+        if isinstance(edge, (str, bytes)) or not isinstance(edge, (Sequence, _np.ndarray)):
             raise TypeError(f"edge {k} must be a tuple (i, j) or (i, j, t); got {edge!r}")
         if len(edge) not in (2, 3):
             raise ValueError(
@@ -304,7 +326,7 @@ def _checked_edges(
 
 
 def bose_hubbard(
-    edges: Iterable[Sequence[Any]],
+    edges: Iterable[Sequence[_Any]],
     *,
     sites: int | None = None,
     hopping: float = 1.0,
@@ -487,7 +509,7 @@ def jaynes_cummings_hubbard(
 
 
 def _pair_table(
-    table: Mapping[tuple[int, int], Any] | None, modes: int, what: str, *, real: bool
+    table: Mapping[tuple[int, int], _Any] | None, modes: int, what: str, *, real: bool
 ) -> list[tuple[int, int, complex]]:
     """Validate a ``{(i, j): value}`` mapping of distinct, unordered mode pairs."""
     if table is None:
@@ -555,10 +577,12 @@ def kerr_network(
     Model
         Named ``"kerr-network"`` with labels ``"mode i"``. The given per-mode and
         per-pair values are built into four pieces, each multiplied by a unit-default
-        scale parameter that scales the whole family: ``"omega"`` (``Σ ω_i n_i``),
-        ``"kerr"`` (``Σ (K_i/2) a_i†² a_i²``), ``"cross_kerr"`` (``Σ χ_ij n_i n_j``)
-        and ``"exchange"`` (``Σ g_ij a_i† a_j + h.c.``). A family with no terms is a
-        zero piece.
+        scale factor of the whole family: ``"frequency_scale"`` (``Σ ω_i n_i``),
+        ``"kerr_scale"`` (``Σ (K_i/2) a_i†² a_i²``), ``"cross_kerr_scale"``
+        (``Σ χ_ij n_i n_j``) and ``"exchange_scale"`` (``Σ g_ij a_i† a_j + h.c.``). A
+        family with no terms is a zero piece. The names used before 0.2 (``"omega"``,
+        ``"kerr"``, ``"cross_kerr"``, ``"exchange"``) are deprecated aliases
+        (see ``KERR_NETWORK_RENAMED``).
 
     Raises
     ------
@@ -577,16 +601,18 @@ def kerr_network(
     Examples
     --------
     >>> model = kerr_network([1.0, 1.2], self_kerr=-0.1, couplings={(0, 1): 0.05}, cutoff=3)
-    >>> model.space.dim, model.parameters["exchange"]
+    >>> model.space.dim, model.parameters["exchange_scale"]
     (16, 1.0)
     """
-    if isinstance(frequencies, (str, bytes)) or not isinstance(frequencies, (Sequence, np.ndarray)):
+    if isinstance(frequencies, (str, bytes)) or not isinstance(
+        frequencies, (Sequence, _np.ndarray)
+    ):
         raise TypeError(f"frequencies must be a sequence of numbers; got {frequencies!r}")
     omegas = [_real(w, f"frequencies[{i}]") for i, w in enumerate(frequencies)]
     modes = len(omegas)
     if modes == 0:
         raise ValueError("frequencies is empty; give one frequency per mode")
-    if isinstance(self_kerr, (Sequence, np.ndarray)) and not isinstance(self_kerr, (str, bytes)):
+    if isinstance(self_kerr, (Sequence, _np.ndarray)) and not isinstance(self_kerr, (str, bytes)):
         kerrs = [_real(k, f"self_kerr[{i}]") for i, k in enumerate(self_kerr)]
         if len(kerrs) != modes:
             raise ValueError(
@@ -602,14 +628,21 @@ def kerr_network(
     for i, j, g in exchange:
         _add_exchange(exchange_terms, i, j, g)
     pieces = {
-        "omega": _number_sum(range(modes), omegas),
-        "kerr": _expr({((i, 2, 2),): complex(0.5 * k) for i, k in enumerate(kerrs)}),
-        "cross_kerr": _expr({_pair_key(i, 1, 1, j, 1, 1): chi for i, j, chi in cross}),
-        "exchange": _expr(exchange_terms),
+        "frequency_scale": _number_sum(range(modes), omegas),
+        "kerr_scale": _expr({((i, 2, 2),): complex(0.5 * k) for i, k in enumerate(kerrs)}),
+        "cross_kerr_scale": _expr({_pair_key(i, 1, 1, j, 1, 1): chi for i, j, chi in cross}),
+        "exchange_scale": _expr(exchange_terms),
     }
     parameters = dict.fromkeys(pieces, 1.0)
     labels = tuple(f"mode {i}" for i in range(modes))
-    return Model("kerr-network", space, pieces, parameters, mode_labels=labels)
+    return Model(
+        "kerr-network",
+        space,
+        pieces,
+        parameters,
+        mode_labels=labels,
+        renamed=KERR_NETWORK_RENAMED,
+    )
 
 
 def _drive_terms(
@@ -644,7 +677,7 @@ def _invariant_space(
         return FockSpace(space.modes, cutoffs, None, weights=space.weights)
     modulus = space.modulus or 0
     for step in charge_steps:
-        modulus = math.gcd(modulus, step)
+        modulus = _math.gcd(modulus, step)
     if modulus == 0:
         return FockSpace(
             space.modes, cutoffs, space.total, weights=space.weights, modulus=space.modulus
@@ -747,4 +780,5 @@ def with_drives(
         parameters,
         constant=model.constant,
         mode_labels=model.mode_labels,
+        renamed=model.renamed,
     )

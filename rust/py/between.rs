@@ -2,7 +2,7 @@
 //! shape (target.dim, source.dim), built as CSR or applied matrix-free.
 
 use crate::errors::{guarded, PyCoreError};
-use crate::{detached, InBlock, InTerm, InVector, NativeSpace, OwnedVector, Threads};
+use crate::{detached, owned_copy, InBlock, InTerm, InVector, NativeSpace, OwnedVector, Threads};
 use fockmill_core::between::{self, Between, RectAny};
 use fockmill_core::{FockSpace, RawTerm, Scalar};
 use num_complex::Complex64;
@@ -107,7 +107,7 @@ impl NativeBetween {
         guarded(|| {
             let (src, dst) = (&self.source, &self.target);
             let rows = dst.dim() as usize;
-            match (x.to_owned_vec(), &self.real) {
+            match (x.to_owned_vec()?, &self.real) {
                 (OwnedVector::Real(x), Some(op)) => {
                     let y = detached(py, threads, |r, s| {
                         let mut y = fockmill_core::memory::try_filled(rows, 0.0, "the product vector")?;
@@ -116,7 +116,7 @@ impl NativeBetween {
                     Ok(y.into_pyarray(py).into_any())
                 }
                 (owned, _) => {
-                    let x = complexify(owned);
+                    let x = owned.into_complex()?;
                     let y = detached(py, threads, |r, s| {
                         let mut y = fockmill_core::memory::try_filled(rows, Complex64::ZERO, "the product vector")?;
                         between::apply_many(src, dst, &self.complex, &x, &mut y, 1, r, s).map(|_| y)
@@ -145,7 +145,7 @@ impl NativeBetween {
             let len = rows.saturating_mul(k);
             match (&x, &self.real) {
                 (InBlock::Real(a), Some(op)) => {
-                    let xs: Vec<f64> = a.as_array().iter().copied().collect();
+                    let xs = owned_copy(a.len(), a.as_array().iter().copied(), "a copy of the input block")?;
                     let y = detached(py, threads, |r, s| {
                         let mut y = fockmill_core::memory::try_filled(len, 0.0, "the product block")?;
                         between::apply_many(src, dst, op, &xs, &mut y, k, r, s).map(|_| y)
@@ -154,9 +154,12 @@ impl NativeBetween {
                     Ok(arr.into_pyarray(py).into_any())
                 }
                 _ => {
+                    let what = "a copy of the input block";
                     let xs: Vec<Complex64> = match &x {
-                        InBlock::Real(a) => a.as_array().iter().map(|&v| Complex64::new(v, 0.0)).collect(),
-                        InBlock::Complex(a) => a.as_array().iter().copied().collect(),
+                        InBlock::Real(a) => {
+                            owned_copy(a.len(), a.as_array().iter().map(|&v| Complex64::new(v, 0.0)), what)?
+                        }
+                        InBlock::Complex(a) => owned_copy(a.len(), a.as_array().iter().copied(), what)?,
                     };
                     let y = detached(py, threads, |r, s| {
                         let mut y = fockmill_core::memory::try_filled(len, Complex64::ZERO, "the product block")?;
@@ -186,13 +189,6 @@ impl NativeBetween {
                 }),
             }
         })
-    }
-}
-
-fn complexify(owned: OwnedVector) -> Vec<Complex64> {
-    match owned {
-        OwnedVector::Real(v) => v.into_iter().map(|re| Complex64::new(re, 0.0)).collect(),
-        OwnedVector::Complex(v) => v,
     }
 }
 

@@ -3,15 +3,18 @@
 //! hands results to NumPy without copying. No algorithms live here.
 
 mod between;
+mod correlations;
 mod errors;
 mod interrupt;
+mod levels;
 
 use errors::{guarded, PyCoreError};
 use fockmill_core::build::{build_csr, CsrAny};
 use fockmill_core::estimate::estimate_nnz;
 use fockmill_core::lanczos::{self, FockMap, LanczosOptions};
+use fockmill_core::matvec::Product;
 use fockmill_core::{
-    matvec, observe, CoreError, CoreResult, FockSpace, Interrupt, Operator, RawTerm, Runner, Scalar,
+    observe, CoreError, CoreResult, FockSpace, Interrupt, Operator, RawTerm, Runner, Scalar,
 };
 use interrupt::SignalCheck;
 use num_complex::Complex64;
@@ -19,7 +22,7 @@ use numpy::ndarray::Array2;
 use numpy::{IntoPyArray, PyArray1, PyReadonlyArray1, PyReadonlyArray2, PyUntypedArrayMethods};
 use pyo3::exceptions::PyKeyboardInterrupt;
 use pyo3::prelude::*;
-use std::sync::Arc;
+use std::sync::{Arc, OnceLock};
 
 /// A thread pool kept between calls, so that repeated products do not start threads
 /// each time (a prepared problem holds one).
@@ -77,7 +80,7 @@ fn detached<T: Send>(
     let runner = runner.as_ref();
     let (result, raised) = py.detach(|| {
         let check = SignalCheck::new();
-        let result = work(&runner, &check);
+        let result = work(runner, &check);
         (result, check.take())
     });
     match result {
@@ -110,12 +113,36 @@ enum OwnedVector {
     Complex(Vec<Complex64>),
 }
 
-impl InVector<'_> {
-    fn to_owned_vec(&self) -> OwnedVector {
+/// A copy of `items` (`len` of them) allocated fallibly.
+fn owned_copy<T>(len: usize, items: impl Iterator<Item = T>, what: &str) -> PyResult<Vec<T>> {
+    let mut out = fockmill_core::memory::try_with_capacity(len, what).map_err(PyCoreError)?;
+    out.extend(items);
+    Ok(out)
+}
+
+impl OwnedVector {
+    /// As complex numbers (a real vector is copied, fallibly).
+    fn into_complex(self) -> PyResult<Vec<Complex64>> {
         match self {
-            InVector::Real(a) => OwnedVector::Real(a.as_array().iter().copied().collect()),
-            InVector::Complex(a) => OwnedVector::Complex(a.as_array().iter().copied().collect()),
+            OwnedVector::Real(v) => owned_copy(
+                v.len(),
+                v.into_iter().map(|re| Complex64::new(re, 0.0)),
+                "a complex copy of the vector",
+            ),
+            OwnedVector::Complex(v) => Ok(v),
         }
+    }
+}
+
+impl InVector<'_> {
+    fn to_owned_vec(&self) -> PyResult<OwnedVector> {
+        let what = "a copy of the input vector";
+        Ok(match self {
+            InVector::Real(a) => OwnedVector::Real(owned_copy(a.len(), a.as_array().iter().copied(), what)?),
+            InVector::Complex(a) => {
+                OwnedVector::Complex(owned_copy(a.len(), a.as_array().iter().copied(), what)?)
+            }
+        })
     }
 }
 
@@ -188,7 +215,7 @@ impl NativeSpace {
             .map_err(PyCoreError)?;
             if space.max_cutoff() <= u8::MAX as u32 {
                 let table = detached(py, threads, |runner, stop| {
-                    let mut out = vec![0u8; len];
+                    let mut out = fockmill_core::memory::try_filled(len, 0u8, "the occupation table")?;
                     observe::occupations_into(&space, &mut out, runner, stop)?;
                     Ok(out)
                 })?;
@@ -196,7 +223,7 @@ impl NativeSpace {
                 Ok(arr.into_pyarray(py).into_any())
             } else {
                 let table = detached(py, threads, |runner, stop| {
-                    let mut out = vec![0u16; len];
+                    let mut out = fockmill_core::memory::try_filled(len, 0u16, "the occupation table")?;
                     observe::occupations_into(&space, &mut out, runner, stop)?;
                     Ok(out)
                 })?;
@@ -237,7 +264,11 @@ impl NativeSpace {
                 )))
                 .into());
             }
-            let flat: Vec<i64> = occ.as_array().iter().copied().collect();
+            let flat: Vec<i64> = owned_copy(
+                occ.len(),
+                occ.as_array().iter().copied(),
+                "a copy of the occupations",
+            )?;
             let space = self.inner.clone();
             let ranks = detached(py, threads, |runner, _| observe::ranks(&space, &flat, runner))?;
             Ok(ranks.into_pyarray(py))
@@ -249,18 +280,63 @@ impl NativeSpace {
 type InTerm = (f64, f64, Vec<(usize, u32, u32)>);
 
 /// An operator prepared on a space: validated, merged terms ready for builds and products.
+/// The product kernel is built once, on first use, and reused by every product.
 #[pyclass(frozen, module = "fockmill._native")]
 struct NativeOperator {
     space: Arc<FockSpace>,
     real: Option<Operator<f64>>,
     complex: Operator<Complex64>,
+    /// Requested cut (None: automatic; 0: row kernel; k: left modes 0..k).
+    cut: Option<usize>,
+    real_product: OnceLock<Product<f64>>,
+    complex_product: OnceLock<Product<Complex64>>,
+}
+
+/// The kernel kept in `cell`, built on first use.
+fn product_in<'a, S: Scalar>(
+    cell: &'a OnceLock<Product<S>>,
+    space: &FockSpace,
+    op: &Operator<S>,
+    cut: Option<usize>,
+) -> CoreResult<&'a Product<S>> {
+    if let Some(p) = cell.get() {
+        return Ok(p);
+    }
+    let built = match cut {
+        None => Product::new(space, op),
+        Some(c) => Product::with_cut(space, op, c)?,
+    };
+    // Another thread may have won the race; either kernel is the same.
+    let _ = cell.set(built);
+    Ok(cell.get().expect("set above"))
+}
+
+impl NativeOperator {
+    fn real_product(&self, op: &Operator<f64>) -> CoreResult<&Product<f64>> {
+        product_in(&self.real_product, &self.space, op, self.cut)
+    }
+    fn complex_product(&self) -> CoreResult<&Product<Complex64>> {
+        product_in(&self.complex_product, &self.space, &self.complex, self.cut)
+    }
 }
 
 #[pymethods]
 impl NativeOperator {
     #[new]
-    fn new(space: &NativeSpace, terms: Vec<InTerm>) -> PyResult<Self> {
+    #[pyo3(signature = (space, terms, cut=None))]
+    fn new(space: &NativeSpace, terms: Vec<InTerm>, cut: Option<usize>) -> PyResult<Self> {
         guarded(|| {
+            if let Some(c) = cut {
+                if c > space.inner.modes() {
+                    return Err(PyCoreError(CoreError::InvalidArgument(format!(
+                        "cut={c} is above the number of modes ({}); pass None, 0 (row kernel) \
+                         or 1..={}",
+                        space.inner.modes(),
+                        space.inner.modes()
+                    )))
+                    .into());
+                }
+            }
             let raw: Vec<RawTerm> = terms
                 .into_iter()
                 .map(|(re, im, f)| RawTerm::new(re, im, f))
@@ -275,7 +351,21 @@ impl NativeOperator {
                 space: space.inner.clone(),
                 real,
                 complex,
+                cut,
+                real_product: OnceLock::new(),
+                complex_product: OnceLock::new(),
             })
+        })
+    }
+
+    /// The cut of the product kernel (0: the row kernel; k: left modes 0..k).
+    #[getter]
+    fn cut(&self, py: Python<'_>) -> PyResult<usize> {
+        guarded(|| match &self.real {
+            Some(op) => Ok(detached(py, None, |_, _| self.real_product(op).map(|p| p.cut()))?),
+            None => Ok(detached(py, None, |_, _| {
+                self.complex_product().map(|p| p.cut())
+            })?),
         })
     }
 
@@ -328,22 +418,25 @@ impl NativeOperator {
     ) -> PyResult<Bound<'py, PyAny>> {
         guarded(|| {
             let space = &self.space;
-            match (x.to_owned_vec(), &self.real) {
+            match (x.to_owned_vec()?, &self.real) {
                 (OwnedVector::Real(x), Some(op)) => {
                     let y = detached(py, threads, |r, s| {
-                        let mut y = vec![0.0; x.len()];
-                        matvec::apply(space, op, &x, &mut y, r, s).map(|_| y)
+                        let product = self.real_product(op)?;
+                        let mut y = fockmill_core::memory::try_filled(x.len(), 0.0, "the product vector")?;
+                        product.apply(space, &x, &mut y, r, s).map(|_| y)
                     })?;
                     Ok(y.into_pyarray(py).into_any())
                 }
                 (owned, _) => {
-                    let x: Vec<Complex64> = match owned {
-                        OwnedVector::Real(v) => v.into_iter().map(|re| Complex64::new(re, 0.0)).collect(),
-                        OwnedVector::Complex(v) => v,
-                    };
+                    let x: Vec<Complex64> = owned.into_complex()?;
                     let y = detached(py, threads, |r, s| {
-                        let mut y = vec![Complex64::ZERO; x.len()];
-                        matvec::apply(space, &self.complex, &x, &mut y, r, s).map(|_| y)
+                        let product = self.complex_product()?;
+                        let mut y = fockmill_core::memory::try_filled(
+                            x.len(),
+                            Complex64::ZERO,
+                            "the product vector",
+                        )?;
+                        product.apply(space, &x, &mut y, r, s).map(|_| y)
                     })?;
                     Ok(y.into_pyarray(py).into_any())
                 }
@@ -367,22 +460,32 @@ impl NativeOperator {
             };
             match (&x, &self.real) {
                 (InBlock::Real(a), Some(op)) => {
-                    let xs: Vec<f64> = a.as_array().iter().copied().collect();
+                    let xs: Vec<f64> =
+                        owned_copy(n * k, a.as_array().iter().copied(), "a copy of the input block")?;
                     let y = detached(py, threads, |r, s| {
-                        let mut y = vec![0.0; xs.len()];
-                        matvec::apply_many(space, op, &xs, &mut y, k, r, s).map(|_| y)
+                        let product = self.real_product(op)?;
+                        let mut y = fockmill_core::memory::try_filled(xs.len(), 0.0, "the product block")?;
+                        product.apply_many(space, &xs, &mut y, k, r, s).map(|_| y)
                     })?;
                     let arr = Array2::from_shape_vec((n, k), y).expect("shape kept");
                     Ok(arr.into_pyarray(py).into_any())
                 }
                 _ => {
+                    let what = "a copy of the input block";
                     let xs: Vec<Complex64> = match &x {
-                        InBlock::Real(a) => a.as_array().iter().map(|&v| Complex64::new(v, 0.0)).collect(),
-                        InBlock::Complex(a) => a.as_array().iter().copied().collect(),
+                        InBlock::Real(a) => {
+                            owned_copy(n * k, a.as_array().iter().map(|&v| Complex64::new(v, 0.0)), what)?
+                        }
+                        InBlock::Complex(a) => owned_copy(n * k, a.as_array().iter().copied(), what)?,
                     };
                     let y = detached(py, threads, |r, s| {
-                        let mut y = vec![Complex64::ZERO; xs.len()];
-                        matvec::apply_many(space, &self.complex, &xs, &mut y, k, r, s).map(|_| y)
+                        let product = self.complex_product()?;
+                        let mut y = fockmill_core::memory::try_filled(
+                            xs.len(),
+                            Complex64::ZERO,
+                            "the product block",
+                        )?;
+                        product.apply_many(space, &xs, &mut y, k, r, s).map(|_| y)
                     })?;
                     let arr = Array2::from_shape_vec((n, k), y).expect("shape kept");
                     Ok(arr.into_pyarray(py).into_any())
@@ -410,6 +513,38 @@ impl NativeOperator {
         })
     }
 
+    /// Lowest `k` levels by thick-restart Lanczos with locking and a deflated re-check
+    /// (every degenerate copy that fits in `k`), on the matrix-free product or (with
+    /// `stored`) on a CSR matrix built and kept inside Rust:
+    /// (energies, vectors (dim, k), residuals, products, restarts, converged).
+    #[pyo3(signature = (k, tol=1e-9, max_products=10_000, seed=0x5EED, start=None, threads=None, stored=false, basis=0))]
+    #[allow(clippy::too_many_arguments)]
+    fn lanczos_levels<'py>(
+        &self,
+        py: Python<'py>,
+        k: usize,
+        tol: f64,
+        max_products: usize,
+        seed: u64,
+        start: Option<levels::InStart<'py>>,
+        threads: Option<Threads<'_>>,
+        stored: bool,
+        basis: usize,
+    ) -> PyResult<levels::LevelsTuple<'py>> {
+        levels::operator_levels(
+            self,
+            py,
+            k,
+            tol,
+            max_products,
+            seed,
+            start,
+            threads,
+            stored,
+            basis,
+        )
+    }
+
     /// Lanczos ground state keeping four vectors, on the matrix-free product or (with
     /// `stored`) on a CSR matrix built and kept inside Rust:
     /// (energy, vector, residual, steps, products, restarts, converged).
@@ -434,27 +569,38 @@ impl NativeOperator {
                 seed,
             };
             let space = &self.space;
-            let start = start.map(|s| s.to_owned_vec());
+            let start = start.map(|s| s.to_owned_vec()).transpose()?;
             match &self.real {
                 Some(op) => {
                     let start: Option<Vec<f64>> = match start {
                         None => None,
                         Some(OwnedVector::Real(v)) => Some(v),
-                        Some(OwnedVector::Complex(v)) => Some(v.iter().map(|z| z.re).collect()),
+                        Some(OwnedVector::Complex(v)) => Some(owned_copy(
+                            v.len(),
+                            v.iter().map(|z| z.re),
+                            "a real copy of the start",
+                        )?),
                     };
                     let out = detached(py, threads, |r, s| {
-                        lanczos_on(space, op, stored, start, &opts, r, s)
+                        let product = if stored {
+                            None
+                        } else {
+                            Some(self.real_product(op)?)
+                        };
+                        lanczos_on(space, op, product, start, &opts, r, s)
                     })?;
                     Ok(outcome_to_python(py, out))
                 }
                 None => {
-                    let start: Option<Vec<Complex64>> = start.map(|v| match v {
-                        OwnedVector::Real(v) => v.into_iter().map(|re| Complex64::new(re, 0.0)).collect(),
-                        OwnedVector::Complex(v) => v,
-                    });
+                    let start: Option<Vec<Complex64>> = start.map(OwnedVector::into_complex).transpose()?;
                     let op = &self.complex;
                     let out = detached(py, threads, |r, s| {
-                        lanczos_on(space, op, stored, start, &opts, r, s)
+                        let product = if stored {
+                            None
+                        } else {
+                            Some(self.complex_product()?)
+                        };
+                        lanczos_on(space, op, product, start, &opts, r, s)
                     })?;
                     Ok(outcome_to_python(py, out))
                 }
@@ -463,18 +609,19 @@ impl NativeOperator {
     }
 }
 
-/// Lanczos on the matrix-free product, or on a CSR matrix built first when `stored`.
+/// Lanczos on the matrix-free product (the kept kernel `product`), or on a CSR matrix
+/// built first when `product` is None.
 fn lanczos_on<S: Scalar>(
     space: &FockSpace,
     op: &Operator<S>,
-    stored: bool,
+    product: Option<&Product<S>>,
     start: Option<Vec<S>>,
     opts: &LanczosOptions,
     runner: &Runner,
     stop: &dyn Interrupt,
 ) -> CoreResult<lanczos::LanczosOutcome<S>> {
-    if !stored {
-        return lanczos::ground_state(&FockMap::new(space, op), start, opts, runner, stop);
+    if let Some(product) = product {
+        return lanczos::ground_state(&FockMap::with_product(space, product), start, opts, runner, stop);
     }
     match build_csr(space, op, runner, stop, false)? {
         CsrAny::Narrow(c) => lanczos::ground_state(&lanczos::CsrMap::new(c), start, opts, runner, stop),
@@ -511,7 +658,7 @@ fn monomial_expectations<'py>(
 ) -> PyResult<Bound<'py, PyArray1<Complex64>>> {
     guarded(|| {
         let sp = &space.inner;
-        let values = match psi.to_owned_vec() {
+        let values = match psi.to_owned_vec()? {
             OwnedVector::Real(v) => detached(py, threads, |r, s| {
                 observe::monomial_expectations(sp, &monomials, &v, r, s)
             })?,
@@ -534,7 +681,7 @@ fn occupation_distributions<'py>(
 ) -> PyResult<Bound<'py, PyArray1<f64>>> {
     guarded(|| {
         let sp = &space.inner;
-        let values = match psi.to_owned_vec() {
+        let values = match psi.to_owned_vec()? {
             OwnedVector::Real(v) => detached(py, threads, |r, s| {
                 observe::occupation_distributions(sp, &v, r, s)
             })?,
@@ -562,6 +709,8 @@ fn _native(m: &Bound<'_, PyModule>) -> PyResult<()> {
     m.add_function(wrap_pyfunction!(monomial_expectations, m)?)?;
     m.add_function(wrap_pyfunction!(occupation_distributions, m)?)?;
     m.add_function(wrap_pyfunction!(default_threads, m)?)?;
+    levels::register(m)?;
+    m.add_function(wrap_pyfunction!(correlations::density_correlations, m)?)?;
     Ok(())
 }
 

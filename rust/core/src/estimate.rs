@@ -51,8 +51,9 @@ pub fn estimate_nnz<S: Scalar>(
         (0..samples)
             .into_par_iter()
             .map_init(Vec::new, |scratch, s| {
-                let lo = s * dim / samples;
-                let hi = (s + 1) * dim / samples;
+                // u128: `s * dim` exceeds u64 for large spaces and many samples.
+                let lo = (s as u128 * dim as u128 / samples as u128) as u64;
+                let hi = ((s + 1) as u128 * dim as u128 / samples as u128) as u64;
                 let idx = lo + splitmix64(s ^ 0xA5A5_5A5A) % (hi - lo).max(1);
                 match RowState::at(space, idx) {
                     Ok(row) => {
@@ -73,4 +74,26 @@ pub fn estimate_nnz<S: Scalar>(
         exact: false,
         max_row: counts.iter().copied().max().unwrap_or(0),
     })
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::parallel::NoInterrupt;
+    use crate::terms::RawTerm;
+
+    #[test]
+    fn strata_of_a_huge_space_do_not_wrap() {
+        // 2^50 states and 2^15 samples: s · dim reaches 2^65, beyond u64. The number
+        // operator of mode 0 has one entry in each row of the second half of the basis
+        // (n_0 = 1, mode 0 most significant) and none in the first, so equal strata
+        // give exactly dim / 2; wrapped strata all land in the first half (counting
+        // argument, common practice, no source).
+        let space = FockSpace::new(vec![1; 50], None, None, None).unwrap();
+        let op = Operator::<f64>::new(&space, &[RawTerm::new(1.0, 0.0, vec![(0, 1, 1)])]).unwrap();
+        let est = estimate_nnz(&space, &op, 1 << 15, &Runner::global(), &NoInterrupt).unwrap();
+        assert!(!est.exact);
+        assert_eq!(est.nnz, (1u64 << 49) as f64);
+        assert_eq!(est.max_row, 1);
+    }
 }

@@ -449,11 +449,14 @@ impl<S: Scalar> ProductKernel<S> {
                     } else {
                         new_occ[s.factor]
                     };
-                    part += offsets[s.base + residue as usize * s.width + v as usize];
-                    residue = rule.step(residue, s.weight * v as u64);
+                    part = part.wrapping_add(offsets[s.base + residue as usize * s.width + v as usize]);
+                    residue = rule.step(residue, s.weight.wrapping_mul(v as u64));
                 }
+                // Wrapping: valid images by construction (see `hop_rows`).
                 let p = &b.prefix[r * (m + 1)..(r + 1) * (m + 1)];
-                let col = b.rank[r] - (p[term.hi + 1] - p[term.lo]) + part;
+                let col = b.rank[r]
+                    .wrapping_sub(p[term.hi + 1].wrapping_sub(p[term.lo]))
+                    .wrapping_add(part);
                 let amp = if amp_sq < self.sqrt.len() as f64 {
                     self.sqrt[amp_sq as usize]
                 } else {

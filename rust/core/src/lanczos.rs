@@ -6,7 +6,7 @@
 
 use crate::build::{Csr, CsrIndex};
 use crate::error::{CoreError, CoreResult};
-use crate::kernel::ProductKernel;
+use crate::matvec::Product;
 use crate::parallel::{Interrupt, Runner};
 use crate::scalar::Scalar;
 use crate::space::FockSpace;
@@ -28,7 +28,12 @@ pub trait HermitianMap<S: Scalar> {
 /// The matrix-free product of an operator on a space.
 pub struct FockMap<'a, S: Scalar> {
     space: &'a FockSpace,
-    kernel: ProductKernel<S>,
+    product: ProductRef<'a, S>,
+}
+
+enum ProductRef<'a, S: Scalar> {
+    Owned(Box<Product<S>>),
+    Borrowed(&'a Product<S>),
 }
 
 impl<'a, S: Scalar> FockMap<'a, S> {
@@ -37,7 +42,16 @@ impl<'a, S: Scalar> FockMap<'a, S> {
     pub fn new(space: &'a FockSpace, op: &Operator<S>) -> Self {
         FockMap {
             space,
-            kernel: ProductKernel::new(space, op),
+            product: ProductRef::Owned(Box::new(Product::new(space, op))),
+        }
+    }
+
+    /// Use an operator already prepared for products on `space` (built once, reused
+    /// by every call).
+    pub fn with_product(space: &'a FockSpace, product: &'a Product<S>) -> Self {
+        FockMap {
+            space,
+            product: ProductRef::Borrowed(product),
         }
     }
 }
@@ -47,7 +61,11 @@ impl<S: Scalar> HermitianMap<S> for FockMap<'_, S> {
         self.space.dim() as usize
     }
     fn apply(&self, x: &[S], y: &mut [S], runner: &Runner, interrupt: &dyn Interrupt) -> CoreResult<()> {
-        self.kernel.apply(self.space, x, y, runner, interrupt)
+        let product = match &self.product {
+            ProductRef::Owned(p) => p,
+            ProductRef::Borrowed(p) => *p,
+        };
+        product.apply(self.space, x, y, runner, interrupt)
     }
 }
 
@@ -61,6 +79,71 @@ impl<S: Scalar, I: CsrIndex> CsrMap<S, I> {
     /// Wrap a square CSR matrix (assumed Hermitian).
     pub fn new(csr: Csr<S, I>) -> Self {
         CsrMap { csr }
+    }
+}
+
+impl<S: Scalar, I: CsrIndex> CsrMap<S, I> {
+    /// Wrap CSR arrays handed in from outside after checking them: `indptr` of
+    /// length `dim + 1`, starting at 0, non-decreasing, ending at `indices.len() ==
+    /// data.len()`; every column index in `[0, dim)`; every value finite. The matrix is
+    /// assumed Hermitian (not checked: the solvers' guarantees need it).
+    ///
+    /// # Errors
+    /// [`CoreError::Shape`] for inconsistent lengths or pointers,
+    /// [`CoreError::InvalidArgument`] for an index out of range,
+    /// [`CoreError::NonFinite`] for a NaN or infinite value.
+    pub fn from_parts(indptr: Vec<I>, indices: Vec<I>, data: Vec<S>) -> CoreResult<Self> {
+        if indptr.is_empty() {
+            return Err(CoreError::Shape(
+                "indptr is empty; a CSR matrix of n rows has n + 1 row pointers".into(),
+            ));
+        }
+        let dim = (indptr.len() - 1) as u64;
+        let nnz = indices.len() as u64;
+        if data.len() as u64 != nnz {
+            return Err(CoreError::Shape(format!(
+                "indices has {nnz} entries but data has {}; pass arrays of equal length",
+                data.len()
+            )));
+        }
+        if indptr[0].to_u64() != 0 || indptr[indptr.len() - 1].to_u64() != nnz {
+            return Err(CoreError::Shape(format!(
+                "indptr must start at 0 and end at nnz = {nnz}; got {} and {}",
+                indptr[0].to_u64() as i64,
+                indptr[indptr.len() - 1].to_u64() as i64
+            )));
+        }
+        if indptr
+            .windows(2)
+            .any(|p| (p[1].to_u64() as i64) < (p[0].to_u64() as i64))
+        {
+            return Err(CoreError::Shape("indptr must be non-decreasing".into()));
+        }
+        if let Some(bad) = indices.iter().find(|c| c.to_u64() >= dim) {
+            return Err(CoreError::InvalidArgument(format!(
+                "column index {} is outside the square matrix of dimension {dim}; CSR \
+                 matrices passed to the solvers must be square and Hermitian",
+                bad.to_u64() as i64
+            )));
+        }
+        if data.iter().any(|v| !v.is_finite()) {
+            return Err(CoreError::NonFinite(
+                "the matrix contains NaN or inf; fix the values before solving".into(),
+            ));
+        }
+        Ok(CsrMap {
+            csr: Csr {
+                dim,
+                indptr,
+                indices,
+                data,
+            },
+        })
+    }
+
+    /// Stored entries.
+    pub fn nnz(&self) -> usize {
+        self.csr.data.len()
     }
 }
 
@@ -94,7 +177,8 @@ pub struct LanczosOptions {
     pub max_steps: usize,
     /// Most restarts after a pass whose true residual misses `tol`.
     pub max_restarts: usize,
-    /// Seed of the start vector when none is given.
+    /// Seed of the start vector when none is given, and of the noise mixed into a
+    /// given one.
     pub seed: u64,
 }
 
@@ -130,6 +214,11 @@ pub struct LanczosOutcome<S> {
 
 /// Lowest eigenpair of a Hermitian map with four vectors of memory.
 ///
+/// A `start` vector is normalised and mixed with [`vecops::START_NOISE`] of seeded
+/// noise (seed `opts.seed`), so that a start with no weight on the ground state's
+/// symmetry sector still converges to the true ground state; without `start`, a
+/// seeded vector is used.
+///
 /// The outcome is the same for every thread count: products sum each row in a fixed
 /// order and reductions add partial sums in a fixed order.
 ///
@@ -153,31 +242,42 @@ pub fn ground_state<S: Scalar, A: HermitianMap<S>>(
         5 * dim as u128 * std::mem::size_of::<S>() as u128,
         "the Lanczos vectors (five of the space's dimension)",
     )?;
-    let mut v0 = match start {
-        Some(v) if v.len() != dim => {
+    if let Some(v) = &start {
+        if v.len() != dim {
             return Err(CoreError::Shape(format!(
                 "start vector has length {} but the space has dim {dim}",
                 v.len()
-            )))
+            )));
         }
-        Some(v) => v,
-        None => runner.install(|| vecops::seeded_vector(opts.seed, dim)),
+        if v.iter().any(|x| !x.is_finite()) {
+            return Err(CoreError::InvalidArgument(
+                "start vector contains NaN or inf".into(),
+            ));
+        }
+    }
+    let what = "a Lanczos vector";
+    let mut v_prev = crate::memory::try_filled(dim, S::ZERO, what)?;
+    let mut v = crate::memory::try_filled(dim, S::ZERO, what)?;
+    let mut w = crate::memory::try_filled(dim, S::ZERO, what)?;
+    let mut v0 = match start {
+        // A caller's vector gets a little seeded noise, so that a start with no weight
+        // on the ground state's symmetry sector still reaches it.
+        Some(mut v0) => {
+            if !runner.install(|| vecops::mix_start_noise(&mut v0, &mut w, opts.seed)) {
+                return Err(CoreError::InvalidArgument(
+                    "start vector is zero; pass a nonzero vector or none".into(),
+                ));
+            }
+            v0
+        }
+        None => {
+            let mut v0 = crate::memory::try_filled(dim, S::ZERO, what)?;
+            runner.install(|| vecops::fill_seeded(opts.seed, &mut v0));
+            let n0 = runner.install(|| vecops::norm(&v0));
+            runner.install(|| vecops::scale(1.0 / n0, &mut v0));
+            v0
+        }
     };
-    if v0.iter().any(|x| !x.is_finite()) {
-        return Err(CoreError::InvalidArgument(
-            "start vector contains NaN or inf".into(),
-        ));
-    }
-    let n0 = runner.install(|| vecops::norm(&v0));
-    if n0 == 0.0 {
-        return Err(CoreError::InvalidArgument(
-            "start vector is zero; pass a nonzero vector or none".into(),
-        ));
-    }
-    runner.install(|| vecops::scale(1.0 / n0, &mut v0));
-    let mut v_prev = vec![S::ZERO; dim];
-    let mut v = vec![S::ZERO; dim];
-    let mut w = vec![S::ZERO; dim];
     let mut steps = 0usize;
     let mut products = 0usize;
     let mut restarts = 0usize;
@@ -337,6 +437,34 @@ mod tests {
         .unwrap();
         assert_eq!(one.energy.to_bits(), two.energy.to_bits());
         assert_eq!(one.vector, two.vector);
+    }
+
+    #[test]
+    fn start_outside_the_ground_sector_still_finds_the_ground_state() {
+        // One particle on a ring of L sites, hopping -1: levels -2 cos(2πq/L), ground
+        // state uniform (q = 0) (Bloch; common practice, no source). The start
+        // sin(2πi/L) lies in the q = ±1 sector, orthogonal to the ground state: without
+        // the mixed-in noise its Krylov space never leaves that sector.
+        let l = 60;
+        let mut a = vec![0.0; l * l];
+        for i in 0..l {
+            let j = (i + 1) % l;
+            a[i * l + j] = -1.0;
+            a[j * l + i] = -1.0;
+        }
+        let start: Vec<f64> = (0..l)
+            .map(|i| (2.0 * std::f64::consts::PI * i as f64 / l as f64).sin())
+            .collect();
+        let out = ground_state(
+            &Dense { n: l, a },
+            Some(start),
+            &LanczosOptions::default(),
+            &Runner::global(),
+            &NoInterrupt,
+        )
+        .unwrap();
+        assert!(out.converged);
+        assert!((out.energy + 2.0).abs() < 1e-10, "{}", out.energy);
     }
 
     #[test]

@@ -5,18 +5,22 @@
 //! normal-ordered ladder-operator terms acting on basis states ([`terms`]); a
 //! row-parallel two-pass CSR build ([`build`]); matrix-free products ([`matvec`]);
 //! observables from one pass over the basis ([`observe`]); a low-memory Lanczos ground
-//! state ([`lanczos`]); and cheap size estimates ([`estimate`]).
+//! state ([`lanczos`]); the lowest `k` levels by thick-restart Lanczos
+//! ([`levels`]); and cheap size estimates ([`estimate`]).
 //!
 //! Nothing here knows about Python; the binding crate converts types and errors.
 #![forbid(unsafe_code)]
 #![warn(missing_docs)]
 
 pub mod between;
+pub mod bipartite;
 pub mod build;
+pub mod correlations;
 pub mod error;
 pub mod estimate;
 pub mod kernel;
 pub mod lanczos;
+pub mod levels;
 pub mod matvec;
 pub mod memory;
 pub mod observe;

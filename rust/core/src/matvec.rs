@@ -1,14 +1,131 @@
 //! Matrix-free products `Y = H X`, parallel over output rows (each row is written by
 //! one thread, so no atomics), with a fixed summation order per row.
+//!
+//! [`Product`] is an operator prepared once for many products: the bipartite kernel
+//! ([`crate::bipartite`]) with an automatically chosen cut, or the row kernel
+//! ([`crate::kernel`]) when no cut keeps the bipartite tables small.
 
+use crate::bipartite::{choose_cut, Bipartite};
 use crate::error::{CoreError, CoreResult};
 use crate::kernel::ProductKernel;
 use crate::parallel::{Interrupt, Runner};
 use crate::scalar::Scalar;
 use crate::space::FockSpace;
-use crate::terms::{Operator, RowState};
+use crate::terms::Operator;
 
-/// `y = H x` for one vector.
+/// An operator prepared for repeated products on one space.
+#[derive(Debug, Clone)]
+pub enum Product<S: Scalar> {
+    /// Bipartite kernel (left modes `0..cut`).
+    Split(Bipartite<S>),
+    /// Row kernel: re-ranks the images of each row.
+    Rows(ProductKernel<S>),
+}
+
+impl<S: Scalar> Product<S> {
+    /// Prepare `op` (validated for `space`) with the automatic choice of kernel: the
+    /// bipartite kernel at the cheapest cut, or the row kernel when no cut keeps the
+    /// tables well below the stored matrix or the tables do not fit in memory.
+    pub fn new(space: &FockSpace, op: &Operator<S>) -> Self {
+        match choose_cut(space, op) {
+            Some(cut) => match Bipartite::new(space, op, cut) {
+                Ok(b) => Product::Split(b),
+                Err(_) => Product::Rows(ProductKernel::new(space, op)),
+            },
+            None => Product::Rows(ProductKernel::new(space, op)),
+        }
+    }
+
+    /// Prepare `op` with an explicit kernel: `cut = 0` is the row kernel, `1..=M` the
+    /// bipartite kernel with left modes `0..cut`.
+    ///
+    /// # Errors
+    /// [`CoreError::InvalidArgument`] for a cut above the number of modes;
+    /// [`CoreError::TooLarge`] when the bipartite tables do not fit in memory.
+    pub fn with_cut(space: &FockSpace, op: &Operator<S>, cut: usize) -> CoreResult<Self> {
+        if cut == 0 {
+            Ok(Product::Rows(ProductKernel::new(space, op)))
+        } else {
+            Ok(Product::Split(Bipartite::new(space, op, cut)?))
+        }
+    }
+
+    /// The cut in use (0: the row kernel).
+    pub fn cut(&self) -> usize {
+        match self {
+            Product::Split(b) => b.cut(),
+            Product::Rows(_) => 0,
+        }
+    }
+
+    /// `y = H x`.
+    ///
+    /// # Errors
+    /// [`CoreError::Shape`] when `x` or `y` is not of length `dim`;
+    /// [`CoreError::Interrupted`] when `interrupt` fires.
+    pub fn apply(
+        &self,
+        space: &FockSpace,
+        x: &[S],
+        y: &mut [S],
+        runner: &Runner,
+        interrupt: &dyn Interrupt,
+    ) -> CoreResult<()> {
+        self.apply_many(space, x, y, 1, runner, interrupt)
+    }
+
+    /// `Y = H X` for `k` vectors stored row-major: `X[r, j]` at `x[r * k + j]`.
+    ///
+    /// # Errors
+    /// As [`Product::apply`].
+    pub fn apply_many(
+        &self,
+        space: &FockSpace,
+        x: &[S],
+        y: &mut [S],
+        k: usize,
+        runner: &Runner,
+        interrupt: &dyn Interrupt,
+    ) -> CoreResult<()> {
+        let dim = space.dim() as usize;
+        let expected = dim
+            .checked_mul(k)
+            .ok_or_else(|| CoreError::Shape("too many vectors".into()))?;
+        if k == 0 || x.len() != expected || y.len() != expected {
+            return Err(CoreError::Shape(format!(
+                "vectors must have shape ({dim}, {k}) to match the space (got {} and {} elements); \
+                 pass arrays whose length is the space's dim",
+                x.len(),
+                y.len()
+            )));
+        }
+        match self {
+            Product::Split(b) => b.apply(x, y, k, runner, interrupt),
+            Product::Rows(kernel) if k == 1 => kernel.apply(space, x, y, runner, interrupt),
+            Product::Rows(kernel) => {
+                // Several vectors: visit each row's entries once and use them for all k.
+                let mut rows_out: Vec<&mut [S]> = y.chunks_mut(k).collect();
+                runner.for_row_chunks(&mut rows_out, interrupt, |first, out| {
+                    let mut i = 0usize;
+                    kernel.for_each_row(space, first, out.len(), |_, entries| {
+                        let yi = &mut out[i];
+                        yi.fill(S::ZERO);
+                        for &(col, c) in entries {
+                            let xs = &x[col as usize * k..][..k];
+                            for (yj, &xj) in yi.iter_mut().zip(xs) {
+                                *yj += c * xj;
+                            }
+                        }
+                        i += 1;
+                    })
+                })
+            }
+        }
+    }
+}
+
+/// `y = H x` for one vector (prepares the operator, then one product; use
+/// [`Product`] for repeated products).
 ///
 /// # Errors
 /// [`CoreError::Shape`] when `x` or `y` is not of length `dim`;
@@ -37,40 +154,7 @@ pub fn apply_many<S: Scalar>(
     runner: &Runner,
     interrupt: &dyn Interrupt,
 ) -> CoreResult<()> {
-    let dim = space.dim() as usize;
-    let expected = dim
-        .checked_mul(k)
-        .ok_or_else(|| CoreError::Shape("too many vectors".into()))?;
-    if k == 0 || x.len() != expected || y.len() != expected {
-        return Err(CoreError::Shape(format!(
-            "vectors must have shape ({dim}, {k}) to match the space (got {} and {} elements); \
-             pass arrays whose length is the space's dim",
-            x.len(),
-            y.len()
-        )));
-    }
-    if k == 1 {
-        return ProductKernel::new(space, op).apply(space, x, y, runner, interrupt);
-    }
-    // Several vectors: visit each row's entries once and use them for all k columns.
-    let mut rows_out: Vec<&mut [S]> = y.chunks_mut(k).collect();
-    runner.for_row_chunks(&mut rows_out, interrupt, |first, out| {
-        let mut row = RowState::at(space, first)?;
-        for (i, yi) in out.iter_mut().enumerate() {
-            if i > 0 {
-                row.advance(space);
-            }
-            yi.fill(S::ZERO);
-            op.for_each_in_row(space, &row, |t, col, amp| {
-                let c = op.coef(t).scale(amp);
-                let xs = &x[col as usize * k..][..k];
-                for (yj, &xj) in yi.iter_mut().zip(xs) {
-                    *yj += c * xj;
-                }
-            });
-        }
-        Ok(())
-    })
+    Product::new(space, op).apply_many(space, x, y, k, runner, interrupt)
 }
 
 #[cfg(test)]

@@ -58,7 +58,8 @@ pub fn occupations_into<T: Occupation>(
 /// that is not in the space (negative or too large occupations, or outside the sector).
 ///
 /// # Errors
-/// [`CoreError::Shape`] when `occ.len()` is not `count × modes`.
+/// [`CoreError::Shape`] when `occ.len()` is not `count × modes`; [`CoreError::TooLarge`]
+/// when the result does not fit in memory.
 pub fn ranks(space: &FockSpace, occ: &[i64], runner: &Runner) -> CoreResult<Vec<i64>> {
     let m = space.modes();
     if occ.len() % m != 0 {
@@ -68,22 +69,23 @@ pub fn ranks(space: &FockSpace, occ: &[i64], runner: &Runner) -> CoreResult<Vec<
         )));
     }
     use rayon::prelude::*;
-    Ok(runner.install(|| {
-        occ.par_chunks(m)
-            .map_init(
-                || vec![0u32; m],
-                |buf, state| {
-                    for (b, &v) in buf.iter_mut().zip(state) {
-                        if !(0..=u32::MAX as i64).contains(&v) {
-                            return -1;
-                        }
-                        *b = v as u32;
-                    }
+    let mut out = crate::memory::try_filled(occ.len() / m, 0i64, "the ranks of the given states")?;
+    runner.install(|| {
+        out.par_iter_mut().zip(occ.par_chunks(m)).for_each_init(
+            || vec![0u32; m],
+            |buf, (dst, state)| {
+                *dst = if buf.iter_mut().zip(state).all(|(b, &v)| {
+                    *b = v.clamp(0, u32::MAX as i64) as u32;
+                    (0..=u32::MAX as i64).contains(&v)
+                }) {
                     space.rank(buf).map_or(-1, |r| r as i64)
-                },
-            )
-            .collect()
-    }))
+                } else {
+                    -1
+                };
+            },
+        )
+    });
+    Ok(out)
 }
 
 /// `⟨ψ| m_t |ψ⟩` for each monomial `m_t` (coefficient 1), in the order given.
@@ -156,7 +158,7 @@ pub fn occupation_distributions<S: Scalar>(
         size += c as usize + 1;
     }
     let parts = runner.map_blocks(space.dim(), interrupt, |first, rows| {
-        let mut hist = vec![0.0f64; size];
+        let mut hist = crate::memory::try_filled(size, 0.0f64, "an occupation histogram")?;
         let mut row = RowState::at(space, first)?;
         for i in 0..rows {
             if i > 0 {
@@ -169,7 +171,7 @@ pub fn occupation_distributions<S: Scalar>(
         }
         Ok(hist)
     })?;
-    let mut total = vec![0.0; size];
+    let mut total = crate::memory::try_filled(size, 0.0f64, "the occupation distributions")?;
     for part in parts {
         for (t, v) in total.iter_mut().zip(part) {
             *t += v;

@@ -183,7 +183,7 @@ impl FockSpace {
             constraint,
             residues,
             start_residue,
-            counts: vec![0; residues * (modes + 1)],
+            counts: crate::memory::try_filled(residues * (modes + 1), 0, "the space's counting table")?,
             offset_base: Vec::with_capacity(modes),
             offsets: Vec::new(),
             dim: 0,
@@ -233,7 +233,7 @@ impl FockSpace {
             self.offset_base.push(base);
             base += r_count * (self.caps[i] as usize + 2);
         }
-        self.offsets = vec![0; base];
+        self.offsets = crate::memory::try_filled(base, 0, "the space's ranking offsets")?;
         for i in 0..modes {
             let width = self.caps[i] as usize + 2;
             for r in 0..r_count {

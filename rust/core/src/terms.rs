@@ -31,27 +31,23 @@ impl RawTerm {
 /// `(mode, creation power, annihilation power)` factors sorted by mode.
 pub type Monomial = Vec<(usize, u32, u32)>;
 
-/// Render a monomial as `a0†^2 a0 a3†` (the identity renders as `1`).
+/// Render a monomial in normal order, creators first: `a0†^2 a3† a0` for the factors
+/// `[(0, 2, 1), (3, 1, 0)]` (the identity renders as `1`). Factors of different modes
+/// commute, so this is the same operator as the mode-sorted factor list.
 pub fn format_monomial(factors: &[(usize, u32, u32)]) -> String {
     let mut out = String::new();
-    for &(mode, p, q) in factors {
-        if p > 0 {
-            if !out.is_empty() {
-                out.push(' ');
-            }
-            let _ = write!(out, "a{mode}†");
-            if p > 1 {
-                let _ = write!(out, "^{p}");
-            }
+    let creators = factors.iter().map(|&(mode, p, _)| (mode, p, "†"));
+    let annihilators = factors.iter().map(|&(mode, _, q)| (mode, q, ""));
+    for (mode, power, dagger) in creators.chain(annihilators) {
+        if power == 0 {
+            continue;
         }
-        if q > 0 {
-            if !out.is_empty() {
-                out.push(' ');
-            }
-            let _ = write!(out, "a{mode}");
-            if q > 1 {
-                let _ = write!(out, "^{q}");
-            }
+        if !out.is_empty() {
+            out.push(' ');
+        }
+        let _ = write!(out, "a{mode}{dagger}");
+        if power > 1 {
+            let _ = write!(out, "^{power}");
         }
     }
     if out.is_empty() {
@@ -330,7 +326,8 @@ mod tests {
 
     #[test]
     fn renders_monomials() {
-        assert_eq!(format_monomial(&[(0, 2, 1), (3, 1, 0)]), "a0†^2 a0 a3†");
+        assert_eq!(format_monomial(&[(0, 2, 1), (3, 1, 0)]), "a0†^2 a3† a0");
+        assert_eq!(format_monomial(&[(0, 0, 1), (1, 1, 0)]), "a1† a0");
         assert_eq!(format_monomial(&[]), "1");
     }
 

@@ -76,6 +76,43 @@ pub fn seeded_vector<S: Scalar>(seed: u64, dim: usize) -> Vec<S> {
         .collect()
 }
 
+/// Fill `out` in place with the same reproducible entries as [`seeded_vector`]
+/// (element `i` depends only on `seed` and `i`), without allocating.
+pub fn fill_seeded<S: Scalar>(seed: u64, out: &mut [S]) {
+    out.par_chunks_mut(CHUNK).enumerate().for_each(|(c, xs)| {
+        for (o, x) in xs.iter_mut().enumerate() {
+            let i = (c * CHUNK + o) as u64;
+            let z = splitmix64(seed ^ splitmix64(i));
+            let u = (z >> 11) as f64 / (1u64 << 53) as f64 - 0.5;
+            *x = S::from_parts(u, 0.0).expect("real parts are valid for every element type");
+        }
+    });
+}
+
+/// Weight of the seeded noise mixed into a caller's start vector (relative to its
+/// norm): enough that every symmetry sector has weight in the Krylov space, small
+/// enough to keep most of a warm start's advantage.
+pub const START_NOISE: f64 = 1e-4;
+
+/// Normalise `v`, add [`START_NOISE`] times a unit seeded noise vector (drawn into
+/// `scratch`, same length) and normalise again. Returns `false` (and leaves `v`
+/// unnormalised) when `v` is zero.
+pub fn mix_start_noise<S: Scalar>(v: &mut [S], scratch: &mut [S], seed: u64) -> bool {
+    let nv = norm(v);
+    if nv == 0.0 {
+        return false;
+    }
+    fill_seeded(seed ^ 0x6E01_5E00_D15E_A5E5, scratch);
+    let ng = norm(scratch);
+    scale(1.0 / nv, v);
+    if ng > 0.0 {
+        axpy(START_NOISE / ng, scratch, v);
+    }
+    let n = norm(v);
+    scale(1.0 / n, v);
+    true
+}
+
 /// SplitMix64 finaliser (Steele, Lea & Flood 2014).
 pub fn splitmix64(x: u64) -> u64 {
     let mut z = x.wrapping_add(0x9E37_79B9_7F4A_7C15);
