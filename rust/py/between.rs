@@ -30,8 +30,8 @@ impl NativeBetween {
                 .into_iter()
                 .map(|(re, im, f)| RawTerm::new(re, im, f))
                 .collect();
-            let complex =
-                Between::<Complex64>::new(&source.inner, &target.inner, &raw, project).map_err(PyCoreError)?;
+            let complex = Between::<Complex64>::new(&source.inner, &target.inner, &raw, project)
+                .map_err(PyCoreError)?;
             let real = if raw.iter().all(|t| t.im == 0.0) {
                 Some(Between::<f64>::new(&source.inner, &target.inner, &raw, project).map_err(PyCoreError)?)
             } else {
@@ -83,7 +83,9 @@ impl NativeBetween {
             match &self.real {
                 Some(op) => rect_to_python(
                     py,
-                    detached(py, threads, |r, s| between::build_csr(src, dst, op, r, s, force_wide))?,
+                    detached(py, threads, |r, s| {
+                        between::build_csr(src, dst, op, r, s, force_wide)
+                    })?,
                 ),
                 None => rect_to_python(
                     py,
@@ -118,7 +120,8 @@ impl NativeBetween {
                 (owned, _) => {
                     let x = owned.into_complex()?;
                     let y = detached(py, threads, |r, s| {
-                        let mut y = fockmill_core::memory::try_filled(rows, Complex64::ZERO, "the product vector")?;
+                        let mut y =
+                            fockmill_core::memory::try_filled(rows, Complex64::ZERO, "the product vector")?;
                         between::apply_many(src, dst, &self.complex, &x, &mut y, 1, r, s).map(|_| y)
                     })?;
                     Ok(y.into_pyarray(py).into_any())
@@ -156,13 +159,16 @@ impl NativeBetween {
                 _ => {
                     let what = "a copy of the input block";
                     let xs: Vec<Complex64> = match &x {
-                        InBlock::Real(a) => {
-                            owned_copy(a.len(), a.as_array().iter().map(|&v| Complex64::new(v, 0.0)), what)?
-                        }
+                        InBlock::Real(a) => owned_copy(
+                            a.len(),
+                            a.as_array().iter().map(|&v| Complex64::new(v, 0.0)),
+                            what,
+                        )?,
                         InBlock::Complex(a) => owned_copy(a.len(), a.as_array().iter().copied(), what)?,
                     };
                     let y = detached(py, threads, |r, s| {
-                        let mut y = fockmill_core::memory::try_filled(len, Complex64::ZERO, "the product block")?;
+                        let mut y =
+                            fockmill_core::memory::try_filled(len, Complex64::ZERO, "the product block")?;
                         between::apply_many(src, dst, &self.complex, &xs, &mut y, k, r, s).map(|_| y)
                     })?;
                     let arr = Array2::from_shape_vec((rows, k), y).expect("shape checked by the core");
@@ -183,7 +189,9 @@ impl NativeBetween {
         guarded(|| {
             let (src, dst) = (&self.source, &self.target);
             match &self.real {
-                Some(op) => detached(py, threads, |r, s| between::estimate_nnz(src, dst, op, samples, r, s)),
+                Some(op) => detached(py, threads, |r, s| {
+                    between::estimate_nnz(src, dst, op, samples, r, s)
+                }),
                 None => detached(py, threads, |r, s| {
                     between::estimate_nnz(src, dst, &self.complex, samples, r, s)
                 }),

@@ -30,7 +30,9 @@ pub struct Between<S: Scalar> {
 fn lands_in(source: &FockSpace, target: &FockSpace, delta: i64) -> bool {
     match (source.constraint(), target.constraint()) {
         (_, Constraint::Free) => true,
-        (Constraint::Exact { total: s }, Constraint::Exact { total: t }) => s as i128 + delta as i128 == t as i128,
+        (Constraint::Exact { total: s }, Constraint::Exact { total: t }) => {
+            s as i128 + delta as i128 == t as i128
+        }
         (Constraint::Exact { total: s }, Constraint::Modular { total: t, modulus }) => {
             (s as i128 + delta as i128).rem_euclid(modulus as i128) == t as i128
         }
@@ -561,8 +563,14 @@ mod tests {
         let n1 = FockSpace::new(vec![2, 2], None, Some(1), None).unwrap();
         let e = Between::<f64>::new(&n2, &n1, &[RawTerm::new(1.0, 0.0, vec![(0, 1, 0)])], false).unwrap_err();
         let text = e.to_string();
-        assert!(matches!(e, CoreError::ChargeViolation { charge: 1, .. }), "{text}");
-        assert!(text.contains("a0†") && text.contains("= 2") && text.contains("= 1"), "{text}");
+        assert!(
+            matches!(e, CoreError::ChargeViolation { charge: 1, .. }),
+            "{text}"
+        );
+        assert!(
+            text.contains("a0†") && text.contains("= 2") && text.contains("= 1"),
+            "{text}"
+        );
         // Into the full space anything lands.
         let full = FockSpace::new(vec![2, 2], None, None, None).unwrap();
         assert!(Between::<f64>::new(&n2, &full, &[RawTerm::new(1.0, 0.0, vec![(0, 1, 0)])], false).is_ok());
