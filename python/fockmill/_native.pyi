@@ -13,6 +13,7 @@ import numpy.typing as npt
 
 __all__ = [
     "NativeBetween",
+    "NativeCsr",
     "NativeOperator",
     "NativePool",
     "NativeSpace",
