@@ -14,7 +14,7 @@ use crate::memory::{try_filled, try_with_capacity};
 use crate::parallel::{Interrupt, Runner, BLOCKS_PER_CHECK, BLOCK_ROWS};
 use crate::scalar::Scalar;
 use crate::space::{Constraint, FockSpace, MAX_CUTOFF};
-use crate::terms::{format_monomial, RawTerm};
+use crate::terms::{format_monomial, Monomial, RawTerm};
 use rayon::prelude::*;
 
 /// Validated, merged terms of an operator from a source space to a target space.
@@ -22,7 +22,7 @@ use rayon::prelude::*;
 pub struct Between<S: Scalar> {
     coefs: Vec<S>,
     /// `(mode, quanta removed from the row state, quanta added)` per term, by mode.
-    factors: Vec<Vec<(usize, u32, u32)>>,
+    factors: Vec<Monomial>,
 }
 
 /// Whether every state of `source`, changed in charge by `delta`, lies in `target`'s
@@ -90,9 +90,8 @@ impl<S: Scalar> Between<S> {
                 target.weights()
             )));
         }
-        let mut merged: Vec<(Vec<(usize, u32, u32)>, f64, f64)> = Vec::new();
-        let mut lookup: std::collections::HashMap<Vec<(usize, u32, u32)>, usize> =
-            std::collections::HashMap::new();
+        let mut merged: Vec<(Monomial, f64, f64)> = Vec::new();
+        let mut lookup: std::collections::HashMap<Monomial, usize> = std::collections::HashMap::new();
         for t in terms {
             let mut factors: Vec<(usize, u32, u32)> =
                 t.factors.iter().copied().filter(|f| f.1 + f.2 > 0).collect();
