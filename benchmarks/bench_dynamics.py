@@ -57,7 +57,7 @@ def load() -> str:
     return " ".join(f"{x:.2f}" for x in os.getloadavg())
 
 
-def bench_size(sites: int, tasks: list[str], repeats: int) -> list[tuple]:
+def bench_size(sites: int, tasks: list[str], repeats: int, samples: int = 20) -> list[tuple]:
     """Rows of the table for one ring size."""
     rows: list[tuple] = []
     h = bose_hubbard_ring(sites, 1.0, 1.0)
@@ -109,7 +109,7 @@ def bench_size(sites: int, tasks: list[str], repeats: int) -> list[tuple]:
                 temperatures,
                 {"n0^2": fm.number(0) * fm.number(0)},
                 method="ftlm",
-                samples=20,
+                samples=samples,
                 cutoff_warning=None,
             )
 
@@ -118,7 +118,7 @@ def bench_size(sites: int, tasks: list[str], repeats: int) -> list[tuple]:
             f"E(T=1) = {th.energy[10]:.4f} ± {th.errors[10]:.4f}, "
             f"C(T=1) = {th.heat_capacity[10]:.4f} ± {th.heat_capacity_errors[10]:.4f}"
         )
-        rows.append((sites, space.dim, "FTLM, 20 vectors", seconds, cpu, "ftlm", detail))
+        rows.append((sites, space.dim, f"FTLM, {samples} vectors", seconds, cpu, "ftlm", detail))
     return rows
 
 
@@ -127,6 +127,7 @@ def main() -> None:
     parser.add_argument("--sites", type=int, nargs="+", default=[12])
     parser.add_argument("--repeats", type=int, default=1)
     parser.add_argument("--tasks", nargs="+", default=["evolve", "spectral", "ftlm"])
+    parser.add_argument("--samples", type=int, default=20, help="FTLM random vectors")
     args = parser.parse_args()
     print(
         f"cores: {os.cpu_count()}, BLAS threads {os.environ['OPENBLAS_NUM_THREADS']}, "
@@ -134,7 +135,7 @@ def main() -> None:
     )
     rows = []
     for sites in args.sites:
-        rows += bench_size(sites, args.tasks, args.repeats)
+        rows += bench_size(sites, args.tasks, args.repeats, args.samples)
     print(f"load average after: {load()}")
     print(
         table(

@@ -144,3 +144,22 @@ def test_a_build_beyond_the_memory_limit_is_refused_up_front():
     n5 = fm.FockSpace(modes=6, cutoff=6, total=5)
     with pytest.raises(SizeLimitError, match="build_operator"):
         fm.build_matrix(fm.lowering(0), n6, target=n5, memory_limit=1000)
+
+
+def test_a_prepared_problem_between_sectors():
+    # Same oracle as above: the kron construction cut to rows N = 2 and columns N = 3.
+    cutoffs = [3, 3, 3]
+    n3 = fm.FockSpace(cutoff=cutoffs, total=3)
+    n2 = fm.FockSpace(cutoff=cutoffs, total=2)
+    expr = 0.5 * fm.lowering(1) + (1 - 2j) * fm.raising(0) * fm.lowering(2) ** 2
+    problem = fm.prepare(expr, n3, target=n2)
+    assert problem.shape == (n2.dim, n3.dim) and not problem.is_square
+    expected = rectangular_reference(
+        expr, cutoffs, sector_occupations(cutoffs, total=3), sector_occupations(cutoffs, total=2)
+    )
+    x = np.arange(n3.dim, dtype=float)
+    np.testing.assert_allclose(problem.matvec(x), expected @ x, atol=1e-12)
+    np.testing.assert_allclose(problem.matrix().toarray(), expected, atol=1e-12)
+    assert problem.estimate.nnz == np.count_nonzero(expected)
+    # An equal target is the square case.
+    assert fm.prepare(fm.number(0), n3, target=fm.FockSpace(cutoff=cutoffs, total=3)).is_square
