@@ -127,9 +127,10 @@ def main() -> None:
     print(
         "\nmedians of",
         args.repeats,
-        "runs; 'vs python' = pure-Python time / fockmill time "
-        "(target >= 500x at L=11); 'vs fill' = fockmill time / numpy fill time "
-        "(target <= 3x at L=13).",
+        "runs (wall clock; fockmill's time includes preparing its kernel); 'vs python' = "
+        "pure-Python time / fockmill time (target >= 500x at L=11); 'vs fill' = fockmill "
+        f"time / numpy fill time (target <= 3x at L=13). Load: {os.getloadavg()[0]:.1f} "
+        f"(1-min average on {os.cpu_count()} cores).",
     )
 
 

@@ -552,6 +552,7 @@ VOCABULARY = [
     "frequency_scale", "kerr_scale", "cross_kerr_scale", "exchange_scale",
     "terms", "units", "energy", "value", "fixed", "per_mode", "modes", "weights",
     "random", "add_adjoint", "distribution", "seed", "count(@)", "raise(0) lower(1)",
+    "description",
     *RECORDABLE,
 ]  # fmt: skip
 TABLES = ["model", "terms", "parameters", "units", "drives", "sweep", "record", "solver"]

@@ -151,6 +151,11 @@ U = 2.0
     built = fm.build_matrix(spec.model.hamiltonian(), spec.model.space).toarray()
     np.testing.assert_allclose(built, expected, atol=1e-12)
     assert spec.mode_weights == {"detuning": (0.1, -0.2, 0.3)}
+    assert spec.descriptions == {}
+    described = fm.parse_model_text(
+        CHAIN3 + '[terms.W]\ndescription = "disorder"\nterms = ["count(0)"]\n'
+    )
+    assert described.descriptions == {"W": "disorder"}
     assert spec.model.parameters["x"] == 0.7
 
 
@@ -222,7 +227,7 @@ quantities = ["energy", "gap"]
     spec = fm.parse_model_text(text)
     assert spec.sweep is not None
     table = fm.run_sweep(
-        spec.model, spec.sweep.points(), record=["energy", "gap"], progress=False, workers=1
+        spec.model, spec.sweep.points(), quantities=["energy", "gap"], progress=False, workers=1
     )
     for row in table:
         delta = row.parameters["delta"]
@@ -297,6 +302,12 @@ omega = 2.0
         ),
         ('[terms.x]\nmodes = [0]\nterms = ["count(0)"]\n', "terms.x.modes", "per_mode"),
         ('[units]\nenergy = ""\n', "units.energy", "unit such as"),
+        ('[terms.x]\nterms = ["count(0)"]\ndescription = ""\n', "terms.x.description", "short"),
+        (
+            '[terms.x]\nfixed = true\nterms = ["count(0)"]\ndescription = "a"\n',
+            "terms.x.description",
+            "no parameter",
+        ),
         ('[units]\nV = "J"\n', "units.V", "unknown key"),
     ],
 )
@@ -319,6 +330,8 @@ def test_examples_cover_every_section_and_key() -> None:
         assert section in texts, section
     for key in ("per_mode", "weights", "random", "add_adjoint", "fixed", "modes", "value"):
         assert re.search(rf"^{key} = ", texts, re.MULTILINE), key
+    for key in ("description",):
+        assert re.search(rf"^{key} = ", texts, re.MULTILINE), key
     # "chain" is "ring" without the closing bond; the other three appear verbatim.
     for lattice in ("ring", "rectangle", "edges"):
         assert f'lattice = "{lattice}"' in texts, lattice
@@ -331,6 +344,7 @@ def test_examples_cover_every_section_and_key() -> None:
         ("coherent", "two_photon", "values", "start", "stop", "num", "spacing"),
         ("quantities", "levels", "entropy_modes", "tol", "method", "threads"),
         ("value", "fixed", "terms", "per_mode", "modes", "weights", "random", "add_adjoint"),
+        ("description",),
         ("distribution", "seed", "low", "high", "mean", "std", "energy"),
     ):
         assert f"`{word}`" in docs, word
@@ -359,7 +373,17 @@ TERM_VALUES = st.recursive(
 )
 TERM_TABLES = st.dictionaries(
     st.sampled_from(
-        ["value", "fixed", "terms", "per_mode", "modes", "weights", "random", "add_adjoint"]
+        [
+            "value",
+            "fixed",
+            "description",
+            "terms",
+            "per_mode",
+            "modes",
+            "weights",
+            "random",
+            "add_adjoint",
+        ]
     ),
     TERM_VALUES,
     max_size=5,

@@ -434,7 +434,8 @@ def test_coherent_drive_ground_energy_converges() -> None:
 def test_two_photon_drive_parity_sectors(parity: int, level: int) -> None:
     # ω a†a + λ (a†² + a²) = (ω/2 + λ) x² + (ω/2 − λ) p² − ω/2 with a = (x + ip)/√2, an
     # oscillator of frequency Ω = √(ω² − 4λ²): E_k = Ω (k + ½) − ω/2 for |2λ| < ω
-    # (common practice, no source). Even k live in the even sector, odd k in the odd one.
+    # (a Bogoliubov transformation: Bogoliubov, J. Phys. USSR 11, 23 (1947); from memory
+    # for the reference). Even k live in the even sector, odd k in the odd one.
     omega, amplitude = 1.0, 0.2
     model = with_drives(kerr_network([omega], cutoff=60, total=parity), two_photon={0: amplitude})
     assert model.space.modulus == 2 and model.space.total == parity

@@ -8,7 +8,6 @@ entropy names its bipartition.
 
 from __future__ import annotations
 
-import json
 from pathlib import Path
 from typing import Any
 
@@ -45,7 +44,7 @@ def sweep(text: str, **options: Any) -> tuple[fm.ModelFile, fm.SweepTable]:
     table = fm.run_sweep(
         spec.model,
         spec.sweep.points(),
-        record=spec.record,
+        quantities=spec.quantities,
         levels=spec.levels,
         entropy_modes=spec.entropy_modes or None,
         progress=False,
@@ -139,7 +138,7 @@ def test_labels_come_from_the_results_file_metadata(tmp_path: Path) -> None:
         spec.model,
         spec.sweep.points(),
         store=path,
-        record=["energy", "populations"],
+        quantities=["energy", "populations"],
         progress=False,
         workers=1,
     )
@@ -149,9 +148,9 @@ def test_labels_come_from_the_results_file_metadata(tmp_path: Path) -> None:
     assert figure.axes[0].get_xlabel() == "on-site interaction $U$"
     assert "dim 35" in figure.get_suptitle() and "0 modes" not in figure.get_suptitle()
     with fm.ResultsStore.open(path) as store:
-        store.set_meta("units", json.dumps({"energy": "meV", "U": "meV"}))
-        store.set_meta("mode_labels", json.dumps(["a", "b", "c", "d"]))
-        store.set_meta("space", json.dumps({"cutoffs": [4] * 4, "total": 4, "dim": 35}))
+        store.set_meta("units", {"energy": "meV", "U": "meV"})
+        store.set_meta("mode_labels", ["a", "b", "c", "d"])
+        store.set_meta("space", {"cutoffs": [4] * 4, "total": 4, "dim": 35})
     figure = sweep_figure(path, y=["energy"])
     assert "4 modes, dim 35, N = 4 on 4 modes, filling 1" in figure.get_suptitle()
     assert figure.axes[0].get_ylabel() == "ground energy $E_0$ (meV)"
@@ -172,3 +171,23 @@ def test_scale_factors_and_user_parameters_say_what_they_are() -> None:
     )
     assert axis_label("W", {"W": "J"}, "bose-hubbard") == "parameter $W/J$"
     assert axis_label("pair_split", {"pair_split": "MHz"}) == "parameter pair_split (MHz)"
+    described = axis_label("W", {"W": "J"}, "bose-hubbard", {"W": "disorder strength"})
+    assert described == "disorder strength $W/J$"
+
+
+def test_a_table_brings_its_own_labels_and_units() -> None:
+    # What `fockmill demo` draws: a SweepTable, no model file, no results file.
+    spec = fm.parse_model_text(RING)
+    assert spec.sweep is not None
+    table = fm.run_sweep(
+        spec.model,
+        spec.sweep,
+        quantities=["energy", "populations"],
+        units=spec.units,
+        progress=False,
+        workers=1,
+    )
+    figure = sweep_figure(table, y=["energy", "populations"])
+    assert figure.axes[0].get_ylabel() == "ground energy $E_0$ / $J$"
+    assert figure.axes[1].get_xlabel() == "on-site interaction $U/J$"
+    assert [line.get_label() for line in figure.axes[1].get_lines()] == ["site 0–3 (equal)"]

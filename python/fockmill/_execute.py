@@ -19,7 +19,13 @@ from typing import Any
 
 from fockmill._args import check_positive_int
 from fockmill._plan import SweepSettings
-from fockmill._records import ModelRecipe, PreparedModel, solve_path, worker_model
+from fockmill._records import (
+    SHARED_PATTERN_MIN_POINTS,
+    ModelRecipe,
+    PreparedModel,
+    solve_path,
+    worker_model,
+)
 from fockmill._store import PointResult
 from fockmill.exceptions import PoolStartError
 
@@ -35,6 +41,7 @@ class _Chunk:
     recipe: ModelRecipe
     settings: SweepSettings
     points: tuple[tuple[int, dict[str, float]], ...] = field(default=())
+    per_worker: int = 1  # about how many points each worker solves in this sweep
 
 
 def _solve_chunk(chunk: _Chunk) -> list[PointResult]:
@@ -43,7 +50,8 @@ def _solve_chunk(chunk: _Chunk) -> list[PointResult]:
     if settings.threads is None:  # one native thread per worker process by default
         settings = dataclasses.replace(settings, threads=1)
     with _limit_blas_threads(settings.threads):
-        prepared = worker_model(chunk.recipe, settings)
+        many = chunk.per_worker >= SHARED_PATTERN_MIN_POINTS
+        prepared = worker_model(chunk.recipe, settings, many)
         return list(solve_path(prepared, chunk.points, settings))
 
 
@@ -79,7 +87,7 @@ def _refuse_nested_start() -> None:
 
 
 def _resolve_executor(
-    executor: cf.Executor | str | Any | None, workers: int | None
+    executor: cf.Executor | str | Any | None, workers: int | None, points: int
 ) -> tuple[cf.Executor | None, bool, int]:
     """(executor or None for in-process, whether we own it, parallel slots)."""
     if workers is not None:
@@ -91,7 +99,8 @@ def _resolve_executor(
             )
         return None, False, 1
     if executor is None:
-        slots = workers if workers is not None else (os.cpu_count() or 1)
+        # No more processes than points: a single point never starts a pool.
+        slots = workers if workers is not None else min(points, os.cpu_count() or 1)
         if slots == 1:
             return None, False, 1
         _refuse_nested_start()
@@ -142,7 +151,7 @@ def execute(
     """Solve the points ``order`` (already in path order), handing each row to ``finish``."""
     if chunk is not None:
         chunk = check_positive_int("chunk", chunk)
-    pool, owned, slots = _resolve_executor(executor, workers)
+    pool, owned, slots = _resolve_executor(executor, workers, len(order))
     if pool is None:
         prepared = PreparedModel.build(recipe, settings, points=len(order), first=full[order[0]])
         for row in solve_path(prepared, ((i, full[i]) for i in order), settings):
@@ -155,7 +164,8 @@ def execute(
     try:
         for start in range(0, len(order), size):
             part = order[start : start + size]
-            task = _Chunk(recipe, settings, tuple((i, full[i]) for i in part))
+            per_worker = math.ceil(len(order) / slots)
+            task = _Chunk(recipe, settings, tuple((i, full[i]) for i in part), per_worker)
             futures.append(pool.submit(_solve_chunk, task))
         for future in cf.as_completed(futures):
             for row in future.result():

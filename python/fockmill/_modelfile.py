@@ -236,6 +236,8 @@ class ModelFile:
     mode_weights : dict of str to tuple of float
         For every ``[terms.NAME]`` table with ``per_mode``, the weight used on each
         listed mode (the listed ``weights`` or the drawn disorder), in ``modes`` order.
+    descriptions : dict of str to str
+        ``[terms.NAME] description``: what a user's parameter is, for axis labels.
     """
 
     path: str | None
@@ -248,6 +250,7 @@ class ModelFile:
     text_hash: str
     units: dict[str, str] = field(default_factory=dict)
     mode_weights: dict[str, tuple[float, ...]] = field(default_factory=dict)
+    descriptions: dict[str, str] = field(default_factory=dict)
 
     def __hash__(self) -> int:
         return hash(self.text_hash)
@@ -792,7 +795,17 @@ def _solver(reader: _Reader, value: object) -> dict[str, object]:
 # -- [terms] and [units] ------------------------------------------------------------------
 
 _PARAMETER_NAME = re.compile(r"^[A-Za-z][A-Za-z0-9_]*$")
-_TERM_KEYS = ["value", "fixed", "terms", "per_mode", "modes", "weights", "random", "add_adjoint"]
+_TERM_KEYS = [
+    "value",
+    "fixed",
+    "description",
+    "terms",
+    "per_mode",
+    "modes",
+    "weights",
+    "random",
+    "add_adjoint",
+]
 _DISTRIBUTIONS = ("uniform", "normal")
 MAX_UNIT_LENGTH = 40
 
@@ -897,7 +910,7 @@ def _term_modes(reader: _Reader, table: Mapping[str, Any], path: str, model: Mod
 
 def _terms(
     reader: _Reader, value: object, model: Model
-) -> tuple[Model, dict[str, tuple[float, ...]]]:
+) -> tuple[Model, dict[str, tuple[float, ...]], dict[str, str]]:
     """``[terms.NAME]`` tables: the user's own terms, each family scaled by parameter NAME."""
     sections = reader.table(value, "terms")
     if not sections:
@@ -906,6 +919,7 @@ def _terms(
     parameters = dict(model.parameters)
     constant = model.constant
     weights_used: dict[str, tuple[float, ...]] = {}
+    descriptions: dict[str, str] = {}
     for name, raw in sections.items():
         path = _join("terms", name)
         table = reader.table(raw, path)
@@ -926,6 +940,13 @@ def _terms(
                 "a new parameter name must start with a letter and hold only letters, digits and _",
             )
         scale = reader.number(table.get("value", 1.0), _join(path, "value"))
+        if "description" in table:
+            text = table["description"]
+            if not isinstance(text, str) or not text.strip() or len(text) > 80:
+                reader.wrong(_join(path, "description"), "a short text (1 to 80 characters)", text)
+            if fixed:
+                reader.fail(_join(path, "description"), "fixed terms have no parameter to describe")
+            descriptions[name] = text.strip()
         if "terms" not in table and "per_mode" not in table:
             reader.fail(path, 'expected terms = ["..."] and/or per_mode = "..."')
         for key in ("modes", "weights", "random"):
@@ -971,6 +992,7 @@ def _terms(
     return (
         dataclasses.replace(model, pieces=pieces, parameters=parameters, constant=constant),
         weights_used,
+        descriptions,
     )
 
 
@@ -1017,8 +1039,9 @@ def _parse(text: str, source: str, path: str | None) -> ModelFile:
             reader.wrong("schema", f"{SCHEMA_VERSION} (the only layout so far)", version)
     model = _build_model(reader, document)
     mode_weights: dict[str, tuple[float, ...]] = {}
+    descriptions: dict[str, str] = {}
     if "terms" in document:
-        model, mode_weights = _terms(reader, document["terms"], model)
+        model, mode_weights, descriptions = _terms(reader, document["terms"], model)
     if "parameters" in document:
         model = _parameters(reader, document["parameters"], model)
     units = _units(reader, document["units"], model) if "units" in document else {}
@@ -1036,6 +1059,7 @@ def _parse(text: str, source: str, path: str | None) -> ModelFile:
         text_hash=hashlib.sha256(text.encode("utf-8", "surrogatepass")).hexdigest(),
         units=units,
         mode_weights=mode_weights,
+        descriptions=descriptions,
     )
 
 

@@ -146,11 +146,6 @@ def sweep_settings(
     if "gap" in chosen and count < 2:
         raise ValueError("recording 'gap' needs levels >= 2; pass levels=2 or drop 'gap'")
     method_name = check_method(options["method"])
-    if method_name == "lanczos" and count > 1:
-        raise ValueError(
-            "method 'lanczos' computes the ground state only; use levels=1 without 'gap', "
-            "or another method for several levels"
-        )
     modes = model.space.modes
     if entropy_modes is None:
         subsystem = tuple(range(max(1, modes // 2)))

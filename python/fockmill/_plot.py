@@ -81,8 +81,12 @@ _MAX_CYCLE = 10
 _TRAILING_INDEX = re.compile(r"^(.*?)(\d+)$")
 
 
-def _describe(name: str, model_name: str) -> tuple[str, str]:
+def _describe(
+    name: str, model_name: str, descriptions: Mapping[str, str] | None = None
+) -> tuple[str, str]:
     base = model_name.removeprefix("driven ")
+    if descriptions and name in descriptions:
+        return (descriptions[name], f"${name}$" if re.fullmatch(r"[A-Za-z]", name) else name)
     if (base, name) in _MODEL_SPECIFIC:
         return _MODEL_SPECIFIC[(base, name)]
     if name in _PARAMETERS:
@@ -91,7 +95,12 @@ def _describe(name: str, model_name: str) -> tuple[str, str]:
     return ("parameter", f"${name}$" if re.fullmatch(r"[A-Za-z]", name) else name)
 
 
-def axis_label(name: str, units: Mapping[str, str], model_name: str = "") -> str:
+def axis_label(
+    name: str,
+    units: Mapping[str, str],
+    model_name: str = "",
+    descriptions: Mapping[str, str] | None = None,
+) -> str:
     """The axis label of parameter ``name``: what it is, its symbol and its unit.
 
     Parameters
@@ -103,6 +112,8 @@ def axis_label(name: str, units: Mapping[str, str], model_name: str = "") -> str
         written as a ratio (``U/J``), any other in parentheses (``ω_e (GHz)``).
     model_name : str, optional
         The model's name, for parameters whose meaning depends on the model.
+    descriptions : mapping of str to str, optional
+        What the user's own parameters are (``[terms.NAME] description``).
 
     Returns
     -------
@@ -115,7 +126,7 @@ def axis_label(name: str, units: Mapping[str, str], model_name: str = "") -> str
     >>> axis_label("we", {"we": "GHz"}, "jaynes-cummings-hubbard")
     'emitter frequency $\\\\omega_e$ (GHz)'
     """
-    description, symbol = _describe(name, model_name)
+    description, symbol = _describe(name, model_name, descriptions)
     unit = units.get(name)
     if not unit:
         return f"{description} {symbol}"
@@ -153,8 +164,8 @@ def _describe_modes(indices: Sequence[int], labels: Sequence[str]) -> str:
     return ", ".join(names)
 
 
-def _meta_json(meta: Mapping[str, str], key: str) -> Any:
-    """A JSON value stored in the results metadata, or None when absent or unreadable."""
+def _meta_json(meta: Mapping[str, Any], key: str) -> Any:
+    """A metadata value (plain JSON, or JSON text in older files), None when unreadable."""
     text = meta.get(key)
     if text is None:
         return None
@@ -166,7 +177,7 @@ def _meta_json(meta: Mapping[str, str], key: str) -> Any:
         return None
 
 
-def _context_from_meta(meta: Mapping[str, str]) -> dict[str, Any]:
+def _context_from_meta(meta: Mapping[str, Any]) -> dict[str, Any]:
     """What the results file says about the model (each entry may be missing)."""
     out: dict[str, Any] = {"model_name": meta.get("model_name", "")}
     labels = _meta_json(meta, "mode_labels")
@@ -178,6 +189,9 @@ def _context_from_meta(meta: Mapping[str, str]) -> dict[str, Any]:
     space = _meta_json(meta, "space")
     if isinstance(space, dict):
         out["space"] = space
+    described = _meta_json(meta, "descriptions")
+    if isinstance(described, dict):
+        out["descriptions"] = {str(k): str(v) for k, v in described.items()}
     settings = _meta_json(meta, "settings")
     if isinstance(settings, dict) and isinstance(settings.get("entropy_modes"), list):
         out["entropy_modes"] = [int(i) for i in settings["entropy_modes"]]
@@ -193,7 +207,15 @@ def _as_table(
     source: SweepTable | ResultsStore | str | os.PathLike[str],
 ) -> tuple[SweepTable, dict[str, Any]]:
     if isinstance(source, SweepTable):
-        return source, {}
+        # A table carries the mode labels and units of its sweep (when it kept them).
+        context: dict[str, Any] = {}
+        labels = list(getattr(source, "mode_labels", ()) or ())
+        if labels:
+            context["mode_labels"] = [str(label) for label in labels]
+        units = dict(getattr(source, "units", {}) or {})
+        if units:
+            context["units"] = {str(k): str(v) for k, v in units.items()}
+        return source, context
     if isinstance(source, ResultsStore):
         return source.to_table(), _context_from_meta(source.meta)
     with ResultsStore.open(source) as store:
@@ -381,6 +403,7 @@ def sweep_figure(
         context.setdefault("units", dict(model_file.units))
         context.setdefault("space", _space_summary(model_file.model.space))
         context.setdefault("entropy_modes", list(model_file.entropy_modes))
+        context.setdefault("descriptions", dict(model_file.descriptions))
     if space is not None:
         context["space"] = _space_summary(space)
     elif "space" not in context and "dim" in context:
@@ -463,7 +486,7 @@ def sweep_figure(
                 ncols=1 if len(lines) <= 16 else 2,
             )
         axis.grid(alpha=0.3)
-    axes[-1].set_xlabel(axis_label(x, unit_map, model_name))
+    axes[-1].set_xlabel(axis_label(x, unit_map, model_name, context.get("descriptions")))
     if _evenly_spaced_in_log(xs):
         axes[-1].set_xscale("log")
     else:

@@ -97,11 +97,11 @@ class Problem:
         """Internal hook (sweeps): a problem built around parts made elsewhere.
 
         ``matrix``: its CSR matrix, ready-made (a sweep assembles it from the model's
-        shared sparsity pattern); :meth:`matrix` returns it instead of building, so
-        the dense and eigsh methods solve on it. ``pool``: a ``NativePool`` kept by the
-        caller (with ``threads`` its size). ``estimate``: a memory estimate made once
-        for many points. The expression is still validated and compiled (matrix-free
-        methods and the Lanczos solver use it).
+        shared sparsity pattern); :meth:`matrix` returns it instead of building, and
+        every stored-matrix method (dense, eigsh, the Rust Lanczos solvers) solves on
+        it. ``pool``: a ``NativePool`` kept by the caller (with ``threads`` its size).
+        ``estimate``: a memory estimate made once for many points. The expression is
+        still validated and compiled (the matrix-free methods use it).
         """
         problem = cls(expr, space)  # threads=None: rayon's global pool, no new threads
         problem.threads = check_threads(threads)

@@ -440,22 +440,38 @@ def _native_ground(
 ) -> tuple[float, npt.NDArray[Any], float, int, int]:
     """The four-vector Lanczos in Rust: (energy, vector, residual, steps, products)."""
     start = _start_vector(v0, problem, seed)
-    stored = _store_matrix(problem, store_matrix)
-    if stored:
-        problem.check_build_fits()
     # Each Lanczos step costs about two products (the second pass regenerates the
     # Krylov vectors), so a product budget allows half as many steps.
     max_steps = 400 if max_iterations is None else max(2, min(400, max_iterations // 2))
     restarts = 8 if max_iterations is None else max(0, max_iterations // (2 * max_steps) - 1)
-    energy, vector, residual, steps, products, _, converged = problem.native.lanczos_ground(
-        tol, max_steps, restarts, seed, start, problem.pool, stored
-    )
+    ready = _ready_csr(problem)
+    if ready is not None:  # a matrix handed in (sweeps): solve on it, build nothing
+        found = ready.lanczos_ground(tol, max_steps, restarts, seed, start, problem.pool)
+    else:
+        stored = _store_matrix(problem, store_matrix)
+        if stored:
+            problem.check_build_fits()
+        found = problem.native.lanczos_ground(
+            tol, max_steps, restarts, seed, start, problem.pool, stored
+        )
+    energy, vector, residual, steps, products, _, converged = found
     if not converged:
         raise ConvergenceError(
             f"Lanczos reached a residual of {residual:.3e} after {products} products, "
             f"short of tol={tol}; raise max_iterations or tol, or pass v0"
         )
     return float(energy), vector, float(residual), int(steps), int(products)
+
+
+def _ready_csr(problem: Problem) -> Any:
+    """The Rust solvers' view of a matrix handed to the problem (``Problem._from_parts``),
+    or None when the problem builds its own."""
+    ready = problem._ready_matrix
+    if ready is None:
+        return None
+    from fockmill import _native
+
+    return _native.NativeCsr(ready.indptr, ready.indices, np.ascontiguousarray(ready.data))
 
 
 def _lanczos_vectors(k: int) -> int:
@@ -483,13 +499,18 @@ def _native_levels(
     start = None if v0 is None else check_vector(problem.space, v0, "v0")
     if start is not None and problem.is_real and start.dtype.kind == "c":
         start = np.ascontiguousarray(start.real) if np.any(start.real) else None
-    stored = _store_matrix(problem, store_matrix, k)
-    if stored:
-        problem.check_build_fits()
     max_products = 20_000 if max_iterations is None else int(max_iterations)
-    energies, vectors, residuals, products, _, converged = problem.native.lanczos_levels(
-        k, tol, max_products, seed, start, problem.pool, stored
-    )
+    ready = _ready_csr(problem)
+    if ready is not None:  # a matrix handed in (sweeps): solve on it, build nothing
+        found = ready.lanczos_levels(k, tol, max_products, seed, start, threads=problem.pool)
+    else:
+        stored = _store_matrix(problem, store_matrix, k)
+        if stored:
+            problem.check_build_fits()
+        found = problem.native.lanczos_levels(
+            k, tol, max_products, seed, start, problem.pool, stored
+        )
+    energies, vectors, residuals, products, _, converged = found
     if not converged:
         worst = int(np.argmax(residuals / np.maximum(1.0, np.abs(energies))))
         raise ConvergenceError(

@@ -551,15 +551,24 @@ class ResultsStore:
         """Names of the swept parameters (``meta.swept_parameters``)."""
         return tuple(self.meta.get("swept_parameters") or ())
 
+    def _meta_value(self, key: str, kind: type) -> Any:
+        value = self.meta.get(key)
+        if isinstance(value, str) and kind is not str:  # written as JSON inside a string
+            try:
+                value = json.loads(value)
+            except ValueError:
+                return None
+        return value if isinstance(value, kind) else None
+
     @property
     def mode_labels(self) -> tuple[str, ...]:
         """Label of each mode (``meta.mode_labels``; empty when not stored)."""
-        return tuple(str(label) for label in self.meta.get("mode_labels") or ())
+        return tuple(str(label) for label in self._meta_value("mode_labels", list) or ())
 
     @property
     def units(self) -> dict[str, str]:
         """Units of parameters and of ``"energy"`` (``meta.units``; empty when not given)."""
-        return {str(k): str(v) for k, v in (self.meta.get("units") or {}).items()}
+        return {str(k): str(v) for k, v in (self._meta_value("units", dict) or {}).items()}
 
     def finished_indices(self, *, include_failed: bool = True) -> set[int]:
         """Indices of the points stored (all, or only those with status ``ok``)."""

@@ -54,6 +54,19 @@ def mode_labels_of(model: Model) -> list[str]:
     return labels
 
 
+def space_summary(model: Model) -> dict[str, Any]:
+    """The model's space as stored in results files (``meta.space``)."""
+    space = model.space
+    return {
+        "modes": space.modes,
+        "cutoffs": [int(c) for c in space.cutoffs],
+        "weights": [int(w) for w in space.weights],
+        "total": space.total,
+        "modulus": space.modulus,
+        "dim": space.dim,
+    }
+
+
 def _new_meta(
     model: Model,
     full: list[dict[str, float]],
@@ -67,6 +80,7 @@ def _new_meta(
         "model_fingerprint": model.fingerprint(),
         "model_text_hash": model_text_hash or "",
         "dim": model.space.dim,
+        "space": space_summary(model),
         "points": len(full),
         "swept_parameters": list(swept),
         "settings": settings.as_meta(),

@@ -9,7 +9,7 @@ mod interrupt;
 mod levels;
 
 use errors::{guarded, PyCoreError};
-use fockmill_core::build::{build_csr, CsrAny};
+use fockmill_core::build::{build_csr, build_csr_with, CsrAny};
 use fockmill_core::estimate::estimate_nnz;
 use fockmill_core::lanczos::{self, FockMap, LanczosOptions};
 use fockmill_core::matvec::Product;
@@ -394,15 +394,18 @@ impl NativeOperator {
         threads: Option<Threads<'_>>,
         force_wide: bool,
     ) -> PyResult<Bound<'py, PyAny>> {
+        // The kept product kernel writes the rows (built once, shared with products).
         guarded(|| match &self.real {
             Some(op) => csr_to_python(
                 py,
-                detached(py, threads, |r, s| build_csr(&self.space, op, r, s, force_wide))?,
+                detached(py, threads, |r, s| {
+                    build_csr_with(&self.space, self.real_product(op)?, r, s, force_wide)
+                })?,
             ),
             None => csr_to_python(
                 py,
                 detached(py, threads, |r, s| {
-                    build_csr(&self.space, &self.complex, r, s, force_wide)
+                    build_csr_with(&self.space, self.complex_product()?, r, s, force_wide)
                 })?,
             ),
         })

@@ -1,8 +1,10 @@
 //! Row-parallel CSR assembly in two passes (count, then fill), so that peak memory is
 //! the output plus one row-count array and per-thread scratch: no triplet list.
 
+use crate::bipartite::Bipartite;
 use crate::error::{CoreError, CoreResult};
 use crate::kernel::ProductKernel;
+use crate::matvec::Product;
 use crate::parallel::{Interrupt, Runner, BLOCKS_PER_CHECK, BLOCK_ROWS};
 use crate::scalar::Scalar;
 use crate::space::FockSpace;
@@ -93,6 +95,41 @@ pub fn assemble_row<S: Scalar>(
     scratch.retain(|e| e.1 != S::ZERO);
 }
 
+/// Receives each row's merged entries: `(row, [(column, value), ...])`.
+pub type RowVisitor<'a, S> = dyn FnMut(u64, &[(u64, S)]) + 'a;
+
+/// A prepared operator that lists the merged entries of consecutive rows.
+pub trait RowEntries<S: Scalar>: Sync {
+    /// Call `visit(row, entries)` for rows `first..first + count` in order, with each
+    /// row's entries sorted by column, duplicates summed in a fixed order and exact
+    /// zeros dropped.
+    ///
+    /// # Errors
+    /// [`CoreError::InvalidArgument`] when the rows are out of range.
+    fn rows(&self, space: &FockSpace, first: u64, count: usize, visit: &mut RowVisitor<S>) -> CoreResult<()>;
+}
+
+impl<S: Scalar> RowEntries<S> for ProductKernel<S> {
+    fn rows(&self, space: &FockSpace, first: u64, count: usize, visit: &mut RowVisitor<S>) -> CoreResult<()> {
+        self.for_each_row(space, first, count, visit)
+    }
+}
+
+impl<S: Scalar> RowEntries<S> for Bipartite<S> {
+    fn rows(&self, _: &FockSpace, first: u64, count: usize, visit: &mut RowVisitor<S>) -> CoreResult<()> {
+        self.for_each_row(first, count, visit)
+    }
+}
+
+impl<S: Scalar> RowEntries<S> for Product<S> {
+    fn rows(&self, space: &FockSpace, first: u64, count: usize, visit: &mut RowVisitor<S>) -> CoreResult<()> {
+        match self {
+            Product::Split(b) => b.for_each_row(first, count, visit),
+            Product::Rows(k) => k.for_each_row(space, first, count, visit),
+        }
+    }
+}
+
 /// Number of stored entries in each row.
 ///
 /// # Errors
@@ -103,20 +140,25 @@ pub fn row_counts<S: Scalar>(
     runner: &Runner,
     interrupt: &dyn Interrupt,
 ) -> CoreResult<Vec<u64>> {
-    row_counts_with(space, &ProductKernel::new(space, op), runner, interrupt)
+    row_counts_with(space, &Product::new(space, op), runner, interrupt)
 }
 
-fn row_counts_with<S: Scalar>(
+/// Number of stored entries in each row, from a prepared operator.
+///
+/// # Errors
+/// [`CoreError::Interrupted`] when `interrupt` fires; [`CoreError::TooLarge`] when the
+/// counts do not fit in memory.
+pub fn row_counts_with<S: Scalar>(
     space: &FockSpace,
-    kernel: &ProductKernel<S>,
+    kernel: &impl RowEntries<S>,
     runner: &Runner,
     interrupt: &dyn Interrupt,
 ) -> CoreResult<Vec<u64>> {
-    crate::memory::ensure_room(space.dim() as u128 * 8, "row counts of the sparse matrix")?;
-    let mut counts = vec![0u64; space.dim() as usize];
+    let mut counts =
+        crate::memory::try_filled(space.dim() as usize, 0u64, "row counts of the sparse matrix")?;
     runner.for_row_chunks(&mut counts, interrupt, |first, out| {
         let mut k = 0usize;
-        kernel.for_each_row(space, first, out.len(), |_, entries| {
+        kernel.rows(space, first, out.len(), &mut |_, entries| {
             out[k] = entries.len() as u64;
             k += 1;
         })
@@ -138,8 +180,22 @@ pub fn build_csr<S: Scalar>(
     interrupt: &dyn Interrupt,
     force_wide: bool,
 ) -> CoreResult<CsrAny<S>> {
-    let kernel = ProductKernel::new(space, op);
-    let mut indptr = row_counts_with(space, &kernel, runner, interrupt)?;
+    build_csr_with(space, &Product::new(space, op), runner, interrupt, force_wide)
+}
+
+/// Build the CSR matrix from an operator already prepared for `space` (the bipartite
+/// kernel writes each row's entries in column order, with no re-ranking).
+///
+/// # Errors
+/// As [`build_csr`].
+pub fn build_csr_with<S: Scalar>(
+    space: &FockSpace,
+    kernel: &impl RowEntries<S>,
+    runner: &Runner,
+    interrupt: &dyn Interrupt,
+    force_wide: bool,
+) -> CoreResult<CsrAny<S>> {
+    let mut indptr = row_counts_with(space, kernel, runner, interrupt)?;
     // Turn counts into row pointers in place: indptr[r] = entries before row r.
     let mut acc = 0u64;
     for c in indptr.iter_mut() {
@@ -158,18 +214,18 @@ pub fn build_csr<S: Scalar>(
     }
     if !force_wide && nnz <= i32::MAX as u64 && space.dim() <= i32::MAX as u64 {
         Ok(CsrAny::Narrow(fill::<S, i32>(
-            space, &kernel, runner, interrupt, indptr,
+            space, kernel, runner, interrupt, indptr,
         )?))
     } else {
         Ok(CsrAny::Wide(fill::<S, i64>(
-            space, &kernel, runner, interrupt, indptr,
+            space, kernel, runner, interrupt, indptr,
         )?))
     }
 }
 
 fn fill<S: Scalar, I: CsrIndex>(
     space: &FockSpace,
-    kernel: &ProductKernel<S>,
+    kernel: &impl RowEntries<S>,
     runner: &Runner,
     interrupt: &dyn Interrupt,
     indptr: Vec<u64>,
@@ -181,8 +237,8 @@ fn fill<S: Scalar, I: CsrIndex>(
         nnz as u128 * entry + (dim as u128 + 1) * std::mem::size_of::<I>() as u128,
         "the sparse matrix",
     )?;
-    let mut indices = vec![I::default(); nnz];
-    let mut data = vec![S::ZERO; nnz];
+    let mut indices = crate::memory::try_filled(nnz, I::default(), "column indices of the sparse matrix")?;
+    let mut data = crate::memory::try_filled(nnz, S::ZERO, "values of the sparse matrix")?;
     {
         let blocks = dim.div_ceil(BLOCK_ROWS) as usize;
         let mut pieces = Vec::with_capacity(blocks);
@@ -207,7 +263,7 @@ fn fill<S: Scalar, I: CsrIndex>(
             runner.install(|| {
                 group.into_par_iter().try_for_each(|(first, rows, idx, val)| {
                     let mut pos = 0usize;
-                    kernel.for_each_row(space, first, rows as usize, |_, entries| {
+                    kernel.rows(space, first, rows as usize, &mut |_, entries| {
                         for &(col, v) in entries {
                             idx[pos] = I::from_u64(col);
                             val[pos] = v;

@@ -19,7 +19,7 @@
 //!   vector in one row and column (an arrowhead), then a tridiagonal part.
 //! - Restart: when the block is full, the projected matrix is diagonalised (cyclic
 //!   Jacobi), the basis is rotated onto its lowest Ritz vectors, those whose residual
-//!   estimate `|β y_last|` meets `tol/4` are locked (lowest first), and about half of
+//!   estimate `|β y_last|` meets `tol/2` are locked (lowest first), and about half of
 //!   the free room is kept as Ritz vectors; the last Lanczos vector continues.
 //! - Re-check: once `k` levels are locked and their true residuals `‖Av − θv‖`
 //!   verified, a fresh run from a new seeded vector, orthogonal to the locked ones,
@@ -55,7 +55,7 @@ const CHUNK: usize = 1 << 14;
 /// as the product for a sparse matrix with a dozen entries per row).
 const REORTH: f64 = 1e-2;
 /// Fraction of `tol` a residual estimate must reach before a level is locked.
-const LOCK_FRACTION: f64 = 0.25;
+const LOCK_FRACTION: f64 = 0.5;
 
 /// Settings of [`lowest_levels`].
 #[derive(Debug, Clone)]
