@@ -24,6 +24,9 @@ entanglement_entropy, top_level_weights
     Observables of a state, computed without building matrices.
 converge_cutoffs, CutoffScan, CutoffWarning
     Truncation diagnostics.
+evolve, Evolution, spectral_function, spectral_poles, SpectralPoles, thermal, Thermal
+    Time evolution, spectral functions and thermal averages (``build_matrix``,
+    ``build_operator`` and ``prepare`` take ``target=`` for operators between sectors).
 density_correlations
     ``⟨n_i n_j⟩`` for every pair of modes in one pass.
 save_state, load_state, SavedState, StateFileError
@@ -43,6 +46,7 @@ run_sweep, SweepTable, PointResult, ResultsStore, StoreError, plot_sweep
 from fockmill import exceptions, models
 from fockmill._build import build_matrix
 from fockmill._correlations import density_correlations
+from fockmill._evolve import Evolution, evolve
 from fockmill._expr import LadderExpr, format_monomial, identity, lowering, number, raising
 from fockmill._memory import MemoryEstimate, available_memory, estimate_memory
 from fockmill._model import Model
@@ -68,6 +72,7 @@ from fockmill._plot import plot_sweep
 from fockmill._problem import Problem, prepare
 from fockmill._solve import GroundState, Levels, choose_method, ground_state, lowest_levels
 from fockmill._space import FockSpace
+from fockmill._spectral import SpectralPoles, spectral_function, spectral_poles
 from fockmill._statefile import SavedState, StateFileError, load_state, save_state
 from fockmill._store import PointResult, ResultsStore, StoreError, SweepTable
 from fockmill._sweep import run_sweep
@@ -80,6 +85,7 @@ from fockmill._symmetry import (
     ring_translation,
     torus_translations,
 )
+from fockmill._thermal import Thermal, thermal
 from fockmill._truncation import CutoffScan, converge_cutoffs
 from fockmill.exceptions import CutoffWarning
 
@@ -87,6 +93,7 @@ __all__ = [
     "CutoffScan",
     "CutoffWarning",
     "Dispersion",
+    "Evolution",
     "FockSpace",
     "GroundState",
     "LadderExpr",
@@ -101,11 +108,13 @@ __all__ = [
     "Problem",
     "ResultsStore",
     "SavedState",
+    "SpectralPoles",
     "StateFileError",
     "StoreError",
     "SweepGrid",
     "SweepTable",
     "SymmetricSpace",
+    "Thermal",
     "__version__",
     "available_memory",
     "build_matrix",
@@ -115,6 +124,7 @@ __all__ = [
     "density_correlations",
     "entanglement_entropy",
     "estimate_memory",
+    "evolve",
     "exceptions",
     "expectation",
     "format_monomial",
@@ -139,6 +149,9 @@ __all__ = [
     "ring_translation",
     "run_sweep",
     "save_state",
+    "spectral_function",
+    "spectral_poles",
+    "thermal",
     "top_level_weights",
     "torus_translations",
 ]

@@ -17,6 +17,7 @@ def build_matrix(
     expr: LadderExpr | Problem,
     space: Any = None,
     *,
+    target: Any = None,
     threads: int | None = None,
     memory_limit: int | None = None,
     index_dtype: type[np.int32] | type[np.int64] | None = None,
@@ -31,6 +32,10 @@ def build_matrix(
         operator is then reused; ``space`` is omitted.
     space : FockSpace
         The basis; the matrix is ``(space.dim, space.dim)`` in the space's basis order.
+    target : FockSpace, optional
+        The space the operator lands in (same modes and cutoffs as ``space``): the
+        matrix is then ``(target.dim, space.dim)``, e.g. ``fm.lowering(0)`` from the
+        N-quanta sector into the N − 1 sector. None (default): ``space``.
     threads : int, optional
         Worker threads; None or 0 means all cores (or ``RAYON_NUM_THREADS``).
     memory_limit : int, optional
@@ -48,7 +53,8 @@ def build_matrix(
     Raises
     ------
     ChargeError
-        A term changes the conserved charge of the space.
+        A term changes the conserved charge of the space (with ``target``: a term
+        carries states of ``space`` outside ``target``; the message names both).
     ModeIndexError
         A term acts on a mode the space does not have.
     SizeLimitError
@@ -69,5 +75,5 @@ def build_matrix(
     >>> fm.build_matrix(h, space).toarray().round(3).tolist()
     [[0.0, 1.414, 0.0], [1.414, 0.0, 1.414], [0.0, 1.414, 0.0]]
     """
-    problem = as_problem(expr, space, threads=threads, memory_limit=memory_limit)
+    problem = as_problem(expr, space, threads=threads, memory_limit=memory_limit, target=target)
     return problem.matrix(index_dtype=index_dtype)

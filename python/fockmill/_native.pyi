@@ -12,6 +12,7 @@ import numpy as np
 import numpy.typing as npt
 
 __all__ = [
+    "NativeBetween",
     "NativeCsr",
     "NativeOperator",
     "NativePool",
@@ -313,6 +314,58 @@ class NativeSymmetricOperator:
         basis: int = 0,
     ) -> tuple[npt.NDArray[np.float64], _RealOrComplex2D, npt.NDArray[np.float64], int, int, bool]:
         """Lowest ``k`` levels on the sector, as ``NativeOperator.lanczos_levels``."""
+
+@final
+class NativeBetween:
+    """An operator carrying the states of ``source`` into ``target`` (same modes and
+    cutoffs): a matrix of shape ``(rows, dim) = (target.dim, source.dim)``.
+
+    Parameters
+    ----------
+    source, target : NativeSpace
+        Where the operator starts and where it lands.
+    terms : list of (re, im, [(mode, p, q), ...])
+        As for :class:`NativeOperator`.
+    project : bool
+        Keep terms whose image leaves ``target`` and drop that part (adjoints); by
+        default such terms are refused.
+    """
+
+    def __new__(
+        cls,
+        source: NativeSpace,
+        target: NativeSpace,
+        terms: list[tuple[float, float, list[tuple[int, int, int]]]],
+        project: bool = False,
+    ) -> NativeBetween: ...
+    @property
+    def is_real(self) -> bool: ...
+    @property
+    def terms(self) -> int: ...
+    @property
+    def dim(self) -> int: ...
+    @property
+    def rows(self) -> int: ...
+    def build_csr(
+        self, threads: int | NativePool | None = None, force_wide: bool = False
+    ) -> tuple[
+        npt.NDArray[np.int32] | npt.NDArray[np.int64],
+        npt.NDArray[np.int32] | npt.NDArray[np.int64],
+        _RealOrComplex1D,
+    ]:
+        """CSR arrays ``(indptr, indices, data)`` of the ``(rows, dim)`` matrix."""
+    def matvec(
+        self, x: _RealOrComplex1D, threads: int | NativePool | None = None
+    ) -> _RealOrComplex1D:
+        """``A x`` for ``x`` of length ``dim``; the result has length ``rows``."""
+    def matmat(
+        self, x: _RealOrComplex2D, threads: int | NativePool | None = None
+    ) -> _RealOrComplex2D:
+        """``A X`` for a ``(dim, k)`` block; the result is ``(rows, k)``."""
+    def estimate_nnz(
+        self, samples: int = 2048, threads: int | NativePool | None = None
+    ) -> tuple[float, float, bool, int]:
+        """``(nnz, standard error, exact, largest row)`` without building."""
 
 def monomial_expectations(
     space: NativeSpace,

@@ -42,9 +42,14 @@ class LadderOperator(LinearOperator):  # type: ignore[misc]
     """
 
     def __init__(
-        self, expr: LadderExpr | Problem, space: Any = None, *, threads: int | None = None
+        self,
+        expr: LadderExpr | Problem,
+        space: Any = None,
+        *,
+        target: Any = None,
+        threads: int | None = None,
     ) -> None:
-        self.problem = as_problem(expr, space, threads=threads)
+        self.problem = as_problem(expr, space, threads=threads, target=target)
         self._adjoint_op: _native.NativeOperator | None = None
         self.products = 0
         super().__init__(dtype=self.problem.dtype, shape=self.problem.shape)
@@ -69,14 +74,16 @@ class LadderOperator(LinearOperator):  # type: ignore[misc]
         """The compiled operator."""
         return self.problem.native
 
-    def _check_input(self, x: npt.ArrayLike, block: bool) -> npt.NDArray[Any]:
+    def _check_input(
+        self, x: npt.ArrayLike, block: bool, adjoint: bool = False
+    ) -> npt.NDArray[Any]:
         arr = np.asarray(x)
         if arr.dtype.kind not in "fciub" or arr.dtype.kind == "b":
             raise TypeError(
                 f"products need a float or complex array; got dtype {arr.dtype}. Convert "
                 "with numpy.asarray(x, dtype=float)"
             )
-        n = self.shape[1]
+        n = self.shape[0] if adjoint else self.shape[1]
         ok = arr.ndim == 2 and arr.shape[0] == n if block else arr.shape in ((n,), (n, 1))
         if not ok:
             want = f"({n}, k)" if block else f"({n},) or ({n}, 1)"
@@ -92,7 +99,7 @@ class LadderOperator(LinearOperator):  # type: ignore[misc]
 
     def rmatvec(self, x: npt.ArrayLike) -> Any:
         """``H† x``; ``x`` of shape ``(dim,)`` or ``(dim, 1)``."""
-        return super().rmatvec(self._check_input(x, block=False))
+        return super().rmatvec(self._check_input(x, block=False, adjoint=True))
 
     def matmat(self, x: npt.ArrayLike) -> Any:
         """``H X``; ``X`` of shape ``(dim, k)``."""
@@ -118,12 +125,16 @@ class LadderOperator(LinearOperator):  # type: ignore[misc]
             adj = self.expr.adjoint()
             if adj == self.expr and self.problem.is_square:
                 self._adjoint_op = self.problem.native
+            elif self.problem.is_square:
+                self._adjoint_op = LadderOperator(adj, self.space, threads=self.threads).native
             else:
-                self._adjoint_op = LadderOperator(
-                    as_problem(
-                        adj, self.problem.target, target=self.problem.space, threads=self.threads
-                    )
-                ).native
+                # The transpose of P_target A P_space is P_space A† P_target: the part
+                # of A†'s image outside ``space`` is dropped, not refused.
+                from fockmill._between import compile_between
+
+                self._adjoint_op = compile_between(
+                    adj, self.problem.target, self.problem.space, project=True
+                )
         return self._adjoint_op
 
     def _rmatvec(self, x: npt.NDArray[Any]) -> npt.NDArray[Any]:
@@ -135,21 +146,26 @@ class LadderOperator(LinearOperator):  # type: ignore[misc]
         self.products += x.shape[1]
         return self._adjoint_native().matmat(self._vector(x), self.problem.pool)  # type: ignore[no-any-return]
 
-    def _adjoint(self) -> LadderOperator:
+    def _adjoint(self) -> LinearOperator:
         if self.problem.is_square:
             return LadderOperator(self.expr.adjoint(), self.space, threads=self.threads)
-        return LadderOperator(
-            as_problem(
-                self.expr.adjoint(),
-                self.problem.target,
-                target=self.problem.space,
-                threads=self.threads,
-            )
+        # Between two spaces the adjoint is this operator's products swapped.
+        return LinearOperator(
+            shape=(self.shape[1], self.shape[0]),
+            matvec=self._rmatvec,
+            rmatvec=self._matvec,
+            matmat=self._rmatmat,
+            rmatmat=self._matmat,
+            dtype=self.dtype,
         )
 
 
 def build_operator(
-    expr: LadderExpr | Problem, space: Any = None, *, threads: int | None = None
+    expr: LadderExpr | Problem,
+    space: Any = None,
+    *,
+    target: Any = None,
+    threads: int | None = None,
 ) -> LadderOperator:
     """A matrix-free ``LinearOperator`` for ``expr`` on ``space``.
 
@@ -163,6 +179,9 @@ def build_operator(
         (then ``space`` is omitted and its compiled operator is reused).
     space : FockSpace
         The basis.
+    target : FockSpace, optional
+        The space products land in (same modes and cutoffs): the operator then has
+        shape ``(target.dim, space.dim)``; ``.H`` maps back. None: ``space``.
     threads : int, optional
         Worker threads per product (default: all cores).
 
@@ -180,4 +199,4 @@ def build_operator(
     >>> (op @ np.ones(space.dim)).tolist()
     [-2.0, 0.0, 2.0]
     """
-    return LadderOperator(expr, space, threads=threads)
+    return LadderOperator(expr, space, target=target, threads=threads)

@@ -102,7 +102,9 @@ def compile_operator(expr: object, space: object, target: object = None) -> Any:
     e = as_expr(expr)
     s = check_space(space)
     if target is not None and target != s:
-        raise NotImplementedError("operators between two different spaces are not available yet")
+        from fockmill._between import compile_between
+
+        return compile_between(e, s, target)
     check_terms(e, s)
     if isinstance(s, SymmetricSpace):
         return s._compile(e)

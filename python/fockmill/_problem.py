@@ -72,7 +72,8 @@ class Problem:
     ) -> None:
         self.expr: LadderExpr = as_expr(expr)
         self.space = check_space(space)
-        self.target = self.space if target is None else target
+        # An equal target is the square case (same compiled operator, Hermitian checks).
+        self.target = self.space if target is None or target == self.space else target
         self.threads = check_threads(threads)
         self.memory_limit = check_memory_limit(memory_limit)
         self.native = compile_operator(self.expr, self.space, target)

@@ -2,6 +2,7 @@
 //! arguments to owned Rust values, releases the interpreter around the core call, and
 //! hands results to NumPy without copying. No algorithms live here.
 
+mod between;
 mod correlations;
 mod errors;
 mod interrupt;
@@ -698,6 +699,7 @@ fn _native(m: &Bound<'_, PyModule>) -> PyResult<()> {
     m.add_class::<NativeSpace>()?;
     m.add_class::<NativeOperator>()?;
     m.add_class::<NativePool>()?;
+    between::register(m)?;
     m.add_function(wrap_pyfunction!(monomial_expectations, m)?)?;
     m.add_function(wrap_pyfunction!(occupation_distributions, m)?)?;
     m.add_function(wrap_pyfunction!(default_threads, m)?)?;

@@ -12,6 +12,7 @@
 #![forbid(unsafe_code)]
 #![warn(missing_docs)]
 
+pub mod between;
 pub mod bipartite;
 pub mod build;
 pub mod correlations;

@@ -1,0 +1,608 @@
+//! Operators that carry one space's states into another space over the same modes:
+//! `a_0` from the N-quanta sector to the N − 1 sector, `a_0† a_1†` from N to N + 2,
+//! anything from a sector into the full truncated space.
+//!
+//! The matrix has shape `(target.dim, source.dim)`. Row `r` is gathered from target
+//! basis state `r`: each term's reversed monomial (creation and annihilation powers
+//! swapped) turns the row state into a source occupation, which is ranked in the source
+//! space (O(M)). Entries whose source occupation is not a source basis state vanish,
+//! which is exactly the restriction `P_target X P_source` of the normal-ordered
+//! monomials. Construction refuses terms whose image leaves the target sector.
+
+use crate::error::{CoreError, CoreResult};
+use crate::memory::{try_filled, try_with_capacity};
+use crate::parallel::{Interrupt, Runner, BLOCKS_PER_CHECK, BLOCK_ROWS};
+use crate::scalar::Scalar;
+use crate::space::{Constraint, FockSpace, MAX_CUTOFF};
+use crate::terms::{format_monomial, Monomial, RawTerm};
+use rayon::prelude::*;
+
+/// Validated, merged terms of an operator from a source space to a target space.
+#[derive(Debug, Clone)]
+pub struct Between<S: Scalar> {
+    coefs: Vec<S>,
+    /// `(mode, quanta removed from the row state, quanta added)` per term, by mode.
+    factors: Vec<Monomial>,
+}
+
+/// Whether every state of `source`, changed in charge by `delta`, lies in `target`'s
+/// sector (so that no part of the image is lost).
+fn lands_in(source: &FockSpace, target: &FockSpace, delta: i64) -> bool {
+    match (source.constraint(), target.constraint()) {
+        (_, Constraint::Free) => true,
+        (Constraint::Exact { total: s }, Constraint::Exact { total: t }) => {
+            s as i128 + delta as i128 == t as i128
+        }
+        (Constraint::Exact { total: s }, Constraint::Modular { total: t, modulus }) => {
+            (s as i128 + delta as i128).rem_euclid(modulus as i128) == t as i128
+        }
+        (
+            Constraint::Modular {
+                total: s,
+                modulus: ms,
+            },
+            Constraint::Modular {
+                total: t,
+                modulus: mt,
+            },
+        ) => ms % mt == 0 && (s as i128 + delta as i128).rem_euclid(mt as i128) == t as i128,
+        (Constraint::Free, _) | (Constraint::Modular { .. }, Constraint::Exact { .. }) => false,
+    }
+}
+
+fn describe(space: &FockSpace) -> String {
+    match space.constraint() {
+        Constraint::Free => "the full truncated space (no conserved total)".into(),
+        _ => space.describe_constraint(),
+    }
+}
+
+impl<S: Scalar> Between<S> {
+    /// Validate and merge `terms` for an operator from `source` into `target`.
+    ///
+    /// Identical monomials are summed in the order given; terms whose coefficient is
+    /// then exactly zero are dropped. With `project`, terms whose image leaves the
+    /// target are kept and the part outside the target is dropped (`P_target X`),
+    /// which is what the adjoint of a checked operator needs.
+    ///
+    /// # Errors
+    /// [`CoreError::InvalidSpace`] when the two spaces differ in modes or cutoffs, or
+    /// (both being sectors) in weights; [`CoreError::NonFinite`];
+    /// [`CoreError::InvalidArgument`] for complex coefficients when `S` is real, repeated
+    /// modes in a term or powers above the largest cutoff; [`CoreError::ModeOutOfRange`];
+    /// [`CoreError::ChargeViolation`] naming the term and both sectors when a term
+    /// carries source states outside the target (unless `project`).
+    pub fn new(source: &FockSpace, target: &FockSpace, terms: &[RawTerm], project: bool) -> CoreResult<Self> {
+        if source.cutoffs() != target.cutoffs() {
+            return Err(CoreError::InvalidSpace(format!(
+                "the source space has cutoffs {:?} and the target {:?}; an operator between \
+                 spaces needs the same modes and cutoffs in both (change only the total)",
+                source.cutoffs(),
+                target.cutoffs()
+            )));
+        }
+        let constrained = |s: &FockSpace| !matches!(s.constraint(), Constraint::Free);
+        if constrained(source) && constrained(target) && source.weights() != target.weights() {
+            return Err(CoreError::InvalidSpace(format!(
+                "the source space has weights {:?} and the target {:?}; the conserved charges \
+                 must be the same to compare sectors",
+                source.weights(),
+                target.weights()
+            )));
+        }
+        let mut merged: Vec<(Monomial, f64, f64)> = Vec::new();
+        let mut lookup: std::collections::HashMap<Monomial, usize> = std::collections::HashMap::new();
+        for t in terms {
+            let mut factors: Vec<(usize, u32, u32)> =
+                t.factors.iter().copied().filter(|f| f.1 + f.2 > 0).collect();
+            factors.sort_unstable();
+            let name = format_monomial(&factors);
+            if !t.re.is_finite() || !t.im.is_finite() {
+                return Err(CoreError::NonFinite(format!(
+                    "term {name} has a coefficient that is not finite; coefficients must be \
+                     finite numbers (check for NaN or inf parameters)"
+                )));
+            }
+            for w in factors.windows(2) {
+                if w[0].0 == w[1].0 {
+                    return Err(CoreError::InvalidArgument(format!(
+                        "term {name} lists mode {} twice; give one (mode, p, q) factor per mode",
+                        w[0].0
+                    )));
+                }
+            }
+            let mut delta: i64 = 0;
+            for &(mode, p, q) in &factors {
+                if mode >= source.modes() {
+                    return Err(CoreError::ModeOutOfRange {
+                        mode,
+                        modes: source.modes(),
+                        term: name,
+                    });
+                }
+                if p > MAX_CUTOFF || q > MAX_CUTOFF {
+                    return Err(CoreError::InvalidArgument(format!(
+                        "term {name} has a power above {MAX_CUTOFF}; such powers are not supported"
+                    )));
+                }
+                delta += source.weights()[mode] as i64 * (p as i64 - q as i64);
+            }
+            if !project && !lands_in(source, target, delta) {
+                return Err(CoreError::ChargeViolation {
+                    term: name,
+                    charge: delta,
+                    conserved: format!(
+                        "it carries the source sector ({}) outside the target sector ({}); \
+                         choose the target whose total is the source's plus {delta}",
+                        describe(source),
+                        describe(target)
+                    ),
+                });
+            }
+            match lookup.get(&factors) {
+                Some(&k) => {
+                    merged[k].1 += t.re;
+                    merged[k].2 += t.im;
+                }
+                None => {
+                    lookup.insert(factors.clone(), merged.len());
+                    merged.push((factors, t.re, t.im));
+                }
+            }
+        }
+        let mut op = Between {
+            coefs: Vec::new(),
+            factors: Vec::new(),
+        };
+        for (factors, re, im) in merged {
+            if re == 0.0 && im == 0.0 {
+                continue;
+            }
+            let coef = S::from_parts(re, im).ok_or_else(|| {
+                CoreError::InvalidArgument(format!(
+                    "term {} has a complex coefficient but a real operator was requested; \
+                     use the complex element type",
+                    format_monomial(&factors)
+                ))
+            })?;
+            op.coefs.push(coef);
+            op.factors.push(factors);
+        }
+        Ok(op)
+    }
+
+    /// Number of merged nonzero terms.
+    pub fn len(&self) -> usize {
+        self.coefs.len()
+    }
+
+    /// Whether there are no terms (the zero operator).
+    pub fn is_empty(&self) -> bool {
+        self.coefs.is_empty()
+    }
+
+    /// The merged, nonzero entries of the row whose target state is `occ`, sorted by
+    /// source column, left in `entries`; `work` is scratch of length M.
+    fn row_entries(&self, source: &FockSpace, occ: &[u32], work: &mut [u32], entries: &mut Vec<(u64, S)>) {
+        entries.clear();
+        let cutoffs = source.cutoffs();
+        'terms: for (t, factors) in self.factors.iter().enumerate() {
+            let mut amp_sq = 1.0f64;
+            work.copy_from_slice(occ);
+            for &(mode, p, q) in factors {
+                // Row state n; the term's creation power p is removed, its annihilation
+                // power q added: the source state is n − p + q.
+                let n = occ[mode];
+                if n < p {
+                    continue 'terms;
+                }
+                let mid = n - p;
+                let m = mid + q;
+                if m > cutoffs[mode] {
+                    continue 'terms;
+                }
+                // Integer factors n!/mid! · m!/mid!, then one rounded square root.
+                for k in mid + 1..=n {
+                    amp_sq *= k as f64;
+                }
+                for k in mid + 1..=m {
+                    amp_sq *= k as f64;
+                }
+                work[mode] = m;
+            }
+            if let Some(col) = source.rank(work) {
+                entries.push((col, self.coefs[t].scale(amp_sq.sqrt())));
+            }
+        }
+        // Stable sort: duplicates are summed in term order, independent of threads.
+        entries.sort_by_key(|e| e.0);
+        let mut w = 0usize;
+        for k in 0..entries.len() {
+            let (col, val) = entries[k];
+            if w > 0 && entries[w - 1].0 == col {
+                entries[w - 1].1 += val;
+            } else {
+                entries[w] = (col, val);
+                w += 1;
+            }
+        }
+        entries.truncate(w);
+        entries.retain(|e| e.1 != S::ZERO);
+    }
+
+    /// Call `visit(entries)` for target rows `first..first + rows` in order.
+    fn for_each_row(
+        &self,
+        source: &FockSpace,
+        target: &FockSpace,
+        first: u64,
+        rows: usize,
+        mut visit: impl FnMut(&[(u64, S)]),
+    ) -> CoreResult<()> {
+        let m = target.modes();
+        let (mut occ, mut residues, mut work) = (vec![0u32; m], vec![0usize; m], vec![0u32; m]);
+        let mut entries = Vec::with_capacity(self.len());
+        target.unrank_into(first, &mut occ, &mut residues)?;
+        for i in 0..rows {
+            if i > 0 {
+                target.advance(&mut occ, &mut residues);
+            }
+            self.row_entries(source, &occ, &mut work, &mut entries);
+            visit(&entries);
+        }
+        Ok(())
+    }
+}
+
+/// A rectangular CSR matrix: `rows × cols`, sorted columns, no duplicates or zeros.
+#[derive(Debug, Clone, PartialEq)]
+pub struct RectCsr<S, I> {
+    /// Number of rows (the target's dimension).
+    pub rows: u64,
+    /// Number of columns (the source's dimension).
+    pub cols: u64,
+    /// Row pointers, length `rows + 1`.
+    pub indptr: Vec<I>,
+    /// Column indices.
+    pub indices: Vec<I>,
+    /// Values.
+    pub data: Vec<S>,
+}
+
+/// A rectangular CSR matrix with 32-bit indices when they fit, else 64-bit.
+#[derive(Debug, Clone, PartialEq)]
+pub enum RectAny<S> {
+    /// `int32` indices.
+    Narrow(RectCsr<S, i32>),
+    /// `int64` indices.
+    Wide(RectCsr<S, i64>),
+}
+
+/// Index types of [`RectCsr`].
+pub trait RectIndex: Copy + Send + Sync + Default + 'static {
+    /// Convert a value known to fit.
+    fn from_u64(v: u64) -> Self;
+}
+
+impl RectIndex for i32 {
+    fn from_u64(v: u64) -> Self {
+        v as i32
+    }
+}
+
+impl RectIndex for i64 {
+    fn from_u64(v: u64) -> Self {
+        v as i64
+    }
+}
+
+fn check_dims(source: &FockSpace, target: &FockSpace) -> CoreResult<()> {
+    if source.modes() != target.modes() {
+        return Err(CoreError::InvalidSpace(format!(
+            "the source space has {} modes and the target {}; an operator between spaces \
+             needs the same modes",
+            source.modes(),
+            target.modes()
+        )));
+    }
+    Ok(())
+}
+
+/// Stored entries of each target row.
+fn row_counts<S: Scalar>(
+    source: &FockSpace,
+    target: &FockSpace,
+    op: &Between<S>,
+    runner: &Runner,
+    interrupt: &dyn Interrupt,
+) -> CoreResult<Vec<u64>> {
+    let mut counts = try_filled(target.dim() as usize, 0u64, "row counts of the sparse matrix")?;
+    runner.for_row_chunks(&mut counts, interrupt, |first, out| {
+        let mut k = 0usize;
+        op.for_each_row(source, target, first, out.len(), |entries| {
+            out[k] = entries.len() as u64;
+            k += 1;
+        })
+    })?;
+    Ok(counts)
+}
+
+/// Build the `(target.dim, source.dim)` CSR matrix of `op` in two passes (count, fill).
+///
+/// Indices are `i32` when both dimensions and the number of entries fit (unless
+/// `force_wide`), else `i64`.
+///
+/// # Errors
+/// [`CoreError::InvalidSpace`] when the spaces have different numbers of modes;
+/// [`CoreError::Interrupted`]; [`CoreError::TooLarge`] when the matrix does not fit.
+pub fn build_csr<S: Scalar>(
+    source: &FockSpace,
+    target: &FockSpace,
+    op: &Between<S>,
+    runner: &Runner,
+    interrupt: &dyn Interrupt,
+    force_wide: bool,
+) -> CoreResult<RectAny<S>> {
+    check_dims(source, target)?;
+    let mut indptr = row_counts(source, target, op, runner, interrupt)?;
+    let mut acc = 0u64;
+    for c in indptr.iter_mut() {
+        let n = *c;
+        *c = acc;
+        acc += n;
+    }
+    indptr.try_reserve_exact(1).map_err(|_| CoreError::TooLarge {
+        what: "row pointers of the sparse matrix (entries)".into(),
+        requested: target.dim() as u128 + 1,
+        limit: target.dim() as u128,
+    })?;
+    indptr.push(acc);
+    let narrow = !force_wide
+        && acc <= i32::MAX as u64
+        && target.dim() <= i32::MAX as u64
+        && source.dim() <= i32::MAX as u64;
+    if narrow {
+        Ok(RectAny::Narrow(fill::<S, i32>(
+            source, target, op, runner, interrupt, indptr,
+        )?))
+    } else {
+        Ok(RectAny::Wide(fill::<S, i64>(
+            source, target, op, runner, interrupt, indptr,
+        )?))
+    }
+}
+
+fn fill<S: Scalar, I: RectIndex>(
+    source: &FockSpace,
+    target: &FockSpace,
+    op: &Between<S>,
+    runner: &Runner,
+    interrupt: &dyn Interrupt,
+    indptr: Vec<u64>,
+) -> CoreResult<RectCsr<S, I>> {
+    let rows = target.dim();
+    let nnz = indptr[rows as usize] as usize;
+    let mut indices = try_filled(nnz, I::default(), "column indices of the sparse matrix")?;
+    let mut data = try_filled(nnz, S::ZERO, "values of the sparse matrix")?;
+    {
+        let blocks = rows.div_ceil(BLOCK_ROWS) as usize;
+        let mut pieces = Vec::with_capacity(blocks);
+        let mut rest_idx: &mut [I] = &mut indices;
+        let mut rest_val: &mut [S] = &mut data;
+        for b in 0..blocks {
+            let first = b as u64 * BLOCK_ROWS;
+            let last = (first + BLOCK_ROWS).min(rows);
+            let len = (indptr[last as usize] - indptr[first as usize]) as usize;
+            let (idx, tail_idx) = rest_idx.split_at_mut(len);
+            let (val, tail_val) = rest_val.split_at_mut(len);
+            rest_idx = tail_idx;
+            rest_val = tail_val;
+            pieces.push((first, last - first, idx, val));
+        }
+        let mut pieces = pieces.into_iter();
+        loop {
+            let group: Vec<_> = pieces.by_ref().take(BLOCKS_PER_CHECK).collect();
+            if group.is_empty() {
+                break;
+            }
+            runner.install(|| {
+                group.into_par_iter().try_for_each(|(first, n, idx, val)| {
+                    let mut pos = 0usize;
+                    op.for_each_row(source, target, first, n as usize, |entries| {
+                        for &(col, v) in entries {
+                            idx[pos] = I::from_u64(col);
+                            val[pos] = v;
+                            pos += 1;
+                        }
+                    })
+                })
+            })?;
+            if interrupt.requested() {
+                return Err(CoreError::Interrupted);
+            }
+        }
+    }
+    let mut out_ptr = try_with_capacity(indptr.len(), "row pointers of the sparse matrix")?;
+    out_ptr.extend(indptr.iter().map(|&p| I::from_u64(p)));
+    Ok(RectCsr {
+        rows,
+        cols: source.dim(),
+        indptr: out_ptr,
+        indices,
+        data,
+    })
+}
+
+/// `Y = A X` for `k` source vectors stored row-major (`X[c, j]` at `x[c * k + j]`);
+/// `y` holds `target.dim × k` values. Each output row is written by one thread in a
+/// fixed order, so results do not depend on the thread count.
+///
+/// # Errors
+/// [`CoreError::Shape`] for wrong lengths; [`CoreError::InvalidSpace`] when the spaces
+/// have different numbers of modes; [`CoreError::Interrupted`].
+#[allow(clippy::too_many_arguments)]
+pub fn apply_many<S: Scalar>(
+    source: &FockSpace,
+    target: &FockSpace,
+    op: &Between<S>,
+    x: &[S],
+    y: &mut [S],
+    k: usize,
+    runner: &Runner,
+    interrupt: &dyn Interrupt,
+) -> CoreResult<()> {
+    check_dims(source, target)?;
+    let (cols, rows) = (source.dim() as usize, target.dim() as usize);
+    let ok = k > 0 && cols.checked_mul(k) == Some(x.len()) && rows.checked_mul(k) == Some(y.len());
+    if !ok {
+        return Err(CoreError::Shape(format!(
+            "the input must have shape ({cols}, {k}) (the source space's dim) and the output \
+             ({rows}, {k}) (the target's); got {} and {} elements",
+            x.len(),
+            y.len()
+        )));
+    }
+    let mut rows_out: Vec<&mut [S]> = y.chunks_mut(k).collect();
+    runner.for_row_chunks(&mut rows_out, interrupt, |first, out| {
+        let mut i = 0usize;
+        op.for_each_row(source, target, first, out.len(), |entries| {
+            let yi = &mut out[i];
+            yi.fill(S::ZERO);
+            for &(col, c) in entries {
+                let xs = &x[col as usize * k..][..k];
+                for (yj, &xj) in yi.iter_mut().zip(xs) {
+                    *yj += c * xj;
+                }
+            }
+            i += 1;
+        })
+    })
+}
+
+/// `(nnz, standard error, exact, largest counted row)` of the matrix: every row when
+/// the target has at most `4 × samples` states, else one row from each of `samples`
+/// equal strata of the target basis.
+///
+/// # Errors
+/// [`CoreError::Interrupted`] during an exact count; [`CoreError::InvalidSpace`] when
+/// the spaces have different numbers of modes.
+pub fn estimate_nnz<S: Scalar>(
+    source: &FockSpace,
+    target: &FockSpace,
+    op: &Between<S>,
+    samples: usize,
+    runner: &Runner,
+    interrupt: &dyn Interrupt,
+) -> CoreResult<(f64, f64, bool, u64)> {
+    check_dims(source, target)?;
+    let dim = target.dim();
+    let samples = samples.max(1) as u64;
+    if dim <= 4 * samples {
+        let counts = row_counts(source, target, op, runner, interrupt)?;
+        let total = counts.iter().sum::<u64>() as f64;
+        return Ok((total, 0.0, true, counts.iter().copied().max().unwrap_or(0)));
+    }
+    let counts: Vec<u64> = runner.install(|| {
+        (0..samples)
+            .into_par_iter()
+            .map(|s| {
+                // The middle row of each stratum: deterministic and evenly spread.
+                let idx = (2 * s + 1) * dim / (2 * samples);
+                let mut n = 0u64;
+                let _ = op.for_each_row(source, target, idx, 1, |e| n = e.len() as u64);
+                n
+            })
+            .collect()
+    });
+    let n = counts.len() as f64;
+    let mean = counts.iter().sum::<u64>() as f64 / n;
+    let var = counts.iter().map(|&c| (c as f64 - mean).powi(2)).sum::<f64>() / (n - 1.0).max(1.0);
+    Ok((
+        mean * dim as f64,
+        (var / n).sqrt() * dim as f64,
+        false,
+        counts.iter().copied().max().unwrap_or(0),
+    ))
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::parallel::NoInterrupt;
+
+    fn dense(source: &FockSpace, target: &FockSpace, op: &Between<f64>) -> Vec<Vec<f64>> {
+        let runner = Runner::with_threads(Some(2)).unwrap();
+        let csr = match build_csr(source, target, op, &runner, &NoInterrupt, false).unwrap() {
+            RectAny::Narrow(c) => c,
+            RectAny::Wide(_) => panic!("small matrices use narrow indices"),
+        };
+        let mut out = vec![vec![0.0; source.dim() as usize]; target.dim() as usize];
+        for (r, row) in out.iter_mut().enumerate() {
+            for e in csr.indptr[r] as usize..csr.indptr[r + 1] as usize {
+                row[csr.indices[e] as usize] = csr.data[e];
+            }
+        }
+        out
+    }
+
+    #[test]
+    fn lowering_one_mode_between_sectors() {
+        // a|n⟩ = √n |n−1⟩ (Dirac, The Principles of Quantum Mechanics, 4th ed. 1958,
+        // §34; from memory). Two modes with cutoff 2: N=2 is {02, 11, 20}, N=1 is {01, 10}.
+        let n2 = FockSpace::new(vec![2, 2], None, Some(2), None).unwrap();
+        let n1 = FockSpace::new(vec![2, 2], None, Some(1), None).unwrap();
+        let op = Between::<f64>::new(&n2, &n1, &[RawTerm::new(1.0, 0.0, vec![(0, 0, 1)])], false).unwrap();
+        let m = dense(&n2, &n1, &op);
+        assert_eq!(m, vec![vec![0.0, 1.0, 0.0], vec![0.0, 0.0, 2f64.sqrt()]]);
+    }
+
+    #[test]
+    fn refuses_terms_that_leave_the_target() {
+        let n2 = FockSpace::new(vec![2, 2], None, Some(2), None).unwrap();
+        let n1 = FockSpace::new(vec![2, 2], None, Some(1), None).unwrap();
+        let e = Between::<f64>::new(&n2, &n1, &[RawTerm::new(1.0, 0.0, vec![(0, 1, 0)])], false).unwrap_err();
+        let text = e.to_string();
+        assert!(
+            matches!(e, CoreError::ChargeViolation { charge: 1, .. }),
+            "{text}"
+        );
+        assert!(
+            text.contains("a0†") && text.contains("= 2") && text.contains("= 1"),
+            "{text}"
+        );
+        // Into the full space anything lands.
+        let full = FockSpace::new(vec![2, 2], None, None, None).unwrap();
+        assert!(Between::<f64>::new(&n2, &full, &[RawTerm::new(1.0, 0.0, vec![(0, 1, 0)])], false).is_ok());
+        // From the full space into a sector nothing does.
+        assert!(Between::<f64>::new(&full, &n2, &[RawTerm::new(1.0, 0.0, vec![(0, 1, 1)])], false).is_err());
+        let other = FockSpace::new(vec![3, 2], None, Some(1), None).unwrap();
+        assert!(matches!(
+            Between::<f64>::new(&n2, &other, &[], false),
+            Err(CoreError::InvalidSpace(_))
+        ));
+    }
+
+    #[test]
+    fn products_equal_the_built_matrix() {
+        let src = FockSpace::new(vec![3; 4], None, Some(3), None).unwrap();
+        let dst = FockSpace::new(vec![3; 4], None, Some(5), None).unwrap();
+        let terms = vec![
+            RawTerm::new(0.7, 0.0, vec![(0, 1, 0), (2, 1, 0)]),
+            RawTerm::new(-1.3, 0.0, vec![(1, 2, 0)]),
+            RawTerm::new(0.4, 0.0, vec![(3, 2, 0), (1, 1, 1)]),
+        ];
+        let op = Between::<f64>::new(&src, &dst, &terms, false).unwrap();
+        let m = dense(&src, &dst, &op);
+        let x: Vec<f64> = (0..src.dim()).map(|i| ((i * 37) % 11) as f64 - 5.0).collect();
+        let mut y = vec![0.0; dst.dim() as usize];
+        let runner = Runner::with_threads(Some(3)).unwrap();
+        apply_many(&src, &dst, &op, &x, &mut y, 1, &runner, &NoInterrupt).unwrap();
+        for (r, row) in m.iter().enumerate() {
+            let expect: f64 = row.iter().zip(&x).map(|(a, b)| a * b).sum();
+            assert!((expect - y[r]).abs() < 1e-12);
+        }
+        let (nnz, _, exact, _) = estimate_nnz(&src, &dst, &op, 2048, &runner, &NoInterrupt).unwrap();
+        let counted = m.iter().flatten().filter(|v| **v != 0.0).count();
+        assert!(exact && nnz as usize == counted);
+    }
+}
