@@ -97,7 +97,16 @@ CHILD = textwrap.dedent(
 
 def run_limited(*cases: str) -> dict[str, object]:
     """Run the child with the given cases; it must exit normally."""
-    env = dict(os.environ, OPENBLAS_NUM_THREADS="1", OMP_NUM_THREADS="1", RAYON_NUM_THREADS="2")
+    # One malloc arena: each extra thread's arena reserves 64 MiB of address space, which
+    # under a tight RLIMIT_AS makes unrelated small allocations fail (glibc behaviour;
+    # common practice, no source). The refusals under test do not depend on it.
+    env = dict(
+        os.environ,
+        OPENBLAS_NUM_THREADS="1",
+        OMP_NUM_THREADS="1",
+        RAYON_NUM_THREADS="2",
+        MALLOC_ARENA_MAX="1",
+    )
     child = subprocess.run(
         [sys.executable, "-c", CHILD.format(headroom=HEADROOM), *cases],
         capture_output=True,

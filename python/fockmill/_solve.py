@@ -38,7 +38,7 @@ __all__ = [
 Method = Literal["auto", "dense", "csr", "operator", "lanczos"]
 _METHODS = METHODS
 #: Spaces up to this dimension are diagonalised densely.
-DENSE_MAX_DIM = 1500
+DENSE_MAX_DIM = 500
 #: Fraction of the available memory a solve may plan to use.
 MEMORY_BUDGET = 0.8
 
@@ -157,11 +157,13 @@ def choose_method(
 ) -> Literal["dense", "csr", "operator", "lanczos"]:
     """The method ``"auto"`` picks for ``k`` levels given a memory estimate.
 
-    Dense for at most ``DENSE_MAX_DIM`` states. For one level, the Lanczos solver in
-    Rust (on a stored matrix when it fits, see ``store_matrix``), which keeps only four
-    vectors. For several levels, eigsh on the stored matrix when the matrix and a
-    Krylov basis fit in ``MEMORY_BUDGET`` of the memory, else eigsh on the matrix-free
-    operator. The thresholds come from ``benchmarks/bench_methods.py``.
+    Dense for at most ``DENSE_MAX_DIM`` (500) states. Above that, the Lanczos solvers in
+    Rust (four vectors for one level, a thick-restart basis of ``2k + 9`` for several;
+    on a CSR matrix kept in Rust when it fits, see ``store_matrix``), which
+    ``benchmarks/bench_methods.py`` measured as fastest or within noise of the fastest
+    from about 1,700 states up (dense eigh already took 1.3 s at 1,716 states, Lanczos
+    0.01 s). eigsh (stored, then matrix-free) only when the Lanczos vectors do not fit
+    in ``MEMORY_BUDGET`` of the memory.
 
     Raises
     ------
@@ -173,7 +175,7 @@ def choose_method(
     krylov = estimate.krylov_bytes(_krylov_vectors(k))
     if estimate.dim <= DENSE_MAX_DIM:
         return "dense"
-    if k == 1 and estimate.krylov_bytes(5) <= budget:
+    if estimate.krylov_bytes(_lanczos_vectors(k)) <= budget:
         return "lanczos"
     if estimate.build_peak_bytes + krylov <= budget:
         return "csr"
@@ -416,7 +418,10 @@ def _validate(
 
 def _pick(problem: Problem, k: int, method: str) -> str:
     if method == "auto":
-        return choose_method(problem.estimate, k, problem.memory_limit)
+        chosen = choose_method(problem.estimate, k, problem.memory_limit)
+        if chosen == "lanczos" and k > 1 and not hasattr(problem.native, "lanczos_levels"):
+            return "csr"
+        return chosen
     _check_fits(problem.estimate, method, k, problem.memory_limit)
     return method
 
