@@ -206,9 +206,12 @@ def _check_fits(estimate: MemoryEstimate, method: str, k: int, memory_limit: int
         )
 
 
-def _start_vector(v0: npt.ArrayLike | None, problem: Problem, seed: int) -> npt.NDArray[Any] | None:
+def _start_vector(
+    v0: npt.ArrayLike | None, problem: Problem, seed: int, *, mix_noise: bool = True
+) -> npt.NDArray[Any] | None:
     """The user's start vector, normalised and mixed with ``START_NOISE`` of seeded
-    noise (so that no symmetry sector is excluded), or None."""
+    noise (so that no symmetry sector is excluded), or None. The Rust Lanczos solvers
+    mix the same noise themselves: they take ``mix_noise=False``."""
     if v0 is None:
         return None
     v = check_vector(problem.space, v0, "v0")
@@ -216,6 +219,8 @@ def _start_vector(v0: npt.ArrayLike | None, problem: Problem, seed: int) -> npt.
         v = np.ascontiguousarray(v.real)
         if not np.any(v):
             return None
+    if not mix_noise:
+        return v
     v = v / np.linalg.norm(v)
     noise = np.random.default_rng([seed, 0x5EED]).standard_normal(v.shape[0])
     mixed = v + START_NOISE * noise / np.linalg.norm(noise)
@@ -444,7 +449,7 @@ def _native_ground(
     store_matrix: bool | None,
 ) -> tuple[float, npt.NDArray[Any], float, int, int]:
     """The four-vector Lanczos in Rust: (energy, vector, residual, steps, products)."""
-    start = _start_vector(v0, problem, seed)
+    start = _start_vector(v0, problem, seed, mix_noise=False)
     # Each Lanczos step costs about two products (the second pass regenerates the
     # Krylov vectors), so a product budget allows half as many steps.
     max_steps = 400 if max_iterations is None else max(2, min(400, max_iterations // 2))
@@ -501,9 +506,7 @@ def _native_levels(
             "method='lanczos' for several levels is not available for this space type; "
             "use method='csr' or 'operator'"
         )
-    start = None if v0 is None else check_vector(problem.space, v0, "v0")
-    if start is not None and problem.is_real and start.dtype.kind == "c":
-        start = np.ascontiguousarray(start.real) if np.any(start.real) else None
+    start = _start_vector(v0, problem, seed, mix_noise=False)
     max_products = 20_000 if max_iterations is None else int(max_iterations)
     ready = _ready_csr(problem)
     if ready is not None:  # a matrix handed in (sweeps): solve on it, build nothing
