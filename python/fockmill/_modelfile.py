@@ -251,6 +251,10 @@ class ModelFile:
     units: dict[str, str] = field(default_factory=dict)
     mode_weights: dict[str, tuple[float, ...]] = field(default_factory=dict)
     descriptions: dict[str, str] = field(default_factory=dict)
+    # [quench], [spectrum], [temperature] (see fockmill._modelfile_dynamics); None if absent.
+    quench: Any = None
+    spectrum: Any = None
+    temperature: Any = None
 
     def __hash__(self) -> int:
         return hash(self.text_hash)
@@ -1031,6 +1035,9 @@ def _parse(text: str, source: str, path: str | None) -> ModelFile:
         "sweep",
         "record",
         "solver",
+        "quench",
+        "spectrum",
+        "temperature",
     ]
     reader.check_keys(document, "", allowed)
     if "schema" in document:
@@ -1048,6 +1055,9 @@ def _parse(text: str, source: str, path: str | None) -> ModelFile:
     sweep = _sweep(reader, document["sweep"], model) if "sweep" in document else None
     quantities, levels, entropy_modes = _record(reader, document.get("record", {}), model)
     solver = _solver(reader, document.get("solver", {}))
+    from fockmill._modelfile_dynamics import parse_dynamics_sections
+
+    dynamics = parse_dynamics_sections(reader, document, model)
     return ModelFile(
         path=path,
         model=model,
@@ -1060,6 +1070,7 @@ def _parse(text: str, source: str, path: str | None) -> ModelFile:
         units=units,
         mode_weights=mode_weights,
         descriptions=descriptions,
+        **dynamics,
     )
 
 
