@@ -268,8 +268,10 @@ def _observables(
     for name, raw in table.items():
         where = _join(path, name)
         if not _OBSERVABLE_NAME.match(name):
-            reader.fail(where, "an observable name must start with a letter and hold only "
-                        "letters, digits and _")
+            reader.fail(
+                where,
+                "an observable name must start with a letter and hold only letters, digits and _",
+            )
         if name in RESERVED_NAMES:
             reader.fail(where, f"{name!r} is a name the results use themselves; pick another")
         expr, written = _operator(reader, raw, where, model)
@@ -279,8 +281,14 @@ def _observables(
     return exprs, texts
 
 
-def _positive(reader: _Reader, table: Mapping[str, Any], key: str, path: str, default: float,
-              upper: float | None = None) -> float:
+def _positive(
+    reader: _Reader,
+    table: Mapping[str, Any],
+    key: str,
+    path: str,
+    default: float,
+    upper: float | None = None,
+) -> float:
     from fockmill._modelfile import _join
 
     if key not in table:
@@ -418,9 +426,9 @@ def _quench(reader: _Reader, value: object, model: Model) -> QuenchSpec:
 # -- [spectrum] ---------------------------------------------------------------------------
 
 
-def _target(reader: _Reader, expr: LadderExpr, path: str, text: str, model: Model) -> tuple[
-    FockSpace, int
-]:
+def _target(
+    reader: _Reader, expr: LadderExpr, path: str, text: str, model: Model
+) -> tuple[FockSpace, int]:
     """The sector the probe lands in, and the change of the conserved number."""
     space = model.space
     if expr.is_zero():
@@ -449,7 +457,10 @@ def _target(reader: _Reader, expr: LadderExpr, path: str, text: str, model: Mode
         )
     try:
         target = FockSpace(
-            space.modes, list(space.cutoffs), new_total, weights=list(space.weights),
+            space.modes,
+            list(space.cutoffs),
+            new_total,
+            weights=list(space.weights),
             modulus=modulus,
         )
     except (SpaceError, SizeLimitError) as error:
@@ -469,12 +480,15 @@ def _spectrum(reader: _Reader, value: object, model: Model) -> SpectrumSpec:
     )
     where = _join(path, "operator")
     operator, texts = _operator(
-        reader, reader.required(table, "operator", path, 'a term string such as "lower(0)"'),
-        where, model,
+        reader,
+        reader.required(table, "operator", path, 'a term string such as "lower(0)"'),
+        where,
+        model,
     )
     target, charge = _target(reader, operator, where, " + ".join(texts), model)
     omegas = _grid(
-        reader, reader.required(table, "omegas", path, "an array of frequencies"),
+        reader,
+        reader.required(table, "omegas", path, "an array of frequencies"),
         _join(path, "omegas"),
     )
     reference = None
@@ -513,7 +527,8 @@ def _temperature(reader: _Reader, value: object, model: Model) -> TemperatureSpe
     )
     where = _join(path, "temperatures")
     temperatures = _grid(
-        reader, reader.required(table, "temperatures", path, "an array of temperatures > 0"),
+        reader,
+        reader.required(table, "temperatures", path, "an array of temperatures > 0"),
         where,
     )
     if np.any(temperatures <= 0):

@@ -121,8 +121,7 @@ class WorkflowResult:
             and self.meta == other.meta
             and self.arrays.keys() == other.arrays.keys()
             and all(
-                np.array_equal(self.arrays[k], other.arrays[k], equal_nan=True)
-                for k in self.arrays
+                np.array_equal(self.arrays[k], other.arrays[k], equal_nan=True) for k in self.arrays
             )
         )
 
@@ -334,8 +333,7 @@ def meta_of(
         "model_file": model_file.path,
         "dim": model.space.dim,
         "space": _space_summary(model.space),
-        "mode_labels": list(model.mode_labels)
-        or [f"mode {i}" for i in range(model.space.modes)],
+        "mode_labels": list(model.mode_labels) or [f"mode {i}" for i in range(model.space.modes)],
         "units": dict(model_file.units),
         "descriptions": dict(model_file.descriptions),
         "parameters": dict(parameters),

@@ -82,9 +82,7 @@ class _Warnings:
         self._catcher.__exit__(*exc)
         for item in self._caught:
             self.messages.append(str(item.message))
-            warnings.warn_explicit(
-                item.message, item.category, item.filename, item.lineno
-            )
+            warnings.warn_explicit(item.message, item.category, item.filename, item.lineno)
 
 
 def run_quench(
@@ -293,7 +291,12 @@ def run_spectrum(
         "target_dim": target.dim,
     }
     meta = meta_of(
-        model_file, "spectrum", values, settings=settings, observables={}, summary=summary,
+        model_file,
+        "spectrum",
+        values,
+        settings=settings,
+        observables={},
+        summary=summary,
         warnings=messages,
     )
     return WorkflowResult("spectrum", arrays, meta)
