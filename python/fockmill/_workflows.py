@@ -215,14 +215,15 @@ def run_spectrum(
     WorkflowResult
         ``kind="spectrum"``; arrays ``omegas``, ``S`` and, with ``poles = true``,
         ``pole_frequencies`` and ``pole_weights``; ``summary`` holds the ground energy,
-        the reference energy, ``norm`` = ⟨ψ|A†A|ψ⟩ and Lanczos step counts.
+        the reference energy, ``norm`` = ‖Aψ‖² (⟨ψ|A†A|ψ⟩ within the cutoffs, the
+        integral of S over all ω) and Lanczos step counts.
 
     Raises
     ------
     ValueError, ConvergenceError
         No ``[spectrum]`` section; the errors of :func:`fockmill.spectral_function`.
     """
-    from fockmill._observe import expectation
+    from fockmill._problem import prepare
     from fockmill._solve import ground_state
     from fockmill._spectral import spectral_function, spectral_poles
 
@@ -252,10 +253,10 @@ def run_spectrum(
             memory_limit=memory_limit,
         )
         arrays: dict[str, Any] = {"omegas": omegas, "S": s}
-        a = spec.operator
-        norm = float(
-            np.real(expectation(a.adjoint() * a, space, ground.vector, threads=solver["threads"]))
-        )
+        # ‖Aψ‖² in the target space: ⟨ψ|A†A|ψ⟩ within the cutoffs (the sum rule of S).
+        probe = prepare(spec.operator, space, target=spec.target, threads=solver["threads"])
+        applied = probe.matvec(ground.vector)
+        norm = float(np.vdot(applied, applied).real)
         summary: dict[str, Any] = {
             "ground_energy": ground.energy,
             "ground_residual": ground.residual,
