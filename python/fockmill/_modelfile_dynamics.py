@@ -107,6 +107,7 @@ class InitialState:
 
     def vector(self, space: FockSpace) -> npt.NDArray[np.complex128]:
         """The normalised state for ``"fock"`` and ``"coherent"`` (see the module)."""
+        psi: npt.NDArray[np.complex128]
         if self.kind == "fock":
             psi = np.zeros(space.dim, dtype=np.complex128)
             psi[space.index(np.asarray(self.occupations, dtype=np.int64))] = 1.0
@@ -115,7 +116,7 @@ class InitialState:
             # The full truncated space is the kron product basis (mode 0 most significant).
             psi = np.ones(1, dtype=np.complex128)
             for alpha, cutoff in zip(self.amplitudes, space.cutoffs, strict=True):
-                psi = np.kron(psi, _coherent_amplitudes(alpha, cutoff))
+                psi = np.asarray(np.kron(psi, _coherent_amplitudes(alpha, cutoff)), np.complex128)
             return psi / np.linalg.norm(psi)  # type: ignore[no-any-return]
         raise ValueError("a ground-state initial state is computed from the model")
 
@@ -402,7 +403,8 @@ def _quench(reader: _Reader, value: object, model: Model) -> QuenchSpec:
         reader.fail(where, f"times must be >= 0 (the initial state is at t = 0); got {times.min()}")
     if np.any(np.diff(times) < 0):
         reader.fail(where, "times must be non-decreasing; sort them")
-    observables, texts = {}, {}
+    observables: dict[str, LadderExpr] = {}
+    texts: dict[str, tuple[str, ...]] = {}
     if "observables" in table:
         observables, texts = _observables(
             reader, table["observables"], _join(path, "observables"), model
@@ -548,7 +550,8 @@ def _temperature(reader: _Reader, value: object, model: Model) -> TemperatureSpe
     if "steps" in table:
         steps = reader.integer(table["steps"], _join(path, "steps"), 1, 10**6)
     seed = reader.integer(table.get("seed", 0), _join(path, "seed"), 0, MAX_SEED - 1)
-    observables, texts = {}, {}
+    observables: dict[str, LadderExpr] = {}
+    texts: dict[str, tuple[str, ...]] = {}
     if "observables" in table:
         observables, texts = _observables(
             reader, table["observables"], _join(path, "observables"), model

@@ -10,9 +10,10 @@ ground states use the ``[solver]`` settings.
 
 from __future__ import annotations
 
+import contextlib
 import time
 import warnings
-from collections.abc import Mapping
+from collections.abc import Iterator, Mapping
 from typing import Any
 
 import numpy as np
@@ -68,21 +69,16 @@ def _split_populations(
     return table.reshape(count, modes), rest
 
 
-class _Warnings:
+@contextlib.contextmanager
+def _collected_warnings() -> Iterator[list[str]]:
     """Collect warnings (for the results' meta data), then pass them on."""
-
-    def __enter__(self) -> list[str]:
-        self._catcher = warnings.catch_warnings(record=True)
-        self._caught = self._catcher.__enter__()
+    messages: list[str] = []
+    with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always")
-        self.messages: list[str] = []
-        return self.messages
-
-    def __exit__(self, *exc: object) -> None:
-        self._catcher.__exit__(*exc)
-        for item in self._caught:
-            self.messages.append(str(item.message))
-            warnings.warn_explicit(item.message, item.category, item.filename, item.lineno)
+        yield messages
+    for item in caught:
+        messages.append(str(item.message))
+        warnings.warn_explicit(item.message, item.category, item.filename, item.lineno)
 
 
 def run_quench(
@@ -131,7 +127,7 @@ def run_quench(
     solver = _solver(model_file, threads)
     h = model.hamiltonian(**values)
     summary: dict[str, Any] = {}
-    with _Warnings() as messages:
+    with _collected_warnings() as messages:
         if spec.initial.kind == "ground":
             start_values = {**values, **spec.initial.parameters}
             ground = ground_state(
@@ -234,7 +230,7 @@ def run_spectrum(
     values = _values(model_file, overrides)
     solver = _solver(model_file, threads)
     h = model.hamiltonian(**values)
-    with _Warnings() as messages:
+    with _collected_warnings() as messages:
         ground = ground_state(h, space, memory_limit=memory_limit, **solver)
         reference = ground.energy if spec.reference_energy is None else spec.reference_energy
         omegas = np.asarray(spec.omegas)
@@ -347,7 +343,7 @@ def run_thermal(
         observables.update(_population_observables(space.modes))
     observables.update(spec.observables)
     temperatures = np.asarray(spec.temperatures)
-    with _Warnings() as messages:
+    with _collected_warnings() as messages:
         th = thermal(
             h,
             space,
