@@ -58,6 +58,8 @@ Schema (every table but ``[model]`` is optional; unknown keys are errors)
     ``method`` (``"auto"``, ``"dense"``, ``"csr"``, ``"operator"``, ``"lanczos"``;
     default ``"auto"``), ``tol`` (default 1e-9), ``seed`` (default 0),
     ``max_iterations`` (matrix-vector products; default: the solver's own), ``threads``.
+``[quench]``, ``[spectrum]``, ``[temperature]``
+    Dynamics, spectra and thermal curves; read by :mod:`fockmill._modelfile_dynamics`.
 """
 
 from __future__ import annotations
@@ -238,6 +240,9 @@ class ModelFile:
         listed mode (the listed ``weights`` or the drawn disorder), in ``modes`` order.
     descriptions : dict of str to str
         ``[terms.NAME] description``: what a user's parameter is, for axis labels.
+    quench, spectrum, temperature : QuenchSpec, SpectrumSpec, TemperatureSpec or None
+        The ``[quench]``, ``[spectrum]`` and ``[temperature]`` sections (see
+        :mod:`fockmill._modelfile_dynamics`); None when absent.
     """
 
     path: str | None
