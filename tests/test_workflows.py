@@ -38,6 +38,9 @@ from fockmill._modelfile_dynamics import InitialState
 from fockmill._store import ResultsStore
 from fockmill._workflow_store import is_workflow_file
 from fockmill.exceptions import ModelFileError, StoreError
+from hypothesis import HealthCheck, given, settings
+from hypothesis import strategies as st
+from test_modelfile import VALUES, toml_document
 
 REPO = Path(__file__).resolve().parents[1]
 EXAMPLES = REPO / "examples" / "models"
@@ -157,6 +160,26 @@ def test_grids_accept_a_table_with_geometric_spacing() -> None:
     spec = parse(text).temperature
     assert spec is not None
     np.testing.assert_allclose(spec.temperatures, [0.1, 1.0, 10.0])
+
+
+@pytest.mark.parametrize(
+    ("name", "section"),
+    [
+        ("kerr_oscillator_revival.toml", "quench"),
+        ("dimer_interaction_quench.toml", "quench"),
+        ("ring_photon_removal.toml", "spectrum"),
+        ("kerr_trimer_thermal.toml", "temperature"),
+    ],
+)
+def test_examples_load_and_parse_the_same_from_text(name: str, section: str) -> None:
+    path = EXAMPLES / name
+    loaded = fm.load_model_file(path)
+    text = path.read_text(encoding="utf-8")
+    assert "INVENTED SCENARIO" in text
+    again = fm.parse_model_text(text)
+    assert getattr(loaded, section) is not None
+    assert getattr(again, section) == getattr(loaded, section)
+    assert again == fm.ModelFile(**{**loaded.__dict__, "path": None})
 
 
 def test_a_file_without_the_sections_is_unchanged() -> None:
@@ -309,6 +332,66 @@ def test_refusals_name_the_key_path(text: str, key: str, words: str) -> None:
 def test_unknown_top_level_section_still_refused() -> None:
     error = refusal(PAIR + "[quenchh]\ntimes = [0.0]\n")
     assert error.key == "quenchh" and "did you mean 'quench'" in error.problem
+
+
+DYNAMICS_BASE: dict[str, object] = {
+    "model": {"kind": "kerr-network", "frequencies": [1.0, 1.0], "cutoff": 3},
+    "quench": {
+        "times": {"start": 0.0, "stop": 1.0, "num": 3},
+        "initial": {"state": "coherent", "amplitudes": [0.1, [0.0, 0.1]]},
+        "observables": {"x": "count(0)"},
+    },
+    "spectrum": {"operator": "lower(0)", "omegas": [0.0, 1.0], "eta": 0.1},
+    "temperature": {"temperatures": [0.5], "method": "ftlm", "samples": 2},
+}
+DYNAMICS_WORDS = [
+    "times", "initial", "state", "fock", "coherent", "ground", "occupations", "amplitudes",
+    "parameters", "observables", "populations", "tol", "operator", "omegas", "eta",
+    "reference_energy", "poles", "max_steps", "temperatures", "method", "samples", "seed",
+    "steps", "exact", "ftlm", "start", "stop", "num", "values", "lower(0)", "count(1)",
+]  # fmt: skip
+
+
+def test_fuzz_base_is_valid() -> None:
+    spec = parse(toml_document(DYNAMICS_BASE))
+    assert spec.quench is not None and spec.spectrum is not None
+    assert spec.temperature is not None
+
+
+@settings(max_examples=120, deadline=None, suppress_health_check=[HealthCheck.too_slow])
+@given(
+    st.lists(
+        st.tuples(
+            st.sampled_from(["quench", "spectrum", "temperature", "quench.initial"]),
+            st.sampled_from(DYNAMICS_WORDS),
+            VALUES | st.sampled_from(DYNAMICS_WORDS) | st.none(),
+        ),
+        min_size=1,
+        max_size=3,
+    )
+)
+def test_fuzz_mutated_sections_fail_only_with_model_file_errors(
+    mutations: list[tuple[str, str, object]],
+) -> None:
+    document = json.loads(json.dumps(DYNAMICS_BASE))
+    for where, key, value in mutations:
+        table = document
+        for part in where.split("."):
+            if not isinstance(table.get(part), dict):
+                table[part] = {}
+            table = table[part]
+        if value is None:
+            table.pop(key, None)
+        else:
+            table[key] = value
+    try:
+        spec = parse(toml_document(document))
+    except ModelFileError as error:
+        assert str(error).startswith("<test>: ")
+        assert error.key is None or error.key.split(".")[0].split("[")[0] in document
+    else:
+        if spec.quench is not None:
+            assert all(t >= 0 for t in spec.quench.times)
 
 
 # -- physics against outside facts --------------------------------------------------------

@@ -68,6 +68,8 @@ THERMAL_METHODS: tuple[str, ...] = ("auto", "exact", "ftlm")
 
 #: A coherent state is refused when the cutoffs drop more than this weight of it.
 COHERENT_TRUNCATION = 1e-6
+#: Largest coherent amplitude accepted (|α|² photons would need a cutoff far above it).
+MAX_AMPLITUDE = 1e3
 #: Most named observables per section (each costs one product per recorded point).
 MAX_OBSERVABLES = 64
 #: Names the result files use themselves.
@@ -371,6 +373,8 @@ def _initial(reader: _Reader, value: object, model: Model) -> InitialState:
                 )
             else:
                 alpha = complex(reader.number(item, spot))
+            if abs(alpha) > MAX_AMPLITUDE:
+                reader.wrong(spot, f"an amplitude with |α| <= {MAX_AMPLITUDE:g}", item)
             kept = float(np.sum(np.abs(_coherent_amplitudes(alpha, space.cutoffs[k])) ** 2))
             if 1.0 - kept > COHERENT_TRUNCATION:
                 reader.fail(

@@ -147,10 +147,12 @@ def build_parser() -> argparse.ArgumentParser:
     show = commands.add_parser(
         "show",
         help="print a results file",
-        description="Print the points of RESULTS.sqlite. 'table' shows scalar "
+        description="Print a results file. For a sweep, 'table' shows scalar "
         "quantities and short per-mode lists, then the points that failed or did not "
         "converge and why; 'csv' flattens every recorded value into columns; 'json' prints "
-        "the meta data and every row.",
+        "the meta data and every row. For a quench, spectrum or thermal run: the header "
+        "and every row ('table'), the arrays as columns ('csv'), meta data and arrays "
+        "('json').",
     )
     show.add_argument("results", metavar="RESULTS.sqlite", help="results file")
     show.add_argument(
@@ -159,9 +161,11 @@ def build_parser() -> argparse.ArgumentParser:
 
     plot = commands.add_parser(
         "plot",
-        help="plot recorded quantities against a swept parameter",
+        help="plot a results file (sweep, quench, spectrum or thermal)",
         description="Draw one panel per quantity against a swept parameter and write an "
-        "image (format from the suffix: .png, .pdf, .svg). Needs matplotlib.",
+        "image (format from the suffix: .png, .pdf, .svg). For a quench, spectrum or "
+        "thermal run: observables against time, S(ω) with its poles, or the thermal "
+        "curves. Needs matplotlib.",
     )
     plot.add_argument("results", metavar="RESULTS.sqlite", help="results file")
     plot.add_argument("--out", required=True, metavar="FIG.png", help="image file to write")
