@@ -19,7 +19,7 @@ from typing import TYPE_CHECKING, Any
 
 import numpy as np
 
-from fockmill._plot import _evenly_spaced_in_log, _series, _title
+from fockmill._plot import _evenly_spaced_in_log, _hold_constant, _series, _title
 from fockmill._workflow_store import WorkflowResult, read_workflow_results
 
 if TYPE_CHECKING:
@@ -121,6 +121,15 @@ def _population_lines(axis: Axes, x: Any, result: WorkflowResult, errors: Any = 
     _legend(axis)
 
 
+def _steady(axis: Axes) -> None:
+    """No offset notation; a constant panel (a conserved number) is centred on its value
+    instead of magnifying rounding noise."""
+    axis.ticklabel_format(axis="y", useOffset=False)
+    drawn = [np.asarray(line.get_ydata(), dtype=np.float64) for line in axis.get_lines()]
+    if drawn:
+        _hold_constant(axis, np.concatenate(drawn))
+
+
 def _quench(figure: Figure, result: WorkflowResult) -> None:
     times = result.arrays["times"]
     panels = ["populations"] if "populations" in result.arrays else []
@@ -132,6 +141,7 @@ def _quench(figure: Figure, result: WorkflowResult) -> None:
             _population_lines(axis, times, result)
         else:
             _observable_lines(axis, times, result, errors=False)
+        _steady(axis)
         axis.grid(alpha=0.3)
     axes[-1].set_xlabel(time_label(_unit(result)))
 
@@ -181,8 +191,8 @@ def _thermal(figure: Figure, result: WorkflowResult) -> None:
             _population_lines(axis, temperatures, result, arrays.get("populations_error"))
         else:
             _observable_lines(axis, temperatures, result, errors=True)
+        _steady(axis)
         axis.grid(alpha=0.3)
-        axis.ticklabel_format(axis="y", useOffset=False)
     axes[-1].set_xlabel(temperature_label(unit))
     if _evenly_spaced_in_log(temperatures):
         axes[-1].set_xscale("log")
