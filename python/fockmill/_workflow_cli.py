@@ -7,6 +7,7 @@ import argparse
 import csv
 import io
 import json
+import sys
 import warnings
 from collections.abc import Callable, Sequence
 from pathlib import Path
@@ -111,9 +112,10 @@ def run_command(
         warnings.simplefilter("always")
         result = runner[args.command](model_file, overrides=overrides, threads=args.threads)
     for item in caught:
-        print(f"fockmill: warning: {' '.join(str(item.message).split())}", file=_stderr())
+        print(f"fockmill: warning: {' '.join(str(item.message).split())}", file=sys.stderr)
     path = write_workflow_results(target, result)
-    print(format_result(result, rows=SUMMARY_ROWS), file=out)
+    # The warnings went to stderr above; the table leaves them out.
+    print(format_result(result, rows=SUMMARY_ROWS, warnings=False), file=out)
     print(f"results: {path}", file=out)
     if args.plot:
         from fockmill._plot_workflows import plot_workflow
@@ -124,12 +126,6 @@ def run_command(
         except ImportError as exc:
             print(f"no figure: {exc}", file=out)
     return 0
-
-
-def _stderr() -> IO[str]:
-    import sys
-
-    return sys.stderr
 
 
 # -- text -----------------------------------------------------------------------------
@@ -319,11 +315,12 @@ def _entries(entries: list[tuple[str, str]]) -> list[str]:
     return [f"{name:<{width}}  {text}" for name, text in entries]
 
 
-def format_result(result: WorkflowResult, rows: int | None = None) -> str:
-    """A header and an aligned table of a workflow result (``rows``: at most this many)."""
+def format_result(result: WorkflowResult, rows: int | None = None, *, warnings: bool = True) -> str:
+    """A header and an aligned table of a workflow result (``rows``: at most this many),
+    then the warnings the run gave (unless ``warnings=False``)."""
     text = {"quench": _quench_text, "spectrum": _spectrum_text, "thermal": _thermal_text}
     lines = text[result.kind](result, rows)
-    for message in result.meta.get("warnings") or []:
+    for message in (result.meta.get("warnings") or []) if warnings else []:
         lines.append(f"# warning: {' '.join(str(message).split())}")
     return "\n".join(lines)
 
