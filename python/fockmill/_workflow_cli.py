@@ -115,7 +115,7 @@ def run_command(
         print(f"fockmill: warning: {' '.join(str(item.message).split())}", file=sys.stderr)
     path = write_workflow_results(target, result)
     # The warnings went to stderr above; the table leaves them out.
-    print(format_result(result, rows=SUMMARY_ROWS, warnings=False), file=out)
+    print(format_result(result, rows=SUMMARY_ROWS, with_warnings=False), file=out)
     print(f"results: {path}", file=out)
     if args.plot:
         from fockmill._plot_workflows import plot_workflow
@@ -315,12 +315,14 @@ def _entries(entries: list[tuple[str, str]]) -> list[str]:
     return [f"{name:<{width}}  {text}" for name, text in entries]
 
 
-def format_result(result: WorkflowResult, rows: int | None = None, *, warnings: bool = True) -> str:
+def format_result(
+    result: WorkflowResult, rows: int | None = None, *, with_warnings: bool = True
+) -> str:
     """A header and an aligned table of a workflow result (``rows``: at most this many),
-    then the warnings the run gave (unless ``warnings=False``)."""
+    then the warnings the run gave (unless ``with_warnings=False``)."""
     text = {"quench": _quench_text, "spectrum": _spectrum_text, "thermal": _thermal_text}
     lines = text[result.kind](result, rows)
-    for message in (result.meta.get("warnings") or []) if warnings else []:
+    for message in (result.meta.get("warnings") or []) if with_warnings else []:
         lines.append(f"# warning: {' '.join(str(message).split())}")
     return "\n".join(lines)
 
