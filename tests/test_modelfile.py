@@ -49,11 +49,15 @@ def parse(text: str) -> ModelFile:
 
 def test_every_example_is_covered() -> None:
     assert sorted(p.name for p in EXAMPLES.glob("*.toml")) == [
+        "dimer_interaction_quench.toml",
         "disordered_plaquette.toml",
         "driven_triangle.toml",
+        "kerr_oscillator_revival.toml",
         "kerr_trimer.toml",
+        "kerr_trimer_thermal.toml",
         "polariton_chain.toml",
         "ring_kerr_crossover.toml",
+        "ring_photon_removal.toml",
         "squeezed_kerr_pair.toml",
     ]
 

@@ -41,6 +41,10 @@ load_model_file, parse_model_text, ModelFile, SweepGrid, ModelFileError
     Model files in TOML.
 run_sweep, SweepTable, PointResult, ResultsStore, StoreError, plot_sweep
     Parameter sweeps (process pool, any Executor, Dask), resumable SQLite results, plots.
+run_quench, run_spectrum, run_thermal, WorkflowResult, read_workflow_results,
+write_workflow_results, plot_workflow
+    The ``[quench]``, ``[spectrum]`` and ``[temperature]`` sections of a model file:
+    run them, store and read their results files, draw them.
 """
 
 from fockmill import exceptions, models
@@ -69,6 +73,7 @@ from fockmill._observe import (
 )
 from fockmill._operator import LadderOperator, build_operator
 from fockmill._plot import plot_sweep
+from fockmill._plot_workflows import plot_workflow
 from fockmill._problem import Problem, prepare
 from fockmill._solve import GroundState, Levels, choose_method, ground_state, lowest_levels
 from fockmill._space import FockSpace
@@ -87,6 +92,12 @@ from fockmill._symmetry import (
 )
 from fockmill._thermal import Thermal, thermal
 from fockmill._truncation import CutoffScan, converge_cutoffs
+from fockmill._workflow_store import (
+    WorkflowResult,
+    read_workflow_results,
+    write_workflow_results,
+)
+from fockmill._workflows import run_quench, run_spectrum, run_thermal
 from fockmill.exceptions import CutoffWarning
 
 __all__ = [
@@ -115,6 +126,7 @@ __all__ = [
     "SweepTable",
     "SymmetricSpace",
     "Thermal",
+    "WorkflowResult",
     "__version__",
     "available_memory",
     "build_matrix",
@@ -142,16 +154,22 @@ __all__ = [
     "one_body_matrix",
     "parse_model_text",
     "plot_sweep",
+    "plot_workflow",
     "populations",
     "prepare",
     "raising",
+    "read_workflow_results",
     "ring_reflection",
     "ring_translation",
+    "run_quench",
+    "run_spectrum",
     "run_sweep",
+    "run_thermal",
     "save_state",
     "spectral_function",
     "spectral_poles",
     "thermal",
     "top_level_weights",
     "torus_translations",
+    "write_workflow_results",
 ]

@@ -58,6 +58,8 @@ Schema (every table but ``[model]`` is optional; unknown keys are errors)
     ``method`` (``"auto"``, ``"dense"``, ``"csr"``, ``"operator"``, ``"lanczos"``;
     default ``"auto"``), ``tol`` (default 1e-9), ``seed`` (default 0),
     ``max_iterations`` (matrix-vector products; default: the solver's own), ``threads``.
+``[quench]``, ``[spectrum]``, ``[temperature]``
+    Dynamics, spectra and thermal curves; read by :mod:`fockmill._modelfile_dynamics`.
 """
 
 from __future__ import annotations
@@ -238,6 +240,9 @@ class ModelFile:
         listed mode (the listed ``weights`` or the drawn disorder), in ``modes`` order.
     descriptions : dict of str to str
         ``[terms.NAME] description``: what a user's parameter is, for axis labels.
+    quench, spectrum, temperature : QuenchSpec, SpectrumSpec, TemperatureSpec or None
+        The ``[quench]``, ``[spectrum]`` and ``[temperature]`` sections (see
+        :mod:`fockmill._modelfile_dynamics`); None when absent.
     """
 
     path: str | None
@@ -251,6 +256,10 @@ class ModelFile:
     units: dict[str, str] = field(default_factory=dict)
     mode_weights: dict[str, tuple[float, ...]] = field(default_factory=dict)
     descriptions: dict[str, str] = field(default_factory=dict)
+    # [quench], [spectrum], [temperature] (see fockmill._modelfile_dynamics); None if absent.
+    quench: Any = None
+    spectrum: Any = None
+    temperature: Any = None
 
     def __hash__(self) -> int:
         return hash(self.text_hash)
@@ -1031,6 +1040,9 @@ def _parse(text: str, source: str, path: str | None) -> ModelFile:
         "sweep",
         "record",
         "solver",
+        "quench",
+        "spectrum",
+        "temperature",
     ]
     reader.check_keys(document, "", allowed)
     if "schema" in document:
@@ -1048,6 +1060,9 @@ def _parse(text: str, source: str, path: str | None) -> ModelFile:
     sweep = _sweep(reader, document["sweep"], model) if "sweep" in document else None
     quantities, levels, entropy_modes = _record(reader, document.get("record", {}), model)
     solver = _solver(reader, document.get("solver", {}))
+    from fockmill._modelfile_dynamics import parse_dynamics_sections
+
+    dynamics = parse_dynamics_sections(reader, document, model)
     return ModelFile(
         path=path,
         model=model,
@@ -1060,6 +1075,7 @@ def _parse(text: str, source: str, path: str | None) -> ModelFile:
         units=units,
         mode_weights=mode_weights,
         descriptions=descriptions,
+        **dynamics,
     )
 
 

@@ -487,6 +487,11 @@ class ResultsStore:
             raise StoreError(
                 f"{name} is not a fockmill results file: {what} (SQLite says: {exc}); {advice}"
             ) from exc
+        if {"meta", "arrays"} <= tables and "points" not in tables:
+            raise StoreError(
+                f"{name} holds a quench, spectrum or thermal result, not a sweep; read it "
+                f"with 'fockmill show' / 'fockmill plot' or fm.read_workflow_results; {advice}"
+            )
         marker = None
         if {"meta", "points"} <= tables:
             row = connection.execute("SELECT value FROM meta WHERE key='format'").fetchone()

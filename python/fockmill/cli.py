@@ -1,4 +1,5 @@
-"""The ``fockmill`` command: solve a model file, run resumable sweeps, show and plot results.
+"""The ``fockmill`` command: solve a model file, run resumable sweeps, quenches, spectra
+and thermal curves, show and plot results.
 
 Exit status: 0 success, 1 the computation failed (no convergence, out of memory),
 2 bad usage or bad input (one-line message on stderr), 130 interrupted (Ctrl-C).
@@ -49,7 +50,9 @@ class _Parser(argparse.ArgumentParser):
 _DESCRIPTION = """\
 Ground states, gaps and observables of coupled bosonic modes described by a TOML
 model file: solve one point, run a resumable parameter sweep into an SQLite results
-file, then show or plot the results. 'fockmill demo' runs a bundled invented example.
+file, then show or plot the results; 'quench', 'spectrum' and 'thermal' run a model
+file's dynamics, spectrum and temperature sections. 'fockmill demo' runs a bundled
+invented example.
 """
 
 _EPILOG = """\
@@ -59,6 +62,9 @@ examples:
   fockmill sweep ring.toml --out ring.sqlite --workers 2
   fockmill show ring.sqlite --format csv > ring.csv
   fockmill plot ring.sqlite --out ring.png --y energy,gap,entropy
+  fockmill quench pair.toml --out pair-quench.sqlite --plot pair-quench.png
+  fockmill spectrum ring.toml --out ring-spectrum.sqlite
+  fockmill thermal trimer.toml --out trimer-thermal.sqlite --set exchange_scale=2
 """
 
 
@@ -141,10 +147,12 @@ def build_parser() -> argparse.ArgumentParser:
     show = commands.add_parser(
         "show",
         help="print a results file",
-        description="Print the points of RESULTS.sqlite. 'table' shows scalar "
+        description="Print a results file. For a sweep, 'table' shows scalar "
         "quantities and short per-mode lists, then the points that failed or did not "
         "converge and why; 'csv' flattens every recorded value into columns; 'json' prints "
-        "the meta data and every row.",
+        "the meta data and every row. For a quench, spectrum or thermal run: the header "
+        "and every row ('table'), the arrays as columns ('csv'), meta data and arrays "
+        "('json').",
     )
     show.add_argument("results", metavar="RESULTS.sqlite", help="results file")
     show.add_argument(
@@ -153,9 +161,11 @@ def build_parser() -> argparse.ArgumentParser:
 
     plot = commands.add_parser(
         "plot",
-        help="plot recorded quantities against a swept parameter",
+        help="plot a results file (sweep, quench, spectrum or thermal)",
         description="Draw one panel per quantity against a swept parameter and write an "
-        "image (format from the suffix: .png, .pdf, .svg). Needs matplotlib.",
+        "image (format from the suffix: .png, .pdf, .svg). For a quench, spectrum or "
+        "thermal run: observables against time, S(ω) with its poles, or the thermal "
+        "curves. Needs matplotlib.",
     )
     plot.add_argument("results", metavar="RESULTS.sqlite", help="results file")
     plot.add_argument("--out", required=True, metavar="FIG.png", help="image file to write")
@@ -164,11 +174,15 @@ def build_parser() -> argparse.ArgumentParser:
     )
     plot.add_argument(
         "--y",
-        default="energy,gap",
+        default=None,
         metavar="Q1,Q2,...",
         help="comma-separated quantities (default energy,gap); any of energy, gap, levels, "
         "populations, number_variance, one_body, entropy, top_weight, residual, seconds",
     )
+    plot.add_argument("--no-poles", action="store_true", help="spectra: leave out the pole sticks")
+    from fockmill._workflow_cli import add_parsers
+
+    add_parsers(commands, _positive_int)
 
     demo = commands.add_parser(
         "demo",
@@ -594,6 +608,10 @@ def _open_results(path: str) -> ResultsStore:
 
 
 def _command_show(args: argparse.Namespace, out: IO[str]) -> int:
+    from fockmill._workflow_store import is_workflow_file
+
+    if is_workflow_file(args.results):
+        return _show_workflow(args, out)
     with _open_results(args.results) as store:
         table = store.to_table()
         meta = store.meta
@@ -607,10 +625,45 @@ def _command_show(args: argparse.Namespace, out: IO[str]) -> int:
     return EXIT_OK
 
 
+def _show_workflow(args: argparse.Namespace, out: IO[str]) -> int:
+    from fockmill._workflow_cli import format_csv as workflow_csv
+    from fockmill._workflow_cli import format_json as workflow_json
+    from fockmill._workflow_cli import format_result
+    from fockmill._workflow_store import read_workflow_results
+
+    result = read_workflow_results(args.results)
+    if args.format == "csv":
+        text = workflow_csv(result)
+    elif args.format == "json":
+        text = workflow_json(result)
+    else:
+        text = format_result(result)
+    print(text, file=out)
+    return EXIT_OK
+
+
+def _plot_workflow(args: argparse.Namespace, out: IO[str]) -> int:
+    from fockmill._plot_workflows import plot_workflow
+    from fockmill._workflow_store import read_workflow_results
+
+    result = read_workflow_results(args.results)
+    if args.x is not None or args.y is not None:
+        raise UsageError(
+            f"--x and --y choose sweep quantities; {args.results} holds a {result.kind} run, "
+            "whose figure is fixed (leave them out)"
+        )
+    path = plot_workflow(result, args.out, poles=not args.no_poles)
+    print(f"wrote {path}", file=out)
+    return EXIT_OK
+
+
 def _command_plot(args: argparse.Namespace, out: IO[str]) -> int:
     from fockmill._plot import plot_sweep
+    from fockmill._workflow_store import is_workflow_file
 
-    quantities = [q.strip() for q in args.y.split(",") if q.strip()]
+    if is_workflow_file(args.results):
+        return _plot_workflow(args, out)
+    quantities = [q.strip() for q in (args.y or "energy,gap").split(",") if q.strip()]
     with _open_results(args.results) as store:
         path = plot_sweep(store, args.out, x=args.x, y=quantities, mode_labels=store.mode_labels)
     print(f"wrote {path}", file=out)
@@ -658,12 +711,21 @@ def _command_demo(args: argparse.Namespace, out: IO[str]) -> int:
     return EXIT_OK
 
 
+def _command_workflow(args: argparse.Namespace, out: IO[str]) -> int:
+    from fockmill._workflow_cli import run_command
+
+    return run_command(args, out, _load_model, _parse_overrides, UsageError)
+
+
 _COMMANDS = {
     "solve": _command_solve,
     "sweep": _command_sweep,
     "show": _command_show,
     "plot": _command_plot,
     "demo": _command_demo,
+    "quench": _command_workflow,
+    "spectrum": _command_workflow,
+    "thermal": _command_workflow,
 }
 
 
@@ -683,11 +745,13 @@ def main(argv: Sequence[str] | None = None, *, out: IO[str] | None = None) -> in
         0 ok, 1 computation failed, 2 bad usage or input, 130 interrupted.
     """
     stream = out if out is not None else sys.stdout
+    command = None
     try:
         try:
             args = build_parser().parse_args(argv)
         except SystemExit as exc:  # --help and --version end here
             return int(exc.code or 0)
+        command = args.command
         if args.command is None:
             raise UsageError(
                 f"choose a subcommand: {', '.join(_COMMANDS)} (see '{PROGRAM} --help')"
@@ -699,6 +763,9 @@ def main(argv: Sequence[str] | None = None, *, out: IO[str] | None = None) -> in
         os.dup2(devnull, sys.stdout.fileno())
         return EXIT_OK
     except KeyboardInterrupt:
+        if command in ("quench", "spectrum", "thermal"):
+            print(f"{PROGRAM}: interrupted; no results file was written", file=sys.stderr)
+            return EXIT_INTERRUPTED
         print(
             f"{PROGRAM}: interrupted; finished points are saved, run the same command to resume",
             file=sys.stderr,
