@@ -434,6 +434,12 @@ def _pick(problem: Problem, k: int, method: str) -> str:
 def _store_matrix(problem: Problem, store_matrix: bool | None, k: int = 1) -> bool:
     if store_matrix is not None:
         return bool(store_matrix)
+    # With a bipartite cut the matrix-free product reads no matrix and was measured as
+    # fast as or faster than the stored one, whose build then costs extra
+    # (benchmarks/results/methods.txt, bench_matvec.txt); the row kernel and symmetric
+    # sectors (no `cut`) are several times slower than a stored matrix.
+    if getattr(problem.native, "cut", 0) > 0:
+        return False
     estimate = problem.estimate
     limit = problem.memory_limit if problem.memory_limit is not None else estimate.available_bytes
     budget = float("inf") if limit is None else MEMORY_BUDGET * limit
@@ -645,8 +651,10 @@ def lowest_levels(
         Bytes the solve may plan to use (default: available memory).
     store_matrix : bool or None
         For ``method="lanczos"``: run on a CSR matrix kept inside Rust instead of the
-        matrix-free product; None stores it when the matrix and the solver's vectors
-        fit in the memory budget.
+        matrix-free product; None uses the matrix-free product when it runs on the
+        bipartite kernel (``Problem.native.cut > 0``, measured faster than a stored
+        matrix), and otherwise stores the matrix when it and the solver's vectors fit
+        in the memory budget.
 
     Returns
     -------
@@ -819,8 +827,10 @@ def ground_state(
         Bytes the solve may plan to use (default: available memory).
     store_matrix : bool or None
         For ``method="lanczos"``: run on a CSR matrix built and kept inside Rust
-        (several times faster products) instead of the matrix-free product. None
-        (default) stores it when the matrix and five vectors fit in the memory budget.
+        instead of the matrix-free product. None (default) uses the matrix-free
+        product when it runs on the bipartite kernel (``Problem.native.cut > 0``,
+        measured as fast as or faster than a stored matrix, with no build), and
+        otherwise stores the matrix when it and five vectors fit in the memory budget.
     cutoff_warning : float or None
         Warn with :class:`~fockmill.exceptions.CutoffWarning` when a mode whose cutoff
         truncates (cutoff >= 2 and below what the total allows) holds more than this
