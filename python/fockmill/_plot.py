@@ -249,7 +249,7 @@ def _title(model_name: str, space: Mapping[str, Any] | None, labels: Sequence[st
     if not space:
         return model_name
     modes = int(space.get("modes") or len(space.get("cutoffs") or []) or 0)
-    parts = [f"{modes} modes"] if modes else []
+    parts = [f"{modes} mode" + ("s" if modes != 1 else "")] if modes else []
     if "dim" in space:
         parts.append(f"dim {int(space['dim']):,}")
     if modes:

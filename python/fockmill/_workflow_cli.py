@@ -170,7 +170,7 @@ def _header(result: WorkflowResult) -> list[tuple[str, str]]:
         (
             "model",
             f"{meta.get('model_name', '?')} (dim {meta.get('dim', '?')}, "
-            f"{space.get('modes', '?')} modes)",
+            f"{space.get('modes', '?')} mode{'' if space.get('modes') == 1 else 's'})",
         ),
         ("parameters", ", ".join(f"{k}={v:g}" for k, v in (meta.get("parameters") or {}).items())),
     ]

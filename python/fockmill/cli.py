@@ -405,7 +405,11 @@ def _format_point(
 ) -> str:
     """Human-readable report of one solved point (``fockmill solve``)."""
     entries: list[tuple[str, str]] = [
-        ("model", f"{model.name} (dim {model.space.dim}, {model.space.modes} modes)"),
+        (
+            "model",
+            f"{model.name} (dim {model.space.dim}, {model.space.modes} "
+            f"mode{'' if model.space.modes == 1 else 's'})",
+        ),
         ("parameters", ", ".join(f"{k}={v:g}" for k, v in row.parameters.items())),
     ]
     if row.status != "ok":
