@@ -53,6 +53,10 @@ Schema (every table but ``[model]`` is optional; unknown keys are errors)
     (default ``["energy"]``); ``levels`` (how many lowest levels to compute);
     ``entropy_modes`` (the subsystem for ``entropy``; default the first half of the
     modes).
+``[symmetry]``
+    The symmetry sector(s) to solve in: ``translation`` (a label or ``"all"``),
+    ``reflection``, ``permutations`` with ``labels`` (see
+    :mod:`fockmill._modelfile_symmetry`).
 ``[solver]``
     The keywords of :func:`fockmill.ground_state`, same names, defaults and meanings:
     ``method`` (``"auto"``, ``"dense"``, ``"csr"``, ``"operator"``, ``"lanczos"``;
@@ -74,7 +78,7 @@ import tomllib
 import warnings
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field
-from typing import Any, NoReturn
+from typing import TYPE_CHECKING, Any, NoReturn
 
 import numpy as np
 import numpy.typing as npt
@@ -92,6 +96,9 @@ from fockmill.models import (
     rectangular_edges,
     with_drives,
 )
+
+if TYPE_CHECKING:
+    from fockmill._sector_choice import SectorChoice
 
 __all__ = [
     "KINDS",
@@ -238,6 +245,8 @@ class ModelFile:
         listed mode (the listed ``weights`` or the drawn disorder), in ``modes`` order.
     descriptions : dict of str to str
         ``[terms.NAME] description``: what a user's parameter is, for axis labels.
+    symmetry : SectorChoice or None
+        ``[symmetry]``: the sector(s) to solve in, None for the whole space.
     """
 
     path: str | None
@@ -251,6 +260,7 @@ class ModelFile:
     units: dict[str, str] = field(default_factory=dict)
     mode_weights: dict[str, tuple[float, ...]] = field(default_factory=dict)
     descriptions: dict[str, str] = field(default_factory=dict)
+    symmetry: SectorChoice | None = None
 
     def __hash__(self) -> int:
         return hash(self.text_hash)
@@ -1031,6 +1041,7 @@ def _parse(text: str, source: str, path: str | None) -> ModelFile:
         "sweep",
         "record",
         "solver",
+        "symmetry",
     ]
     reader.check_keys(document, "", allowed)
     if "schema" in document:
@@ -1048,6 +1059,11 @@ def _parse(text: str, source: str, path: str | None) -> ModelFile:
     sweep = _sweep(reader, document["sweep"], model) if "sweep" in document else None
     quantities, levels, entropy_modes = _record(reader, document.get("record", {}), model)
     solver = _solver(reader, document.get("solver", {}))
+    symmetry = None
+    if "symmetry" in document:
+        from fockmill._modelfile_symmetry import parse_symmetry
+
+        symmetry = parse_symmetry(reader, document["symmetry"], document["model"], model)
     return ModelFile(
         path=path,
         model=model,
@@ -1060,6 +1076,7 @@ def _parse(text: str, source: str, path: str | None) -> ModelFile:
         units=units,
         mode_weights=mode_weights,
         descriptions=descriptions,
+        symmetry=symmetry,
     )
 
 
