@@ -102,15 +102,16 @@ def _translations(
         _no_lattice(reader, path, model_table)
     if lattice == "chain":
         if isinstance(value, list):
-            reader.wrong(path, 'one label (an integer or "all") for a one-dimensional lattice', value)
+            reader.wrong(
+                path, 'one label (an integer or "all") for a one-dimensional lattice', value
+            )
         t = ring_translation(sites, orbitals=orbitals)
         return [(t, _label(reader, value, path, t.order), path)]
     along_cols, along_rows = torus_translations(rows, cols)
     if not isinstance(value, list) or len(value) != 2:
         reader.wrong(
             path,
-            "two labels [along a row, along a column] for a rectangle, each an integer or "
-            '"all"',
+            'two labels [along a row, along a column] for a rectangle, each an integer or "all"',
             value,
         )
     out = []
@@ -141,15 +142,13 @@ def _explicit(
 ) -> list[tuple[ModePermutation, int | None, str]]:
     ppath, lpath = f"{_PATH}.permutations", f"{_PATH}.labels"
     if "labels" not in table:
-        reader.fail(lpath, "missing; expected one label per permutation (an integer or \"all\")")
+        reader.fail(lpath, 'missing; expected one label per permutation (an integer or "all")')
     if "permutations" not in table:
         reader.fail(ppath, "missing; symmetry.labels belong to symmetry.permutations")
     rows = reader.array(table["permutations"], ppath, "mode permutations [[...], ...]")
     labels = reader.array(table["labels"], lpath, 'labels (integers or "all")')
     if len(labels) != len(rows):
-        reader.fail(
-            lpath, f"expected {len(rows)} labels (one per permutation); got {len(labels)}"
-        )
+        reader.fail(lpath, f"expected {len(rows)} labels (one per permutation); got {len(labels)}")
     modes = model.space.modes
     out = []
     for k, images in enumerate(rows):

@@ -173,22 +173,25 @@ def sector_choice(
         return pairs
     if isinstance(pairs, str | bytes) or not isinstance(pairs, Sequence):
         raise TypeError(
-            'symmetry must be a list of (fm.ModePermutation, label or "all") pairs; got '
-            f"{pairs!r}"
+            f'symmetry must be a list of (fm.ModePermutation, label or "all") pairs; got {pairs!r}'
         )
     if not pairs:
-        raise SymmetryError('symmetry needs at least one (fm.ModePermutation, label) pair')
+        raise SymmetryError("symmetry needs at least one (fm.ModePermutation, label) pair")
     generators: list[ModePermutation] = []
     labels: list[int | None] = []
     for n, item in enumerate(pairs):
         if not isinstance(item, tuple | list) or len(item) != 2:
-            raise TypeError(f'symmetry[{n}] must be a (fm.ModePermutation, label) pair; got {item!r}')
+            raise TypeError(
+                f"symmetry[{n}] must be a (fm.ModePermutation, label) pair; got {item!r}"
+            )
         g, q = item
         if not isinstance(g, ModePermutation):
             raise TypeError(f"symmetry[{n}][0] must be a fm.ModePermutation; got {g!r}")
         if isinstance(q, str):
             if q != ALL:
-                raise TypeError(f'the label of symmetry[{n}] must be an integer or "all"; got {q!r}')
+                raise TypeError(
+                    f'the label of symmetry[{n}] must be an integer or "all"; got {q!r}'
+                )
             labels.append(None)
         elif isinstance(q, bool | np.bool_) or not isinstance(q, numbers.Integral):
             raise TypeError(f'the label of symmetry[{n}] must be an integer or "all"; got {q!r}')
@@ -233,7 +236,7 @@ def check_representation(choice: SectorChoice) -> None:
             if label is None:
                 raise SymmetryError(exc) from None
             raise SymmetryError(
-                f'{choice.names[choice.scan]} = "all" cannot be combined with the other '
+                f'{choice.names[choice.scan or 0]} = "all" cannot be combined with the other '
                 f"labels: at label {label}, {exc}. Fix the other labels, or scan a generator "
                 "that commutes with the others (a translation with a reflection allows only "
                 "momenta 0 and L/2)"

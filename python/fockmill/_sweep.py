@@ -30,8 +30,10 @@ from fockmill._plan import (
     sweep_settings,
 )
 from fockmill._records import ModelRecipe
+from fockmill._sector_choice import SectorChoice, sector_choice
 from fockmill._store import PointResult, ResultsStore, SweepTable
-from fockmill.exceptions import StoreError
+from fockmill._symmetry import ModePermutation, SymmetricSpace
+from fockmill.exceptions import StoreError, SymmetryError
 
 __all__ = [
     "QUANTITIES",
@@ -74,8 +76,10 @@ def _new_meta(
     settings: SweepSettings,
     model_text_hash: str | None,
     units: Mapping[str, str],
+    sectors: _Sectors | None = None,
 ) -> dict[str, Any]:
-    return {
+    extra = {} if sectors is None else sectors.meta()
+    return extra | {
         "model_name": model.name,
         "model_fingerprint": model.fingerprint(),
         "model_text_hash": model_text_hash or "",
@@ -97,6 +101,7 @@ def _attach_store(
     settings: SweepSettings,
     model_text_hash: str | None,
     units: Mapping[str, str],
+    sectors: _Sectors | None = None,
 ) -> tuple[ResultsStore, bool]:
     """Open or create the store and check it belongs to this sweep; (store, owned)."""
     if isinstance(store, ResultsStore):
@@ -104,10 +109,11 @@ def _attach_store(
     elif Path(store).exists():
         handle, owned = ResultsStore.open(store, purpose="resume"), True
     else:
-        meta = _new_meta(model, full, swept, settings, model_text_hash, units)
+        meta = _new_meta(model, full, swept, settings, model_text_hash, units, sectors)
         return ResultsStore.create(store, meta), True
     try:
         _check_resumable(handle, model, full, settings)
+        _check_same_sector(handle, sectors)
     except BaseException:
         if owned:
             handle.close()
@@ -154,6 +160,77 @@ def _check_resumable(
             )
 
 
+class _Sectors:
+    """The symmetry of a sweep: the checked choice and the sector(s) it solves in."""
+
+    def __init__(self, model: Model, symmetry: object, threads: int | None) -> None:
+        choice = sector_choice(symmetry, modes=model.space.modes)  # type: ignore[arg-type]
+        parts = [(name, piece) for name, piece in model.pieces.items()]
+        for name, piece in [*parts, ("constant", model.constant)]:
+            try:
+                choice.check_invariant(piece)
+            except SymmetryError as exc:
+                raise SymmetryError(
+                    f"the model's {name!r} part does not commute with the symmetry: {exc}"
+                ) from None
+        self.choice = choice
+        self.sector: SymmetricSpace | None = None
+        if choice.scan is None:
+            self.sector = choice.sector(model.space, threads=threads)
+            self.dims = [self.sector.dim]
+        else:
+            self.dims = [
+                choice.sector(model.space, q, threads=threads).dim for q in choice.scan_labels()
+            ]
+        if not any(self.dims):
+            raise SymmetryError(
+                f"the sector ({choice.describe()}) of this model's space holds no state; "
+                "choose other labels (or another total)"
+            )
+
+    @property
+    def solve_dim(self) -> int | None:
+        """The dimension each point is solved in (None: the model space's, for scans)."""
+        return None if self.sector is None else self.sector.dim
+
+    def key(self) -> str:
+        """What identifies the sector(s) (for the recipe's fingerprint)."""
+        meta = self.choice.as_meta()
+        return repr((meta["generators"], meta["labels"]))
+
+    def meta(self) -> dict[str, Any]:
+        return {"symmetry": self.choice.as_meta(), "sector_dims": list(self.dims)}
+
+
+def _same_symmetry(stored: object, current: Mapping[str, Any] | None) -> bool:
+    if current is None:
+        return stored is None
+    if not isinstance(stored, Mapping):
+        return False
+    return bool(
+        stored.get("generators") == current["generators"]
+        and stored.get("labels") == current["labels"]
+    )
+
+
+def _check_same_sector(handle: ResultsStore, sectors: _Sectors | None) -> None:
+    """Refuse to resume results of another symmetry sector (or of the whole space)."""
+    stored = handle.meta.get("symmetry")
+    current = None if sectors is None else sectors.choice.as_meta()
+    if _same_symmetry(stored, current):
+        return
+
+    def text(meta: object) -> str:
+        if isinstance(meta, Mapping):
+            return f"the sector {meta.get('description', meta.get('labels'))}"
+        return "the whole space"
+
+    raise StoreError(
+        f"{str(handle.path)!r} holds results solved in {text(stored)}, but this sweep asks "
+        f"for {text(current)}; resume with the same symmetry, or write to a new file"
+    )
+
+
 def _open_progress(enabled: bool, total: int, done: int, label: str) -> Any:
     """A tqdm bar when asked for and tqdm is installed, else None."""
     if not enabled:
@@ -188,6 +265,7 @@ def run_sweep(
     on_point: Callable[[PointResult], None] | None = None,
     record: Sequence[str] | None = None,
     solver_options: Mapping[str, object] | None = None,
+    symmetry: SectorChoice | Sequence[tuple[ModePermutation, int | str]] | None = None,
 ) -> SweepTable:
     """Ground states of ``model`` at many parameter points, optionally saved as they finish.
 
@@ -243,6 +321,17 @@ def run_sweep(
     solver_options : Mapping[str, object], optional
         Deprecated: pass ``method``, ``tol``, ``seed``, ``max_iterations`` and
         ``threads`` as keywords (its ``dense_limit`` is ignored).
+    symmetry : sequence of (ModePermutation, int or "all"), optional
+        Solve in a symmetry sector: generators with their labels, as for
+        :class:`fockmill.SymmetricSpace` (every part of the model must commute with
+        them). One label may be ``"all"``: each point then solves every sector of that
+        generator (every momentum of a translation) and records, besides the energy,
+        gap and levels of the whole space (merged over sectors), the observable
+        ``dispersion`` (the ``levels`` lowest energies per label, NaN where a sector
+        is smaller) and ``ground_sector`` (the label of the lowest energy).
+        Observables are those of the ground state. The sector is stored in the
+        results file's meta data (``meta.symmetry``) and a resumed sweep must ask for
+        the same one.
 
     Returns
     -------
@@ -259,6 +348,9 @@ def run_sweep(
         quantity list or solver setting (``method``, ``tol``, ``seed``, ``levels``).
     NotHermitianError
         A piece of the model is not Hermitian.
+    SymmetryError
+        A symmetry that the model does not commute with, labels out of range or no
+        one-dimensional representation, or an empty sector.
     PoolStartError
         The worker processes could not start (e.g. no ``if __name__ == "__main__":``
         guard in a script) or died.
@@ -292,6 +384,7 @@ def run_sweep(
     """
     from fockmill._execute import execute
 
+    sectors = None if symmetry is None else _Sectors(model, symmetry, threads)
     settings = sweep_settings(
         model,
         quantities=quantities,
@@ -304,6 +397,7 @@ def run_sweep(
         threads=threads,
         record=record,
         solver_options=solver_options,
+        dim=None if sectors is None else sectors.solve_dim,
     )
     full, swept = full_points(model, points)
     unit_map = _check_units(units)
@@ -313,7 +407,7 @@ def run_sweep(
     owned_store = False
     if store is not None:
         handle, owned_store = _attach_store(
-            store, model, full, swept, settings, model_text_hash, unit_map
+            store, model, full, swept, settings, model_text_hash, unit_map, sectors
         )
     try:
         done = handle.finished_indices(include_failed=not retry_failed) if handle else set()
@@ -333,7 +427,7 @@ def run_sweep(
 
         try:
             if order:
-                recipe = ModelRecipe.from_model(model)
+                recipe = _recipe(model, sectors)
                 execute(recipe, full, order, settings, executor, workers, chunk, finish)
         finally:
             if bar is not None:
@@ -345,10 +439,18 @@ def run_sweep(
             swept=swept,
             mode_labels=labels,
             units=MappingProxyType(unit_map),
+            sector=None if sectors is None else sectors.choice.as_meta(),
         )
     finally:
         if handle is not None and owned_store:
             handle.close()
+
+
+def _recipe(model: Model, sectors: _Sectors | None) -> ModelRecipe:
+    if sectors is None:
+        return ModelRecipe.from_model(model)
+    scan = sectors.choice if sectors.sector is None else None
+    return ModelRecipe.from_model(model, space=sectors.sector, scan=scan, sector_key=sectors.key())
 
 
 def _check_units(units: Mapping[str, str] | None) -> dict[str, str]:
