@@ -104,7 +104,10 @@ class SectorChoice:
         for g, q, name in zip(self.generators, self.labels, self.names, strict=True):
             shown = name.removeprefix("symmetry.")
             if q is None and label is None:
-                parts.append(f"{shown}: every label 0..{g.order - 1}")
+                if shown.startswith("translation"):
+                    parts.append(f"{shown}: every momentum k = 2π·q/{g.order}")
+                else:
+                    parts.append(f"{shown}: every label 0..{g.order - 1}")
                 continue
             value = label if q is None else q
             if shown.startswith("translation"):

@@ -615,8 +615,15 @@ class ResultsStore:
             swept=self.swept,
             mode_labels=self.mode_labels,
             units=MappingProxyType(self.units),
-            sector=self._meta_value("symmetry", dict),
+            sector=self._sector(),
         )
+
+    def _sector(self) -> dict[str, Any] | None:
+        """``meta.symmetry`` with the sector dimensions (``dims``), None without one."""
+        sector = self._meta_value("symmetry", dict)
+        if sector is None:
+            return None
+        return {**sector, "dims": self._meta_value("sector_dims", list) or []}
 
     def integrity_ok(self) -> bool:
         """True when SQLite's full ``PRAGMA integrity_check`` reports no problem."""

@@ -198,6 +198,10 @@ class _Sectors:
         meta = self.choice.as_meta()
         return repr((meta["generators"], meta["labels"]))
 
+    def table_sector(self) -> dict[str, Any]:
+        """What a :class:`SweepTable` says of its sector (as the store's ``to_table``)."""
+        return {**self.choice.as_meta(), "dims": list(self.dims)}
+
     def meta(self) -> dict[str, Any]:
         return {"symmetry": self.choice.as_meta(), "sector_dims": list(self.dims)}
 
@@ -439,7 +443,7 @@ def run_sweep(
             swept=swept,
             mode_labels=labels,
             units=MappingProxyType(unit_map),
-            sector=None if sectors is None else sectors.choice.as_meta(),
+            sector=None if sectors is None else sectors.table_sector(),
         )
     finally:
         if handle is not None and owned_store:
