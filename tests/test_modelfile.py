@@ -54,6 +54,7 @@ def test_every_example_is_covered() -> None:
         "kerr_trimer.toml",
         "polariton_chain.toml",
         "ring_kerr_crossover.toml",
+        "ring_momentum_bands.toml",
         "squeezed_kerr_pair.toml",
     ]
 

@@ -259,6 +259,19 @@ def test_every_refusal_names_the_key_path(text: str, path: str, words: str) -> N
     assert words in message
 
 
+def test_ring_momentum_bands_example() -> None:
+    path = (
+        Path(__file__).resolve().parent.parent / "examples" / "models" / "ring_momentum_bands.toml"
+    )
+    text = path.read_text(encoding="utf-8")
+    assert "INVENTED" in text
+    spec = parse_model_text(text)
+    assert spec.symmetry is not None and spec.symmetry.scan == 0
+    assert spec.symmetry.generators[0] == fm.ring_translation(8)
+    assert spec.model.space.dim == 6435
+    assert spec.sweep is not None and spec.levels == 2
+
+
 def test_python_symmetry_argument_is_checked() -> None:
     t, r = fm.ring_translation(4), fm.ring_reflection(4)
     with pytest.raises(SymmetryError, match='at most one generator can have the label "all"'):
