@@ -398,6 +398,28 @@ def test_one_particle_on_a_ring_gives_the_tight_binding_band() -> None:
         assert table.sector is not None and table.sector["dims"] == [1] * sites
 
 
+def test_empty_sectors() -> None:
+    # One particle on a ring of 4: the k = 0 state (uniform amplitudes) is even under
+    # the reflection, so the k = 0, reflection-odd sector holds no state.
+    model = ring_model(4, 1)
+    odd = [(fm.ring_translation(4), 0), (fm.ring_reflection(4), 1)]
+    with pytest.raises(SymmetryError, match="holds no state"):
+        run_sweep(model, [{"U": 1.0}], symmetry=odd, workers=1, progress=False)
+    # No particle on a ring of 3: only the vacuum, at k = 0; the other rows stay empty.
+    table = run_sweep(
+        ring_model(3, 0),
+        [{"U": 1.0}],
+        symmetry=[(fm.ring_translation(3), "all")],
+        workers=1,
+        progress=False,
+        quantities=["energy"],
+    )
+    (row,) = table.rows
+    assert row.status == "ok" and row.energy == 0.0
+    dispersion = table.to_arrays()["dispersion"][0]
+    assert dispersion[0, 0] == 0.0 and np.isnan(dispersion[1:]).all()
+
+
 def test_threaded_executor_and_chunks_give_the_same_dispersion() -> None:
     model = ring_model(5, 3)
     points = [{"U": u} for u in (0.0, 1.0, 2.0, 3.0)]
