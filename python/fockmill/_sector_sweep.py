@@ -29,6 +29,7 @@ from typing import Any
 import numpy as np
 import numpy.typing as npt
 
+from fockmill._model import Model
 from fockmill._plan import SweepSettings
 from fockmill._records import (
     _NOT_POINT_ERRORS,
@@ -40,10 +41,20 @@ from fockmill._records import (
     solve_point,
     worker_model,
 )
-from fockmill._sector_choice import SectorChoice
-from fockmill._store import PointResult, utc_now
+from fockmill._sector_choice import SectorChoice, sector_choice
+from fockmill._store import PointResult, ResultsStore, utc_now
+from fockmill._symmetry import SymmetricSpace
+from fockmill.exceptions import StoreError, SymmetryError
 
-__all__ = ["PreparedScan", "prepare", "solve_points", "worker_prepared"]
+__all__ = [
+    "PreparedScan",
+    "SweepSectors",
+    "check_same_sector",
+    "prepare",
+    "solve_points",
+    "sweep_recipe",
+    "worker_prepared",
+]
 
 _STATUS_RANK = {"ok": 0, "not_converged": 1, "failed": 2}
 
@@ -222,3 +233,89 @@ def dispersion_of(row: PointResult) -> npt.NDArray[np.float64] | None:
     if value is None:
         return None
     return np.array([[math.nan if e is None else e for e in line] for line in value], dtype=float)
+
+
+# -- the symmetry of a sweep (checked in run_sweep) ------------------------------------
+
+
+class SweepSectors:
+    """The symmetry of a sweep: the checked choice and the sector(s) it solves in."""
+
+    def __init__(self, model: Model, symmetry: object, threads: int | None) -> None:
+        choice = sector_choice(symmetry, modes=model.space.modes)  # type: ignore[arg-type]
+        parts = [(name, piece) for name, piece in model.pieces.items()]
+        for name, piece in [*parts, ("constant", model.constant)]:
+            try:
+                choice.check_invariant(piece)
+            except SymmetryError as exc:
+                raise SymmetryError(
+                    f"the model's {name!r} part does not commute with the symmetry: {exc}"
+                ) from None
+        self.choice = choice
+        self.sector: SymmetricSpace | None = None
+        if choice.scan is None:
+            self.sector = choice.sector(model.space, threads=threads)
+            self.dims = [self.sector.dim]
+        else:
+            self.dims = [
+                choice.sector(model.space, q, threads=threads).dim for q in choice.scan_labels()
+            ]
+        if not any(self.dims):
+            raise SymmetryError(
+                f"the sector ({choice.describe()}) of this model's space holds no state; "
+                "choose other labels (or another total)"
+            )
+
+    @property
+    def solve_dim(self) -> int | None:
+        """The dimension each point is solved in (None: the model space's, for scans)."""
+        return None if self.sector is None else self.sector.dim
+
+    def key(self) -> str:
+        """What identifies the sector(s) (for the recipe's fingerprint)."""
+        meta = self.choice.as_meta()
+        return repr((meta["generators"], meta["labels"]))
+
+    def table_sector(self) -> dict[str, Any]:
+        """What a :class:`SweepTable` says of its sector (as the store's ``to_table``)."""
+        return {**self.choice.as_meta(), "dims": list(self.dims)}
+
+    def meta(self) -> dict[str, Any]:
+        return {"symmetry": self.choice.as_meta(), "sector_dims": list(self.dims)}
+
+
+def _same_symmetry(stored: object, current: Mapping[str, Any] | None) -> bool:
+    if current is None:
+        return stored is None
+    if not isinstance(stored, Mapping):
+        return False
+    return bool(
+        stored.get("generators") == current["generators"]
+        and stored.get("labels") == current["labels"]
+    )
+
+
+def check_same_sector(handle: ResultsStore, sectors: SweepSectors | None) -> None:
+    """Refuse to resume results of another symmetry sector (or of the whole space)."""
+    stored = handle.meta.get("symmetry")
+    current = None if sectors is None else sectors.choice.as_meta()
+    if _same_symmetry(stored, current):
+        return
+
+    def text(meta: object) -> str:
+        if isinstance(meta, Mapping):
+            return f"the sector {meta.get('description', meta.get('labels'))}"
+        return "the whole space"
+
+    raise StoreError(
+        f"{str(handle.path)!r} holds results solved in {text(stored)}, but this sweep asks "
+        f"for {text(current)}; resume with the same symmetry, or write to a new file"
+    )
+
+
+def sweep_recipe(model: Model, sectors: SweepSectors | None) -> ModelRecipe:
+    """The model as sent to workers, on its sector or with the generator to scan."""
+    if sectors is None:
+        return ModelRecipe.from_model(model)
+    scan = sectors.choice if sectors.sector is None else None
+    return ModelRecipe.from_model(model, space=sectors.sector, scan=scan, sector_key=sectors.key())

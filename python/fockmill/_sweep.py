@@ -29,11 +29,11 @@ from fockmill._plan import (
     serpentine_order,
     sweep_settings,
 )
-from fockmill._records import ModelRecipe
-from fockmill._sector_choice import SectorChoice, sector_choice
+from fockmill._sector_choice import SectorChoice
+from fockmill._sector_sweep import SweepSectors, check_same_sector, sweep_recipe
 from fockmill._store import PointResult, ResultsStore, SweepTable
-from fockmill._symmetry import ModePermutation, SymmetricSpace
-from fockmill.exceptions import StoreError, SymmetryError
+from fockmill._symmetry import ModePermutation
+from fockmill.exceptions import StoreError
 
 __all__ = [
     "QUANTITIES",
@@ -76,7 +76,7 @@ def _new_meta(
     settings: SweepSettings,
     model_text_hash: str | None,
     units: Mapping[str, str],
-    sectors: _Sectors | None = None,
+    sectors: SweepSectors | None = None,
 ) -> dict[str, Any]:
     extra = {} if sectors is None else sectors.meta()
     return extra | {
@@ -101,7 +101,7 @@ def _attach_store(
     settings: SweepSettings,
     model_text_hash: str | None,
     units: Mapping[str, str],
-    sectors: _Sectors | None = None,
+    sectors: SweepSectors | None = None,
 ) -> tuple[ResultsStore, bool]:
     """Open or create the store and check it belongs to this sweep; (store, owned)."""
     if isinstance(store, ResultsStore):
@@ -113,7 +113,7 @@ def _attach_store(
         return ResultsStore.create(store, meta), True
     try:
         _check_resumable(handle, model, full, settings)
-        _check_same_sector(handle, sectors)
+        check_same_sector(handle, sectors)
     except BaseException:
         if owned:
             handle.close()
@@ -158,81 +158,6 @@ def _check_resumable(
                 f"{index} is {wanted}; the sweep grid or a default value changed: "
                 "write to a new file, or delete this one to start over"
             )
-
-
-class _Sectors:
-    """The symmetry of a sweep: the checked choice and the sector(s) it solves in."""
-
-    def __init__(self, model: Model, symmetry: object, threads: int | None) -> None:
-        choice = sector_choice(symmetry, modes=model.space.modes)  # type: ignore[arg-type]
-        parts = [(name, piece) for name, piece in model.pieces.items()]
-        for name, piece in [*parts, ("constant", model.constant)]:
-            try:
-                choice.check_invariant(piece)
-            except SymmetryError as exc:
-                raise SymmetryError(
-                    f"the model's {name!r} part does not commute with the symmetry: {exc}"
-                ) from None
-        self.choice = choice
-        self.sector: SymmetricSpace | None = None
-        if choice.scan is None:
-            self.sector = choice.sector(model.space, threads=threads)
-            self.dims = [self.sector.dim]
-        else:
-            self.dims = [
-                choice.sector(model.space, q, threads=threads).dim for q in choice.scan_labels()
-            ]
-        if not any(self.dims):
-            raise SymmetryError(
-                f"the sector ({choice.describe()}) of this model's space holds no state; "
-                "choose other labels (or another total)"
-            )
-
-    @property
-    def solve_dim(self) -> int | None:
-        """The dimension each point is solved in (None: the model space's, for scans)."""
-        return None if self.sector is None else self.sector.dim
-
-    def key(self) -> str:
-        """What identifies the sector(s) (for the recipe's fingerprint)."""
-        meta = self.choice.as_meta()
-        return repr((meta["generators"], meta["labels"]))
-
-    def table_sector(self) -> dict[str, Any]:
-        """What a :class:`SweepTable` says of its sector (as the store's ``to_table``)."""
-        return {**self.choice.as_meta(), "dims": list(self.dims)}
-
-    def meta(self) -> dict[str, Any]:
-        return {"symmetry": self.choice.as_meta(), "sector_dims": list(self.dims)}
-
-
-def _same_symmetry(stored: object, current: Mapping[str, Any] | None) -> bool:
-    if current is None:
-        return stored is None
-    if not isinstance(stored, Mapping):
-        return False
-    return bool(
-        stored.get("generators") == current["generators"]
-        and stored.get("labels") == current["labels"]
-    )
-
-
-def _check_same_sector(handle: ResultsStore, sectors: _Sectors | None) -> None:
-    """Refuse to resume results of another symmetry sector (or of the whole space)."""
-    stored = handle.meta.get("symmetry")
-    current = None if sectors is None else sectors.choice.as_meta()
-    if _same_symmetry(stored, current):
-        return
-
-    def text(meta: object) -> str:
-        if isinstance(meta, Mapping):
-            return f"the sector {meta.get('description', meta.get('labels'))}"
-        return "the whole space"
-
-    raise StoreError(
-        f"{str(handle.path)!r} holds results solved in {text(stored)}, but this sweep asks "
-        f"for {text(current)}; resume with the same symmetry, or write to a new file"
-    )
 
 
 def _open_progress(enabled: bool, total: int, done: int, label: str) -> Any:
@@ -388,7 +313,7 @@ def run_sweep(
     """
     from fockmill._execute import execute
 
-    sectors = None if symmetry is None else _Sectors(model, symmetry, threads)
+    sectors = None if symmetry is None else SweepSectors(model, symmetry, threads)
     settings = sweep_settings(
         model,
         quantities=quantities,
@@ -431,7 +356,7 @@ def run_sweep(
 
         try:
             if order:
-                recipe = _recipe(model, sectors)
+                recipe = sweep_recipe(model, sectors)
                 execute(recipe, full, order, settings, executor, workers, chunk, finish)
         finally:
             if bar is not None:
@@ -448,13 +373,6 @@ def run_sweep(
     finally:
         if handle is not None and owned_store:
             handle.close()
-
-
-def _recipe(model: Model, sectors: _Sectors | None) -> ModelRecipe:
-    if sectors is None:
-        return ModelRecipe.from_model(model)
-    scan = sectors.choice if sectors.sector is None else None
-    return ModelRecipe.from_model(model, space=sectors.sector, scan=scan, sector_key=sectors.key())
 
 
 def _check_units(units: Mapping[str, str] | None) -> dict[str, str]:
