@@ -434,6 +434,19 @@ def test_threaded_executor_and_chunks_give_the_same_dispersion() -> None:
     )
 
 
+def test_process_pool_sends_sectors_to_workers() -> None:
+    # The recipe (with its sector, or the generator to scan) is pickled to the workers.
+    model = ring_model(4, 4)
+    points = [{"U": u} for u in (0.5, 1.5, 3.0)]
+    t, r = fm.ring_translation(4), fm.ring_reflection(4)
+    scan = run_sweep(model, points, symmetry=[(t, "all")], workers=2, chunk=1, progress=False)
+    fixed = run_sweep(model, points, symmetry=[(t, 0), (r, 0)], workers=2, progress=False)
+    for a, b, point in zip(scan, fixed, points, strict=True):
+        expected = dense_spectrum(model, point)[0]
+        assert a.energy == pytest.approx(expected, abs=1e-8)
+        assert b.energy == pytest.approx(expected, abs=1e-8)
+
+
 def test_resume_store_schema_and_sector_mismatch(tmp_path: Path) -> None:
     model = ring_model(4, 4)
     points = [{"U": u} for u in (0.5, 1.0, 2.0, 4.0)]
