@@ -142,8 +142,10 @@ class PreparedModel:
         *,
         points: int,
         first: Mapping[str, float] | None = None,
+        pool: Any = None,
     ) -> PreparedModel:
-        """Prepare ``recipe`` for ``points`` points (``first``: the first point's values).
+        """Prepare ``recipe`` for ``points`` points (``first``: the first point's values;
+        ``pool``: a NativePool to share, e.g. between the sectors of a scan).
 
         Raises
         ------
@@ -157,7 +159,8 @@ class PreparedModel:
 
         pieces = dict(recipe.pieces)
         check_hermitian_pieces(pieces, recipe.constant, recipe.name)
-        pool = _native.NativePool(settings.threads)
+        if pool is None:
+            pool = _native.NativePool(settings.threads)
         values = dict(recipe.defaults) if first is None else dict(first)
         for label in pieces:
             values.setdefault(label, 1.0)

@@ -29,6 +29,7 @@ from typing import Any
 import numpy as np
 import numpy.typing as npt
 
+from fockmill import _native
 from fockmill._model import Model
 from fockmill._plan import SweepSettings
 from fockmill._records import (
@@ -85,6 +86,7 @@ class PreparedScan:
         parts: list[PreparedModel | None] = []
         part_settings: list[SweepSettings | None] = []
         base = recipe.space
+        pool = _native.NativePool(settings.threads)  # one thread pool for every sector
         for label in labels:
             sector = choice.sector(base, label, threads=settings.threads)  # type: ignore[arg-type]
             if sector.dim == 0:
@@ -95,7 +97,7 @@ class PreparedScan:
                 recipe, space=sector, scan=None, fingerprint=f"{recipe.fingerprint}|{label}"
             )
             local = sector_settings(settings, sector.dim)
-            parts.append(PreparedModel.build(sub, local, points=points, first=first))
+            parts.append(PreparedModel.build(sub, local, points=points, first=first, pool=pool))
             part_settings.append(local)
         return cls(choice, labels, tuple(parts), tuple(part_settings))
 
