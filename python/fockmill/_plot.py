@@ -416,8 +416,9 @@ def sweep_figure(
         context.setdefault("space", _space_summary(model_file.model.space))
         context.setdefault("entropy_modes", list(model_file.entropy_modes))
         context.setdefault("descriptions", dict(model_file.descriptions))
-        if getattr(model_file, "symmetry", None) is not None:
-            context.setdefault("symmetry", model_file.symmetry.as_meta())
+        symmetry = getattr(model_file, "symmetry", None)
+        if symmetry is not None:
+            context.setdefault("symmetry", symmetry.as_meta())
     if space is not None:
         context["space"] = _space_summary(space)
     elif "space" not in context and "dim" in context:
