@@ -625,3 +625,9 @@ def test_sweep_dispersion_figure_and_sector_titles(tmp_path: Path) -> None:
     assert "sector: translation: every momentum" in figure.get_suptitle()
     energy = sweep_figure(path, y=["energy"])
     assert "sector: translation" in energy.get_suptitle()
+    fixed = tmp_path / "fixed.sqlite"
+    model = ring_model(4, 4)
+    symmetry = [(fm.ring_translation(4), 0), (fm.ring_reflection(4), 0)]
+    run_sweep(model, [{"U": 1.0}, {"U": 2.0}], store=fixed, symmetry=symmetry, workers=1)
+    title = sweep_figure(fixed, y=["energy"]).get_suptitle()
+    assert title.endswith("sector: translation k = 2π·0/4, reflection even, dim 8")

@@ -198,7 +198,8 @@ def _context_from_meta(meta: Mapping[str, Any]) -> dict[str, Any]:
         out["space"] = space
     symmetry = _meta_json(meta, "symmetry")
     if isinstance(symmetry, dict):
-        out["symmetry"] = symmetry
+        dims = _meta_json(meta, "sector_dims")
+        out["symmetry"] = {**symmetry, "dims": dims if isinstance(dims, list) else []}
     described = _meta_json(meta, "descriptions")
     if isinstance(described, dict):
         out["descriptions"] = {str(k): str(v) for k, v in described.items()}
@@ -574,7 +575,8 @@ def _with_sector(heading: str, symmetry: Mapping[str, Any] | None) -> str:
     if not symmetry:
         return heading
     text = str(symmetry.get("description") or symmetry.get("labels"))
-    line = f"sector: {text}"
+    dims = list(symmetry.get("dims") or [])
+    line = f"sector: {text}" + (f", dim {int(dims[0]):,}" if len(dims) == 1 else "")
     return f"{heading}\n{line}" if heading else line
 
 

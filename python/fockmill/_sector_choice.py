@@ -18,7 +18,12 @@ import numpy as np
 
 from fockmill._expr import LadderExpr
 from fockmill._space import FockSpace
-from fockmill._symmetry import ModePermutation, SymmetricSpace
+from fockmill._symmetry import (
+    ModePermutation,
+    SymmetricSpace,
+    ring_reflection,
+    ring_translation,
+)
 from fockmill.exceptions import SymmetryError
 
 __all__ = ["ALL", "SectorChoice", "sector_choice"]
@@ -215,7 +220,11 @@ def sector_choice(
             )
     if sum(q is None for q in labels) > 1:
         raise SymmetryError('at most one generator can have the label "all"')
-    given = list(names) if names is not None else [f"symmetry[{n}]" for n in range(len(pairs))]
+    given = (
+        list(names)
+        if names is not None
+        else [_default_name(g, n) for n, g in enumerate(generators)]
+    )
     if len(given) != len(generators):
         raise ValueError("give one name per generator")
     choice = SectorChoice(tuple(generators), tuple(labels), tuple(given))
@@ -251,3 +260,18 @@ def _named(text: str, names: Sequence[str]) -> str:
     for n in reversed(range(len(names))):
         text = text.replace(f"generator {n}", names[n])
     return text
+
+
+def _default_name(g: ModePermutation, n: int) -> str:
+    """``"translation"`` or ``"reflection"`` for a ring's (any modes per site), else
+    ``symmetry[n]``: the name titles and tables show."""
+    modes = g.modes
+    for orbitals in range(1, modes + 1):
+        if modes % orbitals:
+            continue
+        sites = modes // orbitals
+        if sites >= 3 and g == ring_translation(sites, orbitals=orbitals):
+            return "translation"
+        if sites >= 2 and g == ring_reflection(sites, orbitals=orbitals):
+            return "reflection"
+    return f"symmetry[{n}]"
