@@ -59,6 +59,7 @@ examples:
   fockmill sweep ring.toml --out ring.sqlite --workers 2
   fockmill show ring.sqlite --format csv > ring.csv
   fockmill plot ring.sqlite --out ring.png --y energy,gap,entropy
+  fockmill plot bands.sqlite --out bands.png --y dispersion   ([symmetry] translation = "all")
 """
 
 
