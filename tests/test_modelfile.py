@@ -57,6 +57,7 @@ def test_every_example_is_covered() -> None:
         "kerr_trimer_thermal.toml",
         "polariton_chain.toml",
         "ring_kerr_crossover.toml",
+        "ring_momentum_bands.toml",
         "ring_photon_removal.toml",
         "squeezed_kerr_pair.toml",
     ]

@@ -856,3 +856,28 @@ def test_cli_run_with_plot(tmp_path: Path, capsys: pytest.CaptureFixture[str]) -
     )
     assert code == 0, err
     assert f"figure: {figure}" in text and figure.is_file()
+
+
+def test_symmetry_section_is_named_as_unused_by_the_workflows() -> None:
+    # Exact thermal averages of a 4-site ring in the whole space agree with a dense
+    # reference (numpy eigh; common practice, no source); the [symmetry] table does not
+    # change them and the run says so.
+    text = """
+[model]
+kind = "bose-hubbard"
+lattice = "ring"
+sites = 4
+total = 4
+[symmetry]
+translation = 0
+[temperature]
+temperatures = [0.5, 2.0]
+"""
+    model_file = fm.parse_model_text(text)
+    with pytest.warns(UserWarning, match=r"\[symmetry\] is not used by \[temperature\]"):
+        result = fm.run_thermal(model_file)
+    h = fm.build_matrix(model_file.model.hamiltonian(), model_file.model.space).toarray()
+    energies = np.linalg.eigvalsh(h)
+    for t, value in zip([0.5, 2.0], result.arrays["energy"], strict=True):
+        weights = np.exp(-(energies - energies[0]) / t)
+        assert value == pytest.approx(float(weights @ energies / weights.sum()), abs=1e-10)

@@ -39,7 +39,7 @@ Model, models
     (Bose–Hubbard on any graph, Jaynes–Cummings–Hubbard arrays, Kerr networks, drives).
 load_model_file, parse_model_text, ModelFile, SweepGrid, ModelFileError
     Model files in TOML.
-run_sweep, SweepTable, PointResult, ResultsStore, StoreError, plot_sweep
+run_sweep, SweepTable, PointResult, ResultsStore, StoreError, plot_sweep, plot_dispersion
     Parameter sweeps (process pool, any Executor, Dask), resumable SQLite results, plots.
 run_quench, run_spectrum, run_thermal, WorkflowResult, read_workflow_results,
 write_workflow_results, plot_workflow
@@ -72,7 +72,7 @@ from fockmill._observe import (
     top_level_weights,
 )
 from fockmill._operator import LadderOperator, build_operator
-from fockmill._plot import plot_sweep
+from fockmill._plot import plot_dispersion, plot_sweep
 from fockmill._plot_workflows import plot_workflow
 from fockmill._problem import Problem, prepare
 from fockmill._solve import GroundState, Levels, choose_method, ground_state, lowest_levels
@@ -153,6 +153,7 @@ __all__ = [
     "occupation_distribution",
     "one_body_matrix",
     "parse_model_text",
+    "plot_dispersion",
     "plot_sweep",
     "plot_workflow",
     "populations",

@@ -19,13 +19,8 @@ from typing import Any
 
 from fockmill._args import check_positive_int
 from fockmill._plan import SweepSettings
-from fockmill._records import (
-    SHARED_PATTERN_MIN_POINTS,
-    ModelRecipe,
-    PreparedModel,
-    solve_path,
-    worker_model,
-)
+from fockmill._records import SHARED_PATTERN_MIN_POINTS, ModelRecipe
+from fockmill._sector_sweep import prepare, solve_points, worker_prepared
 from fockmill._store import PointResult
 from fockmill.exceptions import PoolStartError
 
@@ -51,8 +46,8 @@ def _solve_chunk(chunk: _Chunk) -> list[PointResult]:
         settings = dataclasses.replace(settings, threads=1)
     with _limit_blas_threads(settings.threads):
         many = chunk.per_worker >= SHARED_PATTERN_MIN_POINTS
-        prepared = worker_model(chunk.recipe, settings, many)
-        return list(solve_path(prepared, chunk.points, settings))
+        prepared = worker_prepared(chunk.recipe, settings, many)
+        return list(solve_points(prepared, chunk.points, settings))
 
 
 def _limit_blas_threads(threads: int | None) -> contextlib.AbstractContextManager[object]:
@@ -153,8 +148,8 @@ def execute(
         chunk = check_positive_int("chunk", chunk)
     pool, owned, slots = _resolve_executor(executor, workers, len(order))
     if pool is None:
-        prepared = PreparedModel.build(recipe, settings, points=len(order), first=full[order[0]])
-        for row in solve_path(prepared, ((i, full[i]) for i in order), settings):
+        prepared = prepare(recipe, settings, points=len(order), first=full[order[0]])
+        for row in solve_points(prepared, ((i, full[i]) for i in order), settings):
             finish(row)
         return
     size = chunk if chunk is not None else _default_chunk(len(order), slots)

@@ -53,6 +53,10 @@ Schema (every table but ``[model]`` is optional; unknown keys are errors)
     (default ``["energy"]``); ``levels`` (how many lowest levels to compute);
     ``entropy_modes`` (the subsystem for ``entropy``; default the first half of the
     modes).
+``[symmetry]``
+    The symmetry sector(s) to solve in: ``translation`` (a label or ``"all"``),
+    ``reflection``, ``permutations`` with ``labels`` (see
+    :mod:`fockmill._modelfile_symmetry`).
 ``[solver]``
     The keywords of :func:`fockmill.ground_state`, same names, defaults and meanings:
     ``method`` (``"auto"``, ``"dense"``, ``"csr"``, ``"operator"``, ``"lanczos"``;
@@ -76,7 +80,7 @@ import tomllib
 import warnings
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field
-from typing import Any, NoReturn
+from typing import TYPE_CHECKING, Any, NoReturn
 
 import numpy as np
 import numpy.typing as npt
@@ -94,6 +98,9 @@ from fockmill.models import (
     rectangular_edges,
     with_drives,
 )
+
+if TYPE_CHECKING:
+    from fockmill._sector_choice import SectorChoice
 
 __all__ = [
     "KINDS",
@@ -243,6 +250,8 @@ class ModelFile:
     quench, spectrum, temperature : QuenchSpec, SpectrumSpec, TemperatureSpec or None
         The ``[quench]``, ``[spectrum]`` and ``[temperature]`` sections (see
         :mod:`fockmill._modelfile_dynamics`); None when absent.
+    symmetry : SectorChoice or None
+        ``[symmetry]``: the sector(s) to solve in, None for the whole space.
     """
 
     path: str | None
@@ -260,6 +269,7 @@ class ModelFile:
     quench: Any = None
     spectrum: Any = None
     temperature: Any = None
+    symmetry: SectorChoice | None = None
 
     def __hash__(self) -> int:
         return hash(self.text_hash)
@@ -1043,6 +1053,7 @@ def _parse(text: str, source: str, path: str | None) -> ModelFile:
         "quench",
         "spectrum",
         "temperature",
+        "symmetry",
     ]
     reader.check_keys(document, "", allowed)
     if "schema" in document:
@@ -1063,6 +1074,11 @@ def _parse(text: str, source: str, path: str | None) -> ModelFile:
     from fockmill._modelfile_dynamics import parse_dynamics_sections
 
     dynamics = parse_dynamics_sections(reader, document, model)
+    symmetry = None
+    if "symmetry" in document:
+        from fockmill._modelfile_symmetry import parse_symmetry
+
+        symmetry = parse_symmetry(reader, document["symmetry"], document["model"], model)
     return ModelFile(
         path=path,
         model=model,
@@ -1076,6 +1092,7 @@ def _parse(text: str, source: str, path: str | None) -> ModelFile:
         mode_weights=mode_weights,
         descriptions=descriptions,
         **dynamics,
+        symmetry=symmetry,
     )
 
 

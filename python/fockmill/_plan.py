@@ -103,12 +103,14 @@ def sweep_settings(
     threads: object,
     record: Sequence[str] | None = None,
     solver_options: Mapping[str, object] | None = None,
+    dim: int | None = None,
 ) -> SweepSettings:
     """Check the options of ``run_sweep``, mapping the deprecated aliases.
 
     ``record`` is the old name of ``quantities``; ``solver_options`` the old dict of
     ``method``/``tol``/``seed``/``max_iterations``/``threads`` (its ``dense_limit`` is
-    ignored: the dense limit is the solvers' own).
+    ignored: the dense limit is the solvers' own). ``dim``: the dimension points are
+    solved in (a symmetry sector's), default the model space's.
     """
     if record is not None:
         _deprecated("record", "quantities=[...]")
@@ -139,7 +141,7 @@ def sweep_settings(
     if unknown:
         raise ValueError(f"cannot record {unknown}; choose from {list(QUANTITIES)}")
     chosen = tuple(dict.fromkeys(chosen))
-    dim = model.space.dim
+    dim = model.space.dim if dim is None else dim
     if levels is None:
         levels = min(dim, 4 if "levels" in chosen else 2 if "gap" in chosen else 1)
     count = check_levels(levels, dim)

@@ -39,7 +39,14 @@ if TYPE_CHECKING:
     from fockmill._modelfile import ModelFile
     from fockmill._space import FockSpace
 
-__all__ = ["axis_label", "plot_sweep", "sweep_figure"]
+__all__ = [
+    "axis_label",
+    "dispersion_figure",
+    "plot_dispersion",
+    "plot_sweep",
+    "sweep_dispersion_figure",
+    "sweep_figure",
+]
 
 _QUANTITIES = {
     "energy": "ground energy $E_0$",
@@ -189,6 +196,10 @@ def _context_from_meta(meta: Mapping[str, Any]) -> dict[str, Any]:
     space = _meta_json(meta, "space")
     if isinstance(space, dict):
         out["space"] = space
+    symmetry = _meta_json(meta, "symmetry")
+    if isinstance(symmetry, dict):
+        dims = _meta_json(meta, "sector_dims")
+        out["symmetry"] = {**symmetry, "dims": dims if isinstance(dims, list) else []}
     described = _meta_json(meta, "descriptions")
     if isinstance(described, dict):
         out["descriptions"] = {str(k): str(v) for k, v in described.items()}
@@ -215,6 +226,8 @@ def _as_table(
         units = dict(getattr(source, "units", {}) or {})
         if units:
             context["units"] = {str(k): str(v) for k, v in units.items()}
+        if getattr(source, "sector", None):
+            context["symmetry"] = dict(source.sector or {})
         return source, context
     if isinstance(source, ResultsStore):
         return source.to_table(), _context_from_meta(source.meta)
@@ -404,6 +417,9 @@ def sweep_figure(
         context.setdefault("space", _space_summary(model_file.model.space))
         context.setdefault("entropy_modes", list(model_file.entropy_modes))
         context.setdefault("descriptions", dict(model_file.descriptions))
+        symmetry = getattr(model_file, "symmetry", None)
+        if symmetry is not None:
+            context.setdefault("symmetry", symmetry.as_meta())
     if space is not None:
         context["space"] = _space_summary(space)
     elif "space" not in context and "dim" in context:
@@ -492,6 +508,7 @@ def sweep_figure(
     else:
         axes[-1].ticklabel_format(axis="x", useOffset=False)
     heading = _title(title if title is not None else model_name, context.get("space"), labels)
+    heading = _with_sector(heading, context.get("symmetry"))
     if heading:
         figure.suptitle(heading)
     return figure
@@ -544,6 +561,247 @@ def plot_sweep(
         entropy_modes=entropy_modes,
         model_file=model_file,
     )
+    path = Path(out)
+    path.parent.mkdir(parents=True, exist_ok=True)
+    figure.savefig(path, dpi=120)
+    return path
+
+
+# -- dispersions: E(k) of one solve, and per sweep point ---------------------------------
+
+
+def _with_sector(heading: str, symmetry: Mapping[str, Any] | None) -> str:
+    """``heading`` with a line naming the symmetry sector(s) solved in."""
+    if not symmetry:
+        return heading
+    text = str(symmetry.get("description") or symmetry.get("labels"))
+    dims = list(symmetry.get("dims") or [])
+    line = f"sector: {text}" + (f", dim {int(dims[0]):,}" if len(dims) == 1 else "")
+    return f"{heading}\n{line}" if heading else line
+
+
+def _scan_axis(symmetry: Mapping[str, Any] | None, count: int) -> tuple[Any, str, bool]:
+    """(x values per label, axis label, is a momentum) for the scanned generator."""
+    names = list((symmetry or {}).get("names") or [])
+    labels = list((symmetry or {}).get("labels") or [])
+    name = names[labels.index("all")] if "all" in labels and names else ""
+    q = np.arange(count)
+    if not symmetry or "translation" in name or not name:
+        k = 2 * q / count
+        k = np.where(k > 1 + 1e-12, k - 2, k)
+        return k, r"lattice momentum $k\,a/\pi$", True
+    return q, f"label $q$ of {name.removeprefix('symmetry.')}", False
+
+
+def _dispersion_input(
+    source: Any,
+) -> tuple[npt.NDArray[np.float64], Mapping[str, Any] | None, dict[str, Any]]:
+    """(energies (labels, levels), symmetry meta, context) of a Dispersion or a one-row sweep."""
+    from fockmill._symmetry import Dispersion
+
+    if isinstance(source, Dispersion):
+        return np.asarray(source.energies, dtype=np.float64), None, {}
+    table, context = _as_table(source)
+    rows = [r for r in table.rows if r.observables.get("dispersion") is not None]
+    if not rows:
+        raise ValueError(
+            'these results hold no dispersion; solve with a symmetry whose label is "all" '
+            '(model file: [symmetry] translation = "all")'
+        )
+    energies = np.array(rows[0].observables["dispersion"], dtype=np.float64)
+    return energies, context.get("symmetry"), context
+
+
+def dispersion_figure(
+    source: Any,
+    *,
+    units: Mapping[str, str] | None = None,
+    title: str | None = None,
+) -> Figure:
+    """The lowest levels per momentum sector, ``E_n(k)``, of one solve.
+
+    Parameters
+    ----------
+    source : Dispersion, SweepTable, ResultsStore, str or path
+        A :class:`fockmill.Dispersion`, or results of a solve over every label of one
+        generator (the first point with a dispersion is drawn).
+    units : mapping of str to str, optional
+        ``"energy"``: the energy unit for the vertical axis (default: the results').
+    title : str, optional
+        First line of the title (default: the model name); a line names the sector.
+
+    Returns
+    -------
+    matplotlib.figure.Figure
+        One panel: one marker series per level ``n`` against the momentum ``k a/π``
+        in ``(-1, 1]`` (or against the label ``q`` for a generator that is no
+        translation), the ground level joined by a line.
+    """
+    energies, symmetry, context = _dispersion_input(source)
+    from matplotlib.backends.backend_agg import FigureCanvasAgg
+    from matplotlib.figure import Figure
+
+    unit_map = dict(units) if units is not None else context.get("units", {})
+    count = energies.shape[0]
+    xs, xlabel, momentum = _scan_axis(symmetry, count)
+    order = np.argsort(xs, kind="stable")
+    figure = Figure(figsize=(6.4, 4.4), layout="constrained")
+    FigureCanvasAgg(figure)
+    axis = figure.subplots()
+    for n in range(energies.shape[1]):
+        ys = energies[order, n]
+        style = "-o" if n == 0 else "o"
+        axis.plot(xs[order], ys, style, markersize=5 if n == 0 else 3.5, label=f"$E_{n}(k)$")
+    axis.set_xlabel(xlabel)
+    axis.set_ylabel(_energy_label("levels", unit_map).replace("$E_k$", "$E_n(k)$"))
+    axis.ticklabel_format(axis="y", useOffset=False)
+    if momentum:
+        axis.set_xlim(-1.05, 1.05)
+    if energies.shape[1] > 1:
+        axis.legend(loc="upper left", bbox_to_anchor=(1.01, 1.0), fontsize="small", frameon=False)
+    axis.grid(alpha=0.3)
+    model_name = str(context.get("model_name", ""))
+    labels = context.get("mode_labels", [])
+    heading = _title(title if title is not None else model_name, context.get("space"), labels)
+    heading = _with_sector(heading, symmetry)
+    if heading:
+        figure.suptitle(heading)
+    return figure
+
+
+def sweep_dispersion_figure(
+    source: SweepTable | ResultsStore | str | os.PathLike[str],
+    *,
+    x: str | None = None,
+    units: Mapping[str, str] | None = None,
+    title: str | None = None,
+) -> Figure:
+    """``E_0(k)`` at every sweep point: one curve per point, and a colour map.
+
+    Parameters
+    ----------
+    source : SweepTable, ResultsStore, str or path
+        Results of a sweep over every label of one generator (``"all"``).
+    x : str, optional
+        The swept parameter (default: the first that varies). When others vary too,
+        the points at their first values are drawn (named in the title).
+    units : mapping of str to str, optional
+        Units of ``"energy"`` and of the parameters (default: the results').
+    title : str, optional
+        First line of the title (default: the model name).
+
+    Returns
+    -------
+    matplotlib.figure.Figure
+        Two panels: (left) ``E_0(k)`` per point, coloured by the parameter with a
+        colour bar; (right) the excitation energy ``E_0(k) − E_0`` (``E_0`` the
+        point's lowest energy) as a colour map over momentum and parameter.
+
+    Raises
+    ------
+    ValueError
+        No point with a dispersion, or an unknown ``x``.
+    """
+    table, context = _as_table(source)
+    rows = [r for r in table.rows if r.observables.get("dispersion") is not None]
+    if not rows:
+        raise ValueError(
+            'these results hold no dispersion; sweep with a symmetry whose label is "all"'
+        )
+    swept = list(table.swept)
+    if x is None:
+        varying = [n for n in swept if len({r.parameters.get(n) for r in rows}) > 1]
+        if not varying:
+            raise ValueError("no parameter varies across these results")
+        x = varying[0]
+    if x not in swept:
+        raise ValueError(f"x={x!r} is not a swept parameter; choose from {swept}")
+    others = [n for n in swept if n != x and len({r.parameters.get(n) for r in rows}) > 1]
+    fixed = {n: rows[0].parameters[n] for n in others}
+    rows = [r for r in rows if all(r.parameters[n] == v for n, v in fixed.items())]
+    rows.sort(key=lambda r: r.parameters[x])
+    from matplotlib import colormaps
+    from matplotlib.backends.backend_agg import FigureCanvasAgg
+    from matplotlib.cm import ScalarMappable
+    from matplotlib.colors import LogNorm, Normalize
+    from matplotlib.figure import Figure
+
+    unit_map = dict(units) if units is not None else context.get("units", {})
+    model_name = str(context.get("model_name", ""))
+    symmetry = context.get("symmetry")
+    ground = np.array([np.array(r.observables["dispersion"], dtype=float)[:, 0] for r in rows])
+    params = np.array([r.parameters[x] for r in rows])
+    xs, klabel, _ = _scan_axis(symmetry, ground.shape[1])
+    order = np.argsort(xs, kind="stable")
+    figure = Figure(figsize=(11.0, 4.6), layout="constrained")
+    FigureCanvasAgg(figure)
+    left, right = figure.subplots(1, 2)
+    geometric = _evenly_spaced_in_log(params)
+    low, high = float(params.min()), float(params.max())
+    norm = LogNorm(low, high) if geometric else Normalize(low, high if high > low else low + 1)
+    cmap = colormaps["viridis"]
+    for value, line in zip(params, ground, strict=True):
+        left.plot(xs[order], line[order], "-o", markersize=3, color=cmap(norm(value)))
+    param_label = axis_label(x, unit_map, model_name, context.get("descriptions"))
+    figure.colorbar(ScalarMappable(norm=norm, cmap=cmap), ax=left, label=param_label)
+    left.set_xlabel(klabel)
+    left.set_ylabel(
+        _energy_label("energy", unit_map).replace("ground energy $E_0$", "lowest level $E_0(k)$")
+    )
+    left.ticklabel_format(axis="y", useOffset=False)
+    left.grid(alpha=0.3)
+    excitation = ground - np.nanmin(ground, axis=1, keepdims=True)
+    mesh = right.pcolormesh(
+        xs[order], params, excitation[:, order], shading="nearest", cmap="magma"
+    )
+    bar_label = _energy_label("energy", unit_map).replace(
+        "ground energy $E_0$", "excitation $E_0(k) - E_0$"
+    )
+    figure.colorbar(mesh, ax=right, label=bar_label)
+    right.set_xlabel(klabel)
+    right.set_ylabel(param_label)
+    if geometric:
+        right.set_yscale("log")
+    labels = context.get("mode_labels", [])
+    heading = _title(title if title is not None else model_name, context.get("space"), labels)
+    if fixed:
+        heading += "\nat " + ", ".join(f"{n} = {v:g}" for n, v in fixed.items())
+    heading = _with_sector(heading, symmetry)
+    if heading:
+        figure.suptitle(heading)
+    return figure
+
+
+def plot_dispersion(
+    source: Any,
+    out: str | os.PathLike[str],
+    *,
+    x: str | None = None,
+    units: Mapping[str, str] | None = None,
+    title: str | None = None,
+) -> Path:
+    """Save a dispersion figure: :func:`sweep_dispersion_figure` when a parameter
+    varies across the results, else :func:`dispersion_figure` (one solve).
+
+    Returns
+    -------
+    pathlib.Path
+        The file written (format from the suffix).
+    """
+    from fockmill._symmetry import Dispersion
+
+    if isinstance(source, str | os.PathLike):
+        with ResultsStore.open(source) as store:
+            return plot_dispersion(store, out, x=x, units=units, title=title)
+    many = False
+    if not isinstance(source, Dispersion):
+        table, _ = _as_table(source)
+        rows = [r for r in table.rows if r.observables.get("dispersion") is not None]
+        many = any(len({r.parameters.get(n) for r in rows}) > 1 for n in table.swept)
+    if many:
+        figure = sweep_dispersion_figure(source, x=x, units=units, title=title)
+    else:
+        figure = dispersion_figure(source, units=units, title=title)
     path = Path(out)
     path.parent.mkdir(parents=True, exist_ok=True)
     figure.savefig(path, dpi=120)

@@ -36,8 +36,10 @@ from fockmill._observe import (
 )
 from fockmill._pattern import SharedPattern, check_hermitian_pieces
 from fockmill._plan import SweepSettings
+from fockmill._sector_choice import SectorChoice
 from fockmill._space import FockSpace
 from fockmill._store import PointResult, utc_now
+from fockmill._symmetry import SymmetricSpace
 from fockmill.exceptions import ConvergenceError
 
 __all__ = ["ModelRecipe", "PreparedModel", "solve_path"]
@@ -61,24 +63,42 @@ _NOT_POINT_ERRORS = (TypeError, AttributeError, NameError, ImportError, Assertio
 
 @dataclass(frozen=True, eq=False)
 class ModelRecipe:
-    """A model as sent to workers: its parts, compared by fingerprint (cheap to hash)."""
+    """A model as sent to workers: its parts, compared by fingerprint (cheap to hash).
+
+    ``space`` is where points are solved: the model's space or one symmetry sector of
+    it. ``scan`` (a :class:`~fockmill._sector_choice.SectorChoice` with an ``"all"``
+    label) asks for every sector along one generator (see :mod:`fockmill._sector_sweep`).
+    The fingerprint then covers the sector too.
+    """
 
     name: str
-    space: FockSpace
+    space: FockSpace | SymmetricSpace
     pieces: tuple[tuple[str, LadderExpr], ...]
     constant: LadderExpr
     fingerprint: str
     defaults: tuple[tuple[str, float], ...] = ()
+    scan: SectorChoice | None = None
 
     @classmethod
-    def from_model(cls, model: Model) -> ModelRecipe:
+    def from_model(
+        cls,
+        model: Model,
+        *,
+        space: FockSpace | SymmetricSpace | None = None,
+        scan: SectorChoice | None = None,
+        sector_key: str = "",
+    ) -> ModelRecipe:
+        fingerprint = model.fingerprint()
+        if sector_key:
+            fingerprint = f"{fingerprint}|{sector_key}"
         return cls(
             name=model.name,
-            space=model.space,
+            space=model.space if space is None else space,
             pieces=tuple(model.pieces.items()),
             constant=model.constant,
-            fingerprint=model.fingerprint(),
+            fingerprint=fingerprint,
             defaults=tuple((k, float(v)) for k, v in model.parameters.items()),
+            scan=scan,
         )
 
     def __hash__(self) -> int:
@@ -103,7 +123,7 @@ class PreparedModel:
     """
 
     name: str
-    space: FockSpace
+    space: FockSpace | SymmetricSpace
     pieces: Mapping[str, LadderExpr]
     constant: LadderExpr
     shared: SharedPattern | None
@@ -122,8 +142,10 @@ class PreparedModel:
         *,
         points: int,
         first: Mapping[str, float] | None = None,
+        pool: Any = None,
     ) -> PreparedModel:
-        """Prepare ``recipe`` for ``points`` points (``first``: the first point's values).
+        """Prepare ``recipe`` for ``points`` points (``first``: the first point's values;
+        ``pool``: a NativePool to share, e.g. between the sectors of a scan).
 
         Raises
         ------
@@ -137,7 +159,8 @@ class PreparedModel:
 
         pieces = dict(recipe.pieces)
         check_hermitian_pieces(pieces, recipe.constant, recipe.name)
-        pool = _native.NativePool(settings.threads)
+        if pool is None:
+            pool = _native.NativePool(settings.threads)
         values = dict(recipe.defaults) if first is None else dict(first)
         for label in pieces:
             values.setdefault(label, 1.0)
@@ -310,7 +333,10 @@ def solve_levels(
 
 
 def observables(
-    space: FockSpace, vector: npt.NDArray[Any], settings: SweepSettings, threads: Any
+    space: FockSpace | SymmetricSpace,
+    vector: npt.NDArray[Any],
+    settings: SweepSettings,
+    threads: Any,
 ) -> dict[str, Any]:
     """The recorded ground-state observables of ``vector`` (JSON-ready)."""
     out: dict[str, Any] = {}

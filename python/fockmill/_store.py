@@ -6,8 +6,15 @@ leaves only whole rows behind and can resume where it stopped. A new file is wri
 under a temporary name and appears under its real name only once its schema and meta
 data are committed, so a crash while creating it leaves nothing a later run refuses.
 
-File layout (schema version 2)
-------------------------------
+File layout (schema versions 2 and 3)
+-------------------------------------
+Version 3 is version 2 plus symmetry sectors: ``meta.symmetry`` (generators, labels,
+names, orders, description of the sector; see :class:`~fockmill._sector_choice.
+SectorChoice`) and ``meta.sector_dims``, and, for sweeps over every label of one
+generator, the observables ``dispersion`` (lowest levels per sector) and
+``ground_sector``. Sweeps without a symmetry still write version 2, which older
+fockmill versions read; they refuse version 3 with a clear message.
+
 ``meta(key TEXT PRIMARY KEY, value TEXT)``
     Every value is one JSON document: ``format`` (always ``"fockmill-results"``),
     ``schema_version``, ``package_version``, ``created``, ``model_name``,
@@ -57,8 +64,14 @@ __all__ = [
 FORMAT_MARKER = "fockmill-results"
 """Value of ``meta.format`` in every results file."""
 
-SCHEMA_VERSION = 2
-"""Layout version of the results file; bumped on incompatible changes."""
+SCHEMA_VERSION = 3
+"""Newest layout version of the results file (files with a symmetry sector)."""
+
+PLAIN_SCHEMA_VERSION = 2
+"""Layout version written for sweeps without a symmetry (readable by older versions)."""
+
+READABLE_SCHEMA_VERSIONS: tuple[int, ...] = (2, 3)
+"""Layout versions this fockmill opens."""
 
 STATUSES: tuple[str, ...] = ("ok", "not_converged", "failed")
 """Values of a point's ``status``."""
@@ -189,6 +202,9 @@ class SweepTable:
         Label of each mode (``"cavity 0"``, ``"emitter 0"``, ...); empty when unknown.
     units : Mapping[str, str]
         Unit of a parameter or of ``"energy"`` (from the model file), when given.
+    sector : Mapping or None
+        The symmetry sector(s) the points were solved in (``meta.symmetry``), None for
+        the whole space.
 
     Examples
     --------
@@ -201,6 +217,7 @@ class SweepTable:
     swept: tuple[str, ...] = field(default=())
     mode_labels: tuple[str, ...] = field(default=())
     units: Mapping[str, str] = field(default_factory=lambda: MappingProxyType({}))
+    sector: Mapping[str, Any] | None = None
 
     def __len__(self) -> int:
         return len(self.rows)
@@ -418,9 +435,10 @@ class ResultsStore:
                 "another path"
             )
         file.parent.mkdir(parents=True, exist_ok=True)
+        version = SCHEMA_VERSION if meta.get("symmetry") else PLAIN_SCHEMA_VERSION
         entries: dict[str, Any] = {
             "format": FORMAT_MARKER,
-            "schema_version": SCHEMA_VERSION,
+            "schema_version": version,
             "package_version": str(__version__),
             "created": utc_now(),
         }
@@ -431,7 +449,7 @@ class ResultsStore:
             try:
                 with _transaction(connection):
                     connection.execute(f"PRAGMA application_id = {_APPLICATION_ID}")
-                    connection.execute(f"PRAGMA user_version = {SCHEMA_VERSION}")
+                    connection.execute(f"PRAGMA user_version = {version}")
                     for statement in _SCHEMA.split(";"):
                         if statement.strip():
                             connection.execute(statement)
@@ -503,10 +521,11 @@ class ResultsStore:
             )
         row = connection.execute("SELECT value FROM meta WHERE key='schema_version'").fetchone()
         version = _loads_version(None if row is None else row[0])
-        if version != SCHEMA_VERSION:
+        if version not in READABLE_SCHEMA_VERSIONS:
+            readable = " and ".join(str(v) for v in READABLE_SCHEMA_VERSIONS)
             raise StoreError(
                 f"{name} has results-file schema version {version}, this fockmill reads "
-                f"version {SCHEMA_VERSION}; use the fockmill version that wrote it, or "
+                f"versions {readable}; use the fockmill version that wrote it, or "
                 "re-run the sweep into a new file"
             )
         check = connection.execute("PRAGMA quick_check").fetchone()
@@ -601,7 +620,15 @@ class ResultsStore:
             swept=self.swept,
             mode_labels=self.mode_labels,
             units=MappingProxyType(self.units),
+            sector=self._sector(),
         )
+
+    def _sector(self) -> dict[str, Any] | None:
+        """``meta.symmetry`` with the sector dimensions (``dims``), None without one."""
+        sector = self._meta_value("symmetry", dict)
+        if sector is None:
+            return None
+        return {**sector, "dims": self._meta_value("sector_dims", list) or []}
 
     def integrity_ok(self) -> bool:
         """True when SQLite's full ``PRAGMA integrity_check`` reports no problem."""

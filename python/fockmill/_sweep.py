@@ -29,8 +29,10 @@ from fockmill._plan import (
     serpentine_order,
     sweep_settings,
 )
-from fockmill._records import ModelRecipe
+from fockmill._sector_choice import SectorChoice
+from fockmill._sector_sweep import SweepSectors, check_same_sector, sweep_recipe
 from fockmill._store import PointResult, ResultsStore, SweepTable
+from fockmill._symmetry import ModePermutation
 from fockmill.exceptions import StoreError
 
 __all__ = [
@@ -74,8 +76,10 @@ def _new_meta(
     settings: SweepSettings,
     model_text_hash: str | None,
     units: Mapping[str, str],
+    sectors: SweepSectors | None = None,
 ) -> dict[str, Any]:
-    return {
+    extra = {} if sectors is None else sectors.meta()
+    return extra | {
         "model_name": model.name,
         "model_fingerprint": model.fingerprint(),
         "model_text_hash": model_text_hash or "",
@@ -97,6 +101,7 @@ def _attach_store(
     settings: SweepSettings,
     model_text_hash: str | None,
     units: Mapping[str, str],
+    sectors: SweepSectors | None = None,
 ) -> tuple[ResultsStore, bool]:
     """Open or create the store and check it belongs to this sweep; (store, owned)."""
     if isinstance(store, ResultsStore):
@@ -104,10 +109,11 @@ def _attach_store(
     elif Path(store).exists():
         handle, owned = ResultsStore.open(store, purpose="resume"), True
     else:
-        meta = _new_meta(model, full, swept, settings, model_text_hash, units)
+        meta = _new_meta(model, full, swept, settings, model_text_hash, units, sectors)
         return ResultsStore.create(store, meta), True
     try:
         _check_resumable(handle, model, full, settings)
+        check_same_sector(handle, sectors)
     except BaseException:
         if owned:
             handle.close()
@@ -188,6 +194,7 @@ def run_sweep(
     on_point: Callable[[PointResult], None] | None = None,
     record: Sequence[str] | None = None,
     solver_options: Mapping[str, object] | None = None,
+    symmetry: SectorChoice | Sequence[tuple[ModePermutation, int | str]] | None = None,
 ) -> SweepTable:
     """Ground states of ``model`` at many parameter points, optionally saved as they finish.
 
@@ -243,6 +250,17 @@ def run_sweep(
     solver_options : Mapping[str, object], optional
         Deprecated: pass ``method``, ``tol``, ``seed``, ``max_iterations`` and
         ``threads`` as keywords (its ``dense_limit`` is ignored).
+    symmetry : sequence of (ModePermutation, int or "all"), optional
+        Solve in a symmetry sector: generators with their labels, as for
+        :class:`fockmill.SymmetricSpace` (every part of the model must commute with
+        them). One label may be ``"all"``: each point then solves every sector of that
+        generator (every momentum of a translation) and records, besides the energy,
+        gap and levels of the whole space (merged over sectors), the observable
+        ``dispersion`` (the ``levels`` lowest energies per label, NaN where a sector
+        is smaller) and ``ground_sector`` (the label of the lowest energy).
+        Observables are those of the ground state. The sector is stored in the
+        results file's meta data (``meta.symmetry``) and a resumed sweep must ask for
+        the same one.
 
     Returns
     -------
@@ -259,6 +277,9 @@ def run_sweep(
         quantity list or solver setting (``method``, ``tol``, ``seed``, ``levels``).
     NotHermitianError
         A piece of the model is not Hermitian.
+    SymmetryError
+        A symmetry that the model does not commute with, labels out of range or no
+        one-dimensional representation, or an empty sector.
     PoolStartError
         The worker processes could not start (e.g. no ``if __name__ == "__main__":``
         guard in a script) or died.
@@ -292,6 +313,7 @@ def run_sweep(
     """
     from fockmill._execute import execute
 
+    sectors = None if symmetry is None else SweepSectors(model, symmetry, threads)
     settings = sweep_settings(
         model,
         quantities=quantities,
@@ -304,6 +326,7 @@ def run_sweep(
         threads=threads,
         record=record,
         solver_options=solver_options,
+        dim=None if sectors is None else sectors.solve_dim,
     )
     full, swept = full_points(model, points)
     unit_map = _check_units(units)
@@ -313,7 +336,7 @@ def run_sweep(
     owned_store = False
     if store is not None:
         handle, owned_store = _attach_store(
-            store, model, full, swept, settings, model_text_hash, unit_map
+            store, model, full, swept, settings, model_text_hash, unit_map, sectors
         )
     try:
         done = handle.finished_indices(include_failed=not retry_failed) if handle else set()
@@ -333,7 +356,7 @@ def run_sweep(
 
         try:
             if order:
-                recipe = ModelRecipe.from_model(model)
+                recipe = sweep_recipe(model, sectors)
                 execute(recipe, full, order, settings, executor, workers, chunk, finish)
         finally:
             if bar is not None:
@@ -345,6 +368,7 @@ def run_sweep(
             swept=swept,
             mode_labels=labels,
             units=MappingProxyType(unit_map),
+            sector=None if sectors is None else sectors.table_sector(),
         )
     finally:
         if handle is not None and owned_store:

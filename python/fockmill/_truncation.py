@@ -14,6 +14,7 @@ from fockmill._observe import top_level_weights
 from fockmill._prepare import as_expr, check_space
 from fockmill._solve import GroundState, ground_state
 from fockmill._space import FockSpace
+from fockmill._symmetry import SymmetricSpace
 
 __all__ = ["CutoffScan", "converge_cutoffs"]
 
@@ -34,8 +35,9 @@ class CutoffScan:
         Whether every scanned mode converged (see ``mode_converged``).
     ground : GroundState
         The ground state at the last cutoffs.
-    space : FockSpace
-        The space at the last cutoffs.
+    space : FockSpace or SymmetricSpace
+        The space at the last cutoffs (a sector of the raised base space when the scan
+        started from a sector).
     dims : list of int
         Dimension of the space at each step (the cost of each solve).
     raised : list of tuple of int
@@ -53,16 +55,44 @@ class CutoffScan:
     top_weights: list[npt.NDArray[np.float64]]
     converged: bool
     ground: GroundState
-    space: FockSpace
+    space: FockSpace | SymmetricSpace
     dims: list[int] = field(default_factory=list)
     raised: list[tuple[int, ...]] = field(default_factory=list)
     mode_converged: tuple[bool, ...] = ()
     energy_changes: dict[int, float] = field(default_factory=dict)
 
 
+def _orbits(space: FockSpace | SymmetricSpace) -> list[tuple[int, ...]]:
+    """The modes each mode is mapped to by the sector's group (itself alone for a space)."""
+    modes = space.modes
+    if not isinstance(space, SymmetricSpace):
+        return [(i,) for i in range(modes)]
+    # Union-find over the generators' cycles: the group's orbits on modes.
+    parent = list(range(modes))
+
+    def root(i: int) -> int:
+        while parent[i] != i:
+            parent[i] = parent[parent[i]]
+            i = parent[i]
+        return i
+
+    for g, _ in space.symmetries:
+        for i, j in enumerate(g.images):
+            parent[root(i)] = root(j)
+    return [tuple(j for j in range(modes) if root(j) == root(i)) for i in range(modes)]
+
+
+def _with_cutoffs(
+    space: FockSpace | SymmetricSpace, cutoffs: Sequence[int]
+) -> FockSpace | SymmetricSpace:
+    if isinstance(space, SymmetricSpace):
+        return SymmetricSpace(space.base.with_cutoffs(cutoffs), list(space.symmetries))
+    return space.with_cutoffs(cutoffs)
+
+
 def converge_cutoffs(
     expr: LadderExpr,
-    space: FockSpace,
+    space: FockSpace | SymmetricSpace,
     *,
     energy_tol: float = 1e-8,
     weight_tol: float = 1e-6,
@@ -89,8 +119,10 @@ def converge_cutoffs(
     ----------
     expr : LadderExpr
         The Hamiltonian (expressions do not depend on cutoffs).
-    space : FockSpace
-        Starting space; total, weights and modulus are kept.
+    space : FockSpace or SymmetricSpace
+        Starting space; total, weights and modulus are kept. For a sector the scan
+        solves in the sector, and raising a mode raises every mode the symmetries map
+        it to (their cutoffs must stay equal); the sector's labels are kept.
     energy_tol, weight_tol : float
         Tolerances (absolute energy change per raise; top-level probability).
     step : int
@@ -120,8 +152,10 @@ def converge_cutoffs(
     """
     e = as_expr(expr)
     s = check_space(space)
-    if not isinstance(s, FockSpace):
-        raise TypeError("converge_cutoffs needs a fm.FockSpace; pass the sector's .base")
+    if not isinstance(s, FockSpace | SymmetricSpace):
+        raise TypeError(
+            f"converge_cutoffs needs a fm.FockSpace or fm.SymmetricSpace; got {type(s).__name__}"
+        )
     for name, value in (("step", step), ("max_cutoff", max_cutoff)):
         if isinstance(value, bool) or not isinstance(value, int | np.integer):
             raise TypeError(f"{name} must be a positive integer; got {value!r}")
@@ -150,7 +184,8 @@ def converge_cutoffs(
     dims: list[int] = []
     raised_log: list[tuple[int, ...]] = []
     changes: dict[int, float] = {}
-    current = s
+    current: FockSpace | SymmetricSpace = s
+    orbits = _orbits(s)
     raised_now: tuple[int, ...] = ()
     while True:
         g = ground_state(e, current, **solve_options)
@@ -193,8 +228,9 @@ def converge_cutoffs(
             )
         if one_at_a_time:
             heavy = [max(heavy, key=lambda i: (w[i], -i))]
+        heavy = sorted({j for i in heavy for j in orbits[i]})
         new_cutoffs = list(current.cutoffs)
         for i in heavy:
             new_cutoffs[i] = min(new_cutoffs[i] + step, max_cutoff)
         raised_now = tuple(heavy)
-        current = current.with_cutoffs(new_cutoffs)
+        current = _with_cutoffs(current, new_cutoffs)

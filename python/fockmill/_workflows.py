@@ -31,6 +31,15 @@ def _section(model_file: Any, name: str) -> Any:
         raise ValueError(
             f"{source} has no [{name}] section; add one (see docs/model-files.md) to run it"
         )
+    if getattr(model_file, "symmetry", None) is not None:
+        # A Fock or coherent initial state, a probe that changes the momentum and a
+        # canonical ensemble all live in the whole space, not in one symmetry sector.
+        warnings.warn(
+            f"[symmetry] is not used by [{name}]: it runs in the model's whole space "
+            f"(dim {model_file.model.space.dim:,}); sectors apply to `solve` and `sweep`",
+            UserWarning,
+            stacklevel=3,
+        )
     return spec
 
 

@@ -65,6 +65,7 @@ examples:
   fockmill quench pair.toml --out pair-quench.sqlite --plot pair-quench.png
   fockmill spectrum ring.toml --out ring-spectrum.sqlite
   fockmill thermal trimer.toml --out trimer-thermal.sqlite --set exchange_scale=2
+  fockmill plot bands.sqlite --out bands.png --y dispersion   ([symmetry] translation = "all")
 """
 
 
@@ -99,6 +100,11 @@ def build_parser() -> argparse.ArgumentParser:
     )
     solve.add_argument(
         "--format", choices=("text", "json"), default="text", help="output format (default text)"
+    )
+    solve.add_argument(
+        "--plot",
+        metavar="FIG.png",
+        help='with [symmetry] translation = "all": also draw the dispersion E(k) into FIG.png',
     )
 
     sweep = commands.add_parser(
@@ -177,7 +183,8 @@ def build_parser() -> argparse.ArgumentParser:
         default=None,
         metavar="Q1,Q2,...",
         help="comma-separated quantities (default energy,gap); any of energy, gap, levels, "
-        "populations, number_variance, one_body, entropy, top_weight, residual, seconds",
+        "populations, number_variance, one_body, entropy, top_weight, residual, seconds; "
+        "or 'dispersion' alone (E0(k) per point, for sweeps over every momentum)",
     )
     plot.add_argument("--no-poles", action="store_true", help="spectra: leave out the pole sticks")
     from fockmill._workflow_cli import add_parsers
@@ -259,7 +266,7 @@ def _short_list(values: Sequence[Any]) -> str:
     return "[" + " ".join(f"{float(v):.4f}" for v in values) + "]"
 
 
-_MATRIX_KEYS = ("one_body", "one_body_imag")
+_MATRIX_KEYS = ("one_body", "one_body_imag", "dispersion")
 
 
 def _table_columns(table: SweepTable) -> list[str]:
@@ -316,15 +323,43 @@ def format_table(table: SweepTable, meta: dict[str, Any] | None = None) -> str:
         units = dict(table.units)
         if units:
             lines.append("# units: " + ", ".join(f"{k} in {v}" for k, v in units.items()))
+        if table.sector:
+            dims = ", ".join(f"{d:,}" for d in table.sector.get("dims") or [])
+            lines.append(f"# sector: {table.sector.get('description', '')} (dim {dims})")
     columns = _table_columns(table)
     cells = [[_cell(row, c) for c in columns] for row in table.rows]
     widths = [max(len(c), *(len(r[i]) for r in cells)) for i, c in enumerate(columns)]
     lines.append("  ".join(c.rjust(w) for c, w in zip(columns, widths, strict=True)))
     lines.extend("  ".join(v.rjust(w) for v, w in zip(r, widths, strict=True)) for r in cells)
-    if any(k in row.observables for row in table.rows for k in _MATRIX_KEYS):
+    if any(k in row.observables for row in table.rows for k in _MATRIX_KEYS[:2]):
         lines.append("# one_body matrices are not shown here; use --format csv or json")
+    lines.extend(_dispersion_lines(table))
     lines.extend(_failure_lines(table))
     return "\n".join(lines)
+
+
+def _dispersion_lines(table: SweepTable) -> list[str]:
+    """E0(k) per point (one column per sector label) for sweeps over every label."""
+    rows = [r for r in table.rows if r.observables.get("dispersion") is not None]
+    if not rows:
+        return []
+    count = len(rows[0].observables["dispersion"])
+    header = ["point", *table.swept, *(f"q={q}" for q in range(count))]
+    cells = []
+    for row in rows:
+        ground = [line[0] for line in row.observables["dispersion"]]
+        cells.append(
+            [
+                str(row.index),
+                *(f"{row.parameters[name]:g}" for name in table.swept),
+                *(_number(None if e is None else float(e)) for e in ground),
+            ]
+        )
+    widths = [max(len(h), *(len(c[i]) for c in cells)) for i, h in enumerate(header)]
+    lines = [f"# lowest energy E0(k) per sector, k = 2π·q/{count}:"]
+    lines.append("  ".join(h.rjust(w) for h, w in zip(header, widths, strict=True)))
+    lines.extend("  ".join(c.rjust(w) for c, w in zip(r, widths, strict=True)) for r in cells)
+    return lines
 
 
 def _failure_lines(table: SweepTable) -> list[str]:
@@ -397,6 +432,8 @@ def format_json(table: SweepTable, meta: dict[str, Any]) -> str:
     from fockmill._store import json_ready
 
     document = {"meta": meta, "rows": [_row_dict(r) for r in table.rows]}
+    if table.sector is not None:
+        document["sector"] = dict(table.sector)
     return json.dumps(json_ready(document), indent=2, allow_nan=False)
 
 
@@ -425,6 +462,8 @@ def _format_point(
     labels = list(mode_labels)
     matrices: list[tuple[str, Any]] = []
     for key, value in row.observables.items():
+        if key == "dispersion":  # its own table follows (_format_dispersion)
+            continue
         if key in _MATRIX_KEYS:
             matrices.append((key, value))
         elif isinstance(value, list):
@@ -483,9 +522,15 @@ def _command_solve(args: argparse.Namespace, out: IO[str]) -> int:
         )
     quantities = tuple(dict.fromkeys((*model_file.quantities, "levels")))
     levels = max(int(model_file.levels), 2 if "gap" in quantities else 1)
-    levels = min(levels, model.space.dim)
+    levels = min(levels, _solve_dim(model_file))
     if levels < 2:
         quantities = tuple(q for q in quantities if q != "gap")
+    symmetry = getattr(model_file, "symmetry", None)
+    if args.plot and (symmetry is None or symmetry.scan is None):
+        raise UsageError(
+            '--plot draws a dispersion: it needs [symmetry] with translation = "all" (or a '
+            'label "all") in the model file'
+        )
     table = run_sweep(
         model,
         [overrides],
@@ -494,6 +539,7 @@ def _command_solve(args: argparse.Namespace, out: IO[str]) -> int:
         entropy_modes=model_file.entropy_modes or None,
         executor="serial",
         progress=False,
+        symmetry=symmetry,
         **_solver_keywords(model_file),
     )
     row = table.rows[0]
@@ -502,10 +548,70 @@ def _command_solve(args: argparse.Namespace, out: IO[str]) -> int:
         from fockmill._store import json_ready
 
         document = {**_row_dict(row), "total_seconds": total}
+        if table.sector is not None:
+            document["sector"] = dict(table.sector)
         print(json.dumps(json_ready(document), indent=2, allow_nan=False), file=out)
     else:
         print(_format_point(row, model, table.mode_labels, total), file=out)
+        if table.sector is not None:
+            print(_format_dispersion(row, table.sector), file=out)
+    if args.plot and row.observables.get("dispersion") is not None:
+        from fockmill._plot import plot_dispersion
+
+        shown = SweepTable(rows=table.rows, swept=(), units=_units(model_file), sector=table.sector)
+        where = ", ".join(f"{k}={v:g}" for k, v in row.parameters.items())
+        path = plot_dispersion(shown, args.plot, title=f"{model.name} at {where}")
+        print(f"figure: {path}", file=out)
     return EXIT_OK if row.status == "ok" else EXIT_FAILED
+
+
+def _solve_dim(model_file: Any) -> int:
+    """The dimension ``solve`` works in: the sector's for a single sector, else the
+    model space's (a dispersion clips each sector's levels to its own size)."""
+    symmetry = getattr(model_file, "symmetry", None)
+    space = model_file.model.space
+    if symmetry is None or symmetry.scan is not None:
+        return int(space.dim)
+    return max(1, int(symmetry.sector(space).dim))
+
+
+def _format_dispersion(row: PointResult, sector: Any) -> str:
+    """The sector line of ``solve``, and for a dispersion the table k, E0(k), gaps."""
+    lines = [f"sector  {sector.get('description', '')}"]
+    dims = list(sector.get("dims") or [])
+    value = row.observables.get("dispersion")
+    if value is None:
+        if dims:
+            lines.append(f"sector dim  {dims[0]:,}")
+        return "\n".join(lines)
+    energies = [[math.nan if e is None else float(e) for e in line] for line in value]
+    count = len(energies)
+    ground = min((line[0] for line in energies if not math.isnan(line[0])), default=math.nan)
+    lines.append(
+        "dispersion: lowest levels per momentum sector, k = 2π·q/"
+        f"{count} (E0(k) - E0: above the lowest energy; E1(k) - E0(k): gap inside the sector)"
+    )
+    header = ["q", "k/π", "dim", "E0(k)", "E0(k) - E0", "E1(k) - E0(k)"]
+    cells = []
+    for q, line in enumerate(energies):
+        k = 2 * q / count
+        k = k - 2 if k > 1 + 1e-12 else k
+        first = line[0]
+        second = line[1] if len(line) > 1 else math.nan
+        cells.append(
+            [
+                str(q),
+                f"{k:+.4f}",
+                f"{dims[q]:,}" if q < len(dims) else "-",
+                _number(first),
+                _number(first - ground),
+                _number(second - first),
+            ]
+        )
+    widths = [max(len(h), *(len(c[i]) for c in cells)) for i, h in enumerate(header)]
+    lines.append("  ".join(h.rjust(w) for h, w in zip(header, widths, strict=True)))
+    lines.extend("  ".join(c.rjust(w) for c, w in zip(r, widths, strict=True)) for r in cells)
+    return "\n".join(lines)
 
 
 def _dask_client(args: argparse.Namespace) -> Any:
@@ -554,6 +660,7 @@ def _run_file_sweep(
         retry_failed=retry_failed,
         units=_units(model_file),
         model_text_hash=model_file.text_hash,
+        symmetry=getattr(model_file, "symmetry", None),
         **_solver_keywords(model_file),
     )
 
@@ -668,6 +775,15 @@ def _command_plot(args: argparse.Namespace, out: IO[str]) -> int:
     if is_workflow_file(args.results):
         return _plot_workflow(args, out)
     quantities = [q.strip() for q in (args.y or "energy,gap").split(",") if q.strip()]
+    if "dispersion" in quantities:
+        if quantities != ["dispersion"]:
+            raise UsageError("--y dispersion draws its own figure; give it alone")
+        from fockmill._plot import plot_dispersion
+
+        with _open_results(args.results) as store:
+            path = plot_dispersion(store, args.out, x=args.x)
+        print(f"wrote {path}", file=out)
+        return EXIT_OK
     with _open_results(args.results) as store:
         path = plot_sweep(store, args.out, x=args.x, y=quantities, mode_labels=store.mode_labels)
     print(f"wrote {path}", file=out)
