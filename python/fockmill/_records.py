@@ -357,7 +357,7 @@ def observables(
     return out
 
 
-def _failure(
+def failure(
     index: int, values: Mapping[str, float], status: str, message: str, started: float
 ) -> PointResult:
     return PointResult(
@@ -392,18 +392,18 @@ def solve_point(
             start = start_vector(prepared.space.dim, dtype, settings.seed, index, previous)
             solution = solve_levels(problem, settings, start)
     except ConvergenceError as exc:
-        return _failure(index, values, "not_converged", str(exc), started), None
+        return failure(index, values, "not_converged", str(exc), started), None
     except _NOT_POINT_ERRORS:
         raise
     except Exception as exc:  # any other error is this point's result, not the sweep's
-        return _failure(index, values, "failed", f"{type(exc).__name__}: {exc}", started), None
+        return failure(index, values, "failed", f"{type(exc).__name__}: {exc}", started), None
     energies = solution.energies
     if not np.all(np.isfinite(energies)) or not math.isfinite(solution.residual):
         message = (
             f"the energy is not finite ({energies[0]}; residual {solution.residual}); check "
             "the parameters of this point for overflow"
         )
-        return _failure(index, values, "failed", message, started), None
+        return failure(index, values, "failed", message, started), None
     ground = solution.vectors[:, 0]
     try:
         with np.errstate(over="ignore", invalid="ignore", divide="ignore"):
@@ -412,7 +412,7 @@ def solve_point(
         raise
     except Exception as exc:
         message = f"observables failed: {type(exc).__name__}: {exc}"
-        return _failure(index, values, "failed", message, started), None
+        return failure(index, values, "failed", message, started), None
     status, message = "ok", ""
     if not solution.converged:
         status = "not_converged"

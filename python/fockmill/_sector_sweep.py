@@ -37,6 +37,7 @@ from fockmill._records import (
     SHARED_PATTERN_MIN_POINTS,
     ModelRecipe,
     PreparedModel,
+    failure,
     observables,
     solve_path,
     solve_point,
@@ -180,7 +181,7 @@ def _solve_scan_point(
         if best is None or energies[0] < best[0]:
             best = (float(energies[0]), row, vectors[:, 0])
     if best is None or status == "failed":
-        return _failed(index, values, "; ".join(problems) or "no sector solved", started)
+        return failure(index, values, "failed", "; ".join(problems) or "no sector solved", started)
     merged = np.sort(table[np.isfinite(table)])[:k]
     _, ground_row, vector = best
     part = scan.parts[ground_row]
@@ -192,7 +193,7 @@ def _solve_scan_point(
         raise
     except Exception as exc:  # an observable failing is this point's result
         message = f"observables failed: {type(exc).__name__}: {exc}"
-        return _failed(index, values, message, started)
+        return failure(index, values, "failed", message, started)
     recorded["dispersion"] = table.tolist()
     recorded["ground_sector"] = int(scan.labels[ground_row])
     wanted = settings.quantities
@@ -209,23 +210,6 @@ def _solve_scan_point(
         finished=utc_now(),
         status=status,
         message=" ".join("; ".join(problems).split()),
-    )
-
-
-def _failed(index: int, values: Mapping[str, float], message: str, started: float) -> PointResult:
-    return PointResult(
-        index=index,
-        parameters=dict(values),
-        energy=None,
-        gap=None,
-        levels=None,
-        observables={},
-        residual=None,
-        method="",
-        seconds=time.perf_counter() - started,
-        finished=utc_now(),
-        status="failed",
-        message=" ".join(message.split()),
     )
 
 
