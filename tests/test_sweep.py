@@ -424,6 +424,14 @@ def test_lanczos_points_solve_on_the_shared_pattern(
     from fockmill._records import ModelRecipe, PreparedModel
 
     monkeypatch.setattr(records, "SHARED_PATTERN_MIN_POINTS", 2)
+    # The ring runs on the bipartite kernel, where Lanczos stays matrix-free by default;
+    # the stored path (taken by models on the row kernel) is forced here.
+    import fockmill._solve as solve
+
+    decide = solve._store_matrix
+    monkeypatch.setattr(
+        solve, "_store_matrix", lambda p, s, k=1: True if s is None else decide(p, s, k)
+    )
 
     quantities = ("energy", "gap") if levels == 2 else ("energy",)
     options = {"method": "lanczos", "tol": 1e-10, "seed": 0, "max_iterations": None}
