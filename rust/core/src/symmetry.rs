@@ -35,7 +35,7 @@ use crate::error::{CoreError, CoreResult};
 use crate::lanczos::{self, HermitianMap, LanczosOptions, LanczosOutcome};
 use crate::levels::{self, LevelsOptions, LevelsOutcome};
 use crate::memory::{ensure_room, try_filled, try_with_capacity};
-use crate::parallel::{Interrupt, Runner, BLOCKS_PER_CHECK, BLOCK_ROWS};
+use crate::parallel::{Interrupt, Runner, BLOCK_ROWS};
 use crate::scalar::Scalar;
 use crate::space::{Constraint, FockSpace};
 use crate::terms::{format_monomial, Operator};
@@ -50,6 +50,10 @@ pub const MAX_GROUP_ORDER: usize = 1 << 16;
 pub const MAX_GROUP_ENTRIES: usize = 1 << 24;
 /// Base states covered by one block of the representative index (seven words of bits).
 const BLOCK_STATES: u64 = 448;
+/// Row blocks gathered between two appends of the one-pass build (about 130 000 rows).
+const BUILD_BLOCKS: usize = 32;
+/// Square roots kept in a table (squared amplitudes of products of few quanta).
+const ROOTS: usize = 4096;
 /// Index blocks marked by one task of the enumeration.
 const TASK_BLOCKS: usize = 64;
 /// Tasks of the enumeration between two interruption checks (about 7 million states).
@@ -111,13 +115,16 @@ impl PackedRank {
     /// offset table).
     #[inline(always)]
     fn rank(&self, table: &[u64], mut x: u128) -> u64 {
+        // Wrapping arithmetic: every value is bounded by the tables' size (checked
+        // arithmetic costs a third of the time here).
+        let field = self.field as usize;
         let mut owed = 0usize;
         let mut rank = 0u64;
         for &(start, width, weight) in &self.modes {
-            let v = (x & self.field) as usize;
+            let v = (x as u64 as usize) & field;
             x >>= self.bits;
-            owed += weight * v;
-            rank += table[start + owed * width + v];
+            owed = owed.wrapping_add(weight.wrapping_mul(v));
+            rank = rank.wrapping_add(table[start.wrapping_add(owed.wrapping_mul(width)).wrapping_add(v)]);
         }
         rank
     }
@@ -241,6 +248,8 @@ pub struct SymmetricSpace {
     shifts: Option<Shifts>,
     /// Ranking of packed strings, with `shifts`, when the constraint allows it.
     packed_rank: Option<PackedRank>,
+    /// `roots[k] = sqrt(k)`, for stabiliser orders and small squared amplitudes.
+    roots: Vec<f64>,
 }
 
 /// Occupation tuples packed into one `u128` (`bits` per mode, mode 0 most significant,
@@ -383,7 +392,10 @@ impl Shifts {
         while x != 0 {
             let i = x.trailing_zeros() as usize;
             x &= x - 1;
-            consider(self.rotate(p, (modes - i) % modes), ring.forward[i]);
+            consider(
+                self.rotate(p, if i == 0 { 0 } else { modes - i }),
+                ring.forward[i],
+            );
         }
         if let Some(backward) = &ring.backward {
             // The same runs read backwards start at their last mode, i + run - 1.
@@ -396,7 +408,10 @@ impl Shifts {
             while x != 0 {
                 let j = x.trailing_zeros() as usize;
                 x &= x - 1;
-                consider(self.rotate(r, (j + 1) % modes), backward[j]);
+                consider(
+                    self.rotate(r, if j + 1 == modes { 0 } else { j + 1 }),
+                    backward[j],
+                );
             }
         }
         (best, which, ties)
@@ -465,7 +480,7 @@ impl Ring {
     /// The shortcut for these moves (as in [`Shifts`]), if every rotation is present and
     /// the reversed rotations are all present or all absent.
     fn detect(modes: usize, bits: u32, moves: &[(bool, u32)]) -> Option<Ring> {
-        if modes > 64 || modes < 2 {
+        if !(2..=64).contains(&modes) {
             return None;
         }
         let mut forward = vec![usize::MAX; modes];
@@ -503,6 +518,10 @@ impl Ring {
         })
     }
 }
+
+/// Called by [`SymmetricSpace::descend`] with a prefix, its residue owed, its rank
+/// contribution and its tied readings.
+type PrefixVisit<'a> = dyn FnMut(&[u32], usize, u64, u128) + 'a;
 
 /// A prefix of a state in the walk of [`SymmetricSpace::list_by_prefixes`].
 struct Prefix {
@@ -661,6 +680,7 @@ impl SymmetricSpace {
             reps: Vec::new(),
             shifts: None,
             packed_rank: None,
+            roots: (0..=order.max(ROOTS)).map(|k| (k as f64).sqrt()).collect(),
         };
         sector.shifts = Shifts::detect(m, sector.base.max_cutoff(), &sector.inverse, order);
         sector.packed_rank = sector
@@ -956,7 +976,7 @@ impl SymmetricSpace {
         rank: u64,
         tied: u128,
         starts: u128,
-        visit: &mut dyn FnMut(&[u32], usize, u64, u128),
+        visit: &mut PrefixVisit<'_>,
     ) {
         if t == stop {
             visit(&occ[..t], residue, rank, tied);
@@ -1088,6 +1108,29 @@ impl SymmetricSpace {
             count += x.count_ones() as u64;
         }
         Some(count)
+    }
+
+    /// `sqrt(k)` for a non-negative integer `k` held exactly.
+    #[inline(always)]
+    fn root(&self, k: f64) -> f64 {
+        let i = k as usize;
+        match self.roots.get(i) {
+            Some(&r) if i as f64 == k => r,
+            _ => k.sqrt(),
+        }
+    }
+
+    /// The amplitude `sqrt(amp_sq · ties / ties_row)` of a sector entry, with
+    /// `inv_row = 1 / sqrt(ties_row)` (as [`SymmetricSpace::inv_root`]).
+    #[inline(always)]
+    fn amplitude(&self, amp_sq: f64, ties: usize, inv_row: f64) -> f64 {
+        self.root(amp_sq) * self.roots[ties] * inv_row
+    }
+
+    /// `1 / sqrt(ties)`.
+    #[inline(always)]
+    fn inv_root(&self, ties: usize) -> f64 {
+        1.0 / self.roots[ties]
     }
 
     /// Occupations of base state `rank` (as [`FockSpace::unrank_into`], scanning each
@@ -1385,6 +1428,7 @@ impl<S: Scalar> SectorOperator<S> {
         let rank = sector.reps[row as usize];
         sector.unrank_small(rank, &mut s.occ);
         let (_, ties_row) = sector.canonical(&s.occ, &mut s.best);
+        let inv_row = sector.inv_root(ties_row);
         let mut d = S::ZERO;
         let mut any_diagonal = false;
         'diag: for term in &self.diagonal {
@@ -1437,7 +1481,7 @@ impl<S: Scalar> SectorOperator<S> {
                 let Some(col) = sector.sector_index(rank) else {
                     continue;
                 };
-                let amp = (amp_sq * ties as f64 / ties_row as f64).sqrt();
+                let amp = sector.amplitude(amp_sq, ties, inv_row);
                 visit(col, (term.coef * self.characters[h]).scale(amp));
             }
             return Ok(());
@@ -1466,7 +1510,7 @@ impl<S: Scalar> SectorOperator<S> {
                 continue;
             };
             // sqrt(o_u / o_r) = sqrt(ties_r / ties_u).
-            let amp = (amp_sq * ties as f64 / ties_row as f64).sqrt();
+            let amp = sector.amplitude(amp_sq, ties, inv_row);
             visit(col, (term.coef * self.characters[h]).scale(amp));
         }
         Ok(())
@@ -1627,7 +1671,8 @@ impl<S: Scalar> SectorOperator<S> {
         let blocks = dim.div_ceil(BLOCK_ROWS) as usize;
         let mut next = 0usize;
         while next < blocks {
-            let end = (next + BLOCKS_PER_CHECK).min(blocks);
+            // Few blocks at a time: their entries are held twice until appended.
+            let end = (next + BUILD_BLOCKS).min(blocks);
             let parts: Vec<(Vec<u32>, Vec<I>, Vec<S>)> = runner.install(|| {
                 (next..end)
                     .into_par_iter()
