@@ -1327,6 +1327,8 @@ pub struct SectorOperator<S: Scalar> {
 
 /// Per-thread buffers of the row gathering.
 struct RowScratch {
+    /// Images of a row waiting for their look-ups: (rank, term, element, amplitude).
+    pending: Vec<(u64, usize, usize, f64)>,
     occ: Vec<u32>,
     image: Vec<u32>,
     best: Vec<u32>,
@@ -1335,6 +1337,7 @@ struct RowScratch {
 impl RowScratch {
     fn new(m: usize) -> Self {
         RowScratch {
+            pending: Vec::new(),
             occ: vec![0; m],
             image: vec![0; m],
             best: vec![0; m],
@@ -1449,7 +1452,10 @@ impl<S: Scalar> SectorOperator<S> {
         if let Some(f) = &sector.shifts {
             let (p0, r0) = f.pack(&s.occ);
             let z0 = Shifts::empty_modes(&s.occ);
-            'fast: for term in &self.off {
+            // First every image's rank (arithmetic only), then the index and vector
+            // look-ups back to back, so that their cache misses overlap.
+            s.pending.clear();
+            'fast: for (t, term) in self.off.iter().enumerate() {
                 let (mut p, mut r, mut z) = (p0, r0, z0);
                 let mut amp_sq = 1.0f64;
                 for &(mode, lower, raise) in &term.factors {
@@ -1478,11 +1484,14 @@ impl<S: Scalar> SectorOperator<S> {
                         rank
                     }
                 };
+                s.pending
+                    .push((rank, t, h, sector.amplitude(amp_sq, ties, inv_row)));
+            }
+            for &(rank, t, h, amp) in &s.pending {
                 let Some(col) = sector.sector_index(rank) else {
                     continue;
                 };
-                let amp = sector.amplitude(amp_sq, ties, inv_row);
-                visit(col, (term.coef * self.characters[h]).scale(amp));
+                visit(col, (self.off[t].coef * self.characters[h]).scale(amp));
             }
             return Ok(());
         }
