@@ -503,18 +503,26 @@ impl<S: Scalar> Bipartite<S> {
                 crossing.push((coef, l, r));
             }
         }
-        let right_occ_of = |r: usize| -> Vec<Vec<u32>> {
-            let mut states = Vec::new();
-            enumerate(
-                space,
-                cut,
-                m,
-                r,
-                |mode, res| space.completions(mode, res) > 0,
-                |occ, _| states.push(occ.to_vec()),
-            );
-            states
-        };
+        // Right states owing each residue the rows use (the crossing tables' output
+        // residues are among them), flat (`m - cut` occupations a state), enumerated
+        // once and shared by the right blocks and the crossing tables.
+        let width = m - cut;
+        let right_states: HashMap<usize, Vec<u32>> = used
+            .iter()
+            .map(|&r| {
+                let mut states = Vec::new();
+                enumerate(
+                    space,
+                    cut,
+                    m,
+                    r,
+                    |mode, res| space.completions(mode, res) > 0,
+                    |occ, _| states.extend_from_slice(occ),
+                );
+                (r, states)
+            })
+            .collect();
+        let right_occ_of = |r: usize| right_states[&r].as_slice();
         let mut tables: Vec<FactorTable> = Vec::new();
         let (right_diag, right_off): (Vec<_>, Vec<_>) = right_terms
             .iter()
@@ -526,10 +534,11 @@ impl<S: Scalar> Bipartite<S> {
             }
             right_of_residue[r] = rights.len() as u32;
             let states = right_occ_of(r);
+            let count = states.len().checked_div(width).unwrap_or(1);
             let mut diag = Vec::new();
             if !right_diag.is_empty() {
-                diag = try_with_capacity(states.len(), "right diagonal of the bipartite product")?;
-                for occ in &states {
+                diag = try_with_capacity(count, "right diagonal of the bipartite product")?;
+                for occ in states.chunks_exact(width.max(1)).take(count) {
                     let mut d = S::ZERO;
                     for (coef, f) in &right_diag {
                         let mut amp = 1.0;
@@ -544,14 +553,14 @@ impl<S: Scalar> Bipartite<S> {
             }
             let mut terms = Vec::new();
             for (coef, f) in &right_off {
-                let table = factor_table(space, cut, r, f, &states);
+                let table = factor_table(space, cut, r, f, states, count);
                 if !table.dst.is_empty() {
                     terms.push((*coef, tables.len() as u32));
                     tables.push(table);
                 }
             }
             rights.push(RightBlock {
-                len: states.len(),
+                len: count,
                 diag,
                 terms,
             });
@@ -649,7 +658,8 @@ impl<S: Scalar> Bipartite<S> {
                                 cut,
                                 r_src,
                                 &factor_list[cross_factor[t]],
-                                &right_occ_of(r_out),
+                                right_occ_of(r_out),
+                                space.completions(cut, r_out) as usize,
                             ),
                             _ => FactorTable::default(),
                         };
@@ -1391,7 +1401,8 @@ fn factor_table(
     cut: usize,
     r_src: usize,
     factor: &[(usize, u32, u32)],
-    states: &[Vec<u32>],
+    states: &[u32],
+    count: usize,
 ) -> FactorTable {
     let m = space.modes();
     let mut t = FactorTable {
@@ -1399,7 +1410,9 @@ fn factor_table(
         ..FactorTable::default()
     };
     let mut img = vec![0u32; m - cut];
-    for (i, occ) in states.iter().enumerate() {
+    let width = (m - cut).max(1);
+    for i in 0..count {
+        let occ = &states[(i * width).min(states.len())..((i + 1) * width).min(states.len())];
         img.copy_from_slice(occ);
         let Some(amp_sq) = gather_image(space.caps(), cut, factor, &mut img) else {
             continue;
