@@ -279,10 +279,11 @@ impl<S: Scalar> SparseRows<S> for Listing<'_, S> {
     }
     fn rows(&self, first: u64, count: usize, visit: &mut RowVisitor<S>) -> CoreResult<()> {
         let mut row = first;
-        self.op.for_each_row(self.source, self.target, first, count, |entries| {
-            visit(row, entries);
-            row += 1;
-        })
+        self.op
+            .for_each_row(self.source, self.target, first, count, |entries| {
+                visit(row, entries);
+                row += 1;
+            })
     }
 }
 

@@ -1111,15 +1111,10 @@ impl<S: Scalar> Bipartite<S> {
         if !self.distinct_changes {
             let n = std::cell::Cell::new(0u64);
             let mut k = 0usize;
-            return self.walk(
-                first,
-                out.len(),
-                &mut |_, _| n.set(n.get() + 1),
-                &mut |_| {
-                    out[k] = n.replace(0);
-                    k += 1;
-                },
-            );
+            return self.walk(first, out.len(), &mut |_, _| n.set(n.get() + 1), &mut |_| {
+                out[k] = n.replace(0);
+                k += 1;
+            });
         }
         let end = self.row_end(first, out.len())?;
         let merged = self.merged.get().and_then(|m| m.as_deref());
@@ -1624,7 +1619,8 @@ mod tests {
             let reference = wide(build_rows(&Reference(&bp), &runner, &NoInterrupt, true).unwrap());
             let listed = |b: &Bipartite<S>| {
                 let mut out = Vec::new();
-                b.for_each_row(0, dim as usize, |r, e| out.push((r, e.to_vec()))).unwrap();
+                b.for_each_row(0, dim as usize, |r, e| out.push((r, e.to_vec())))
+                    .unwrap();
                 out
             };
             let mut expect = Vec::new();
@@ -1637,9 +1633,16 @@ mod tests {
                 let built = wide(build_csr_with(space, &bp, &runner, &NoInterrupt, true).unwrap());
                 assert_eq!(built.indptr, reference.indptr, "cut {cut}, {threads} threads");
                 assert_eq!(built.indices, reference.indices, "cut {cut}, {threads} threads");
-                assert_eq!(bits(&built.data), bits(&reference.data), "cut {cut}, {threads} threads");
+                assert_eq!(
+                    bits(&built.data),
+                    bits(&reference.data),
+                    "cut {cut}, {threads} threads"
+                );
             }
-            assert!(bp.merged.get().is_some_and(|m| m.is_some()), "cut {cut}: merged rows prepared");
+            assert!(
+                bp.merged.get().is_some_and(|m| m.is_some()),
+                "cut {cut}: merged rows prepared"
+            );
             for (got, rows) in [(unmerged, "unmerged"), (listed(&bp), "merged")] {
                 assert_eq!(got.len(), expect.len());
                 for ((r, a), (q, b)) in got.iter().zip(&expect) {
@@ -1666,15 +1669,26 @@ mod tests {
             bp.count_rows(first, &mut counts).unwrap();
             let mut entries = Vec::new();
             bp.emit_rows(first, n, |c, v| entries.push((c, v))).unwrap();
-            let (a, b) = (reference.indptr[first as usize] as usize, reference.indptr[first as usize + n] as usize);
+            let (a, b) = (
+                reference.indptr[first as usize] as usize,
+                reference.indptr[first as usize + n] as usize,
+            );
             for (k, &c) in counts.iter().enumerate() {
                 let r = first as usize + k;
-                assert_eq!(c as i64, reference.indptr[r + 1] - reference.indptr[r], "cut {cut} row {r}");
+                assert_eq!(
+                    c as i64,
+                    reference.indptr[r + 1] - reference.indptr[r],
+                    "cut {cut} row {r}"
+                );
             }
             let cols: Vec<i64> = entries.iter().map(|e| e.0 as i64).collect();
             assert_eq!(cols, reference.indices[a..b], "cut {cut} rows from {first}");
             let vals: Vec<S> = entries.iter().map(|e| e.1).collect();
-            assert_eq!(bits(&vals), bits(&reference.data[a..b]), "cut {cut} rows from {first}");
+            assert_eq!(
+                bits(&vals),
+                bits(&reference.data[a..b]),
+                "cut {cut} rows from {first}"
+            );
             first += step;
         }
     }

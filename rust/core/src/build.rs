@@ -203,13 +203,21 @@ impl<S: Scalar> SparseRows<S> for OnSpace<'_, Product<S>> {
     fn count_rows(&self, first: u64, out: &mut [u64]) -> CoreResult<()> {
         match self.kernel {
             Product::Split(b) => b.count_rows(first, out),
-            Product::Rows(k) => OnSpace { space: self.space, kernel: k }.count_rows(first, out),
+            Product::Rows(k) => OnSpace {
+                space: self.space,
+                kernel: k,
+            }
+            .count_rows(first, out),
         }
     }
     fn emit_rows(&self, first: u64, count: usize, emit: impl FnMut(u64, S)) -> CoreResult<()> {
         match self.kernel {
             Product::Split(b) => b.emit_rows(first, count, emit),
-            Product::Rows(k) => OnSpace { space: self.space, kernel: k }.emit_rows(first, count, emit),
+            Product::Rows(k) => OnSpace {
+                space: self.space,
+                kernel: k,
+            }
+            .emit_rows(first, count, emit),
         }
     }
 }

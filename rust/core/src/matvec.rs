@@ -17,7 +17,7 @@ use crate::terms::Operator;
 #[derive(Debug, Clone)]
 pub enum Product<S: Scalar> {
     /// Bipartite kernel (left modes `0..cut`).
-    Split(Bipartite<S>),
+    Split(Box<Bipartite<S>>),
     /// Row kernel: re-ranks the images of each row.
     Rows(ProductKernel<S>),
 }
@@ -47,12 +47,12 @@ impl<S: Scalar> Product<S> {
     ) -> CoreResult<Self> {
         match cut {
             Some(0) => Ok(Product::Rows(ProductKernel::new(space, op))),
-            Some(c) => Ok(Product::Split(Bipartite::new_interruptible(
+            Some(c) => Ok(Product::Split(Box::new(Bipartite::new_interruptible(
                 space, op, c, interrupt,
-            )?)),
+            )?))),
             None => match choose_cut(space, op) {
                 Some(c) => match Bipartite::new_interruptible(space, op, c, interrupt) {
-                    Ok(b) => Ok(Product::Split(b)),
+                    Ok(b) => Ok(Product::Split(Box::new(b))),
                     Err(CoreError::Interrupted) => Err(CoreError::Interrupted),
                     // Tables that do not fit: the row kernel needs none.
                     Err(_) => Ok(Product::Rows(ProductKernel::new(space, op))),
