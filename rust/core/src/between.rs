@@ -9,7 +9,7 @@
 //! which is exactly the restriction `P_target X P_source` of the normal-ordered
 //! monomials. Construction refuses terms whose image leaves the target sector.
 
-use crate::build::{build_rows, counts_of, CsrAny, RowVisitor, SparseRows};
+use crate::build::{apply_rows, build_rows, counts_of, CsrAny, RowVisitor, SparseRows};
 use crate::error::{CoreError, CoreResult};
 use crate::parallel::{Interrupt, Runner};
 use crate::scalar::Scalar;
@@ -348,21 +348,7 @@ pub fn apply_many<S: Scalar>(
             y.len()
         )));
     }
-    let mut rows_out: Vec<&mut [S]> = y.chunks_mut(k).collect();
-    runner.for_row_chunks(&mut rows_out, interrupt, |first, out| {
-        let mut i = 0usize;
-        op.for_each_row(source, target, first, out.len(), |entries| {
-            let yi = &mut out[i];
-            yi.fill(S::ZERO);
-            for &(col, c) in entries {
-                let xs = &x[col as usize * k..][..k];
-                for (yj, &xj) in yi.iter_mut().zip(xs) {
-                    *yj += c * xj;
-                }
-            }
-            i += 1;
-        })
-    })
+    apply_rows(&Listing { source, target, op }, x, y, k, runner, interrupt)
 }
 
 /// `(nnz, standard error, exact, largest counted row)` of the matrix: every row when

@@ -222,6 +222,38 @@ impl<S: Scalar> SparseRows<S> for OnSpace<'_, Product<S>> {
     }
 }
 
+/// `Y = A X` for `k` vectors stored row-major (`X[c, j]` at `x[c * k + j]`), from the
+/// rows of `op` (lengths checked by the caller): each row's entries are listed once
+/// and used for all `k` vectors; each output row is written by one thread, in column
+/// order, so results do not depend on the thread count.
+///
+/// # Errors
+/// [`CoreError::Interrupted`] when `interrupt` fires; the errors of the listing.
+pub fn apply_rows<S: Scalar>(
+    op: &impl SparseRows<S>,
+    x: &[S],
+    y: &mut [S],
+    k: usize,
+    runner: &Runner,
+    interrupt: &dyn Interrupt,
+) -> CoreResult<()> {
+    let mut rows_out: Vec<&mut [S]> = y.chunks_mut(k).collect();
+    runner.for_row_chunks(&mut rows_out, interrupt, |first, out| {
+        let mut i = 0usize;
+        op.rows(first, out.len(), &mut |_, entries| {
+            let yi = &mut out[i];
+            yi.fill(S::ZERO);
+            for &(col, c) in entries {
+                let xs = &x[col as usize * k..][..k];
+                for (yj, &xj) in yi.iter_mut().zip(xs) {
+                    *yj += c * xj;
+                }
+            }
+            i += 1;
+        })
+    })
+}
+
 /// Number of stored entries in each row.
 ///
 /// # Errors
