@@ -45,6 +45,8 @@ const MIN_RUN: usize = 6;
 const CHUNK_ELEMENTS: usize = 1 << 15;
 /// Elements of output between two interruption checks.
 const CHECK_ELEMENTS: usize = 1 << 22;
+/// Square roots of the integers below this are looked up.
+const SQRT_TABLE: usize = 1 << 12;
 
 /// Number of residue classes the space's tables use.
 fn residue_count(space: &FockSpace) -> usize {
@@ -379,6 +381,8 @@ pub struct Bipartite<S: Scalar> {
     distinct_changes: bool,
     /// Merged right-only rows of each block (prepared for builds only).
     merged: OnceLock<Option<Vec<MergedRows<S>>>>,
+    /// `sqrt(k)` for `k < SQRT_TABLE`.
+    sqrt: Vec<f64>,
 }
 
 /// The off-diagonal right-only entries of one block, row by row: `(col, val)` at
@@ -721,6 +725,7 @@ impl<S: Scalar> Bipartite<S> {
             chunks,
             distinct_changes,
             merged: OnceLock::new(),
+            sqrt: (0..SQRT_TABLE).map(|k| (k as f64).sqrt()).collect(),
         })
     }
 
@@ -951,7 +956,15 @@ impl<S: Scalar> Bipartite<S> {
     #[inline(always)]
     fn cross_value(&self, e: usize, t: &FactorTable, p: usize) -> S {
         let (coef, al_sq) = self.cx_parts[e];
-        coef.scale((al_sq * t.amp_sq[p]).sqrt())
+        // Products of falling factorials are integers, exact in f64 below 2^53: the
+        // table holds the same correctly rounded square roots, without the latency.
+        let sq = al_sq * t.amp_sq[p];
+        let amp = if sq < SQRT_TABLE as f64 {
+            self.sqrt[sq as usize]
+        } else {
+            sq.sqrt()
+        };
+        coef.scale(amp)
     }
 
     /// Walk the stored entries of rows `first..first + count`: `entry(column, value)`
