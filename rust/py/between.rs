@@ -2,12 +2,12 @@
 //! shape (target.dim, source.dim), built as CSR or applied matrix-free.
 
 use crate::errors::{guarded, PyCoreError};
-use crate::{detached, owned_copy, InBlock, InTerm, InVector, NativeSpace, OwnedVector, Threads};
-use fockmill_core::between::{self, Between, RectAny};
-use fockmill_core::{FockSpace, RawTerm, Scalar};
+use crate::protocol::{Served, Versions};
+use crate::{InBlock, InTerm, InVector, NativeSpace, Threads};
+use fockmill_core::between::{self, Between};
+use fockmill_core::build::CsrAny;
+use fockmill_core::{CoreResult, FockSpace, Interrupt, RawTerm, Runner, Scalar};
 use num_complex::Complex64;
-use numpy::ndarray::Array2;
-use numpy::{IntoPyArray, PyUntypedArrayMethods};
 use pyo3::prelude::*;
 use std::sync::Arc;
 
@@ -78,23 +78,7 @@ impl NativeBetween {
         threads: Option<Threads<'_>>,
         force_wide: bool,
     ) -> PyResult<Bound<'py, PyAny>> {
-        guarded(|| {
-            let (src, dst) = (&self.source, &self.target);
-            match &self.real {
-                Some(op) => rect_to_python(
-                    py,
-                    detached(py, threads, |r, s| {
-                        between::build_csr(src, dst, op, r, s, force_wide)
-                    })?,
-                ),
-                None => rect_to_python(
-                    py,
-                    detached(py, threads, |r, s| {
-                        between::build_csr(src, dst, &self.complex, r, s, force_wide)
-                    })?,
-                ),
-            }
-        })
+        self.versions().build_csr(py, threads, force_wide)
     }
 
     /// y = A x: x of length dim (source), y of length rows (target); complex128 when
@@ -106,28 +90,7 @@ impl NativeBetween {
         x: InVector<'py>,
         threads: Option<Threads<'_>>,
     ) -> PyResult<Bound<'py, PyAny>> {
-        guarded(|| {
-            let (src, dst) = (&self.source, &self.target);
-            let rows = dst.dim() as usize;
-            match (x.to_owned_vec()?, &self.real) {
-                (OwnedVector::Real(x), Some(op)) => {
-                    let y = detached(py, threads, |r, s| {
-                        let mut y = fockmill_core::memory::try_filled(rows, 0.0, "the product vector")?;
-                        between::apply_many(src, dst, op, &x, &mut y, 1, r, s).map(|_| y)
-                    })?;
-                    Ok(y.into_pyarray(py).into_any())
-                }
-                (owned, _) => {
-                    let x = owned.into_complex()?;
-                    let y = detached(py, threads, |r, s| {
-                        let mut y =
-                            fockmill_core::memory::try_filled(rows, Complex64::ZERO, "the product vector")?;
-                        between::apply_many(src, dst, &self.complex, &x, &mut y, 1, r, s).map(|_| y)
-                    })?;
-                    Ok(y.into_pyarray(py).into_any())
-                }
-            }
-        })
+        self.versions().matvec(py, x, threads)
     }
 
     /// Y = A X for a (dim, k) block; the result has shape (rows, k).
@@ -138,44 +101,7 @@ impl NativeBetween {
         x: InBlock<'py>,
         threads: Option<Threads<'_>>,
     ) -> PyResult<Bound<'py, PyAny>> {
-        guarded(|| {
-            let (src, dst) = (&self.source, &self.target);
-            let rows = dst.dim() as usize;
-            let k = match &x {
-                InBlock::Real(a) => a.shape()[1],
-                InBlock::Complex(a) => a.shape()[1],
-            };
-            let len = rows.saturating_mul(k);
-            match (&x, &self.real) {
-                (InBlock::Real(a), Some(op)) => {
-                    let xs = owned_copy(a.len(), a.as_array().iter().copied(), "a copy of the input block")?;
-                    let y = detached(py, threads, |r, s| {
-                        let mut y = fockmill_core::memory::try_filled(len, 0.0, "the product block")?;
-                        between::apply_many(src, dst, op, &xs, &mut y, k, r, s).map(|_| y)
-                    })?;
-                    let arr = Array2::from_shape_vec((rows, k), y).expect("shape checked by the core");
-                    Ok(arr.into_pyarray(py).into_any())
-                }
-                _ => {
-                    let what = "a copy of the input block";
-                    let xs: Vec<Complex64> = match &x {
-                        InBlock::Real(a) => owned_copy(
-                            a.len(),
-                            a.as_array().iter().map(|&v| Complex64::new(v, 0.0)),
-                            what,
-                        )?,
-                        InBlock::Complex(a) => owned_copy(a.len(), a.as_array().iter().copied(), what)?,
-                    };
-                    let y = detached(py, threads, |r, s| {
-                        let mut y =
-                            fockmill_core::memory::try_filled(len, Complex64::ZERO, "the product block")?;
-                        between::apply_many(src, dst, &self.complex, &xs, &mut y, k, r, s).map(|_| y)
-                    })?;
-                    let arr = Array2::from_shape_vec((rows, k), y).expect("shape checked by the core");
-                    Ok(arr.into_pyarray(py).into_any())
-                }
-            }
-        })
+        self.versions().matmat(py, x, threads)
     }
 
     /// (nnz estimate, standard error, exact?, largest row) without building.
@@ -186,37 +112,52 @@ impl NativeBetween {
         samples: usize,
         threads: Option<Threads<'_>>,
     ) -> PyResult<(f64, f64, bool, u64)> {
-        guarded(|| {
-            let (src, dst) = (&self.source, &self.target);
-            match &self.real {
-                Some(op) => detached(py, threads, |r, s| {
-                    between::estimate_nnz(src, dst, op, samples, r, s)
-                }),
-                None => detached(py, threads, |r, s| {
-                    between::estimate_nnz(src, dst, &self.complex, samples, r, s)
-                }),
-            }
-        })
+        self.versions().estimate_nnz(py, samples, threads)
     }
 }
 
-fn rect_to_python<'py, S: Scalar + numpy::Element>(
-    py: Python<'py>,
-    csr: RectAny<S>,
-) -> PyResult<Bound<'py, PyAny>> {
-    let tuple = match csr {
-        RectAny::Narrow(c) => (
-            c.indptr.into_pyarray(py).into_any(),
-            c.indices.into_pyarray(py).into_any(),
-            c.data.into_pyarray(py).into_any(),
-        ),
-        RectAny::Wide(c) => (
-            c.indptr.into_pyarray(py).into_any(),
-            c.indices.into_pyarray(py).into_any(),
-            c.data.into_pyarray(py).into_any(),
-        ),
-    };
-    Ok(tuple.into_pyobject(py)?.into_any())
+/// One version (real or complex) of a `NativeBetween`.
+struct BetweenVersion<'a, S: Scalar> {
+    source: &'a FockSpace,
+    target: &'a FockSpace,
+    op: &'a Between<S>,
+}
+
+impl<S: Scalar> Served<S> for BetweenVersion<'_, S> {
+    fn out_len(&self) -> usize {
+        self.target.dim() as usize
+    }
+    fn apply(&self, x: &[S], y: &mut [S], k: usize, runner: &Runner, stop: &dyn Interrupt) -> CoreResult<()> {
+        between::apply_many(self.source, self.target, self.op, x, y, k, runner, stop)
+    }
+    fn build(&self, runner: &Runner, stop: &dyn Interrupt, force_wide: bool) -> CoreResult<CsrAny<S>> {
+        between::build_csr(self.source, self.target, self.op, runner, stop, force_wide)
+    }
+    fn estimate(
+        &self,
+        samples: usize,
+        runner: &Runner,
+        stop: &dyn Interrupt,
+    ) -> CoreResult<(f64, f64, bool, u64)> {
+        between::estimate_nnz(self.source, self.target, self.op, samples, runner, stop)
+    }
+}
+
+impl NativeBetween {
+    fn version<'a, S: Scalar>(&'a self, op: &'a Between<S>) -> BetweenVersion<'a, S> {
+        BetweenVersion {
+            source: &self.source,
+            target: &self.target,
+            op,
+        }
+    }
+
+    fn versions(&self) -> Versions<BetweenVersion<'_, f64>, BetweenVersion<'_, Complex64>> {
+        Versions {
+            real: self.real.as_ref().map(|op| self.version(op)),
+            complex: self.version(&self.complex),
+        }
+    }
 }
 
 /// Register the classes of this file on the module.

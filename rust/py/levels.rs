@@ -2,7 +2,7 @@
 //! Lanczos solvers on a CSR matrix handed in from Python (`NativeCsr`).
 
 use crate::errors::{guarded, PyCoreError};
-use crate::{detached, NativeOperator, Threads};
+use crate::{protocol, Threads};
 use fockmill_core::build::{build_csr_with, CsrAny, CsrIndex};
 use fockmill_core::lanczos::{self, CsrMap, FockMap, HermitianMap, LanczosOptions};
 use fockmill_core::levels::{self, LevelsOptions, LevelsOutcome};
@@ -96,7 +96,7 @@ pub(crate) fn levels_to_python<'py, S: Scalar + numpy::Element>(
 }
 
 #[allow(clippy::too_many_arguments)]
-fn levels_on_space<S: Scalar>(
+pub(crate) fn levels_on_space<S: Scalar>(
     space: &FockSpace,
     product: &Product<S>,
     stored: bool,
@@ -121,48 +121,6 @@ fn levels_on_space<S: Scalar>(
         CsrAny::Narrow(c) => levels::lowest_levels(&CsrMap::new(c), k, start, opts, runner, stop),
         CsrAny::Wide(c) => levels::lowest_levels(&CsrMap::new(c), k, start, opts, runner, stop),
     }
-}
-
-/// `NativeOperator.lanczos_levels`: see the stub for the contract.
-#[allow(clippy::too_many_arguments)]
-pub fn operator_levels<'py>(
-    this: &NativeOperator,
-    py: Python<'py>,
-    k: usize,
-    tol: f64,
-    max_products: usize,
-    seed: u64,
-    start: Option<InStart<'py>>,
-    threads: Option<Threads<'_>>,
-    stored: bool,
-    basis: usize,
-) -> PyResult<LevelsTuple<'py>> {
-    guarded(|| {
-        let opts = LevelsOptions {
-            tol,
-            max_products,
-            seed,
-            basis,
-        };
-        let space = &this.space;
-        let dim = space.dim() as usize;
-        match &this.real {
-            Some(op) => {
-                let start = start.as_ref().map(owned_start::<f64>).transpose()?;
-                let out = detached(py, threads, |r, s| {
-                    levels_on_space(space, this.real_product(op, s)?, stored, k, start, &opts, r, s)
-                })?;
-                levels_to_python(py, dim, out)
-            }
-            None => {
-                let start = start.as_ref().map(owned_start::<Complex64>).transpose()?;
-                let out = detached(py, threads, |r, s| {
-                    levels_on_space(space, this.complex_product(s)?, stored, k, start, &opts, r, s)
-                })?;
-                levels_to_python(py, dim, out)
-            }
-        }
-    })
 }
 
 /// Column indices or row pointers handed in from Python.
@@ -252,25 +210,32 @@ fn held_from<S: Scalar>(
     }
 }
 
-fn start_for<S: FromInput>(start: &Option<InStart<'_>>) -> PyResult<Option<Vec<S>>> {
-    start.as_ref().map(owned_start::<S>).transpose()
-}
-
-type GroundTuple<'py> = (f64, Bound<'py, PyAny>, f64, usize, usize, usize, bool);
-
-fn ground_to_python<'py, S: Scalar + numpy::Element>(
-    py: Python<'py>,
-    out: lanczos::LanczosOutcome<S>,
-) -> GroundTuple<'py> {
-    (
-        out.energy,
-        out.vector.into_pyarray(py).into_any(),
-        out.residual,
-        out.steps,
-        out.products,
-        out.restarts,
-        out.converged,
-    )
+/// A held matrix serves the Lanczos solvers of the protocol (always as stored).
+impl<S: Scalar, I: CsrIndex> protocol::Solved<S> for CsrMap<S, I> {
+    fn dim(&self) -> usize {
+        HermitianMap::dim(self)
+    }
+    fn ground(
+        &self,
+        _stored: bool,
+        start: Option<Vec<S>>,
+        opts: &LanczosOptions,
+        runner: &Runner,
+        stop: &dyn Interrupt,
+    ) -> CoreResult<lanczos::LanczosOutcome<S>> {
+        lanczos::ground_state(self, start, opts, runner, stop)
+    }
+    fn levels(
+        &self,
+        _stored: bool,
+        k: usize,
+        start: Option<Vec<S>>,
+        opts: &LevelsOptions,
+        runner: &Runner,
+        stop: &dyn Interrupt,
+    ) -> CoreResult<LevelsOutcome<S>> {
+        levels::lowest_levels(self, k, start, opts, runner, stop)
+    }
 }
 
 #[pymethods]
@@ -301,7 +266,7 @@ impl NativeCsr {
     /// Rows (= columns).
     #[getter]
     fn dim(&self) -> usize {
-        with_map!(&self.held, m => m.dim())
+        with_map!(&self.held, m => HermitianMap::dim(m))
     }
 
     /// Stored entries.
@@ -329,7 +294,7 @@ impl NativeCsr {
         seed: u64,
         start: Option<InStart<'py>>,
         threads: Option<Threads<'_>>,
-    ) -> PyResult<GroundTuple<'py>> {
+    ) -> PyResult<crate::LanczosTuple<'py>> {
         guarded(|| {
             let opts = LanczosOptions {
                 tol,
@@ -337,18 +302,7 @@ impl NativeCsr {
                 max_restarts,
                 seed,
             };
-            fn run<'py, S: FromInput + numpy::Element, A: HermitianMap<S> + Sync>(
-                py: Python<'py>,
-                map: &A,
-                start: &Option<InStart<'py>>,
-                opts: &LanczosOptions,
-                threads: Option<Threads<'_>>,
-            ) -> PyResult<GroundTuple<'py>> {
-                let start = start_for::<S>(start)?;
-                let out = detached(py, threads, |r, s| lanczos::ground_state(map, start, opts, r, s))?;
-                Ok(ground_to_python(py, out))
-            }
-            with_map!(&self.held, m => run(py, m, &start, &opts, threads))
+            with_map!(&self.held, m => protocol::ground_on(py, m, &opts, start.as_ref(), threads))
         })
     }
 
@@ -374,21 +328,7 @@ impl NativeCsr {
                 seed,
                 basis,
             };
-            fn run<'py, S: FromInput + numpy::Element, A: HermitianMap<S> + Sync>(
-                py: Python<'py>,
-                map: &A,
-                k: usize,
-                start: &Option<InStart<'py>>,
-                opts: &LevelsOptions,
-                threads: Option<Threads<'_>>,
-            ) -> PyResult<LevelsTuple<'py>> {
-                let start = start_for::<S>(start)?;
-                let out = detached(py, threads, |r, s| {
-                    levels::lowest_levels(map, k, start, opts, r, s)
-                })?;
-                levels_to_python(py, map.dim(), out)
-            }
-            with_map!(&self.held, m => run(py, m, k, &start, &opts, threads))
+            with_map!(&self.held, m => protocol::levels_on(py, m, k, &opts, start.as_ref(), threads))
         })
     }
 }

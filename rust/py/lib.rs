@@ -7,12 +7,14 @@ mod correlations;
 mod errors;
 mod interrupt;
 mod levels;
+mod protocol;
 mod symmetry;
 
 use errors::{guarded, PyCoreError};
 use fockmill_core::build::{build_csr_with, CsrAny};
 use fockmill_core::estimate::estimate_nnz;
 use fockmill_core::lanczos::{self, FockMap, LanczosOptions};
+use fockmill_core::levels::{LevelsOptions, LevelsOutcome};
 use fockmill_core::matvec::Product;
 use fockmill_core::{
     observe, CoreError, CoreResult, FockSpace, Interrupt, Operator, RawTerm, Runner, Scalar,
@@ -311,15 +313,6 @@ fn product_in<'a, S: Scalar>(
     Ok(cell.get().expect("set above"))
 }
 
-impl NativeOperator {
-    fn real_product(&self, op: &Operator<f64>, stop: &dyn Interrupt) -> CoreResult<&Product<f64>> {
-        product_in(&self.real_product, &self.space, op, self.cut, stop)
-    }
-    fn complex_product(&self, stop: &dyn Interrupt) -> CoreResult<&Product<Complex64>> {
-        product_in(&self.complex_product, &self.space, &self.complex, self.cut, stop)
-    }
-}
-
 #[pymethods]
 impl NativeOperator {
     #[new]
@@ -361,13 +354,10 @@ impl NativeOperator {
     /// The cut of the product kernel (0: the row kernel; k: left modes 0..k).
     #[getter]
     fn cut(&self, py: Python<'_>) -> PyResult<usize> {
-        guarded(|| match &self.real {
-            Some(op) => Ok(detached(py, None, |_, s| {
-                self.real_product(op, s).map(|p| p.cut())
-            })?),
-            None => Ok(detached(py, None, |_, s| {
-                self.complex_product(s).map(|p| p.cut())
-            })?),
+        let v = self.versions();
+        guarded(|| match &v.real {
+            Some(real) => Ok(detached(py, None, |_, s| real.product(s).map(|p| p.cut()))?),
+            None => Ok(detached(py, None, |_, s| v.complex.product(s).map(|p| p.cut()))?),
         })
     }
 
@@ -397,20 +387,7 @@ impl NativeOperator {
         force_wide: bool,
     ) -> PyResult<Bound<'py, PyAny>> {
         // The kept product kernel writes the rows (built once, shared with products).
-        guarded(|| match &self.real {
-            Some(op) => csr_to_python(
-                py,
-                detached(py, threads, |r, s| {
-                    build_csr_with(&self.space, self.real_product(op, s)?, r, s, force_wide)
-                })?,
-            ),
-            None => csr_to_python(
-                py,
-                detached(py, threads, |r, s| {
-                    build_csr_with(&self.space, self.complex_product(s)?, r, s, force_wide)
-                })?,
-            ),
-        })
+        self.versions().build_csr(py, threads, force_wide)
     }
 
     /// y = H x for a float64 or complex128 vector; the result is complex128 when either is.
@@ -421,32 +398,7 @@ impl NativeOperator {
         x: InVector<'py>,
         threads: Option<Threads<'_>>,
     ) -> PyResult<Bound<'py, PyAny>> {
-        guarded(|| {
-            let space = &self.space;
-            match (x.to_owned_vec()?, &self.real) {
-                (OwnedVector::Real(x), Some(op)) => {
-                    let y = detached(py, threads, |r, s| {
-                        let product = self.real_product(op, s)?;
-                        let mut y = fockmill_core::memory::try_filled(x.len(), 0.0, "the product vector")?;
-                        product.apply(space, &x, &mut y, r, s).map(|_| y)
-                    })?;
-                    Ok(y.into_pyarray(py).into_any())
-                }
-                (owned, _) => {
-                    let x: Vec<Complex64> = owned.into_complex()?;
-                    let y = detached(py, threads, |r, s| {
-                        let product = self.complex_product(s)?;
-                        let mut y = fockmill_core::memory::try_filled(
-                            x.len(),
-                            Complex64::ZERO,
-                            "the product vector",
-                        )?;
-                        product.apply(space, &x, &mut y, r, s).map(|_| y)
-                    })?;
-                    Ok(y.into_pyarray(py).into_any())
-                }
-            }
-        })
+        self.versions().matvec(py, x, threads)
     }
 
     /// Y = H X for a (dim, k) block of vectors.
@@ -457,46 +409,7 @@ impl NativeOperator {
         x: InBlock<'py>,
         threads: Option<Threads<'_>>,
     ) -> PyResult<Bound<'py, PyAny>> {
-        guarded(|| {
-            let space = &self.space;
-            let (n, k) = match &x {
-                InBlock::Real(a) => (a.shape()[0], a.shape()[1]),
-                InBlock::Complex(a) => (a.shape()[0], a.shape()[1]),
-            };
-            match (&x, &self.real) {
-                (InBlock::Real(a), Some(op)) => {
-                    let xs: Vec<f64> =
-                        owned_copy(n * k, a.as_array().iter().copied(), "a copy of the input block")?;
-                    let y = detached(py, threads, |r, s| {
-                        let product = self.real_product(op, s)?;
-                        let mut y = fockmill_core::memory::try_filled(xs.len(), 0.0, "the product block")?;
-                        product.apply_many(space, &xs, &mut y, k, r, s).map(|_| y)
-                    })?;
-                    let arr = Array2::from_shape_vec((n, k), y).expect("shape kept");
-                    Ok(arr.into_pyarray(py).into_any())
-                }
-                _ => {
-                    let what = "a copy of the input block";
-                    let xs: Vec<Complex64> = match &x {
-                        InBlock::Real(a) => {
-                            owned_copy(n * k, a.as_array().iter().map(|&v| Complex64::new(v, 0.0)), what)?
-                        }
-                        InBlock::Complex(a) => owned_copy(n * k, a.as_array().iter().copied(), what)?,
-                    };
-                    let y = detached(py, threads, |r, s| {
-                        let product = self.complex_product(s)?;
-                        let mut y = fockmill_core::memory::try_filled(
-                            xs.len(),
-                            Complex64::ZERO,
-                            "the product block",
-                        )?;
-                        product.apply_many(space, &xs, &mut y, k, r, s).map(|_| y)
-                    })?;
-                    let arr = Array2::from_shape_vec((n, k), y).expect("shape kept");
-                    Ok(arr.into_pyarray(py).into_any())
-                }
-            }
-        })
+        self.versions().matmat(py, x, threads)
     }
 
     /// (nnz estimate, standard error, exact?, largest row) without building.
@@ -507,15 +420,7 @@ impl NativeOperator {
         samples: usize,
         threads: Option<Threads<'_>>,
     ) -> PyResult<(f64, f64, bool, u64)> {
-        guarded(|| {
-            let est = match &self.real {
-                Some(op) => detached(py, threads, |r, s| estimate_nnz(&self.space, op, samples, r, s))?,
-                None => detached(py, threads, |r, s| {
-                    estimate_nnz(&self.space, &self.complex, samples, r, s)
-                })?,
-            };
-            Ok((est.nnz, est.std_error, est.exact, est.max_row))
-        })
+        self.versions().estimate_nnz(py, samples, threads)
     }
 
     /// Lowest `k` levels by thick-restart Lanczos with locking and a deflated re-check
@@ -536,18 +441,8 @@ impl NativeOperator {
         stored: bool,
         basis: usize,
     ) -> PyResult<levels::LevelsTuple<'py>> {
-        levels::operator_levels(
-            self,
-            py,
-            k,
-            tol,
-            max_products,
-            seed,
-            start,
-            threads,
-            stored,
-            basis,
-        )
+        let v = self.versions();
+        v.lanczos_levels(py, k, tol, max_products, seed, start, threads, stored, basis)
     }
 
     /// Lanczos ground state keeping four vectors, on the matrix-free product or (with
@@ -566,40 +461,101 @@ impl NativeOperator {
         threads: Option<Threads<'_>>,
         stored: bool,
     ) -> PyResult<LanczosTuple<'py>> {
-        guarded(|| {
-            let opts = LanczosOptions {
-                tol,
-                max_steps,
-                max_restarts,
-                seed,
-            };
-            let space = &self.space;
-            let start = start.map(|s| s.to_owned_vec()).transpose()?;
-            match &self.real {
-                Some(op) => {
-                    let start: Option<Vec<f64>> = match start {
-                        None => None,
-                        Some(OwnedVector::Real(v)) => Some(v),
-                        Some(OwnedVector::Complex(v)) => Some(owned_copy(
-                            v.len(),
-                            v.iter().map(|z| z.re),
-                            "a real copy of the start",
-                        )?),
-                    };
-                    let out = detached(py, threads, |r, s| {
-                        lanczos_on(space, self.real_product(op, s)?, stored, start, &opts, r, s)
-                    })?;
-                    Ok(outcome_to_python(py, out))
-                }
-                None => {
-                    let start: Option<Vec<Complex64>> = start.map(OwnedVector::into_complex).transpose()?;
-                    let out = detached(py, threads, |r, s| {
-                        lanczos_on(space, self.complex_product(s)?, stored, start, &opts, r, s)
-                    })?;
-                    Ok(outcome_to_python(py, out))
-                }
-            }
-        })
+        let v = self.versions();
+        v.lanczos_ground(py, tol, max_steps, max_restarts, seed, start, threads, stored)
+    }
+}
+
+/// One version (real or complex) of a `NativeOperator`: its terms and its kept kernel.
+struct OperatorVersion<'a, S: Scalar> {
+    space: &'a FockSpace,
+    op: &'a Operator<S>,
+    cut: Option<usize>,
+    cell: &'a OnceLock<Product<S>>,
+}
+
+impl<S: Scalar> OperatorVersion<'_, S> {
+    fn product(&self, stop: &dyn Interrupt) -> CoreResult<&Product<S>> {
+        product_in(self.cell, self.space, self.op, self.cut, stop)
+    }
+}
+
+impl<S: Scalar> protocol::Served<S> for OperatorVersion<'_, S> {
+    fn out_len(&self) -> usize {
+        self.space.dim() as usize
+    }
+    fn apply(&self, x: &[S], y: &mut [S], k: usize, runner: &Runner, stop: &dyn Interrupt) -> CoreResult<()> {
+        self.product(stop)?.apply_many(self.space, x, y, k, runner, stop)
+    }
+    fn build(&self, runner: &Runner, stop: &dyn Interrupt, force_wide: bool) -> CoreResult<CsrAny<S>> {
+        build_csr_with(self.space, self.product(stop)?, runner, stop, force_wide)
+    }
+    fn estimate(
+        &self,
+        samples: usize,
+        runner: &Runner,
+        stop: &dyn Interrupt,
+    ) -> CoreResult<(f64, f64, bool, u64)> {
+        let est = estimate_nnz(self.space, self.op, samples, runner, stop)?;
+        Ok((est.nnz, est.std_error, est.exact, est.max_row))
+    }
+}
+
+impl<S: Scalar> protocol::Solved<S> for OperatorVersion<'_, S> {
+    fn dim(&self) -> usize {
+        self.space.dim() as usize
+    }
+    fn ground(
+        &self,
+        stored: bool,
+        start: Option<Vec<S>>,
+        opts: &LanczosOptions,
+        runner: &Runner,
+        stop: &dyn Interrupt,
+    ) -> CoreResult<lanczos::LanczosOutcome<S>> {
+        lanczos_on(self.space, self.product(stop)?, stored, start, opts, runner, stop)
+    }
+    fn levels(
+        &self,
+        stored: bool,
+        k: usize,
+        start: Option<Vec<S>>,
+        opts: &LevelsOptions,
+        runner: &Runner,
+        stop: &dyn Interrupt,
+    ) -> CoreResult<LevelsOutcome<S>> {
+        levels::levels_on_space(
+            self.space,
+            self.product(stop)?,
+            stored,
+            k,
+            start,
+            opts,
+            runner,
+            stop,
+        )
+    }
+}
+
+impl NativeOperator {
+    fn version<'a, S: Scalar>(
+        &'a self,
+        op: &'a Operator<S>,
+        cell: &'a OnceLock<Product<S>>,
+    ) -> OperatorVersion<'a, S> {
+        OperatorVersion {
+            space: &self.space,
+            op,
+            cut: self.cut,
+            cell,
+        }
+    }
+
+    fn versions(&self) -> protocol::Versions<OperatorVersion<'_, f64>, OperatorVersion<'_, Complex64>> {
+        protocol::Versions {
+            real: self.real.as_ref().map(|op| self.version(op, &self.real_product)),
+            complex: self.version(&self.complex, &self.complex_product),
+        }
     }
 }
 

@@ -3,18 +3,13 @@
 //! and Lanczos methods as `NativeOperator`).
 
 use crate::errors::{guarded, PyCoreError};
-use crate::levels::{levels_to_python, owned_start, InStart, LevelsTuple};
-use crate::{
-    csr_to_python, detached, outcome_to_python, InBlock, InTerm, InVector, LanczosTuple, NativeSpace,
-    OwnedVector, Threads,
-};
-use fockmill_core::lanczos::LanczosOptions;
-use fockmill_core::levels::LevelsOptions;
+use crate::levels::{InStart, LevelsTuple};
+use crate::protocol::{self, SectorVersion};
+use crate::{detached, InBlock, InTerm, InVector, LanczosTuple, NativeSpace, OwnedVector, Threads};
 use fockmill_core::symmetry::{Generator, SectorOperator, SymmetricSpace};
 use fockmill_core::{Operator, RawTerm};
 use num_complex::Complex64;
-use numpy::ndarray::Array2;
-use numpy::{IntoPyArray, PyArray1, PyUntypedArrayMethods};
+use numpy::{IntoPyArray, PyArray1};
 use pyo3::prelude::*;
 use std::sync::Arc;
 
@@ -206,21 +201,7 @@ impl NativeSymmetricOperator {
         threads: Option<Threads<'_>>,
         force_wide: bool,
     ) -> PyResult<Bound<'py, PyAny>> {
-        guarded(|| {
-            let sector = &self.sector;
-            match &self.real {
-                Some(op) => csr_to_python(
-                    py,
-                    detached(py, threads, |r, s| op.build_csr(sector, r, s, force_wide))?,
-                ),
-                None => csr_to_python(
-                    py,
-                    detached(py, threads, |r, s| {
-                        self.complex.build_csr(sector, r, s, force_wide)
-                    })?,
-                ),
-            }
-        })
+        self.versions().build_csr(py, threads, force_wide)
     }
 
     /// y = H x on the sector; complex128 when x or the operator is complex.
@@ -231,27 +212,7 @@ impl NativeSymmetricOperator {
         x: InVector<'py>,
         threads: Option<Threads<'_>>,
     ) -> PyResult<Bound<'py, PyAny>> {
-        guarded(|| {
-            let sector = &self.sector;
-            match (x.to_owned_vec()?, &self.real) {
-                (OwnedVector::Real(x), Some(op)) => {
-                    let y = detached(py, threads, |r, s| {
-                        let mut y = fockmill_core::memory::try_filled(x.len(), 0.0, "the product")?;
-                        op.apply_many(sector, &x, &mut y, 1, r, s).map(|_| y)
-                    })?;
-                    Ok(y.into_pyarray(py).into_any())
-                }
-                (owned, _) => {
-                    let x = complex_of(owned);
-                    let y = detached(py, threads, |r, s| {
-                        let mut y =
-                            fockmill_core::memory::try_filled(x.len(), Complex64::ZERO, "the product")?;
-                        self.complex.apply_many(sector, &x, &mut y, 1, r, s).map(|_| y)
-                    })?;
-                    Ok(y.into_pyarray(py).into_any())
-                }
-            }
-        })
+        self.versions().matvec(py, x, threads)
     }
 
     /// Y = H X for a (dim, k) block of vectors.
@@ -262,37 +223,7 @@ impl NativeSymmetricOperator {
         x: InBlock<'py>,
         threads: Option<Threads<'_>>,
     ) -> PyResult<Bound<'py, PyAny>> {
-        guarded(|| {
-            let sector = &self.sector;
-            let (n, k) = match &x {
-                InBlock::Real(a) => (a.shape()[0], a.shape()[1]),
-                InBlock::Complex(a) => (a.shape()[0], a.shape()[1]),
-            };
-            match (&x, &self.real) {
-                (InBlock::Real(a), Some(op)) => {
-                    let xs: Vec<f64> = a.as_array().iter().copied().collect();
-                    let y = detached(py, threads, |r, s| {
-                        let mut y = fockmill_core::memory::try_filled(xs.len(), 0.0, "the product")?;
-                        op.apply_many(sector, &xs, &mut y, k, r, s).map(|_| y)
-                    })?;
-                    let arr = Array2::from_shape_vec((n, k), y).expect("shape kept");
-                    Ok(arr.into_pyarray(py).into_any())
-                }
-                _ => {
-                    let xs: Vec<Complex64> = match &x {
-                        InBlock::Real(a) => a.as_array().iter().map(|&v| Complex64::new(v, 0.0)).collect(),
-                        InBlock::Complex(a) => a.as_array().iter().copied().collect(),
-                    };
-                    let y = detached(py, threads, |r, s| {
-                        let mut y =
-                            fockmill_core::memory::try_filled(xs.len(), Complex64::ZERO, "the product")?;
-                        self.complex.apply_many(sector, &xs, &mut y, k, r, s).map(|_| y)
-                    })?;
-                    let arr = Array2::from_shape_vec((n, k), y).expect("shape kept");
-                    Ok(arr.into_pyarray(py).into_any())
-                }
-            }
-        })
+        self.versions().matmat(py, x, threads)
     }
 
     /// (nnz estimate, standard error, exact?, largest row) without building.
@@ -303,15 +234,7 @@ impl NativeSymmetricOperator {
         samples: usize,
         threads: Option<Threads<'_>>,
     ) -> PyResult<(f64, f64, bool, u64)> {
-        guarded(|| {
-            let sector = &self.sector;
-            match &self.real {
-                Some(op) => detached(py, threads, |r, s| op.estimate_nnz(sector, samples, r, s)),
-                None => detached(py, threads, |r, s| {
-                    self.complex.estimate_nnz(sector, samples, r, s)
-                }),
-            }
-        })
+        self.versions().estimate_nnz(py, samples, threads)
     }
 
     /// Lanczos ground state on the sector, matrix-free or (with `stored`) on a CSR
@@ -330,36 +253,8 @@ impl NativeSymmetricOperator {
         threads: Option<Threads<'_>>,
         stored: bool,
     ) -> PyResult<LanczosTuple<'py>> {
-        guarded(|| {
-            let opts = LanczosOptions {
-                tol,
-                max_steps,
-                max_restarts,
-                seed,
-            };
-            let sector = &self.sector;
-            let start = start.map(|s| s.to_owned_vec()).transpose()?;
-            match &self.real {
-                Some(op) => {
-                    let start: Option<Vec<f64>> = match start {
-                        None => None,
-                        Some(OwnedVector::Real(v)) => Some(v),
-                        Some(OwnedVector::Complex(v)) => Some(v.iter().map(|z| z.re).collect()),
-                    };
-                    let out = detached(py, threads, |r, s| {
-                        op.lanczos_ground(sector, stored, start, &opts, r, s)
-                    })?;
-                    Ok(outcome_to_python(py, out))
-                }
-                None => {
-                    let start = start.map(complex_of);
-                    let out = detached(py, threads, |r, s| {
-                        self.complex.lanczos_ground(sector, stored, start, &opts, r, s)
-                    })?;
-                    Ok(outcome_to_python(py, out))
-                }
-            }
-        })
+        let v = self.versions();
+        v.lanczos_ground(py, tol, max_steps, max_restarts, seed, start, threads, stored)
     }
 
     /// Lowest `k` levels on the sector (as `NativeOperator.lanczos_levels`):
@@ -378,32 +273,14 @@ impl NativeSymmetricOperator {
         stored: bool,
         basis: usize,
     ) -> PyResult<LevelsTuple<'py>> {
-        guarded(|| {
-            let opts = LevelsOptions {
-                tol,
-                max_products,
-                seed,
-                basis,
-            };
-            let sector = &self.sector;
-            let dim = sector.dim() as usize;
-            match &self.real {
-                Some(op) => {
-                    let start = start.as_ref().map(owned_start::<f64>).transpose()?;
-                    let out = detached(py, threads, |r, s| {
-                        op.lowest_levels(sector, stored, k, start, &opts, r, s)
-                    })?;
-                    levels_to_python(py, dim, out)
-                }
-                None => {
-                    let start = start.as_ref().map(owned_start::<Complex64>).transpose()?;
-                    let out = detached(py, threads, |r, s| {
-                        self.complex.lowest_levels(sector, stored, k, start, &opts, r, s)
-                    })?;
-                    levels_to_python(py, dim, out)
-                }
-            }
-        })
+        let v = self.versions();
+        v.lanczos_levels(py, k, tol, max_products, seed, start, threads, stored, basis)
+    }
+}
+
+impl NativeSymmetricOperator {
+    fn versions(&self) -> protocol::Versions<SectorVersion<'_, f64>, SectorVersion<'_, Complex64>> {
+        protocol::sector_versions(&self.sector, self.real.as_ref(), &self.complex)
     }
 }
 

@@ -9,9 +9,9 @@
 //! which is exactly the restriction `P_target X P_source` of the normal-ordered
 //! monomials. Construction refuses terms whose image leaves the target sector.
 
+use crate::build::{apply_rows, build_rows, counts_of, CsrAny, RowVisitor, SparseRows};
 use crate::error::{CoreError, CoreResult};
-use crate::memory::{try_filled, try_with_capacity};
-use crate::parallel::{Interrupt, Runner, BLOCKS_PER_CHECK, BLOCK_ROWS};
+use crate::parallel::{Interrupt, Runner};
 use crate::scalar::Scalar;
 use crate::space::{Constraint, FockSpace, MAX_CUTOFF};
 use crate::terms::{format_monomial, Monomial, RawTerm};
@@ -254,48 +254,6 @@ impl<S: Scalar> Between<S> {
     }
 }
 
-/// A rectangular CSR matrix: `rows × cols`, sorted columns, no duplicates or zeros.
-#[derive(Debug, Clone, PartialEq)]
-pub struct RectCsr<S, I> {
-    /// Number of rows (the target's dimension).
-    pub rows: u64,
-    /// Number of columns (the source's dimension).
-    pub cols: u64,
-    /// Row pointers, length `rows + 1`.
-    pub indptr: Vec<I>,
-    /// Column indices.
-    pub indices: Vec<I>,
-    /// Values.
-    pub data: Vec<S>,
-}
-
-/// A rectangular CSR matrix with 32-bit indices when they fit, else 64-bit.
-#[derive(Debug, Clone, PartialEq)]
-pub enum RectAny<S> {
-    /// `int32` indices.
-    Narrow(RectCsr<S, i32>),
-    /// `int64` indices.
-    Wide(RectCsr<S, i64>),
-}
-
-/// Index types of [`RectCsr`].
-pub trait RectIndex: Copy + Send + Sync + Default + 'static {
-    /// Convert a value known to fit.
-    fn from_u64(v: u64) -> Self;
-}
-
-impl RectIndex for i32 {
-    fn from_u64(v: u64) -> Self {
-        v as i32
-    }
-}
-
-impl RectIndex for i64 {
-    fn from_u64(v: u64) -> Self {
-        v as i64
-    }
-}
-
 fn check_dims(source: &FockSpace, target: &FockSpace) -> CoreResult<()> {
     if source.modes() != target.modes() {
         return Err(CoreError::InvalidSpace(format!(
@@ -308,6 +266,27 @@ fn check_dims(source: &FockSpace, target: &FockSpace) -> CoreResult<()> {
     Ok(())
 }
 
+/// The operator's rows as the two-pass build lists them.
+struct Listing<'a, S: Scalar> {
+    source: &'a FockSpace,
+    target: &'a FockSpace,
+    op: &'a Between<S>,
+}
+
+impl<S: Scalar> SparseRows<S> for Listing<'_, S> {
+    fn shape(&self) -> (u64, u64) {
+        (self.target.dim(), self.source.dim())
+    }
+    fn rows(&self, first: u64, count: usize, visit: &mut RowVisitor<S>) -> CoreResult<()> {
+        let mut row = first;
+        self.op
+            .for_each_row(self.source, self.target, first, count, |entries| {
+                visit(row, entries);
+                row += 1;
+            })
+    }
+}
+
 /// Stored entries of each target row.
 fn row_counts<S: Scalar>(
     source: &FockSpace,
@@ -316,18 +295,11 @@ fn row_counts<S: Scalar>(
     runner: &Runner,
     interrupt: &dyn Interrupt,
 ) -> CoreResult<Vec<u64>> {
-    let mut counts = try_filled(target.dim() as usize, 0u64, "row counts of the sparse matrix")?;
-    runner.for_row_chunks(&mut counts, interrupt, |first, out| {
-        let mut k = 0usize;
-        op.for_each_row(source, target, first, out.len(), |entries| {
-            out[k] = entries.len() as u64;
-            k += 1;
-        })
-    })?;
-    Ok(counts)
+    counts_of(&Listing { source, target, op }, runner, interrupt)
 }
 
-/// Build the `(target.dim, source.dim)` CSR matrix of `op` in two passes (count, fill).
+/// Build the `(target.dim, source.dim)` CSR matrix of `op` in two passes (count, fill):
+/// its `dim` is the number of rows, `target.dim`.
 ///
 /// Indices are `i32` when both dimensions and the number of entries fit (unless
 /// `force_wide`), else `i64`.
@@ -342,95 +314,9 @@ pub fn build_csr<S: Scalar>(
     runner: &Runner,
     interrupt: &dyn Interrupt,
     force_wide: bool,
-) -> CoreResult<RectAny<S>> {
+) -> CoreResult<CsrAny<S>> {
     check_dims(source, target)?;
-    let mut indptr = row_counts(source, target, op, runner, interrupt)?;
-    let mut acc = 0u64;
-    for c in indptr.iter_mut() {
-        let n = *c;
-        *c = acc;
-        acc += n;
-    }
-    indptr.try_reserve_exact(1).map_err(|_| CoreError::TooLarge {
-        what: "row pointers of the sparse matrix (entries)".into(),
-        requested: target.dim() as u128 + 1,
-        limit: target.dim() as u128,
-    })?;
-    indptr.push(acc);
-    let narrow = !force_wide
-        && acc <= i32::MAX as u64
-        && target.dim() <= i32::MAX as u64
-        && source.dim() <= i32::MAX as u64;
-    if narrow {
-        Ok(RectAny::Narrow(fill::<S, i32>(
-            source, target, op, runner, interrupt, indptr,
-        )?))
-    } else {
-        Ok(RectAny::Wide(fill::<S, i64>(
-            source, target, op, runner, interrupt, indptr,
-        )?))
-    }
-}
-
-fn fill<S: Scalar, I: RectIndex>(
-    source: &FockSpace,
-    target: &FockSpace,
-    op: &Between<S>,
-    runner: &Runner,
-    interrupt: &dyn Interrupt,
-    indptr: Vec<u64>,
-) -> CoreResult<RectCsr<S, I>> {
-    let rows = target.dim();
-    let nnz = indptr[rows as usize] as usize;
-    let mut indices = try_filled(nnz, I::default(), "column indices of the sparse matrix")?;
-    let mut data = try_filled(nnz, S::ZERO, "values of the sparse matrix")?;
-    {
-        let blocks = rows.div_ceil(BLOCK_ROWS) as usize;
-        let mut pieces = Vec::with_capacity(blocks);
-        let mut rest_idx: &mut [I] = &mut indices;
-        let mut rest_val: &mut [S] = &mut data;
-        for b in 0..blocks {
-            let first = b as u64 * BLOCK_ROWS;
-            let last = (first + BLOCK_ROWS).min(rows);
-            let len = (indptr[last as usize] - indptr[first as usize]) as usize;
-            let (idx, tail_idx) = rest_idx.split_at_mut(len);
-            let (val, tail_val) = rest_val.split_at_mut(len);
-            rest_idx = tail_idx;
-            rest_val = tail_val;
-            pieces.push((first, last - first, idx, val));
-        }
-        let mut pieces = pieces.into_iter();
-        loop {
-            let group: Vec<_> = pieces.by_ref().take(BLOCKS_PER_CHECK).collect();
-            if group.is_empty() {
-                break;
-            }
-            runner.install(|| {
-                group.into_par_iter().try_for_each(|(first, n, idx, val)| {
-                    let mut pos = 0usize;
-                    op.for_each_row(source, target, first, n as usize, |entries| {
-                        for &(col, v) in entries {
-                            idx[pos] = I::from_u64(col);
-                            val[pos] = v;
-                            pos += 1;
-                        }
-                    })
-                })
-            })?;
-            if interrupt.requested() {
-                return Err(CoreError::Interrupted);
-            }
-        }
-    }
-    let mut out_ptr = try_with_capacity(indptr.len(), "row pointers of the sparse matrix")?;
-    out_ptr.extend(indptr.iter().map(|&p| I::from_u64(p)));
-    Ok(RectCsr {
-        rows,
-        cols: source.dim(),
-        indptr: out_ptr,
-        indices,
-        data,
-    })
+    build_rows(&Listing { source, target, op }, runner, interrupt, force_wide)
 }
 
 /// `Y = A X` for `k` source vectors stored row-major (`X[c, j]` at `x[c * k + j]`);
@@ -462,21 +348,7 @@ pub fn apply_many<S: Scalar>(
             y.len()
         )));
     }
-    let mut rows_out: Vec<&mut [S]> = y.chunks_mut(k).collect();
-    runner.for_row_chunks(&mut rows_out, interrupt, |first, out| {
-        let mut i = 0usize;
-        op.for_each_row(source, target, first, out.len(), |entries| {
-            let yi = &mut out[i];
-            yi.fill(S::ZERO);
-            for &(col, c) in entries {
-                let xs = &x[col as usize * k..][..k];
-                for (yj, &xj) in yi.iter_mut().zip(xs) {
-                    *yj += c * xj;
-                }
-            }
-            i += 1;
-        })
-    })
+    apply_rows(&Listing { source, target, op }, x, y, k, runner, interrupt)
 }
 
 /// `(nnz, standard error, exact, largest counted row)` of the matrix: every row when
@@ -533,8 +405,8 @@ mod tests {
     fn dense(source: &FockSpace, target: &FockSpace, op: &Between<f64>) -> Vec<Vec<f64>> {
         let runner = Runner::with_threads(Some(2)).unwrap();
         let csr = match build_csr(source, target, op, &runner, &NoInterrupt, false).unwrap() {
-            RectAny::Narrow(c) => c,
-            RectAny::Wide(_) => panic!("small matrices use narrow indices"),
+            CsrAny::Narrow(c) => c,
+            CsrAny::Wide(_) => panic!("small matrices use narrow indices"),
         };
         let mut out = vec![vec![0.0; source.dim() as usize]; target.dim() as usize];
         for (r, row) in out.iter_mut().enumerate() {

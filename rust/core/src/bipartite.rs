@@ -33,7 +33,9 @@ use crate::scalar::Scalar;
 use crate::space::{Constraint, FockSpace};
 use crate::terms::Operator;
 use rayon::prelude::*;
-use std::collections::HashMap;
+use std::collections::{HashMap, HashSet};
+use std::ops::Range;
+use std::sync::OnceLock;
 
 /// Columns of a row processed together (the slab kept in the first-level cache).
 const SLAB: usize = 4096;
@@ -43,6 +45,8 @@ const MIN_RUN: usize = 6;
 const CHUNK_ELEMENTS: usize = 1 << 15;
 /// Elements of output between two interruption checks.
 const CHECK_ELEMENTS: usize = 1 << 22;
+/// Square roots of the integers below this are looked up.
+const SQRT_TABLE: usize = 1 << 12;
 
 /// Number of residue classes the space's tables use.
 fn residue_count(space: &FockSpace) -> usize {
@@ -303,9 +307,16 @@ struct FactorTable {
     /// The same entries as runs `(dst, src, len, amp)` of consecutive destinations and
     /// sources with one amplitude, when they are long enough to be worth it.
     runs: Vec<(u32, u32, u32, f64)>,
+    /// Whether the factor is diagonal (each right state is its own source).
+    keeps: bool,
 }
 
 impl FactorTable {
+    /// Whether each right state is its own source (a diagonal factor).
+    fn keeps_state(&self) -> bool {
+        self.keeps
+    }
+
     /// Group the entries into runs; keep them when they are long on average.
     fn find_runs(&mut self) {
         let mut runs: Vec<(u32, u32, u32, f64)> = Vec::new();
@@ -328,6 +339,8 @@ impl FactorTable {
 /// summed into a dense array, each other one a gather table.
 #[derive(Debug, Clone)]
 struct RightBlock<S> {
+    /// Number of right states.
+    len: usize,
     /// Sum of the right-only diagonal terms at each right state (empty: none).
     diag: Vec<S>,
     /// `(coefficient, table)` of each off-diagonal right-only term that acts here.
@@ -363,6 +376,33 @@ pub struct Bipartite<S: Scalar> {
     order: Vec<u32>,
     /// Work items: ranges of `order`.
     chunks: Vec<(usize, usize)>,
+    /// No two off-diagonal terms change the occupations alike (rows are then counted
+    /// from the tables).
+    distinct_changes: bool,
+    /// Merged right-only rows of each block (prepared for builds only).
+    merged: OnceLock<Option<Vec<MergedRows<S>>>>,
+    /// `sqrt(k)` for `k < SQRT_TABLE`.
+    sqrt: Vec<f64>,
+}
+
+/// The off-diagonal right-only entries of one block, row by row: `(col, val)` at
+/// `ptr[i]..ptr[i + 1]` sorted by column, equal columns summed in term order, zeros
+/// dropped; `split[i]` of them lie left of the diagonal.
+#[derive(Debug, Clone, Default)]
+struct MergedRows<S> {
+    ptr: Vec<usize>,
+    col: Vec<u32>,
+    val: Vec<S>,
+    split: Vec<u32>,
+}
+
+/// One left state a row gathers from: the left-only term's value from it (if any) and
+/// its crossing entries.
+#[derive(Debug, Clone)]
+struct Source<S> {
+    src: usize,
+    al: Option<S>,
+    cx: Range<usize>,
 }
 
 impl<S: Scalar> Bipartite<S> {
@@ -438,6 +478,19 @@ impl<S: Scalar> Bipartite<S> {
                 )));
             }
         }
+        // Whether no two off-diagonal terms share their change of the occupations.
+        let mut changes = HashSet::new();
+        let mut distinct_changes = true;
+        for t in 0..op.len() {
+            let change: Vec<(usize, i64)> = op
+                .factors(t)
+                .filter(|f| f.1 != f.2)
+                .map(|(mode, lower, raise)| (mode, raise as i64 - lower as i64))
+                .collect();
+            if !change.is_empty() && !changes.insert(change) {
+                distinct_changes = false;
+            }
+        }
         // Classify terms.
         let mut left_terms = Vec::new();
         let mut right_terms = Vec::new();
@@ -454,18 +507,26 @@ impl<S: Scalar> Bipartite<S> {
                 crossing.push((coef, l, r));
             }
         }
-        let right_occ_of = |r: usize| -> Vec<Vec<u32>> {
-            let mut states = Vec::new();
-            enumerate(
-                space,
-                cut,
-                m,
-                r,
-                |mode, res| space.completions(mode, res) > 0,
-                |occ, _| states.push(occ.to_vec()),
-            );
-            states
-        };
+        // Right states owing each residue the rows use (the crossing tables' output
+        // residues are among them), flat (`m - cut` occupations a state), enumerated
+        // once and shared by the right blocks and the crossing tables.
+        let width = m - cut;
+        let right_states: HashMap<usize, Vec<u32>> = used
+            .iter()
+            .map(|&r| {
+                let mut states = Vec::new();
+                enumerate(
+                    space,
+                    cut,
+                    m,
+                    r,
+                    |mode, res| space.completions(mode, res) > 0,
+                    |occ, _| states.extend_from_slice(occ),
+                );
+                (r, states)
+            })
+            .collect();
+        let right_occ_of = |r: usize| right_states[&r].as_slice();
         let mut tables: Vec<FactorTable> = Vec::new();
         let (right_diag, right_off): (Vec<_>, Vec<_>) = right_terms
             .iter()
@@ -477,10 +538,11 @@ impl<S: Scalar> Bipartite<S> {
             }
             right_of_residue[r] = rights.len() as u32;
             let states = right_occ_of(r);
+            let count = states.len().checked_div(width).unwrap_or(1);
             let mut diag = Vec::new();
             if !right_diag.is_empty() {
-                diag = try_with_capacity(states.len(), "right diagonal of the bipartite product")?;
-                for occ in &states {
+                diag = try_with_capacity(count, "right diagonal of the bipartite product")?;
+                for occ in states.chunks_exact(width.max(1)).take(count) {
                     let mut d = S::ZERO;
                     for (coef, f) in &right_diag {
                         let mut amp = 1.0;
@@ -495,13 +557,17 @@ impl<S: Scalar> Bipartite<S> {
             }
             let mut terms = Vec::new();
             for (coef, f) in &right_off {
-                let table = factor_table(space, cut, r, f, &states);
+                let table = factor_table(space, cut, r, f, states, count);
                 if !table.dst.is_empty() {
                     terms.push((*coef, tables.len() as u32));
                     tables.push(table);
                 }
             }
-            rights.push(RightBlock { diag, terms });
+            rights.push(RightBlock {
+                len: count,
+                diag,
+                terms,
+            });
         }
 
         // Left-only terms and crossing terms, gathered per left state.
@@ -596,7 +662,8 @@ impl<S: Scalar> Bipartite<S> {
                                 cut,
                                 r_src,
                                 &factor_list[cross_factor[t]],
-                                &right_occ_of(r_out),
+                                right_occ_of(r_out),
+                                space.completions(cut, r_out) as usize,
                             ),
                             _ => FactorTable::default(),
                         };
@@ -656,6 +723,9 @@ impl<S: Scalar> Bipartite<S> {
             tables,
             order,
             chunks,
+            distinct_changes,
+            merged: OnceLock::new(),
+            sqrt: (0..SQRT_TABLE).map(|k| (k as f64).sqrt()).collect(),
         })
     }
 
@@ -771,6 +841,240 @@ impl<S: Scalar> Bipartite<S> {
         Ok(())
     }
 
+    /// Prepare what builds use beyond the product tables: the right-only part of
+    /// each block as merged rows, so that a build copies a row's own entries instead
+    /// of sorting them. Skipped (builds then sort) when it does not fit in memory.
+    pub fn prepare_rows(&self) {
+        self.merged.get_or_init(|| {
+            let entries: usize = self
+                .rights
+                .iter()
+                .flat_map(|b| &b.terms)
+                .map(|&(_, tab)| self.tables[tab as usize].dst.len())
+                .sum();
+            let rows: usize = self.rights.iter().map(|b| b.len + 1).sum();
+            let bytes = entries as u128 * (4 + std::mem::size_of::<S>()) as u128 + rows as u128 * 12;
+            crate::memory::ensure_room(bytes, "the merged rows of the bipartite build").ok()?;
+            self.rights.iter().map(|b| self.merge_block(b)).collect()
+        });
+    }
+
+    /// Whether rows can be counted from the tables alone (see [`Bipartite::count_rows`]).
+    pub fn counts_from_tables(&self) -> bool {
+        self.distinct_changes
+    }
+
+    /// The off-diagonal right-only entries of every right state of `block`, merged.
+    fn merge_block(&self, block: &RightBlock<S>) -> Option<MergedRows<S>> {
+        let total: usize = block
+            .terms
+            .iter()
+            .map(|&(_, tab)| self.tables[tab as usize].dst.len())
+            .sum();
+        let what = "the merged rows of the bipartite build";
+        let mut out = MergedRows {
+            ptr: try_with_capacity(block.len + 1, what).ok()?,
+            col: try_with_capacity(total, what).ok()?,
+            val: try_with_capacity(total, what).ok()?,
+            split: try_with_capacity(block.len, what).ok()?,
+        };
+        out.ptr.push(0);
+        let mut cursor = vec![0usize; block.terms.len()];
+        let mut buf: Vec<(u64, S)> = Vec::new();
+        for i in 0..block.len {
+            buf.clear();
+            for (k, &(coef, tab)) in block.terms.iter().enumerate() {
+                let t = &self.tables[tab as usize];
+                let p = cursor[k];
+                if p < t.dst.len() && t.dst[p] as usize == i {
+                    buf.push((t.src[p] as u64, coef.scale(t.amp[p])));
+                    cursor[k] = p + 1;
+                }
+            }
+            let mut below = 0u32;
+            merge_entries(&mut buf, |col, val| {
+                below += u32::from((col as usize) < i);
+                out.col.push(col as u32);
+                out.val.push(val);
+            });
+            out.ptr.push(out.col.len());
+            out.split.push(below);
+        }
+        Some(out)
+    }
+
+    /// The rows `first..first + count`, checked against the dimension.
+    fn row_end(&self, first: u64, count: usize) -> CoreResult<u64> {
+        first
+            .checked_add(count as u64)
+            .filter(|&e| e <= self.dim)
+            .ok_or_else(|| {
+                CoreError::InvalidArgument(format!(
+                    "rows {first}..{first}+{count} are out of range for dimension {}",
+                    self.dim
+                ))
+            })
+    }
+
+    /// The left state whose segment holds `row`.
+    fn left_of(&self, row: u64) -> usize {
+        let nl = self.left_residue.len();
+        self.left_offset[..nl].partition_point(|&o| o <= row).max(1) - 1
+    }
+
+    /// The sources of left state `l` in column order: every left state its left-only or
+    /// crossing terms gather from, and `l` itself.
+    fn sources(&self, l: usize, out: &mut Vec<Source<S>>) {
+        out.clear();
+        let (al_b, cx_b) = (self.al_ptr[l + 1], self.cx_ptr[l + 1]);
+        let mut own_done = false;
+        let (mut ea, mut ec) = (self.al_ptr[l], self.cx_ptr[l]);
+        loop {
+            let next_al = (ea < al_b).then(|| self.al_src[ea] as usize);
+            let next_cx = (ec < cx_b).then(|| self.cx_src[ec] as usize);
+            let own = (!own_done).then_some(l);
+            let Some(src) = [next_al, next_cx, own].into_iter().flatten().min() else {
+                break;
+            };
+            let al = if next_al == Some(src) {
+                ea += 1;
+                Some(self.al_val[ea - 1])
+            } else {
+                None
+            };
+            let c0 = ec;
+            while ec < cx_b && self.cx_src[ec] as usize == src {
+                ec += 1;
+            }
+            own_done |= src == l;
+            out.push(Source { src, al, cx: c0..ec });
+        }
+    }
+
+    /// Value of crossing entry `e` at table position `p`: `c · sqrt(aL² aR²)`, as the
+    /// row kernel computes it.
+    #[inline(always)]
+    fn cross_value(&self, e: usize, t: &FactorTable, p: usize) -> S {
+        let (coef, al_sq) = self.cx_parts[e];
+        // Products of falling factorials are integers, exact in f64 below 2^53: the
+        // table holds the same correctly rounded square roots, without the latency.
+        let sq = al_sq * t.amp_sq[p];
+        let amp = if sq < SQRT_TABLE as f64 {
+            self.sqrt[sq as usize]
+        } else {
+            sq.sqrt()
+        };
+        coef.scale(amp)
+    }
+
+    /// Walk the stored entries of rows `first..first + count`: `entry(column, value)`
+    /// in column order, then `row_done(row)`, row after row. Within a row the sources
+    /// (left states) come in column order and never share a column; within a source,
+    /// entries are pushed in a fixed order (right diagonal, left-only term, right-only
+    /// terms, crossing terms), sorted stably and equal columns summed in that order,
+    /// exact zeros dropped, so the values never depend on threads or chunking.
+    fn walk(
+        &self,
+        first: u64,
+        count: usize,
+        entry: &mut impl FnMut(u64, S),
+        row_done: &mut impl FnMut(u64),
+    ) -> CoreResult<()> {
+        let end = self.row_end(first, count)?;
+        let merged = self.merged.get().and_then(|m| m.as_deref());
+        let mut l = self.left_of(first);
+        let mut sources = Vec::new();
+        let mut right_cursor: Vec<usize> = Vec::new();
+        let mut cx_cursor: Vec<usize> = Vec::new();
+        let mut buf: Vec<(u64, S)> = Vec::new();
+        let mut row = first;
+        while row < end {
+            let off = self.left_offset[l];
+            let seg_end = self.left_offset[l + 1].min(end);
+            let (i0, i1) = ((row - off) as usize, (seg_end - off) as usize);
+            let bi = self.right_of_residue[self.left_residue[l] as usize] as usize;
+            let block = &self.rights[bi];
+            self.sources(l, &mut sources);
+            let cx_a = self.cx_ptr[l];
+            // The own source's right part comes from the merged rows unless crossing
+            // terms also gather from `l` (their entries then join the sort).
+            let own_merged = merged
+                .map(|m| &m[bi])
+                .filter(|_| sources.iter().all(|s| s.src != l || s.cx.is_empty()));
+            right_cursor.clear();
+            if own_merged.is_none() {
+                for &(_, tab) in &block.terms {
+                    right_cursor.push(start_at(&self.tables[tab as usize], i0));
+                }
+            }
+            cx_cursor.clear();
+            for e in cx_a..self.cx_ptr[l + 1] {
+                cx_cursor.push(start_at(&self.tables[self.cx_tab[e] as usize], i0));
+            }
+            for i in i0..i1 {
+                for s in &sources {
+                    let base = self.left_offset[s.src];
+                    buf.clear();
+                    if s.src == l {
+                        if let Some(rows) = own_merged {
+                            let mut d = block.diag.get(i).copied();
+                            if let Some(v) = s.al {
+                                d = Some(d.map_or(v, |x| x + v));
+                            }
+                            let (a, b) = (rows.ptr[i], rows.ptr[i + 1]);
+                            let mid = a + rows.split[i] as usize;
+                            for p in a..mid {
+                                entry(base + rows.col[p] as u64, rows.val[p]);
+                            }
+                            if let Some(v) = d.filter(|&v| v != S::ZERO) {
+                                entry(base + i as u64, v);
+                            }
+                            for p in mid..b {
+                                entry(base + rows.col[p] as u64, rows.val[p]);
+                            }
+                            continue;
+                        }
+                        if let Some(&v) = block.diag.get(i) {
+                            buf.push((base + i as u64, v));
+                        }
+                        if let Some(v) = s.al {
+                            buf.push((base + i as u64, v));
+                        }
+                        for (k, &(coef, tab)) in block.terms.iter().enumerate() {
+                            let t = &self.tables[tab as usize];
+                            let p = right_cursor[k];
+                            if p < t.dst.len() && t.dst[p] as usize == i {
+                                buf.push((base + t.src[p] as u64, coef.scale(t.amp[p])));
+                                right_cursor[k] = p + 1;
+                            }
+                        }
+                    } else if s.cx.is_empty() {
+                        // Only the left-only term: one entry, no sort.
+                        if let Some(v) = s.al.filter(|&v| v != S::ZERO) {
+                            entry(base + i as u64, v);
+                        }
+                        continue;
+                    } else if let Some(v) = s.al {
+                        buf.push((base + i as u64, v));
+                    }
+                    for e in s.cx.clone() {
+                        let t = &self.tables[self.cx_tab[e] as usize];
+                        let p = cx_cursor[e - cx_a];
+                        if p < t.dst.len() && t.dst[p] as usize == i {
+                            buf.push((base + t.src[p] as u64, self.cross_value(e, t, p)));
+                            cx_cursor[e - cx_a] = p + 1;
+                        }
+                    }
+                    merge_entries(&mut buf, &mut *entry);
+                }
+                row_done(off + i as u64);
+            }
+            row = seg_end;
+            l += 1;
+        }
+        Ok(())
+    }
+
     /// Call `visit(row, entries)` for the rows `first..first + count` in order, with each
     /// row's entries sorted by column, duplicates summed and exact zeros dropped.
     ///
@@ -782,133 +1086,119 @@ impl<S: Scalar> Bipartite<S> {
         count: usize,
         mut visit: impl FnMut(u64, &[(u64, S)]),
     ) -> CoreResult<()> {
-        let end = first
-            .checked_add(count as u64)
-            .filter(|&e| e <= self.dim)
-            .ok_or_else(|| {
-                CoreError::InvalidArgument(format!(
-                    "rows {first}..{first}+{count} are out of range for dimension {}",
-                    self.dim
-                ))
-            })?;
-        let nl = self.left_residue.len();
-        let mut l = self.left_offset[..nl].partition_point(|&o| o <= first) - 1;
-        let mut entries: Vec<(u64, S)> = Vec::new();
-        // Sources of the current left state: (left source, value of the left-only term
-        // from it, crossing entries from it).
-        let mut sources: Vec<(usize, Option<S>, std::ops::Range<usize>)> = Vec::new();
-        let mut right_cursor: Vec<usize> = Vec::new();
-        let mut cx_cursor: Vec<usize> = Vec::new();
+        let entries = std::cell::RefCell::new(Vec::new());
+        self.walk(
+            first,
+            count,
+            &mut |col, val| entries.borrow_mut().push((col, val)),
+            &mut |row| {
+                let mut e = entries.borrow_mut();
+                visit(row, &e);
+                e.clear();
+            },
+        )
+    }
+
+    /// Call `emit(column, value)` for every stored entry of the rows `first..first +
+    /// count`, row after row, each row's in column order (the entries
+    /// [`Bipartite::for_each_row`] lists).
+    ///
+    /// # Errors
+    /// [`CoreError::InvalidArgument`] when the rows are out of range.
+    pub fn emit_rows(&self, first: u64, count: usize, mut emit: impl FnMut(u64, S)) -> CoreResult<()> {
+        self.walk(first, count, &mut emit, &mut |_| {})
+    }
+
+    /// Number of stored entries of each row `first..first + out.len()`.
+    ///
+    /// When no two off-diagonal terms change the occupations alike
+    /// ([`Bipartite::counts_from_tables`]), no two entries of a row share a column
+    /// except on the diagonal, and a single term's entry is never zero (a nonzero
+    /// coefficient times a square root of a product of positive integers): a row then
+    /// holds one entry per table hit, plus the diagonal when its sum is nonzero, and
+    /// the count needs no entries. Otherwise the entries are walked and counted.
+    ///
+    /// # Errors
+    /// [`CoreError::InvalidArgument`] when the rows are out of range.
+    pub fn count_rows(&self, first: u64, out: &mut [u64]) -> CoreResult<()> {
+        if !self.distinct_changes {
+            let n = std::cell::Cell::new(0u64);
+            let mut k = 0usize;
+            return self.walk(first, out.len(), &mut |_, _| n.set(n.get() + 1), &mut |_| {
+                out[k] = n.replace(0);
+                k += 1;
+            });
+        }
+        let end = self.row_end(first, out.len())?;
+        let merged = self.merged.get().and_then(|m| m.as_deref());
+        let mut l = self.left_of(first);
+        let mut own_cx: Vec<(usize, usize)> = Vec::new();
         let mut row = first;
         while row < end {
             let off = self.left_offset[l];
             let seg_end = self.left_offset[l + 1].min(end);
-            let i0 = (row - off) as usize;
-            let block = self.block(l);
-            // Merge the sources in column order (left index order).
-            sources.clear();
-            let (al_a, al_b) = (self.al_ptr[l], self.al_ptr[l + 1]);
-            let (cx_a, cx_b) = (self.cx_ptr[l], self.cx_ptr[l + 1]);
-            let mut own_done = false;
-            let (mut ea, mut ec) = (al_a, cx_a);
-            loop {
-                let next_al = (ea < al_b).then(|| self.al_src[ea] as usize);
-                let next_cx = (ec < cx_b).then(|| self.cx_src[ec] as usize);
-                let own = (!own_done).then_some(l);
-                let Some(src) = [next_al, next_cx, own].into_iter().flatten().min() else {
-                    break;
-                };
-                let al = if next_al == Some(src) {
-                    ea += 1;
-                    Some(self.al_val[ea - 1])
+            let (i0, i1) = ((row - off) as usize, (seg_end - off) as usize);
+            let part = &mut out[(row - first) as usize..(seg_end - first) as usize];
+            let bi = self.right_of_residue[self.left_residue[l] as usize] as usize;
+            let block = &self.rights[bi];
+            let mut own_al = None;
+            let mut others = 0u64;
+            for e in self.al_ptr[l]..self.al_ptr[l + 1] {
+                if self.al_src[e] as usize == l {
+                    own_al = Some(self.al_val[e]);
                 } else {
-                    None
-                };
-                let c0 = ec;
-                while ec < cx_b && self.cx_src[ec] as usize == src {
-                    ec += 1;
+                    others += 1;
                 }
-                if src == l {
-                    own_done = true;
+            }
+            part.fill(others);
+            match merged {
+                // One merged entry a table hit (no shared columns, no zero sums).
+                Some(m) => {
+                    let ptr = &m[bi].ptr[i0..=i1];
+                    for (c, w) in part.iter_mut().zip(ptr.windows(2)) {
+                        *c += (w[1] - w[0]) as u64;
+                    }
                 }
-                sources.push((src, al, c0..ec));
+                None => {
+                    for &(_, tab) in &block.terms {
+                        add_hits(&self.tables[tab as usize], i0, part);
+                    }
+                }
             }
-            right_cursor.clear();
-            for &(_, tab) in &block.terms {
-                let t = &self.tables[tab as usize];
-                right_cursor.push(t.dst.partition_point(|&d| (d as usize) < i0));
-            }
-            cx_cursor.clear();
-            for e in cx_a..cx_b {
+            // Crossing entries count one a hit, except those that keep both the left and
+            // the right state: they land on the diagonal and join its sum.
+            own_cx.clear();
+            for e in self.cx_ptr[l]..self.cx_ptr[l + 1] {
                 let t = &self.tables[self.cx_tab[e] as usize];
-                cx_cursor.push(t.dst.partition_point(|&d| (d as usize) < i0));
+                if self.cx_src[e] as usize == l && t.keeps_state() {
+                    own_cx.push((e, start_at(t, i0)));
+                } else {
+                    add_hits(t, i0, part);
+                }
             }
-            for i in i0..(seg_end - off) as usize {
-                entries.clear();
-                for (src, al, cx) in &sources {
-                    let base = self.left_offset[*src];
-                    let start = entries.len();
-                    if *src == l {
-                        if !block.diag.is_empty() {
-                            entries.push((base + i as u64, block.diag[i]));
-                        }
-                        if let Some(v) = al {
-                            entries.push((base + i as u64, *v));
-                        }
-                        for (k, &(coef, tab)) in block.terms.iter().enumerate() {
-                            let t = &self.tables[tab as usize];
-                            let p = right_cursor[k];
-                            if p < t.dst.len() && t.dst[p] as usize == i {
-                                entries.push((base + t.src[p] as u64, coef.scale(t.amp[p])));
-                                right_cursor[k] = p + 1;
-                            }
-                        }
-                    } else if let Some(v) = al {
-                        entries.push((base + i as u64, *v));
+            if !block.diag.is_empty() || own_al.is_some() || !own_cx.is_empty() {
+                for (i, c) in (i0..i1).zip(part.iter_mut()) {
+                    // The same sums, in the same order, as `walk`.
+                    let mut d = block.diag.get(i).copied();
+                    if let Some(v) = own_al {
+                        d = Some(d.map_or(v, |x| x + v));
                     }
-                    for e in cx.clone() {
-                        let t = &self.tables[self.cx_tab[e] as usize];
-                        let p = cx_cursor[e - cx_a];
-                        if p < t.dst.len() && t.dst[p] as usize == i {
-                            let (coef, al_sq) = self.cx_parts[e];
-                            entries.push((base + t.src[p] as u64, coef.scale((al_sq * t.amp_sq[p]).sqrt())));
-                            cx_cursor[e - cx_a] = p + 1;
+                    for (e, p) in own_cx.iter_mut() {
+                        let t = &self.tables[self.cx_tab[*e] as usize];
+                        if *p < t.dst.len() && t.dst[*p] as usize == i {
+                            let v = self.cross_value(*e, t, *p);
+                            d = Some(d.map_or(v, |x| x + v));
+                            *p += 1;
                         }
                     }
-                    // Few entries per source: an insertion sort keeps equal columns in
-                    // push order, so duplicates are summed in a fixed order.
-                    let part = &mut entries[start..];
-                    for a in 1..part.len() {
-                        let mut b = a;
-                        while b > 0 && part[b - 1].0 > part[b].0 {
-                            part.swap(b - 1, b);
-                            b -= 1;
-                        }
-                    }
+                    *c += u64::from(d.is_some_and(|v| v != S::ZERO));
                 }
-                // Sum runs of equal columns and drop exact zeros, in place.
-                let mut kept = 0usize;
-                let mut k = 0usize;
-                while k < entries.len() {
-                    let (col, mut val) = entries[k];
-                    k += 1;
-                    while k < entries.len() && entries[k].0 == col {
-                        val += entries[k].1;
-                        k += 1;
-                    }
-                    if val != S::ZERO {
-                        entries[kept] = (col, val);
-                        kept += 1;
-                    }
-                }
-                visit(off + i as u64, &entries[..kept]);
             }
             row = seg_end;
             l += 1;
         }
         Ok(())
     }
-
     /// Upper bound of the stored entries of one row.
     pub fn row_capacity(&self) -> usize {
         let right = self.rights.iter().map(|b| b.terms.len() + 1).max().unwrap_or(1);
@@ -1056,6 +1346,62 @@ fn gather_add<S: Scalar>(
     }
 }
 
+/// Where row `i0`'s hits start in a table (entries sorted by destination).
+#[inline]
+fn start_at(t: &FactorTable, i0: usize) -> usize {
+    if i0 == 0 {
+        0
+    } else {
+        t.dst.partition_point(|&d| (d as usize) < i0)
+    }
+}
+
+/// Add one to `part[d - i0]` for every table entry with destination `d` in the rows
+/// `i0..i0 + part.len()`.
+#[inline]
+fn add_hits(t: &FactorTable, i0: usize, part: &mut [u64]) {
+    let i1 = i0 + part.len();
+    for &d in &t.dst[start_at(t, i0)..] {
+        let d = d as usize;
+        if d >= i1 {
+            break;
+        }
+        part[d - i0] += 1;
+    }
+}
+
+/// Sort `buf` by column, stably (equal columns keep their push order, so duplicates
+/// are summed in a fixed order), sum equal columns and pass the nonzero sums to `emit`.
+#[inline]
+fn merge_entries<S: Scalar>(buf: &mut [(u64, S)], mut emit: impl FnMut(u64, S)) {
+    if buf.len() == 1 {
+        if buf[0].1 != S::ZERO {
+            emit(buf[0].0, buf[0].1);
+        }
+        return;
+    }
+    // Few entries: an insertion sort.
+    for a in 1..buf.len() {
+        let mut b = a;
+        while b > 0 && buf[b - 1].0 > buf[b].0 {
+            buf.swap(b - 1, b);
+            b -= 1;
+        }
+    }
+    let mut k = 0usize;
+    while k < buf.len() {
+        let (col, mut val) = buf[k];
+        k += 1;
+        while k < buf.len() && buf[k].0 == col {
+            val += buf[k].1;
+            k += 1;
+        }
+        if val != S::ZERO {
+            emit(col, val);
+        }
+    }
+}
+
 /// Gather table of a right factor from the right states `states` (of one output
 /// residue) to the right states owing `r_src`.
 fn factor_table(
@@ -1063,12 +1409,18 @@ fn factor_table(
     cut: usize,
     r_src: usize,
     factor: &[(usize, u32, u32)],
-    states: &[Vec<u32>],
+    states: &[u32],
+    count: usize,
 ) -> FactorTable {
     let m = space.modes();
-    let mut t = FactorTable::default();
+    let mut t = FactorTable {
+        keeps: factor.iter().all(|&(_, lower, raise)| lower == raise),
+        ..FactorTable::default()
+    };
     let mut img = vec![0u32; m - cut];
-    for (i, occ) in states.iter().enumerate() {
+    let width = (m - cut).max(1);
+    for i in 0..count {
+        let occ = &states[(i * width).min(states.len())..((i + 1) * width).min(states.len())];
         img.copy_from_slice(occ);
         let Some(amp_sq) = gather_image(space.caps(), cut, factor, &mut img) else {
             continue;
@@ -1091,7 +1443,7 @@ fn factor_table(
 #[cfg(test)]
 mod tests {
     use super::*;
-    use crate::build::{build_csr_with, CsrAny};
+    use crate::build::{build_csr_with, build_rows, Csr, CsrAny, RowVisitor, SparseRows};
     use crate::kernel::ProductKernel;
     use crate::parallel::NoInterrupt;
     use crate::terms::RawTerm;
@@ -1108,8 +1460,255 @@ mod tests {
         t
     }
 
+    /// The row listing as first written (every source's entries pushed, sorted and
+    /// merged per row, no merged rows, no shortcuts): the reference the build's fast
+    /// paths must reproduce bit for bit.
+    fn reference_rows<S: Scalar>(
+        bp: &Bipartite<S>,
+        first: u64,
+        count: usize,
+        mut visit: impl FnMut(u64, &[(u64, S)]),
+    ) -> CoreResult<()> {
+        let end = first
+            .checked_add(count as u64)
+            .filter(|&e| e <= bp.dim)
+            .ok_or_else(|| {
+                CoreError::InvalidArgument(format!(
+                    "rows {first}..{first}+{count} are out of range for dimension {}",
+                    bp.dim
+                ))
+            })?;
+        let nl = bp.left_residue.len();
+        let mut l = bp.left_offset[..nl].partition_point(|&o| o <= first) - 1;
+        let mut entries: Vec<(u64, S)> = Vec::new();
+        // Sources of the current left state: (left source, value of the left-only term
+        // from it, crossing entries from it).
+        let mut sources: Vec<(usize, Option<S>, std::ops::Range<usize>)> = Vec::new();
+        let mut right_cursor: Vec<usize> = Vec::new();
+        let mut cx_cursor: Vec<usize> = Vec::new();
+        let mut row = first;
+        while row < end {
+            let off = bp.left_offset[l];
+            let seg_end = bp.left_offset[l + 1].min(end);
+            let i0 = (row - off) as usize;
+            let block = bp.block(l);
+            // Merge the sources in column order (left index order).
+            sources.clear();
+            let (al_a, al_b) = (bp.al_ptr[l], bp.al_ptr[l + 1]);
+            let (cx_a, cx_b) = (bp.cx_ptr[l], bp.cx_ptr[l + 1]);
+            let mut own_done = false;
+            let (mut ea, mut ec) = (al_a, cx_a);
+            loop {
+                let next_al = (ea < al_b).then(|| bp.al_src[ea] as usize);
+                let next_cx = (ec < cx_b).then(|| bp.cx_src[ec] as usize);
+                let own = (!own_done).then_some(l);
+                let Some(src) = [next_al, next_cx, own].into_iter().flatten().min() else {
+                    break;
+                };
+                let al = if next_al == Some(src) {
+                    ea += 1;
+                    Some(bp.al_val[ea - 1])
+                } else {
+                    None
+                };
+                let c0 = ec;
+                while ec < cx_b && bp.cx_src[ec] as usize == src {
+                    ec += 1;
+                }
+                if src == l {
+                    own_done = true;
+                }
+                sources.push((src, al, c0..ec));
+            }
+            right_cursor.clear();
+            for &(_, tab) in &block.terms {
+                let t = &bp.tables[tab as usize];
+                right_cursor.push(t.dst.partition_point(|&d| (d as usize) < i0));
+            }
+            cx_cursor.clear();
+            for e in cx_a..cx_b {
+                let t = &bp.tables[bp.cx_tab[e] as usize];
+                cx_cursor.push(t.dst.partition_point(|&d| (d as usize) < i0));
+            }
+            for i in i0..(seg_end - off) as usize {
+                entries.clear();
+                for (src, al, cx) in &sources {
+                    let base = bp.left_offset[*src];
+                    let start = entries.len();
+                    if *src == l {
+                        if !block.diag.is_empty() {
+                            entries.push((base + i as u64, block.diag[i]));
+                        }
+                        if let Some(v) = al {
+                            entries.push((base + i as u64, *v));
+                        }
+                        for (k, &(coef, tab)) in block.terms.iter().enumerate() {
+                            let t = &bp.tables[tab as usize];
+                            let p = right_cursor[k];
+                            if p < t.dst.len() && t.dst[p] as usize == i {
+                                entries.push((base + t.src[p] as u64, coef.scale(t.amp[p])));
+                                right_cursor[k] = p + 1;
+                            }
+                        }
+                    } else if let Some(v) = al {
+                        entries.push((base + i as u64, *v));
+                    }
+                    for e in cx.clone() {
+                        let t = &bp.tables[bp.cx_tab[e] as usize];
+                        let p = cx_cursor[e - cx_a];
+                        if p < t.dst.len() && t.dst[p] as usize == i {
+                            let (coef, al_sq) = bp.cx_parts[e];
+                            entries.push((base + t.src[p] as u64, coef.scale((al_sq * t.amp_sq[p]).sqrt())));
+                            cx_cursor[e - cx_a] = p + 1;
+                        }
+                    }
+                    // Few entries per source: an insertion sort keeps equal columns in
+                    // push order, so duplicates are summed in a fixed order.
+                    let part = &mut entries[start..];
+                    for a in 1..part.len() {
+                        let mut b = a;
+                        while b > 0 && part[b - 1].0 > part[b].0 {
+                            part.swap(b - 1, b);
+                            b -= 1;
+                        }
+                    }
+                }
+                // Sum runs of equal columns and drop exact zeros, in place.
+                let mut kept = 0usize;
+                let mut k = 0usize;
+                while k < entries.len() {
+                    let (col, mut val) = entries[k];
+                    k += 1;
+                    while k < entries.len() && entries[k].0 == col {
+                        val += entries[k].1;
+                        k += 1;
+                    }
+                    if val != S::ZERO {
+                        entries[kept] = (col, val);
+                        kept += 1;
+                    }
+                }
+                visit(off + i as u64, &entries[..kept]);
+            }
+            row = seg_end;
+            l += 1;
+        }
+        Ok(())
+    }
+
+    /// A bipartite operator seen only through the reference listing: the build then
+    /// takes its general path (count by listing, fill by listing).
+    struct Reference<'a, S: Scalar>(&'a Bipartite<S>);
+
+    impl<S: Scalar> SparseRows<S> for Reference<'_, S> {
+        fn shape(&self) -> (u64, u64) {
+            (self.0.dim, self.0.dim)
+        }
+        fn rows(&self, first: u64, count: usize, visit: &mut RowVisitor<S>) -> CoreResult<()> {
+            reference_rows(self.0, first, count, visit)
+        }
+    }
+
+    fn wide<S: Scalar>(c: CsrAny<S>) -> Csr<S, i64> {
+        match c {
+            CsrAny::Wide(c) => c,
+            CsrAny::Narrow(_) => unreachable!("wide requested"),
+        }
+    }
+
+    fn bits<S: Scalar>(v: &[S]) -> Vec<(u64, u64)> {
+        v.iter().map(|z| (z.re().to_bits(), z.im().to_bits())).collect()
+    }
+
+    /// The build's fast paths (counts from the tables, merged right rows, entries
+    /// written in place) against the reference listing, bit for bit, for every cut,
+    /// on one and two threads, and for row ranges that start inside segments
+    /// (exact equality with the path the fast one replaces: common practice, no source).
+    fn fast_paths_equal_reference<S: Scalar>(space: &FockSpace, op: &Operator<S>) {
+        let dim = space.dim();
+        for cut in 1..=space.modes() {
+            let bp = Bipartite::new(space, op, cut).unwrap();
+            let runner = Runner::with_threads(Some(2)).unwrap();
+            let reference = wide(build_rows(&Reference(&bp), &runner, &NoInterrupt, true).unwrap());
+            let listed = |b: &Bipartite<S>| {
+                let mut out = Vec::new();
+                b.for_each_row(0, dim as usize, |r, e| out.push((r, e.to_vec())))
+                    .unwrap();
+                out
+            };
+            let mut expect = Vec::new();
+            reference_rows(&bp, 0, dim as usize, |r, e| expect.push((r, e.to_vec()))).unwrap();
+            // Without merged rows (as products leave it), then with them (as builds do).
+            let unmerged = listed(&bp);
+            ranges_equal_reference(&bp, &reference, cut);
+            for threads in [1, 2] {
+                let runner = Runner::with_threads(Some(threads)).unwrap();
+                let built = wide(build_csr_with(space, &bp, &runner, &NoInterrupt, true).unwrap());
+                assert_eq!(built.indptr, reference.indptr, "cut {cut}, {threads} threads");
+                assert_eq!(built.indices, reference.indices, "cut {cut}, {threads} threads");
+                assert_eq!(
+                    bits(&built.data),
+                    bits(&reference.data),
+                    "cut {cut}, {threads} threads"
+                );
+            }
+            assert!(
+                bp.merged.get().is_some_and(|m| m.is_some()),
+                "cut {cut}: merged rows prepared"
+            );
+            for (got, rows) in [(unmerged, "unmerged"), (listed(&bp), "merged")] {
+                assert_eq!(got.len(), expect.len());
+                for ((r, a), (q, b)) in got.iter().zip(&expect) {
+                    assert_eq!(r, q);
+                    let cols = |e: &[(u64, S)]| e.iter().map(|x| x.0).collect::<Vec<_>>();
+                    let vals = |e: &[(u64, S)]| bits(&e.iter().map(|x| x.1).collect::<Vec<_>>());
+                    assert_eq!(cols(a), cols(b), "cut {cut} row {r} ({rows})");
+                    assert_eq!(vals(a), vals(b), "cut {cut} row {r} ({rows})");
+                }
+            }
+            ranges_equal_reference(&bp, &reference, cut);
+        }
+    }
+
+    /// Counts and entries of short row ranges starting anywhere (inside segments too)
+    /// against the reference build.
+    fn ranges_equal_reference<S: Scalar>(bp: &Bipartite<S>, reference: &Csr<S, i64>, cut: usize) {
+        let dim = bp.dim;
+        let step = 7u64;
+        let mut first = 0u64;
+        while first < dim {
+            let n = step.min(dim - first) as usize;
+            let mut counts = vec![0u64; n];
+            bp.count_rows(first, &mut counts).unwrap();
+            let mut entries = Vec::new();
+            bp.emit_rows(first, n, |c, v| entries.push((c, v))).unwrap();
+            let (a, b) = (
+                reference.indptr[first as usize] as usize,
+                reference.indptr[first as usize + n] as usize,
+            );
+            for (k, &c) in counts.iter().enumerate() {
+                let r = first as usize + k;
+                assert_eq!(
+                    c as i64,
+                    reference.indptr[r + 1] - reference.indptr[r],
+                    "cut {cut} row {r}"
+                );
+            }
+            let cols: Vec<i64> = entries.iter().map(|e| e.0 as i64).collect();
+            assert_eq!(cols, reference.indices[a..b], "cut {cut} rows from {first}");
+            let vals: Vec<S> = entries.iter().map(|e| e.1).collect();
+            assert_eq!(
+                bits(&vals),
+                bits(&reference.data[a..b]),
+                "cut {cut} rows from {first}"
+            );
+            first += step;
+        }
+    }
+
     fn compare<S: Scalar>(space: &FockSpace, terms: &[RawTerm], make: impl Fn(usize) -> S) {
         let op = Operator::<S>::new(space, terms).unwrap();
+        fast_paths_equal_reference(space, &op);
         let dim = space.dim() as usize;
         let x: Vec<S> = (0..dim).map(&make).collect();
         let runner = Runner::with_threads(Some(2)).unwrap();
@@ -1252,6 +1851,52 @@ mod tests {
             real,
         );
         compare::<f64>(&space, &[], real);
+    }
+
+    #[test]
+    fn cancelling_terms_cross_kerr_and_zero_diagonals() {
+        // Terms that share their change of the occupations (a0† a1 and a0† n2 a1, which
+        // cancel where n2 = 1), a density-density term across every cut, a left
+        // diagonal that cancels the right one where n0 = n3, and a diagonal-times-hop
+        // crossing term (n0 a2† a3).
+        let terms = vec![
+            RawTerm::new(1.0, 0.0, vec![(0, 0, 1), (1, 1, 0)]),
+            RawTerm::new(-1.0, 0.0, vec![(0, 0, 1), (1, 1, 0), (2, 1, 1)]),
+            RawTerm::new(1.0, 0.0, vec![(0, 1, 0), (1, 0, 1)]),
+            RawTerm::new(-1.0, 0.0, vec![(0, 1, 0), (1, 0, 1), (2, 1, 1)]),
+            RawTerm::new(0.5, 0.0, vec![(0, 1, 1), (3, 1, 1)]),
+            RawTerm::new(0.7, 0.0, vec![(0, 1, 1)]),
+            RawTerm::new(-0.7, 0.0, vec![(3, 1, 1)]),
+            RawTerm::new(0.3, 0.0, vec![(0, 1, 1), (2, 0, 1), (3, 1, 0)]),
+            RawTerm::new(0.3, 0.0, vec![(0, 1, 1), (2, 1, 0), (3, 0, 1)]),
+            RawTerm::new(0.2, 0.0, vec![(2, 0, 1), (3, 1, 0)]),
+            RawTerm::new(0.2, 0.0, vec![(2, 1, 0), (3, 0, 1)]),
+        ];
+        let space = FockSpace::new(vec![3, 2, 2, 3], None, Some(4), None).unwrap();
+        let op = Operator::<f64>::new(&space, &terms).unwrap();
+        assert!(!Bipartite::new(&space, &op, 2).unwrap().counts_from_tables());
+        compare::<f64>(&space, &terms, real);
+        // Without the shared changes: counted from the tables, diagonal zeros and all.
+        let distinct: Vec<RawTerm> = terms
+            .iter()
+            .filter(|t| !(t.factors.len() == 3 && t.factors[0].0 == 0 && t.factors[1].0 == 1))
+            .cloned()
+            .collect();
+        let op = Operator::<f64>::new(&space, &distinct).unwrap();
+        assert!(!Bipartite::new(&space, &op, 2).unwrap().counts_from_tables());
+        compare::<f64>(&space, &distinct, real);
+        let plain: Vec<RawTerm> = distinct
+            .iter()
+            .filter(|t| !(t.factors.len() == 3 && t.factors[0] == (0, 1, 1)))
+            .cloned()
+            .collect();
+        let op = Operator::<f64>::new(&space, &plain).unwrap();
+        assert!(Bipartite::new(&space, &op, 2).unwrap().counts_from_tables());
+        compare::<f64>(&space, &plain, real);
+        // The ring: counted from the tables.
+        let ring_space = FockSpace::new(vec![5; 5], None, Some(5), None).unwrap();
+        let op = Operator::<f64>::new(&ring_space, &ring(5, 1.0, 2.5)).unwrap();
+        assert!(Bipartite::new(&ring_space, &op, 2).unwrap().counts_from_tables());
     }
 
     #[test]

@@ -6,6 +6,7 @@
 //! ([`crate::kernel`]) when no cut keeps the bipartite tables small.
 
 use crate::bipartite::{choose_cut, Bipartite};
+use crate::build::{apply_rows, OnSpace};
 use crate::error::{CoreError, CoreResult};
 use crate::kernel::ProductKernel;
 use crate::parallel::{Interrupt, Runner};
@@ -17,7 +18,7 @@ use crate::terms::Operator;
 #[derive(Debug, Clone)]
 pub enum Product<S: Scalar> {
     /// Bipartite kernel (left modes `0..cut`).
-    Split(Bipartite<S>),
+    Split(Box<Bipartite<S>>),
     /// Row kernel: re-ranks the images of each row.
     Rows(ProductKernel<S>),
 }
@@ -47,12 +48,12 @@ impl<S: Scalar> Product<S> {
     ) -> CoreResult<Self> {
         match cut {
             Some(0) => Ok(Product::Rows(ProductKernel::new(space, op))),
-            Some(c) => Ok(Product::Split(Bipartite::new_interruptible(
+            Some(c) => Ok(Product::Split(Box::new(Bipartite::new_interruptible(
                 space, op, c, interrupt,
-            )?)),
+            )?))),
             None => match choose_cut(space, op) {
                 Some(c) => match Bipartite::new_interruptible(space, op, c, interrupt) {
-                    Ok(b) => Ok(Product::Split(b)),
+                    Ok(b) => Ok(Product::Split(Box::new(b))),
                     Err(CoreError::Interrupted) => Err(CoreError::Interrupted),
                     // Tables that do not fit: the row kernel needs none.
                     Err(_) => Ok(Product::Rows(ProductKernel::new(space, op))),
@@ -124,24 +125,8 @@ impl<S: Scalar> Product<S> {
         match self {
             Product::Split(b) => b.apply(x, y, k, runner, interrupt),
             Product::Rows(kernel) if k == 1 => kernel.apply(space, x, y, runner, interrupt),
-            Product::Rows(kernel) => {
-                // Several vectors: visit each row's entries once and use them for all k.
-                let mut rows_out: Vec<&mut [S]> = y.chunks_mut(k).collect();
-                runner.for_row_chunks(&mut rows_out, interrupt, |first, out| {
-                    let mut i = 0usize;
-                    kernel.for_each_row(space, first, out.len(), |_, entries| {
-                        let yi = &mut out[i];
-                        yi.fill(S::ZERO);
-                        for &(col, c) in entries {
-                            let xs = &x[col as usize * k..][..k];
-                            for (yj, &xj) in yi.iter_mut().zip(xs) {
-                                *yj += c * xj;
-                            }
-                        }
-                        i += 1;
-                    })
-                })
-            }
+            // Several vectors: each row's entries are listed once and used for all k.
+            Product::Rows(kernel) => apply_rows(&OnSpace { space, kernel }, x, y, k, runner, interrupt),
         }
     }
 }
