@@ -30,7 +30,9 @@ __all__ = [
 ]
 
 
-def check_vector(space: FockSpace, vector: npt.ArrayLike, name: str = "vector") -> npt.NDArray[Any]:
+def check_vector(
+    space: FockSpace | SymmetricSpace, vector: npt.ArrayLike, name: str = "vector"
+) -> npt.NDArray[Any]:
     """A contiguous float64/complex128 copy-free view of a state of the space, or an error."""
     v = np.asarray(vector)
     if v.ndim != 1 or v.shape[0] != space.dim:
@@ -86,7 +88,11 @@ def _monomial_values(
 
 
 def expectation(
-    expr: LadderExpr, space: FockSpace, vector: npt.ArrayLike, *, threads: int | None = None
+    expr: LadderExpr,
+    space: FockSpace | SymmetricSpace,
+    vector: npt.ArrayLike,
+    *,
+    threads: int | None = None,
 ) -> float | complex:
     """``⟨ψ|O|ψ⟩ / ⟨ψ|ψ⟩`` without building the matrix of ``O``.
 
@@ -94,7 +100,7 @@ def expectation(
     ----------
     expr : LadderExpr
         The observable ``O`` (any expression; plain numbers mean multiples of 1).
-    space : FockSpace
+    space : FockSpace or SymmetricSpace
         The space ``vector`` lives in.
     vector : array_like
         The state ``ψ`` (need not be normalised).
@@ -131,7 +137,7 @@ def expectation(
 
 
 def occupation_distribution(
-    space: FockSpace, vector: npt.ArrayLike, *, threads: int | None = None
+    space: FockSpace | SymmetricSpace, vector: npt.ArrayLike, *, threads: int | None = None
 ) -> npt.NDArray[np.float64]:
     """Probability ``P_i(n)`` of finding ``n`` quanta in mode ``i``.
 
@@ -155,7 +161,7 @@ def occupation_distribution(
 
 
 def populations(
-    space: FockSpace, vector: npt.ArrayLike, *, threads: int | None = None
+    space: FockSpace | SymmetricSpace, vector: npt.ArrayLike, *, threads: int | None = None
 ) -> npt.NDArray[np.float64]:
     """Mean occupation ``⟨n_i⟩`` of every mode, shape ``(modes,)``."""
     dist = occupation_distribution(space, vector, threads=threads)
@@ -163,7 +169,7 @@ def populations(
 
 
 def number_variances(
-    space: FockSpace, vector: npt.ArrayLike, *, threads: int | None = None
+    space: FockSpace | SymmetricSpace, vector: npt.ArrayLike, *, threads: int | None = None
 ) -> npt.NDArray[np.float64]:
     """Number fluctuations ``⟨n_i²⟩ − ⟨n_i⟩²`` of every mode, shape ``(modes,)``."""
     dist = occupation_distribution(space, vector, threads=threads)
@@ -173,7 +179,7 @@ def number_variances(
 
 
 def top_level_weights(
-    space: FockSpace, vector: npt.ArrayLike, *, threads: int | None = None
+    space: FockSpace | SymmetricSpace, vector: npt.ArrayLike, *, threads: int | None = None
 ) -> npt.NDArray[np.float64]:
     """Weight ``P_i(cutoff_i)`` of each mode's highest kept level, shape ``(modes,)``.
 
@@ -186,7 +192,7 @@ def top_level_weights(
 
 
 def one_body_matrix(
-    space: FockSpace, vector: npt.ArrayLike, *, threads: int | None = None
+    space: FockSpace | SymmetricSpace, vector: npt.ArrayLike, *, threads: int | None = None
 ) -> npt.NDArray[Any]:
     """The one-body density matrix ``G[i, j] = ⟨a_i† a_j⟩``, shape ``(modes, modes)``.
 
@@ -213,7 +219,7 @@ def one_body_matrix(
 
 
 def entanglement_entropy(
-    space: FockSpace,
+    space: FockSpace | SymmetricSpace,
     vector: npt.ArrayLike,
     subsystem: Sequence[int],
     *,
@@ -223,7 +229,7 @@ def entanglement_entropy(
 
     Parameters
     ----------
-    space : FockSpace
+    space : FockSpace or SymmetricSpace
         The space of the state.
     vector : array_like
         The (pure) state; normalised internally.

@@ -24,6 +24,7 @@ import scipy.sparse as sp
 from fockmill._expr import LadderExpr
 from fockmill._model import Model
 from fockmill._space import FockSpace
+from fockmill._symmetry import SymmetricSpace
 from fockmill.exceptions import NotHermitianError
 
 __all__ = ["SharedPattern", "check_hermitian_pieces"]
@@ -127,7 +128,7 @@ class SharedPattern:
     @classmethod
     def from_pieces(
         cls,
-        space: FockSpace,
+        space: FockSpace | SymmetricSpace,
         pieces: Mapping[str, LadderExpr],
         constant: LadderExpr,
         *,
