@@ -349,6 +349,22 @@ def _hold_constant(axis: Any, values: npt.NDArray[np.float64]) -> None:
         axis.set_ylim(middle - pad, middle + pad)
 
 
+def new_figure(figsize: tuple[float, float]) -> Figure:
+    """An empty Figure (constrained layout) on its own Agg canvas: no pyplot, no global
+    state. ImportError naming the install command when matplotlib is missing."""
+    try:
+        from matplotlib.backends.backend_agg import FigureCanvasAgg
+        from matplotlib.figure import Figure
+    except ImportError as exc:
+        raise ImportError(
+            "plotting needs matplotlib; install it into this environment with: "
+            "pip install matplotlib"
+        ) from exc
+    figure = Figure(figsize=figsize, layout="constrained")
+    FigureCanvasAgg(figure)
+    return figure
+
+
 def sweep_figure(
     source: SweepTable | ResultsStore | str | os.PathLike[str],
     *,
@@ -447,21 +463,12 @@ def sweep_figure(
     if unknown or not y:
         raise ValueError(f"cannot plot {unknown or 'nothing'}; recorded quantities: {available}")
 
-    try:
-        from matplotlib import colormaps
-        from matplotlib.backends.backend_agg import FigureCanvasAgg
-        from matplotlib.figure import Figure
-    except ImportError as exc:
-        raise ImportError(
-            "plotting needs matplotlib; install it into this environment with: "
-            "pip install matplotlib"
-        ) from exc
-
     others = [name for name in varying if name != x]
     keys = [tuple(float(arrays[name][r]) for name in others) for r in range(len(table))]
     groups = sorted(set(keys))
-    figure = Figure(figsize=(7.4, 1.0 + 2.4 * len(y)), layout="constrained")
-    FigureCanvasAgg(figure)
+    figure = new_figure((7.4, 1.0 + 2.4 * len(y)))
+    from matplotlib import colormaps
+
     axes = figure.subplots(len(y), 1, sharex=True, squeeze=False)[:, 0]
     xs = arrays[x]
     for axis, quantity in zip(axes, y, strict=True):
@@ -638,15 +645,11 @@ def dispersion_figure(
         translation), the ground level joined by a line.
     """
     energies, symmetry, context = _dispersion_input(source)
-    from matplotlib.backends.backend_agg import FigureCanvasAgg
-    from matplotlib.figure import Figure
-
     unit_map = dict(units) if units is not None else context.get("units", {})
     count = energies.shape[0]
     xs, xlabel, momentum = _scan_axis(symmetry, count)
     order = np.argsort(xs, kind="stable")
-    figure = Figure(figsize=(6.4, 4.4), layout="constrained")
-    FigureCanvasAgg(figure)
+    figure = new_figure((6.4, 4.4))
     axis = figure.subplots()
     for n in range(energies.shape[1]):
         ys = energies[order, n]
@@ -720,11 +723,6 @@ def sweep_dispersion_figure(
     fixed = {n: rows[0].parameters[n] for n in others}
     rows = [r for r in rows if all(r.parameters[n] == v for n, v in fixed.items())]
     rows.sort(key=lambda r: r.parameters[x])
-    from matplotlib import colormaps
-    from matplotlib.backends.backend_agg import FigureCanvasAgg
-    from matplotlib.cm import ScalarMappable
-    from matplotlib.colors import LogNorm, Normalize
-    from matplotlib.figure import Figure
 
     unit_map = dict(units) if units is not None else context.get("units", {})
     model_name = str(context.get("model_name", ""))
@@ -733,8 +731,11 @@ def sweep_dispersion_figure(
     params = np.array([r.parameters[x] for r in rows])
     xs, klabel, _ = _scan_axis(symmetry, ground.shape[1])
     order = np.argsort(xs, kind="stable")
-    figure = Figure(figsize=(11.0, 4.6), layout="constrained")
-    FigureCanvasAgg(figure)
+    figure = new_figure((11.0, 4.6))
+    from matplotlib import colormaps
+    from matplotlib.cm import ScalarMappable
+    from matplotlib.colors import LogNorm, Normalize
+
     left, right = figure.subplots(1, 2)
     geometric = _evenly_spaced_in_log(params)
     low, high = float(params.min()), float(params.max())

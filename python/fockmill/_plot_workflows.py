@@ -19,7 +19,7 @@ from typing import TYPE_CHECKING, Any
 
 import numpy as np
 
-from fockmill._plot import _evenly_spaced_in_log, _hold_constant, _series, _title
+from fockmill._plot import _evenly_spaced_in_log, _hold_constant, _series, _title, new_figure
 from fockmill._workflow_store import WorkflowResult, read_workflow_results
 
 if TYPE_CHECKING:
@@ -69,18 +69,6 @@ def _heading(result: WorkflowResult, title: str | None) -> str:
             what += f", {summary.get('samples')} random vectors"
         what += ")"
     return f"{base}\n{what}" if base else what
-
-
-def _matplotlib() -> tuple[Any, Any]:
-    try:
-        from matplotlib.backends.backend_agg import FigureCanvasAgg
-        from matplotlib.figure import Figure
-    except ImportError as exc:
-        raise ImportError(
-            "plotting needs matplotlib; install it into this environment with: "
-            "pip install matplotlib"
-        ) from exc
-    return Figure, FigureCanvasAgg
 
 
 def _legend(axis: Axes) -> None:
@@ -227,14 +215,12 @@ def workflow_figure(
         matplotlib is not installed.
     """
     result = source if isinstance(source, WorkflowResult) else read_workflow_results(source)
-    figure_class, canvas = _matplotlib()
     panels = {"quench": 1 + bool(result.observables), "spectrum": 1}.get(
         result.kind, 2 + ("populations" in result.arrays) + bool(result.observables)
     )
     if result.kind == "quench" and "populations" not in result.arrays:
         panels -= 1
-    figure = figure_class(figsize=(7.4, 1.4 + 2.4 * max(panels, 1)), layout="constrained")
-    canvas(figure)
+    figure = new_figure((7.4, 1.4 + 2.4 * max(panels, 1)))
     if result.kind == "quench":
         _quench(figure, result)
     elif result.kind == "spectrum":

@@ -55,11 +55,11 @@ def _values(model_file: Any, overrides: Mapping[str, float] | None) -> dict[str,
 
 
 def _solver(model_file: Any, threads: int | None) -> dict[str, Any]:
-    solver = dict(getattr(model_file, "solver", None) or {})
-    keys = ("method", "tol", "seed", "max_iterations")
-    out = {key: solver[key] for key in keys if key in solver}
-    out["threads"] = threads if threads is not None else solver.get("threads")
-    return out
+    # [solver] is read with every key and its default: the solver's own keywords.
+    solver = dict(model_file.solver)
+    if threads is not None:
+        solver["threads"] = threads
+    return solver
 
 
 def _population_observables(modes: int) -> dict[str, LadderExpr]:
