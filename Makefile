@@ -40,6 +40,7 @@ lint: dev
 	$(VENV)/bin/ruff check python tests benchmarks examples
 	$(VENV)/bin/ruff format --check python tests benchmarks examples
 	$(PY) -m mypy.stubtest fockmill._native
+	$(VENV)/bin/lint-imports
 
 # The abi3 wheel (one file for every CPython >= 3.11 on this platform) in target/wheels.
 wheel: venv

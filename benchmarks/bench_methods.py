@@ -78,7 +78,7 @@ while len(times) < 3 and sum(times) < 1.0:  # repeat short solves; report the me
 seconds = sorted(times)[len(times) // 2]
 stored = store if store is not None else None
 if used == "lanczos" and store is None:
-    from fockmill._solve import _store_matrix
+    from fockmill.problem.eigensolve import _store_matrix
     stored = _store_matrix(problem, None)
 vec = estimate.vector_bytes
 planned = {{

@@ -32,16 +32,16 @@ import time  # noqa: E402
 from collections.abc import Callable  # noqa: E402
 
 import numpy as np  # noqa: E402
-from fockmill._model import Model  # noqa: E402
-from fockmill._plan import SweepSettings, sweep_settings  # noqa: E402
-from fockmill._records import (  # noqa: E402
+from fockmill.models import bose_hubbard, ring_edges  # noqa: E402
+from fockmill.models.model import Model  # noqa: E402
+from fockmill.sweeps.plan import SweepSettings, sweep_settings  # noqa: E402
+from fockmill.sweeps.records import (  # noqa: E402
     ModelRecipe,
     PreparedModel,
     solve_levels,
     start_vector,
 )
-from fockmill._sweep import run_sweep  # noqa: E402
-from fockmill.models import bose_hubbard, ring_edges  # noqa: E402
+from fockmill.sweeps.run import run_sweep  # noqa: E402
 
 
 def manual_sweep(

@@ -21,7 +21,7 @@ import math
 from collections.abc import Sequence
 
 import numpy as np
-from fockmill._expr import LadderExpr
+from fockmill.algebra.expressions import LadderExpr
 from numpy.typing import ArrayLike, NDArray
 
 __all__ = [

@@ -12,10 +12,10 @@ import sys
 import time
 from pathlib import Path
 
+import fockmill.cli.commands as cli
 import numpy as np
 import pytest
-from fockmill import cli
-from fockmill._store import FORMAT_MARKER, ResultsStore
+from fockmill.store.sweeps import FORMAT_MARKER, ResultsStore
 from test_store import committed
 from test_sweep import pair_closed_form
 
@@ -317,9 +317,9 @@ def test_bundled_demo_model_matches_example() -> None:
     example = REPO / "examples" / "models" / "ring_kerr_crossover.toml"
     if not example.is_file():
         pytest.skip("examples/ is not present (installed package without the source tree)")
-    bundled = REPO / "python" / "fockmill" / "_demo_model.toml"
+    bundled = REPO / "python" / "fockmill" / "cli" / "demo_model.toml"
     assert bundled.read_text() == example.read_text(), (
-        "python/fockmill/_demo_model.toml must be a copy of "
+        "python/fockmill/cli/demo_model.toml must be a copy of "
         "examples/models/ring_kerr_crossover.toml; copy it over"
     )
 
@@ -380,7 +380,8 @@ def test_optional_dependencies_load_lazily() -> None:
     # Project rule: `import fockmill` needs only numpy and scipy; tqdm, matplotlib and
     # dask load only inside the functions that use them.
     probe = (
-        "import sys, fockmill, fockmill._sweep, fockmill._store, fockmill._plot, fockmill.cli\n"
+        "import sys, fockmill, fockmill.sweeps.run, fockmill.store.sweeps, fockmill.plots.sweeps\n"
+        "import fockmill.cli\n"
         "print(sorted(m for m in ('tqdm', 'matplotlib', 'dask', 'distributed') "
         "if m in sys.modules))"
     )

@@ -79,10 +79,14 @@ def test_bad_input() -> None:
 def test_docstring_examples_of_the_new_modules_run() -> None:
     import doctest
 
-    import fockmill._correlations
-    import fockmill._plot
-    import fockmill._statefile
+    import fockmill.observables.correlations
+    import fockmill.observables.statefile
+    import fockmill.plots.sweeps
 
-    for module in (fockmill._correlations, fockmill._statefile, fockmill._plot):
+    for module in (
+        fockmill.observables.correlations,
+        fockmill.observables.statefile,
+        fockmill.plots.sweeps,
+    ):
         result = doctest.testmod(module)
         assert result.failed == 0 and result.attempted > 0, module.__name__

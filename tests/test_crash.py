@@ -16,8 +16,8 @@ from pathlib import Path
 
 import numpy as np
 import pytest
-from fockmill._store import ResultsStore
-from fockmill._sweep import run_sweep
+from fockmill.store.sweeps import ResultsStore
+from fockmill.sweeps.run import run_sweep
 from test_store import committed
 from test_sweep import hubbard_ring
 
@@ -28,7 +28,7 @@ SCRIPT = textwrap.dedent(
     """
     import sys
     sys.path.insert(0, sys.argv[2])
-    from fockmill._sweep import run_sweep
+    from fockmill.sweeps.run import run_sweep
     from test_sweep import hubbard_ring
 
     model = hubbard_ring(sites=6, particles=6, cutoff=6)

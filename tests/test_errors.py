@@ -25,9 +25,10 @@ from dataclasses import dataclass
 from pathlib import Path
 
 import fockmill as fm
+import fockmill.cli.commands as cli
 import numpy as np
 import pytest
-from fockmill import ResultsStore, cli
+from fockmill import ResultsStore
 from fockmill.exceptions import (
     ChargeError,
     ModeIndexError,

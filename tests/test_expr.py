@@ -8,10 +8,10 @@ import itertools
 import math
 import pickle
 
-import fockmill._expr as expr_module
+import fockmill.algebra.expressions as expr_module
 import numpy as np
 import pytest
-from fockmill._expr import (
+from fockmill.algebra.expressions import (
     LadderExpr,
     format_monomial,
     identity,

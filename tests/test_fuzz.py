@@ -32,7 +32,7 @@ from typing import Any
 import fockmill as fm
 import numpy as np
 import pytest
-from fockmill._expr import format_monomial
+from fockmill.algebra.expressions import format_monomial
 from fockmill.exceptions import ChargeError, ModeIndexError, SpaceError
 from hypothesis import HealthCheck, currently_in_test_context, event, example, given, settings
 from hypothesis import strategies as st

@@ -18,7 +18,7 @@ import textwrap
 from pathlib import Path
 
 import pytest
-from fockmill._memory import _cgroup_dir_room, _cgroup_room, available_memory
+from fockmill.problem.memory import _cgroup_dir_room, _cgroup_room, available_memory
 
 pytestmark = pytest.mark.skipif(
     not sys.platform.startswith("linux"), reason="RLIMIT_AS and /proc are Linux facilities"

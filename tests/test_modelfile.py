@@ -1,4 +1,4 @@
-"""Tests for TOML model files (``fockmill._modelfile``).
+"""Tests for TOML model files (``fockmill.files.modelfile``).
 
 The examples in ``examples/models`` must load into exactly the models the builders
 give; every schema violation must raise ``ModelFileError`` naming the key; and no
@@ -18,14 +18,7 @@ from typing import Any
 import fockmill as fm
 import numpy as np
 import pytest
-from fockmill._modelfile import (
-    RECORDABLE,
-    ModelFile,
-    ModelFileError,
-    SweepGrid,
-    load_model_file,
-    parse_model_text,
-)
+from fockmill.files.modelfile import ModelFile, ModelFileError, load_model_file, parse_model_text
 from fockmill.models import (
     bose_hubbard,
     jaynes_cummings_hubbard,
@@ -33,6 +26,7 @@ from fockmill.models import (
     ring_edges,
     with_drives,
 )
+from fockmill.sweeps.plan import RECORDABLE, SweepGrid
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 

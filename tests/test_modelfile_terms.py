@@ -20,10 +20,10 @@ from typing import Any
 import fockmill as fm
 import numpy as np
 import pytest
-from fockmill._expr import lowering as a
-from fockmill._expr import number as n
-from fockmill._expr import raising as ad
-from fockmill._userterms import TermSyntaxError, parse_term
+from fockmill.algebra.expressions import lowering as a
+from fockmill.algebra.expressions import number as n
+from fockmill.algebra.expressions import raising as ad
+from fockmill.algebra.terms import TermSyntaxError, parse_term
 from hypothesis import given, settings
 from hypothesis import strategies as st
 from reference import full_basis, restrict, sector_occupations, single_mode_matrices

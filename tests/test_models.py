@@ -13,7 +13,6 @@ import math
 import fockmill as fm
 import numpy as np
 import pytest
-from fockmill._model import Model
 from fockmill.models import (
     bose_hubbard,
     chain_edges,
@@ -23,6 +22,7 @@ from fockmill.models import (
     ring_edges,
     with_drives,
 )
+from fockmill.models.model import Model
 from hypothesis import given, settings
 from hypothesis import strategies as st
 

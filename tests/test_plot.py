@@ -14,7 +14,7 @@ from typing import Any
 import fockmill as fm
 import numpy as np
 import pytest
-from fockmill._plot import axis_label, plot_sweep, sweep_figure
+from fockmill.plots.sweeps import axis_label, plot_sweep, sweep_figure
 
 pytest.importorskip("matplotlib", reason="plots need matplotlib (extra plot)")
 

@@ -11,8 +11,8 @@ import fockmill as fm
 import numpy as np
 import pytest
 import scipy.sparse.linalg as sla
-from fockmill import _solve
 from fockmill.exceptions import ConvergenceError
+from fockmill.problem import eigensolve as _solve
 from reference import sector_occupations
 
 
@@ -167,7 +167,8 @@ def test_each_solve_compiles_and_estimates_once(
 ) -> None:
     # Before the prepared problem, ground_state(method="csr") compiled the expression
     # four times and estimated the memory twice. Counted here at the native boundary.
-    from fockmill import _native, _prepare
+    from fockmill import _native
+    from fockmill.problem import compile as _prepare
 
     h, space = ring6
     compiled: list[int] = []

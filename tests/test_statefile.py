@@ -1,6 +1,6 @@
 """State files: save a state with its basis, load it back, refuse what does not match.
 
-The format is ours (docs in fockmill._statefile); the checks are that the archive is a
+The format is ours (docs in fockmill.observables.statefile); the checks are that the archive is a
 plain ``.npz`` readable by numpy alone, that round trips are exact, and that every
 mismatch is refused with StateFileError (project contract, no outside source).
 """

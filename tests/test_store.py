@@ -14,9 +14,9 @@ from pathlib import Path
 import fockmill as fm
 import numpy as np
 import pytest
-from fockmill._model import Model
-from fockmill._store import FORMAT_MARKER, ResultsStore, StoreError
-from fockmill._sweep import run_sweep
+from fockmill.models.model import Model
+from fockmill.store.sweeps import FORMAT_MARKER, ResultsStore, StoreError
+from fockmill.sweeps.run import run_sweep
 from test_sweep import dense_levels, hubbard_ring
 
 POINTS = [{"U": float(u)} for u in np.linspace(0.0, 6.0, 9)]
@@ -83,7 +83,7 @@ KILL_SCRIPT = textwrap.dedent(
     """
     import sys
     sys.path.insert(0, sys.argv[2])
-    from fockmill._sweep import run_sweep
+    from fockmill.sweeps.run import run_sweep
     from test_sweep import hubbard_ring
 
     model = hubbard_ring(sites=6, particles=6, cutoff=6)
@@ -271,7 +271,7 @@ def test_interrupted_creation_leaves_no_file(
 ) -> None:
     # Defect 6: a failure between creating the file and committing its schema must not
     # leave a half-made file that every later run refuses as foreign.
-    import fockmill._store as store_module
+    import fockmill.store.sweeps as store_module
 
     path = tmp_path / "ring.sqlite"
     monkeypatch.setattr(store_module, "_SCHEMA", store_module._SCHEMA + "\nCREATE TABLE (;")
@@ -360,7 +360,7 @@ def test_metadata_is_plain_json_with_mode_labels_and_units(ring: Model, tmp_path
 def test_nan_energy_is_not_reported_as_a_duplicate(ring: Model, tmp_path: Path) -> None:
     # Defect 5 at the store itself: SQLite stores NaN as NULL, which used to hit the
     # NOT NULL constraint and be reported as "already stored ... another sweep".
-    from fockmill._store import PointResult
+    from fockmill.store.sweeps import PointResult
 
     path = tmp_path / "ring.sqlite"
     sweep(ring, path, points=POINTS[:1])

@@ -8,9 +8,9 @@ import math
 import fockmill as fm
 import numpy as np
 import pytest
-from fockmill._model import Model
-from fockmill._sweep import SharedPattern, run_sweep, serpentine_order
 from fockmill.exceptions import NotHermitianError
+from fockmill.models.model import Model
+from fockmill.sweeps.run import SharedPattern, run_sweep, serpentine_order
 from reference import dense_matrix, full_basis, restrict, sector_matrix, sector_occupations
 
 
@@ -394,7 +394,7 @@ def test_default_pool_without_main_guard_names_the_fix(tmp_path) -> None:
         textwrap.dedent(
             """
             import fockmill as fm
-            from fockmill._model import Model
+            from fockmill.models.model import Model
 
             space = fm.FockSpace(modes=2, cutoff=2, total=2)
             hop = -(fm.raising(0) * fm.lowering(1) + fm.raising(1) * fm.lowering(0))
@@ -419,14 +419,14 @@ def test_lanczos_points_solve_on_the_shared_pattern(
     # The Rust Lanczos solvers take the matrix assembled from the shared pattern.
     # Reference: numpy eigvalsh on the matrix rebuilt per point. (Five points: at
     # U >= 7.5 the native k = 2 solver itself stops short on this ring, reported.)
-    import fockmill._records as records
-    from fockmill._plan import sweep_settings
-    from fockmill._records import ModelRecipe, PreparedModel
+    import fockmill.sweeps.records as records
+    from fockmill.sweeps.plan import sweep_settings
+    from fockmill.sweeps.records import ModelRecipe, PreparedModel
 
     monkeypatch.setattr(records, "SHARED_PATTERN_MIN_POINTS", 2)
     # The ring runs on the bipartite kernel, where Lanczos stays matrix-free by default;
     # the stored path (taken by models on the row kernel) is forced here.
-    import fockmill._solve as solve
+    import fockmill.problem.eigensolve as solve
 
     decide = solve._store_matrix
     monkeypatch.setattr(

@@ -24,14 +24,14 @@ from pathlib import Path
 import fockmill as fm
 import numpy as np
 import pytest
-from fockmill._model import Model
-from fockmill._modelfile import parse_model_text
-from fockmill._sector_choice import sector_choice
-from fockmill._store import ResultsStore
-from fockmill._sweep import run_sweep
 from fockmill.cli import main
 from fockmill.exceptions import ModelFileError, SizeLimitError, StoreError, SymmetryError
+from fockmill.files.modelfile import parse_model_text
 from fockmill.models import bose_hubbard, chain_edges
+from fockmill.models.model import Model
+from fockmill.spaces.sectors import sector_choice
+from fockmill.store.sweeps import ResultsStore
+from fockmill.sweeps.run import run_sweep
 from reference import sector_matrix
 
 # -- helpers ---------------------------------------------------------------------------
@@ -581,11 +581,11 @@ def test_cli_refuses_a_bad_symmetry_with_the_key_path(
 
 def test_dispersion_figure_of_one_solve() -> None:
     pytest.importorskip("matplotlib")
-    from fockmill._plot import dispersion_figure
+    from fockmill.plots.sweeps import dispersion_figure
 
     h = hubbard_expr(6, 0.0)
     dispersion = fm.momentum_levels(
-        h, fm.FockSpace(modes=6, cutoff=1, total=1), fm.ring_translation(6), k=1
+        h, fm.FockSpace(modes=6, cutoff=1, total=1), fm.ring_translation(6), levels=1
     )
     figure = dispersion_figure(dispersion, units={"energy": "meV"}, title="one particle")
     (axis,) = figure.axes
@@ -599,7 +599,7 @@ def test_dispersion_figure_of_one_solve() -> None:
 
 def test_sweep_dispersion_figure_and_sector_titles(tmp_path: Path) -> None:
     pytest.importorskip("matplotlib")
-    from fockmill._plot import sweep_dispersion_figure, sweep_figure
+    from fockmill.plots.sweeps import sweep_dispersion_figure, sweep_figure
 
     spec = parse_model_text(BAND_FILE)
     path = tmp_path / "band.sqlite"
@@ -631,3 +631,15 @@ def test_sweep_dispersion_figure_and_sector_titles(tmp_path: Path) -> None:
     run_sweep(model, [{"U": 1.0}, {"U": 2.0}], store=fixed, symmetry=symmetry, workers=1)
     title = sweep_figure(fixed, y=["energy"]).get_suptitle()
     assert title.endswith("sector: translation k = 2π·0/4, reflection even, dim 8")
+
+
+def test_momentum_levels_old_keyword_warns_and_agrees() -> None:
+    # One particle on a ring: E(q) = -2 cos(2πq/L) (Bloch's theorem; common practice, no
+    # source). The old keyword k= still works for one release, with a DeprecationWarning.
+    h = hubbard_expr(6, 0.0)
+    space = fm.FockSpace(modes=6, cutoff=1, total=1)
+    with pytest.warns(DeprecationWarning, match="levels="):
+        old = fm.momentum_levels(h, space, fm.ring_translation(6), k=1)
+    new = fm.momentum_levels(h, space, fm.ring_translation(6), levels=1)
+    np.testing.assert_array_equal(old.energies, new.energies)
+    np.testing.assert_allclose(new.energies[:, 0], -2 * np.cos(new.momenta), atol=1e-9)

@@ -30,14 +30,14 @@ import warnings
 from pathlib import Path
 
 import fockmill as fm
+import fockmill.cli.commands as cli
 import numpy as np
 import pytest
 import scipy.linalg as sla
-from fockmill import cli
-from fockmill._modelfile_dynamics import InitialState
-from fockmill._store import ResultsStore
-from fockmill._workflow_store import is_workflow_file
 from fockmill.exceptions import ModelFileError, StoreError
+from fockmill.files.dynamics import InitialState
+from fockmill.store.sweeps import ResultsStore
+from fockmill.store.workflows import is_workflow_file
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 from test_modelfile import VALUES, toml_document
@@ -794,7 +794,7 @@ def test_figures_have_units_titles_and_error_bars(
     results: dict[str, fm.WorkflowResult], tmp_path: Path
 ) -> None:
     pytest.importorskip("matplotlib", reason="plots need matplotlib (extra plot)")
-    from fockmill._plot_workflows import workflow_figure
+    from fockmill.plots.workflows import workflow_figure
 
     quench = workflow_figure(results["quench"])
     axes = quench.axes

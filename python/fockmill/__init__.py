@@ -48,57 +48,74 @@ write_workflow_results, plot_workflow
 """
 
 from fockmill import exceptions, models
-from fockmill._build import build_matrix
-from fockmill._correlations import density_correlations
-from fockmill._evolve import Evolution, evolve
-from fockmill._expr import LadderExpr, format_monomial, identity, lowering, number, raising
-from fockmill._memory import MemoryEstimate, available_memory, estimate_memory
-from fockmill._model import Model
-from fockmill._modelfile import (
-    ModelFile,
-    ModelFileError,
-    SweepGrid,
-    load_model_file,
-    parse_model_text,
-)
 from fockmill._native import __version__
-from fockmill._observe import (
+from fockmill.algebra import LadderExpr, format_monomial, identity, lowering, number, raising
+from fockmill.dynamics import (
+    Evolution,
+    SpectralPoles,
+    Thermal,
+    evolve,
+    spectral_function,
+    spectral_poles,
+    thermal,
+)
+from fockmill.exceptions import CutoffWarning, StateFileError
+from fockmill.files import ModelFile, ModelFileError, load_model_file, parse_model_text
+from fockmill.models import Model
+from fockmill.observables import (
+    SavedState,
+    density_correlations,
     entanglement_entropy,
     expectation,
+    load_state,
     number_variances,
     occupation_distribution,
     one_body_matrix,
     populations,
+    save_state,
     top_level_weights,
 )
-from fockmill._operator import LadderOperator, build_operator
-from fockmill._plot import plot_dispersion, plot_sweep
-from fockmill._plot_workflows import plot_workflow
-from fockmill._problem import Problem, prepare
-from fockmill._solve import GroundState, Levels, choose_method, ground_state, lowest_levels
-from fockmill._space import FockSpace
-from fockmill._spectral import SpectralPoles, spectral_function, spectral_poles
-from fockmill._statefile import SavedState, StateFileError, load_state, save_state
-from fockmill._store import PointResult, ResultsStore, StoreError, SweepTable
-from fockmill._sweep import run_sweep
-from fockmill._symmetry import (
+from fockmill.plots import plot_dispersion, plot_sweep, plot_workflow
+from fockmill.problem import (
+    GroundState,
+    LadderOperator,
+    Levels,
+    MemoryEstimate,
+    Problem,
+    available_memory,
+    build_matrix,
+    build_operator,
+    choose_method,
+    estimate_memory,
+    prepare,
+)
+from fockmill.solvers import (
+    CutoffScan,
     Dispersion,
+    converge_cutoffs,
+    ground_state,
+    lowest_levels,
+    momentum_levels,
+)
+from fockmill.spaces import (
+    FockSpace,
     ModePermutation,
     SymmetricSpace,
-    momentum_levels,
     ring_reflection,
     ring_translation,
     torus_translations,
 )
-from fockmill._thermal import Thermal, thermal
-from fockmill._truncation import CutoffScan, converge_cutoffs
-from fockmill._workflow_store import (
+from fockmill.store import (
+    PointResult,
+    ResultsStore,
+    StoreError,
+    SweepTable,
     WorkflowResult,
     read_workflow_results,
     write_workflow_results,
 )
-from fockmill._workflows import run_quench, run_spectrum, run_thermal
-from fockmill.exceptions import CutoffWarning
+from fockmill.sweeps import SweepGrid, run_sweep
+from fockmill.workflows import run_quench, run_spectrum, run_thermal
 
 __all__ = [
     "CutoffScan",

@@ -18,6 +18,7 @@ __all__ = [
     "PoolStartError",
     "SizeLimitError",
     "SpaceError",
+    "StateFileError",
     "StoreError",
     "SymmetryError",
 ]
@@ -79,6 +80,10 @@ class ModelFileError(ValueError):
 
     def __reduce__(self) -> tuple[type[ModelFileError], tuple[str, str | None, str]]:
         return (type(self), (self.source, self.key, self.problem))
+
+
+class StateFileError(ValueError):
+    """A state file is not a fockmill state file, is damaged, or does not fit the basis."""
 
 
 class StoreError(ValueError):

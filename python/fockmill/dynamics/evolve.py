@@ -1,0 +1,377 @@
+"""Time evolution ψ(t) = exp(−iHt) ψ(0) by Krylov (Lanczos) propagation with step-size
+control from the Krylov error estimate."""
+
+from __future__ import annotations
+
+import numbers
+import time
+from collections.abc import Callable, Mapping
+from dataclasses import dataclass
+from typing import Any
+
+import numpy as np
+import numpy.typing as npt
+import scipy.linalg as sla
+
+from fockmill.algebra.expressions import LadderExpr, as_expr
+from fockmill.dynamics.krylov import (
+    as_float_array,
+    check_common,
+    check_observables,
+    check_positive,
+    check_state,
+    hermitian_map,
+    top_weights,
+    warn_top_weights,
+)
+from fockmill.exceptions import ConvergenceError, SizeLimitError
+
+__all__ = ["Evolution", "evolve"]
+
+#: Krylov vectors per step by default (fewer when memory is short).
+DEFAULT_KRYLOV_DIM = 50
+#: Full reorthogonalisation when the Krylov basis has at most this many entries; beyond,
+#: the three-term recurrence alone (its loss of orthogonality leaves the Krylov
+#: exponential accurate: Druskin & Knizhnerman 1991, USSR Comput. Math. Math. Phys. 31, 20)
+#: and the O(m² dim) cost of reorthogonalising would rival the products.
+REORTHOGONALIZE_MAX = 20_000_000
+#: Local error estimates below this are round-off: accepted whatever the step.
+ROUNDOFF = 1e-15
+
+
+@dataclass(frozen=True)
+class Evolution:
+    """The result of :func:`evolve`.
+
+    Attributes
+    ----------
+    times : numpy.ndarray
+        The requested times (non-decreasing, >= 0).
+    values : dict of str to numpy.ndarray
+        ``⟨ψ(t)|O|ψ(t)⟩`` at each time for each observable; real when ``O`` is
+        Hermitian, else complex.
+    states : numpy.ndarray or None
+        ``(dim, len(times))`` complex states when ``keep_states=True``, else None.
+    final : numpy.ndarray
+        ψ at the last requested time (complex, shape ``(dim,)``).
+    top_weights : numpy.ndarray
+        For each mode, the largest weight on its highest kept level over the recorded
+        times (the truncation diagnostic); NaN for modes whose cutoff does not truncate
+        (the conserved total caps them there) and for spaces without modes.
+    steps : int
+        Krylov steps taken (each builds one Krylov space).
+    products : int
+        Products with ``H``.
+    method : str
+        ``"csr"`` (stored matrix) or ``"operator"`` (matrix-free).
+    error_estimate : float
+        Sum of the local Krylov error estimates over the steps (a bound on ``‖ψ − ψ_exact‖``
+        in the usual a posteriori sense).
+    seconds : float
+        Wall time.
+    """
+
+    times: npt.NDArray[np.float64]
+    values: dict[str, npt.NDArray[Any]]
+    states: npt.NDArray[np.complex128] | None
+    final: npt.NDArray[np.complex128]
+    top_weights: npt.NDArray[np.float64]
+    steps: int
+    products: int
+    method: str
+    error_estimate: float
+    seconds: float
+
+
+def _check_times(times: object) -> npt.NDArray[np.float64]:
+    t = as_float_array(times, "times")  # type: ignore[arg-type]
+    if np.any(t < 0):
+        raise ValueError(
+            f"times must be >= 0 (the given state is the state at t = 0); got {t[t < 0][0]}"
+        )
+    if np.any(np.diff(t) < 0):
+        k = int(np.nonzero(np.diff(t) < 0)[0][0])
+        raise ValueError(
+            f"times must be non-decreasing; times[{k}] = {t[k]} > times[{k + 1}] = {t[k + 1]}. "
+            "Sort them first"
+        )
+    return t
+
+
+def _expectation_function(
+    expr: LadderExpr, space: Any, threads: int | None
+) -> Callable[[npt.NDArray[Any]], complex]:
+    """``ψ -> ⟨ψ|O|ψ⟩`` without building a matrix when the space allows it."""
+    from fockmill.observables.observe import expectation
+    from fockmill.problem.builders import build_operator
+    from fockmill.spaces.fock import FockSpace
+
+    if isinstance(space, FockSpace):
+        return lambda psi: complex(expectation(expr, space, psi, threads=threads))
+    op = build_operator(expr, space, threads=threads)
+    return lambda psi: complex(np.vdot(psi, op @ psi))
+
+
+def _krylov_space(
+    apply: Callable[[npt.NDArray[Any]], npt.NDArray[Any]],
+    psi: npt.NDArray[np.complex128],
+    m: int,
+    basis: npt.NDArray[np.complex128],
+    reorthogonalize: bool,
+) -> tuple[npt.NDArray[np.float64], npt.NDArray[np.float64], float, int]:
+    """Lanczos (optionally with one full reorthogonalisation per step): fills
+    ``basis[:n]``, returns the diagonal, the off-diagonal, the next coupling ``beta_n``
+    (0 on an invariant subspace) and ``n``."""
+    norm = float(np.linalg.norm(psi))
+    basis[0] = psi / norm
+    alpha = np.zeros(m)
+    beta = np.zeros(m)
+    n = m
+    for j in range(m):
+        w = apply(basis[j])
+        alpha[j] = float(np.vdot(basis[j], w).real)
+        w = w - alpha[j] * basis[j]
+        if j > 0:
+            w -= beta[j - 1] * basis[j - 1]
+        if reorthogonalize:
+            # ⟨v_i|w⟩ as conj(v_i · conj(w)): no conjugated copy of the basis.
+            w -= basis[: j + 1].T @ (basis[: j + 1] @ w.conj()).conj()
+        b = float(np.linalg.norm(w))
+        beta[j] = b
+        scale = max(float(np.max(np.abs(alpha[: j + 1]))), float(np.max(beta[: j + 1])), 1e-300)
+        if b <= 1e-13 * scale:
+            # Invariant subspace: the propagation in it is exact.
+            return alpha[: j + 1], beta[:j], 0.0, j + 1
+        if j + 1 < m:
+            basis[j + 1] = w / b
+    return alpha[:n], beta[: n - 1], float(beta[n - 1]), n
+
+
+def _default_krylov_dim(dim: int, memory_limit: int | None) -> int:
+    """``DEFAULT_KRYLOV_DIM``, or fewer vectors when they would take more than a quarter
+    of the memory budget (never below 10)."""
+    from fockmill.dynamics.krylov import MEMORY_BUDGET
+    from fockmill.problem.memory import available_memory
+
+    limit = memory_limit if memory_limit is not None else available_memory()
+    if limit is None:
+        return DEFAULT_KRYLOV_DIM
+    fits = int(0.25 * MEMORY_BUDGET * limit // (16 * max(dim, 1)))
+    return max(10, min(DEFAULT_KRYLOV_DIM, fits))
+
+
+class _Propagator:
+    """``exp(−iτT) e₁`` in one Krylov space and its a posteriori error estimate."""
+
+    def __init__(
+        self, alpha: npt.NDArray[np.float64], beta: npt.NDArray[np.float64], beta_next: float
+    ) -> None:
+        if alpha.size > 1:
+            self.lam, self.u = sla.eigh_tridiagonal(alpha, beta)
+        else:
+            self.lam, self.u = alpha.copy(), np.ones((1, 1))
+        self.first = self.u[0, :]
+        self.last = self.u[-1, :] * self.first
+        self.beta_next = beta_next
+
+    def coefficients(self, tau: float) -> npt.NDArray[np.complex128]:
+        """Coordinates of ψ(τ) in the Krylov basis."""
+        return self.u @ (np.exp(-1j * tau * self.lam) * self.first)  # type: ignore[no-any-return]
+
+    def error(self, tau: float) -> float:
+        """``β_m |[exp(−iτT)]_{m,1}|``."""
+        return self.beta_next * abs(np.dot(self.last, np.exp(-1j * tau * self.lam)))
+
+
+def evolve(
+    H: LadderExpr,
+    space: Any,
+    psi0: npt.ArrayLike,
+    times: npt.ArrayLike,
+    observables: Mapping[str, LadderExpr] | None = None,
+    keep_states: bool = False,
+    tol: float = 1e-10,
+    *,
+    krylov_dim: int | None = None,
+    method: str = "auto",
+    threads: int | None = None,
+    memory_limit: int | None = None,
+    cutoff_warning: float | None = 1e-6,
+) -> Evolution:
+    """Propagate ``ψ(t) = exp(−iHt) ψ(0)`` (ħ = 1) and record observables.
+
+    Parameters
+    ----------
+    H : LadderExpr
+        A Hermitian Hamiltonian that conserves the space's sector.
+    space : FockSpace
+        The basis of the state.
+    psi0 : array_like
+        The normalised state at t = 0 (whatever ``times[0]`` is), shape ``(dim,)``.
+    times : array_like
+        Non-decreasing times >= 0 at which to record.
+    observables : dict of str to LadderExpr, optional
+        Recorded as ``⟨ψ(t)|O|ψ(t)⟩`` at each time, e.g. ``{"n0": fm.number(0)}``.
+    keep_states : bool
+        Also return every recorded state (``(dim, len(times))`` complex; memory!).
+    tol : float
+        Target accuracy of ψ at the last time, in norm (see Notes).
+    krylov_dim : int, optional
+        Largest Krylov space per step (memory: ``krylov_dim + 4`` complex vectors).
+        Default: ``DEFAULT_KRYLOV_DIM`` = 50 (larger spaces take longer steps and fewer
+        products overall), lowered to what fits in a quarter of the memory budget.
+    method : {"auto", "csr", "operator"}
+        Products on the stored matrix or matrix-free; ``"auto"`` stores the matrix when
+        it and the Krylov vectors fit in the memory budget.
+    threads : int, optional
+        Threads for builds and products.
+    memory_limit : int, optional
+        Bytes the computation may plan to use (default: the available memory).
+    cutoff_warning : float or None
+        Warn (:class:`~fockmill.exceptions.CutoffWarning`) when a truncating cutoff
+        carries more than this weight at any recorded time; None disables it.
+
+    Returns
+    -------
+    Evolution
+
+    Raises
+    ------
+    ValueError
+        Negative or unsorted times, a wrong-length or unnormalised state, a bad ``tol``.
+    NotHermitianError
+        ``H`` is not Hermitian.
+    SizeLimitError
+        The Krylov vectors (or the kept states) do not fit in memory.
+
+    Notes
+    -----
+    Each step builds a Krylov space ``K_m(H, ψ)`` by Lanczos (with full
+    reorthogonalisation while the basis has at most ``REORTHOGONALIZE_MAX`` entries)
+    and propagates inside it, ``ψ(t + τ) ≈ V exp(−iτT) e₁``
+    (Park & Light 1986, J. Chem. Phys. 85, 5870). The step ``τ`` is the largest for
+    which the a posteriori error estimate ``β_m |[exp(−iτT)]_{m,1}|`` (Hochbruck &
+    Lubich 1997, SIAM J. Numer. Anal. 34, 1911; Saad 1992, SIAM J. Numer. Anal. 29, 209)
+    stays below ``tol · τ / t_end``, so the estimates add up to at most ``tol`` over
+    ``[0, t_end]``. Requested times inside a step are read off the same Krylov space
+    without further products.
+
+    Examples
+    --------
+    >>> import numpy as np, fockmill as fm
+    >>> space = fm.FockSpace(modes=2, cutoff=1, total=1)
+    >>> h = fm.raising(0) * fm.lowering(1) + fm.raising(1) * fm.lowering(0)
+    >>> psi0 = np.array([0.0, 1.0])          # one photon in resonator 0
+    >>> ev = fm.evolve(h, space, psi0, [0.0, np.pi / 4], {"n0": fm.number(0)})
+    >>> ev.values["n0"].round(6).tolist()     # cos²(Jt)
+    [1.0, 0.5]
+    """
+    t_start = time.perf_counter()
+    e = as_expr(H)
+    threads, memory_limit = check_common(threads, memory_limit)
+    t = _check_times(times)
+    tol = check_positive(tol, "tol", "1e-10")
+    if krylov_dim is not None:
+        if isinstance(krylov_dim, bool) or not isinstance(krylov_dim, numbers.Integral):
+            raise TypeError(f"krylov_dim must be an integer >= 2 or None; got {krylov_dim!r}")
+        if krylov_dim < 2:
+            raise ValueError(f"krylov_dim must be >= 2; got {krylov_dim}")
+    if not isinstance(keep_states, bool | np.bool_):
+        raise TypeError(f"keep_states must be True or False; got {keep_states!r}")
+    psi = check_state(space, psi0, "psi0").astype(np.complex128)
+    obs = check_observables(observables, space)
+    dim = psi.shape[0]
+    if krylov_dim is None:
+        krylov_dim = _default_krylov_dim(dim, memory_limit)
+    m = int(min(krylov_dim, dim))
+    kept = dim * t.size * 16 if keep_states else 0
+    hmap = hermitian_map(
+        e,
+        space,
+        vectors=m + 4 + -(-kept // max(16 * dim, 1)),
+        threads=threads,
+        memory_limit=memory_limit,
+        method=method,
+    )
+    states = np.zeros((dim, t.size), dtype=np.complex128) if keep_states else None
+    hermitian = {name: o.is_hermitian() for name, o in obs.items()}
+    measure = {name: _expectation_function(o, space, threads) for name, o in obs.items()}
+    raw: dict[str, list[complex]] = {name: [] for name in obs}
+    weights_max = None
+    try:
+        basis = np.zeros((m, dim), dtype=np.complex128)
+    except MemoryError:
+        raise SizeLimitError(
+            f"the Krylov basis of {m} vectors of {dim:,} states does not fit; lower krylov_dim"
+        ) from None
+
+    def record(k: int, state: npt.NDArray[np.complex128]) -> None:
+        nonlocal weights_max
+        for name, f in measure.items():
+            raw[name].append(f(state))
+        if states is not None:
+            states[:, k] = state
+        w = top_weights(space, state, threads)
+        weights_max = w if weights_max is None else np.fmax(weights_max, w)
+
+    t_end = float(t[-1])
+    now = 0.0
+    k = 0
+    steps = 0
+    error_sum = 0.0
+    while k < t.size and t[k] <= now:
+        record(k, psi)
+        k += 1
+    reorthogonalize = m * dim <= REORTHOGONALIZE_MAX
+    while k < t.size:
+        alpha, beta, beta_next, n = _krylov_space(hmap, psi, m, basis, reorthogonalize)
+        steps += 1
+        step = _Propagator(alpha, beta, beta_next)
+        coefficients, error = step.coefficients, step.error
+        remaining = t_end - now
+        allowed = tol / t_end
+        # The estimate cannot resolve values below round-off (its eigenbasis sum
+        # cancels there), so anything under ROUNDOFF counts as converged.
+        if error(remaining) <= max(allowed * remaining, ROUNDOFF):
+            tau = remaining
+        else:
+            # Largest τ with error(τ) <= allowed·τ; error(τ)/τ grows like τ^(m−1).
+            lo, hi = 0.0, remaining
+            for _ in range(60):
+                mid = 0.5 * (lo + hi)
+                if error(mid) <= max(allowed * mid, ROUNDOFF):
+                    lo = mid
+                else:
+                    hi = mid
+            tau = lo
+            if tau <= 1e-14 * max(t_end, 1.0):
+                raise ConvergenceError(
+                    f"the Krylov step shrank to {tau:.3e} at t = {now:.6g}; raise tol or krylov_dim"
+                )
+        error_sum += error(tau)
+        # Requested times inside this step come from the same Krylov space.
+        while k < t.size and t[k] <= now + tau:
+            record(k, coefficients(float(t[k]) - now) @ basis[:n])
+            k += 1
+        psi = coefficients(tau) @ basis[:n]
+        now += tau
+    values: dict[str, npt.NDArray[Any]] = {}
+    for name, series in raw.items():
+        arr = np.asarray(series, dtype=np.complex128)
+        values[name] = arr.real.copy() if hermitian[name] else arr
+    assert weights_max is not None
+    warn_top_weights(space, weights_max, cutoff_warning, "the evolving state")
+    # The propagation ends exactly at the last requested time.
+    final = states[:, -1].copy() if states is not None else psi
+    return Evolution(
+        times=t,
+        values=values,
+        states=states,
+        final=final,
+        top_weights=weights_max,
+        steps=steps,
+        products=hmap.products,
+        method=hmap.method,
+        error_estimate=error_sum,
+        seconds=time.perf_counter() - t_start,
+    )

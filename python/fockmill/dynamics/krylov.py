@@ -1,0 +1,303 @@
+"""Shared machinery of the dynamics, spectral and thermal functions: a Hermitian
+operator applied from a stored matrix or matrix-free (chosen from memory), and the
+Lanczos recurrence that all three build on."""
+
+from __future__ import annotations
+
+import numbers
+from collections.abc import Callable, Mapping, Sequence
+from dataclasses import dataclass, field
+from typing import Any
+
+import numpy as np
+import numpy.typing as npt
+
+from fockmill.algebra.expressions import LadderExpr
+from fockmill.exceptions import CutoffWarning, NotHermitianError, SizeLimitError
+from fockmill.settings.checks import check_memory_limit, check_threads
+
+__all__ = [
+    "HermitianMap",
+    "check_observables",
+    "check_state",
+    "hermitian_map",
+    "lanczos_coefficients",
+    "top_weights",
+    "warn_top_weights",
+]
+
+#: Fraction of the available memory a computation may plan to use.
+MEMORY_BUDGET = 0.8
+
+
+@dataclass
+class HermitianMap:
+    """``x -> H x`` for a Hermitian ``H`` on a space, counting products.
+
+    Attributes
+    ----------
+    dim : int
+        Dimension of the space.
+    is_real : bool
+        Whether ``H`` has real matrix elements.
+    method : str
+        ``"csr"`` (stored scipy matrix) or ``"operator"`` (matrix-free products in Rust).
+    products : int
+        Vectors multiplied so far.
+    """
+
+    dim: int
+    is_real: bool
+    method: str
+    _apply: Callable[[npt.NDArray[Any]], npt.NDArray[Any]] = field(repr=False)
+    products: int = 0
+
+    def __call__(self, x: npt.NDArray[Any]) -> npt.NDArray[Any]:
+        self.products += 1
+        return self._apply(x)
+
+
+def check_hermitian(expr: LadderExpr, what: str = "the Hamiltonian") -> None:
+    """Refuse a non-Hermitian expression, showing its anti-Hermitian part."""
+    if not expr.is_hermitian():
+        anti = (expr - expr.adjoint()) * 0.5
+        raise NotHermitianError(
+            f"{what} is not Hermitian (its anti-Hermitian part is {anti}); add the Hermitian "
+            "conjugate of each term, e.g. h + h.adjoint(), or use expr.hermitian_part()"
+        )
+
+
+def _budget(memory_limit: int | None, available: int | None) -> float:
+    limit = memory_limit if memory_limit is not None else available
+    return float("inf") if limit is None else MEMORY_BUDGET * limit
+
+
+def hermitian_map(
+    expr: LadderExpr,
+    space: Any,
+    *,
+    vectors: int,
+    threads: int | None,
+    memory_limit: int | None,
+    method: str = "auto",
+    complex_vectors: bool = True,
+) -> HermitianMap:
+    """The product ``x -> H x`` on ``space``, stored or matrix-free.
+
+    ``"auto"`` stores the CSR matrix when it and ``vectors`` state vectors fit in
+    ``MEMORY_BUDGET`` of the memory (scipy's CSR product), else uses the matrix-free
+    product (parallel, in Rust, O(terms) memory); refuses with
+    :class:`~fockmill.exceptions.SizeLimitError` when even the vectors do not fit.
+    """
+    from fockmill.problem.memory import format_bytes
+    from fockmill.problem.problem import prepare
+
+    if method not in ("auto", "csr", "operator"):
+        raise ValueError(f"method must be 'auto', 'csr' or 'operator'; got {method!r}")
+    check_hermitian(expr)
+    problem = prepare(expr, space, threads=threads, memory_limit=memory_limit)
+    estimate = problem.estimate
+    item = 16 if complex_vectors else estimate.value_dtype.itemsize
+    vector_bytes = vectors * estimate.dim * item
+    budget = _budget(memory_limit, estimate.available_bytes)
+    if vector_bytes > budget:
+        raise SizeLimitError(
+            f"{vectors} state vectors need {format_bytes(vector_bytes)} ({estimate}), more "
+            "than the memory allowed; use a smaller sector or cutoffs, fewer Krylov vectors, "
+            "or raise memory_limit"
+        )
+    chosen = method
+    if method == "auto":
+        chosen = "csr" if estimate.build_peak_bytes + vector_bytes <= budget else "operator"
+    is_real = problem.is_real
+    if chosen == "csr":
+        matrix = problem.matrix()
+
+        def apply(x: npt.NDArray[Any]) -> npt.NDArray[Any]:
+            if is_real and x.dtype.kind == "c":
+                # One pass over the real matrix for both parts (scipy would otherwise
+                # convert the whole matrix to complex on every product).
+                both = matrix @ np.stack([x.real, x.imag], axis=1)
+                return both[:, 0] + 1j * both[:, 1]
+            return np.asarray(matrix @ x)
+
+        return HermitianMap(estimate.dim, is_real, "csr", apply)
+    native, pool = problem.native, problem.pool
+
+    def apply_free(x: npt.NDArray[Any]) -> npt.NDArray[Any]:
+        return native.matvec(np.ascontiguousarray(x), pool)  # type: ignore[no-any-return]
+
+    return HermitianMap(estimate.dim, is_real, "operator", apply_free)
+
+
+def check_state(space: Any, psi: object, name: str = "psi", tol: float = 1e-8) -> Any:
+    """A normalised state of the space as a contiguous float64/complex128 array."""
+    from fockmill.observables.observe import check_vector
+
+    v = check_vector(space, psi, name)  # type: ignore[arg-type]
+    norm = float(np.linalg.norm(v))
+    if abs(norm - 1.0) > tol:
+        raise ValueError(
+            f"{name} has norm {norm:.12g}, not 1; normalise it first (psi / numpy.linalg.norm(psi))"
+        )
+    return v
+
+
+def check_observables(
+    observables: Mapping[str, object] | None, space: Any
+) -> dict[str, LadderExpr]:
+    """The observables as a name -> expression dict, each validated on the space."""
+    from fockmill.algebra.expressions import as_expr
+    from fockmill.problem.compile import compile_operator
+
+    if observables is None:
+        return {}
+    if not isinstance(observables, Mapping):
+        raise TypeError(
+            "observables must be a mapping of names to expressions, e.g. "
+            "{'n0': fm.number(0)}; got " + type(observables).__name__
+        )
+    out: dict[str, LadderExpr] = {}
+    for name, expr in observables.items():
+        if not isinstance(name, str):
+            raise TypeError(f"observable names must be strings; got {name!r}")
+        e = as_expr(expr)
+        compile_operator(e, space)  # mode indices, charge, finiteness
+        out[name] = e
+    return out
+
+
+def check_positive(value: object, name: str, example: str) -> float:
+    """A positive finite real number."""
+    if isinstance(value, bool) or not isinstance(value, numbers.Real) or not np.isfinite(value):
+        raise ValueError(
+            f"{name} must be a positive finite number such as {example}; got {value!r}"
+        )
+    if value <= 0:
+        raise ValueError(f"{name} must be > 0; got {value}")
+    return float(value)
+
+
+def check_common(threads: object, memory_limit: object) -> tuple[int | None, int | None]:
+    """Validated ``threads`` and ``memory_limit``."""
+    return check_threads(threads), check_memory_limit(memory_limit)
+
+
+def lanczos_coefficients(
+    apply: Callable[[npt.NDArray[Any]], npt.NDArray[Any]],
+    start: npt.NDArray[Any],
+    max_steps: int,
+    *,
+    keep_basis: bool = False,
+    done: Callable[[list[float], list[float]], bool] | None = None,
+    on_vector: Callable[[int, npt.NDArray[Any]], None] | None = None,
+) -> tuple[npt.NDArray[np.float64], npt.NDArray[np.float64], npt.NDArray[Any] | None]:
+    """Lanczos recurrence from a unit vector: diagonal ``alpha`` and off-diagonal
+    ``beta`` of the tridiagonal matrix (``beta[j]`` couples steps ``j`` and ``j + 1``).
+
+    With ``keep_basis`` the vectors are stored (rows of the returned array) and every
+    new vector is reorthogonalised against all earlier ones (twice, classical
+    Gram-Schmidt); without it three vectors are kept and orthogonality is only local,
+    which leaves the spectral weights and thermal sums intact (Paige's analysis; spurious
+    copies of converged levels share their weight). ``done(alpha, beta)`` is asked after
+    each step; ``on_vector(j, v_j)`` sees each Lanczos vector. The recurrence stops early
+    on an invariant subspace (``beta`` below ``1e-12`` of the scale).
+    """
+    dim = start.shape[0]
+    steps = min(max_steps, dim)
+    alpha: list[float] = []
+    beta: list[float] = []
+    basis = np.zeros((steps, dim), dtype=start.dtype) if keep_basis else None
+    v = start
+    v_prev: npt.NDArray[Any] | None = None
+    scale = 0.0
+    for j in range(steps):
+        if basis is not None:
+            basis[j] = v
+        if on_vector is not None:
+            on_vector(j, v)
+        w = apply(v)
+        if w.dtype != v.dtype:
+            w = w.astype(np.result_type(w.dtype, v.dtype))
+        a = float(np.vdot(v, w).real)
+        alpha.append(a)
+        w = w - a * v
+        if v_prev is not None:
+            w = w - beta[-1] * v_prev
+        if basis is not None:
+            for _ in range(2):
+                w = w - basis[: j + 1].T @ (basis[: j + 1] @ w.conj()).conj()
+        b = float(np.linalg.norm(w))
+        scale = max(scale, abs(a), b)
+        if done is not None and done(alpha, beta):
+            break
+        if j == steps - 1 or b <= 1e-12 * max(scale, 1e-300):
+            break
+        beta.append(b)
+        v_prev, v = v, w / b
+        if basis is not None and v.dtype != basis.dtype:
+            basis = basis.astype(v.dtype)
+    n = len(alpha)
+    kept = None if basis is None else basis[:n]
+    return np.asarray(alpha), np.asarray(beta[: n - 1]), kept
+
+
+def top_weights(space: Any, vector: npt.NDArray[Any], threads: int | None) -> npt.NDArray[Any]:
+    """Weight on each mode's highest kept level where that level is a truncation.
+
+    NaN for modes whose cutoff does not truncate (the conserved total caps the mode
+    there, so its top level is physical) and for spaces without modes; no pass over
+    the state is made when no cutoff truncates.
+    """
+    from fockmill.observables.observe import top_level_weights
+    from fockmill.spaces.fock import FockSpace
+
+    out = np.full(getattr(space, "modes", 0), np.nan)
+    if not isinstance(space, FockSpace):
+        return out
+    binding = np.asarray(space.binding_cutoffs(), dtype=bool)
+    if binding.any():
+        out[binding] = top_level_weights(space, vector, threads=threads)[binding]
+    return out
+
+
+def warn_top_weights(
+    space: Any, weights: npt.NDArray[Any], threshold: float | None, what: str
+) -> None:
+    """CutoffWarning when a truncating cutoff (>= 2) carries more than ``threshold``."""
+    import warnings
+
+    if threshold is None or not hasattr(space, "binding_cutoffs"):
+        return
+    binding = space.binding_cutoffs()
+    flagged = [
+        (i, float(w))
+        for i, w in enumerate(weights)
+        if binding[i] and space.cutoffs[i] >= 2 and np.isfinite(w) and w > threshold
+    ]
+    if flagged:
+        detail = ", ".join(f"mode {i}: {w:.2e}" for i, w in flagged[:6])
+        warnings.warn(
+            f"{what} has weight on the highest kept level ({detail}); the cutoff may be too "
+            "low. Raise it (see fm.converge_cutoffs) or pass cutoff_warning=None if the "
+            "truncation is intended",
+            CutoffWarning,
+            stacklevel=3,
+        )
+
+
+def as_float_array(values: Sequence[object] | npt.ArrayLike, name: str) -> npt.NDArray[np.float64]:
+    """A 1-D float array of finite values, or a clear error."""
+    try:
+        arr = np.asarray(values, dtype=np.float64)
+    except (TypeError, ValueError):
+        raise TypeError(f"{name} must be a sequence of real numbers; got {values!r}") from None
+    if arr.ndim == 0:
+        arr = arr.reshape(1)
+    if arr.ndim != 1 or arr.size == 0:
+        raise ValueError(
+            f"{name} must be a non-empty 1-D sequence of numbers; got shape {arr.shape}"
+        )
+    if not np.all(np.isfinite(arr)):
+        raise ValueError(f"{name} contains NaN or inf")
+    return arr

@@ -1,0 +1,912 @@
+"""Model files: a TOML description of a model, a parameter sweep and what to record.
+
+A model file names one of the ready-made models of :mod:`fockmill.models.builders`, its
+lattice and Fock space, default parameter values, optional drives, an optional grid
+of parameter values to sweep, the quantities to record at each point and solver
+settings. :func:`load_model_file` checks everything up front and turns the file into a
+:class:`ModelFile`; every mistake raises :class:`ModelFileError` naming the file, the
+key and what was expected.
+
+The user-facing description of every key, with types, defaults and examples, is
+``docs/model-files.md``; this is a summary.
+
+Schema (every table but ``[model]`` is optional; unknown keys are errors)
+-----------------------------------------------------------------------
+``schema = 1``
+    Optional version marker of this layout.
+``[model]``
+    ``kind`` is ``"bose-hubbard"``, ``"jaynes-cummings-hubbard"`` or
+    ``"kerr-network"``; the other keys depend on it:
+
+    * bose-hubbard: ``lattice`` = ``"chain"`` | ``"ring"`` (with ``sites``),
+      ``"rectangle"`` (with ``rows``, ``cols``, optional ``periodic``) or ``"edges"``
+      (with ``edges = [[i, j], [i, j, t], ...]`` and optional ``sites``); ``cutoff``
+      (integer or one per site; optional when ``total`` is given), ``total``.
+    * jaynes-cummings-hubbard: ``sites``, ``cavity_cutoff``, optional ``periodic``
+      and ``total`` (conserved excitations).
+    * kerr-network: ``frequencies = [...]``, optional ``self_kerr`` (number or one per
+      mode), ``cross_kerr = [[i, j, chi], ...]``, ``couplings = [[i, j, g], ...]``;
+      ``cutoff`` (integer or one per mode), optional ``total``.
+``[terms.NAME]``
+    The user's own terms, multiplied by parameter ``NAME`` (new, or an existing one
+    whose family they join): ``value`` (default of a new parameter, 1.0), ``fixed``
+    (add to every point instead), ``terms = ["0.5 raise(0) lower(1)", ...]`` (syntax
+    in :mod:`fockmill.algebra.terms`), ``per_mode = "count(@)"`` with ``modes``,
+    ``weights`` or ``random = {distribution, seed, low/high or mean/std}``, and
+    ``add_adjoint``.
+``[parameters]``
+    Default value of any model parameter (``J``, ``U``, ``mu``; ``wc``, ``we``,
+    ``g``, ``J``; ``frequency_scale``, ``kerr_scale``, ``cross_kerr_scale``,
+    ``exchange_scale``; ``drive``, ``two_photon``; names made in ``[terms]``).
+``[units]``
+    ``energy = "J"`` and ``NAME = "unit"`` per parameter: labels for plots and tables.
+``[drives]``
+    ``coherent = [[mode, amplitude], ...]``, ``two_photon = [[mode, amplitude], ...]``
+    (see :func:`fockmill.models.builders.with_drives`).
+``[sweep.NAME]``
+    One table per swept parameter, in sweep order: ``values = [...]``, or ``start``,
+    ``stop``, ``num`` (>= 2) and optional ``spacing = "linear"`` (default) or
+    ``"geometric"``. The grid is the Cartesian product, last table varying fastest.
+``[record]``
+    ``quantities = [...]`` from ``energy``, ``gap``, ``levels``, ``populations``,
+    ``number_variance``, ``one_body``, ``entropy``, ``top_weight``, ``residual``
+    (default ``["energy"]``); ``levels`` (how many lowest levels to compute);
+    ``entropy_modes`` (the subsystem for ``entropy``; default the first half of the
+    modes).
+``[symmetry]``
+    The symmetry sector(s) to solve in: ``translation`` (a label or ``"all"``),
+    ``reflection``, ``permutations`` with ``labels`` (see
+    :mod:`fockmill.files.symmetry`).
+``[solver]``
+    The keywords of :func:`fockmill.ground_state`, same names, defaults and meanings:
+    ``method`` (``"auto"``, ``"dense"``, ``"csr"``, ``"operator"``, ``"lanczos"``;
+    default ``"auto"``), ``tol`` (default 1e-9), ``seed`` (default 0),
+    ``max_iterations`` (matrix-vector products; default: the solver's own), ``threads``.
+``[quench]``, ``[spectrum]``, ``[temperature]``
+    Dynamics, spectra and thermal curves; read by :mod:`fockmill.files.dynamics`.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import hashlib
+import os
+import re
+import tomllib
+import warnings
+from collections.abc import Mapping
+from dataclasses import dataclass, field
+from typing import TYPE_CHECKING, Any
+
+import numpy as np
+import numpy.typing as npt
+
+from fockmill.algebra.expressions import LadderExpr
+from fockmill.exceptions import ModelFileError
+from fockmill.files.dynamics import parse_dynamics_sections
+from fockmill.files.reader import (
+    MAX_CUTOFF,
+    MAX_MODES,
+    MAX_POINTS,
+    MAX_TOTAL,
+    Reader,
+    check_charge,
+    join_key,
+    read_axis,
+    read_term,
+)
+from fockmill.models.builders import (
+    bose_hubbard,
+    chain_edges,
+    jaynes_cummings_hubbard,
+    kerr_network,
+    rectangular_edges,
+    with_drives,
+)
+from fockmill.models.model import Model
+from fockmill.settings.checks import MAX_SEED, MAX_THREADS, METHODS
+from fockmill.sweeps.plan import RECORDABLE, SweepGrid
+
+if TYPE_CHECKING:
+    from fockmill.spaces.sectors import SectorChoice
+
+__all__ = [
+    "KINDS",
+    "RECORDABLE",
+    "SOLVER_METHODS",
+    "ModelFile",
+    "ModelFileError",
+    "SweepGrid",
+    "load_model_file",
+    "parse_model_text",
+]
+
+KINDS: tuple[str, ...] = ("bose-hubbard", "jaynes-cummings-hubbard", "kerr-network")
+"""Values of ``model.kind``."""
+
+SOLVER_METHODS: tuple[str, ...] = METHODS
+"""Values of ``solver.method`` (the solvers' own methods)."""
+
+SCHEMA_VERSION = 1
+
+_LATTICES = ("chain", "ring", "rectangle", "edges")
+_DEFAULT_LEVELS = {"gap": 2, "levels": 4}
+
+
+@dataclass(frozen=True)
+class ModelFile:
+    """Everything a model file describes, checked and built.
+
+    Attributes
+    ----------
+    path : str or None
+        The file read, None for text given directly.
+    model : Model
+        The model with the file's parameter defaults (and drives, if any).
+    sweep : SweepGrid or None
+        The parameter grid, None for a single point at the defaults.
+    quantities : tuple of str
+        Quantities to record per point (``record.quantities``, see ``RECORDABLE``).
+    levels : int
+        How many lowest levels to compute (>= 2 when ``"gap"`` is recorded).
+    solver : dict
+        The keywords of ``ground_state``/``run_sweep``: ``{"method": str, "tol": float,
+        "seed": int, "max_iterations": int | None, "threads": int | None}``.
+    entropy_modes : tuple of int
+        Subsystem modes for ``"entropy"`` (empty when it is not recorded).
+    text_hash : str
+        SHA-256 (hex) of the file's text.
+    units : dict of str to str
+        ``[units]``: unit of ``"energy"`` and of any parameter, e.g.
+        ``{"energy": "J", "U": "J"}`` (empty when the file has none).
+    mode_weights : dict of str to tuple of float
+        For every ``[terms.NAME]`` table with ``per_mode``, the weight used on each
+        listed mode (the listed ``weights`` or the drawn disorder), in ``modes`` order.
+    descriptions : dict of str to str
+        ``[terms.NAME] description``: what a user's parameter is, for axis labels.
+    quench, spectrum, temperature : QuenchSpec, SpectrumSpec, TemperatureSpec or None
+        The ``[quench]``, ``[spectrum]`` and ``[temperature]`` sections (see
+        :mod:`fockmill.files.dynamics`); None when absent.
+    symmetry : SectorChoice or None
+        ``[symmetry]``: the sector(s) to solve in, None for the whole space.
+    """
+
+    path: str | None
+    model: Model
+    sweep: SweepGrid | None
+    quantities: tuple[str, ...]
+    levels: int
+    solver: dict[str, object]
+    entropy_modes: tuple[int, ...]
+    text_hash: str
+    units: dict[str, str] = field(default_factory=dict)
+    mode_weights: dict[str, tuple[float, ...]] = field(default_factory=dict)
+    descriptions: dict[str, str] = field(default_factory=dict)
+    # [quench], [spectrum], [temperature] (see fockmill.files.dynamics); None if absent.
+    quench: Any = None
+    spectrum: Any = None
+    temperature: Any = None
+    symmetry: SectorChoice | None = None
+
+    def __hash__(self) -> int:
+        return hash(self.text_hash)
+
+    @property
+    def record(self) -> tuple[str, ...]:
+        """Deprecated name of :attr:`quantities`."""
+        import warnings
+
+        warnings.warn(
+            "ModelFile.record is deprecated; use ModelFile.quantities",
+            DeprecationWarning,
+            stacklevel=2,
+        )
+        return self.quantities
+
+
+# -- reading values with key paths --------------------------------------------------------
+
+
+# -- the [model] table --------------------------------------------------------------------
+
+
+def _cutoff(reader: Reader, value: object, path: str, modes: int) -> int | list[int]:
+    """An integer cutoff, or one per mode."""
+    if isinstance(value, list):
+        items = reader.array(value, path, "integers (one per mode)")
+        if len(items) != modes:
+            reader.fail(
+                path, f"expected {modes} cutoffs (one per mode) or one integer; got {len(items)}"
+            )
+        return [reader.integer(v, join_key(path, k), 1, MAX_CUTOFF) for k, v in enumerate(items)]
+    if isinstance(value, bool) or not isinstance(value, int):
+        reader.wrong(path, f"an integer from 1 to {MAX_CUTOFF}, or an array of them", value)
+    return reader.integer(value, path, 1, MAX_CUTOFF)
+
+
+def _total(reader: Reader, table: Mapping[str, Any], path: str) -> int | None:
+    if "total" not in table:
+        return None
+    return reader.integer(table["total"], join_key(path, "total"), 0, MAX_TOTAL)
+
+
+def _triples(
+    reader: Reader, value: object, path: str, modes: int | None, what: str
+) -> list[tuple[int, int, float]]:
+    """``[[i, j, x], ...]`` (``x`` optional only for edges, where it defaults to 1)."""
+    optional_value = what == "t"
+    shape = f"[i, j] or [i, j, {what}]" if optional_value else f"[i, j, {what}]"
+    rows = reader.array(value, path, f"{shape} arrays")
+    out: list[tuple[int, int, float]] = []
+    seen: dict[frozenset[int], int] = {}
+    upper = MAX_MODES - 1 if modes is None else modes - 1
+    for k, row in enumerate(rows):
+        row_path = join_key(path, k)
+        if not isinstance(row, list) or len(row) not in ((2, 3) if optional_value else (3,)):
+            reader.wrong(row_path, shape, row)
+        i = reader.integer(row[0], join_key(row_path, 0), 0, upper)
+        j = reader.integer(row[1], join_key(row_path, 1), 0, upper)
+        if i == j:
+            reader.fail(row_path, f"expected two different modes; got [{i}, {j}, ...]")
+        pair = frozenset((i, j))
+        if pair in seen:
+            reader.fail(row_path, f"pair ({i}, {j}) repeats {join_key(path, seen[pair])}")
+        seen[pair] = k
+        x = reader.number(row[2], join_key(row_path, 2)) if len(row) == 3 else 1.0
+        out.append((i, j, x))
+    return out
+
+
+def _bose_hubbard(reader: Reader, table: Mapping[str, Any], needs_cutoff: bool) -> Model:
+    path = "model"
+    lattice = reader.choice(
+        reader.required(table, "lattice", path, "one of " + ", ".join(_LATTICES)),
+        "model.lattice",
+        _LATTICES,
+    )
+    common = ["kind", "lattice", "cutoff", "total"]
+    specific = {
+        "chain": ["sites"],
+        "ring": ["sites"],
+        "rectangle": ["rows", "cols", "periodic"],
+        "edges": ["edges", "sites"],
+    }[lattice]
+    reader.check_keys(table, path, common + specific, hint=f' for lattice = "{lattice}"')
+    sites: int | None = None
+    if lattice in ("chain", "ring"):
+        minimum = 3 if lattice == "ring" else 1
+        sites = reader.integer(
+            reader.required(table, "sites", path, f"an integer >= {minimum}"),
+            "model.sites",
+            minimum,
+            MAX_MODES,
+        )
+        edges: list[Any] = chain_edges(sites, periodic=lattice == "ring")
+    elif lattice == "rectangle":
+        rows = reader.integer(
+            reader.required(table, "rows", path, "an integer >= 1"), "model.rows", 1, MAX_MODES
+        )
+        cols = reader.integer(
+            reader.required(table, "cols", path, "an integer >= 1"), "model.cols", 1, MAX_MODES
+        )
+        if rows * cols > MAX_MODES:
+            reader.fail("model", f"expected rows * cols <= {MAX_MODES}; got {rows * cols}")
+        periodic = reader.boolean(table.get("periodic", False), "model.periodic")
+        sites = rows * cols
+        edges = rectangular_edges(rows, cols, periodic)
+    else:
+        if "sites" in table:
+            sites = reader.integer(table["sites"], "model.sites", 1, MAX_MODES)
+        edges = _triples(
+            reader,
+            reader.required(table, "edges", path, "[[i, j], ...]"),
+            "model.edges",
+            sites,
+            "t",
+        )
+        if sites is None:
+            sites = 1 + max(max(i, j) for i, j, _ in edges)
+    total = _total(reader, table, path)
+    cutoff: int | list[int] | None = None
+    if "cutoff" in table:
+        cutoff = _cutoff(reader, table["cutoff"], "model.cutoff", sites)
+    elif total is None:
+        reader.fail("model.cutoff", "missing; expected an integer >= 1 (or give model.total)")
+    elif needs_cutoff:
+        reader.fail(
+            "model.cutoff",
+            "missing; expected an integer >= 1, required with [drives] because drives "
+            "leave the fixed-total sector and the cutoff then truncates",
+        )
+    return bose_hubbard(edges, sites=sites, cutoff=cutoff, total=total)
+
+
+def _jaynes_cummings_hubbard(reader: Reader, table: Mapping[str, Any]) -> Model:
+    path = "model"
+    reader.check_keys(table, path, ["kind", "sites", "periodic", "cavity_cutoff", "total"])
+    periodic = reader.boolean(table.get("periodic", False), "model.periodic")
+    minimum = 3 if periodic else 1
+    sites = reader.integer(
+        reader.required(table, "sites", path, f"an integer >= {minimum}"),
+        "model.sites",
+        minimum,
+        MAX_MODES // 2,
+    )
+    cavity_cutoff = reader.integer(
+        reader.required(table, "cavity_cutoff", path, "an integer >= 1"),
+        "model.cavity_cutoff",
+        1,
+        MAX_CUTOFF,
+    )
+    return jaynes_cummings_hubbard(
+        sites, periodic=periodic, cavity_cutoff=cavity_cutoff, total=_total(reader, table, path)
+    )
+
+
+def _kerr_network(reader: Reader, table: Mapping[str, Any]) -> Model:
+    path = "model"
+    allowed = ["kind", "frequencies", "self_kerr", "cross_kerr", "couplings", "cutoff", "total"]
+    reader.check_keys(table, path, allowed)
+    raw = reader.array(
+        reader.required(table, "frequencies", path, "an array of numbers (one per mode)"),
+        "model.frequencies",
+        "numbers (one per mode)",
+    )
+    if len(raw) > MAX_MODES:
+        reader.fail("model.frequencies", f"expected at most {MAX_MODES} modes; got {len(raw)}")
+    frequencies = [reader.number(v, join_key("model.frequencies", k)) for k, v in enumerate(raw)]
+    modes = len(frequencies)
+    self_kerr: float | list[float] = 0.0
+    if "self_kerr" in table:
+        value = table["self_kerr"]
+        if isinstance(value, list):
+            items = reader.array(value, "model.self_kerr", "numbers (one per mode)")
+            if len(items) != modes:
+                reader.fail(
+                    "model.self_kerr",
+                    f"expected one number or {modes} (one per mode); got {len(items)} numbers",
+                )
+            self_kerr = [
+                reader.number(v, join_key("model.self_kerr", k)) for k, v in enumerate(items)
+            ]
+        else:
+            self_kerr = reader.number(value, "model.self_kerr")
+    pairs: dict[str, dict[tuple[int, int], float]] = {}
+    for key, what in (("cross_kerr", "chi"), ("couplings", "g")):
+        if key in table:
+            triples = _triples(reader, table[key], join_key(path, key), modes, what)
+            pairs[key] = {(i, j): x for i, j, x in triples}
+    cutoff = _cutoff(
+        reader,
+        reader.required(table, "cutoff", path, "an integer >= 1 or one per mode"),
+        "model.cutoff",
+        modes,
+    )
+    return kerr_network(
+        frequencies,
+        self_kerr=self_kerr,
+        cross_kerr=pairs.get("cross_kerr"),
+        couplings=pairs.get("couplings"),
+        cutoff=cutoff,
+        total=_total(reader, table, path),
+    )
+
+
+def _drive_table(
+    reader: Reader, value: object, path: str, modes: int
+) -> dict[str, dict[int, float]]:
+    table = reader.table(value, path)
+    reader.check_keys(table, path, ["coherent", "two_photon"])
+    if not table:
+        reader.fail(path, "empty; expected coherent = [[mode, amplitude], ...] or two_photon")
+    drives: dict[str, dict[int, float]] = {}
+    for key, entries in table.items():
+        key_path = join_key(path, key)
+        rows = reader.array(entries, key_path, "[mode, amplitude] pairs")
+        amplitudes: dict[int, float] = {}
+        for k, row in enumerate(rows):
+            row_path = join_key(key_path, k)
+            if not isinstance(row, list) or len(row) != 2:
+                reader.wrong(row_path, "[mode, amplitude]", row)
+            mode = reader.integer(row[0], join_key(row_path, 0), 0, modes - 1)
+            if mode in amplitudes:
+                reader.fail(join_key(row_path, 0), f"mode {mode} is driven twice; list it once")
+            amplitudes[mode] = reader.number(row[1], join_key(row_path, 1))
+        drives[key] = amplitudes
+    return drives
+
+
+def _build_model(reader: Reader, document: Mapping[str, Any]) -> Model:
+    table = reader.table(
+        reader.required(document, "model", "", "a [model] table with a kind"), "model"
+    )
+    kind = reader.choice(
+        reader.required(table, "kind", "model", "one of " + ", ".join(f'"{k}"' for k in KINDS)),
+        "model.kind",
+        KINDS,
+    )
+    try:
+        if kind == "bose-hubbard":
+            model = _bose_hubbard(reader, table, needs_cutoff="drives" in document)
+        elif kind == "jaynes-cummings-hubbard":
+            model = _jaynes_cummings_hubbard(reader, table)
+        else:
+            model = _kerr_network(reader, table)
+        if "drives" in document:
+            drives = _drive_table(reader, document["drives"], "drives", model.space.modes)
+            model = with_drives(
+                model, coherent=drives.get("coherent"), two_photon=drives.get("two_photon")
+            )
+    except ModelFileError:
+        raise
+    except (ValueError, TypeError, OverflowError, MemoryError) as error:
+        # The builders and the core check what the schema cannot (empty sectors, sizes).
+        reader.fail("model", f"cannot build this model: {error}")
+    return model
+
+
+# -- parameters, sweep, record, solver ----------------------------------------------------
+
+
+def _current_names(
+    reader: Reader, table: dict[str, Any], path: str, model: Model
+) -> dict[str, Any]:
+    """``table`` with deprecated parameter names replaced by the current ones (warning)."""
+    out: dict[str, Any] = {}
+    for name, entry in table.items():
+        current = model.renamed.get(name)
+        if current is None or current not in model.parameters:
+            out[name] = entry
+            continue
+        if current in table:
+            reader.fail(join_key(path, name), f"given together with its new name {current!r}")
+        warnings.warn(
+            f"{reader.source}: {join_key(path, name)}: parameter {name!r} of model "
+            f"{model.name!r} is now called {current!r}; the old name will be removed in "
+            "the next release",
+            DeprecationWarning,
+            stacklevel=2,
+        )
+        out[current] = entry
+    return out
+
+
+def _parameters(reader: Reader, value: object, model: Model) -> Model:
+    table = _current_names(reader, reader.table(value, "parameters"), "parameters", model)
+    known = list(model.parameters)
+    hint = f" for model {model.name!r}"
+    reader.check_keys(table, "parameters", known, hint=hint)
+    defaults = dict(model.parameters)
+    for name, raw in table.items():
+        defaults[name] = reader.number(raw, join_key("parameters", name))
+    return dataclasses.replace(model, parameters=defaults)
+
+
+def _sweep(reader: Reader, value: object, model: Model) -> SweepGrid:
+    table = _current_names(reader, reader.table(value, "sweep"), "sweep", model)
+    if not table:
+        reader.fail("sweep", "empty; expected one [sweep.NAME] table per swept parameter")
+    reader.check_keys(table, "sweep", list(model.parameters), hint=f" for model {model.name!r}")
+    axes: dict[str, npt.NDArray[np.float64]] = {}
+    size = 1
+    for name, spec in table.items():
+        path = join_key("sweep", name)
+        if model.pieces[name].is_zero():
+            reader.fail(
+                path,
+                f"the model has no {name!r} terms, so sweeping this parameter changes "
+                "nothing; add those terms to [model] or drop the sweep",
+            )
+        axes[name] = read_axis(reader, spec, path)
+        size *= len(axes[name])
+        if size > MAX_POINTS:
+            reader.fail("sweep", f"expected at most {MAX_POINTS} grid points; got {size} or more")
+    return SweepGrid(axes)
+
+
+def _record(
+    reader: Reader, value: object, model: Model
+) -> tuple[tuple[str, ...], int, tuple[int, ...]]:
+    table = reader.table(value, "record")
+    reader.check_keys(table, "record", ["quantities", "levels", "entropy_modes"])
+    quantities: tuple[str, ...] = ("energy",)
+    if "quantities" in table:
+        path = "record.quantities"
+        items = reader.array(table["quantities"], path, "quantity names")
+        chosen: list[str] = []
+        for k, item in enumerate(items):
+            name = reader.choice(item, join_key(path, k), RECORDABLE)
+            if name in chosen:
+                reader.fail(join_key(path, k), f"{name!r} is listed twice")
+            chosen.append(name)
+        quantities = tuple(chosen)
+    dim = model.space.dim
+    needed = max((_DEFAULT_LEVELS.get(q, 1) for q in quantities), default=1)
+    minimum = 2 if "gap" in quantities else 1
+    if dim < minimum:
+        reader.fail("record.quantities", "'gap' needs 2 levels but the space has only 1 state")
+    if "levels" in table:
+        levels = reader.integer(table["levels"], "record.levels", minimum, dim)
+    else:
+        levels = min(needed, dim)
+    entropy_modes: tuple[int, ...] = ()
+    modes = model.space.modes
+    if "entropy_modes" in table:
+        path = "record.entropy_modes"
+        if "entropy" not in quantities:
+            reader.fail(path, "given, but 'entropy' is not in record.quantities")
+        items = reader.array(table["entropy_modes"], path, "mode indices")
+        picked: list[int] = []
+        for k, item in enumerate(items):
+            mode = reader.integer(item, join_key(path, k), 0, modes - 1)
+            if mode in picked:
+                reader.fail(join_key(path, k), f"mode {mode} is listed twice")
+            picked.append(mode)
+        if len(picked) == modes:
+            reader.fail(path, f"expected a proper subset of the {modes} modes; got all of them")
+        entropy_modes = tuple(picked)
+    elif "entropy" in quantities:
+        if modes < 2:
+            reader.fail("record.quantities", "'entropy' needs a model with at least 2 modes")
+        entropy_modes = tuple(range(modes // 2))
+    return quantities, levels, entropy_modes
+
+
+def _solver(reader: Reader, value: object) -> dict[str, object]:
+    table = reader.table(value, "solver")
+    reader.check_keys(table, "solver", ["method", "tol", "seed", "max_iterations", "threads"])
+    settings: dict[str, object] = {
+        "method": "auto",
+        "tol": 1e-9,
+        "seed": 0,
+        "max_iterations": None,
+        "threads": None,
+    }
+    if "tol" in table:
+        tol = reader.number(table["tol"], "solver.tol")
+        if not 0 < tol < 1:
+            reader.wrong("solver.tol", "a number between 0 and 1 (exclusive)", table["tol"])
+        settings["tol"] = tol
+    if "method" in table:
+        settings["method"] = reader.choice(table["method"], "solver.method", SOLVER_METHODS)
+    if "threads" in table:
+        settings["threads"] = reader.integer(table["threads"], "solver.threads", 1, MAX_THREADS)
+    if "seed" in table:
+        settings["seed"] = reader.integer(table["seed"], "solver.seed", 0, MAX_SEED - 1)
+    if "max_iterations" in table:
+        settings["max_iterations"] = reader.integer(
+            table["max_iterations"], "solver.max_iterations", 1, 2**62
+        )
+    return settings
+
+
+# -- [terms] and [units] ------------------------------------------------------------------
+
+_PARAMETER_NAME = re.compile(r"^[A-Za-z][A-Za-z0-9_]*$")
+_TERM_KEYS = [
+    "value",
+    "fixed",
+    "description",
+    "terms",
+    "per_mode",
+    "modes",
+    "weights",
+    "random",
+    "add_adjoint",
+]
+_DISTRIBUTIONS = ("uniform", "normal")
+MAX_UNIT_LENGTH = 40
+
+
+def _mode_weights(
+    reader: Reader, table: Mapping[str, Any], path: str, count: int
+) -> tuple[float, ...]:
+    if "weights" in table and "random" in table:
+        reader.fail(join_key(path, "random"), "give either weights = [...] or random = {...}")
+    if "weights" in table:
+        items = reader.array(table["weights"], join_key(path, "weights"), "numbers (one per mode)")
+        if len(items) != count:
+            reader.fail(
+                join_key(path, "weights"),
+                f"expected {count} numbers (one per mode in {path}.modes); got {len(items)}",
+            )
+        return tuple(
+            reader.number(v, join_key(join_key(path, "weights"), k)) for k, v in enumerate(items)
+        )
+    if "random" not in table:
+        return (1.0,) * count
+    rpath = join_key(path, "random")
+    spec = reader.table(table["random"], rpath)
+    kind = reader.choice(
+        reader.required(spec, "distribution", rpath, '"uniform" or "normal"'),
+        join_key(rpath, "distribution"),
+        _DISTRIBUTIONS,
+    )
+    allowed = ["distribution", "seed"] + (["low", "high"] if kind == "uniform" else ["mean", "std"])
+    reader.check_keys(spec, rpath, allowed, hint=f' for distribution = "{kind}"')
+    seed = reader.integer(
+        reader.required(spec, "seed", rpath, "an integer >= 0 (the same seed, the same draw)"),
+        join_key(rpath, "seed"),
+        0,
+        2**63 - 1,
+    )
+    generator = np.random.default_rng(seed)
+    if kind == "uniform":
+        low = reader.number(reader.required(spec, "low", rpath, "a number"), join_key(rpath, "low"))
+        high = reader.number(
+            reader.required(spec, "high", rpath, "a number"), join_key(rpath, "high")
+        )
+        if not low < high:
+            reader.fail(join_key(rpath, "high"), f"expected high > low; got low={low}, high={high}")
+        draws = generator.uniform(low, high, size=count)
+    else:
+        mean = reader.number(spec.get("mean", 0.0), join_key(rpath, "mean"))
+        std = reader.number(
+            reader.required(spec, "std", rpath, "a number > 0"), join_key(rpath, "std")
+        )
+        if not std > 0:
+            reader.wrong(join_key(rpath, "std"), "a number > 0", spec["std"])
+        draws = generator.normal(mean, std, size=count)
+    return tuple(float(v) for v in draws)
+
+
+def _term_modes(reader: Reader, table: Mapping[str, Any], path: str, model: Model) -> list[int]:
+    modes = model.space.modes
+    if "modes" not in table:
+        return list(range(modes))
+    mpath = join_key(path, "modes")
+    labels = list(model.mode_labels)
+    picked: list[int] = []
+    for k, item in enumerate(reader.array(table["modes"], mpath, "mode indices or labels")):
+        if isinstance(item, str):
+            if item not in labels:
+                reader.fail(join_key(mpath, k), f"{item!r} is not a mode label of this model")
+            mode = labels.index(item)
+        else:
+            mode = reader.integer(item, join_key(mpath, k), 0, modes - 1)
+        if mode in picked:
+            reader.fail(join_key(mpath, k), f"mode {mode} is listed twice")
+        picked.append(mode)
+    return picked
+
+
+def _terms(
+    reader: Reader, value: object, model: Model
+) -> tuple[Model, dict[str, tuple[float, ...]], dict[str, str]]:
+    """``[terms.NAME]`` tables: the user's own terms, each family scaled by parameter NAME."""
+    sections = reader.table(value, "terms")
+    if not sections:
+        reader.fail("terms", "empty; expected one [terms.NAME] table per parameter")
+    pieces = dict(model.pieces)
+    parameters = dict(model.parameters)
+    constant = model.constant
+    weights_used: dict[str, tuple[float, ...]] = {}
+    descriptions: dict[str, str] = {}
+    for name, raw in sections.items():
+        path = join_key("terms", name)
+        table = reader.table(raw, path)
+        reader.check_keys(table, path, _TERM_KEYS)
+        if name in model.renamed:
+            reader.fail(path, f"{name!r} is an old parameter name; use {model.renamed[name]!r}")
+        fixed = reader.boolean(table.get("fixed", False), join_key(path, "fixed"))
+        existing = name in model.parameters
+        if existing and ("value" in table or fixed):
+            reader.fail(
+                path,
+                f"{name!r} is already a parameter of model {model.name!r}: these terms are "
+                "added to its piece; set its value in [parameters], or pick a new name",
+            )
+        if not existing and not _PARAMETER_NAME.match(name):
+            reader.fail(
+                path,
+                "a new parameter name must start with a letter and hold only letters, digits and _",
+            )
+        scale = reader.number(table.get("value", 1.0), join_key(path, "value"))
+        if "description" in table:
+            text = table["description"]
+            if not isinstance(text, str) or not text.strip() or len(text) > 80:
+                reader.wrong(
+                    join_key(path, "description"), "a short text (1 to 80 characters)", text
+                )
+            if fixed:
+                reader.fail(
+                    join_key(path, "description"), "fixed terms have no parameter to describe"
+                )
+            descriptions[name] = text.strip()
+        if "terms" not in table and "per_mode" not in table:
+            reader.fail(path, 'expected terms = ["..."] and/or per_mode = "..."')
+        for key in ("modes", "weights", "random"):
+            if key in table and "per_mode" not in table:
+                reader.fail(join_key(path, key), 'only meaningful with per_mode = "..."')
+        adjoint = reader.boolean(table.get("add_adjoint", False), join_key(path, "add_adjoint"))
+        piece = LadderExpr()
+        if "terms" in table:
+            tpath = join_key(path, "terms")
+            for k, text in enumerate(reader.array(table["terms"], tpath, "term strings")):
+                term = read_term(reader, text, join_key(tpath, k), model)
+                if adjoint:
+                    term = term + term.adjoint()
+                check_charge(reader, term, join_key(tpath, k), str(text), model)
+                piece = piece + term
+        if "per_mode" in table:
+            ppath = join_key(path, "per_mode")
+            template = table["per_mode"]
+            if not isinstance(template, str) or "@" not in template:
+                reader.wrong(ppath, 'a term string using @ for the mode, e.g. "count(@)"', template)
+            modes = _term_modes(reader, table, path, model)
+            weights = _mode_weights(reader, table, path, len(modes))
+            weights_used[name] = weights
+            for mode, weight in zip(modes, weights, strict=True):
+                term = read_term(reader, template, ppath, model, here=mode)
+                if adjoint:
+                    term = term + term.adjoint()
+                check_charge(reader, term, ppath, template, model)
+                piece = piece + weight * term
+        if not piece.is_hermitian():
+            reader.fail(
+                path,
+                "these terms are not Hermitian, and a Hamiltonian must be; add "
+                "add_adjoint = true or list the conjugate of every term",
+            )
+        if fixed:
+            constant = constant + scale * piece
+        elif existing:
+            pieces[name] = pieces[name] + piece
+        else:
+            pieces[name] = piece
+            parameters[name] = scale
+    return (
+        dataclasses.replace(model, pieces=pieces, parameters=parameters, constant=constant),
+        weights_used,
+        descriptions,
+    )
+
+
+def _units(reader: Reader, value: object, model: Model) -> dict[str, str]:
+    table = reader.table(value, "units")
+    reader.check_keys(table, "units", ["energy", *model.parameters])
+    units: dict[str, str] = {}
+    for name, unit in table.items():
+        path = join_key("units", name)
+        if not isinstance(unit, str) or not unit.strip() or len(unit) > MAX_UNIT_LENGTH:
+            reader.wrong(
+                path, f'a unit such as "MHz" or "J" (1 to {MAX_UNIT_LENGTH} characters)', unit
+            )
+        units[name] = unit.strip()
+    return units
+
+
+# -- entry points -------------------------------------------------------------------------
+
+
+def _parse(text: str, source: str, path: str | None) -> ModelFile:
+    reader = Reader(source)
+    try:
+        document = tomllib.loads(text)
+    except tomllib.TOMLDecodeError as error:
+        reader.fail(None, f"not valid TOML: {error}")
+    except RecursionError:
+        reader.fail(None, "not valid TOML: arrays or tables nested too deeply")
+    allowed = [
+        "schema",
+        "model",
+        "terms",
+        "parameters",
+        "units",
+        "drives",
+        "sweep",
+        "record",
+        "solver",
+        "quench",
+        "spectrum",
+        "temperature",
+        "symmetry",
+    ]
+    reader.check_keys(document, "", allowed)
+    if "schema" in document:
+        version = document["schema"]
+        if isinstance(version, bool) or version != SCHEMA_VERSION:
+            reader.wrong("schema", f"{SCHEMA_VERSION} (the only layout so far)", version)
+    model = _build_model(reader, document)
+    mode_weights: dict[str, tuple[float, ...]] = {}
+    descriptions: dict[str, str] = {}
+    if "terms" in document:
+        model, mode_weights, descriptions = _terms(reader, document["terms"], model)
+    if "parameters" in document:
+        model = _parameters(reader, document["parameters"], model)
+    units = _units(reader, document["units"], model) if "units" in document else {}
+    sweep = _sweep(reader, document["sweep"], model) if "sweep" in document else None
+    quantities, levels, entropy_modes = _record(reader, document.get("record", {}), model)
+    solver = _solver(reader, document.get("solver", {}))
+    dynamics = parse_dynamics_sections(reader, document, model)
+    symmetry = None
+    if "symmetry" in document:
+        from fockmill.files.symmetry import parse_symmetry
+
+        symmetry = parse_symmetry(reader, document["symmetry"], document["model"], model)
+    return ModelFile(
+        path=path,
+        model=model,
+        sweep=sweep,
+        quantities=quantities,
+        levels=levels,
+        solver=solver,
+        entropy_modes=entropy_modes,
+        text_hash=hashlib.sha256(text.encode("utf-8", "surrogatepass")).hexdigest(),
+        units=units,
+        mode_weights=mode_weights,
+        descriptions=descriptions,
+        **dynamics,
+        symmetry=symmetry,
+    )
+
+
+def parse_model_text(text: str, source: str = "<string>") -> ModelFile:
+    """Read a model description from TOML text.
+
+    Parameters
+    ----------
+    text : str
+        The TOML document (see the module docstring for the schema).
+    source : str, default "<string>"
+        Name used in error messages.
+
+    Returns
+    -------
+    ModelFile
+        With ``path=None``.
+
+    Raises
+    ------
+    ModelFileError
+        For invalid TOML (with line and column) and every schema violation (with the
+        key path, e.g. ``sweep.U.num``, and what was expected).
+
+    Examples
+    --------
+    >>> spec = parse_model_text('''
+    ... [model]
+    ... kind = "bose-hubbard"
+    ... lattice = "chain"
+    ... sites = 2
+    ... total = 2
+    ... [sweep.U]
+    ... values = [0.0, 4.0]
+    ... ''')
+    >>> spec.model.space.dim, spec.sweep.points()
+    (3, [{'U': 0.0}, {'U': 4.0}])
+    """
+    if not isinstance(text, str):
+        raise TypeError(f"text must be a str; got {type(text).__name__}")
+    return _parse(text, source, None)
+
+
+def load_model_file(path: str | os.PathLike[str]) -> ModelFile:
+    """Read and check a TOML model file.
+
+    Parameters
+    ----------
+    path : str or path-like
+        The file (UTF-8 TOML; see the module docstring for the schema).
+
+    Returns
+    -------
+    ModelFile
+        The built model, sweep grid, record list and solver settings.
+
+    Raises
+    ------
+    ModelFileError
+        For text that is not UTF-8, invalid TOML (with line and column) and every
+        schema violation (naming the file, the key path and what was expected).
+    OSError
+        When the file cannot be read (e.g. ``FileNotFoundError``).
+    """
+    name = os.fspath(path)
+    with open(name, "rb") as handle:
+        raw = handle.read()
+    try:
+        text = raw.decode("utf-8")
+    except UnicodeDecodeError as error:
+        raise ModelFileError(name, None, f"not UTF-8 text: {error}") from None
+    return _parse(text, name, name)

@@ -1,0 +1,69 @@
+"""Operators that carry one space's states into another: ``a_0`` from the N-quanta
+sector to N − 1, ``a_0† a_1†`` from N to N + 2, anything from a sector into the full
+truncated space. Matrices have shape ``(target.dim, space.dim)``.
+
+``compile_operator`` (in ``_prepare``) calls :func:`compile_between` when a problem's
+target differs from its space; ``fm.build_matrix`` / ``fm.build_operator`` /
+``fm.prepare`` with ``target=`` reach it that way."""
+
+from __future__ import annotations
+
+import fockmill._native as _native
+from fockmill.exceptions import SpaceError
+from fockmill.spaces.fock import FockSpace
+
+__all__ = ["compile_between", "same_space"]
+
+
+def same_space(space: object, target: object) -> bool:
+    """Whether ``target`` is None or the same space as ``space`` (square case)."""
+    return target is None or target is space or target == space
+
+
+def _check_fock(space: object, name: str) -> FockSpace:
+    if not isinstance(space, FockSpace):
+        raise TypeError(
+            f"{name} must be a fm.FockSpace for an operator between spaces; got "
+            f"{type(space).__name__}"
+        )
+    return space
+
+
+def compile_between(
+    expr: object, space: object, target: object, *, project: bool = False
+) -> _native.NativeBetween:
+    """Validate ``expr`` as an operator from ``space`` into ``target``; compile it.
+
+    Parameters
+    ----------
+    expr : LadderExpr
+        The operator (numbers mean multiples of the identity).
+    space, target : FockSpace
+        Source and target; same number of modes and the same cutoffs.
+    project : bool
+        Drop the part of the image outside ``target`` instead of refusing the term
+        (used for adjoints of checked operators).
+
+    Raises
+    ------
+    ChargeError
+        A term carries states of ``space`` outside ``target``; the message names the
+        term, its charge and both sectors.
+    SpaceError
+        The spaces differ in modes or cutoffs (or, both being sectors, in weights).
+    ModeIndexError, ValueError, TypeError
+        Bad mode indices, powers, coefficients or argument types.
+    """
+    from fockmill.algebra.expressions import as_expr
+    from fockmill.spaces.checks import check_terms
+
+    e = as_expr(expr)
+    s = _check_fock(space, "space")
+    t = _check_fock(target, "target")
+    if s.modes != t.modes:
+        raise SpaceError(
+            f"space has {s.modes} modes and target has {t.modes}; an operator between spaces "
+            "needs the same modes (change only the total)"
+        )
+    check_terms(e, s)
+    return _native.NativeBetween(s.native, t.native, e.to_native(), project)

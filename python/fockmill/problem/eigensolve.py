@@ -1,0 +1,696 @@
+"""Ground states and lowest levels, with the method chosen from size and memory."""
+
+from __future__ import annotations
+
+import time
+import warnings
+from dataclasses import dataclass
+from typing import TYPE_CHECKING, Any, Literal
+
+import numpy as np
+import numpy.typing as npt
+import scipy.sparse.linalg as sla
+from scipy.sparse.linalg import LinearOperator
+
+from fockmill.algebra.expressions import LadderExpr
+from fockmill.exceptions import (
+    ConvergenceError,
+    CutoffWarning,
+    NotHermitianError,
+    SizeLimitError,
+)
+from fockmill.observables.observe import check_vector, top_level_weights
+from fockmill.problem.memory import MemoryEstimate, format_bytes
+from fockmill.settings.checks import (
+    METHODS,
+    check_max_iterations,
+    check_method,
+    check_seed,
+    check_tol,
+)
+
+if TYPE_CHECKING:
+    from fockmill.problem.problem import Problem
+
+__all__ = [
+    "GroundState",
+    "Levels",
+    "Method",
+    "choose_method",
+    "solve_ground",
+    "solve_levels",
+]
+
+Method = Literal["auto", "dense", "csr", "operator", "lanczos"]
+_METHODS = METHODS
+#: Spaces up to this dimension are diagonalised densely.
+DENSE_MAX_DIM = 500
+#: Fraction of the available memory a solve may plan to use.
+MEMORY_BUDGET = 0.8
+
+
+@dataclass(frozen=True)
+class GroundState:
+    """The lowest eigenpair of a Hamiltonian on a space.
+
+    Attributes
+    ----------
+    energy : float
+        Lowest eigenvalue.
+    vector : numpy.ndarray
+        Unit-norm eigenvector, shape ``(dim,)``, in the space's basis order.
+    residual : float
+        ``‖H v − E v‖``, measured after the solve.
+    method : str
+        ``"dense"``, ``"csr"`` (eigsh on the stored matrix), ``"operator"`` (eigsh on the
+        matrix-free operator) or ``"lanczos"`` (low-memory Lanczos in Rust).
+    products : int
+        Matrix-vector products used (0 for dense).
+    iterations : int
+        Lanczos steps for ``"lanczos"``; equal to ``products`` for the eigsh methods.
+    seconds : float
+        Wall time of the solve, including any build.
+    degeneracy : int or None
+        How many computed levels equal the lowest within the tolerance (1: unique);
+        None when the method computes a single vector (``"lanczos"``).
+    converged : bool
+        Always True: a solve that misses its tolerance raises
+        :class:`~fockmill.exceptions.ConvergenceError` instead of returning.
+    """
+
+    energy: float
+    vector: npt.NDArray[Any]
+    residual: float
+    method: str
+    products: int
+    iterations: int
+    seconds: float
+    degeneracy: int | None
+    converged: bool
+
+
+@dataclass(frozen=True)
+class Levels:
+    """The ``k`` lowest eigenpairs.
+
+    Attributes
+    ----------
+    energies : numpy.ndarray
+        Shape ``(k,)``, ascending.
+    vectors : numpy.ndarray
+        Shape ``(dim, k)``; column ``i`` belongs to ``energies[i]``.
+    residuals : numpy.ndarray
+        ``‖H v_i − E_i v_i‖`` for each level.
+    method, products, seconds : as in :class:`GroundState`.
+    degeneracies : tuple of int
+        Sizes of the groups of equal energies, in ascending order of energy
+        (``(2, 1, 1)``: a degenerate doublet then two single levels). The last group
+        may continue beyond the ``k`` levels computed.
+    gap : float
+        ``energies[1] − energies[0]`` (property; 0 for a degenerate ground state,
+        needs ``k >= 2``).
+    """
+
+    energies: npt.NDArray[np.float64]
+    vectors: npt.NDArray[Any]
+    residuals: npt.NDArray[np.float64]
+    method: str
+    products: int
+    seconds: float
+    degeneracies: tuple[int, ...]
+
+    @property
+    def gap(self) -> float:
+        """``energies[1] − energies[0]`` (0 for a degenerate ground state)."""
+        if self.energies.size < 2:
+            raise ValueError("the gap needs at least two levels; ask for k >= 2")
+        return float(self.energies[1] - self.energies[0])
+
+
+def _check_hermitian(expr: LadderExpr) -> None:
+    if not expr.is_hermitian():
+        anti = (expr - expr.adjoint()) * 0.5
+        raise NotHermitianError(
+            "the Hamiltonian is not Hermitian (its anti-Hermitian part is "
+            f"{anti}); add the Hermitian conjugate of each term, e.g. "
+            "h + h.adjoint(), or use expr.hermitian_part()"
+        )
+
+
+def _degeneracy_groups(energies: npt.NDArray[np.float64], tol: float) -> tuple[int, ...]:
+    groups: list[int] = []
+    start = 0
+    for i in range(1, energies.size + 1):
+        if i == energies.size or energies[i] - energies[start] > tol * max(
+            1.0, abs(float(energies[start]))
+        ):
+            groups.append(i - start)
+            start = i
+    return tuple(groups)
+
+
+def _krylov_vectors(k: int) -> int:
+    return max(2 * k + 1, 20) + 2
+
+
+#: Relative weight of the seeded noise mixed into a user's start vector, so that a
+#: ``v0`` without weight in the ground state's symmetry sector still reaches it.
+START_NOISE = 1e-4
+
+
+def choose_method(
+    estimate: MemoryEstimate, k: int, memory_limit: int | None = None
+) -> Literal["dense", "csr", "operator", "lanczos"]:
+    """The method ``"auto"`` picks for ``k`` levels given a memory estimate.
+
+    Dense for at most ``DENSE_MAX_DIM`` (500) states. Above that, the Lanczos solvers in
+    Rust (four vectors for one level, a thick-restart basis of ``2k + 9`` for several;
+    on a CSR matrix kept in Rust when it fits, see ``store_matrix``), which
+    ``benchmarks/bench_methods.py`` measured as fastest or within noise of the fastest
+    from about 1,700 states up (dense eigh already took 1.3 s at 1,716 states, Lanczos
+    0.01 s). eigsh (stored, then matrix-free) only when the Lanczos vectors do not fit
+    in ``MEMORY_BUDGET`` of the memory.
+
+    Raises
+    ------
+    SizeLimitError
+        When no method fits.
+    """
+    limit = memory_limit if memory_limit is not None else estimate.available_bytes
+    budget = float("inf") if limit is None else MEMORY_BUDGET * limit
+    krylov = estimate.krylov_bytes(_krylov_vectors(k))
+    if estimate.dim <= DENSE_MAX_DIM:
+        return "dense"
+    if estimate.krylov_bytes(_lanczos_vectors(k)) <= budget:
+        return "lanczos"
+    if estimate.build_peak_bytes + krylov <= budget:
+        return "csr"
+    if krylov <= budget:
+        return "operator"
+    raise SizeLimitError(
+        f"no solver fits in memory: {estimate}; even the four-vector Lanczos solver needs "
+        f"{format_bytes(estimate.krylov_bytes(5))}. Use a smaller sector or cutoffs"
+    )
+
+
+def _check_fits(estimate: MemoryEstimate, method: str, k: int, memory_limit: int | None) -> None:
+    """Refuse an explicitly chosen method whose vectors alone exceed the memory."""
+    limit = memory_limit if memory_limit is not None else estimate.available_bytes
+    if limit is None:
+        return
+    vectors = {
+        "dense": estimate.dim * estimate.dim * estimate.value_dtype.itemsize * 3,
+        "csr": estimate.krylov_bytes(_krylov_vectors(k)),
+        "operator": estimate.krylov_bytes(_krylov_vectors(k)),
+        "lanczos": estimate.krylov_bytes(_lanczos_vectors(k)),
+    }[method]
+    if vectors > limit:
+        raise SizeLimitError(
+            f"method={method!r} needs about {format_bytes(vectors)} for its vectors alone "
+            f"({estimate}), more than the {format_bytes(limit)} available; use a smaller "
+            "sector or cutoffs, or method='lanczos' (four vectors)"
+        )
+
+
+def _start_vector(
+    v0: npt.ArrayLike | None, problem: Problem, seed: int, *, mix_noise: bool = True
+) -> npt.NDArray[Any] | None:
+    """The user's start vector, normalised and mixed with ``START_NOISE`` of seeded
+    noise (so that no symmetry sector is excluded), or None. The Rust Lanczos solvers
+    mix the same noise themselves: they take ``mix_noise=False``."""
+    if v0 is None:
+        return None
+    v = check_vector(problem.space, v0, "v0")
+    if problem.is_real and v.dtype.kind == "c":
+        v = np.ascontiguousarray(v.real)
+        if not np.any(v):
+            return None
+    if not mix_noise:
+        return v
+    v = v / np.linalg.norm(v)
+    noise = np.random.default_rng([seed, 0x5EED]).standard_normal(v.shape[0])
+    mixed = v + START_NOISE * noise / np.linalg.norm(noise)
+    return np.ascontiguousarray(mixed / np.linalg.norm(mixed))
+
+
+def _residuals(op: Any, energies: npt.NDArray[Any], vectors: npt.NDArray[Any]) -> Any:
+    hv = op @ vectors
+    return np.linalg.norm(hv - vectors * energies[np.newaxis, :], axis=0)
+
+
+def _converged(residual: float, energy: float, tol: float) -> bool:
+    """The one convergence rule of the iterative methods."""
+    return residual <= 10 * max(tol, 1e-12) * max(1.0, abs(energy))
+
+
+class _Counted(LinearOperator):  # type: ignore[misc]
+    """A Hermitian operator (CSR matrix or matrix-free) that counts its products."""
+
+    def __init__(self, inner: Any) -> None:
+        self.inner = inner
+        self.products = 0
+        super().__init__(dtype=np.dtype(inner.dtype), shape=inner.shape)
+
+    def _matvec(self, x: npt.NDArray[Any]) -> npt.NDArray[Any]:
+        self.products += 1
+        return self.inner @ x  # type: ignore[no-any-return]
+
+    def _matmat(self, x: npt.NDArray[Any]) -> npt.NDArray[Any]:
+        self.products += x.shape[1]
+        return self.inner @ x  # type: ignore[no-any-return]
+
+    _rmatvec = _matvec
+    _rmatmat = _matmat
+
+    def _adjoint(self) -> _Counted:
+        return self
+
+
+def _eigsh_levels(
+    problem: Problem,
+    k: int,
+    method: str,
+    tol: float,
+    v0: npt.ArrayLike | None,
+    max_iterations: int | None,
+    seed: int,
+) -> tuple[npt.NDArray[np.float64], npt.NDArray[Any], npt.NDArray[np.float64], _Counted | None]:
+    """Energies, vectors, residuals and the (counting) operator used, for the eigsh and
+    dense methods (the operator is None for dense)."""
+    dim = problem.dim
+    if method == "dense":
+        dense = problem.matrix().toarray()
+        energies, vectors = np.linalg.eigh(dense)
+        energies, vectors = energies[:k], vectors[:, :k]
+        residuals = np.linalg.norm(dense @ vectors - vectors * energies, axis=0)
+        return energies, vectors, residuals, None
+    if dim - 1 <= k:
+        raise ValueError(
+            f"k={k} levels need a space with more than {k + 1} states for an iterative "
+            f"method; this one has {dim}: use method='dense'"
+        )
+    inner = problem.matrix() if method == "csr" else problem.operator()
+    target = _Counted(inner)
+    start = _start_vector(v0, problem, seed)
+    if start is None:
+        start = np.random.default_rng(seed).standard_normal(dim)
+    # eigsh's maxiter counts restarts; ours counts products (about ncv per restart).
+    ncv = min(dim, max(2 * k + 1, 20))
+    maxiter = None if max_iterations is None else max(1, max_iterations // ncv)
+    try:
+        energies, vectors = sla.eigsh(target, k=k, which="SA", tol=tol, v0=start, maxiter=maxiter)
+        order = np.argsort(energies)
+        energies, vectors = energies[order], vectors[:, order]
+        energies, vectors = _recover_missed_copies(target, energies, vectors, tol, seed, maxiter)
+    except sla.ArpackNoConvergence as exc:
+        raise ConvergenceError(
+            f"eigsh ({method}) did not converge to tol={tol} for k={k} levels "
+            f"({len(exc.eigenvalues)} converged, {target.products} products); raise "
+            "max_iterations or tol, or pass v0"
+        ) from exc
+    residuals = _residuals(inner, energies, vectors)
+    return energies, vectors, residuals, target
+
+
+def _lowest_outside(
+    target: LinearOperator,
+    basis: npt.NDArray[Any],
+    sigma: float,
+    tol: float,
+    rng: np.random.Generator,
+    maxiter: int | None,
+) -> tuple[float, npt.NDArray[Any]]:
+    """Lowest eigenpair of ``H + σ B B†``: with ``σ`` above the spread of the levels in
+    ``B``, the lowest level of ``H`` not yet in ``B``."""
+    dim = target.shape[0]
+
+    def shifted(x: npt.NDArray[Any]) -> Any:
+        x = np.asarray(x).reshape(-1)
+        return target.matvec(x).reshape(-1) + sigma * (basis @ (basis.conj().T @ x))
+
+    op = LinearOperator((dim, dim), matvec=shifted, rmatvec=shifted, dtype=basis.dtype)
+    e, v = sla.eigsh(op, k=1, which="SA", tol=tol, v0=rng.standard_normal(dim), maxiter=maxiter)
+    w = v[:, 0] - basis @ (basis.conj().T @ v[:, 0])
+    return float(e[0]), w / np.linalg.norm(w)
+
+
+def _recover_missed_copies(
+    target: LinearOperator,
+    energies: npt.NDArray[np.float64],
+    vectors: npt.NDArray[Any],
+    tol: float,
+    seed: int,
+    maxiter: int | None,
+) -> tuple[npt.NDArray[np.float64], npt.NDArray[Any]]:
+    """Find degenerate copies a single-vector Krylov method skipped.
+
+    A Krylov space grown from one vector holds one vector per eigenspace, so eigsh can
+    miss the second copy of a degenerate level. Shift the levels found out of the way
+    (:func:`_lowest_outside` on all but the highest) and ask for the lowest remaining
+    level: anything below the highest level found is a missed copy and replaces it.
+    Repeat until none is left.
+    """
+    dim = target.shape[0]
+    k = energies.size
+    if k < 2 or k >= dim - 1:
+        return energies, vectors
+    rng = np.random.default_rng(seed + 1)
+    for _ in range(k):
+        scale = max(1.0, float(np.max(np.abs(energies))))
+        sigma = float(energies[-1] - energies[0]) + scale
+        e, w = _lowest_outside(target, vectors[:, :-1], sigma, tol, rng, maxiter)
+        if e >= energies[-1] - max(1e3 * tol, 1e-9) * scale:
+            break
+        energies = np.append(energies[:-1], e)
+        vectors = np.column_stack([vectors[:, :-1], w])
+        order = np.argsort(energies)
+        energies, vectors = energies[order], vectors[:, order]
+    return energies, vectors
+
+
+def _probe_degeneracy(
+    target: LinearOperator,
+    dim: int,
+    energies: npt.NDArray[np.float64],
+    vectors: npt.NDArray[Any],
+    tol: float,
+    degeneracy_tol: float,
+    seed: int,
+    maxiter: int | None,
+) -> tuple[npt.NDArray[np.float64], npt.NDArray[Any]]:
+    """Add the ground level's degenerate copies (found by deflation), up to 16.
+
+    The probe can also find a level *below* the one the solver returned (when the solver
+    stalled on an excited level): the levels are kept sorted, so the lowest found is
+    always reported first.
+    """
+    rng = np.random.default_rng(seed + 1)
+    while energies.size < min(16, dim - 2):
+        scale = max(1.0, abs(float(energies[0])))
+        spread = float(energies[-1] - energies[0])
+        e, w = _lowest_outside(target, vectors, spread + scale, tol, rng, maxiter)
+        if e - energies[0] > degeneracy_tol * scale:
+            break
+        energies = np.append(energies, e)
+        vectors = np.column_stack([vectors, w])
+        order = np.argsort(energies, kind="stable")
+        energies, vectors = energies[order], vectors[:, order]
+    return energies, vectors
+
+
+def _validate(
+    k: int,
+    method: str,
+    tol: float,
+    problem: Problem,
+    v0: npt.ArrayLike | None = None,
+    seed: object = 0,
+    max_iterations: object = None,
+) -> None:
+    # One set of checks and messages for solvers, sweeps and model files (_args).
+    check_method(method)
+    check_tol(tol)
+    check_seed(seed)
+    check_max_iterations(max_iterations)
+    if v0 is not None:
+        check_vector(problem.space, v0, "v0")
+    if isinstance(k, bool) or not isinstance(k, int | np.integer):
+        raise TypeError(f"k must be an integer; got {k!r}")
+    if k < 1 or k > problem.dim:
+        raise ValueError(f"k must be between 1 and the space's dimension {problem.dim}; got {k}")
+    if not problem.is_square:
+        raise ValueError(
+            "eigenvalues need an operator from a space to itself; this problem maps "
+            "between two spaces (drop target=)"
+        )
+    if not problem.is_hermitian:
+        _check_hermitian(problem.expr)
+
+
+def _pick(problem: Problem, k: int, method: str) -> str:
+    if method == "auto":
+        chosen = choose_method(problem.estimate, k, problem.memory_limit)
+        if chosen == "lanczos" and k > 1 and not hasattr(problem.native, "lanczos_levels"):
+            return "csr"
+        return chosen
+    _check_fits(problem.estimate, method, k, problem.memory_limit)
+    return method
+
+
+def _store_matrix(problem: Problem, store_matrix: bool | None, k: int = 1) -> bool:
+    if store_matrix is not None:
+        return bool(store_matrix)
+    # With a bipartite cut the matrix-free product reads no matrix and was measured as
+    # fast as or faster than the stored one, whose build then costs extra
+    # (benchmarks/results/methods.txt, bench_matvec.txt); the row kernel and symmetric
+    # sectors (no `cut`) are several times slower than a stored matrix.
+    if getattr(problem.native, "cut", 0) > 0:
+        return False
+    estimate = problem.estimate
+    limit = problem.memory_limit if problem.memory_limit is not None else estimate.available_bytes
+    budget = float("inf") if limit is None else MEMORY_BUDGET * limit
+    return estimate.build_peak_bytes + estimate.krylov_bytes(_lanczos_vectors(k)) <= budget
+
+
+def _native_ground(
+    problem: Problem,
+    tol: float,
+    v0: npt.ArrayLike | None,
+    seed: int,
+    max_iterations: int | None,
+    store_matrix: bool | None,
+) -> tuple[float, npt.NDArray[Any], float, int, int]:
+    """The four-vector Lanczos in Rust: (energy, vector, residual, steps, products)."""
+    start = _start_vector(v0, problem, seed, mix_noise=False)
+    # Each Lanczos step costs about two products (the second pass regenerates the
+    # Krylov vectors), so a product budget allows half as many steps.
+    max_steps = 400 if max_iterations is None else max(2, min(400, max_iterations // 2))
+    restarts = 8 if max_iterations is None else max(0, max_iterations // (2 * max_steps) - 1)
+    ready = _ready_csr(problem)
+    if ready is not None:  # a matrix handed in (sweeps): solve on it, build nothing
+        found = ready.lanczos_ground(tol, max_steps, restarts, seed, start, problem.pool)
+    else:
+        stored = _store_matrix(problem, store_matrix)
+        if stored:
+            problem.check_build_fits()
+        found = problem.native.lanczos_ground(
+            tol, max_steps, restarts, seed, start, problem.pool, stored
+        )
+    energy, vector, residual, steps, products, _, converged = found
+    if not converged:
+        raise ConvergenceError(
+            f"Lanczos reached a residual of {residual:.3e} after {products} products, "
+            f"short of tol={tol}; raise max_iterations or tol, or pass v0"
+        )
+    return float(energy), vector, float(residual), int(steps), int(products)
+
+
+def _ready_csr(problem: Problem) -> Any:
+    """The Rust solvers' view of a matrix handed to the problem (``Problem._from_parts``),
+    or None when the problem builds its own."""
+    ready = problem._ready_matrix
+    if ready is None:
+        return None
+    import fockmill._native as _native
+
+    return _native.NativeCsr(ready.indptr, ready.indices, np.ascontiguousarray(ready.data))
+
+
+def _lanczos_vectors(k: int) -> int:
+    """Vectors the Rust Lanczos solvers keep: four for one level; the thick-restart
+    basis (``2k + 8``) plus one for several."""
+    return 5 if k == 1 else 2 * k + 9
+
+
+def _native_levels(
+    problem: Problem,
+    k: int,
+    tol: float,
+    v0: npt.ArrayLike | None,
+    seed: int,
+    max_iterations: int | None,
+    store_matrix: bool | None,
+) -> tuple[npt.NDArray[np.float64], npt.NDArray[Any], npt.NDArray[np.float64], int]:
+    """Thick-restart Lanczos in Rust for ``k >= 2`` levels (every degenerate copy that
+    fits in ``k``): (energies, vectors, residuals, products)."""
+    if not hasattr(problem.native, "lanczos_levels"):
+        raise ValueError(
+            "method='lanczos' for several levels is not available for this space type; "
+            "use method='csr' or 'operator'"
+        )
+    start = _start_vector(v0, problem, seed, mix_noise=False)
+    max_products = 20_000 if max_iterations is None else int(max_iterations)
+    ready = _ready_csr(problem)
+    if ready is not None:  # a matrix handed in (sweeps): solve on it, build nothing
+        found = ready.lanczos_levels(k, tol, max_products, seed, start, threads=problem.pool)
+    else:
+        stored = _store_matrix(problem, store_matrix, k)
+        if stored:
+            problem.check_build_fits()
+        found = problem.native.lanczos_levels(
+            k, tol, max_products, seed, start, problem.pool, stored
+        )
+    energies, vectors, residuals, products, _, converged = found
+    if not converged:
+        worst = int(np.argmax(residuals / np.maximum(1.0, np.abs(energies))))
+        raise ConvergenceError(
+            f"Lanczos (k={k}) reached a residual of {float(residuals[worst]):.3e} on level "
+            f"{worst} after {products} products, short of tol={tol}; raise max_iterations "
+            "or tol, or pass v0"
+        )
+    return np.asarray(energies, dtype=np.float64), vectors, np.asarray(residuals), int(products)
+
+
+def _require_converged(
+    method: str, energies: npt.NDArray[Any], residuals: npt.NDArray[Any], tol: float
+) -> None:
+    if method == "dense":
+        return
+    for i, (e, r) in enumerate(zip(energies, residuals, strict=True)):
+        if not _converged(float(r), float(e), tol):
+            raise ConvergenceError(
+                f"{method}: level {i} (E = {float(e):.10g}) has residual ‖Hv − Ev‖ = "
+                f"{float(r):.3e}, above 10·tol·max(1, |E|) for tol={tol}; raise "
+                "max_iterations or tol"
+            )
+
+
+def solve_levels(
+    problem: Problem,
+    k: int = 4,
+    *,
+    method: Method = "auto",
+    tol: float = 1e-9,
+    v0: npt.ArrayLike | None = None,
+    seed: int = 0,
+    max_iterations: int | None = None,
+    store_matrix: bool | None = None,
+) -> Levels:
+    """:func:`lowest_levels` on a prepared problem."""
+    t0 = time.perf_counter()
+    _validate(k, method, tol, problem, v0, seed, max_iterations)
+    chosen = _pick(problem, k, method)
+    if chosen == "lanczos":
+        if k == 1:
+            energy, vector, residual, _, products = _native_ground(
+                problem, tol, v0, seed, max_iterations, store_matrix
+            )
+            energies = np.array([energy])
+            vectors = vector[:, np.newaxis]
+            residuals = np.array([residual])
+        else:
+            energies, vectors, residuals, products = _native_levels(
+                problem, k, tol, v0, seed, max_iterations, store_matrix
+            )
+        return Levels(
+            energies=energies,
+            vectors=vectors,
+            residuals=residuals,
+            method="lanczos",
+            products=products,
+            seconds=time.perf_counter() - t0,
+            degeneracies=_degeneracy_groups(energies, max(1e3 * tol, 1e-9)),
+        )
+    energies, vectors, residuals, target = _eigsh_levels(
+        problem, k, chosen, tol, v0, max_iterations, seed
+    )
+    _require_converged(chosen, energies, residuals, tol)
+    products = 0 if target is None else target.products
+    degeneracy_tol = max(1e3 * tol, 1e-9)
+    return Levels(
+        energies=np.asarray(energies, dtype=np.float64),
+        vectors=vectors,
+        residuals=np.asarray(residuals, dtype=np.float64),
+        method=chosen,
+        products=products,
+        seconds=time.perf_counter() - t0,
+        degeneracies=_degeneracy_groups(np.asarray(energies), degeneracy_tol),
+    )
+
+
+def _warn_cutoff(space: Any, vector: npt.NDArray[Any], threshold: float | None) -> None:
+    if threshold is None or not hasattr(space, "binding_cutoffs"):
+        return
+    weights = top_level_weights(space, vector)
+    binding = space.binding_cutoffs()
+    flagged = [
+        (i, float(w))
+        for i, w in enumerate(weights)
+        if binding[i] and space.cutoffs[i] >= 2 and w > threshold
+    ]
+    if flagged:
+        detail = ", ".join(f"mode {i}: {w:.2e}" for i, w in flagged[:6])
+        warnings.warn(
+            f"the ground state has weight on the highest kept level ({detail}); the "
+            "cutoff may be too low. Raise it (see fm.converge_cutoffs) or pass "
+            "cutoff_warning=None if the truncation is intended",
+            CutoffWarning,
+            stacklevel=4,
+        )
+
+
+def solve_ground(
+    problem: Problem,
+    *,
+    method: Method = "auto",
+    tol: float = 1e-9,
+    v0: npt.ArrayLike | None = None,
+    seed: int = 0,
+    max_iterations: int | None = None,
+    cutoff_warning: float | None = 1e-6,
+    store_matrix: bool | None = None,
+) -> GroundState:
+    """:func:`ground_state` on a prepared problem."""
+    t0 = time.perf_counter()
+    _validate(1, method, tol, problem, v0, seed, max_iterations)
+    chosen = _pick(problem, 1, method)
+    if chosen == "lanczos":
+        energy, vector, residual, steps, products = _native_ground(
+            problem, tol, v0, seed, max_iterations, store_matrix
+        )
+        _warn_cutoff(problem.space, vector, cutoff_warning)
+        return GroundState(
+            energy=energy,
+            vector=vector,
+            residual=residual,
+            method="lanczos",
+            products=products,
+            iterations=steps,
+            seconds=time.perf_counter() - t0,
+            degeneracy=None,
+            converged=True,
+        )
+    degeneracy_tol = max(1e3 * tol, 1e-9)
+    products = 0
+    if chosen == "dense":
+        energies, vectors, residuals, _ = _eigsh_levels(
+            problem, min(17, problem.dim), chosen, tol, v0, max_iterations, seed
+        )
+    else:
+        energies, vectors, _, target = _eigsh_levels(
+            problem, 1, chosen, tol, v0, max_iterations, seed
+        )
+        assert target is not None
+        ncv = min(problem.dim, 20)
+        maxiter = None if max_iterations is None else max(1, max_iterations // ncv)
+        energies, vectors = _probe_degeneracy(
+            target, problem.dim, energies, vectors, tol, degeneracy_tol, seed, maxiter
+        )
+        residuals = _residuals(target.inner, energies, vectors)
+        products = target.products
+    _require_converged(chosen, energies[:1], residuals[:1], tol)
+    degeneracy = _degeneracy_groups(energies, degeneracy_tol)[0]
+    energy = float(energies[0])
+    vector = vectors[:, 0]
+    _warn_cutoff(problem.space, vector, cutoff_warning)
+    return GroundState(
+        energy=energy,
+        vector=vector,
+        residual=float(residuals[0]),
+        method=chosen,
+        products=products,
+        iterations=products,
+        seconds=time.perf_counter() - t0,
+        degeneracy=int(degeneracy),
+        converged=True,
+    )

@@ -1,0 +1,56 @@
+"""Checks where an expression meets a space: the space's type and the terms' modes, powers and
+coefficients."""
+
+from __future__ import annotations
+
+import cmath
+
+from fockmill.algebra.expressions import LadderExpr, format_monomial
+from fockmill.exceptions import ModeIndexError
+from fockmill.spaces.fock import FockSpace
+from fockmill.spaces.symmetry import SymmetricSpace
+
+__all__ = ["MAX_POWER", "check_space", "check_terms"]
+
+#: Largest creation or annihilation power of one mode in a term (the largest cutoff).
+MAX_POWER = 65_535
+
+
+def check_space(space: object) -> FockSpace:
+    """The space (a FockSpace or a SymmetricSpace sector), or a clear error."""
+    if not isinstance(space, FockSpace | SymmetricSpace):
+        raise TypeError(
+            f"expected a fm.FockSpace; got {type(space).__name__} (a fm.SymmetricSpace "
+            "sector is accepted too)"
+        )
+    return space  # type: ignore[return-value]
+
+
+def check_terms(e: LadderExpr, s: FockSpace) -> None:
+    """Refuse terms on missing modes, with absurd powers or non-finite coefficients.
+
+    Raises
+    ------
+    ModeIndexError
+        A term acts on a mode beyond the space.
+    ValueError
+        A power above :data:`MAX_POWER` or a NaN/inf coefficient.
+    """
+    for coefficient, key in e.terms():
+        for mode, p, q in key:
+            if mode >= s.modes:
+                raise ModeIndexError(
+                    f"term {format_monomial(key)} acts on mode {mode}, but the space has only "
+                    f"{s.modes} modes (valid indices 0..{s.modes - 1}); use a space with more "
+                    "modes or fix the index"
+                )
+            if p > MAX_POWER or q > MAX_POWER:
+                raise ValueError(
+                    f"term {format_monomial(key)} has a power above {MAX_POWER}; such powers "
+                    "vanish on every supported space, drop the term"
+                )
+        if not cmath.isfinite(coefficient):
+            raise ValueError(
+                f"term {format_monomial(key)} has the coefficient {coefficient}, which is not "
+                "finite; check the parameters for NaN, inf or overflow"
+            )

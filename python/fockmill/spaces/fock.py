@@ -1,0 +1,331 @@
+"""Truncated multi-mode Fock spaces, optionally restricted to a conserved total."""
+
+from __future__ import annotations
+
+import numbers
+from collections.abc import Sequence
+from typing import Any
+
+import numpy as np
+import numpy.typing as npt
+
+import fockmill._native as _native
+from fockmill.exceptions import SizeLimitError, SpaceError
+from fockmill.settings.checks import check_threads
+
+__all__ = ["FockSpace"]
+
+_MAX_WEIGHT = 2**32 - 1
+_MAX_TOTAL = 2**63 - 1
+
+
+def _describe_size(
+    cutoffs: list[int], weights: list[int] | None, total: int | None, modulus: int | None
+) -> str:
+    """The exact number of states in words, when cheap to count; else a bound."""
+    full = 1
+    for c in cutoffs:
+        full *= c + 1
+    if total is None:
+        return f"{full:,} (about 10^{len(str(full)) - 1})"
+    w = weights if weights is not None else [1] * len(cutoffs)
+    span = modulus if modulus is not None else total + 1
+    if span * sum(c + 1 for c in cutoffs) > 10**7:
+        return f"at most {full:,}"
+    counts = [0] * span
+    counts[0] = 1
+    for c, weight in zip(cutoffs, w, strict=True):
+        new = [0] * span
+        for r, n in enumerate(counts):
+            if n:
+                for v in range(c + 1):
+                    t = r + weight * v
+                    if modulus is not None:
+                        t %= modulus
+                    elif t >= span:
+                        break
+                    new[t] += n
+        counts = new
+    exact = counts[total % modulus if modulus is not None else total]
+    return f"{exact:,}"
+
+
+def _as_count(value: object, name: str, minimum: int) -> int:
+    """A non-negative integer argument, or a clear error."""
+    if isinstance(value, (bool, np.bool_)) or not isinstance(value, (numbers.Integral)):
+        raise TypeError(
+            f"{name} must be an integer >= {minimum}; got {value!r} of type {type(value).__name__}"
+        )
+    value = int(value)
+    if value < minimum:
+        raise SpaceError(f"{name} must be >= {minimum}; got {value}")
+    return value
+
+
+def _per_mode(value: object, modes: int | None, name: str, minimum: int) -> list[int]:
+    """An int (same for every mode) or a sequence of ints, one per mode."""
+    if isinstance(value, (numbers.Integral, np.integer)) and not isinstance(value, bool):
+        if modes is None:
+            raise TypeError(f"give modes=... when {name} is a single integer")
+        return [_as_count(value, name, minimum)] * modes
+    if isinstance(value, (str, bytes)) or not isinstance(value, (Sequence, np.ndarray)):
+        raise TypeError(
+            f"{name} must be an integer or a sequence of integers (one per mode); got {value!r}"
+        )
+    items = [_as_count(v, f"{name}[{i}]", minimum) for i, v in enumerate(value)]
+    if modes is not None and len(items) != modes:
+        raise SpaceError(
+            f"{name} has {len(items)} entries but modes={modes}; give one entry per mode"
+        )
+    return items
+
+
+class FockSpace:
+    """A truncated Fock space of bosonic modes, optionally one conserved-charge sector.
+
+    Mode ``i`` holds ``0 .. cutoff_i`` quanta. With ``total`` given, only states with
+    ``Σ_i weight_i · n_i == total`` are kept (``≡ total (mod modulus)`` when a modulus
+    is given); without it the space is the full truncated product space.
+
+    Parameters
+    ----------
+    modes : int, optional
+        Number of modes. May be omitted when ``cutoff`` is a sequence.
+    cutoff : int or sequence of int
+        Highest occupation kept per mode (>= 1). A two-level emitter has cutoff 1.
+    total : int or None
+        Conserved weighted number of quanta; None keeps every state.
+    weights : sequence of int, optional
+        Non-negative weight of each mode in the conserved charge (default all 1).
+        A weight of 0 leaves a mode out of the count.
+    modulus : int or None
+        Conserve the charge only modulo this integer (>= 2), e.g. 2 for parity
+        sectors of squeezing or two-photon drives. Needs ``total`` (the residue).
+
+    Raises
+    ------
+    SpaceError
+        For cutoffs < 1, modes < 1, negative totals or weights, wrong-length weights, a
+        modulus < 2 or without total, and sectors that contain no state.
+    TypeError
+        For non-integer arguments.
+    SizeLimitError
+        When the dimension or the ranking tables exceed what the core supports.
+
+    Notes
+    -----
+    Basis order: occupation tuples ``(n_0, …, n_{M-1})`` sorted lexicographically
+    ascending with mode 0 most significant, restricted to the sector. This is the
+    relative order of the ``numpy.kron`` product basis. Ranking a state and unranking an
+    index both take O(M) table look-ups.
+
+    Examples
+    --------
+    >>> space = FockSpace(modes=3, cutoff=2, total=2)
+    >>> space.dim
+    6
+    >>> space.occupations()[:3].tolist()
+    [[0, 0, 2], [0, 1, 1], [0, 2, 0]]
+    >>> int(space.index([1, 1, 0]))
+    4
+    """
+
+    __slots__ = ("_cutoffs", "_modulus", "_native", "_total", "_weights")
+
+    def __init__(
+        self,
+        modes: int | None = None,
+        cutoff: int | Sequence[int] = 1,
+        total: int | None = None,
+        *,
+        weights: Sequence[int] | None = None,
+        modulus: int | None = None,
+    ) -> None:
+        if modes is not None:
+            modes = _as_count(modes, "modes", 1)
+        cutoffs = _per_mode(cutoff, modes, "cutoff", 1)
+        if not cutoffs:
+            raise SpaceError("a Fock space needs at least one mode; pass modes >= 1")
+        weight_list = None if weights is None else _per_mode(weights, len(cutoffs), "weights", 0)
+        total_value = None if total is None else _as_count(total, "total", 0)
+        modulus_value = None if modulus is None else _as_count(modulus, "modulus", 2)
+        if modulus_value is not None and total_value is None:
+            raise SpaceError(
+                "a modulus needs a total (the residue class); pass total=0 or total=1 for "
+                "the even or odd parity sector"
+            )
+        if weight_list is not None and max(weight_list) > _MAX_WEIGHT:
+            raise SpaceError(
+                f"weights must be at most {_MAX_WEIGHT}; got {max(weight_list)}. Divide all "
+                "weights by their common factor"
+            )
+        if total_value is not None and total_value > _MAX_TOTAL:
+            raise SpaceError(f"total must be at most {_MAX_TOTAL}; got {total_value}")
+        if modulus_value is not None and modulus_value > _MAX_TOTAL:
+            raise SpaceError(f"modulus must be at most {_MAX_TOTAL}; got {modulus_value}")
+        try:
+            self._native = _native.NativeSpace(cutoffs, weight_list, total_value, modulus_value)
+        except SizeLimitError as exc:
+            size = _describe_size(cutoffs, weight_list, total_value, modulus_value)
+            reason = (
+                str(exc)
+                if "ranking tables" in str(exc)
+                else ("the dimension of the space exceeds the supported 2^52 states")
+            )
+            raise SizeLimitError(
+                f"this space has {size} states and cannot be used ({reason}); restrict it "
+                "to a conserved total (total=...), lower the cutoffs or use fewer modes"
+            ) from None
+        self._cutoffs = tuple(cutoffs)
+        self._weights = tuple(self._native.weights)
+        self._total = total_value
+        self._modulus = modulus_value
+
+    @property
+    def modes(self) -> int:
+        """Number of modes."""
+        return len(self._cutoffs)
+
+    @property
+    def dim(self) -> int:
+        """Number of basis states."""
+        return int(self._native.dim)
+
+    @property
+    def cutoffs(self) -> tuple[int, ...]:
+        """Highest occupation kept in each mode."""
+        return self._cutoffs
+
+    @property
+    def weights(self) -> tuple[int, ...]:
+        """Weight of each mode in the conserved charge."""
+        return self._weights
+
+    @property
+    def total(self) -> int | None:
+        """The conserved total (the residue when a modulus is set), or None."""
+        if self._total is not None and self._modulus is not None:
+            return self._total % self._modulus
+        return self._total
+
+    @property
+    def modulus(self) -> int | None:
+        """The modulus of the conserved charge, or None."""
+        return self._modulus
+
+    @property
+    def native(self) -> _native.NativeSpace:
+        """The compiled space object (for the binding layer)."""
+        return self._native
+
+    def with_cutoffs(self, cutoff: int | Sequence[int]) -> FockSpace:
+        """The same sector specification with other cutoffs."""
+        return FockSpace(
+            self.modes, cutoff, self._total, weights=self._weights, modulus=self._modulus
+        )
+
+    def binding_cutoffs(self) -> tuple[bool, ...]:
+        """Whether each mode's cutoff actually truncates the sector.
+
+        A cutoff does not truncate when the conserved total alone already caps the
+        mode's occupation at or below it (``cutoff_i >= total // weight_i``).
+        """
+        if self._total is None or self._modulus is not None:
+            return tuple(True for _ in self._cutoffs)
+        return tuple(
+            w == 0 or c < self._total // w
+            for c, w in zip(self._cutoffs, self._weights, strict=True)
+        )
+
+    def occupations(self, *, threads: int | None = None) -> npt.NDArray[np.unsignedinteger[Any]]:
+        """Occupation numbers of every basis state.
+
+        Returns
+        -------
+        numpy.ndarray
+            Shape ``(dim, modes)``; row ``k`` is basis state ``k``. ``uint8`` when no
+            mode can hold more than 255 quanta in this sector, else ``uint16``.
+        """
+        return self._native.occupations(check_threads(threads))
+
+    def index(self, occupations: npt.ArrayLike) -> Any:
+        """Basis index of one state or of each row of a 2-D array of states.
+
+        Parameters
+        ----------
+        occupations : array_like of int
+            Shape ``(modes,)`` for one state or ``(m, modes)`` for several.
+
+        Returns
+        -------
+        int or numpy.ndarray
+            The rank(s); ``-1`` where a state is not in this space.
+        """
+        occ = np.asarray(occupations)
+        if occ.dtype.kind not in "iub":
+            raise TypeError(f"occupations must be integers; got dtype {occ.dtype}")
+        single = occ.ndim == 1
+        if occ.ndim not in (1, 2) or occ.shape[-1] != self.modes:
+            raise ValueError(
+                f"occupations must have shape ({self.modes},) or (m, {self.modes}); got {occ.shape}"
+            )
+        occ2 = np.ascontiguousarray(occ.reshape(-1, self.modes), dtype=np.int64)
+        ranks = self._native.index(occ2)
+        return int(ranks[0]) if single else ranks
+
+    def state(self, index: int) -> tuple[int, ...]:
+        """Occupations of basis state ``index`` (unranked in O(M log cutoff)).
+
+        Raises
+        ------
+        IndexError
+            When ``index`` is not in ``0 .. dim - 1``.
+        """
+        k = _as_count(index, "index", 0)
+        if k >= self.dim:
+            raise IndexError(f"basis index {k} is out of range for dim {self.dim}")
+        return tuple(self._native.state(k))
+
+    def __reduce__(self) -> tuple[Any, ...]:
+        # Rebuilt from its specification: the ranking tables are cheap to recompute.
+        return (
+            _rebuild_space,
+            (self._cutoffs, self._weights, self._total, self._modulus),
+        )
+
+    def __eq__(self, other: object) -> bool:
+        if not isinstance(other, FockSpace):
+            return NotImplemented
+        return (
+            self._cutoffs == other._cutoffs
+            and self._weights == other._weights
+            and self.total == other.total
+            and self._modulus == other._modulus
+        )
+
+    def __hash__(self) -> int:
+        return hash((self._cutoffs, self._weights, self.total, self._modulus))
+
+    def __repr__(self) -> str:
+        parts = [f"modes={self.modes}"]
+        if len(set(self._cutoffs)) == 1:
+            parts.append(f"cutoff={self._cutoffs[0]}")
+        else:
+            parts.append(f"cutoff={list(self._cutoffs)}")
+        if self._total is not None:
+            parts.append(f"total={self.total}")
+        if any(w != 1 for w in self._weights):
+            parts.append(f"weights={list(self._weights)}")
+        if self._modulus is not None:
+            parts.append(f"modulus={self._modulus}")
+        return f"FockSpace({', '.join(parts)}) with dim={self.dim}"
+
+
+def _rebuild_space(
+    cutoffs: tuple[int, ...],
+    weights: tuple[int, ...],
+    total: int | None,
+    modulus: int | None,
+) -> FockSpace:
+    """Unpickle a :class:`FockSpace`."""
+    return FockSpace(len(cutoffs), list(cutoffs), total, weights=list(weights), modulus=modulus)

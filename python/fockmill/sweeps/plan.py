@@ -1,0 +1,363 @@
+"""What a sweep computes and in which order: checked settings, points, the visiting path.
+
+The solver settings use the words and defaults of :func:`fockmill.ground_state` and
+:func:`fockmill.lowest_levels` (``method``, ``tol``, ``seed``, ``max_iterations``,
+``threads``), plus ``levels``, the number of lowest levels (``k``).
+"""
+
+from __future__ import annotations
+
+import itertools
+import math
+import warnings
+from collections.abc import Iterable, Mapping, Sequence
+from dataclasses import dataclass
+from typing import Any
+
+import numpy as np
+import numpy.typing as npt
+
+from fockmill.models.model import Model
+from fockmill.settings.checks import (
+    check_levels,
+    check_max_iterations,
+    check_method,
+    check_seed,
+    check_threads,
+    check_tol,
+)
+
+__all__ = [
+    "DEFAULT_QUANTITIES",
+    "QUANTITIES",
+    "SOLVER_DEFAULTS",
+    "SweepSettings",
+    "full_points",
+    "serpentine_order",
+    "sweep_settings",
+]
+
+RECORDABLE: tuple[str, ...] = (
+    "energy",
+    "gap",
+    "levels",
+    "populations",
+    "number_variance",
+    "one_body",
+    "entropy",
+    "top_weight",
+    "residual",
+)
+"""Values allowed in ``record.quantities``."""
+
+
+@dataclass(frozen=True)
+class SweepGrid:
+    """A Cartesian grid of parameter values.
+
+    Attributes
+    ----------
+    axes : dict of str to numpy.ndarray
+        Parameter name -> its 1-D float64 values (read-only), in sweep order.
+
+    Raises
+    ------
+    ValueError
+        For no axes, or an axis that is not a non-empty 1-D array of finite numbers.
+
+    Examples
+    --------
+    >>> grid = SweepGrid({"U": np.array([1.0, 2.0]), "J": np.array([0.5])})
+    >>> grid.points()
+    [{'U': 1.0, 'J': 0.5}, {'U': 2.0, 'J': 0.5}]
+    """
+
+    axes: dict[str, npt.NDArray[np.float64]]
+
+    def __post_init__(self) -> None:
+        if not self.axes:
+            raise ValueError("a sweep grid needs at least one axis")
+        clean: dict[str, npt.NDArray[np.float64]] = {}
+        for name, values in self.axes.items():
+            array = np.array(values, dtype=np.float64)
+            if array.ndim != 1 or array.size == 0:
+                raise ValueError(
+                    f"sweep axis {name!r} must be a non-empty 1-D array; got shape {array.shape}"
+                )
+            if not np.all(np.isfinite(array)):
+                raise ValueError(f"sweep axis {name!r} holds non-finite values")
+            array.flags.writeable = False
+            clean[str(name)] = array
+        object.__setattr__(self, "axes", clean)
+
+    @property
+    def shape(self) -> tuple[int, ...]:
+        """Number of values along each axis."""
+        return tuple(len(values) for values in self.axes.values())
+
+    @property
+    def size(self) -> int:
+        """Number of grid points."""
+        return math.prod(self.shape)
+
+    def points(self) -> list[dict[str, float]]:
+        """Every grid point as ``{name: value}``, last axis varying fastest.
+
+        Returns
+        -------
+        list of dict
+            ``size`` dictionaries in ``itertools.product`` order over the axes.
+        """
+        names = list(self.axes)
+        columns = [[float(v) for v in values] for values in self.axes.values()]
+        return [dict(zip(names, combo, strict=True)) for combo in itertools.product(*columns)]
+
+    def __eq__(self, other: object) -> bool:
+        if not isinstance(other, SweepGrid):
+            return NotImplemented
+        return list(self.axes) == list(other.axes) and all(
+            np.array_equal(self.axes[name], other.axes[name]) for name in self.axes
+        )
+
+    def __hash__(self) -> int:
+        return hash(tuple((name, values.tobytes()) for name, values in self.axes.items()))
+
+
+QUANTITIES = RECORDABLE
+"""What a sweep can record (the values of a model file's ``record.quantities``)."""
+"""Quantities a sweep can record at each point (the model files' ``record.quantities``)."""
+
+DEFAULT_QUANTITIES: tuple[str, ...] = ("energy", "gap")
+"""What ``run_sweep`` records when ``quantities`` is not given."""
+
+SOLVER_DEFAULTS: Mapping[str, object] = {
+    "method": "auto",
+    "tol": 1e-9,
+    "seed": 0,
+    "max_iterations": None,
+    "threads": None,
+}
+"""Solver options of a sweep and their defaults: those of :func:`fockmill.ground_state`."""
+
+#: Settings a resumed sweep must share with the stored results, in message order.
+RESUME_KEYS = ("quantities", "levels", "entropy_modes", "method", "tol", "seed")
+
+
+@dataclass(frozen=True)
+class SweepSettings:
+    """What to compute at each point (checked by :func:`sweep_settings`)."""
+
+    quantities: tuple[str, ...]
+    levels: int
+    entropy_modes: tuple[int, ...]
+    method: str
+    tol: float
+    seed: int
+    max_iterations: int | None
+    threads: int | None
+
+    def as_meta(self) -> dict[str, object]:
+        """The settings stored with the results (JSON-ready)."""
+        return {
+            "quantities": list(self.quantities),
+            "levels": self.levels,
+            "entropy_modes": list(self.entropy_modes),
+            "method": self.method,
+            "tol": self.tol,
+            "seed": self.seed,
+            "max_iterations": self.max_iterations,
+        }
+
+
+def _deprecated(old: str, new: str) -> None:
+    warnings.warn(
+        f"run_sweep({old}=...) is deprecated and will be removed in the next release; "
+        f"use {new} instead",
+        DeprecationWarning,
+        stacklevel=4,
+    )
+
+
+def sweep_settings(
+    model: Model,
+    *,
+    quantities: Sequence[str] | None,
+    levels: int | None,
+    entropy_modes: Sequence[int] | None,
+    method: object,
+    tol: object,
+    seed: object,
+    max_iterations: object,
+    threads: object,
+    record: Sequence[str] | None = None,
+    solver_options: Mapping[str, object] | None = None,
+    dim: int | None = None,
+) -> SweepSettings:
+    """Check the options of ``run_sweep``, mapping the deprecated aliases.
+
+    ``record`` is the old name of ``quantities``; ``solver_options`` the old dict of
+    ``method``/``tol``/``seed``/``max_iterations``/``threads`` (its ``dense_limit`` is
+    ignored: the dense limit is the solvers' own). ``dim``: the dimension points are
+    solved in (a symmetry sector's), default the model space's.
+    """
+    if record is not None:
+        _deprecated("record", "quantities=[...]")
+        if quantities is not None:
+            raise TypeError("pass quantities= only (record= is its deprecated old name)")
+        quantities = record
+    options: dict[str, object] = {
+        "method": method,
+        "tol": tol,
+        "seed": seed,
+        "max_iterations": max_iterations,
+        "threads": threads,
+    }
+    if solver_options is not None:
+        _deprecated("solver_options", "the keywords method=, tol=, seed=, max_iterations=")
+        unknown = sorted(set(solver_options) - {*SOLVER_DEFAULTS, "dense_limit"})
+        if unknown:
+            raise ValueError(
+                f"unknown solver option(s) {unknown}; known: {sorted(SOLVER_DEFAULTS)}"
+            )
+        for name, value in solver_options.items():
+            # A keyword given explicitly (not at its default) wins over the old dict.
+            if name != "dense_limit" and options[name] == SOLVER_DEFAULTS[name]:
+                options[name] = value
+
+    chosen = tuple(DEFAULT_QUANTITIES if quantities is None else _names(quantities))
+    unknown = [q for q in chosen if q not in QUANTITIES]
+    if unknown:
+        raise ValueError(f"cannot record {unknown}; choose from {list(QUANTITIES)}")
+    chosen = tuple(dict.fromkeys(chosen))
+    dim = model.space.dim if dim is None else dim
+    if levels is None:
+        levels = min(dim, 4 if "levels" in chosen else 2 if "gap" in chosen else 1)
+    count = check_levels(levels, dim)
+    if "gap" in chosen and count < 2:
+        raise ValueError("recording 'gap' needs levels >= 2; pass levels=2 or drop 'gap'")
+    method_name = check_method(options["method"])
+    modes = model.space.modes
+    if entropy_modes is None:
+        subsystem = tuple(range(max(1, modes // 2)))
+    else:
+        subsystem = tuple(sorted({int(m) for m in entropy_modes}))
+        if not subsystem or any(m < 0 or m >= modes for m in subsystem):
+            raise ValueError(
+                f"entropy_modes must list modes in 0..{modes - 1}; got {list(entropy_modes)}"
+            )
+    return SweepSettings(
+        quantities=chosen,
+        levels=count,
+        entropy_modes=subsystem if "entropy" in chosen or entropy_modes is not None else (),
+        method=method_name,
+        tol=check_tol(options["tol"]),
+        seed=check_seed(options["seed"]),
+        max_iterations=check_max_iterations(options["max_iterations"]),
+        threads=check_threads(options["threads"]),
+    )
+
+
+def _names(quantities: Sequence[str] | str) -> list[str]:
+    if isinstance(quantities, str):
+        return [quantities]
+    return [str(q) for q in quantities]
+
+
+def full_points(
+    model: Model, points: SweepGrid | Iterable[Mapping[str, float]]
+) -> tuple[list[dict[str, float]], tuple[str, ...]]:
+    """Every point's complete parameter values, and the names that were given.
+
+    ``points`` is a :class:`~fockmill.SweepGrid` (its axes, in order, are the swept
+    names) or any iterable of mappings.
+    """
+    if isinstance(points, SweepGrid):
+        axes = tuple(points.axes)
+        given: Iterable[Mapping[str, float]] = points.points()
+    elif isinstance(points, Mapping):
+        raise TypeError(
+            "points must be a SweepGrid or a list of {name: value} mappings; got one mapping "
+            "(wrap it in a list for a single point)"
+        )
+    else:
+        axes = ()
+        given = points
+    full: list[dict[str, float]] = []
+    swept: dict[str, None] = dict.fromkeys(axes)
+    for index, point in enumerate(given):
+        if not isinstance(point, Mapping):
+            raise TypeError(
+                f"point {index} must be a mapping of parameter name to value; got {point!r}"
+            )
+        unknown = sorted(set(point) - set(model.parameters))
+        if unknown:
+            raise ValueError(
+                f"point {index} sets unknown parameter(s) {unknown}; model {model.name!r} "
+                f"has {sorted(model.parameters)}"
+            )
+        values = {}
+        for name, value in point.items():
+            number = float(value)
+            if not math.isfinite(number):
+                raise ValueError(f"point {index}: parameter {name!r} is {value!r}, not finite")
+            values[name] = number
+            swept.setdefault(name, None)
+        full.append(model.values(**values))
+    return full, tuple(swept)
+
+
+def serpentine_order(points: Sequence[Mapping[str, float]], names: Sequence[str]) -> list[int]:
+    """A visiting order of ``points`` in which consecutive points are grid neighbours.
+
+    Parameters
+    ----------
+    points : sequence of Mapping[str, float]
+        Parameter points (any order; need not form a full grid).
+    names : sequence of str
+        The swept parameters, slowest-varying first.
+
+    Returns
+    -------
+    list of int
+        A permutation of ``range(len(points))``.
+
+    Notes
+    -----
+    Each parameter's values are ranked; points are sorted by their ranks with the
+    direction of every axis reversed whenever the ranks of the slower axes add up to an
+    odd number (a boustrophedon, or reflected mixed-radix, order). On a full grid every
+    step changes one parameter by one grid step, so each warm start comes from a
+    neighbour.
+
+    Examples
+    --------
+    >>> grid = [{"a": a, "b": b} for a in (0.0, 1.0) for b in (0.0, 1.0, 2.0)]
+    >>> serpentine_order(grid, ["a", "b"])
+    [0, 1, 2, 5, 4, 3]
+    """
+    count = len(points)
+    if count == 0 or not names:
+        return list(range(count))
+    ranks = []
+    sizes = []
+    for name in names:
+        values = np.array([float(p.get(name, np.nan)) for p in points])
+        unique, inverse = np.unique(values, return_inverse=True)
+        ranks.append(inverse.reshape(-1).astype(np.int64))
+        sizes.append(unique.size)
+    digits = []
+    parity = np.zeros(count, dtype=np.int64)
+    for rank, size in zip(ranks, sizes, strict=True):
+        digits.append(np.where(parity % 2 == 1, size - 1 - rank, rank))
+        parity = parity + rank
+    # np.lexsort sorts by the last key first: pass the slowest axis last.
+    return [int(i) for i in np.lexsort(tuple(reversed(digits)))]
+
+
+def resume_mismatch(stored: Mapping[str, Any], settings: SweepSettings) -> str | None:
+    """The first setting that differs between stored results and this sweep, or None."""
+    current = settings.as_meta()
+    for key in RESUME_KEYS:
+        if stored.get(key) != current[key]:
+            return key
+    return None

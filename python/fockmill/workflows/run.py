@@ -1,0 +1,407 @@
+"""Run the ``[quench]``, ``[spectrum]`` and ``[temperature]`` sections of a model file.
+
+Each runner takes a :class:`~fockmill.ModelFile`, computes with :func:`fockmill.evolve`,
+:func:`fockmill.spectral_function` / :func:`fockmill.spectral_poles` or
+:func:`fockmill.thermal`, and returns a :class:`~fockmill.store.workflows.WorkflowResult`
+(arrays plus plain-JSON meta data) that :func:`write_workflow_results` stores.
+The Hamiltonian is the model at its ``[parameters]`` values, changed by ``overrides``;
+ground states use the ``[solver]`` settings.
+"""
+
+from __future__ import annotations
+
+import contextlib
+import time
+import warnings
+from collections.abc import Iterator, Mapping
+from typing import Any
+
+import numpy as np
+
+from fockmill.algebra.expressions import LadderExpr, number
+from fockmill.store.workflows import WorkflowResult, meta_of
+
+__all__ = ["run_quench", "run_spectrum", "run_thermal"]
+
+
+def _section(model_file: Any, name: str) -> Any:
+    spec = getattr(model_file, name, None)
+    if spec is None:
+        source = model_file.path or "the model file"
+        raise ValueError(
+            f"{source} has no [{name}] section; add one (see docs/model-files.md) to run it"
+        )
+    if getattr(model_file, "symmetry", None) is not None:
+        # A Fock or coherent initial state, a probe that changes the momentum and a
+        # canonical ensemble all live in the whole space, not in one symmetry sector.
+        warnings.warn(
+            f"[symmetry] is not used by [{name}]: it runs in the model's whole space "
+            f"(dim {model_file.model.space.dim:,}); sectors apply to `solve` and `sweep`",
+            UserWarning,
+            stacklevel=3,
+        )
+    return spec
+
+
+def _values(model_file: Any, overrides: Mapping[str, float] | None) -> dict[str, float]:
+    model = model_file.model
+    changed = dict(overrides or {})
+    unknown = sorted(set(changed) - set(model.parameters))
+    if unknown:
+        raise ValueError(
+            f"unknown parameter(s) {unknown}; the model has {sorted(model.parameters)}"
+        )
+    return model.values(**changed)
+
+
+def _solver(model_file: Any, threads: int | None) -> dict[str, Any]:
+    # [solver] is read with every key and its default: the solver's own keywords.
+    solver = dict(model_file.solver)
+    if threads is not None:
+        solver["threads"] = threads
+    return solver
+
+
+def _population_observables(modes: int) -> dict[str, LadderExpr]:
+    # Internal names cannot clash with the user's (those start with a letter).
+    return {f"#n{i}": number(i) for i in range(modes)}
+
+
+def _split_populations(
+    values: Mapping[str, Any], modes: int, count: int
+) -> tuple[np.ndarray | None, dict[str, Any]]:
+    keys = [f"#n{i}" for i in range(modes)]
+    if keys[0] not in values:
+        return None, dict(values)
+    table = np.column_stack([np.asarray(values[k], dtype=np.float64) for k in keys])
+    rest = {k: v for k, v in values.items() if not k.startswith("#")}
+    return table.reshape(count, modes), rest
+
+
+@contextlib.contextmanager
+def _collected_warnings() -> Iterator[list[str]]:
+    """Collect warnings (for the results' meta data), then pass them on."""
+    messages: list[str] = []
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        yield messages
+    for item in caught:
+        messages.append(str(item.message))
+        warnings.warn_explicit(item.message, item.category, item.filename, item.lineno)
+
+
+def run_quench(
+    model_file: Any,
+    *,
+    overrides: Mapping[str, float] | None = None,
+    threads: int | None = None,
+    memory_limit: int | None = None,
+) -> WorkflowResult:
+    """Evolve the ``[quench]`` initial state under the model and record observables.
+
+    Parameters
+    ----------
+    model_file : ModelFile
+        With a ``[quench]`` section.
+    overrides : mapping of str to float, optional
+        Parameter values changed for this run (the evolving Hamiltonian; a ground-state
+        initial state starts from these values with its own changes applied on top).
+    threads : int, optional
+        Threads (default: ``[solver] threads``, else all cores).
+    memory_limit : int, optional
+        Bytes the computation may plan to use.
+
+    Returns
+    -------
+    WorkflowResult
+        ``kind="quench"``; arrays ``times``, ``energy`` (⟨H⟩, constant up to the
+        propagation error), ``populations`` ``(len(times), modes)`` when recorded,
+        ``values.NAME`` per named observable and ``top_weights`` (per mode, the largest
+        weight on its top kept level over the times).
+
+    Raises
+    ------
+    ValueError
+        No ``[quench]`` section, unknown override names; the errors of
+        :func:`fockmill.evolve` and :func:`fockmill.ground_state`.
+    """
+    from fockmill.dynamics.evolve import evolve
+    from fockmill.solvers.ground import ground_state
+
+    started = time.perf_counter()
+    spec = _section(model_file, "quench")
+    model = model_file.model
+    space = model.space
+    values = _values(model_file, overrides)
+    solver = _solver(model_file, threads)
+    h = model.hamiltonian(**values)
+    summary: dict[str, Any] = {}
+    with _collected_warnings() as messages:
+        if spec.initial.kind == "ground":
+            start_values = {**values, **spec.initial.parameters}
+            ground = ground_state(
+                model.hamiltonian(**start_values), space, memory_limit=memory_limit, **solver
+            )
+            psi0 = ground.vector
+            summary["initial_energy"] = ground.energy
+            summary["initial_residual"] = ground.residual
+        else:
+            psi0 = spec.initial.vector(space)
+        observables: dict[str, LadderExpr] = {"#energy": h}
+        if spec.populations:
+            observables.update(_population_observables(space.modes))
+        observables.update(spec.observables)
+        ev = evolve(
+            h,
+            space,
+            psi0,
+            np.asarray(spec.times),
+            observables,
+            tol=spec.tol,
+            threads=solver["threads"],
+            memory_limit=memory_limit,
+        )
+    energy = np.asarray(ev.values["#energy"], dtype=np.float64)
+    rest = {k: v for k, v in ev.values.items() if k != "#energy"}
+    populations, named = _split_populations(rest, space.modes, ev.times.size)
+    arrays: dict[str, Any] = {"times": ev.times, "energy": energy}
+    if populations is not None:
+        arrays["populations"] = populations
+    for name, series in named.items():
+        arrays[f"values.{name}"] = np.asarray(series)
+    arrays["top_weights"] = np.asarray(ev.top_weights, dtype=np.float64)
+    summary.update(
+        steps=ev.steps,
+        products=ev.products,
+        method=ev.method,
+        error_estimate=ev.error_estimate,
+        energy_drift=float(np.max(np.abs(energy - energy[0]))) if energy.size else 0.0,
+        seconds=time.perf_counter() - started,
+    )
+    settings = {
+        "initial": spec.initial.kind,
+        "initial_state": spec.initial.describe(),
+        "occupations": list(spec.initial.occupations),
+        "amplitudes": [[a.real, a.imag] for a in spec.initial.amplitudes],
+        "initial_parameters": dict(spec.initial.parameters),
+        "tol": spec.tol,
+        "populations": spec.populations,
+    }
+    meta = meta_of(
+        model_file,
+        "quench",
+        values,
+        settings=settings,
+        observables={k: list(v) for k, v in spec.texts.items()},
+        summary=summary,
+        warnings=messages,
+    )
+    return WorkflowResult("quench", arrays, meta)
+
+
+def run_spectrum(
+    model_file: Any,
+    *,
+    overrides: Mapping[str, float] | None = None,
+    threads: int | None = None,
+    memory_limit: int | None = None,
+) -> WorkflowResult:
+    """``S(ω)`` of the ``[spectrum]`` operator in the model's ground state.
+
+    Parameters
+    ----------
+    model_file : ModelFile
+        With a ``[spectrum]`` section.
+    overrides, threads, memory_limit
+        As for :func:`run_quench`.
+
+    Returns
+    -------
+    WorkflowResult
+        ``kind="spectrum"``; arrays ``omegas``, ``S`` and, with ``poles = true``,
+        ``pole_frequencies`` and ``pole_weights``; ``summary`` holds the ground energy,
+        the reference energy, ``norm`` = ‖Aψ‖² (⟨ψ|A†A|ψ⟩ within the cutoffs, the
+        integral of S over all ω) and Lanczos step counts.
+
+    Raises
+    ------
+    ValueError, ConvergenceError
+        No ``[spectrum]`` section; the errors of :func:`fockmill.spectral_function`.
+    """
+    from fockmill.dynamics.spectral import spectral_function, spectral_poles
+    from fockmill.problem.problem import prepare
+    from fockmill.solvers.ground import ground_state
+
+    started = time.perf_counter()
+    spec = _section(model_file, "spectrum")
+    model = model_file.model
+    space = model.space
+    values = _values(model_file, overrides)
+    solver = _solver(model_file, threads)
+    h = model.hamiltonian(**values)
+    with _collected_warnings() as messages:
+        ground = ground_state(h, space, memory_limit=memory_limit, **solver)
+        reference = ground.energy if spec.reference_energy is None else spec.reference_energy
+        omegas = np.asarray(spec.omegas)
+        s = spectral_function(
+            h,
+            space,
+            ground.vector,
+            spec.operator,
+            omegas,
+            eta=spec.eta,
+            target=spec.target,
+            reference_energy=reference,
+            tol=spec.tol,
+            max_steps=spec.max_steps,
+            threads=solver["threads"],
+            memory_limit=memory_limit,
+        )
+        arrays: dict[str, Any] = {"omegas": omegas, "S": s}
+        # ‖Aψ‖² in the target space: ⟨ψ|A†A|ψ⟩ within the cutoffs (the sum rule of S).
+        probe = prepare(spec.operator, space, target=spec.target, threads=solver["threads"])
+        applied = probe.matvec(ground.vector)
+        norm = float(np.vdot(applied, applied).real)
+        summary: dict[str, Any] = {
+            "ground_energy": ground.energy,
+            "ground_residual": ground.residual,
+            "reference_energy": reference,
+            "norm": norm,
+        }
+        if spec.poles:
+            poles = spectral_poles(
+                h,
+                space,
+                ground.vector,
+                spec.operator,
+                target=spec.target,
+                reference_energy=reference,
+                max_steps=spec.max_steps,
+                threads=solver["threads"],
+                memory_limit=memory_limit,
+            )
+            arrays["pole_frequencies"] = poles.frequencies
+            arrays["pole_weights"] = poles.weights
+            summary.update(pole_steps=poles.steps, poles_exact=poles.exhausted)
+    summary["seconds"] = time.perf_counter() - started
+    target = spec.target
+    settings = {
+        "operator": list(spec.texts),
+        "charge": spec.charge,
+        "eta": spec.eta,
+        "reference_energy": spec.reference_energy,
+        "poles": spec.poles,
+        "tol": spec.tol,
+        "max_steps": spec.max_steps,
+        "target_total": target.total,
+        "target_dim": target.dim,
+    }
+    meta = meta_of(
+        model_file,
+        "spectrum",
+        values,
+        settings=settings,
+        observables={},
+        summary=summary,
+        warnings=messages,
+    )
+    return WorkflowResult("spectrum", arrays, meta)
+
+
+def run_thermal(
+    model_file: Any,
+    *,
+    overrides: Mapping[str, float] | None = None,
+    threads: int | None = None,
+    memory_limit: int | None = None,
+) -> WorkflowResult:
+    """Canonical averages on the ``[temperature]`` grid (k_B = 1).
+
+    Parameters
+    ----------
+    model_file : ModelFile
+        With a ``[temperature]`` section.
+    overrides, threads, memory_limit
+        As for :func:`run_quench`.
+
+    Returns
+    -------
+    WorkflowResult
+        ``kind="thermal"``; arrays ``temperatures``, ``energy``, ``energy_error``,
+        ``heat_capacity``, ``heat_capacity_error``, ``populations`` and
+        ``populations_error`` ``(len(temperatures), modes)`` when recorded,
+        ``values.NAME`` and ``errors.NAME`` per named observable, ``top_weights``
+        ``(len(temperatures), modes)``. Errors are zero for the exact method.
+
+    Raises
+    ------
+    ValueError
+        No ``[temperature]`` section; the errors of :func:`fockmill.thermal`.
+    """
+    from fockmill.dynamics.thermal import thermal
+
+    started = time.perf_counter()
+    spec = _section(model_file, "temperature")
+    model = model_file.model
+    space = model.space
+    values = _values(model_file, overrides)
+    solver = _solver(model_file, threads)
+    h = model.hamiltonian(**values)
+    observables: dict[str, LadderExpr] = {}
+    if spec.populations:
+        observables.update(_population_observables(space.modes))
+    observables.update(spec.observables)
+    temperatures = np.asarray(spec.temperatures)
+    with _collected_warnings() as messages:
+        th = thermal(
+            h,
+            space,
+            temperatures,
+            observables,
+            method=spec.method,
+            samples=spec.samples,
+            seed=spec.seed,
+            steps=spec.steps,
+            threads=solver["threads"],
+            memory_limit=memory_limit,
+        )
+    count = temperatures.size
+    populations, named = _split_populations(th.values, space.modes, count)
+    population_errors, named_errors = _split_populations(th.value_errors, space.modes, count)
+    arrays: dict[str, Any] = {
+        "temperatures": th.temperatures,
+        "energy": th.energy,
+        "energy_error": th.errors,
+        "heat_capacity": th.heat_capacity,
+        "heat_capacity_error": th.heat_capacity_errors,
+    }
+    if populations is not None and population_errors is not None:
+        arrays["populations"] = populations
+        arrays["populations_error"] = population_errors
+    for name in named:
+        arrays[f"values.{name}"] = np.asarray(named[name])
+        arrays[f"errors.{name}"] = np.asarray(named_errors[name], dtype=np.float64)
+    arrays["top_weights"] = np.asarray(th.top_weights, dtype=np.float64)
+    settings = {
+        "method": spec.method,
+        "samples": spec.samples,
+        "seed": spec.seed,
+        "steps": spec.steps,
+        "populations": spec.populations,
+    }
+    summary = {
+        "method": th.method,
+        "samples": th.samples,
+        "steps": th.steps,
+        "seconds": time.perf_counter() - started,
+    }
+    meta = meta_of(
+        model_file,
+        "thermal",
+        values,
+        settings=settings,
+        observables={k: list(v) for k, v in spec.texts.items()},
+        summary=summary,
+        warnings=messages,
+    )
+    return WorkflowResult("thermal", arrays, meta)
