@@ -69,7 +69,12 @@ def bench_size(sites: int, tasks: list[str], repeats: int, samples: int = 20) ->
 
         def run_evolve() -> fm.Evolution:
             return fm.evolve(
-                h, space, psi0, times, {"n0^2": fm.number(0) * fm.number(0)}, cutoff_warning=None
+                h,
+                space,
+                psi0,
+                times,
+                observables={"n0^2": fm.number(0) * fm.number(0)},
+                cutoff_warning=None,
             )
 
         seconds, cpu, ev = timed(run_evolve, repeats)
@@ -107,7 +112,7 @@ def bench_size(sites: int, tasks: list[str], repeats: int, samples: int = 20) ->
                 h,
                 space,
                 temperatures,
-                {"n0^2": fm.number(0) * fm.number(0)},
+                observables={"n0^2": fm.number(0) * fm.number(0)},
                 method="ftlm",
                 samples=samples,
                 cutoff_warning=None,

@@ -37,7 +37,7 @@ def test_coherent_state_keeps_alpha_e_to_the_minus_i_omega_t():
         space,
         coherent_state(alpha, 40),
         times,
-        {"a": fm.lowering(0), "n": fm.number(0)},
+        observables={"a": fm.lowering(0), "n": fm.number(0)},
     )
     np.testing.assert_allclose(ev.values["a"], alpha * np.exp(-1j * omega * times), atol=1e-9)
     assert ev.values["a"].dtype == np.complex128
@@ -59,7 +59,7 @@ def test_jaynes_cummings_vacuum_rabi_oscillation():
     psi0 = np.zeros(space.dim)
     psi0[space.index([0, 1])] = 1.0
     times = np.linspace(0.0, 20.0, 41)
-    ev = fm.evolve(h, space, psi0, times, {"excited": fm.number(1)})
+    ev = fm.evolve(h, space, psi0, times, observables={"excited": fm.number(1)})
     np.testing.assert_allclose(ev.values["excited"], np.cos(g * times) ** 2, atol=1e-9)
 
 
@@ -75,7 +75,7 @@ def test_two_coupled_resonators_exchange_one_photon():
     psi0[space.index([1, 0])] = 1.0
     times = np.linspace(0.0, 10.0, 51)
     for method in ("csr", "operator"):
-        ev = fm.evolve(h, space, psi0, times, {"n0": fm.number(0)}, method=method)
+        ev = fm.evolve(h, space, psi0, times, observables={"n0": fm.number(0)}, method=method)
         np.testing.assert_allclose(ev.values["n0"], np.cos(j * times) ** 2, atol=1e-9)
 
 

@@ -116,7 +116,7 @@ def test_index_of_arbitrary_states_matches_lookup(spec: SpaceSpec, data: st.Data
         dtype=np.int64,
     )
     wanted = [position.get(state, -1) for state in as_tuples(candidates)]
-    np.testing.assert_array_equal(space.index(candidates), wanted)
+    np.testing.assert_array_equal(space.index(candidates, strict=False), wanted)
 
 
 @given(space_specs())
@@ -126,8 +126,10 @@ def test_every_state_outside_the_sector_ranks_to_minus_one(spec: SpaceSpec) -> N
     inside = set(as_tuples(expected))
     outside = [state for state in as_tuples(full_basis(spec.cutoffs)) if state not in inside]
     assume(outside)
-    ranks = spec.build().index(np.array(outside, dtype=np.int64))
+    ranks = spec.build().index(np.array(outside, dtype=np.int64), strict=False)
     assert np.all(ranks == -1)
+    with pytest.raises(ValueError, match="is not in this space"):
+        spec.build().index(np.array(outside[0], dtype=np.int64))
 
 
 @given(space_specs())
@@ -215,7 +217,7 @@ def test_occupations_widen_to_uint16_above_255() -> None:
     np.testing.assert_array_equal(occupations[:, 0], np.arange(301))
     np.testing.assert_array_equal(space.index(occupations), np.arange(301))
     assert space.index([300]) == 300
-    assert space.index([301]) == -1
+    assert space.index([301], strict=False) == -1
 
 
 @pytest.mark.parametrize(("cutoffs", "dtype"), [([255], np.uint8), ([1, 256], np.uint16)])
@@ -232,8 +234,8 @@ def test_index_accepts_one_state_or_a_stack() -> None:
     single = space.index([1, 1, 0])
     assert type(single) is int
     assert single == 4
-    assert space.index(np.array([1, 1, 1], dtype=np.uint8)) == -1
-    stacked = space.index([[1, 1, 0], [1, 1, 1], [0, 0, 2]])
+    assert space.index(np.array([1, 1, 1], dtype=np.uint8), strict=False) == -1
+    stacked = space.index([[1, 1, 0], [1, 1, 1], [0, 0, 2]], strict=False)
     assert isinstance(stacked, np.ndarray)
     assert stacked.shape == (3,)
     np.testing.assert_array_equal(stacked, [4, -1, 0])
@@ -317,3 +319,36 @@ def test_space_error_is_a_value_error() -> None:
 def test_non_integer_arguments_raise_type_error(kwargs: dict[str, object], message: str) -> None:
     with pytest.raises(TypeError, match=message):
         fm.FockSpace(**kwargs)  # type: ignore[arg-type]
+
+
+def test_index_of_a_state_outside_names_the_broken_constraint() -> None:
+    # A mistyped state must not land silently on the last basis state (index -1).
+    space = fm.FockSpace(modes=3, cutoff=2, total=2)
+    with pytest.raises(
+        ValueError,
+        match=re.escape(
+            "(1, 1, 1) is not in this space: the number of quanta is 3, but the space keeps total=2"
+        ),
+    ):
+        space.index([1, 1, 1])
+    with pytest.raises(
+        ValueError, match=re.escape("mode 0 holds 3 quanta, outside 0..2 (its cutoff)")
+    ):
+        space.index([3, 0, 0])
+    with pytest.raises(ValueError, match="strict=False"):
+        space.index([[1, 1, 0], [0, 0, 3]])
+    parity = fm.FockSpace(modes=2, cutoff=3, total=0, modulus=2)
+    with pytest.raises(ValueError, match=re.escape("is 1 ≡ 1 mod 2, but the space keeps 0 mod 2")):
+        parity.index([1, 0])
+
+
+def test_basis_vector_is_the_unit_vector_of_index() -> None:
+    space = fm.FockSpace(modes=3, cutoff=2, total=2)
+    # Worked by hand: (1, 1, 0) is basis state 4 (see test_index_accepts_one_state_or_a_stack).
+    vector = space.basis_vector([1, 1, 0])
+    expected = np.zeros(6)
+    expected[4] = 1.0
+    np.testing.assert_array_equal(vector, expected)
+    assert space.basis_vector([0, 0, 2], dtype=np.complex128).dtype == np.complex128
+    with pytest.raises(ValueError, match="not in this space"):
+        space.basis_vector([2, 2, 0])

@@ -33,7 +33,9 @@ def test_exact_method_equals_dense_numpy_at_all_temperatures(bose_hubbard_ring):
     # (Landau & Lifshitz, Statistical Physics Part 1, 3rd ed. 1980, §112; from memory).
     h, space = bose_hubbard_ring
     hop = fm.raising(0) * fm.lowering(1)
-    th = fm.thermal(h, space, TEMPERATURES, {"n0": fm.number(0), "hop": hop}, cutoff_warning=None)
+    th = fm.thermal(
+        h, space, TEMPERATURES, observables={"n0": fm.number(0), "hop": hop}, cutoff_warning=None
+    )
     assert th.method == "exact"
     np.testing.assert_array_equal(th.errors, 0.0)
     for k, t in enumerate(TEMPERATURES):
@@ -54,7 +56,11 @@ def test_truncated_oscillator_is_the_finite_geometric_sum(cutoff):
     omega = 1.3
     space = fm.FockSpace(modes=1, cutoff=cutoff)
     th = fm.thermal(
-        omega * fm.number(0), space, TEMPERATURES, {"n": fm.number(0)}, cutoff_warning=None
+        omega * fm.number(0),
+        space,
+        TEMPERATURES,
+        observables={"n": fm.number(0)},
+        cutoff_warning=None,
     )
     x = np.exp(-omega / TEMPERATURES)
     expected = x / (1 - x) - (cutoff + 1) * x ** (cutoff + 1) / (1 - x ** (cutoff + 1))
@@ -70,7 +76,11 @@ def test_oscillator_tends_to_bose_einstein_as_the_cutoff_grows():
     for cutoff in (4, 16, 120):
         space = fm.FockSpace(modes=1, cutoff=cutoff)
         th = fm.thermal(
-            omega * fm.number(0), space, temperatures, {"n": fm.number(0)}, cutoff_warning=None
+            omega * fm.number(0),
+            space,
+            temperatures,
+            observables={"n": fm.number(0)},
+            cutoff_warning=None,
         )
         gaps.append(np.max(np.abs(th.values["n"] - bose)))
     assert gaps[0] > gaps[1] > gaps[2]
@@ -96,9 +106,18 @@ def test_ftlm_agrees_with_exact_within_its_error_bar(bose_hubbard_ring):
     h, space = bose_hubbard_ring
     temperatures = np.array([0.5, 1.0, 3.0, 10.0])
     observables = {"n0": fm.number(0)}
-    exact = fm.thermal(h, space, temperatures, observables, method="exact", cutoff_warning=None)
+    exact = fm.thermal(
+        h, space, temperatures, observables=observables, method="exact", cutoff_warning=None
+    )
     ftlm = fm.thermal(
-        h, space, temperatures, observables, method="ftlm", samples=40, seed=7, cutoff_warning=None
+        h,
+        space,
+        temperatures,
+        observables=observables,
+        method="ftlm",
+        samples=40,
+        seed=7,
+        cutoff_warning=None,
     )
     assert ftlm.method == "ftlm" and ftlm.samples == 40
     assert np.all(ftlm.errors > 0)
@@ -106,7 +125,14 @@ def test_ftlm_agrees_with_exact_within_its_error_bar(bose_hubbard_ring):
     assert np.all(np.abs(ftlm.heat_capacity - exact.heat_capacity) <= 4 * ftlm.heat_capacity_errors)
     assert np.all(np.abs(ftlm.values["n0"] - exact.values["n0"]) <= 4 * ftlm.value_errors["n0"])
     again = fm.thermal(
-        h, space, temperatures, observables, method="ftlm", samples=40, seed=7, cutoff_warning=None
+        h,
+        space,
+        temperatures,
+        observables=observables,
+        method="ftlm",
+        samples=40,
+        seed=7,
+        cutoff_warning=None,
     )
     np.testing.assert_array_equal(again.energy, ftlm.energy)  # reproducible
 

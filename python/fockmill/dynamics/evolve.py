@@ -13,18 +13,20 @@ import numpy as np
 import numpy.typing as npt
 import scipy.linalg as sla
 
-from fockmill.algebra.expressions import LadderExpr, as_expr
+from fockmill.algebra.expressions import LadderExpr
 from fockmill.dynamics.krylov import (
     as_float_array,
     check_common,
-    check_observables,
     check_positive,
     check_state,
+    expectation_function,
     hermitian_map,
     top_weights,
     warn_top_weights,
 )
 from fockmill.exceptions import ConvergenceError, SizeLimitError
+from fockmill.problem.problem import Problem, prepare_observables, problem_and_arguments
+from fockmill.settings.signatures import options_were_positional
 
 __all__ = ["Evolution", "evolve"]
 
@@ -98,20 +100,6 @@ def _check_times(times: object) -> npt.NDArray[np.float64]:
     return t
 
 
-def _expectation_function(
-    expr: LadderExpr, space: Any, threads: int | None
-) -> Callable[[npt.NDArray[Any]], complex]:
-    """``ψ -> ⟨ψ|O|ψ⟩`` without building a matrix when the space allows it."""
-    from fockmill.observables.observe import expectation
-    from fockmill.problem.builders import build_operator
-    from fockmill.spaces.fock import FockSpace
-
-    if isinstance(space, FockSpace):
-        return lambda psi: complex(expectation(expr, space, psi, threads=threads))
-    op = build_operator(expr, space, threads=threads)
-    return lambda psi: complex(np.vdot(psi, op @ psi))
-
-
 def _krylov_space(
     apply: Callable[[npt.NDArray[Any]], npt.NDArray[Any]],
     psi: npt.NDArray[np.complex128],
@@ -183,15 +171,16 @@ class _Propagator:
         return self.beta_next * abs(np.dot(self.last, np.exp(-1j * tau * self.lam)))
 
 
+@options_were_positional(4, ("observables", "keep_states", "tol"))
 def evolve(
-    H: LadderExpr,
-    space: Any,
-    psi0: npt.ArrayLike,
-    times: npt.ArrayLike,
+    H: LadderExpr | Problem,
+    space: Any = None,
+    psi0: npt.ArrayLike | None = None,
+    times: npt.ArrayLike | None = None,
+    *,
     observables: Mapping[str, LadderExpr] | None = None,
     keep_states: bool = False,
     tol: float = 1e-10,
-    *,
     krylov_dim: int | None = None,
     method: str = "auto",
     threads: int | None = None,
@@ -202,9 +191,11 @@ def evolve(
 
     Parameters
     ----------
-    H : LadderExpr
-        A Hermitian Hamiltonian that conserves the space's sector.
-    space : FockSpace
+    H : LadderExpr or Problem
+        A Hermitian Hamiltonian that conserves the space's sector, or a prepared problem
+        (:func:`fockmill.prepare`; then ``space`` is omitted and its compiled operator,
+        thread pool and memory limit are reused: ``evolve(problem, psi0=..., times=...)``).
+    space : FockSpace or SymmetricSpace
         The basis of the state.
     psi0 : array_like
         The normalised state at t = 0 (whatever ``times[0]`` is), shape ``(dim,)``.
@@ -262,13 +253,18 @@ def evolve(
     >>> space = fm.FockSpace(modes=2, cutoff=1, total=1)
     >>> h = fm.raising(0) * fm.lowering(1) + fm.raising(1) * fm.lowering(0)
     >>> psi0 = np.array([0.0, 1.0])          # one photon in resonator 0
-    >>> ev = fm.evolve(h, space, psi0, [0.0, np.pi / 4], {"n0": fm.number(0)})
+    >>> ev = fm.evolve(h, space, psi0, [0.0, np.pi / 4], observables={"n0": fm.number(0)})
     >>> ev.values["n0"].round(6).tolist()     # cos²(Jt)
     [1.0, 0.5]
     """
     t_start = time.perf_counter()
-    e = as_expr(H)
     threads, memory_limit = check_common(threads, memory_limit)
+    problem, (psi0, times) = problem_and_arguments(
+        H, space, (psi0, times), threads=threads, memory_limit=memory_limit
+    )
+    space, memory_limit = problem.space, problem.memory_limit
+    if psi0 is None or times is None:
+        raise TypeError("evolve needs psi0= (the state at t = 0) and times=")
     t = _check_times(times)
     tol = check_positive(tol, "tol", "1e-10")
     if krylov_dim is not None:
@@ -279,23 +275,16 @@ def evolve(
     if not isinstance(keep_states, bool | np.bool_):
         raise TypeError(f"keep_states must be True or False; got {keep_states!r}")
     psi = check_state(space, psi0, "psi0").astype(np.complex128)
-    obs = check_observables(observables, space)
+    obs = prepare_observables(observables, problem)
     dim = psi.shape[0]
     if krylov_dim is None:
         krylov_dim = _default_krylov_dim(dim, memory_limit)
     m = int(min(krylov_dim, dim))
     kept = dim * t.size * 16 if keep_states else 0
-    hmap = hermitian_map(
-        e,
-        space,
-        vectors=m + 4 + -(-kept // max(16 * dim, 1)),
-        threads=threads,
-        memory_limit=memory_limit,
-        method=method,
-    )
+    hmap = hermitian_map(problem, vectors=m + 4 + -(-kept // max(16 * dim, 1)), method=method)
     states = np.zeros((dim, t.size), dtype=np.complex128) if keep_states else None
-    hermitian = {name: o.is_hermitian() for name, o in obs.items()}
-    measure = {name: _expectation_function(o, space, threads) for name, o in obs.items()}
+    hermitian = {name: o.expr.is_hermitian() for name, o in obs.items()}
+    measure = {name: expectation_function(o) for name, o in obs.items()}
     raw: dict[str, list[complex]] = {name: [] for name in obs}
     weights_max = None
     try:
@@ -311,7 +300,7 @@ def evolve(
             raw[name].append(f(state))
         if states is not None:
             states[:, k] = state
-        w = top_weights(space, state, threads)
+        w = top_weights(space, state, problem.pool)
         weights_max = w if weights_max is None else np.fmax(weights_max, w)
 
     t_end = float(t[-1])

@@ -5,7 +5,7 @@ Lanczos recurrence that all three build on."""
 from __future__ import annotations
 
 import numbers
-from collections.abc import Callable, Mapping, Sequence
+from collections.abc import Callable, Sequence
 from dataclasses import dataclass, field
 from typing import Any
 
@@ -18,8 +18,8 @@ from fockmill.settings.checks import check_memory_limit, check_threads
 
 __all__ = [
     "HermitianMap",
-    "check_observables",
     "check_state",
+    "expectation_function",
     "hermitian_map",
     "lanczos_coefficients",
     "top_weights",
@@ -73,16 +73,13 @@ def _budget(memory_limit: int | None, available: int | None) -> float:
 
 
 def hermitian_map(
-    expr: LadderExpr,
-    space: Any,
+    problem: Any,
     *,
     vectors: int,
-    threads: int | None,
-    memory_limit: int | None,
     method: str = "auto",
     complex_vectors: bool = True,
 ) -> HermitianMap:
-    """The product ``x -> H x`` on ``space``, stored or matrix-free.
+    """The product ``x -> H x`` of a prepared problem, stored or matrix-free.
 
     ``"auto"`` stores the CSR matrix when it and ``vectors`` state vectors fit in
     ``MEMORY_BUDGET`` of the memory (scipy's CSR product), else uses the matrix-free
@@ -90,12 +87,11 @@ def hermitian_map(
     :class:`~fockmill.exceptions.SizeLimitError` when even the vectors do not fit.
     """
     from fockmill.problem.memory import format_bytes
-    from fockmill.problem.problem import prepare
 
     if method not in ("auto", "csr", "operator"):
         raise ValueError(f"method must be 'auto', 'csr' or 'operator'; got {method!r}")
-    check_hermitian(expr)
-    problem = prepare(expr, space, threads=threads, memory_limit=memory_limit)
+    check_hermitian(problem.expr)
+    memory_limit = problem.memory_limit
     estimate = problem.estimate
     item = 16 if complex_vectors else estimate.value_dtype.itemsize
     vector_bytes = vectors * estimate.dim * item
@@ -130,6 +126,16 @@ def hermitian_map(
     return HermitianMap(estimate.dim, is_real, "operator", apply_free)
 
 
+def expectation_function(observable: Any) -> Callable[[npt.NDArray[Any]], complex]:
+    """``ψ -> ⟨ψ|O|ψ⟩`` from the observable's prepared problem (compiled once)."""
+    native, pool = observable.native, observable.pool
+
+    def value(psi: npt.NDArray[Any]) -> complex:
+        return complex(np.vdot(psi, native.matvec(np.ascontiguousarray(psi), pool)))
+
+    return value
+
+
 def check_state(space: Any, psi: object, name: str = "psi", tol: float = 1e-8) -> Any:
     """A normalised state of the space as a contiguous float64/complex128 array."""
     from fockmill.observables.observe import check_vector
@@ -141,30 +147,6 @@ def check_state(space: Any, psi: object, name: str = "psi", tol: float = 1e-8) -
             f"{name} has norm {norm:.12g}, not 1; normalise it first (psi / numpy.linalg.norm(psi))"
         )
     return v
-
-
-def check_observables(
-    observables: Mapping[str, object] | None, space: Any
-) -> dict[str, LadderExpr]:
-    """The observables as a name -> expression dict, each validated on the space."""
-    from fockmill.algebra.expressions import as_expr
-    from fockmill.problem.compile import compile_operator
-
-    if observables is None:
-        return {}
-    if not isinstance(observables, Mapping):
-        raise TypeError(
-            "observables must be a mapping of names to expressions, e.g. "
-            "{'n0': fm.number(0)}; got " + type(observables).__name__
-        )
-    out: dict[str, LadderExpr] = {}
-    for name, expr in observables.items():
-        if not isinstance(name, str):
-            raise TypeError(f"observable names must be strings; got {name!r}")
-        e = as_expr(expr)
-        compile_operator(e, space)  # mode indices, charge, finiteness
-        out[name] = e
-    return out
 
 
 def check_positive(value: object, name: str, example: str) -> float:

@@ -22,12 +22,24 @@ from fockmill.dynamics.krylov import (
     hermitian_map,
     lanczos_coefficients,
 )
-from fockmill.exceptions import ConvergenceError
+from fockmill.exceptions import ChargeError, ConvergenceError
+from fockmill.problem.problem import Problem, prepare, problem_and_arguments
+from fockmill.settings.signatures import options_were_positional
 
-__all__ = ["SpectralPoles", "spectral_function", "spectral_poles"]
+__all__ = [
+    "SpectralPoles",
+    "SpectralStart",
+    "function_from_start",
+    "poles_from_start",
+    "spectral_function",
+    "spectral_poles",
+    "spectral_start",
+]
 
 #: Steps between two convergence checks of the continued fraction.
 CHECK_EVERY = 10
+#: Poles closer than this (relative to the spectrum's scale) are copies of one level.
+MERGE_TOL = 1e-9
 
 
 @dataclass(frozen=True)
@@ -49,6 +61,9 @@ class SpectralPoles:
     exhausted : bool
         Whether the Krylov space closed (an invariant subspace): the poles are then the
         exact spectrum that ``A|ψ⟩`` sees.
+    merged : int
+        Copies of a level that Lanczos produced after losing orthogonality and that were
+        merged into one pole (their weights summed); 0 when none.
     """
 
     frequencies: npt.NDArray[np.float64]
@@ -57,6 +72,7 @@ class SpectralPoles:
     reference_energy: float
     steps: int
     exhausted: bool
+    merged: int = 0
 
     def evaluate(self, omegas: npt.ArrayLike, eta: float) -> npt.NDArray[np.float64]:
         """``S(ω)`` as the sum of Lorentzians of width ``eta`` at the poles."""
@@ -79,28 +95,53 @@ def _continued_fraction(
     return g
 
 
-def _start(
-    H: object,
-    space: Any,
+@dataclass(frozen=True)
+class SpectralStart:
+    """What a spectrum starts from: ``H`` on the target space (compiled once), the
+    vector ``A|ψ⟩``, the reference energy and ``‖A|ψ⟩‖²``; shared by
+    :func:`spectral_function` and :func:`spectral_poles` when both are wanted."""
+
+    on_target: Problem
+    phi: npt.NDArray[Any]
+    reference_energy: float
+    norm: float
+
+
+def spectral_start(
+    problem: Problem,
     psi: npt.ArrayLike,
     A: object,
-    target: Any,
-    reference_energy: object,
-    threads: int | None,
-) -> tuple[LadderExpr, Any, npt.NDArray[Any], float]:
-    """Validated Hamiltonian, target space, ``A|ψ⟩`` and the reference energy."""
-    from fockmill.dynamics.evolve import _expectation_function
-    from fockmill.problem.problem import prepare
-
-    e = as_expr(H)
-    a = as_expr(A)
-    check_hermitian(e)
+    target: Any = None,
+    reference_energy: object = None,
+) -> SpectralStart:
+    """The Hamiltonian on the target space (compiled once), ``A|ψ⟩`` and ``E_ref``."""
+    check_hermitian(problem.expr)
+    space = problem.space
     v = check_state(space, psi, "psi")
-    probe = prepare(a, space, target=target, threads=threads)
-    tgt = probe.target
+    a = as_expr(A)
+    try:
+        if target is not None and target != space:
+            probe = prepare(a, space, target=target, threads=problem.threads)
+        else:
+            probe = Problem._from_parts(a, space, pool=problem.pool, threads=problem.threads)
+    except ChargeError as error:
+        if target is not None:
+            raise
+        raise ChargeError(
+            f"{error}. A changes the conserved charge, so A|ψ⟩ lives in another sector: pass "
+            "target= with the space it lands in (for example the same modes and cutoffs "
+            "with the total changed by A's charge)"
+        ) from None
     phi = probe.matvec(v)
+    if probe.target == space:
+        on_target = problem
+    else:
+        on_target = Problem._from_parts(
+            problem.expr, probe.target, pool=problem.pool, threads=problem.threads
+        )
+        on_target.memory_limit = problem.memory_limit
     if reference_energy is None:
-        ref = _expectation_function(e, space, threads)(v).real
+        ref = float(np.vdot(v, problem.matvec(v)).real)
     else:
         if isinstance(reference_energy, bool) or not isinstance(reference_energy, numbers.Real):
             raise TypeError(
@@ -109,7 +150,8 @@ def _start(
         ref = float(reference_energy)
         if not np.isfinite(ref):
             raise ValueError("reference_energy must be finite")
-    return e, tgt, np.asarray(phi), float(ref)
+    phi = np.asarray(phi)
+    return SpectralStart(on_target, phi, float(ref), float(np.vdot(phi, phi).real))
 
 
 def _check_steps(max_steps: object) -> int | None:
@@ -120,16 +162,17 @@ def _check_steps(max_steps: object) -> int | None:
     return int(max_steps)
 
 
+@options_were_positional(5, ("eta", "target", "reference_energy"))
 def spectral_function(
-    H: LadderExpr,
-    space: Any,
-    psi: npt.ArrayLike,
-    A: LadderExpr,
-    omegas: npt.ArrayLike,
+    H: LadderExpr | Problem,
+    space: Any = None,
+    psi: npt.ArrayLike | None = None,
+    A: LadderExpr | None = None,
+    omegas: npt.ArrayLike | None = None,
+    *,
     eta: float = 0.05,
     target: Any = None,
     reference_energy: float | None = None,
-    *,
     tol: float = 1e-6,
     max_steps: int | None = None,
     method: str = "auto",
@@ -210,24 +253,38 @@ def spectral_function(
     [6.366, 0.063]
     """
     threads, memory_limit = check_common(threads, memory_limit)
+    problem, (psi, A, omegas) = problem_and_arguments(
+        H, space, (psi, A, omegas), threads=threads, memory_limit=memory_limit
+    )
+    if psi is None or A is None or omegas is None:
+        raise TypeError("spectral_function needs psi=, A= and omegas=")
     eta = check_positive(eta, "eta", "0.05")
     tol = check_positive(tol, "tol", "1e-6")
     steps_cap = _check_steps(max_steps)
+    # Checked before any work, naming the argument (numpy's own message would not).
+    as_float_array(np.ravel(np.asarray(omegas, dtype=object)), "omegas")
+    start = spectral_start(problem, psi, A, target, reference_energy)
+    return function_from_start(start, omegas, eta=eta, tol=tol, max_steps=steps_cap, method=method)
+
+
+def function_from_start(
+    start: SpectralStart,
+    omegas: npt.ArrayLike,
+    *,
+    eta: float,
+    tol: float,
+    max_steps: int | None,
+    method: str,
+) -> npt.NDArray[np.float64]:
+    """:func:`spectral_function` from a prepared :class:`SpectralStart`."""
     w = np.asarray(omegas, dtype=np.float64) if np.ndim(omegas) else np.asarray([omegas], float)
     flat = as_float_array(w.reshape(-1), "omegas")
-    e, tgt, phi, ref = _start(H, space, psi, A, target, reference_energy, threads)
-    norm_sq = float(np.vdot(phi, phi).real)
+    steps_cap = max_steps
+    on_target, phi, ref, norm_sq = start.on_target, start.phi, start.reference_energy, start.norm
+    tgt = on_target.space
     if norm_sq == 0.0:
         return np.zeros(np.shape(omegas), dtype=np.float64)
-    hmap = hermitian_map(
-        e,
-        tgt,
-        vectors=4,
-        threads=threads,
-        memory_limit=memory_limit,
-        method=method,
-        complex_vectors=phi.dtype.kind == "c",
-    )
+    hmap = hermitian_map(on_target, vectors=4, method=method, complex_vectors=phi.dtype.kind == "c")
     z = flat + ref + 1j * eta
     limit = min(tgt.dim, 5000) if steps_cap is None else steps_cap
     history: list[npt.NDArray[np.float64]] = []
@@ -244,8 +301,8 @@ def spectral_function(
         history.append(s)
         return quiet[0] >= 2
 
-    start = phi / np.sqrt(norm_sq)
-    alpha, beta, _ = lanczos_coefficients(hmap, start, limit, done=converged)
+    unit = phi / np.sqrt(norm_sq)
+    alpha, beta, _ = lanczos_coefficients(hmap, unit, limit, done=converged)
     closed = alpha.size < limit and quiet[0] < 2
     if quiet[0] < 2 and not closed and alpha.size < tgt.dim:
         raise ConvergenceError(
@@ -256,14 +313,15 @@ def spectral_function(
     return np.asarray(s.reshape(np.shape(omegas)), dtype=np.float64)
 
 
+@options_were_positional(4, ("target", "reference_energy"))
 def spectral_poles(
-    H: LadderExpr,
-    space: Any,
-    psi: npt.ArrayLike,
-    A: LadderExpr,
+    H: LadderExpr | Problem,
+    space: Any = None,
+    psi: npt.ArrayLike | None = None,
+    A: LadderExpr | None = None,
+    *,
     target: Any = None,
     reference_energy: float | None = None,
-    *,
     max_steps: int | None = None,
     method: str = "auto",
     threads: int | None = None,
@@ -285,25 +343,31 @@ def spectral_poles(
     -------
     SpectralPoles
     """
-    from fockmill.problem.memory import available_memory
 
     threads, memory_limit = check_common(threads, memory_limit)
+    problem, (psi, A) = problem_and_arguments(
+        H, space, (psi, A), threads=threads, memory_limit=memory_limit
+    )
+    if psi is None or A is None:
+        raise TypeError("spectral_poles needs psi= and A=")
     steps_cap = _check_steps(max_steps)
-    e, tgt, phi, ref = _start(H, space, psi, A, target, reference_energy, threads)
-    norm_sq = float(np.vdot(phi, phi).real)
+    start = spectral_start(problem, psi, A, target, reference_energy)
+    return poles_from_start(start, max_steps=steps_cap, method=method)
+
+
+def poles_from_start(start: SpectralStart, *, max_steps: int | None, method: str) -> SpectralPoles:
+    """:func:`spectral_poles` from a prepared :class:`SpectralStart`."""
+    from fockmill.problem.memory import available_memory
+
+    steps_cap = max_steps
+    on_target, phi, ref, norm_sq = start.on_target, start.phi, start.reference_energy, start.norm
+    tgt = on_target.space
+    memory_limit = on_target.memory_limit
     if norm_sq == 0.0:
         empty = np.zeros(0)
         return SpectralPoles(empty, empty, 0.0, ref, 0, True)
     limit = min(tgt.dim, 300) if steps_cap is None else min(steps_cap, tgt.dim)
-    hmap = hermitian_map(
-        e,
-        tgt,
-        vectors=4,
-        threads=threads,
-        memory_limit=memory_limit,
-        method=method,
-        complex_vectors=phi.dtype.kind == "c",
-    )
+    hmap = hermitian_map(on_target, vectors=4, method=method, complex_vectors=phi.dtype.kind == "c")
     avail = memory_limit if memory_limit is not None else available_memory()
     basis_bytes = limit * tgt.dim * phi.itemsize
     keep = avail is None or basis_bytes <= 0.25 * MEMORY_BUDGET * avail
@@ -313,6 +377,7 @@ def spectral_poles(
     else:
         energies, vectors = alpha.copy(), np.ones((1, 1))
     weights = norm_sq * vectors[0, :] ** 2
+    energies, weights, merged = _merge_copies(energies, weights)
     return SpectralPoles(
         frequencies=energies - ref,
         weights=weights,
@@ -320,4 +385,35 @@ def spectral_poles(
         reference_energy=ref,
         steps=int(alpha.size),
         exhausted=bool(alpha.size < limit or alpha.size == tgt.dim),
+        merged=merged,
     )
+
+
+def _merge_copies(
+    energies: npt.NDArray[np.float64], weights: npt.NDArray[np.float64]
+) -> tuple[npt.NDArray[np.float64], npt.NDArray[np.float64], int]:
+    """Poles closer than ``MERGE_TOL`` (relative to the spectrum's scale) as one pole
+    carrying their summed weight, and how many copies were merged.
+
+    Without full reorthogonalisation, Lanczos repeats a converged Ritz value once
+    orthogonality is lost (Paige 1976; Cullum & Willoughby 1985): the copies share the
+    pole's weight, so S(ω) is right but the pole list shows the level twice.
+    """
+    if energies.size < 2:
+        return energies, weights, 0
+    scale = max(float(np.max(np.abs(energies))), float(np.ptp(energies)), 1e-300)
+    keep_e = [float(energies[0])]
+    keep_w = [float(weights[0])]
+    merged = 0
+    for e, w in zip(energies[1:], weights[1:], strict=True):
+        if e - keep_e[-1] <= MERGE_TOL * scale:
+            # The weight-weighted position keeps the first moment of the pair.
+            total = keep_w[-1] + w
+            if total > 0:
+                keep_e[-1] = (keep_e[-1] * keep_w[-1] + e * w) / total
+            keep_w[-1] = total
+            merged += 1
+        else:
+            keep_e.append(float(e))
+            keep_w.append(float(w))
+    return np.asarray(keep_e), np.asarray(keep_w), merged

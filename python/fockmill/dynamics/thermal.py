@@ -13,16 +13,18 @@ import numpy as np
 import numpy.typing as npt
 import scipy.linalg as sla
 
-from fockmill.algebra.expressions import LadderExpr, as_expr
+from fockmill.algebra.expressions import LadderExpr
 from fockmill.dynamics.krylov import (
     as_float_array,
     check_common,
     check_hermitian,
-    check_observables,
     hermitian_map,
     lanczos_coefficients,
     warn_top_weights,
 )
+from fockmill.problem.problem import Problem, prepare_observables, problem_and_arguments
+from fockmill.settings.signatures import options_were_positional
+from fockmill.settings.threads import blas_threads
 
 __all__ = ["EXACT_MAX_DIM", "Thermal", "thermal"]
 
@@ -105,17 +107,14 @@ def _check_temperatures(temperatures: object) -> npt.NDArray[np.float64]:
 
 
 def _exact(
-    e: LadderExpr,
-    space: Any,
+    problem: Problem,
     t: npt.NDArray[np.float64],
-    obs: dict[str, LadderExpr],
-    threads: int | None,
-    memory_limit: int | None,
+    obs: dict[str, Problem],
 ) -> tuple[npt.NDArray[Any], npt.NDArray[Any], dict[str, npt.NDArray[Any]], npt.NDArray[Any]]:
-    from fockmill.problem.builders import build_matrix
-
-    dense = build_matrix(e, space, threads=threads, memory_limit=memory_limit).toarray()
-    energies, vectors = np.linalg.eigh(dense)
+    space = problem.space
+    dense = problem.matrix().toarray()
+    with blas_threads(problem.threads, dense.shape[0]):
+        energies, vectors = np.linalg.eigh(dense)
     del dense
     shifted = energies - energies[0]
     # Boltzmann weights p[T, j], shifted by the ground energy to avoid overflow.
@@ -126,9 +125,9 @@ def _exact(
     heat = np.maximum(energy2 - energy * energy, 0.0) / (t * t)
     values: dict[str, npt.NDArray[Any]] = {}
     for name, o in obs.items():
-        mat = build_matrix(o, space, threads=threads, memory_limit=memory_limit)
+        mat = o.matrix()
         diag = np.einsum("ij,ij->j", vectors.conj(), np.asarray(mat @ vectors))
-        values[name] = (p @ diag.real) if o.is_hermitian() else (p @ diag).astype(complex)
+        values[name] = (p @ diag.real) if o.expr.is_hermitian() else (p @ diag).astype(complex)
     modes, masks = _masks(space)
     top = np.full((t.size, getattr(space, "modes", 0)), np.nan)
     if modes:
@@ -166,31 +165,24 @@ class _Overlaps:
 
 
 def _ftlm(
-    e: LadderExpr,
-    space: Any,
+    problem: Problem,
     t: npt.NDArray[np.float64],
-    obs: dict[str, LadderExpr],
+    obs: dict[str, Problem],
     samples: int,
     steps: int,
     seed: int,
-    threads: int | None,
-    memory_limit: int | None,
     method: str,
 ) -> tuple[Any, ...]:
-    from fockmill.problem.builders import build_operator
-
+    space = problem.space
     modes, masks = _masks(space)
-    complex_h = not e.is_real()
+    complex_h = not problem.expr.is_real()
     hmap = hermitian_map(
-        e,
-        space,
+        problem,
         vectors=4 + len(obs) + len(masks) + 1,
-        threads=threads,
-        memory_limit=memory_limit,
         method=method,
         complex_vectors=complex_h,
     )
-    operators = {name: build_operator(o, space, threads=threads) for name, o in obs.items()}
+    operators = {name: o.operator() for name, o in obs.items()}
     rng = np.random.default_rng(seed)
     dim = hmap.dim
     per_sample: list[tuple[Any, Any, dict[str, Any], list[Any]]] = []
@@ -247,7 +239,7 @@ def _ftlm(
     value_errors: dict[str, Any] = {}
     for name, o in obs.items():
         est, err = _jackknife(n_obs[name], z)
-        values[name] = est.real.copy() if o.is_hermitian() else est
+        values[name] = est.real.copy() if o.expr.is_hermitian() else est
         value_errors[name] = np.asarray(err, dtype=np.float64)
     top = np.full((t.size, getattr(space, "modes", 0)), np.nan)
     for m, i in enumerate(modes):
@@ -255,15 +247,16 @@ def _ftlm(
     return energy, energy_err, heat, heat_err, values, value_errors, top
 
 
+@options_were_positional(3, ("observables", "method", "samples", "seed"))
 def thermal(
-    H: LadderExpr,
-    space: Any,
-    temperatures: npt.ArrayLike,
+    H: LadderExpr | Problem,
+    space: Any = None,
+    temperatures: npt.ArrayLike | None = None,
+    *,
     observables: Mapping[str, LadderExpr] | None = None,
     method: str = "auto",
     samples: int | None = None,
     seed: int = 0,
-    *,
     steps: int | None = None,
     product_method: str = "auto",
     threads: int | None = None,
@@ -274,9 +267,10 @@ def thermal(
 
     Parameters
     ----------
-    H : LadderExpr
-        A Hermitian Hamiltonian conserving the space's sector.
-    space : FockSpace
+    H : LadderExpr or Problem
+        A Hermitian Hamiltonian conserving the space's sector, or a prepared problem
+        (then ``space`` is omitted: ``thermal(problem, temperatures=ts)``).
+    space : FockSpace or SymmetricSpace
         The ensemble's states: a sector (canonical in the conserved number) or the full
         truncated space.
     temperatures : array_like
@@ -327,13 +321,18 @@ def thermal(
     --------
     >>> import fockmill as fm
     >>> space = fm.FockSpace(modes=1, cutoff=40)       # one oscillator, ω = 1
-    >>> th = fm.thermal(fm.number(0), space, [0.5, 2.0], {"n": fm.number(0)})
+    >>> th = fm.thermal(fm.number(0), space, [0.5, 2.0], observables={"n": fm.number(0)})
     >>> th.values["n"].round(4).tolist()               # Bose–Einstein 1/(e^{ω/T} − 1)
     [0.1565, 1.5415]
     """
     t_start = time.perf_counter()
-    e = as_expr(H)
     threads, memory_limit = check_common(threads, memory_limit)
+    problem, (temperatures,) = problem_and_arguments(
+        H, space, (temperatures,), threads=threads, memory_limit=memory_limit
+    )
+    space = problem.space
+    if temperatures is None:
+        raise TypeError("thermal needs temperatures= (k_B = 1, energy units)")
     t = _check_temperatures(temperatures)
     if method not in ("auto", "exact", "ftlm"):
         raise ValueError(f"method must be 'auto', 'exact' or 'ftlm'; got {method!r}")
@@ -344,16 +343,26 @@ def thermal(
             raise ValueError(f"{name} must be a positive integer or None; got {value!r}")
     if isinstance(seed, bool) or not isinstance(seed, numbers.Integral) or seed < 0:
         raise ValueError(f"seed must be a non-negative integer; got {seed!r}")
-    check_hermitian(e)
-    from fockmill.problem.compile import compile_operator
-
-    compile_operator(e, space)  # charge and modes, before any work
-    obs = check_observables(observables, space)
+    check_hermitian(problem.expr)
+    obs = prepare_observables(observables, problem)
     chosen = method
     if method == "auto":
         chosen = "exact" if space.dim <= EXACT_MAX_DIM else "ftlm"
+    if method == "exact":
+        ignored = [
+            f"{name}={value!r}"
+            for name, value in (("samples", samples), ("steps", steps))
+            if value is not None
+        ]
+        if product_method != "auto":
+            ignored.append(f"product_method={product_method!r}")
+        if ignored:
+            raise ValueError(
+                f"method='exact' diagonalises fully and has no use for {', '.join(ignored)}; "
+                "drop them, or pass method='ftlm' to sample"
+            )
     if chosen == "exact":
-        energy, heat, values, top = _exact(e, space, t, obs, threads, memory_limit)
+        energy, heat, values, top = _exact(problem, t, obs)
         zeros = np.zeros(t.size)
         result = Thermal(
             temperatures=t,
@@ -373,7 +382,7 @@ def thermal(
         n_samples = DEFAULT_SAMPLES if samples is None else int(samples)
         n_steps = DEFAULT_STEPS if steps is None else int(steps)
         energy, energy_err, heat, heat_err, values, value_errors, top = _ftlm(
-            e, space, t, obs, n_samples, n_steps, int(seed), threads, memory_limit, product_method
+            problem, t, obs, n_samples, n_steps, int(seed), product_method
         )
         result = Thermal(
             temperatures=t,

@@ -334,7 +334,7 @@ def _initial(reader: Reader, value: object, model: Model) -> InitialState:
                 reader.fail(
                     join_key(where, k), f"{n} quanta exceed the cutoff {cutoff} of mode {k}"
                 )
-        if space.index(np.asarray(occupations, dtype=np.int64)) < 0:
+        if space.index(np.asarray(occupations, dtype=np.int64), strict=False) < 0:
             charge = sum(w * n for w, n in zip(space.weights, occupations, strict=True))
             sector = (
                 f"≡ {space.total} (mod {space.modulus})" if space.modulus else f"= {space.total}"

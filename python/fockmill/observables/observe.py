@@ -13,7 +13,7 @@ import numpy as np
 import numpy.typing as npt
 
 import fockmill._native as _native
-from fockmill.algebra.expressions import LadderExpr, MonomialKey, as_expr
+from fockmill.algebra.expressions import MonomialKey, as_expr
 from fockmill.exceptions import SizeLimitError
 from fockmill.settings.checks import check_threads
 from fockmill.spaces.checks import check_space
@@ -29,6 +29,12 @@ __all__ = [
     "populations",
     "top_level_weights",
 ]
+
+
+def _is_prepared(obj: object) -> bool:
+    """A prepared problem (``fockmill.prepare``), recognised by its protocol: this layer
+    sits below the problem layer and does not import it."""
+    return all(hasattr(obj, name) for name in ("native", "matvec", "expr", "space", "shape"))
 
 
 def check_vector(
@@ -89,9 +95,9 @@ def _monomial_values(
 
 
 def expectation(
-    expr: LadderExpr,
-    space: FockSpace | SymmetricSpace,
-    vector: npt.ArrayLike,
+    expr: Any,
+    space: Any = None,
+    vector: npt.ArrayLike | None = None,
     *,
     threads: int | None = None,
 ) -> float | complex:
@@ -99,8 +105,10 @@ def expectation(
 
     Parameters
     ----------
-    expr : LadderExpr
-        The observable ``O`` (any expression; plain numbers mean multiples of 1).
+    expr : LadderExpr or Problem
+        The observable ``O`` (any expression; plain numbers mean multiples of 1), or a
+        prepared problem (:func:`fockmill.prepare`; then ``space`` is omitted and its
+        compiled operator is used: ``expectation(problem, psi)``).
     space : FockSpace or SymmetricSpace
         The space ``vector`` lives in.
     vector : array_like
@@ -121,8 +129,29 @@ def expectation(
     >>> fm.expectation(fm.number(0), space, np.array([0.0, 0.0, 1.0]))
     2.0
     """
+    if _is_prepared(expr):
+        if (
+            vector is None
+            and space is not None
+            and not isinstance(space, FockSpace | SymmetricSpace)
+        ):
+            space, vector = None, space  # expectation(problem, psi)
+        if space is not None and space != expr.space:
+            raise ValueError(
+                "a prepared Problem already carries its space; pass the Problem alone or "
+                "prepare the expression again on the other space"
+            )
+        if expr.shape[0] != expr.shape[1]:
+            raise ValueError(
+                "an expectation value needs a square operator; this Problem maps between two spaces"
+            )
+        v = check_vector(expr.space, vector)
+        total = complex(np.vdot(v, expr.matvec(v))) / _norm_sq(v)
+        return float(total.real) if expr.expr.is_hermitian() else total
     e = as_expr(expr)
     s = check_space(space)
+    if vector is None:
+        raise TypeError("expectation needs the state: expectation(O, space, psi)")
     v = check_vector(s, vector)
     if isinstance(s, SymmetricSpace):  # any expression: through the base space
         return expectation(e, s.base, s.expand(v, threads=threads), threads=threads)

@@ -28,6 +28,7 @@ from fockmill.settings.checks import (
     check_seed,
     check_tol,
 )
+from fockmill.settings.threads import blas_threads
 
 if TYPE_CHECKING:
     from fockmill.problem.problem import Problem
@@ -280,9 +281,10 @@ def _eigsh_levels(
     dim = problem.dim
     if method == "dense":
         dense = problem.matrix().toarray()
-        energies, vectors = np.linalg.eigh(dense)
-        energies, vectors = energies[:k], vectors[:, :k]
-        residuals = np.linalg.norm(dense @ vectors - vectors * energies, axis=0)
+        with blas_threads(problem.threads, dim):
+            energies, vectors = np.linalg.eigh(dense)
+            energies, vectors = energies[:k], vectors[:, :k]
+            residuals = np.linalg.norm(dense @ vectors - vectors * energies, axis=0)
         return energies, vectors, residuals, None
     if dim - 1 <= k:
         raise ValueError(

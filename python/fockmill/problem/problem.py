@@ -26,11 +26,20 @@ from fockmill.problem.eigensolve import choose_method, solve_ground, solve_level
 from fockmill.problem.memory import MemoryEstimate, estimate_native, format_bytes
 from fockmill.settings.checks import check_memory_limit, check_threads
 from fockmill.spaces.checks import check_space
+from fockmill.spaces.fock import FockSpace
+from fockmill.spaces.symmetry import SymmetricSpace
 
 if TYPE_CHECKING:
     from fockmill.problem.eigensolve import GroundState, Levels
 
-__all__ = ["LadderOperator", "Problem", "as_problem", "prepare"]
+__all__ = [
+    "LadderOperator",
+    "Problem",
+    "as_problem",
+    "prepare",
+    "prepare_observables",
+    "problem_and_arguments",
+]
 
 
 class Problem:
@@ -126,7 +135,9 @@ class Problem:
     ) -> Problem:
         """A copy sharing the compiled operator, with other threads or memory limit."""
         clone = copy.copy(self)
-        if threads is not None:
+        if threads is not None and check_threads(threads) != self.threads:
+            # A new pool only for a different thread count: repeated calls with the
+            # problem's own count reuse its threads.
             clone.threads = check_threads(threads)
             clone.pool = _native.NativePool(clone.threads)
         if memory_limit is not None:
@@ -347,6 +358,72 @@ def as_problem(
             "missing the space: pass (expr, space) or a Problem from fm.prepare(expr, space)"
         )
     return prepare(expr, space, target=target, threads=threads, memory_limit=memory_limit)
+
+
+def _is_space(obj: object) -> bool:
+    return isinstance(obj, FockSpace | SymmetricSpace)
+
+
+def problem_and_arguments(
+    first: Any,
+    space: Any,
+    rest: tuple[Any, ...],
+    *,
+    threads: int | None = None,
+    memory_limit: int | None = None,
+    target: Any = None,
+) -> tuple[Problem, tuple[Any, ...]]:
+    """The prepared problem of a public call ``f(H, space, *rest)`` or ``f(problem, *rest)``.
+
+    A :class:`Problem` carries its space, so ``f(problem, a, b)`` written positionally
+    puts ``a`` in the ``space`` slot: the essential arguments move one place left.
+    ``rest`` holds the essential arguments after the space, in order (None where not
+    given); the returned tuple is ``rest`` realigned.
+    """
+    if isinstance(first, Problem) and space is not None and not _is_space(space):
+        if rest and rest[-1] is not None:
+            raise TypeError(
+                "too many positional arguments after a Problem (it carries its space); pass "
+                "the options by keyword"
+            )
+        rest = (space, *rest[:-1])
+        space = None
+    problem = as_problem(first, space, threads=threads, memory_limit=memory_limit, target=target)
+    return problem, rest
+
+
+def prepare_observables(
+    observables: Any, problem: Problem, *, what: str = "observables"
+) -> dict[str, Problem]:
+    """Each observable compiled once on ``problem``'s space, sharing its thread pool.
+
+    Raises
+    ------
+    TypeError
+        ``observables`` is not a mapping of names to expressions.
+    ChargeError, SymmetryError, ModeIndexError
+        An observable leaves the space's sector or acts on a missing mode.
+    """
+    from collections.abc import Mapping
+
+    if observables is None:
+        return {}
+    if not isinstance(observables, Mapping):
+        raise TypeError(
+            f"{what} must be a mapping of names to expressions, e.g. "
+            "{'n0': fm.number(0)}; got " + type(observables).__name__
+        )
+    out: dict[str, Problem] = {}
+    for name, expr in observables.items():
+        if not isinstance(name, str):
+            raise TypeError(f"observable names must be strings; got {name!r}")
+        if isinstance(expr, Problem):  # already compiled (e.g. the Hamiltonian itself)
+            out[name] = as_problem(expr, problem.space)
+            continue
+        out[name] = Problem._from_parts(
+            as_expr(expr), problem.space, pool=problem.pool, threads=problem.threads
+        )
+    return out
 
 
 class LadderOperator(LinearOperator):  # type: ignore[misc]

@@ -10,6 +10,8 @@ from __future__ import annotations
 import math
 import numbers
 
+import fockmill._native as _native
+
 __all__ = [
     "MAX_THREADS",
     "METHODS",
@@ -39,9 +41,12 @@ def _is_int(value: object) -> bool:
 
 
 def check_threads(threads: object) -> int | None:
-    """A thread count: None or 0 (all cores, or ``RAYON_NUM_THREADS``) or a positive int."""
+    """A thread count: None or 0 (all cores, or ``RAYON_NUM_THREADS``) or a positive int
+    (or a ``NativePool`` already started, passed through unchanged)."""
     if threads is None:
         return None
+    if isinstance(threads, _native.NativePool):
+        return threads  # type: ignore[return-value]  # a pool started once, reused
     if not _is_int(threads):
         raise TypeError(
             f"threads must be a positive integer, 0 or None (all cores); got {threads!r}"

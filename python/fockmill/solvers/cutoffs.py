@@ -12,6 +12,7 @@ import numpy.typing as npt
 from fockmill.algebra.expressions import LadderExpr, as_expr
 from fockmill.observables.observe import top_level_weights
 from fockmill.problem.eigensolve import GroundState
+from fockmill.problem.problem import Problem, as_problem
 from fockmill.solvers.ground import ground_state
 from fockmill.spaces.checks import check_space
 from fockmill.spaces.fock import FockSpace
@@ -92,8 +93,8 @@ def _with_cutoffs(
 
 
 def converge_cutoffs(
-    expr: LadderExpr,
-    space: FockSpace | SymmetricSpace,
+    expr: LadderExpr | Problem,
+    space: FockSpace | SymmetricSpace | None = None,
     *,
     energy_tol: float = 1e-8,
     weight_tol: float = 1e-6,
@@ -118,12 +119,15 @@ def converge_cutoffs(
 
     Parameters
     ----------
-    expr : LadderExpr
-        The Hamiltonian (expressions do not depend on cutoffs).
+    expr : LadderExpr or Problem
+        The Hamiltonian (expressions do not depend on cutoffs), or a prepared problem
+        whose space is the starting space (its compiled operator solves the first
+        round; each raised space is compiled once).
     space : FockSpace or SymmetricSpace
-        Starting space; total, weights and modulus are kept. For a sector the scan
-        solves in the sector, and raising a mode raises every mode the symmetries map
-        it to (their cutoffs must stay equal); the sector's labels are kept.
+        Starting space (omitted with a Problem); total, weights and modulus are kept.
+        For a sector the scan solves in the sector, and raising a mode raises every mode
+        the symmetries map it to (their cutoffs must stay equal); the sector's labels are
+        kept.
     energy_tol, weight_tol : float
         Tolerances (absolute energy change per raise; top-level probability).
     step : int
@@ -151,8 +155,13 @@ def converge_cutoffs(
         For non-integer ``step``/``max_cutoff``/``modes``, non-positive tolerances or
         ``max_cutoff`` below the starting cutoffs.
     """
-    e = as_expr(expr)
-    s = check_space(space)
+    first: Problem | None = None
+    if isinstance(expr, Problem):
+        first = as_problem(expr, space)
+        e, s = first.expr, first.space
+    else:
+        e = as_expr(expr)
+        s = check_space(space)
     if not isinstance(s, FockSpace | SymmetricSpace):
         raise TypeError(
             f"converge_cutoffs needs a fm.FockSpace or fm.SymmetricSpace; got {type(s).__name__}"
@@ -189,7 +198,11 @@ def converge_cutoffs(
     orbits = _orbits(s)
     raised_now: tuple[int, ...] = ()
     while True:
-        g = ground_state(e, current, **solve_options)
+        # The first round solves the given problem (compiled once by the caller).
+        g = ground_state(
+            first if first is not None else e, None if first else current, **solve_options
+        )
+        first = None
         w = top_level_weights(current, g.vector)
         if energies:
             for i in raised_now:

@@ -248,18 +248,36 @@ class FockSpace:
         """
         return self._native.occupations(check_threads(threads))
 
-    def index(self, occupations: npt.ArrayLike) -> Any:
+    def index(self, occupations: npt.ArrayLike, *, strict: bool = True) -> Any:
         """Basis index of one state or of each row of a 2-D array of states.
 
         Parameters
         ----------
         occupations : array_like of int
             Shape ``(modes,)`` for one state or ``(m, modes)`` for several.
+        strict : bool
+            True (default): a state outside this space is an error. False: its index is
+            ``-1`` (for vectorised look-ups that filter afterwards).
 
         Returns
         -------
         int or numpy.ndarray
-            The rank(s); ``-1`` where a state is not in this space.
+            The rank(s); with ``strict=False``, ``-1`` where a state is not in this space.
+
+        Raises
+        ------
+        ValueError
+            With ``strict=True``, for a state outside the space: the message names the
+            state and the constraint it breaks (a cutoff, the conserved total).
+
+        Examples
+        --------
+        >>> import fockmill as fm
+        >>> space = fm.FockSpace(modes=2, cutoff=2, total=2)
+        >>> space.index([1, 1])
+        1
+        >>> space.index([2, 1], strict=False)
+        -1
         """
         occ = np.asarray(occupations)
         if occ.dtype.kind not in "iub":
@@ -271,7 +289,69 @@ class FockSpace:
             )
         occ2 = np.ascontiguousarray(occ.reshape(-1, self.modes), dtype=np.int64)
         ranks = self._native.index(occ2)
+        if strict and (ranks < 0).any():
+            bad = occ2[int(np.argmax(ranks < 0))]
+            raise ValueError(self._why_outside(bad) + "; pass strict=False to get -1 instead")
         return int(ranks[0]) if single else ranks
+
+    def _why_outside(self, occupations: npt.NDArray[np.int64]) -> str:
+        """Which constraint of this space a state breaks, in words."""
+        state = tuple(int(n) for n in occupations)
+        for mode, (n, cutoff) in enumerate(zip(state, self.cutoffs, strict=True)):
+            if n < 0 or n > cutoff:
+                return (
+                    f"the state {state} is not in this space: mode {mode} holds {n} quanta, "
+                    f"outside 0..{cutoff} (its cutoff)"
+                )
+        charge = sum(w * n for w, n in zip(self.weights, state, strict=True))
+        what = "the number of quanta" if set(self.weights) == {1} else "Σ w_i n_i"
+        if self.modulus:
+            return (
+                f"the state {state} is not in this space: {what} is {charge} ≡ "
+                f"{charge % self.modulus} mod {self.modulus}, but the space keeps "
+                f"{self.total} mod {self.modulus}"
+            )
+        return (
+            f"the state {state} is not in this space: {what} is {charge}, but the space "
+            f"keeps total={self.total}"
+        )
+
+    def basis_vector(
+        self, occupations: npt.ArrayLike, *, dtype: npt.DTypeLike = np.float64
+    ) -> npt.NDArray[Any]:
+        """The unit vector of one basis state, given by its occupations.
+
+        Parameters
+        ----------
+        occupations : array_like of int
+            Shape ``(modes,)``.
+        dtype : numpy dtype
+            float64 (default) or complex128.
+
+        Returns
+        -------
+        numpy.ndarray
+            Shape ``(dim,)``: 1 at ``index(occupations)``, 0 elsewhere.
+
+        Raises
+        ------
+        ValueError
+            For a state outside the space (see :meth:`index`).
+
+        Examples
+        --------
+        >>> import fockmill as fm
+        >>> fm.FockSpace(modes=2, cutoff=2, total=2).basis_vector([2, 0]).tolist()
+        [0.0, 0.0, 1.0]
+        """
+        occ = np.asarray(occupations)
+        if occ.ndim != 1:
+            raise ValueError(
+                f"basis_vector takes one state of shape ({self.modes},); got shape {occ.shape}"
+            )
+        vector = np.zeros(self.dim, dtype=dtype)
+        vector[self.index(occ)] = 1
+        return vector
 
     def state(self, index: int) -> tuple[int, ...]:
         """Occupations of basis state ``index`` (unranked in O(M log cutoff)).

@@ -11,6 +11,7 @@ ground states use the ``[solver]`` settings.
 from __future__ import annotations
 
 import contextlib
+import os
 import time
 import warnings
 from collections.abc import Iterator, Mapping
@@ -19,9 +20,22 @@ from typing import Any
 import numpy as np
 
 from fockmill.algebra.expressions import LadderExpr, number
+from fockmill.files.modelfile import ModelFile, load_model_file
 from fockmill.store.workflows import WorkflowResult, meta_of
 
 __all__ = ["run_quench", "run_spectrum", "run_thermal"]
+
+
+def _model_file(model_file: Any) -> Any:
+    """A :class:`~fockmill.ModelFile`, read from disk when given as a path."""
+    if isinstance(model_file, str | os.PathLike):
+        return load_model_file(model_file)
+    if not isinstance(model_file, ModelFile):
+        raise TypeError(
+            "model_file must be a fm.ModelFile (fm.load_model_file(path)) or the path of a "
+            f"TOML model file; got {type(model_file).__name__}"
+        )
+    return model_file
 
 
 def _section(model_file: Any, name: str) -> Any:
@@ -101,8 +115,8 @@ def run_quench(
 
     Parameters
     ----------
-    model_file : ModelFile
-        With a ``[quench]`` section.
+    model_file : ModelFile or path
+        With a ``[quench]`` section (a path is read with :func:`fockmill.load_model_file`).
     overrides : mapping of str to float, optional
         Parameter values changed for this run (the evolving Hamiltonian; a ground-state
         initial state starts from these values with its own changes applied on top).
@@ -125,7 +139,9 @@ def run_quench(
         No ``[quench]`` section, unknown override names; the errors of
         :func:`fockmill.evolve` and :func:`fockmill.ground_state`.
     """
+    model_file = _model_file(model_file)
     from fockmill.dynamics.evolve import evolve
+    from fockmill.problem.problem import prepare
     from fockmill.solvers.ground import ground_state
 
     started = time.perf_counter()
@@ -137,29 +153,32 @@ def run_quench(
     h = model.hamiltonian(**values)
     summary: dict[str, Any] = {}
     with _collected_warnings() as messages:
+        problem = prepare(h, space, threads=solver["threads"], memory_limit=memory_limit)
         if spec.initial.kind == "ground":
             start_values = {**values, **spec.initial.parameters}
-            ground = ground_state(
-                model.hamiltonian(**start_values), space, memory_limit=memory_limit, **solver
-            )
+            if start_values == values:  # the quench Hamiltonian itself, compiled once
+                ground = ground_state(
+                    problem, **{k: v for k, v in solver.items() if k != "threads"}
+                )
+            else:
+                ground = ground_state(
+                    model.hamiltonian(**start_values), space, memory_limit=memory_limit, **solver
+                )
             psi0 = ground.vector
             summary["initial_energy"] = ground.energy
             summary["initial_residual"] = ground.residual
         else:
             psi0 = spec.initial.vector(space)
-        observables: dict[str, LadderExpr] = {"#energy": h}
+        observables: dict[str, Any] = {"#energy": problem}
         if spec.populations:
             observables.update(_population_observables(space.modes))
         observables.update(spec.observables)
         ev = evolve(
-            h,
-            space,
-            psi0,
-            np.asarray(spec.times),
-            observables,
+            problem,
+            psi0=psi0,
+            times=np.asarray(spec.times),
+            observables=observables,
             tol=spec.tol,
-            threads=solver["threads"],
-            memory_limit=memory_limit,
         )
     energy = np.asarray(ev.values["#energy"], dtype=np.float64)
     rest = {k: v for k, v in ev.values.items() if k != "#energy"}
@@ -228,7 +247,8 @@ def run_spectrum(
     ValueError, ConvergenceError
         No ``[spectrum]`` section; the errors of :func:`fockmill.spectral_function`.
     """
-    from fockmill.dynamics.spectral import spectral_function, spectral_poles
+    model_file = _model_file(model_file)
+    from fockmill.dynamics.spectral import function_from_start, poles_from_start, spectral_start
     from fockmill.problem.problem import prepare
     from fockmill.solvers.ground import ground_state
 
@@ -240,28 +260,18 @@ def run_spectrum(
     solver = _solver(model_file, threads)
     h = model.hamiltonian(**values)
     with _collected_warnings() as messages:
-        ground = ground_state(h, space, memory_limit=memory_limit, **solver)
+        # H on the space, H on the target and A are each compiled once for the whole run.
+        problem = prepare(h, space, threads=solver["threads"], memory_limit=memory_limit)
+        ground = ground_state(problem, **{k: v for k, v in solver.items() if k != "threads"})
         reference = ground.energy if spec.reference_energy is None else spec.reference_energy
         omegas = np.asarray(spec.omegas)
-        s = spectral_function(
-            h,
-            space,
-            ground.vector,
-            spec.operator,
-            omegas,
-            eta=spec.eta,
-            target=spec.target,
-            reference_energy=reference,
-            tol=spec.tol,
-            max_steps=spec.max_steps,
-            threads=solver["threads"],
-            memory_limit=memory_limit,
+        start = spectral_start(problem, ground.vector, spec.operator, spec.target, reference)
+        s = function_from_start(
+            start, omegas, eta=spec.eta, tol=spec.tol, max_steps=spec.max_steps, method="auto"
         )
         arrays: dict[str, Any] = {"omegas": omegas, "S": s}
         # ‖Aψ‖² in the target space: ⟨ψ|A†A|ψ⟩ within the cutoffs (the sum rule of S).
-        probe = prepare(spec.operator, space, target=spec.target, threads=solver["threads"])
-        applied = probe.matvec(ground.vector)
-        norm = float(np.vdot(applied, applied).real)
+        norm = start.norm
         summary: dict[str, Any] = {
             "ground_energy": ground.energy,
             "ground_residual": ground.residual,
@@ -269,17 +279,7 @@ def run_spectrum(
             "norm": norm,
         }
         if spec.poles:
-            poles = spectral_poles(
-                h,
-                space,
-                ground.vector,
-                spec.operator,
-                target=spec.target,
-                reference_energy=reference,
-                max_steps=spec.max_steps,
-                threads=solver["threads"],
-                memory_limit=memory_limit,
-            )
+            poles = poles_from_start(start, max_steps=spec.max_steps, method="auto")
             arrays["pole_frequencies"] = poles.frequencies
             arrays["pole_weights"] = poles.weights
             summary.update(pole_steps=poles.steps, poles_exact=poles.exhausted)
@@ -338,6 +338,7 @@ def run_thermal(
     ValueError
         No ``[temperature]`` section; the errors of :func:`fockmill.thermal`.
     """
+    model_file = _model_file(model_file)
     from fockmill.dynamics.thermal import thermal
 
     started = time.perf_counter()
@@ -357,11 +358,14 @@ def run_thermal(
             h,
             space,
             temperatures,
-            observables,
+            observables=observables,
             method=spec.method,
-            samples=spec.samples,
-            seed=spec.seed,
-            steps=spec.steps,
+            # The exact method samples nothing: the file's sampling keys are for FTLM.
+            **(
+                {}
+                if spec.method == "exact"
+                else {"samples": spec.samples, "seed": spec.seed, "steps": spec.steps}
+            ),
             threads=solver["threads"],
             memory_limit=memory_limit,
         )
