@@ -27,6 +27,7 @@ from fockmill.dynamics.krylov import (
 from fockmill.exceptions import ConvergenceError, SizeLimitError
 from fockmill.problem.problem import Problem, prepare_observables, problem_and_arguments
 from fockmill.settings.signatures import options_were_positional
+from fockmill.settings.threads import blas_threads
 
 __all__ = ["Evolution", "evolve"]
 
@@ -312,38 +313,42 @@ def evolve(
         record(k, psi)
         k += 1
     reorthogonalize = m * dim <= REORTHOGONALIZE_MAX
-    while k < t.size:
-        alpha, beta, beta_next, n = _krylov_space(hmap, psi, m, basis, reorthogonalize)
-        steps += 1
-        step = _Propagator(alpha, beta, beta_next)
-        coefficients, error = step.coefficients, step.error
-        remaining = t_end - now
-        allowed = tol / t_end
-        # The estimate cannot resolve values below round-off (its eigenbasis sum
-        # cancels there), so anything under ROUNDOFF counts as converged.
-        if error(remaining) <= max(allowed * remaining, ROUNDOFF):
-            tau = remaining
-        else:
-            # Largest τ with error(τ) <= allowed·τ; error(τ)/τ grows like τ^(m−1).
-            lo, hi = 0.0, remaining
-            for _ in range(60):
-                mid = 0.5 * (lo + hi)
-                if error(mid) <= max(allowed * mid, ROUNDOFF):
-                    lo = mid
-                else:
-                    hi = mid
-            tau = lo
-            if tau <= 1e-14 * max(t_end, 1.0):
-                raise ConvergenceError(
-                    f"the Krylov step shrank to {tau:.3e} at t = {now:.6g}; raise tol or krylov_dim"
-                )
-        error_sum += error(tau)
-        # Requested times inside this step come from the same Krylov space.
-        while k < t.size and t[k] <= now + tau:
-            record(k, coefficients(float(t[k]) - now) @ basis[:n])
-            k += 1
-        psi = coefficients(tau) @ basis[:n]
-        now += tau
+    # The Krylov vector operations are many small, memory-bound BLAS calls: one BLAS
+    # thread beats several, by far on a loaded machine (see fockmill.settings.threads).
+    with blas_threads(1):
+        while k < t.size:
+            alpha, beta, beta_next, n = _krylov_space(hmap, psi, m, basis, reorthogonalize)
+            steps += 1
+            step = _Propagator(alpha, beta, beta_next)
+            coefficients, error = step.coefficients, step.error
+            remaining = t_end - now
+            allowed = tol / t_end
+            # The estimate cannot resolve values below round-off (its eigenbasis sum
+            # cancels there), so anything under ROUNDOFF counts as converged.
+            if error(remaining) <= max(allowed * remaining, ROUNDOFF):
+                tau = remaining
+            else:
+                # Largest τ with error(τ) <= allowed·τ; error(τ)/τ grows like τ^(m−1).
+                lo, hi = 0.0, remaining
+                for _ in range(60):
+                    mid = 0.5 * (lo + hi)
+                    if error(mid) <= max(allowed * mid, ROUNDOFF):
+                        lo = mid
+                    else:
+                        hi = mid
+                tau = lo
+                if tau <= 1e-14 * max(t_end, 1.0):
+                    raise ConvergenceError(
+                        f"the Krylov step shrank to {tau:.3e} at t = {now:.6g}; raise tol or "
+                        "krylov_dim"
+                    )
+            error_sum += error(tau)
+            # Requested times inside this step come from the same Krylov space.
+            while k < t.size and t[k] <= now + tau:
+                record(k, coefficients(float(t[k]) - now) @ basis[:n])
+                k += 1
+            psi = coefficients(tau) @ basis[:n]
+            now += tau
     values: dict[str, npt.NDArray[Any]] = {}
     for name, series in raw.items():
         arr = np.asarray(series, dtype=np.complex128)

@@ -15,6 +15,7 @@ import numpy.typing as npt
 from fockmill.algebra.expressions import LadderExpr
 from fockmill.exceptions import CutoffWarning, NotHermitianError, SizeLimitError
 from fockmill.settings.checks import check_memory_limit, check_threads
+from fockmill.settings.threads import blas_threads
 
 __all__ = [
     "HermitianMap",
@@ -28,6 +29,8 @@ __all__ = [
 
 #: Fraction of the available memory a computation may plan to use.
 MEMORY_BUDGET = 0.8
+#: Observables whose CSR matrix is at most this large are stored for repeated use.
+STORED_OBSERVABLE_BYTES = 64 * 2**20
 
 
 @dataclass
@@ -127,7 +130,28 @@ def hermitian_map(
 
 
 def expectation_function(observable: Any) -> Callable[[npt.NDArray[Any]], complex]:
-    """``ψ -> ⟨ψ|O|ψ⟩`` from the observable's prepared problem (compiled once)."""
+    """``ψ -> ⟨ψ|O|ψ⟩`` from the observable's prepared problem (compiled once).
+
+    Recorded at every time or temperature, an observable is evaluated hundreds of times
+    on one space: when its CSR matrix takes at most ``STORED_OBSERVABLE_BYTES`` it is
+    built once and applied by scipy (a diagonal one as its diagonal), which at small
+    sizes costs a fraction of a parallel native product's start-up; larger ones use the
+    matrix-free product.
+    """
+    if observable.estimate.csr_bytes <= STORED_OBSERVABLE_BYTES:
+        matrix = observable.matrix()
+        diagonal = matrix.diagonal()
+        if matrix.nnz == np.count_nonzero(diagonal):
+
+            def on_diagonal(psi: npt.NDArray[Any]) -> complex:
+                return complex(np.vdot(psi, diagonal * psi))
+
+            return on_diagonal
+
+        def stored(psi: npt.NDArray[Any]) -> complex:
+            return complex(np.vdot(psi, matrix @ psi))
+
+        return stored
     native, pool = observable.native, observable.pool
 
     def value(psi: npt.NDArray[Any]) -> complex:
@@ -185,6 +209,18 @@ def lanczos_coefficients(
     each step; ``on_vector(j, v_j)`` sees each Lanczos vector. The recurrence stops early
     on an invariant subspace (``beta`` below ``1e-12`` of the scale).
     """
+    with blas_threads(1):  # many small vector operations: see fockmill.settings.threads
+        return _lanczos_coefficients(apply, start, max_steps, keep_basis, done, on_vector)
+
+
+def _lanczos_coefficients(
+    apply: Callable[[npt.NDArray[Any]], npt.NDArray[Any]],
+    start: npt.NDArray[Any],
+    max_steps: int,
+    keep_basis: bool,
+    done: Callable[[list[float], list[float]], bool] | None,
+    on_vector: Callable[[int, npt.NDArray[Any]], None] | None,
+) -> tuple[npt.NDArray[np.float64], npt.NDArray[np.float64], npt.NDArray[Any] | None]:
     dim = start.shape[0]
     steps = min(max_steps, dim)
     alpha: list[float] = []

@@ -5,7 +5,9 @@ the library's own threads and the user's processes. For the small matrices the d
 path sees, those threads cost more in start-up and contention than they save (measured
 on a busy 2-core machine: one dense sector solve took 0.58 s with one BLAS thread and
 2.3–37 s without a limit), so a dense solve runs with at most the library's
-``threads=`` BLAS threads, and one thread below :data:`SMALL_DENSE_DIM`.
+``threads=`` BLAS threads, and one thread below :data:`SMALL_DENSE_DIM`. Krylov loops
+(evolution, spectra, FTLM) make many small, memory-bound vector operations and always
+run with one BLAS thread; their matrix products run on the library's own threads.
 """
 
 from __future__ import annotations
