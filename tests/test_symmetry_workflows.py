@@ -643,3 +643,31 @@ def test_momentum_levels_old_keyword_warns_and_agrees() -> None:
     new = fm.momentum_levels(h, space, fm.ring_translation(6), levels=1)
     np.testing.assert_array_equal(old.energies, new.energies)
     np.testing.assert_allclose(new.energies[:, 0], -2 * np.cos(new.momenta), atol=1e-9)
+
+
+def test_every_state_function_takes_a_sector_or_says_why() -> None:
+    # A sector state is a state of the base space in the orbit basis: observables agree
+    # with the same quantities of the expanded state (common practice, no source).
+    L = 4
+    base = fm.FockSpace(modes=L, cutoff=2, total=2)
+    sector = fm.SymmetricSpace(base, [(fm.ring_translation(L), 0)])
+    h = hubbard_expr(L, 1.0)
+    v = fm.ground_state(h, sector).vector
+    full = sector.expand(v)
+    np.testing.assert_allclose(
+        fm.density_correlations(sector, v), fm.density_correlations(base, full), atol=1e-12
+    )
+    np.testing.assert_allclose(
+        fm.density_correlations(sector, v, connected=True),
+        fm.density_correlations(base, full, connected=True),
+        atol=1e-12,
+    )
+    # A non-invariant observable is measured through its group average: same value.
+    ev = fm.evolve(h, sector, psi0=v, times=[0.0, 1.0], observables={"n0": fm.number(0)})
+    np.testing.assert_allclose(ev.values["n0"], fm.expectation(fm.number(0), base, full))
+    th = fm.thermal(h, sector, temperatures=[1.0], observables={"n0": fm.number(0)})
+    np.testing.assert_allclose(th.values["n0"], [0.5], atol=1e-12)  # N/L by translation
+    with pytest.raises(SymmetryError, match=r"sector.base, sector.expand\(vector\)"):
+        fm.save_state("unused.npz", sector, v)
+    with pytest.raises(SymmetryError, match="sector.base"):
+        fm.momentum_levels(h, sector, fm.ring_translation(L))

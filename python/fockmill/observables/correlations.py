@@ -10,6 +10,7 @@ from fockmill.observables.observe import check_vector
 from fockmill.settings.checks import check_threads
 from fockmill.spaces.checks import check_space
 from fockmill.spaces.fock import FockSpace
+from fockmill.spaces.symmetry import SymmetricSpace
 
 __all__ = ["density_correlations"]
 
@@ -29,8 +30,8 @@ def density_correlations(
 
     Parameters
     ----------
-    space : FockSpace
-        The basis of ``vector``.
+    space : FockSpace or SymmetricSpace
+        The basis of ``vector`` (a sector state is expanded into its base space).
     vector : array_like
         A state of the space (real or complex, need not be normalised).
     connected : bool, default False
@@ -62,6 +63,11 @@ def density_correlations(
     """
     s = check_space(space)
     v = check_vector(s, vector)
+    if isinstance(s, SymmetricSpace):
+        # Occupations are diagonal in the Fock basis: the same sums over the expanded state.
+        return density_correlations(
+            s.base, s.expand(v, threads=threads), connected=connected, threads=threads
+        )
     flat = _native.density_correlations(s.native, v, check_threads(threads))
     matrix = flat.reshape(s.modes, s.modes) / float(np.vdot(v, v).real)
     if connected:

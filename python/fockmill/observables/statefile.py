@@ -36,10 +36,11 @@ from typing import Any
 import numpy as np
 import numpy.typing as npt
 
-from fockmill.exceptions import StateFileError
+from fockmill.exceptions import StateFileError, SymmetryError
 from fockmill.observables.observe import check_vector
 from fockmill.spaces.checks import check_space
 from fockmill.spaces.fock import FockSpace
+from fockmill.spaces.symmetry import SymmetricSpace
 
 __all__ = ["FORMAT", "FORMAT_VERSION", "SavedState", "StateFileError", "load_state", "save_state"]
 
@@ -130,6 +131,14 @@ def save_state(
     (True, {'U': 2.0})
     """
     s = check_space(space)
+    if isinstance(s, SymmetricSpace):
+        raise SymmetryError(
+            "save_state stores a state of a fm.FockSpace; a symmetry sector's basis (orbit "
+            "representatives) depends on its generators and labels, which the file format "
+            "does not hold. Save the state in the base space instead: "
+            "fm.save_state(path, sector.base, sector.expand(vector)), and after loading, "
+            "sector.project(saved.vector)"
+        )
     v = check_vector(s, vector)
     try:
         meta_text = json.dumps(dict(metadata or {}), allow_nan=False)

@@ -20,7 +20,7 @@ from scipy.sparse.linalg import LinearOperator
 
 import fockmill._native as _native
 from fockmill.algebra.expressions import LadderExpr, as_expr
-from fockmill.exceptions import SizeLimitError
+from fockmill.exceptions import SizeLimitError, SymmetryError
 from fockmill.problem.compile import compile_operator
 from fockmill.problem.eigensolve import choose_method, solve_ground, solve_levels
 from fockmill.problem.memory import MemoryEstimate, estimate_native, format_bytes
@@ -392,10 +392,22 @@ def problem_and_arguments(
     return problem, rest
 
 
+def _invariant(space: SymmetricSpace, expr: LadderExpr) -> bool:
+    try:
+        space.check_invariant(expr)
+    except SymmetryError:
+        return False
+    return True
+
+
 def prepare_observables(
     observables: Any, problem: Problem, *, what: str = "observables"
 ) -> dict[str, Problem]:
     """Each observable compiled once on ``problem``'s space, sharing its thread pool.
+
+    On a symmetry sector an observable that the group does not leave invariant (the
+    occupation of one site in a momentum sector) is replaced by its group average, which
+    has the same expectation value in every sector state.
 
     Raises
     ------
@@ -420,9 +432,13 @@ def prepare_observables(
         if isinstance(expr, Problem):  # already compiled (e.g. the Hamiltonian itself)
             out[name] = as_problem(expr, problem.space)
             continue
-        out[name] = Problem._from_parts(
-            as_expr(expr), problem.space, pool=problem.pool, threads=problem.threads
-        )
+        e = as_expr(expr)
+        space = problem.space
+        if isinstance(space, SymmetricSpace) and not _invariant(space, e):
+            # In a sector state a non-invariant observable has the expectation of its
+            # group average, which is invariant (SymmetricSpace.symmetrize).
+            e = space.symmetrize(e)
+        out[name] = Problem._from_parts(e, space, pool=problem.pool, threads=problem.threads)
     return out
 
 

@@ -12,6 +12,7 @@ import numpy as np
 import numpy.typing as npt
 
 from fockmill.algebra.expressions import LadderExpr
+from fockmill.exceptions import SymmetryError
 from fockmill.solvers.ground import lowest_levels
 from fockmill.spaces.fock import FockSpace
 from fockmill.spaces.symmetry import ModePermutation, SymmetricSpace
@@ -106,6 +107,12 @@ def momentum_levels(
         )
         levels = options.pop("k")
     k = levels
+    if isinstance(space, SymmetricSpace):
+        raise SymmetryError(
+            "momentum_levels builds one sector per momentum from a fm.FockSpace; given a "
+            "sector, pass its base space and its other symmetries instead: "
+            "momentum_levels(H, sector.base, translation, extra=[(generator, label), ...])"
+        )
     if not isinstance(translation, ModePermutation):
         raise TypeError(f"translation must be a fm.ModePermutation; got {translation!r}")
     if isinstance(k, bool) or not isinstance(k, numbers.Integral) or k < 1:

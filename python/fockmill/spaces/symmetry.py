@@ -467,6 +467,40 @@ class SymmetricSpace:
                         "couplings symmetric)"
                     )
 
+    def group(self) -> list[ModePermutation]:
+        """Every element of the group the generators make (the identity first)."""
+        identity = ModePermutation(list(range(self.modes)))
+        elements = [identity]
+        seen = {identity}
+        for element in elements:  # grows while it is read: a breadth-first closure
+            for g, _ in self._symmetries:
+                product = g * element
+                if product not in seen:
+                    seen.add(product)
+                    elements.append(product)
+        return elements
+
+    def symmetrize(self, expr: LadderExpr) -> LadderExpr:
+        """The group average ``(1/|G|) Σ_g g O g⁻¹`` of ``expr``: invariant, and with the
+        same expectation value as ``expr`` in every state of every one-dimensional
+        sector (``⟨ψ|g O g⁻¹|ψ⟩ = |χ(g)|² ⟨ψ|O|ψ⟩``), so an observable such as the
+        occupation of one site can be measured inside a momentum sector.
+
+        Examples
+        --------
+        >>> import fockmill as fm
+        >>> sector = fm.SymmetricSpace(
+        ...     fm.FockSpace(modes=3, cutoff=1, total=1), [(fm.ring_translation(3), 0)]
+        ... )
+        >>> print(sector.symmetrize(fm.number(0)))
+        0.3333333333333333·a0† a0 + 0.3333333333333333·a1† a1 + 0.3333333333333333·a2† a2
+        """
+        elements = self.group()
+        total = LadderExpr()
+        for g in elements:
+            total = total + g.apply(expr)
+        return total * (1.0 / len(elements))
+
     def _compile(self, expr: LadderExpr) -> _native.NativeSymmetricOperator:
         """The compiled operator of an invariant ``expr`` on this sector."""
         self.check_invariant(expr)
