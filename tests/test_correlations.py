@@ -74,19 +74,3 @@ def test_bad_input() -> None:
         fm.density_correlations(space, np.ones(3))
     with pytest.raises(ValueError, match="zero"):
         fm.density_correlations(space, np.zeros(space.dim))
-
-
-def test_docstring_examples_of_the_new_modules_run() -> None:
-    import doctest
-
-    import fockmill.observables.correlations
-    import fockmill.observables.statefile
-    import fockmill.plots.sweeps
-
-    for module in (
-        fockmill.observables.correlations,
-        fockmill.observables.statefile,
-        fockmill.plots.sweeps,
-    ):
-        result = doctest.testmod(module)
-        assert result.failed == 0 and result.attempted > 0, module.__name__

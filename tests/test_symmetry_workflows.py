@@ -669,5 +669,5 @@ def test_every_state_function_takes_a_sector_or_says_why() -> None:
     np.testing.assert_allclose(th.values["n0"], [0.5], atol=1e-12)  # N/L by translation
     with pytest.raises(SymmetryError, match=r"sector.base, sector.expand\(vector\)"):
         fm.save_state("unused.npz", sector, v)
-    with pytest.raises(SymmetryError, match="sector.base"):
+    with pytest.raises(SymmetryError, match=r"sector\.base"):
         fm.momentum_levels(h, sector, fm.ring_translation(L))
