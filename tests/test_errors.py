@@ -631,21 +631,21 @@ CATALOGUE: list[BadInput] = [
         lambda t: fm.ground_state(HOP, pair(), tol=-1e-9),
         ValueError,
         r"-1e-09",
-        r"positive finite number",
+        r"between 0 and 1",
     ),
     BadInput(
         "NaN tol",
         lambda t: fm.ground_state(HOP, pair(), tol=float("nan")),
         ValueError,
         r"nan",
-        r"positive finite number",
+        r"between 0 and 1",
     ),
     BadInput(
         "bool tol",
         lambda t: fm.ground_state(HOP, pair(), tol=True),
         ValueError,
         r"tol.*True",
-        r"positive finite number",
+        r"between 0 and 1",
     ),
     BadInput(
         "k larger than the space",
@@ -1070,7 +1070,7 @@ CATALOGUE: list[BadInput] = [
         lambda t: fm.parse_model_text(model_text("[solver]\ntol = -1.0\n")),
         fm.ModelFileError,
         r"solver\.tol: .*-1\.0",
-        r"expected a number between 0 and 1",
+        r"a number between 0 and 1",
     ),
     BadInput(
         "float thread count in the file",

@@ -449,7 +449,7 @@ SCHEMA_ERRORS: list[tuple[str, str, str | None, str]] = [
     ("record typo", BASE + "[record]\nlevel = 2\n", "record.level", "did you mean 'levels'"),
     ("bad method", BASE + '[solver]\nmethod = "fast"\n', "solver.method", '"auto"'),
     ("negative tol", BASE + "[solver]\ntol = -1e-9\n", "solver.tol", "between 0 and 1"),
-    ("zero threads", BASE + "[solver]\nthreads = 0\n", "solver.threads", "from 1"),
+    ("tol of one", BASE + "[solver]\ntol = 1.0\n", "solver.tol", "between 0 and 1"),
     ("solver typo", BASE + "[solver]\ntolerance = 1e-9\n", "solver.tolerance", "did you mean"),
     ("empty drives", KERR + "[drives]\n", "drives", "empty"),
     ("drives typo", KERR + "[drives]\ncoherant = [[0, 1.0]]\n", "drives.coherant", "did you mean"),
@@ -661,3 +661,18 @@ def test_fuzz_mutated_valid_documents(
 @pytest.mark.parametrize("index", range(len(VALID_DOCUMENTS)))
 def test_fuzz_bases_are_valid(index: int) -> None:
     check_invariants(parse(toml_document(VALID_DOCUMENTS[index])))
+
+
+def test_solver_settings_follow_the_library_rules() -> None:
+    # One rule set (fockmill.settings.solver.SolverSettings) for files and keywords:
+    # threads = 0 means all cores in both; tol must lie strictly between 0 and 1 in both.
+    parsed = parse_model_text(BASE + "[solver]\nthreads = 0\ntol = 1e-10\n")
+    assert parsed.solver["threads"] == 0
+    assert parsed.solver["tol"] == 1e-10
+    space = fm.FockSpace(modes=2, cutoff=1, total=1)
+    h = fm.raising(0) * fm.lowering(1) + fm.raising(1) * fm.lowering(0)
+    assert fm.ground_state(h, space, threads=0).energy == pytest.approx(-1.0)
+    with pytest.raises(ValueError, match="between 0 and 1"):
+        fm.ground_state(h, space, tol=1.0)
+    with pytest.raises(ModelFileError, match="between 0 and 1"):
+        parse_model_text(BASE + "[solver]\ntol = 1.0\n")

@@ -238,7 +238,7 @@ def test_levels_and_top_weight_recorded(ring: Model) -> None:
         ({"quantities": ("energy", "magnetisation")}, "cannot record"),
         ({"levels": 1}, "needs levels >= 2"),
         ({"levels": 0, "quantities": ("energy",)}, "levels must be between 1"),
-        ({"tol": -1.0}, "tol must be a positive"),
+        ({"tol": -1.0}, "tol must be a number between 0 and 1"),
         ({"method": "magic"}, "method must be"),
         ({"entropy_modes": (7,), "quantities": ("entropy",)}, "entropy_modes"),
         ({"chunk": 0}, "chunk must be"),

@@ -105,6 +105,7 @@ from fockmill.models.builders import (
 )
 from fockmill.models.model import Model
 from fockmill.settings.checks import MAX_SEED, MAX_THREADS, METHODS
+from fockmill.settings.solver import SolverSettings
 from fockmill.sweeps.plan import RECORDABLE, SweepGrid
 
 if TYPE_CHECKING:
@@ -553,31 +554,31 @@ def _record(
 
 
 def _solver(reader: Reader, value: object) -> dict[str, object]:
+    """The ``[solver]`` table: read with key paths, checked by :class:`SolverSettings`
+    (the same rules as the library's keywords), returned as the solvers' keywords."""
     table = reader.table(value, "solver")
-    reader.check_keys(table, "solver", ["method", "tol", "seed", "max_iterations", "threads"])
-    settings: dict[str, object] = {
-        "method": "auto",
-        "tol": 1e-9,
-        "seed": 0,
-        "max_iterations": None,
-        "threads": None,
-    }
+    keys = ["method", "tol", "seed", "max_iterations", "threads"]
+    reader.check_keys(table, "solver", keys)
+    read: dict[str, Any] = {}
     if "tol" in table:
-        tol = reader.number(table["tol"], "solver.tol")
-        if not 0 < tol < 1:
-            reader.wrong("solver.tol", "a number between 0 and 1 (exclusive)", table["tol"])
-        settings["tol"] = tol
+        read["tol"] = reader.number(table["tol"], "solver.tol")
     if "method" in table:
-        settings["method"] = reader.choice(table["method"], "solver.method", SOLVER_METHODS)
+        read["method"] = reader.choice(table["method"], "solver.method", SOLVER_METHODS)
     if "threads" in table:
-        settings["threads"] = reader.integer(table["threads"], "solver.threads", 1, MAX_THREADS)
+        read["threads"] = reader.integer(table["threads"], "solver.threads", 0, MAX_THREADS)
     if "seed" in table:
-        settings["seed"] = reader.integer(table["seed"], "solver.seed", 0, MAX_SEED - 1)
+        read["seed"] = reader.integer(table["seed"], "solver.seed", 0, MAX_SEED - 1)
     if "max_iterations" in table:
-        settings["max_iterations"] = reader.integer(
+        read["max_iterations"] = reader.integer(
             table["max_iterations"], "solver.max_iterations", 1, 2**62
         )
-    return settings
+    for key, raw in read.items():
+        try:
+            SolverSettings(**{key: raw})
+        except (TypeError, ValueError) as error:
+            reader.fail(f"solver.{key}", str(error))
+    settings = SolverSettings(**read)
+    return {key: getattr(settings, key) for key in keys}
 
 
 # -- [terms] and [units] ------------------------------------------------------------------

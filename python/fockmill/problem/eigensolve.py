@@ -23,11 +23,8 @@ from fockmill.observables.observe import check_vector, top_level_weights
 from fockmill.problem.memory import MemoryEstimate, format_bytes
 from fockmill.settings.checks import (
     METHODS,
-    check_max_iterations,
-    check_method,
-    check_seed,
-    check_tol,
 )
+from fockmill.settings.solver import SolverSettings
 from fockmill.settings.threads import blas_threads
 
 if TYPE_CHECKING:
@@ -409,11 +406,8 @@ def _validate(
     seed: object = 0,
     max_iterations: object = None,
 ) -> None:
-    # One set of checks and messages for solvers, sweeps and model files (_args).
-    check_method(method)
-    check_tol(tol)
-    check_seed(seed)
-    check_max_iterations(max_iterations)
+    # One set of checks and messages for solvers, sweeps, model files and the CLI.
+    SolverSettings(method=method, tol=tol, seed=seed, max_iterations=max_iterations)
     if v0 is not None:
         check_vector(problem.space, v0, "v0")
     if isinstance(k, bool) or not isinstance(k, int | np.integer):

@@ -83,14 +83,16 @@ def check_method(method: object) -> str:
 
 
 def check_tol(tol: object) -> float:
-    """A positive finite tolerance."""
+    """A relative tolerance strictly between 0 and 1."""
     if (
         isinstance(tol, bool)
         or not isinstance(tol, numbers.Real)
         or not math.isfinite(float(tol))
-        or float(tol) <= 0
+        or not 0 < float(tol) < 1
     ):
-        raise ValueError(f"tol must be a positive finite number such as 1e-9; got {tol!r}")
+        raise ValueError(
+            f"tol must be a number between 0 and 1 (exclusive) such as 1e-9; got {tol!r}"
+        )
     return float(tol)
 
 

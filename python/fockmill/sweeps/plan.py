@@ -20,12 +20,8 @@ import numpy.typing as npt
 from fockmill.models.model import Model
 from fockmill.settings.checks import (
     check_levels,
-    check_max_iterations,
-    check_method,
-    check_seed,
-    check_threads,
-    check_tol,
 )
+from fockmill.settings.solver import SolverSettings
 
 __all__ = [
     "DEFAULT_QUANTITIES",
@@ -131,11 +127,8 @@ DEFAULT_QUANTITIES: tuple[str, ...] = ("energy", "gap")
 """What ``run_sweep`` records when ``quantities`` is not given."""
 
 SOLVER_DEFAULTS: Mapping[str, object] = {
-    "method": "auto",
-    "tol": 1e-9,
-    "seed": 0,
-    "max_iterations": None,
-    "threads": None,
+    key: getattr(SolverSettings(), key)
+    for key in ("method", "tol", "seed", "max_iterations", "threads")
 }
 """Solver options of a sweep and their defaults: those of :func:`fockmill.ground_state`."""
 
@@ -235,7 +228,13 @@ def sweep_settings(
     count = check_levels(levels, dim)
     if "gap" in chosen and count < 2:
         raise ValueError("recording 'gap' needs levels >= 2; pass levels=2 or drop 'gap'")
-    method_name = check_method(options["method"])
+    solver = SolverSettings(
+        method=options["method"],  # type: ignore[arg-type]
+        tol=options["tol"],  # type: ignore[arg-type]
+        seed=options["seed"],  # type: ignore[arg-type]
+        max_iterations=options["max_iterations"],  # type: ignore[arg-type]
+        threads=options["threads"],  # type: ignore[arg-type]
+    )
     modes = model.space.modes
     if entropy_modes is None:
         subsystem = tuple(range(max(1, modes // 2)))
@@ -249,11 +248,11 @@ def sweep_settings(
         quantities=chosen,
         levels=count,
         entropy_modes=subsystem if "entropy" in chosen or entropy_modes is not None else (),
-        method=method_name,
-        tol=check_tol(options["tol"]),
-        seed=check_seed(options["seed"]),
-        max_iterations=check_max_iterations(options["max_iterations"]),
-        threads=check_threads(options["threads"]),
+        method=solver.method,
+        tol=solver.tol,
+        seed=solver.seed,
+        max_iterations=solver.max_iterations,
+        threads=solver.threads,
     )
 
 
