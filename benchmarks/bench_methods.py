@@ -46,12 +46,12 @@ from fockmill import models as M
 case, k, method, store, dense_max = {case!r}, {k}, {method!r}, {store!r}, {dense_max}
 if case.startswith("ring"):
     n = int(case[4:])
-    model = M.bose_hubbard(M.ring_edges(n), hopping=1.0, interaction=1.0, cutoff=n, total=n)
+    model = M.bose_hubbard(M.ring_edges(n), J=1.0, U=1.0, cutoff=n, total=n)
 elif case == "lattice3x4":
-    model = M.bose_hubbard(M.rectangular_edges(3, 4), hopping=1.0, interaction=1.0,
+    model = M.bose_hubbard(M.rectangular_edges(3, 4), J=1.0, U=1.0,
                            cutoff=12, total=12)
 elif case == "jch8":
-    model = M.jaynes_cummings_hubbard(8, coupling=0.1, hopping=0.05, cavity_cutoff=4, total=8)
+    model = M.jaynes_cummings_hubbard(8, g=0.1, J=0.05, cavity_cutoff=4, total=8)
 elif case == "kerr3":
     base = M.kerr_network([0.2, 0.25, 0.3], self_kerr=0.05,
                           couplings={{(0, 1): 0.02, (1, 2): 0.02}}, cutoff=60, total=0)

@@ -35,7 +35,9 @@ U = 2.0
 values = [0.0, 1.0, 2.5, 4.0, 8.0]
 
 [record]
-quantities = ["energy", "gap", "populations", "number_variance", "one_body", "entropy"]
+quantities = [
+    "energy", "gap", "populations", "number_variances", "one_body_matrix", "entanglement_entropy"
+]
 levels = 2
 """
 
@@ -148,7 +150,9 @@ def test_solve_matches_closed_form(pair_file: Path, capsys: pytest.CaptureFixtur
     assert row["parameters"]["U"] == 3.0
     assert row["energy"] == pytest.approx(expected["energy"], abs=1e-10)
     assert row["gap"] == pytest.approx(expected["gap"], abs=1e-10)
-    assert row["observables"]["entropy"] == pytest.approx(expected["entropy"], abs=1e-10)
+    assert row["observables"]["entanglement_entropy"] == pytest.approx(
+        expected["entanglement_entropy"], abs=1e-10
+    )
     code, text, _ = run(["solve", str(pair_file)], capsys)
     assert code == 0
     assert f"E0={pair_closed_form(1.0, 2.0)['energy']:.10g}" in text
@@ -198,7 +202,7 @@ def test_sweep_resumes_and_show_formats(
         # Reference: closed form for two bosons on two sites (test_sweep.pair_closed_form).
         expected = pair_closed_form(1.0, float(row["U"]))
         assert float(row["energy"]) == pytest.approx(expected["energy"], abs=1e-9)
-        assert float(row["one_body_0_1"]) == pytest.approx(expected["hopping"], abs=1e-9)
+        assert float(row["one_body_matrix_0_1"]) == pytest.approx(expected["hopping"], abs=1e-9)
 
     code, text, _ = run(["show", str(pair_results), "--format", "json"], capsys)
     assert code == 0
@@ -306,7 +310,7 @@ def test_demo_runs_bundled_model(tmp_path: Path, capsys: pytest.CaptureFixture[s
     # Mott and superfluid sides of the Bose–Hubbard model; the finite-ring numbers are
     # common practice, no source): the Mott-like side has Var n → 0 and a gap of order
     # U; the superfluid-like side has the larger number fluctuations.
-    variances = [row.observables["number_variance"][0] for row in rows]
+    variances = [row.observables["number_variances"][0] for row in rows]
     assert variances[0] > 0.5 > 0.05 > variances[-1]
     assert rows[-1].gap > 0.5 * rows[-1].parameters["U"]
     assert (out_dir / "ring_kerr_crossover.png").read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"

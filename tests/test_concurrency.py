@@ -122,7 +122,7 @@ def build_tasks() -> dict[str, Callable[[], Any]]:
     tasks["variances"] = lambda: fm.number_variances(MEDIUM[1], state)
     tasks["one-body"] = lambda: fm.one_body_matrix(MEDIUM[1], state)
     tasks["distribution"] = lambda: fm.occupation_distribution(MEDIUM[1], state)
-    tasks["entropy"] = lambda: fm.entanglement_entropy(MEDIUM[1], state, [0, 1, 2])
+    tasks["entanglement_entropy"] = lambda: fm.entanglement_entropy(MEDIUM[1], state, [0, 1, 2])
     tasks["occupations"] = lambda: LARGE[1].occupations()
     tasks["index"] = lambda: LARGE[1].index(LARGE[1].occupations()[::7])
     return tasks

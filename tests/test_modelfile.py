@@ -77,12 +77,12 @@ def check_round_trip(name: str) -> ModelFile:
 
 def test_ring_kerr_crossover_example() -> None:
     spec = check_round_trip("ring_kerr_crossover.toml")
-    expected = bose_hubbard(ring_edges(6), total=6, hopping=1.0, interaction=1.0)
+    expected = bose_hubbard(ring_edges(6), total=6, J=1.0, U=1.0)
     assert spec.model == expected
     assert spec.model.space.dim == 462
     assert spec.sweep is not None and list(spec.sweep.axes) == ["U"]
     np.testing.assert_allclose(spec.sweep.axes["U"], np.geomspace(0.5, 20.0, 25))
-    assert spec.quantities == ("energy", "gap", "number_variance")
+    assert spec.quantities == ("energy", "gap", "number_variances")
     assert spec.levels == 2
     assert spec.solver == {
         "method": "auto",
@@ -96,10 +96,10 @@ def test_ring_kerr_crossover_example() -> None:
 
 def test_polariton_chain_example() -> None:
     spec = check_round_trip("polariton_chain.toml")
-    expected = jaynes_cummings_hubbard(4, cavity_cutoff=4, total=4, coupling=0.02, hopping=0.001)
+    expected = jaynes_cummings_hubbard(4, cavity_cutoff=4, total=4, g=0.02, J=0.001)
     assert spec.model == expected
     assert spec.sweep is not None and spec.sweep.shape == (8,)
-    assert spec.quantities == ("energy", "gap", "populations", "entropy")
+    assert spec.quantities == ("energy", "gap", "populations", "entanglement_entropy")
     assert spec.entropy_modes == (0, 1)
     assert spec.solver["tol"] == 1e-10
 
@@ -195,7 +195,7 @@ def test_entropy_default_subsystem_and_drives() -> None:
         '[model]\nkind = "jaynes-cummings-hubbard"\nsites = 3\nperiodic = true\n'
         "cavity_cutoff = 2\n"
         "[drives]\ncoherent = [[0, 0.1], [2, 0.2]]\n"
-        '[record]\nquantities = ["entropy", "gap"]\n'
+        '[record]\nquantities = ["entanglement_entropy", "gap"]\n'
     )
     assert spec.entropy_modes == (0, 1, 2)
     assert spec.levels == 2
@@ -430,19 +430,19 @@ SCHEMA_ERRORS: list[tuple[str, str, str | None, str]] = [
     ),
     (
         "entropy mode range",
-        BASE + '[record]\nquantities = ["entropy"]\nentropy_modes = [3]\n',
+        BASE + '[record]\nquantities = ["entanglement_entropy"]\nentropy_modes = [3]\n',
         "record.entropy_modes[0]",
         "0 to 2",
     ),
     (
         "entropy of everything",
-        BASE + '[record]\nquantities = ["entropy"]\nentropy_modes = [0, 1, 2]\n',
+        BASE + '[record]\nquantities = ["entanglement_entropy"]\nentropy_modes = [0, 1, 2]\n',
         "record.entropy_modes",
         "proper subset",
     ),
     (
         "entropy of one mode",
-        KERR.replace("[1.0, 1.1]", "[1.0]") + '[record]\nquantities = ["entropy"]\n',
+        KERR.replace("[1.0, 1.1]", "[1.0]") + '[record]\nquantities = ["entanglement_entropy"]\n',
         "record.quantities",
         "at least 2 modes",
     ),
@@ -572,14 +572,14 @@ VALID_DOCUMENTS: list[dict[str, Any]] = [
     {
         "model": {"kind": "bose-hubbard", "lattice": "ring", "sites": 4, "total": 2},
         "sweep": {"U": {"start": 0.5, "stop": 4.0, "num": 3, "spacing": "geometric"}},
-        "record": {"quantities": ["energy", "gap", "entropy"], "levels": 2},
+        "record": {"quantities": ["energy", "gap", "entanglement_entropy"], "levels": 2},
         "solver": {"tol": 1e-8, "method": "auto", "threads": 1},
     },
     {
         "model": {"kind": "jaynes-cummings-hubbard", "sites": 2, "cavity_cutoff": 2, "total": 2},
         "parameters": {"g": 0.1, "J": 0.05},
         "sweep": {"J": {"values": [0.0, 0.1]}},
-        "record": {"quantities": ["populations", "entropy"], "entropy_modes": [0, 3]},
+        "record": {"quantities": ["populations", "entanglement_entropy"], "entropy_modes": [0, 3]},
     },
     {
         "model": {

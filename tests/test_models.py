@@ -113,7 +113,7 @@ def test_two_sites_one_particle(hopping: float, mu: float) -> None:
     # coupling −J: Feynman, Leighton & Sands, The Feynman Lectures on Physics vol. III,
     # 1965, Chaps. 9–10; from memory for the chapters); the chemical potential shifts
     # both by −μ.
-    model = bose_hubbard([(0, 1)], total=1, hopping=hopping, interaction=5.0)
+    model = bose_hubbard([(0, 1)], total=1, J=hopping, U=5.0)
     expected = np.sort([-hopping - mu, hopping - mu])
     np.testing.assert_allclose(spectrum(model, mu=mu), expected, atol=1e-12)
 
@@ -123,7 +123,7 @@ def test_two_sites_two_particles(hopping: float, interaction: float) -> None:
     # Basis |2,0>, |1,1>, |0,2>: H = [[U, −√2 J, 0], [−√2 J, 0, −√2 J], [0, −√2 J, U]].
     # The antisymmetric (|2,0> − |0,2>)/√2 decouples at E = U; the symmetric pair gives
     # [[U, −2J], [−2J, 0]], so E = U/2 ± √(U²/4 + 4J²) (derived here; common practice).
-    model = bose_hubbard([(0, 1)], total=2, hopping=hopping, interaction=interaction)
+    model = bose_hubbard([(0, 1)], total=2, J=hopping, U=interaction)
     root = math.sqrt(interaction**2 / 4 + 4 * hopping**2)
     expected = np.sort([interaction / 2 - root, interaction, interaction / 2 + root])
     np.testing.assert_allclose(spectrum(model), expected, atol=1e-12)
@@ -134,7 +134,7 @@ def test_open_chain_single_particle_band() -> None:
     # (tight-binding band, Ashcroft & Mermin, Solid State Physics, 1976, Chap. 10, with
     # the standing-wave boundary condition of an open chain).
     sites = 7
-    model = bose_hubbard(chain_edges(sites), total=1, hopping=0.8)
+    model = bose_hubbard(chain_edges(sites), total=1, J=0.8)
     m = np.arange(1, sites + 1)
     expected = np.sort(-2 * 0.8 * np.cos(np.pi * m / (sites + 1)))
     np.testing.assert_allclose(spectrum(model), expected, atol=1e-12)
@@ -179,7 +179,7 @@ def test_single_particle_sector_is_weighted_adjacency(
     adjacency = np.zeros((sites, sites))
     for i, j, t in edges:
         adjacency[i, j] = adjacency[j, i] = t
-    model = bose_hubbard(edges, sites=sites, total=1, hopping=hopping)
+    model = bose_hubbard(edges, sites=sites, total=1, J=hopping)
     expected = np.linalg.eigvalsh(-hopping * adjacency)
     np.testing.assert_allclose(spectrum(model), expected, atol=1e-10)
 
@@ -214,7 +214,7 @@ def test_bose_hubbard_rejects_non_integer_sites() -> None:
 
 
 def test_jaynes_cummings_hubbard_pieces_match_hand_built() -> None:
-    model = jaynes_cummings_hubbard(2, cavity_cutoff=3, total=2, coupling=0.2, hopping=0.05)
+    model = jaynes_cummings_hubbard(2, cavity_cutoff=3, total=2, g=0.2, J=0.05)
     assert model.space == fm.FockSpace(4, [3, 1, 3, 1], 2)
     assert model.mode_labels == ("cavity 0", "emitter 0", "cavity 1", "emitter 1")
     assert model.pieces["wc"] == n(0) + n(2)
@@ -235,9 +235,9 @@ def test_jaynes_cummings_resonant_doublets(excitations: int) -> None:
     omega, g = 1.3, 0.17
     model = jaynes_cummings_hubbard(
         1,
-        cavity_frequency=omega,
-        emitter_frequency=omega,
-        coupling=g,
+        wc=omega,
+        we=omega,
+        g=g,
         cavity_cutoff=excitations,
         total=excitations,
     )
@@ -251,9 +251,7 @@ def test_jaynes_cummings_detuned_doublet() -> None:
     # (Jaynes & Cummings 1963, Proc. IEEE 51, 89; form from memory, re-derived from the
     # 2×2 block [[n ω_c, g√n], [g√n, (n−1) ω_c + ω_e]]).
     wc, we, g, excitations = 1.0, 1.25, 0.1, 4
-    model = jaynes_cummings_hubbard(
-        1, cavity_frequency=wc, emitter_frequency=we, coupling=g, cavity_cutoff=6, total=4
-    )
+    model = jaynes_cummings_hubbard(1, wc=wc, we=we, g=g, cavity_cutoff=6, total=4)
     centre = (excitations - 0.5) * wc + we / 2
     root = math.sqrt((we - wc) ** 2 / 4 + g**2 * excitations)
     np.testing.assert_allclose(spectrum(model), [centre - root, centre + root], atol=1e-12)
@@ -268,10 +266,10 @@ def test_jaynes_cummings_hubbard_ring_one_excitation() -> None:
     sites, wc, we, g, hopping = 5, 1.0, 0.9, 0.08, 0.03
     model = jaynes_cummings_hubbard(
         sites,
-        cavity_frequency=wc,
-        emitter_frequency=we,
-        coupling=g,
-        hopping=hopping,
+        wc=wc,
+        we=we,
+        g=g,
+        J=hopping,
         periodic=True,
         cavity_cutoff=1,
         total=1,

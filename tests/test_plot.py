@@ -33,7 +33,7 @@ U = "J"
 values = [0.5, 2.0, 8.0]
 
 [record]
-quantities = ["energy", "gap", "populations", "number_variance", "entropy"]
+quantities = ["energy", "gap", "populations", "number_variances", "entanglement_entropy"]
 entropy_modes = [0, 1]
 """
 
@@ -69,7 +69,9 @@ def test_axis_labels_title_and_merged_equal_modes(
 ) -> None:
     spec, table = ring
     figure = sweep_figure(
-        table, y=["energy", "gap", "populations", "number_variance", "entropy"], model_file=spec
+        table,
+        y=["energy", "gap", "populations", "number_variances", "entanglement_entropy"],
+        model_file=spec,
     )
     energy, gap, populations, variance, entropy = figure.axes
     assert energy.get_ylabel() == "ground energy $E_0$ / $J$"

@@ -20,7 +20,7 @@ from fockmill.sweeps.run import run_sweep
 from test_sweep import dense_levels, hubbard_ring
 
 POINTS = [{"U": float(u)} for u in np.linspace(0.0, 6.0, 9)]
-RECORD = ("energy", "gap", "populations", "entropy")
+RECORD = ("energy", "gap", "populations", "entanglement_entropy")
 
 
 @pytest.fixture(scope="module")
@@ -50,7 +50,7 @@ def test_round_trip(ring: Model, tmp_path: Path) -> None:
         assert row.energy == pytest.approx(dense_levels(ring, point)[0], abs=1e-9)
     arrays = table.to_arrays()
     assert arrays["populations"].shape == (len(POINTS), 4)
-    assert arrays["entropy"].shape == (len(POINTS),)
+    assert arrays["entanglement_entropy"].shape == (len(POINTS),)
     with sqlite3.connect(path) as raw:
         assert raw.execute("PRAGMA journal_mode").fetchone()[0] == "wal"
 
@@ -233,11 +233,13 @@ def test_complex_model_round_trips(tmp_path: Path) -> None:
     space = fm.FockSpace(modes=sites, cutoff=2, total=2)
     model = Model("flux-ring", space, {"J": hop}, {"J": 1.0})
     path = tmp_path / "flux.sqlite"
-    table = sweep(model, path, points=[{"J": 1.0}], quantities=("energy", "gap", "one_body"))
+    table = sweep(model, path, points=[{"J": 1.0}], quantities=("energy", "gap", "one_body_matrix"))
     with ResultsStore.open(path) as store:
         row = store.rows()[0]
     assert row == table.rows[0]
-    matrix = np.array(row.observables["one_body"]) + 1j * np.array(row.observables["one_body_imag"])
+    matrix = np.array(row.observables["one_body_matrix"]) + 1j * np.array(
+        row.observables["one_body_matrix_imag"]
+    )
     np.testing.assert_allclose(matrix, matrix.conj().T, atol=1e-12)  # Hermitian, as ⟨a_i† a_j⟩
     assert row.energy == pytest.approx(dense_levels(model, {"J": 1.0})[0], abs=1e-9)
 
@@ -371,7 +373,7 @@ def test_nan_energy_is_not_reported_as_a_duplicate(ring: Model, tmp_path: Path) 
         energy=nan,
         gap=nan,
         levels=None,
-        observables={"entropy": nan},
+        observables={"entanglement_entropy": nan},
         residual=nan,
         method="dense",
         seconds=0.1,
@@ -383,4 +385,4 @@ def test_nan_energy_is_not_reported_as_a_duplicate(ring: Model, tmp_path: Path) 
     assert stored.status == "failed"
     assert "not finite" in stored.message
     assert stored.energy is None and stored.residual is None
-    assert stored.observables == {"entropy": None}
+    assert stored.observables == {"entanglement_entropy": None}

@@ -144,7 +144,7 @@ def pair_closed_form(j: float, u: float) -> dict[str, float]:
         "gap": u / 2 + root,
         "variance": alpha2,
         "hopping": 2 * math.sqrt(alpha2 * beta2),
-        "entropy": -sum(w * math.log(w) for w in weights),
+        "entanglement_entropy": -sum(w * math.log(w) for w in weights),
     }
 
 
@@ -155,7 +155,14 @@ def test_two_site_pair_closed_form() -> None:
     table = run_sweep(
         model,
         points,
-        quantities=("energy", "gap", "populations", "number_variance", "one_body", "entropy"),
+        quantities=(
+            "energy",
+            "gap",
+            "populations",
+            "number_variances",
+            "one_body_matrix",
+            "entanglement_entropy",
+        ),
         executor="serial",
         progress=False,
     )
@@ -165,9 +172,11 @@ def test_two_site_pair_closed_form() -> None:
         assert row.gap == pytest.approx(expected["gap"], abs=1e-12)
         obs = row.observables
         np.testing.assert_allclose(obs["populations"], [1.0, 1.0], atol=1e-12)
-        np.testing.assert_allclose(obs["number_variance"], [expected["variance"]] * 2, atol=1e-12)
-        assert obs["one_body"][0][1] == pytest.approx(expected["hopping"], abs=1e-12)
-        assert obs["entropy"] == pytest.approx(expected["entropy"], abs=1e-12)
+        np.testing.assert_allclose(obs["number_variances"], [expected["variance"]] * 2, atol=1e-12)
+        assert obs["one_body_matrix"][0][1] == pytest.approx(expected["hopping"], abs=1e-12)
+        assert obs["entanglement_entropy"] == pytest.approx(
+            expected["entanglement_entropy"], abs=1e-12
+        )
 
 
 def test_shared_pattern_matches_dense_oracle(rng: np.random.Generator) -> None:
@@ -218,7 +227,7 @@ def test_levels_and_top_weight_recorded(ring: Model) -> None:
     table = run_sweep(
         ring,
         [{"U": 0.5}],
-        quantities=("levels", "top_weight"),
+        quantities=("levels", "top_level_weights"),
         levels=4,
         executor="serial",
         progress=False,
@@ -226,10 +235,10 @@ def test_levels_and_top_weight_recorded(ring: Model) -> None:
     row = table.rows[0]
     np.testing.assert_allclose(row.levels, dense_levels(ring, {"U": 0.5}, 4), atol=1e-9)
     assert row.gap is None
-    assert len(row.observables["top_weight"]) == ring.space.modes
+    assert len(row.observables["top_level_weights"]) == ring.space.modes
     arrays = table.to_arrays()
     assert arrays["levels"].shape == (1, 4)
-    assert arrays["top_weight"].shape == (1, ring.space.modes)
+    assert arrays["top_level_weights"].shape == (1, ring.space.modes)
 
 
 @pytest.mark.parametrize(
@@ -240,7 +249,7 @@ def test_levels_and_top_weight_recorded(ring: Model) -> None:
         ({"levels": 0, "quantities": ("energy",)}, "levels must be between 1"),
         ({"tol": -1.0}, "tol must be a number between 0 and 1"),
         ({"method": "magic"}, "method must be"),
-        ({"entropy_modes": (7,), "quantities": ("entropy",)}, "entropy_modes"),
+        ({"entropy_modes": (7,), "quantities": ("entanglement_entropy",)}, "entropy_modes"),
         ({"chunk": 0}, "chunk must be"),
     ],
 )
@@ -456,3 +465,16 @@ def test_lanczos_points_solve_on_the_shared_pattern(
         assert row.energy == pytest.approx(reference[0], abs=1e-8)
         if levels == 2:
             assert row.gap == pytest.approx(reference[1] - reference[0], abs=1e-8)
+
+
+def test_old_quantity_names_still_record_under_the_function_names() -> None:
+    # The recorded names are the functions' names; the old ones work for one release.
+    model = fm.models.bose_hubbard(fm.models.chain_edges(2), total=2)
+    with pytest.warns(DeprecationWarning, match="'number_variance' is 'number_variances'"):
+        table = run_sweep(model, [{"U": 1.0}], quantities=["energy", "number_variance"])
+    (point,) = table.rows
+    space = model.space
+    g = fm.ground_state(model.hamiltonian(U=1.0), space)
+    np.testing.assert_allclose(
+        point.observables["number_variances"], fm.number_variances(space, g.vector), atol=1e-8
+    )

@@ -183,7 +183,8 @@ def build_parser() -> argparse.ArgumentParser:
         default=None,
         metavar="Q1,Q2,...",
         help="comma-separated quantities (default energy,gap); any of energy, gap, levels, "
-        "populations, number_variance, one_body, entropy, top_weight, residual, seconds; "
+        "populations, number_variances, one_body_matrix, entanglement_entropy, "
+        "top_level_weights, residual, seconds; "
         "or 'dispersion' alone (E0(k) per point, for sweeps over every momentum)",
     )
     plot.add_argument("--no-poles", action="store_true", help="spectra: leave out the pole sticks")
@@ -266,7 +267,7 @@ def _short_list(values: Sequence[Any]) -> str:
     return "[" + " ".join(f"{float(v):.4f}" for v in values) + "]"
 
 
-_MATRIX_KEYS = ("one_body", "one_body_imag", "dispersion")
+_MATRIX_KEYS = ("one_body_matrix", "one_body_matrix_imag", "dispersion")
 
 
 def _table_columns(table: SweepTable) -> list[str]:
@@ -332,7 +333,7 @@ def format_table(table: SweepTable, meta: dict[str, Any] | None = None) -> str:
     lines.append("  ".join(c.rjust(w) for c, w in zip(columns, widths, strict=True)))
     lines.extend("  ".join(v.rjust(w) for v, w in zip(r, widths, strict=True)) for r in cells)
     if any(k in row.observables for row in table.rows for k in _MATRIX_KEYS[:2]):
-        lines.append("# one_body matrices are not shown here; use --format csv or json")
+        lines.append("# one_body_matrix matrices are not shown here; use --format csv or json")
     lines.extend(_dispersion_lines(table))
     lines.extend(_failure_lines(table))
     return "\n".join(lines)
@@ -817,7 +818,7 @@ def _command_demo(args: argparse.Namespace, out: IO[str]) -> int:
     try:
         from fockmill.plots.sweeps import plot_sweep
 
-        wanted = ("energy", "gap", "number_variance", "entropy")
+        wanted = ("energy", "gap", "number_variances", "entanglement_entropy")
         figure = plot_sweep(
             table,
             directory / f"{DEMO_STEM}.png",

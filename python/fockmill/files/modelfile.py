@@ -49,9 +49,10 @@ Schema (every table but ``[model]`` is optional; unknown keys are errors)
     ``"geometric"``. The grid is the Cartesian product, last table varying fastest.
 ``[record]``
     ``quantities = [...]`` from ``energy``, ``gap``, ``levels``, ``populations``,
-    ``number_variance``, ``one_body``, ``entropy``, ``top_weight``, ``residual``
+    ``number_variances``, ``one_body_matrix``, ``entanglement_entropy``,
+    ``top_level_weights``, ``residual``
     (default ``["energy"]``); ``levels`` (how many lowest levels to compute);
-    ``entropy_modes`` (the subsystem for ``entropy``; default the first half of the
+    ``entropy_modes`` (the subsystem for ``entanglement_entropy``; default the first half of the
     modes).
 ``[symmetry]``
     The symmetry sector(s) to solve in: ``translation`` (a label or ``"all"``),
@@ -106,7 +107,7 @@ from fockmill.models.builders import (
 from fockmill.models.model import Model
 from fockmill.settings.checks import MAX_SEED, MAX_THREADS, METHODS
 from fockmill.settings.solver import SolverSettings
-from fockmill.sweeps.plan import RECORDABLE, SweepGrid
+from fockmill.sweeps.plan import RECORDABLE, RENAMED_QUANTITIES, SweepGrid
 
 if TYPE_CHECKING:
     from fockmill.spaces.sectors import SectorChoice
@@ -154,7 +155,7 @@ class ModelFile:
         The keywords of ``ground_state``/``run_sweep``: ``{"method": str, "tol": float,
         "seed": int, "max_iterations": int | None, "threads": int | None}``.
     entropy_modes : tuple of int
-        Subsystem modes for ``"entropy"`` (empty when it is not recorded).
+        Subsystem modes for ``"entanglement_entropy"`` (empty when it is not recorded).
     text_hash : str
         SHA-256 (hex) of the file's text.
     units : dict of str to str
@@ -516,6 +517,15 @@ def _record(
         items = reader.array(table["quantities"], path, "quantity names")
         chosen: list[str] = []
         for k, item in enumerate(items):
+            if isinstance(item, str) and item in RENAMED_QUANTITIES:
+                warnings.warn(
+                    f"{join_key(path, k)}: {item!r} is now {RENAMED_QUANTITIES[item]!r} (the "
+                    "name of the function that computes it); the old name works for one "
+                    "release",
+                    DeprecationWarning,
+                    stacklevel=2,
+                )
+                item = RENAMED_QUANTITIES[item]
             name = reader.choice(item, join_key(path, k), RECORDABLE)
             if name in chosen:
                 reader.fail(join_key(path, k), f"{name!r} is listed twice")
@@ -534,7 +544,7 @@ def _record(
     modes = model.space.modes
     if "entropy_modes" in table:
         path = "record.entropy_modes"
-        if "entropy" not in quantities:
+        if "entanglement_entropy" not in quantities:
             reader.fail(path, "given, but 'entropy' is not in record.quantities")
         items = reader.array(table["entropy_modes"], path, "mode indices")
         picked: list[int] = []
@@ -546,7 +556,7 @@ def _record(
         if len(picked) == modes:
             reader.fail(path, f"expected a proper subset of the {modes} modes; got all of them")
         entropy_modes = tuple(picked)
-    elif "entropy" in quantities:
+    elif "entanglement_entropy" in quantities:
         if modes < 2:
             reader.fail("record.quantities", "'entropy' needs a model with at least 2 modes")
         entropy_modes = tuple(range(modes // 2))

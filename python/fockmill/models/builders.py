@@ -80,6 +80,29 @@ Cutoff: TypeAlias = int | Sequence[int]
 # -- argument checks -------------------------------------------------------------------
 
 
+def _old_keywords(
+    builder: str,
+    old_names: Mapping[str, _Any],
+    renamed: Mapping[str, str],
+    current: dict[str, _Any],
+) -> dict[str, _Any]:
+    """Keywords under their current names, accepting the older ones with a warning."""
+    import warnings
+
+    for old, value in old_names.items():
+        if old not in renamed:
+            raise TypeError(f"{builder}() got an unexpected keyword argument {old!r}")
+        new = renamed[old]
+        warnings.warn(
+            f"{builder}({old}=...) is now {builder}({new}=...), the name of the parameter it "
+            "sets in model files and sweeps",
+            DeprecationWarning,
+            stacklevel=3,
+        )
+        current[new] = value
+    return current
+
+
 def _index(value: object, what: str) -> int:
     """A non-negative integer index, or a clear error."""
     if isinstance(value, (bool, _np.bool_)) or not isinstance(value, (_numbers.Integral)):
@@ -329,11 +352,12 @@ def bose_hubbard(
     edges: Iterable[Sequence[_Any]],
     *,
     sites: int | None = None,
-    hopping: float = 1.0,
-    interaction: float = 1.0,
-    chemical_potential: float = 0.0,
+    J: float = 1.0,
+    U: float = 1.0,
+    mu: float = 0.0,
     cutoff: Cutoff | None = None,
     total: int | None = None,
+    **old_names: _Any,
 ) -> Model:
     """Bosons hopping on a graph with on-site interaction (Bose–Hubbard model).
 
@@ -347,12 +371,11 @@ def bose_hubbard(
         (a Peierls phase).
     sites : int, optional
         Number of sites; default ``1 + `` the largest site index in ``edges``.
-    hopping : float, default 1.0
-        Default of parameter ``"J"``.
-    interaction : float, default 1.0
-        Default of parameter ``"U"``.
-    chemical_potential : float, default 0.0
-        Default of parameter ``"mu"``.
+    J, U, mu : float, default 1.0, 1.0, 0.0
+        Defaults of the parameters of the same names (hopping, interaction, chemical
+        potential), the names model files and sweeps use. The older keywords
+        ``hopping``, ``interaction`` and ``chemical_potential`` still work for one
+        release, with a DeprecationWarning.
     cutoff : int or sequence of int, optional
         Highest occupation per site. Defaults to ``total`` when ``total`` is given
         (then nothing is truncated); required otherwise.
@@ -383,10 +406,17 @@ def bose_hubbard(
 
     Examples
     --------
-    >>> model = bose_hubbard(chain_edges(3), total=3, interaction=4.0)
+    >>> model = bose_hubbard(chain_edges(3), total=3, U=4.0)
     >>> model.space.dim, sorted(model.parameters)
     (10, ['J', 'U', 'mu'])
     """
+    given = _old_keywords(
+        "bose_hubbard",
+        old_names,
+        {"hopping": "J", "interaction": "U", "chemical_potential": "mu"},
+        {"J": J, "U": U, "mu": mu},
+    )
+    J, U, mu = given["J"], given["U"], given["mu"]
     checked, count = _checked_edges(edges, sites)
     if cutoff is None:
         if total is None:
@@ -405,11 +435,7 @@ def bose_hubbard(
         "U": _expr({((i, 2, 2),): 0.5 + 0j for i in range(count)}),
         "mu": -_number_sum(range(count)),
     }
-    parameters = {
-        "J": _real(hopping, "hopping"),
-        "U": _real(interaction, "interaction"),
-        "mu": _real(chemical_potential, "chemical_potential"),
-    }
+    parameters = {"J": _real(J, "J"), "U": _real(U, "U"), "mu": _real(mu, "mu")}
     labels = tuple(f"site {i}" for i in range(count))
     return Model("bose-hubbard", space, pieces, parameters, mode_labels=labels)
 
@@ -417,13 +443,14 @@ def bose_hubbard(
 def jaynes_cummings_hubbard(
     sites: int,
     *,
-    cavity_frequency: float = 1.0,
-    emitter_frequency: float = 1.0,
-    coupling: float = 0.1,
-    hopping: float = 0.0,
+    wc: float = 1.0,
+    we: float = 1.0,
+    g: float = 0.1,
+    J: float = 0.0,
     periodic: bool = False,
     cavity_cutoff: int,
     total: int | None = None,
+    **old_names: _Any,
 ) -> Model:
     """A chain (or ring) of cavities, each coupled to one two-level emitter.
 
@@ -434,14 +461,16 @@ def jaynes_cummings_hubbard(
     ----------
     sites : int
         Number of cavity–emitter sites (>= 1).
-    cavity_frequency : float, default 1.0
-        Default of parameter ``"wc"``.
-    emitter_frequency : float, default 1.0
-        Default of parameter ``"we"``.
-    coupling : float, default 0.1
+    wc, we : float, default 1.0
+        Defaults of parameters ``"wc"`` (cavity frequency) and ``"we"`` (emitter
+        frequency).
+    g : float, default 0.1
         Default of parameter ``"g"`` (cavity–emitter exchange on each site).
-    hopping : float, default 0.0
+    J : float, default 0.0
         Default of parameter ``"J"`` (photon hopping between neighbouring cavities).
+        The keywords are the parameters' names in model files and sweeps; the older
+        ``cavity_frequency``, ``emitter_frequency``, ``coupling`` and ``hopping`` still
+        work for one release, with a DeprecationWarning.
     periodic : bool, default False
         Join the last cavity to the first (needs ``sites >= 3``).
     cavity_cutoff : int
@@ -480,6 +509,12 @@ def jaynes_cummings_hubbard(
     >>> model.space.dim
     4
     """
+    given = _old_keywords(
+        "jaynes_cummings_hubbard",
+        old_names,
+        {"cavity_frequency": "wc", "emitter_frequency": "we", "coupling": "g", "hopping": "J"},
+        {"wc": wc, "we": we, "g": g, "J": J},
+    )
     count = _count(sites, "sites", 1)
     cut = _count(cavity_cutoff, "cavity_cutoff", 1)
     bonds = chain_edges(count, periodic=periodic)
@@ -499,10 +534,10 @@ def jaynes_cummings_hubbard(
         "J": _expr(hop),
     }
     parameters = {
-        "wc": _real(cavity_frequency, "cavity_frequency"),
-        "we": _real(emitter_frequency, "emitter_frequency"),
-        "g": _real(coupling, "coupling"),
-        "J": _real(hopping, "hopping"),
+        "wc": _real(given["wc"], "wc"),
+        "we": _real(given["we"], "we"),
+        "g": _real(given["g"], "g"),
+        "J": _real(given["J"], "J"),
     }
     labels = tuple(label for s in range(count) for label in (f"cavity {s}", f"emitter {s}"))
     return Model("jaynes-cummings-hubbard", space, pieces, parameters, mode_labels=labels)

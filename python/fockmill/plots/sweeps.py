@@ -53,10 +53,10 @@ _QUANTITIES = {
     "gap": "gap $E_1-E_0$",
     "levels": "levels $E_k$",
     "populations": r"mean occupation $\langle n_i\rangle$",
-    "number_variance": r"number variance Var $n_i$",
-    "one_body": r"$\langle a_0^\dagger a_j\rangle$",
-    "entropy": "entanglement entropy $S$ (nats)",
-    "top_weight": "top-level weight",
+    "number_variances": r"number variance Var $n_i$",
+    "one_body_matrix": r"$\langle a_0^\dagger a_j\rangle$",
+    "entanglement_entropy": "entanglement entropy $S$ (nats)",
+    "top_level_weights": "top-level weight",
     "residual": r"residual $\|Hv-Ev\|$",
     "seconds": "seconds per point",
 }
@@ -381,8 +381,8 @@ def sweep_figure(
         geometric grid spanning a decade or more gets a logarithmic axis.
     y : sequence of str
         Quantities, one panel each: ``energy``, ``gap``, ``levels``, ``populations``,
-        ``number_variance``, ``one_body`` (row of mode 0), ``entropy``, ``top_weight``,
-        ``residual``, ``seconds``.
+        ``number_variances``, ``one_body_matrix`` (row of mode 0),
+        ``entanglement_entropy``, ``top_level_weights``, ``residual``, ``seconds``.
     title : str, optional
         First line of the title (default: the model name); a second line gives the
         number of modes, the dimension, the sector and the filling when known.
@@ -478,7 +478,7 @@ def sweep_figure(
             axis.plot(xs[rows], values, marker="o", markersize=3, color=colour, label=text or None)
         if quantity in _ENERGY_QUANTITIES and quantity != "residual":
             ylabel = _energy_label(quantity, unit_map)
-        elif quantity == "entropy" and subsystem:
+        elif quantity == "entanglement_entropy" and subsystem:
             ylabel = f"entropy $S_A$ (nats)\nA = {_describe_modes(subsystem, labels)}"
         else:
             ylabel = _QUANTITIES.get(quantity, quantity)

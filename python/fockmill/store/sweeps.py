@@ -130,8 +130,9 @@ class PointResult:
         The lowest energies, ascending, when recorded, else None.
     observables : dict
         Recorded ground-state observables as JSON-ready values (floats and nested
-        lists): ``populations``, ``number_variance``, ``one_body`` (plus
-        ``one_body_imag`` for complex states), ``entropy``, ``top_weight``.
+        lists): ``populations``, ``number_variances``, ``one_body_matrix`` (plus
+        ``one_body_matrix_imag`` for complex states), ``entanglement_entropy``,
+        ``top_level_weights``.
     residual : float or None
         ``‖H v − E v‖`` of the returned ground vector.
     method : str
@@ -254,8 +255,8 @@ class SweepTable:
             ``index`` (int64); one float column per parameter; ``energy``, ``gap``,
             ``residual`` (NaN where not recorded or failed), ``seconds``; ``levels`` as
             ``(rows, k)``; each observable stacked along a first axis of length
-            ``rows`` (``populations`` ``(rows, modes)``, ``one_body``
-            ``(rows, modes, modes)``, ``entropy`` ``(rows,)``, ...); ``method`` and
+            ``rows`` (``populations`` ``(rows, modes)``, ``one_body_matrix``
+            ``(rows, modes, modes)``, ``entanglement_entropy`` ``(rows,)``, ...); ``method`` and
             ``status`` as string arrays.
         """
         rows = self.rows
@@ -658,7 +659,7 @@ class ResultsStore:
             energy=None if energy is None else float(energy),
             gap=None if gap is None else float(gap),
             levels=None if levels is None else tuple(json.loads(levels)),
-            observables=json.loads(observables),
+            observables=_current_names(json.loads(observables)),
             residual=None if residual is None else float(residual),
             method=str(method),
             seconds=float(seconds),
@@ -789,3 +790,18 @@ def space_summary(space: Any) -> dict[str, Any]:
         "modulus": space.modulus,
         "dim": space.dim,
     }
+
+
+_RENAMED = {
+    "number_variance": "number_variances",
+    "one_body": "one_body_matrix",
+    "one_body_imag": "one_body_matrix_imag",
+    "entropy": "entanglement_entropy",
+    "top_weight": "top_level_weights",
+}
+
+
+def _current_names(values: dict[str, Any]) -> dict[str, Any]:
+    """Recorded quantities under their current names: files written before the rename
+    (see ``fockmill.sweeps.plan.RENAMED_QUANTITIES``) keep the old keys."""
+    return {_RENAMED.get(key, key): value for key, value in values.items()}

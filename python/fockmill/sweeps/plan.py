@@ -26,8 +26,10 @@ from fockmill.settings.solver import SolverSettings
 __all__ = [
     "DEFAULT_QUANTITIES",
     "QUANTITIES",
+    "RENAMED_QUANTITIES",
     "SOLVER_DEFAULTS",
     "SweepSettings",
+    "current_quantity_names",
     "full_points",
     "serpentine_order",
     "sweep_settings",
@@ -38,13 +40,24 @@ RECORDABLE: tuple[str, ...] = (
     "gap",
     "levels",
     "populations",
-    "number_variance",
-    "one_body",
-    "entropy",
-    "top_weight",
+    "number_variances",
+    "one_body_matrix",
+    "entanglement_entropy",
+    "top_level_weights",
     "residual",
 )
 """Values allowed in ``record.quantities``."""
+
+RENAMED_QUANTITIES: Mapping[str, str] = {
+    "number_variance": "number_variances",
+    "one_body": "one_body_matrix",
+    "one_body_imag": "one_body_matrix_imag",
+    "entropy": "entanglement_entropy",
+    "top_weight": "top_level_weights",
+}
+"""Older names of recorded quantities -> the names of the functions that compute them
+(accepted for one release, with a DeprecationWarning; results files written with the old
+names read under the new ones)."""
 
 
 @dataclass(frozen=True)
@@ -247,7 +260,9 @@ def sweep_settings(
     return SweepSettings(
         quantities=chosen,
         levels=count,
-        entropy_modes=subsystem if "entropy" in chosen or entropy_modes is not None else (),
+        entropy_modes=subsystem
+        if "entanglement_entropy" in chosen or entropy_modes is not None
+        else (),
         method=solver.method,
         tol=solver.tol,
         seed=solver.seed,
@@ -257,9 +272,22 @@ def sweep_settings(
 
 
 def _names(quantities: Sequence[str] | str) -> list[str]:
-    if isinstance(quantities, str):
-        return [quantities]
-    return [str(q) for q in quantities]
+    raw = [quantities] if isinstance(quantities, str) else [str(q) for q in quantities]
+    old = [q for q in raw if q in RENAMED_QUANTITIES]
+    if old:
+        warnings.warn(
+            "recorded quantities now carry the names of the functions that compute them: "
+            + ", ".join(f"{q!r} is {RENAMED_QUANTITIES[q]!r}" for q in old),
+            DeprecationWarning,
+            stacklevel=4,
+        )
+    return [RENAMED_QUANTITIES.get(q, q) for q in raw]
+
+
+def current_quantity_names(values: Mapping[str, Any]) -> dict[str, Any]:
+    """A stored record's quantities under their current names (files written before the
+    rename keep the old keys)."""
+    return {RENAMED_QUANTITIES.get(key, key): value for key, value in values.items()}
 
 
 def full_points(

@@ -343,17 +343,19 @@ def observables(
     wanted = settings.quantities
     if "populations" in wanted:
         out["populations"] = populations(space, vector, threads=threads).tolist()
-    if "number_variance" in wanted:
-        out["number_variance"] = number_variances(space, vector, threads=threads).tolist()
-    if "one_body" in wanted:
+    if "number_variances" in wanted:
+        out["number_variances"] = number_variances(space, vector, threads=threads).tolist()
+    if "one_body_matrix" in wanted:
         matrix = one_body_matrix(space, vector, threads=threads)
-        out["one_body"] = np.real(matrix).tolist()
+        out["one_body_matrix"] = np.real(matrix).tolist()
         if np.iscomplexobj(matrix):
-            out["one_body_imag"] = np.imag(matrix).tolist()
-    if "entropy" in wanted:
-        out["entropy"] = float(entanglement_entropy(space, vector, settings.entropy_modes))
-    if "top_weight" in wanted:
-        out["top_weight"] = top_level_weights(space, vector, threads=threads).tolist()
+            out["one_body_matrix_imag"] = np.imag(matrix).tolist()
+    if "entanglement_entropy" in wanted:
+        out["entanglement_entropy"] = float(
+            entanglement_entropy(space, vector, settings.entropy_modes)
+        )
+    if "top_level_weights" in wanted:
+        out["top_level_weights"] = top_level_weights(space, vector, threads=threads).tolist()
     return out
 
 

@@ -222,7 +222,7 @@ def run_sweep(
     threads : int, optional
         Native threads per solve (default: all cores in-process, 1 in each pool worker).
     entropy_modes : sequence of int, optional
-        Subsystem for ``"entropy"`` (default: the first half of the modes).
+        Subsystem for ``"entanglement_entropy"`` (default: the first half of the modes).
     executor : Executor, dask Client, "serial" or None
         Where chunks run. None: a local process pool of ``workers`` processes (or
         in-process when ``workers == 1``). A ``concurrent.futures.Executor`` is used as
