@@ -550,7 +550,7 @@ VOCABULARY = [
     "J", "U", "mu", "wc", "we", "g", "omega", "kerr", "exchange", "drive", "schema",
     "frequency_scale", "kerr_scale", "cross_kerr_scale", "exchange_scale",
     "terms", "units", "energy", "value", "fixed", "per_mode", "modes", "weights",
-    "random", "add_adjoint", "distribution", "seed", "count(@)", "raise(0) lower(1)",
+    "random", "add_adjoint", "distribution", "seed", "number(@)", "raising(0) lowering(1)",
     "description",
     *RECORDABLE,
 ]  # fmt: skip

@@ -78,7 +78,7 @@ def test_per_mode_template_uses_the_given_mode() -> None:
     ("text", "column", "fragment"),
     [
         ("", 1, "empty term"),
-        ("0.5 rise(0)", 5, "expected raise"),
+        ("0.5 rise(0)", 5, "expected raising"),
         ("raise 0", 6, "expected '('"),
         ("raise(0", 6, "never closed"),
         ("raise(7)", 7, "mode 7 does not exist"),

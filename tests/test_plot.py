@@ -108,7 +108,7 @@ total = 2
 
 [terms.W]
 value = 1.0
-per_mode = "count(@)"
+per_mode = "number(@)"
 random = { distribution = "uniform", low = -1.0, high = 1.0, seed = 4 }
 
 [sweep.J]

@@ -202,7 +202,7 @@ REFUSALS = [
     (
         ring_text(
             "translation = 0",
-            extra='[terms.W]\nper_mode = "count(@)"\nrandom = {distribution = "uniform", '
+            extra='[terms.W]\nper_mode = "number(@)"\nrandom = {distribution = "uniform", '
             "seed = 3, low = -1.0, high = 1.0}",
         ),
         "symmetry.translation",

@@ -70,8 +70,8 @@ state = "fock"
 occupations = [1, 0]
 
 [quench.observables]
-current = ["(0-1j) raise(0) lower(1)", "(0+1j) raise(1) lower(0)"]
-forward = "raise(0) lower(1)"
+current = ["(0-1j) raising(0) lowering(1)", "(0+1j) raising(1) lowering(0)"]
+forward = "raising(0) lowering(1)"
 """
 )
 
@@ -107,7 +107,7 @@ temperatures = [0.2, 0.5, 1.0, 2.0, 5.0]
 method = "exact"
 
 [temperature.observables]
-n_squared = "count(0)^2"
+n_squared = "number(0)^2"
 """
 
 
@@ -134,8 +134,8 @@ def test_sections_parse_with_defaults() -> None:
     assert set(q.observables) == {"current", "forward"}
     assert q.observables["current"].is_hermitian()
     assert not q.observables["forward"].is_hermitian()
-    assert q.texts["forward"] == ("raise(0) lower(1)",)
-    plain = parse(RING + '[spectrum]\noperator = "lower(site 1)"\nomegas = [0.0, 1.0]\n')
+    assert q.texts["forward"] == ("raising(0) lowering(1)",)
+    plain = parse(RING + '[spectrum]\noperator = "lowering(site 1)"\nomegas = [0.0, 1.0]\n')
     s = plain.spectrum
     assert s is not None and s.charge == -1
     assert s.target == fm.FockSpace(modes=4, cutoff=4, total=3)
@@ -246,54 +246,54 @@ REFUSALS = [
     (QUENCH_HEAD + "tol = 2.0\n" + FOCK, "quench.tol", "between 0 and 1"),
     (QUENCH_HEAD + "populations = false\n" + FOCK, "quench.populations", "nothing to record"),
     (
-        QUENCH_HEAD + FOCK + '[quench.observables]\n"2x" = "count(0)"\n',
+        QUENCH_HEAD + FOCK + '[quench.observables]\n"2x" = "number(0)"\n',
         "quench.observables.2x",
         "start with a letter",
     ),
     (
-        QUENCH_HEAD + FOCK + '[quench.observables]\nenergy = "count(0)"\n',
+        QUENCH_HEAD + FOCK + '[quench.observables]\nenergy = "number(0)"\n',
         "quench.observables.energy",
         "pick another",
     ),
     (
-        QUENCH_HEAD + FOCK + '[quench.observables]\nadd = "raise(0)"\n',
+        QUENCH_HEAD + FOCK + '[quench.observables]\nadd = "raising(0)"\n',
         "quench.observables.add",
         "sector",
     ),
     (
-        QUENCH_HEAD + FOCK + '[quench.observables]\nbad = "count(0) lift(1)"\n',
+        QUENCH_HEAD + FOCK + '[quench.observables]\nbad = "number(0) lift(1)"\n',
         "quench.observables.bad",
         "column",
     ),
     (
-        QUENCH_HEAD + FOCK + '[quench.observables]\nbad = ["count(0)", "count(7)"]\n',
+        QUENCH_HEAD + FOCK + '[quench.observables]\nbad = ["number(0)", "number(7)"]\n',
         "quench.observables.bad[1]",
         "mode",
     ),
     (PAIR + "[spectrum]\nomegas = [0.0]\n", "spectrum.operator", "missing"),
-    (PAIR + '[spectrum]\noperator = "lower(0)"\n', "spectrum.omegas", "missing"),
+    (PAIR + '[spectrum]\noperator = "lowering(0)"\n', "spectrum.omegas", "missing"),
     (
-        PAIR + '[spectrum]\noperator = "lower(0)"\nomegas = [0.0]\neta = 0.0\n',
+        PAIR + '[spectrum]\noperator = "lowering(0)"\nomegas = [0.0]\neta = 0.0\n',
         "spectrum.eta",
         "> 0",
     ),
     (
-        PAIR + '[spectrum]\noperator = "lower(0)"\nomegas = [0.0]\netta = 0.1\n',
+        PAIR + '[spectrum]\noperator = "lowering(0)"\nomegas = [0.0]\netta = 0.1\n',
         "spectrum.etta",
         "did you mean 'eta'",
     ),
     (
-        PAIR + '[spectrum]\noperator = ["lower(0)", "raise(1)"]\nomegas = [0.0]\n',
+        PAIR + '[spectrum]\noperator = ["lowering(0)", "raising(1)"]\nomegas = [0.0]\n',
         "spectrum.operator",
         "one fixed amount",
     ),
     (
-        PAIR + '[spectrum]\noperator = "lower(0) lower(1)"\nomegas = [0.0]\n',
+        PAIR + '[spectrum]\noperator = "lowering(0) lowering(1)"\nomegas = [0.0]\n',
         "spectrum.operator",
         "nothing is left",
     ),
     (
-        PAIR + '[spectrum]\noperator = "raise(0) raise(1) raise(0)"\nomegas = [0.0]\n',
+        PAIR + '[spectrum]\noperator = "raising(0) raising(1) raising(0)"\nomegas = [0.0]\n',
         "spectrum.operator",
         "cannot be used",
     ),
@@ -312,7 +312,8 @@ REFUSALS = [
     (PAIR + "[temperature]\ntemperatures = [1.0]\nsamples = 0\n", "temperature.samples", "integer"),
     (PAIR + "[temperature]\ntemperatures = [1.0]\nseed = -1\n", "temperature.seed", "integer"),
     (
-        PAIR + '[temperature]\ntemperatures = [1.0]\n[temperature.observables]\nx = "lower(0)"\n',
+        PAIR
+        + '[temperature]\ntemperatures = [1.0]\n[temperature.observables]\nx = "lowering(0)"\n',
         "temperature.observables.x",
         "sector",
     ),
@@ -339,16 +340,16 @@ DYNAMICS_BASE: dict[str, object] = {
     "quench": {
         "times": {"start": 0.0, "stop": 1.0, "num": 3},
         "initial": {"state": "coherent", "amplitudes": [0.1, [0.0, 0.1]]},
-        "observables": {"x": "count(0)"},
+        "observables": {"x": "number(0)"},
     },
-    "spectrum": {"operator": "lower(0)", "omegas": [0.0, 1.0], "eta": 0.1},
+    "spectrum": {"operator": "lowering(0)", "omegas": [0.0, 1.0], "eta": 0.1},
     "temperature": {"temperatures": [0.5], "method": "ftlm", "samples": 2},
 }
 DYNAMICS_WORDS = [
     "times", "initial", "state", "fock", "coherent", "ground", "occupations", "amplitudes",
     "parameters", "observables", "populations", "tol", "operator", "omegas", "eta",
     "reference_energy", "poles", "max_steps", "temperatures", "method", "samples", "seed",
-    "steps", "exact", "ftlm", "start", "stop", "num", "values", "lower(0)", "count(1)",
+    "steps", "exact", "ftlm", "start", "stop", "num", "values", "lowering(0)", "number(1)",
 ]  # fmt: skip
 
 
@@ -508,7 +509,7 @@ def lehmann(spec: fm.ModelFile, omegas: np.ndarray, eta: float) -> tuple[np.ndar
     return (eta / np.pi / (diff**2 + eta**2)) @ weights, float(weights.sum())
 
 
-@pytest.mark.parametrize("operator", ["lower(site 0)", "raise(site 2)", "count(site 1)"])
+@pytest.mark.parametrize("operator", ["lowering(site 0)", "raising(site 2)", "number(site 1)"])
 def test_spectrum_matches_the_lehmann_sum_and_the_sum_rule(operator: str) -> None:
     spec = parse(spectrum_text(operator, "{ start = -15.0, stop = 25.0, num = 801 }"))
     result = fm.run_spectrum(spec)
@@ -518,14 +519,14 @@ def test_spectrum_matches_the_lehmann_sum_and_the_sum_rule(operator: str) -> Non
     # Sum rule: the pole weights add up to ⟨ψ|A†A|ψ⟩ exactly.
     assert result.summary["norm"] == pytest.approx(norm, rel=1e-9)
     assert result.arrays["pole_weights"].sum() == pytest.approx(norm, rel=1e-9)
-    if operator == "lower(site 0)":
+    if operator == "lowering(site 0)":
         assert norm == pytest.approx(1.0, rel=1e-9)  # uniform density on a ring: ⟨n₀⟩ = 1
 
 
 def test_spectrum_integral_equals_the_norm() -> None:
     # ∫S dω = ⟨A†A⟩ (sum rule); the grid is wide and fine enough that the Lorentzian
     # tails outside it (≈ 2η/(π·60)) and the trapezoid error stay below 2e-3.
-    spec = parse(spectrum_text("lower(site 0)", "{ start = -60.0, stop = 60.0, num = 12001 }"))
+    spec = parse(spectrum_text("lowering(site 0)", "{ start = -60.0, stop = 60.0, num = 12001 }"))
     result = fm.run_spectrum(spec)
     s, omegas = result.arrays["S"], result.arrays["omegas"]
     integral = float(np.sum(0.5 * (s[1:] + s[:-1]) * np.diff(omegas)))
@@ -533,7 +534,9 @@ def test_spectrum_integral_equals_the_norm() -> None:
 
 
 def test_spectrum_reference_energy_and_no_poles() -> None:
-    text = spectrum_text("lower(site 0)", "[0.0, 1.0]") + "reference_energy = 2.5\npoles = false\n"
+    text = (
+        spectrum_text("lowering(site 0)", "[0.0, 1.0]") + "reference_energy = 2.5\npoles = false\n"
+    )
     result = fm.run_spectrum(parse(text))
     assert result.summary["reference_energy"] == 2.5
     assert "pole_frequencies" not in result.arrays
@@ -602,7 +605,9 @@ def results() -> dict[str, fm.WorkflowResult]:
         warnings.simplefilter("ignore", fm.CutoffWarning)  # the truncated oscillator
         return {
             "quench": fm.run_quench(parse(PAIR_QUENCH)),
-            "spectrum": fm.run_spectrum(parse(spectrum_text("lower(site 0)", "[-1.0, 0.0, 1.0]"))),
+            "spectrum": fm.run_spectrum(
+                parse(spectrum_text("lowering(site 0)", "[-1.0, 0.0, 1.0]"))
+            ),
             "thermal": fm.run_thermal(parse(OSCILLATOR)),
         }
 
@@ -776,7 +781,7 @@ def test_cli_refuses_an_existing_output(tmp_path: Path, capsys: pytest.CaptureFi
 
 def test_cli_subprocess_bad_model_file_has_no_traceback(tmp_path: Path) -> None:
     model = tmp_path / "m.toml"
-    model.write_text(PAIR + '[spectrum]\noperator = "lower(0) lift(1)"\nomegas = [0.0]\n')
+    model.write_text(PAIR + '[spectrum]\noperator = "lowering(0) lift(1)"\nomegas = [0.0]\n')
     done = subprocess.run(
         [sys.executable, "-m", "fockmill", "spectrum", str(model), "--out", str(tmp_path / "r")],
         capture_output=True,
@@ -811,7 +816,7 @@ def test_figures_have_units_titles_and_error_bars(
     assert main.get_xlabel() == r"frequency $\omega$ (J)"
     assert main.get_ylabel() == r"$S(\omega)$ (1/J)"
     assert sticks.get_ylabel() == "pole weight $w_k$"
-    assert "S(ω) of lower(site 0), η = 0.1" in spectrum.get_suptitle()
+    assert "S(ω) of lowering(site 0), η = 0.1" in spectrum.get_suptitle()
     assert len(workflow_figure(results["spectrum"], poles=False).axes) == 1
 
     thermal = workflow_figure(results["thermal"])

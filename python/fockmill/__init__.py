@@ -11,8 +11,9 @@ FockSpace
 prepare, Problem
     An expression compiled on a space once (validation, compiled terms, product
     kernel, thread pool, memory estimate), reused by every build, product and solve.
-lowering, raising, number, identity, LadderExpr
-    Ladder-operator expressions.
+lowering, raising, number, identity, LadderExpr, parse_terms
+    Ladder-operator expressions, and the same expressions read from text (the term
+    strings of model files, or an expression's printed form).
 build_matrix, build_operator, LadderOperator
     ``scipy.sparse.csr_array`` and matrix-free ``LinearOperator``.
 estimate_memory, available_memory, MemoryEstimate
@@ -49,7 +50,15 @@ write_workflow_results, plot_workflow
 
 from fockmill import exceptions, models
 from fockmill._native import __version__
-from fockmill.algebra import LadderExpr, format_monomial, identity, lowering, number, raising
+from fockmill.algebra import (
+    LadderExpr,
+    format_monomial,
+    identity,
+    lowering,
+    number,
+    parse_terms,
+    raising,
+)
 from fockmill.dynamics import (
     Evolution,
     SpectralPoles,
@@ -170,6 +179,7 @@ __all__ = [
     "occupation_distribution",
     "one_body_matrix",
     "parse_model_text",
+    "parse_terms",
     "plot_dispersion",
     "plot_sweep",
     "plot_workflow",

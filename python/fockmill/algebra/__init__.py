@@ -11,7 +11,7 @@ from fockmill.algebra.expressions import (
     number,
     raising,
 )
-from fockmill.algebra.terms import TermSyntaxError, parse_term
+from fockmill.algebra.terms import TermSyntaxError, parse_term, parse_terms
 
 __all__ = [
     "LadderExpr",
@@ -22,5 +22,6 @@ __all__ = [
     "lowering",
     "number",
     "parse_term",
+    "parse_terms",
     "raising",
 ]

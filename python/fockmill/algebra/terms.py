@@ -1,20 +1,28 @@
-"""The term syntax of model files: a user's own ladder-operator terms as short strings.
+"""Term strings: ladder-operator expressions written as text, in model files and in
+Python (:func:`parse_terms`).
 
-A term is an optional coefficient followed by factors, read left to right as an
-operator product (then normal ordered symbolically, so ``lower(0) raise(0)`` is
-``n_0 + 1``)::
+One vocabulary: the factor words are the names of the Python functions
+(``raising``, ``lowering``, ``number``), and the printed form of an expression
+(``str(expr)``, e.g. ``-1.0·a1† a0 + 0.5·a0†^2 a0^2``) reads back as the same
+expression. A term is an optional coefficient followed by factors, read left to right
+as an operator product (then normal ordered symbolically, so
+``lowering(0) raising(0)`` is ``n_0 + 1``)::
 
-    term        := [coefficient] factor*
-    coefficient := real number ("0.5", "-2", "1e-3") or a complex one in
+    terms       := term (("+" | "-") term)*            (parse_terms only)
+    term        := [coefficient] ["·"] factor*
+    coefficient := real number ("0.5", "-2", "1e-3", "2j") or a complex one in
                    parentheses ("(0.3-0.1j)"); default 1; a lone sign means ±1
-    factor      := word "(" mode ")" ["^" power]     (optionally separated by "*")
-    word        := "raise" (a†) | "lower" (a) | "count" (n = a†a)
+    factor      := word "(" mode ")" ["^" power]      (optionally separated by "*")
+                 | "a" index ["†"] ["^" power]        (the printed form)
+                 | "1"                                (the identity)
+    word        := "raising" (a†) | "lowering" (a) | "number" (n = a†a);
+                   the older spellings "raise", "lower", "count" are still read
     mode        := a mode index ("0"), a mode label of the model ("cavity 1"),
                    or "@" in a per-mode template (the mode it is applied to)
     power       := a positive integer
 
-Examples: ``"raise(0)^2 lower(1)"``, ``"-0.5 count(site 2)^2"``,
-``"(0+1j) raise(cavity 0) lower(cavity 1)"``, ``"count(@)"``.
+Examples: ``"raising(0)^2 lowering(1)"``, ``"-0.5 number(site 2)^2"``,
+``"(0+1j) raising(cavity 0) lowering(cavity 1)"``, ``"number(@)"``, ``"0.5·a0† a1"``.
 
 Errors carry the 1-based column of the offending character.
 """
@@ -28,10 +36,27 @@ from dataclasses import dataclass
 
 from fockmill.algebra.expressions import LadderExpr, lowering, number, raising
 
-__all__ = ["WORDS", "TermSyntaxError", "parse_term"]
+__all__ = ["WORDS", "TermSyntaxError", "parse_term", "parse_terms"]
 
-WORDS: dict[str, str] = {"raise": "a†", "lower": "a", "count": "n = a†a"}
+WORDS: dict[str, str] = {
+    "raising": "a†",
+    "lowering": "a",
+    "number": "n = a†a",
+    "raise": "a† (older spelling of raising)",
+    "lower": "a (older spelling of lowering)",
+    "count": "n = a†a (older spelling of number)",
+}
 """Factor words and the operator each stands for."""
+
+_FACTORS = {
+    "raising": raising,
+    "lowering": lowering,
+    "number": number,
+    "raise": raising,
+    "lower": lowering,
+    "count": number,
+}
+_PRINTED = re.compile(r"a(\d+)(†?)")
 
 MAX_POWER = 64
 
@@ -80,6 +105,21 @@ def _resolve_mode(
     )
 
 
+def _power(text: str, position: int) -> tuple[int, int]:
+    """An optional ``^k`` at ``position``: the power and the position after it."""
+    if position < len(text) and text[position] == "^":
+        match = _INTEGER.match(text, position + 1)
+        if not match:
+            raise TermSyntaxError(position + 2, "expected a positive integer power after '^'")
+        power = int(match.group())
+        if not 1 <= power <= MAX_POWER:
+            raise TermSyntaxError(
+                position + 2, f"expected a power from 1 to {MAX_POWER}; got {power}"
+            )
+        return power, match.end()
+    return 1, position
+
+
 def parse_term(text: str, labels: Sequence[str], modes: int, here: int | None = None) -> LadderExpr:
     """Turn one term string into an expression.
 
@@ -108,20 +148,25 @@ def parse_term(text: str, labels: Sequence[str], modes: int, here: int | None = 
 
     def skip_blanks() -> None:
         nonlocal position
-        while position < length and text[position] in " \t*":
+        while position < length and text[position] in " \t*·":
             position += 1
 
     skip_blanks()
     if position >= length:
-        raise TermSyntaxError(1, 'empty term; expected e.g. "0.5 raise(0) lower(1)"')
+        raise TermSyntaxError(1, 'empty term; expected e.g. "0.5 raising(0) lowering(1)"')
     coefficient: complex = 1.0
-    if text[position] == "(":
+    sign = 1.0
+    if text[position] in "+-" and not _REAL.match(text, position):
+        sign = -1.0 if text[position] == "-" else 1.0
+        position += 1
+        skip_blanks()
+    if position < length and text[position] == "(":
         close = text.find(")", position)
         if close < 0:
             raise TermSyntaxError(position + 1, "'(' of a complex coefficient is never closed")
         inner = text[position + 1 : close].replace(" ", "")
         try:
-            coefficient = complex(inner)
+            coefficient = sign * complex(inner)
         except ValueError:
             raise TermSyntaxError(
                 position + 2, f"expected a complex number such as (0.3-0.1j); got {inner!r}"
@@ -130,11 +175,13 @@ def parse_term(text: str, labels: Sequence[str], modes: int, here: int | None = 
     else:
         match = _REAL.match(text, position)
         if match:
-            coefficient = float(match.group())
+            coefficient = sign * float(match.group())
             position = match.end()
-        elif text[position] in "+-":
-            coefficient = -1.0 if text[position] == "-" else 1.0
-            position += 1
+            if position < length and text[position] == "j":
+                coefficient = sign * complex(0.0, float(match.group()))
+                position += 1
+        else:
+            coefficient = sign
     if not cmath.isfinite(coefficient):
         raise TermSyntaxError(1, f"the coefficient {coefficient} is not finite")
     expr = LadderExpr.scalar(coefficient)
@@ -144,12 +191,26 @@ def parse_term(text: str, labels: Sequence[str], modes: int, here: int | None = 
         if position >= length:
             break
         start = position
+        if text[position] == "1" and (position + 1 >= length or text[position + 1] in " \t*·"):
+            position += 1  # the identity, as printed for a constant term
+            factors += 1
+            continue
+        printed = _PRINTED.match(text, position)
+        if printed:
+            mode = _resolve_mode(printed.group(1), position + 2, labels, modes, here)
+            position = printed.end()
+            power, position = _power(text, position)
+            factor = raising(mode) if printed.group(2) else lowering(mode)
+            expr = expr * factor**power
+            factors += 1
+            continue
         match = _WORD.match(text, position)
         if not match or match.group() not in WORDS:
             found = match.group() if match else text[position]
             raise TermSyntaxError(
                 start + 1,
-                f"expected raise(...), lower(...) or count(...); got {found!r}",
+                f"expected raising(...), lowering(...), number(...) or a printed factor such "
+                f"as a0† or a1; got {found!r}",
             )
         word = match.group()
         position = match.end()
@@ -160,18 +221,74 @@ def parse_term(text: str, labels: Sequence[str], modes: int, here: int | None = 
             raise TermSyntaxError(position + 1, f"'(' after {word!r} is never closed")
         mode = _resolve_mode(text[position + 1 : close], position + 2, labels, modes, here)
         position = close + 1
-        power = 1
-        if position < length and text[position] == "^":
-            match = _INTEGER.match(text, position + 1)
-            if not match:
-                raise TermSyntaxError(position + 2, "expected a positive integer power after '^'")
-            power = int(match.group())
-            if not 1 <= power <= MAX_POWER:
-                raise TermSyntaxError(
-                    position + 2, f"expected a power from 1 to {MAX_POWER}; got {power}"
-                )
-            position = match.end()
-        factor = {"raise": raising, "lower": lowering, "count": number}[word](mode)
+        power, position = _power(text, position)
+        factor = _FACTORS[word](mode)
         expr = expr * factor**power
         factors += 1
     return expr
+
+
+def _split_terms(text: str) -> list[tuple[int, str]]:
+    """The terms of a sum with their 0-based start columns: split at ``+``/``-`` outside
+    parentheses that follow a blank (so ``1e-3`` and ``(0.3-0.1j)`` stay whole)."""
+    pieces: list[tuple[int, str]] = []
+    depth = 0
+    start = 0
+    for i, char in enumerate(text):
+        if char == "(":
+            depth += 1
+        elif char == ")":
+            depth -= 1
+        elif char in "+-" and depth == 0 and i > 0 and text[i - 1] in " \t":
+            if text[start:i].strip():
+                pieces.append((start, text[start:i]))
+                start = i
+    pieces.append((start, text[start:]))
+    return pieces
+
+
+def parse_terms(text: str, *, labels: Sequence[str] = (), modes: int | None = None) -> LadderExpr:
+    """An expression from a sum of term strings, e.g. the printed form of another one.
+
+    Parameters
+    ----------
+    text : str
+        Terms joined by ``+`` or ``-`` (see the module docstring), for example
+        ``"-1.0·a1† a0 - 1.0·a0† a1 + 0.5·number(0)^2"``.
+    labels : sequence of str, optional
+        Mode labels that may stand for indices (``labels[i]`` names mode ``i``).
+    modes : int, optional
+        Number of modes, to refuse larger indices (default: any index).
+
+    Returns
+    -------
+    LadderExpr
+
+    Raises
+    ------
+    ValueError
+        For text that does not follow the syntax, naming the column and what was
+        expected.
+
+    Examples
+    --------
+    >>> import fockmill as fm
+    >>> h = fm.raising(0) * fm.lowering(1) + 0.5 * fm.number(1) ** 2
+    >>> fm.parse_terms(str(h)) == h
+    True
+    >>> print(fm.parse_terms("2 raising(0) lowering(0) - 1"))
+    2.0·a0† a0 - 1.0·1
+    """
+    if not isinstance(text, str):
+        raise TypeError(f"parse_terms takes a string; got {type(text).__name__}")
+    count = len(labels) if modes is None and labels else modes
+    bound = count if count is not None else 2**31
+    total = LadderExpr()
+    for start, piece in _split_terms(text):
+        try:
+            total = total + parse_term(piece, list(labels), bound)
+        except TermSyntaxError as error:
+            raise ValueError(
+                f"column {start + error.column}: {error.problem} in {text!r}"
+            ) from None
+    return total

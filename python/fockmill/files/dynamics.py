@@ -484,7 +484,7 @@ def _spectrum(reader: Reader, value: object, model: Model) -> SpectrumSpec:
     where = join_key(path, "operator")
     operator, texts = _operator(
         reader,
-        reader.required(table, "operator", path, 'a term string such as "lower(0)"'),
+        reader.required(table, "operator", path, 'a term string such as "lowering(0)"'),
         where,
         model,
     )

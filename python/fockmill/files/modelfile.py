@@ -30,8 +30,8 @@ Schema (every table but ``[model]`` is optional; unknown keys are errors)
 ``[terms.NAME]``
     The user's own terms, multiplied by parameter ``NAME`` (new, or an existing one
     whose family they join): ``value`` (default of a new parameter, 1.0), ``fixed``
-    (add to every point instead), ``terms = ["0.5 raise(0) lower(1)", ...]`` (syntax
-    in :mod:`fockmill.algebra.terms`), ``per_mode = "count(@)"`` with ``modes``,
+    (add to every point instead), ``terms = ["0.5 raising(0) lowering(1)", ...]`` (syntax
+    in :mod:`fockmill.algebra.terms`), ``per_mode = "number(@)"`` with ``modes``,
     ``weights`` or ``random = {distribution, seed, low/high or mean/std}``, and
     ``add_adjoint``.
 ``[parameters]``
@@ -743,7 +743,9 @@ def _terms(
             ppath = join_key(path, "per_mode")
             template = table["per_mode"]
             if not isinstance(template, str) or "@" not in template:
-                reader.wrong(ppath, 'a term string using @ for the mode, e.g. "count(@)"', template)
+                reader.wrong(
+                    ppath, 'a term string using @ for the mode, e.g. "number(@)"', template
+                )
             modes = _term_modes(reader, table, path, model)
             weights = _mode_weights(reader, table, path, len(modes))
             weights_used[name] = weights

@@ -181,7 +181,7 @@ def read_term(
     reader: Reader, text: object, path: str, model: Model, here: int | None = None
 ) -> LadderExpr:
     if not isinstance(text, str):
-        reader.wrong(path, 'a term string such as "0.5 raise(0) lower(1)"', text)
+        reader.wrong(path, 'a term string such as "0.5 raising(0) lowering(1)"', text)
     labels = list(model.mode_labels) or [f"mode {i}" for i in range(model.space.modes)]
     try:
         return parse_term(text, labels, model.space.modes, here)
