@@ -102,11 +102,11 @@ cutoff = 6
 [units]
 energy = "meV"
 
-[temperature]
+[thermal]
 temperatures = [0.2, 0.5, 1.0, 2.0, 5.0]
 method = "exact"
 
-[temperature.observables]
+[thermal.observables]
 n_squared = "number(0)^2"
 """
 
@@ -127,7 +127,7 @@ def refusal(text: str) -> ModelFileError:
 def test_sections_parse_with_defaults() -> None:
     spec = parse(PAIR_QUENCH)
     q = spec.quench
-    assert q is not None and spec.spectrum is None and spec.temperature is None
+    assert q is not None and spec.spectrum is None and spec.thermal is None
     assert q.initial == InitialState("fock", occupations=(1, 0))
     assert q.times == tuple(np.linspace(0.0, 10.0, 41))
     assert q.tol == 1e-10 and q.populations
@@ -146,7 +146,7 @@ def test_sections_parse_with_defaults() -> None:
         1e-6,
         None,
     )
-    t = parse(OSCILLATOR).temperature
+    t = parse(OSCILLATOR).thermal
     assert t is not None
     assert (t.method, t.samples, t.seed, t.steps, t.populations) == ("exact", None, 0, None, True)
     assert t.temperatures == (0.2, 0.5, 1.0, 2.0, 5.0)
@@ -154,10 +154,9 @@ def test_sections_parse_with_defaults() -> None:
 
 def test_grids_accept_a_table_with_geometric_spacing() -> None:
     text = RING.replace("total = 4", "total = 2") + (
-        "[temperature]\ntemperatures = { start = 0.1, stop = 10.0, num = 3, "
-        'spacing = "geometric" }\n'
+        '[thermal]\ntemperatures = { start = 0.1, stop = 10.0, num = 3, spacing = "geometric" }\n'
     )
-    spec = parse(text).temperature
+    spec = parse(text).thermal
     assert spec is not None
     np.testing.assert_allclose(spec.temperatures, [0.1, 1.0, 10.0])
 
@@ -168,7 +167,7 @@ def test_grids_accept_a_table_with_geometric_spacing() -> None:
         ("kerr_oscillator_revival.toml", "quench"),
         ("dimer_interaction_quench.toml", "quench"),
         ("ring_photon_removal.toml", "spectrum"),
-        ("kerr_trimer_thermal.toml", "temperature"),
+        ("kerr_trimer_thermal.toml", "thermal"),
     ],
 )
 def test_examples_load_and_parse_the_same_from_text(name: str, section: str) -> None:
@@ -184,7 +183,7 @@ def test_examples_load_and_parse_the_same_from_text(name: str, section: str) -> 
 
 def test_a_file_without_the_sections_is_unchanged() -> None:
     spec = parse(RING)
-    assert (spec.quench, spec.spectrum, spec.temperature) == (None, None, None)
+    assert (spec.quench, spec.spectrum, spec.thermal) == (None, None, None)
 
 
 QUENCH_HEAD = PAIR + "[quench]\ntimes = [0.0, 1.0]\n"
@@ -298,23 +297,22 @@ REFUSALS = [
         "cannot be used",
     ),
     (PAIR + "[spectrum]\noperator = 3\nomegas = [0.0]\n", "spectrum.operator", "term strings"),
-    (PAIR + "[temperature]\ntemperatures = [0.0, 1.0]\n", "temperature.temperatures", "> 0"),
+    (PAIR + "[thermal]\ntemperatures = [0.0, 1.0]\n", "thermal.temperatures", "> 0"),
     (
-        PAIR + '[temperature]\ntemperatures = [1.0]\nmethod = "ftml"\n',
-        "temperature.method",
+        PAIR + '[thermal]\ntemperatures = [1.0]\nmethod = "ftml"\n',
+        "thermal.method",
         'did you mean "ftlm"',
     ),
     (
-        PAIR + '[temperature]\ntemperatures = [1.0]\nmethod = "exact"\nsamples = 4\n',
-        "temperature.samples",
+        PAIR + '[thermal]\ntemperatures = [1.0]\nmethod = "exact"\nsamples = 4\n',
+        "thermal.samples",
         "only meaningful",
     ),
-    (PAIR + "[temperature]\ntemperatures = [1.0]\nsamples = 0\n", "temperature.samples", "integer"),
-    (PAIR + "[temperature]\ntemperatures = [1.0]\nseed = -1\n", "temperature.seed", "integer"),
+    (PAIR + "[thermal]\ntemperatures = [1.0]\nsamples = 0\n", "thermal.samples", "integer"),
+    (PAIR + "[thermal]\ntemperatures = [1.0]\nseed = -1\n", "thermal.seed", "integer"),
     (
-        PAIR
-        + '[temperature]\ntemperatures = [1.0]\n[temperature.observables]\nx = "lowering(0)"\n',
-        "temperature.observables.x",
+        PAIR + '[thermal]\ntemperatures = [1.0]\n[thermal.observables]\nx = "lowering(0)"\n',
+        "thermal.observables.x",
         "sector",
     ),
     (PAIR + "[quench]\n", "quench.initial", "missing"),
@@ -343,7 +341,7 @@ DYNAMICS_BASE: dict[str, object] = {
         "observables": {"x": "number(0)"},
     },
     "spectrum": {"operator": "lowering(0)", "omegas": [0.0, 1.0], "eta": 0.1},
-    "temperature": {"temperatures": [0.5], "method": "ftlm", "samples": 2},
+    "thermal": {"temperatures": [0.5], "method": "ftlm", "samples": 2},
 }
 DYNAMICS_WORDS = [
     "times", "initial", "state", "fock", "coherent", "ground", "occupations", "amplitudes",
@@ -356,14 +354,14 @@ DYNAMICS_WORDS = [
 def test_fuzz_base_is_valid() -> None:
     spec = parse(toml_document(DYNAMICS_BASE))
     assert spec.quench is not None and spec.spectrum is not None
-    assert spec.temperature is not None
+    assert spec.thermal is not None
 
 
 @settings(max_examples=120, deadline=None, suppress_health_check=[HealthCheck.too_slow])
 @given(
     st.lists(
         st.tuples(
-            st.sampled_from(["quench", "spectrum", "temperature", "quench.initial"]),
+            st.sampled_from(["quench", "spectrum", "thermal", "quench.initial"]),
             st.sampled_from(DYNAMICS_WORDS),
             VALUES | st.sampled_from(DYNAMICS_WORDS) | st.none(),
         ),
@@ -577,7 +575,7 @@ kind = "kerr-network"
 frequencies = [1.0, 1.1, 0.9]
 couplings = [[0, 1, 0.1], [1, 2, 0.1]]
 cutoff = 3
-[temperature]
+[thermal]
 temperatures = [0.5, 1.0, 3.0]
 """
     exact = fm.run_thermal(parse(base + 'method = "exact"\n'))
@@ -875,14 +873,26 @@ sites = 4
 total = 4
 [symmetry]
 translation = 0
-[temperature]
+[thermal]
 temperatures = [0.5, 2.0]
 """
     model_file = fm.parse_model_text(text)
-    with pytest.warns(UserWarning, match=r"\[symmetry\] is not used by \[temperature\]"):
+    with pytest.warns(UserWarning, match=r"\[symmetry\] is not used by \[thermal\]"):
         result = fm.run_thermal(model_file)
     h = fm.build_matrix(model_file.model.hamiltonian(), model_file.model.space).toarray()
     energies = np.linalg.eigvalsh(h)
     for t, value in zip([0.5, 2.0], result.arrays["energy"], strict=True):
         weights = np.exp(-(energies - energies[0]) / t)
         assert value == pytest.approx(float(weights @ energies / weights.sum()), abs=1e-10)
+
+
+def test_the_older_section_name_temperature_still_reads(tmp_path: Path) -> None:
+    # The section shares its name with the command and the function (thermal); the old
+    # name [temperature] is read for one release, with a DeprecationWarning.
+    text = (EXAMPLES / "kerr_trimer_thermal.toml").read_text(encoding="utf-8")
+    old = text.replace("[thermal", "[temperature")
+    assert old != text
+    with pytest.warns(DeprecationWarning, match=r"\[temperature\] is now \[thermal\]"):
+        spec = fm.parse_model_text(old)
+    assert spec.thermal == fm.parse_model_text(text).thermal
+    assert spec.temperature is spec.thermal

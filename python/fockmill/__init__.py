@@ -44,7 +44,7 @@ run_sweep, SweepTable, PointResult, ResultsStore, StoreError, plot_sweep, plot_d
     Parameter sweeps (process pool, any Executor, Dask), resumable SQLite results, plots.
 run_quench, run_spectrum, run_thermal, WorkflowResult, read_workflow_results,
 write_workflow_results, plot_workflow
-    The ``[quench]``, ``[spectrum]`` and ``[temperature]`` sections of a model file:
+    The ``[quench]``, ``[spectrum]`` and ``[thermal]`` sections of a model file:
     run them, store and read their results files, draw them.
 """
 

@@ -51,7 +51,7 @@ _DESCRIPTION = """\
 Ground states, gaps and observables of coupled bosonic modes described by a TOML
 model file: solve one point, run a resumable parameter sweep into an SQLite results
 file, then show or plot the results; 'quench', 'spectrum' and 'thermal' run a model
-file's dynamics, spectrum and temperature sections. 'fockmill demo' runs a bundled
+file's [quench], [spectrum] and [thermal] sections. 'fockmill demo' runs a bundled
 invented example.
 """
 

@@ -41,10 +41,10 @@ COMMANDS: dict[str, tuple[str, str, str]] = {
         "write RESULTS.sqlite and print the strongest poles.",
     ),
     "thermal": (
-        "temperature",
-        "thermal averages on the model file's [temperature] grid",
+        "thermal",
+        "thermal averages on the model file's [thermal] grid",
         "Compute energy, heat capacity, populations and observables of MODEL.toml at "
-        "every temperature of its [temperature] grid (exact or FTLM), write "
+        "every temperature of its [thermal] grid (exact or FTLM), write "
         "RESULTS.sqlite and print a short table.",
     ),
 }

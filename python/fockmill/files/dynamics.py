@@ -1,5 +1,5 @@
 """Model-file sections for dynamics, spectra and temperature: ``[quench]``,
-``[spectrum]`` and ``[temperature]``.
+``[spectrum]`` and ``[thermal]``.
 
 Each section is read and checked completely before anything is computed; every mistake
 raises :class:`~fockmill.exceptions.ModelFileError` with the key path. The user-facing
@@ -21,10 +21,10 @@ description of every key is in ``docs/model-files.md``; in short:
     ``reference_energy`` (default: the ground energy), ``poles`` (also keep poles and
     weights, default true), ``tol`` (default 1e-6), ``max_steps``. The state is the
     ground state of the model at ``[parameters]``.
-``[temperature]``
+``[thermal]``
     ``temperatures`` (array or ``{start, stop, num, spacing}``, all > 0), ``method``
     (``"auto"``, ``"exact"``, ``"ftlm"``), ``samples``, ``seed``, ``steps`` (FTLM),
-    ``populations`` (default true); ``[temperature.observables]`` as for a quench.
+    ``populations`` (default true); ``[thermal.observables]`` as for a quench.
 """
 
 from __future__ import annotations
@@ -58,7 +58,7 @@ __all__ = [
     "parse_dynamics_sections",
 ]
 
-SECTIONS: tuple[str, ...] = ("quench", "spectrum", "temperature")
+SECTIONS: tuple[str, ...] = ("quench", "spectrum", "thermal")
 """Top-level tables this module reads."""
 
 INITIAL_STATES: tuple[str, ...] = ("fock", "coherent", "ground")
@@ -204,7 +204,7 @@ class SpectrumSpec:
 
 @dataclass(frozen=True)
 class TemperatureSpec:
-    """``[temperature]``: canonical averages on a grid of temperatures (k_B = 1).
+    """``[thermal]``: canonical averages on a grid of temperatures (k_B = 1).
 
     Attributes
     ----------
@@ -514,12 +514,12 @@ def _spectrum(reader: Reader, value: object, model: Model) -> SpectrumSpec:
     )
 
 
-# -- [temperature] ------------------------------------------------------------------------
+# -- [thermal] ------------------------------------------------------------------------
 
 
 def _temperature(reader: Reader, value: object, model: Model) -> TemperatureSpec:
 
-    path = "temperature"
+    path = "thermal"
     table = reader.table(value, path)
     reader.check_keys(
         table,
@@ -570,15 +570,15 @@ def _temperature(reader: Reader, value: object, model: Model) -> TemperatureSpec
 def parse_dynamics_sections(
     reader: Reader, document: Mapping[str, Any], model: Model
 ) -> dict[str, Any]:
-    """The ``quench``, ``spectrum`` and ``temperature`` specs present in ``document``.
+    """The ``quench``, ``spectrum`` and ``thermal`` specs present in ``document``.
 
     Returns
     -------
     dict
         ``{"quench": QuenchSpec | None, "spectrum": SpectrumSpec | None,
-        "temperature": TemperatureSpec | None}``.
+        "thermal": TemperatureSpec | None}``.
     """
-    readers = {"quench": _quench, "spectrum": _spectrum, "temperature": _temperature}
+    readers = {"quench": _quench, "spectrum": _spectrum, "thermal": _temperature}
     return {
         name: (read(reader, document[name], model) if name in document else None)
         for name, read in readers.items()

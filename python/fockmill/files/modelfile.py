@@ -63,7 +63,7 @@ Schema (every table but ``[model]`` is optional; unknown keys are errors)
     ``method`` (``"auto"``, ``"dense"``, ``"csr"``, ``"operator"``, ``"lanczos"``;
     default ``"auto"``), ``tol`` (default 1e-9), ``seed`` (default 0),
     ``max_iterations`` (matrix-vector products; default: the solver's own), ``threads``.
-``[quench]``, ``[spectrum]``, ``[temperature]``
+``[quench]``, ``[spectrum]``, ``[thermal]``
     Dynamics, spectra and thermal curves; read by :mod:`fockmill.files.dynamics`.
 """
 
@@ -166,9 +166,10 @@ class ModelFile:
         listed mode (the listed ``weights`` or the drawn disorder), in ``modes`` order.
     descriptions : dict of str to str
         ``[terms.NAME] description``: what a user's parameter is, for axis labels.
-    quench, spectrum, temperature : QuenchSpec, SpectrumSpec, TemperatureSpec or None
-        The ``[quench]``, ``[spectrum]`` and ``[temperature]`` sections (see
-        :mod:`fockmill.files.dynamics`); None when absent.
+    quench, spectrum, thermal : QuenchSpec, SpectrumSpec, TemperatureSpec or None
+        The ``[quench]``, ``[spectrum]`` and ``[thermal]`` sections (see
+        :mod:`fockmill.files.dynamics`); None when absent. (``[thermal]`` was called
+        ``[thermal]`` before; the attribute ``temperature`` still returns it.)
     symmetry : SectorChoice or None
         ``[symmetry]``: the sector(s) to solve in, None for the whole space.
     """
@@ -184,14 +185,19 @@ class ModelFile:
     units: dict[str, str] = field(default_factory=dict)
     mode_weights: dict[str, tuple[float, ...]] = field(default_factory=dict)
     descriptions: dict[str, str] = field(default_factory=dict)
-    # [quench], [spectrum], [temperature] (see fockmill.files.dynamics); None if absent.
+    # [quench], [spectrum], [thermal] (see fockmill.files.dynamics); None if absent.
     quench: Any = None
     spectrum: Any = None
-    temperature: Any = None
+    thermal: Any = None
     symmetry: SectorChoice | None = None
 
     def __hash__(self) -> int:
         return hash(self.text_hash)
+
+    @property
+    def temperature(self) -> Any:
+        """Older name of :attr:`thermal` (the ``[thermal]`` section)."""
+        return self.thermal
 
     @property
     def record(self) -> tuple[str, ...]:
@@ -812,10 +818,23 @@ def _parse(text: str, source: str, path: str | None) -> ModelFile:
         "solver",
         "quench",
         "spectrum",
+        "thermal",
         "temperature",
         "symmetry",
     ]
     reader.check_keys(document, "", allowed)
+    if "temperature" in document:
+        if "thermal" in document:
+            reader.fail("temperature", "give [thermal] only ([temperature] is its older name)")
+        warnings.warn(
+            f"{reader.source}: the section ["
+            "temperature] is now [thermal], the name of the "
+            "command and of fm.thermal; the old name works for one release",
+            DeprecationWarning,
+            stacklevel=3,
+        )
+        document = {**document, "thermal": document["temperature"]}
+        del document["temperature"]
     if "schema" in document:
         version = document["schema"]
         if isinstance(version, bool) or version != SCHEMA_VERSION:

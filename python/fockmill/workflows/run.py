@@ -1,4 +1,4 @@
-"""Run the ``[quench]``, ``[spectrum]`` and ``[temperature]`` sections of a model file.
+"""Run the ``[quench]``, ``[spectrum]`` and ``[thermal]`` sections of a model file.
 
 Each runner takes a :class:`~fockmill.ModelFile`, computes with :func:`fockmill.evolve`,
 :func:`fockmill.spectral_function` / :func:`fockmill.spectral_poles` or
@@ -315,12 +315,12 @@ def run_thermal(
     threads: int | None = None,
     memory_limit: int | None = None,
 ) -> WorkflowResult:
-    """Canonical averages on the ``[temperature]`` grid (k_B = 1).
+    """Canonical averages on the ``[thermal]`` grid (k_B = 1).
 
     Parameters
     ----------
     model_file : ModelFile
-        With a ``[temperature]`` section.
+        With a ``[thermal]`` section.
     overrides, threads, memory_limit
         As for :func:`run_quench`.
 
@@ -336,13 +336,13 @@ def run_thermal(
     Raises
     ------
     ValueError
-        No ``[temperature]`` section; the errors of :func:`fockmill.thermal`.
+        No ``[thermal]`` section; the errors of :func:`fockmill.thermal`.
     """
     model_file = _model_file(model_file)
     from fockmill.dynamics.thermal import thermal
 
     started = time.perf_counter()
-    spec = _section(model_file, "temperature")
+    spec = _section(model_file, "thermal")
     model = model_file.model
     space = model.space
     values = _values(model_file, overrides)
