@@ -90,6 +90,7 @@ def test_ring_kerr_crossover_example() -> None:
         "seed": 0,
         "max_iterations": None,
         "threads": None,
+        "cutoff_warning": 1e-6,
     }
     assert spec.entropy_modes == ()
 
@@ -159,6 +160,7 @@ def test_defaults_without_optional_tables() -> None:
         "seed": 0,
         "max_iterations": None,
         "threads": None,
+        "cutoff_warning": 1e-6,
     }
     assert spec.model == bose_hubbard([(0, 1), (1, 2)], total=2)
 
@@ -676,3 +678,16 @@ def test_solver_settings_follow_the_library_rules() -> None:
         fm.ground_state(h, space, tol=1.0)
     with pytest.raises(ModelFileError, match="between 0 and 1"):
         parse_model_text(BASE + "[solver]\ntol = 1.0\n")
+
+
+def test_cutoff_warning_has_a_file_form() -> None:
+    # The advice of the CutoffWarning names a form that exists in files too.
+    assert (
+        parse_model_text(BASE + "[solver]\ncutoff_warning = false\n").solver["cutoff_warning"]
+        is None
+    )
+    assert parse_model_text(BASE + "[solver]\ncutoff_warning = 1e-3\n").solver[
+        "cutoff_warning"
+    ] == pytest.approx(1e-3)
+    with pytest.raises(ModelFileError, match=r"solver\.cutoff_warning"):
+        parse_model_text(BASE + "[solver]\ncutoff_warning = 2.0\n")

@@ -240,3 +240,14 @@ def test_non_hermitian_input_is_refused() -> None:
     space = fm.FockSpace(modes=2, cutoff=2, total=2)
     with pytest.raises(NotHermitianError, match="adjoint"):
         fm.ground_state(fm.raising(0) * fm.lowering(1), space)
+
+
+def test_cutoff_warning_counts_the_modes_it_does_not_name() -> None:
+    # Eight driven oscillators, cutoff 2: a displaced vacuum with |α|² = 4 per mode puts
+    # most weight near n = 4, far above the top kept level (common practice, no source).
+    modes = 8
+    space = fm.FockSpace(modes=modes, cutoff=2)
+    h = sum(fm.number(i) - 2.0 * (fm.raising(i) + fm.lowering(i)) for i in range(modes))
+    with pytest.warns(fm.CutoffWarning, match=r"… and 2 more modes") as caught:
+        fm.ground_state(h, space, method="lanczos")
+    assert "cutoff_warning = false" in str(caught[0].message)

@@ -13,7 +13,7 @@ import numpy as np
 import numpy.typing as npt
 
 from fockmill.algebra.expressions import LadderExpr
-from fockmill.exceptions import CutoffWarning, NotHermitianError, SizeLimitError
+from fockmill.exceptions import NotHermitianError, SizeLimitError
 from fockmill.settings.checks import check_memory_limit, check_threads
 from fockmill.settings.threads import blas_threads
 
@@ -283,25 +283,9 @@ def warn_top_weights(
     space: Any, weights: npt.NDArray[Any], threshold: float | None, what: str
 ) -> None:
     """CutoffWarning when a truncating cutoff (>= 2) carries more than ``threshold``."""
-    import warnings
+    from fockmill.observables.truncation import warn_cutoff_weights
 
-    if threshold is None or not hasattr(space, "binding_cutoffs"):
-        return
-    binding = space.binding_cutoffs()
-    flagged = [
-        (i, float(w))
-        for i, w in enumerate(weights)
-        if binding[i] and space.cutoffs[i] >= 2 and np.isfinite(w) and w > threshold
-    ]
-    if flagged:
-        detail = ", ".join(f"mode {i}: {w:.2e}" for i, w in flagged[:6])
-        warnings.warn(
-            f"{what} has weight on the highest kept level ({detail}); the cutoff may be too "
-            "low. Raise it (see fm.converge_cutoffs) or pass cutoff_warning=None if the "
-            "truncation is intended",
-            CutoffWarning,
-            stacklevel=3,
-        )
+    warn_cutoff_weights(space, weights, threshold, what, stacklevel=3)
 
 
 def as_float_array(values: Sequence[object] | npt.ArrayLike, name: str) -> npt.NDArray[np.float64]:

@@ -573,9 +573,15 @@ def _solver(reader: Reader, value: object) -> dict[str, object]:
     """The ``[solver]`` table: read with key paths, checked by :class:`SolverSettings`
     (the same rules as the library's keywords), returned as the solvers' keywords."""
     table = reader.table(value, "solver")
-    keys = ["method", "tol", "seed", "max_iterations", "threads"]
+    keys = ["method", "tol", "seed", "max_iterations", "threads", "cutoff_warning"]
     reader.check_keys(table, "solver", keys)
     read: dict[str, Any] = {}
+    if "cutoff_warning" in table:
+        raw = table["cutoff_warning"]
+        # false turns the warning off (TOML has no null); a number is the threshold.
+        read["cutoff_warning"] = (
+            None if raw is False else reader.number(raw, "solver.cutoff_warning")
+        )
     if "tol" in table:
         read["tol"] = reader.number(table["tol"], "solver.tol")
     if "method" in table:

@@ -3,7 +3,6 @@
 from __future__ import annotations
 
 import time
-import warnings
 from dataclasses import dataclass
 from typing import TYPE_CHECKING, Any, Literal
 
@@ -15,11 +14,11 @@ from scipy.sparse.linalg import LinearOperator
 from fockmill.algebra.expressions import LadderExpr
 from fockmill.exceptions import (
     ConvergenceError,
-    CutoffWarning,
     NotHermitianError,
     SizeLimitError,
 )
 from fockmill.observables.observe import check_vector, top_level_weights
+from fockmill.observables.truncation import warn_cutoff_weights
 from fockmill.problem.memory import MemoryEstimate, format_bytes
 from fockmill.settings.checks import (
     METHODS,
@@ -608,21 +607,7 @@ def _warn_cutoff(space: Any, vector: npt.NDArray[Any], threshold: float | None) 
     if threshold is None or not hasattr(space, "binding_cutoffs"):
         return
     weights = top_level_weights(space, vector)
-    binding = space.binding_cutoffs()
-    flagged = [
-        (i, float(w))
-        for i, w in enumerate(weights)
-        if binding[i] and space.cutoffs[i] >= 2 and w > threshold
-    ]
-    if flagged:
-        detail = ", ".join(f"mode {i}: {w:.2e}" for i, w in flagged[:6])
-        warnings.warn(
-            f"the ground state has weight on the highest kept level ({detail}); the "
-            "cutoff may be too low. Raise it (see fm.converge_cutoffs) or pass "
-            "cutoff_warning=None if the truncation is intended",
-            CutoffWarning,
-            stacklevel=4,
-        )
+    warn_cutoff_weights(space, weights, threshold, "the ground state", stacklevel=4)
 
 
 def solve_ground(

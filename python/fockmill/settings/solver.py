@@ -67,6 +67,9 @@ class SolverSettings:
         Bytes a solve may plan to use (None: the memory available).
     store_matrix : bool or None
         Lanczos on a stored matrix (True), matrix-free (False) or chosen (None).
+    cutoff_warning : float or None
+        Weight on a truncating cutoff's top level above which a ``CutoffWarning`` is
+        raised; None turns the warning off (``cutoff_warning = false`` in files).
 
     Raises
     ------
@@ -88,6 +91,7 @@ class SolverSettings:
     threads: int | None = None
     memory_limit: int | None = None
     store_matrix: bool | None = None
+    cutoff_warning: float | None = 1e-6
 
     def __post_init__(self) -> None:
         object.__setattr__(self, "method", check_method(self.method))
@@ -96,6 +100,15 @@ class SolverSettings:
         object.__setattr__(self, "seed", check_seed(self.seed))
         object.__setattr__(self, "threads", check_threads(self.threads))
         object.__setattr__(self, "memory_limit", check_memory_limit(self.memory_limit))
+        if self.cutoff_warning is not None and (
+            isinstance(self.cutoff_warning, bool)
+            or not isinstance(self.cutoff_warning, int | float)
+            or not 0 <= self.cutoff_warning <= 1
+        ):
+            raise ValueError(
+                "cutoff_warning must be a weight between 0 and 1 such as 1e-6, or None to "
+                f"turn the warning off; got {self.cutoff_warning!r}"
+            )
         if self.store_matrix not in (None, True, False):
             raise TypeError(
                 f"store_matrix must be True, False or None (chosen); got {self.store_matrix!r}"

@@ -179,6 +179,7 @@ def run_quench(
             times=np.asarray(spec.times),
             observables=observables,
             tol=spec.tol,
+            cutoff_warning=solver["cutoff_warning"],
         )
     energy = np.asarray(ev.values["#energy"], dtype=np.float64)
     rest = {k: v for k, v in ev.values.items() if k != "#energy"}
@@ -360,6 +361,7 @@ def run_thermal(
             temperatures,
             observables=observables,
             method=spec.method,
+            cutoff_warning=solver["cutoff_warning"],
             # The exact method samples nothing: the file's sampling keys are for FTLM.
             **(
                 {}
