@@ -719,8 +719,12 @@ def _open_results(path: str) -> ResultsStore:
 
 
 def _command_show(args: argparse.Namespace, out: IO[str]) -> int:
+    from fockmill.store.claims import describe_leftover
     from fockmill.store.workflows import is_workflow_file
 
+    leftover = describe_leftover(args.results) if Path(args.results).is_file() else None
+    if leftover is not None:
+        raise UsageError(leftover)
     if is_workflow_file(args.results):
         return _show_workflow(args, out)
     with _open_results(args.results) as store:

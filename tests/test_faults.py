@@ -1,0 +1,206 @@
+"""Faults around results files: one writer per file, claimed before any work, and the
+temporaries of a killed writer cleaned up by the next run (never while their writer
+lives). The standard is the project rule that a crash must leave nothing that blocks
+or confuses a later run (common practice, no source)."""
+
+from __future__ import annotations
+
+import os
+import re
+import signal
+import subprocess
+import sys
+import textwrap
+from pathlib import Path
+
+import fockmill.cli.commands as cli
+import pytest
+from fockmill.exceptions import StoreError
+from fockmill.store.claims import claim, claim_path, describe_leftover
+from fockmill.store.workflows import is_workflow_file
+from test_cli import PAIR_TOML
+from test_workflows import PAIR_QUENCH
+
+# A writer that claims a results file, starts its temporary like ResultsStore.create
+# does, says so, and then waits to be killed.
+HOLDER = textwrap.dedent(
+    """
+    import sqlite3, sys, time
+    from pathlib import Path
+    from fockmill.store.claims import claim, temporary_path
+
+    target = Path(sys.argv[1])
+    held = claim(target)
+    temporary = temporary_path(target)
+    connection = sqlite3.connect(str(temporary), isolation_level=None)
+    connection.execute("BEGIN IMMEDIATE")
+    connection.execute("CREATE TABLE meta (key TEXT, value TEXT)")
+    connection.execute("INSERT INTO meta VALUES ('format', 'unfinished')")
+    print(temporary, flush=True)
+    time.sleep(600)
+    """
+)
+
+
+def start_holder(target: Path) -> tuple[subprocess.Popen[str], Path]:
+    process = subprocess.Popen(
+        [sys.executable, "-c", HOLDER, str(target)],
+        stdout=subprocess.PIPE,
+        stderr=subprocess.PIPE,
+        text=True,
+    )
+    assert process.stdout is not None
+    line = process.stdout.readline().strip()
+    assert line, process.stderr.read() if process.stderr else "no output"
+    return process, Path(line)
+
+
+def stop(process: subprocess.Popen[str]) -> None:
+    if process.poll() is None:
+        os.kill(process.pid, signal.SIGKILL)
+    process.communicate()  # waits and closes the pipes
+
+
+def leftovers(directory: Path, name: str) -> list[Path]:
+    return sorted(
+        p for p in directory.iterdir() if p.name.startswith(f".{name}.") and ".creating" in p.name
+    )
+
+
+def main(argv: list[str], capsys: pytest.CaptureFixture[str]) -> tuple[int, str, str]:
+    code = cli.main(argv)
+    captured = capsys.readouterr()
+    return code, captured.out, captured.err
+
+
+# -- leftovers of a killed writer -------------------------------------------------------------
+
+
+def test_rerun_removes_the_temporaries_of_a_killed_quench(
+    tmp_path: Path, capsys: pytest.CaptureFixture[str]
+) -> None:
+    model = tmp_path / "pair.toml"
+    model.write_text(PAIR_QUENCH)
+    out = tmp_path / "q.sqlite"
+    process, temporary = start_holder(out)
+    stop(process)  # killed in the first moments of writing: the temporary stays
+    left = leftovers(tmp_path, out.name)
+    assert temporary in left and any(p.name.endswith("-journal") for p in left), left
+
+    # show says what the leftover is (and that nobody is writing it).
+    code, _, err = main(["show", str(temporary)], capsys)
+    assert code == 2
+    assert re.search(rf"temporary file left by process {process.pid}", err), err
+    assert "holds no results" in err and "q.sqlite" in err
+
+    # The same command again cleans up and writes the file.
+    code, _, err = main(["quench", str(model), "--out", str(out)], capsys)
+    assert code == 0, err
+    assert is_workflow_file(out)
+    assert leftovers(tmp_path, out.name) == []
+    assert not claim_path(out).exists()
+
+
+def test_rerun_removes_the_temporaries_of_a_killed_sweep(
+    tmp_path: Path, capsys: pytest.CaptureFixture[str]
+) -> None:
+    model = tmp_path / "pair.toml"
+    model.write_text(PAIR_TOML)
+    out = tmp_path / "r.sqlite"
+    process, _ = start_holder(out)
+    stop(process)
+    assert leftovers(tmp_path, out.name)
+    code, _, err = main(
+        ["sweep", str(model), "--out", str(out), "--workers", "1", "--no-progress"], capsys
+    )
+    assert code == 0, err
+    assert leftovers(tmp_path, out.name) == []
+
+
+def test_a_live_writers_temporaries_are_left_alone(
+    tmp_path: Path, capsys: pytest.CaptureFixture[str]
+) -> None:
+    model = tmp_path / "pair.toml"
+    model.write_text(PAIR_QUENCH)
+    out = tmp_path / "q.sqlite"
+    process, temporary = start_holder(out)
+    try:
+        code, _, err = main(["quench", str(model), "--out", str(out)], capsys)
+        assert code == 2
+        assert temporary.exists()  # not removed under a live writer
+        code, _, err = main(["show", str(temporary)], capsys)
+        assert code == 2
+        assert f"being written now by fockmill process {process.pid}" in err, err
+        assert describe_leftover(claim_path(out)) is not None
+    finally:
+        stop(process)
+
+
+# -- two writers ----------------------------------------------------------------------------
+
+
+@pytest.mark.parametrize("command", ["quench", "sweep"])
+def test_second_writer_stops_at_once_naming_the_first(
+    command: str, tmp_path: Path, capsys: pytest.CaptureFixture[str]
+) -> None:
+    model = tmp_path / "pair.toml"
+    model.write_text(PAIR_QUENCH if command == "quench" else PAIR_TOML)
+    out = tmp_path / "same.sqlite"
+    process, _ = start_holder(out)
+    try:
+        argv = [command, str(model), "--out", str(out)]
+        if command == "sweep":
+            argv += ["--workers", "1", "--no-progress"]
+        code, stdout, err = main(argv, capsys)
+        assert code == 2
+        assert stdout == ""
+        lines = err.strip().splitlines()
+        assert len(lines) == 1, err
+        assert re.search(r"being written by another fockmill process \d+", lines[0]), err
+        assert str(claim_path(out)) in lines[0]  # the other writer's claim file
+        assert not out.exists()
+    finally:
+        stop(process)
+
+
+def test_workflow_claims_before_computing(
+    tmp_path: Path, capsys: pytest.CaptureFixture[str], monkeypatch: pytest.MonkeyPatch
+) -> None:
+    """The second workflow writer must stop before its computation starts."""
+    import fockmill.workflows.run as runs
+
+    started: list[str] = []
+
+    def spy(*args: object, **kwargs: object) -> object:
+        started.append("quench")
+        raise AssertionError("computed although the file was claimed")
+
+    monkeypatch.setattr(runs, "run_quench", spy)
+    model = tmp_path / "pair.toml"
+    model.write_text(PAIR_QUENCH)
+    out = tmp_path / "same.sqlite"
+    with claim(out):
+        code, _, err = main(["quench", str(model), "--out", str(out)], capsys)
+    assert code == 2 and started == [], err
+
+
+def test_claim_is_released_and_reusable(tmp_path: Path) -> None:
+    out = tmp_path / "x.sqlite"
+    with claim(out) as held:
+        with pytest.raises(StoreError, match=r"claim file"):
+            claim(out)
+        assert held.path.exists()
+    assert not held.path.exists()
+    with claim(out):
+        pass
+
+
+def test_claim_left_by_a_killed_process_is_taken_over(tmp_path: Path) -> None:
+    out = tmp_path / "x.sqlite"
+    process, _ = start_holder(out)
+    stop(process)
+    assert claim_path(out).exists()  # the file stays, the lock went with the process
+    text = describe_leftover(claim_path(out))
+    assert text is not None and "nobody holds it now" in text
+    with claim(out) as held:
+        assert held.removed  # the killed writer's temporary and journal
