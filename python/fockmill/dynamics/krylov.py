@@ -133,7 +133,9 @@ def hermitian_map(
 def check_state(space: Any, psi: object, name: str = "psi", tol: float = 1e-8) -> Any:
     """A normalised state of the space as a contiguous float64/complex128 array."""
     from fockmill.observables.observe import check_vector
+    from fockmill.spaces.checks import check_not_empty
 
+    check_not_empty(space, f"a state {name}")
     v = check_vector(space, psi, name)  # type: ignore[arg-type]
     norm = float(np.linalg.norm(v))
     if abs(norm - 1.0) > tol:
@@ -284,6 +286,22 @@ def warn_top_weights(
             CutoffWarning,
             stacklevel=3,
         )
+
+
+def as_float_grid(values: object, name: str) -> npt.NDArray[np.float64]:
+    """A non-empty float array of finite values of any shape (a scalar becomes shape
+    ``(1,)``), or an error naming ``name``."""
+    try:
+        arr = np.asarray(values, dtype=np.float64)
+    except (TypeError, ValueError):
+        raise TypeError(f"{name} must be real numbers (an array of floats); got {values!r}") from None
+    if arr.ndim == 0:
+        arr = arr.reshape(1)
+    if arr.size == 0:
+        raise ValueError(f"{name} must hold at least one number; got shape {arr.shape}")
+    if not np.all(np.isfinite(arr)):
+        raise ValueError(f"{name} contains NaN or inf; give finite numbers")
+    return arr
 
 
 def as_float_array(values: Sequence[object] | npt.ArrayLike, name: str) -> npt.NDArray[np.float64]:

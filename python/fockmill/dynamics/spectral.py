@@ -15,6 +15,7 @@ from fockmill.algebra.expressions import LadderExpr, as_expr
 from fockmill.dynamics.krylov import (
     MEMORY_BUDGET,
     as_float_array,
+    as_float_grid,
     check_common,
     check_hermitian,
     check_positive,
@@ -213,7 +214,7 @@ def spectral_function(
     eta = check_positive(eta, "eta", "0.05")
     tol = check_positive(tol, "tol", "1e-6")
     steps_cap = _check_steps(max_steps)
-    w = np.asarray(omegas, dtype=np.float64) if np.ndim(omegas) else np.asarray([omegas], float)
+    w = as_float_grid(omegas, "omegas")
     flat = as_float_array(w.reshape(-1), "omegas")
     e, tgt, phi, ref = _start(H, space, psi, A, target, reference_energy, threads)
     norm_sq = float(np.vdot(phi, phi).real)

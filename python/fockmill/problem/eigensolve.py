@@ -416,6 +416,10 @@ def _validate(
         check_vector(problem.space, v0, "v0")
     if isinstance(k, bool) or not isinstance(k, int | np.integer):
         raise TypeError(f"k must be an integer; got {k!r}")
+    if problem.dim == 0:
+        from fockmill.spaces.checks import check_not_empty
+
+        check_not_empty(problem.space, "an eigenvalue problem")
     if k < 1 or k > problem.dim:
         raise ValueError(f"k must be between 1 and the space's dimension {problem.dim}; got {k}")
     if not problem.is_square:

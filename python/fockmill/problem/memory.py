@@ -14,6 +14,7 @@ __all__ = [
     "available_memory",
     "estimate_native",
     "format_bytes",
+    "format_gib",
 ]
 
 _INT32_MAX = np.iinfo(np.int32).max
@@ -25,6 +26,17 @@ def format_bytes(n: float) -> str:
         if abs(n) >= size:
             return f"{n / size:.2f} {unit}"
     return f"{int(n)} B"
+
+
+def format_gib(n: float) -> str:
+    """``n`` bytes in GiB, the one unit of every size-limit message, with enough digits
+    to tell two nearby sizes apart (``"0.863 GiB"``, ``"1.5e-05 GiB"``)."""
+    gib = n / 2**30
+    if gib >= 100:
+        return f"{gib:,.0f} GiB"
+    if gib >= 0.01:
+        return f"{gib:.3f} GiB"
+    return f"{gib:.2g} GiB"
 
 
 #: Limits at or above this mean "no limit" (cgroup v1 reports 2**63 rounded to a page).
