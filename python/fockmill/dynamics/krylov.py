@@ -294,7 +294,9 @@ def as_float_grid(values: object, name: str) -> npt.NDArray[np.float64]:
     try:
         arr = np.asarray(values, dtype=np.float64)
     except (TypeError, ValueError):
-        raise TypeError(f"{name} must be real numbers (an array of floats); got {values!r}") from None
+        raise TypeError(
+            f"{name} must be real numbers (an array of floats); got {values!r}"
+        ) from None
     if arr.ndim == 0:
         arr = arr.reshape(1)
     if arr.size == 0:

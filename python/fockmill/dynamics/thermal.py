@@ -434,7 +434,6 @@ def thermal(
         raise ValueError(f"seed must be a non-negative integer; got {seed!r}")
     check_hermitian(e)
     from fockmill.problem.compile import compile_operator
-
     from fockmill.spaces.checks import check_not_empty
 
     check_not_empty(space, "a thermal average")
