@@ -204,3 +204,31 @@ def test_claim_left_by_a_killed_process_is_taken_over(tmp_path: Path) -> None:
     assert text is not None and "nobody holds it now" in text
     with claim(out) as held:
         assert held.removed  # the killed writer's temporary and journal
+
+
+# -- a tolerance that cannot be met -----------------------------------------------------------
+
+
+def test_evolve_warns_when_tol_is_below_round_off() -> None:
+    """tol = 1e-300 cannot be met in double precision (machine epsilon 2.2e-16, IEEE 754;
+    common practice, no source): evolve says so, and stays quiet at a reachable tol."""
+    import warnings
+
+    import fockmill as fm
+    import numpy as np
+    from fockmill.exceptions import AccuracyWarning
+
+    h = fm.LadderExpr()
+    for i in range(6):
+        j = (i + 1) % 6
+        h = h - (fm.raising(i) * fm.lowering(j) + fm.raising(j) * fm.lowering(i))
+        h = h + 1.5 * fm.number(i) * (fm.number(i) - 1)
+    space = fm.FockSpace(6, 6, total=6)
+    psi = np.zeros(space.dim)
+    psi[0] = 1.0
+    with pytest.warns(AccuracyWarning, match=r"tol=1e-300 was not met; the error estimate is"):
+        ev = fm.evolve(h, space, psi, [0.0, 5.0], tol=1e-300)
+    assert ev.error_estimate > 1e-300
+    with warnings.catch_warnings():
+        warnings.simplefilter("error", AccuracyWarning)
+        fm.evolve(h, space, psi, [0.0, 5.0], tol=1e-8)

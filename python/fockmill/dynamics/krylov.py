@@ -288,6 +288,23 @@ def warn_top_weights(
         )
 
 
+def warn_tolerance_not_met(tol: float, reached: float, what: str) -> None:
+    """:class:`~fockmill.exceptions.AccuracyWarning` when an error estimate ``reached``
+    exceeds the requested ``tol`` (a tolerance below round-off cannot be met)."""
+    import warnings
+
+    from fockmill.exceptions import AccuracyWarning
+
+    if reached > tol:
+        warnings.warn(
+            f"{what}: tol={tol:.3g} was not met; the error estimate is {reached:.3g}, the "
+            "limit set by double-precision round-off. Ask for a tol above it (1e-12 or "
+            "more, say)",
+            AccuracyWarning,
+            stacklevel=3,
+        )
+
+
 def as_float_grid(values: object, name: str) -> npt.NDArray[np.float64]:
     """A non-empty float array of finite values of any shape (a scalar becomes shape
     ``(1,)``), or an error naming ``name``."""
