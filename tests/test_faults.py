@@ -232,3 +232,156 @@ def test_evolve_warns_when_tol_is_below_round_off() -> None:
     with warnings.catch_warnings():
         warnings.simplefilter("error", AccuracyWarning)
         fm.evolve(h, space, psi, [0.0, 5.0], tol=1e-8)
+
+
+# -- max_iterations counts matrix-vector products on every method -------------------------------
+
+
+@pytest.mark.parametrize("method", ["csr", "operator", "lanczos"])
+@pytest.mark.parametrize("k", [1, 2, 3])
+def test_max_iterations_bounds_the_products(method: str, k: int) -> None:
+    """The documented meaning of max_iterations (a product budget) holds for every
+    method; eigsh's own maxiter counts restarts of ~20 products each (scipy's eigsh
+    documentation), so it needs the product count enforced separately."""
+    import warnings
+
+    import fockmill as fm
+    from fockmill.exceptions import ConvergenceError
+    from test_sweep import hubbard_ring
+
+    model = hubbard_ring(sites=8, particles=8, cutoff=8)
+    h = model.hamiltonian(U=1.0)
+    for budget in (45, 240):
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")
+            try:
+                if k == 1:
+                    found = fm.ground_state(h, model.space, method=method, max_iterations=budget)
+                else:
+                    found = fm.lowest_levels(
+                        h, model.space, k=k, method=method, max_iterations=budget
+                    )
+            except ConvergenceError as exc:
+                spent = re.search(r"(\d+) products", str(exc))
+                if spent is not None:
+                    assert int(spent.group(1)) <= budget, str(exc)
+                else:
+                    assert f"max_iterations={budget} matrix-vector products" in str(exc)
+                continue
+        assert found.products <= budget, (method, k, budget, found.products)
+
+
+# -- sweeps: exit status, failures in words, show, solve = sweep -----------------------------
+
+# Invented: a ring of six sites holding six bosons at U = 1e308, where the products
+# overflow double precision.
+OVERFLOW_TOML = """\
+[model]
+kind = "bose-hubbard"
+lattice = "ring"
+sites = 6
+total = 6
+
+[parameters]
+U = 1.0
+
+[sweep.U]
+values = [1e308, 1.7e308]
+
+[record]
+quantities = ["energy", "gap"]
+levels = 2
+"""
+
+
+@pytest.mark.parametrize("method", ["csr", "operator"])
+def test_sweep_of_failing_points_exits_1_with_reasons_in_words(
+    method: str, tmp_path: Path, capsys: pytest.CaptureFixture[str]
+) -> None:
+    from fockmill.store.sweeps import ResultsStore
+
+    model = tmp_path / "huge.toml"
+    model.write_text(
+        OVERFLOW_TOML.replace("levels = 2\n", f'levels = 2\n[solver]\nmethod = "{method}"\n')
+    )
+    out = tmp_path / "huge.sqlite"
+    code, text, err = main(
+        ["sweep", str(model), "--out", str(out), "--workers", "1", "--no-progress"], capsys
+    )
+    assert code == 1, (text, err)  # failed points: status 1, distinct from bad input (2)
+    with ResultsStore.open(out) as store:
+        rows = store.rows()
+    assert rows and all(row.status != "ok" for row in rows)
+    for row in rows:
+        assert not row.message.startswith("ArpackError"), row.message
+        assert re.search(r"overflow|not finite", row.message), row.message
+
+
+def test_sweep_exits_0_when_every_point_is_ok(
+    tmp_path: Path, capsys: pytest.CaptureFixture[str]
+) -> None:
+    model = tmp_path / "pair.toml"
+    model.write_text(PAIR_TOML)
+    code, _, err = main(
+        [
+            "sweep",
+            str(model),
+            "--out",
+            str(tmp_path / "r.sqlite"),
+            "--workers",
+            "1",
+            "--no-progress",
+        ],
+        capsys,
+    )
+    assert code == 0, err
+
+
+def test_show_works_on_a_file_with_no_finished_point(
+    tmp_path: Path, capsys: pytest.CaptureFixture[str]
+) -> None:
+    from fockmill.store.sweeps import ResultsStore
+
+    out = tmp_path / "new.sqlite"
+    ResultsStore.create(out, {"model_name": "invented", "points": 5}).close()
+    code, text, err = main(["show", str(out)], capsys)
+    assert code == 0, err
+    assert "0 of 5 points finished" in text
+    assert "no point has finished yet" in text
+    for fmt in ("csv", "json"):
+        code, _, err = main(["show", str(out), "--format", fmt], capsys)
+        assert code == 0, err
+
+
+ONE_STATE_SECTOR = """\
+[model]
+kind = "bose-hubbard"
+lattice = "ring"
+sites = 4
+total = 1
+
+[parameters]
+U = 1.0
+
+[symmetry]
+translation = 1
+
+[record]
+levels = 3
+"""
+
+
+def test_solve_and_sweep_apply_the_same_checks(
+    tmp_path: Path, capsys: pytest.CaptureFixture[str]
+) -> None:
+    # Invented: one boson on a 4-site ring, momentum sector q = 1 (a single state).
+    model = tmp_path / "one.toml"
+    model.write_text(ONE_STATE_SECTOR + "\n[sweep.U]\nvalues = [1.0, 2.0]\n")
+    code, _, solve_err = main(["solve", str(model)], capsys)
+    assert code == 2
+    code, _, sweep_err = main(
+        ["sweep", str(model), "--out", str(tmp_path / "o.sqlite"), "--workers", "1"], capsys
+    )
+    assert code == 2
+    assert "levels must be between 1 and the space's dimension 1; got 3" in solve_err
+    assert solve_err == sweep_err
