@@ -89,7 +89,7 @@ def hermitian_map(
     product (parallel, in Rust, O(terms) memory); refuses with
     :class:`~fockmill.exceptions.SizeLimitError` when even the vectors do not fit.
     """
-    from fockmill.problem.memory import format_bytes
+    from fockmill.problem.memory import size_limit_message
     from fockmill.problem.problem import prepare
 
     if method not in ("auto", "csr", "operator"):
@@ -102,9 +102,14 @@ def hermitian_map(
     budget = _budget(memory_limit, estimate.available_bytes)
     if vector_bytes > budget:
         raise SizeLimitError(
-            f"{vectors} state vectors need {format_bytes(vector_bytes)} ({estimate}), more "
-            "than the memory allowed; use a smaller sector or cutoffs, fewer Krylov vectors, "
-            "or raise memory_limit"
+            size_limit_message(
+                f"keeping {vectors} state vectors",
+                vector_bytes,
+                budget,
+                "use a smaller sector or cutoffs, fewer Krylov vectors, or raise memory_limit",
+                given=memory_limit is not None,
+                details=str(estimate),
+            )
         )
     chosen = method
     if method == "auto":

@@ -144,17 +144,21 @@ def _exact_dense_bytes(space: Any, complex_h: bool) -> int:
 def _check_exact_memory(e: LadderExpr, space: Any, memory_limit: int | None) -> None:
     """Refuse full diagonalisation up front when its dense matrices do not fit."""
     from fockmill.exceptions import SizeLimitError
-    from fockmill.problem.memory import available_memory, format_gib
+    from fockmill.problem.memory import available_memory, size_limit_message
 
     need = _exact_dense_bytes(space, not e.is_real())
     limit = memory_limit if memory_limit is not None else available_memory()
     if limit is not None and need > limit:
-        which = "the memory limit" if memory_limit is not None else "the memory available now"
         raise SizeLimitError(
-            f"thermal method 'exact' diagonalises a dense {space.dim:,} x {space.dim:,} "
-            f"matrix and needs {format_gib(need)}, but {which} is {format_gib(limit)}; "
-            "use method='ftlm' (random-vector Lanczos, memory of a few state vectors) or a "
-            "smaller sector"
+            size_limit_message(
+                f"thermal method 'exact' (full diagonalisation of a dense {space.dim:,} x "
+                f"{space.dim:,} matrix)",
+                need,
+                limit,
+                "use method='ftlm' (random-vector Lanczos, memory of a few state vectors) "
+                "or a smaller sector",
+                given=memory_limit is not None,
+            )
         )
 
 

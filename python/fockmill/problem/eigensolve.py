@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import re
 import time
 import warnings
 from dataclasses import dataclass
@@ -20,7 +21,7 @@ from fockmill.exceptions import (
     SizeLimitError,
 )
 from fockmill.observables.observe import check_vector, top_level_weights
-from fockmill.problem.memory import MemoryEstimate, format_bytes
+from fockmill.problem.memory import MemoryEstimate, size_limit_message
 from fockmill.settings.checks import (
     METHODS,
     check_max_iterations,
@@ -188,8 +189,14 @@ def choose_method(
     if krylov <= budget:
         return "operator"
     raise SizeLimitError(
-        f"no solver fits in memory: {estimate}; even the four-vector Lanczos solver needs "
-        f"{format_bytes(estimate.krylov_bytes(5))}. Use a smaller sector or cutoffs"
+        size_limit_message(
+            "no solver fits in memory: even the four-vector Lanczos solver",
+            estimate.krylov_bytes(5),
+            budget,
+            "use a smaller sector or cutoffs",
+            given=memory_limit is not None,
+            details=str(estimate),
+        )
     )
 
 
@@ -206,9 +213,14 @@ def _check_fits(estimate: MemoryEstimate, method: str, k: int, memory_limit: int
     }[method]
     if vectors > limit:
         raise SizeLimitError(
-            f"method={method!r} needs about {format_bytes(vectors)} for its vectors alone "
-            f"({estimate}), more than the {format_bytes(limit)} available; use a smaller "
-            "sector or cutoffs, or method='lanczos' (four vectors)"
+            size_limit_message(
+                f"method={method!r} (its vectors alone)",
+                vectors,
+                limit,
+                "use a smaller sector or cutoffs, or method='lanczos' (four vectors)",
+                given=memory_limit is not None,
+                details=str(estimate),
+            )
         )
 
 
@@ -327,7 +339,8 @@ def _eigsh_levels(
             "or tol, or pass v0"
         ) from None
     except sla.ArpackError as exc:
-        code = getattr(exc, "info", "?")
+        found = re.search(r"error (-?\d+)", str(exc))
+        code = found.group(1) if found else "?"
         raise ConvergenceError(
             f"the eigensolver broke down: eigsh ({method}) could not build its Krylov basis "
             f"(ARPACK error {code}), which happens when matrix elements are so large that "

@@ -15,6 +15,7 @@ __all__ = [
     "estimate_native",
     "format_bytes",
     "format_gib",
+    "size_limit_message",
 ]
 
 _INT32_MAX = np.iinfo(np.int32).max
@@ -37,6 +38,19 @@ def format_gib(n: float) -> str:
     if gib >= 0.01:
         return f"{gib:.3f} GiB"
     return f"{gib:.2g} GiB"
+
+
+def size_limit_message(
+    what: str, need: float, limit: float, advice: str, *, given: bool, details: str = ""
+) -> str:
+    """The one wording of every size refusal: a sentence with both sizes in GiB.
+
+    ``given`` says whether ``limit`` is the caller's ``memory_limit`` (else it is the
+    memory available now, or the planning budget taken from it).
+    """
+    which = "the memory limit" if given else "the memory available now"
+    text = f"{what} needs {format_gib(need)} but {which} is {format_gib(limit)}; {advice}"
+    return f"{text} ({details})" if details else text
 
 
 #: Limits at or above this mean "no limit" (cgroup v1 reports 2**63 rounded to a page).
