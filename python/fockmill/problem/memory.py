@@ -91,14 +91,17 @@ def _cgroup_dir_room(directory: Path) -> int | None:
     return max(limit - max(usage - (cache or 0), 0), 0)
 
 
-def _cgroup_room(root: Path = Path("/sys/fs/cgroup")) -> int | None:
+def _cgroup_room(
+    root: Path = Path("/sys/fs/cgroup"), membership: Path = Path("/proc/self/cgroup")
+) -> int | None:
     """Smallest room under the memory limits of this process's cgroups: its own
     directory and every ancestor (limits are hierarchical), for cgroup v2 (``0::path``)
     and v1 (the ``memory`` controller), plus the mount roots (inside a cgroup namespace
-    the root is the process's own cgroup)."""
+    the root is the process's own cgroup). ``root`` and ``membership`` (the process's
+    cgroup list) are parameters so that tests can pass a fake tree."""
     directories = [root, root / "memory"]
     try:
-        lines = Path("/proc/self/cgroup").read_text().splitlines()
+        lines = membership.read_text().splitlines()
     except OSError:
         lines = []
     for line in lines:
@@ -120,9 +123,10 @@ def _cgroup_room(root: Path = Path("/sys/fs/cgroup")) -> int | None:
     return min(rooms) if rooms else None
 
 
-def _address_space_room() -> int | None:
+def _address_space_room(status: Path = Path("/proc/self/status")) -> int | None:
     """Room under the soft address-space limit (``RLIMIT_AS``, as ``ulimit -v`` and
-    batch schedulers set it): the limit minus the current ``VmSize``."""
+    batch schedulers set it): the limit minus the current ``VmSize`` (read from
+    ``status``)."""
     try:
         import resource
     except ImportError:  # not on this platform
@@ -132,7 +136,7 @@ def _address_space_room() -> int | None:
         return None
     size = 0
     try:
-        for line in Path("/proc/self/status").read_text().splitlines():
+        for line in status.read_text().splitlines():
             if line.startswith("VmSize:"):
                 size = int(line.split()[1]) * 1024
                 break
