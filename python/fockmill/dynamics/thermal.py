@@ -237,6 +237,64 @@ class _Overlaps:
         return np.asarray(self.rows, dtype=np.complex128).reshape(len(self.rows), len(self.fixed))
 
 
+#: Relative weight below which the Ritz levels above a sample's lowest are negligible.
+_NEGLIGIBLE = 1e-15
+
+
+def _lowest_level(
+    hmap: Any,
+    r: npt.NDArray[Any],
+    eps: npt.NDArray[np.float64],
+    u: npt.NDArray[np.float64],
+    t: npt.NDArray[np.float64],
+    operators: dict[str, Any],
+    masks: list[npt.NDArray[np.float64]],
+    dim: int,
+) -> tuple[npt.NDArray[np.bool_], dict[str, complex], list[float]]:
+    """Where one random vector's lowest Ritz level alone counts, its averages there.
+
+    At such temperatures the FTLM sum ``Σ_j e^{−βε_j}⟨r|ψ_j⟩⟨ψ_j|O|r⟩`` keeps only the
+    lowest level's term, whose ``⟨ψ_0|O|r⟩`` still carries every other eigenstate's
+    component of ``r``: a noisy ratio (and a wild one when ``⟨r|ψ_0⟩`` is small). The
+    symmetric form ``Σ_{ij} e^{−β(ε_i+ε_j)/2}⟨r|ψ_i⟩⟨ψ_i|O|ψ_j⟩⟨ψ_j|r⟩`` of the
+    low-temperature Lanczos method (Aichhorn, Daghofer, Evertz & von der Linden 2003,
+    Phys. Rev. B 67, 161103) keeps ``⟨g|O|g⟩`` with ``g = P_0 r`` the projection of ``r``
+    on the lowest level, which tends to the ground-state value as T → 0. ``g`` is
+    ``V f(T) e_1`` with ``f`` the indicator of the lowest cluster of Ritz values
+    (copies within rounding included), built by a second, identical Lanczos pass.
+
+    Returns the temperatures in that regime (other levels' weight below
+    ``_NEGLIGIBLE`` of the lowest level's), and ``⟨g|O|g⟩/⟨g|g⟩`` per observable and
+    per mask (empty when no temperature is in the regime).
+    """
+    first = u[0, :]
+    weight = first * first
+    gaps = eps - eps.min()
+    cluster = gaps <= _resolution(eps, dim)
+    boltz, _ = _boltzmann(np.where(cluster, 0.0, gaps), t)
+    inside = boltz[:, cluster] @ weight[cluster]
+    outside = boltz[:, ~cluster] @ weight[~cluster]
+    regime = outside <= _NEGLIGIBLE * inside
+    if not np.any(regime) or (not operators and not masks):
+        return regime, {}, []
+    coefficients = u[:, cluster] @ first[cluster]  # g = Σ_j c_j v_j
+    g = np.zeros(dim, dtype=r.dtype)
+
+    def accumulate(j: int, v: npt.NDArray[Any]) -> None:
+        nonlocal g
+        if g.dtype != v.dtype:
+            g = g.astype(np.result_type(g.dtype, v.dtype))
+        g += coefficients[j] * v
+
+    lanczos_coefficients(hmap, r, eps.size, on_vector=accumulate)
+    norm2 = float(np.vdot(g, g).real)
+    if norm2 == 0.0:
+        return np.zeros(t.size, dtype=bool), {}, []
+    values = {name: complex(np.vdot(g, op @ g)) / norm2 for name, op in operators.items()}
+    mask_values = [float(np.vdot(g, mask * g).real) / norm2 for mask in masks]
+    return regime, values, mask_values
+
+
 def _ftlm(
     e: LadderExpr,
     space: Any,
@@ -256,7 +314,7 @@ def _ftlm(
     hmap = hermitian_map(
         e,
         space,
-        vectors=4 + len(obs) + len(masks) + 1,
+        vectors=4 + len(obs) + len(masks) + 3,
         threads=threads,
         memory_limit=memory_limit,
         method=method,
@@ -266,6 +324,9 @@ def _ftlm(
     rng = np.random.default_rng(seed)
     dim = hmap.dim
     per_sample: list[tuple[Any, Any, dict[str, Any], list[Any]]] = []
+    # Per sample: the temperatures where only its lowest Ritz level counts, and there
+    # the averages in that level (the symmetric form, see _lowest_level).
+    low: list[tuple[npt.NDArray[np.bool_], dict[str, complex], list[float]]] = []
     for _ in range(samples):
         r = rng.standard_normal(dim)
         if complex_h:
@@ -287,6 +348,7 @@ def _ftlm(
         obs_terms = {name: first * (u.T @ np.asarray(d[:n])) for name, d in dots.items()}
         mask_terms = [first * (u.T @ np.asarray(d[:n])) for d in mask_dots]
         per_sample.append((eps, first * first, obs_terms, mask_terms))
+        low.append(_lowest_level(hmap, r, eps, u, t, operators, masks, dim))
     e_min = min(float(np.min(s[0])) for s in per_sample)
     resolution = _resolution(np.concatenate([s[0] for s in per_sample]), dim)
     z = np.zeros((samples, t.size))
@@ -301,10 +363,12 @@ def _ftlm(
         z[k] = boltz @ weight
         n_x[k] = (boltz * x) @ weight
         n_x2[k] = (boltz * x * x) @ weight
+        regime, ground_obs, ground_masks = low[k]
         for name, terms in obs_terms.items():
-            n_obs[name][k] = boltz @ terms
+            n_obs[name][k] = np.where(regime, z[k] * ground_obs.get(name, 0.0), boltz @ terms)
         for m, terms in enumerate(mask_terms):
-            n_mask[m, k] = (boltz @ terms).real
+            value = ground_masks[m] if ground_masks else 0.0
+            n_mask[m, k] = np.where(regime, z[k] * value, (boltz @ terms).real)
     # Reduced energies x = (ε − ε_min)/T: ⟨H⟩ = ε_min + T⟨x⟩ and C = ⟨x²⟩ − ⟨x⟩², which
     # neither divide by T² (underflow at small T) nor subtract nearly equal ⟨H²⟩, ⟨H⟩².
     mean_x, mean_x_err = _jackknife(n_x, z)
