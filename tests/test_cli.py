@@ -413,7 +413,7 @@ def test_show_lists_failed_points_and_retry_is_explicit(
     out = tmp_path / "pair.sqlite"
     argv = ["sweep", str(path), "--out", str(out), "--workers", "1", "--no-progress"]
     code, text, _ = run(argv, capsys)
-    assert code == 0
+    assert code == 1  # a failed point fails the command (issue 17); the rest is saved
     assert "1 failed" in text
     code, table, _ = run(["show", str(out)], capsys)
     assert code == 0
@@ -424,7 +424,7 @@ def test_show_lists_failed_points_and_retry_is_explicit(
         first = store.rows()
     assert first[0].energy == pytest.approx(pair_closed_form(1.0, 2.0)["energy"], abs=1e-10)
     code, text, _ = run([*argv, "--retry-failed"], capsys)
-    assert code == 0
+    assert code == 1
     with ResultsStore.open(out) as store:
         again = store.rows()
     assert again[0] == first[0]  # the finished point is kept

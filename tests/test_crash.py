@@ -140,3 +140,102 @@ def test_dask_worker_killed_mid_sweep_still_completes(tmp_path: Path) -> None:
     with ResultsStore.open(path) as store:
         assert store.integrity_ok()
         assert sorted(row.index for row in store.rows()) == list(range(len(grid)))
+
+
+# -- a killed sweep leaves no process behind ------------------------------------------------
+
+# Invented example: a ring of 8 sites sharing 8 bosons, U swept over many points so that
+# the sweep is still running when it is killed.
+LONG_SWEEP_TOML = """\
+[model]
+kind = "bose-hubbard"
+lattice = "ring"
+sites = 8
+total = 8
+
+[parameters]
+J = 1.0
+U = 2.0
+
+[sweep.U]
+start = 0.0
+stop = 10.0
+num = 4000
+
+[solver]
+method = "csr"
+"""
+
+
+def _descendants(pid: int) -> list[int]:
+    """Every live process below ``pid`` (from /proc: the ``PPid`` of each process)."""
+    children: dict[int, list[int]] = {}
+    for entry in Path("/proc").iterdir():
+        if not entry.name.isdigit():
+            continue
+        try:
+            status = (entry / "status").read_text()
+        except OSError:
+            continue
+        fields = dict(line.split(":\t", 1) for line in status.splitlines() if ":\t" in line)
+        if fields.get("State", "").startswith("Z"):
+            continue
+        children.setdefault(int(fields.get("PPid", "0")), []).append(int(entry.name))
+    found: list[int] = []
+    stack = [pid]
+    while stack:
+        for child in children.get(stack.pop(), []):
+            found.append(child)
+            stack.append(child)
+    return found
+
+
+def _alive(pid: int) -> bool:
+    """Running or sleeping (a zombie waiting to be reaped has ended)."""
+    try:
+        state = (Path("/proc") / str(pid) / "status").read_text()
+    except OSError:
+        return False
+    return "\nState:\tZ" not in state
+
+
+@pytest.mark.skipif(not Path("/proc/self/status").exists(), reason="needs /proc (Linux)")
+@pytest.mark.parametrize("sig", [signal.SIGKILL, signal.SIGTERM], ids=["SIGKILL", "SIGTERM"])
+def test_killed_sweep_leaves_no_process_behind(tmp_path: Path, sig: signal.Signals) -> None:
+    """Workers, fork server and resource tracker all end with the sweep's process.
+
+    Standard: a process's helpers must not outlive it (common practice, no source).
+    """
+    model = tmp_path / "ring.toml"
+    model.write_text(LONG_SWEEP_TOML)
+    out = tmp_path / "ring.sqlite"
+    command = ["sweep", str(model), "--out", str(out), "--workers", "2", "--no-progress"]
+    process = subprocess.Popen(
+        [sys.executable, "-m", "fockmill", *command],
+        stdout=subprocess.DEVNULL,
+        stderr=subprocess.DEVNULL,
+    )
+    helpers: list[int] = []
+    try:
+        deadline = time.monotonic() + 120
+        # Wait until both workers have finished a point: the pool is fully up.
+        while committed(out) < 4:
+            assert process.poll() is None, "the sweep ended before it could be killed"
+            assert time.monotonic() < deadline, "the sweep committed too few points"
+            time.sleep(0.02)
+        helpers = _descendants(process.pid)
+        assert len(helpers) >= 2, helpers  # at least the two workers
+        os.kill(process.pid, sig)
+        process.wait(timeout=30)
+        deadline = time.monotonic() + 20
+        while any(_alive(pid) for pid in helpers) and time.monotonic() < deadline:
+            time.sleep(0.05)
+        survivors = [pid for pid in helpers if _alive(pid)]
+        assert not survivors, f"processes outlived the killed sweep: {survivors}"
+    finally:
+        if process.poll() is None:
+            process.kill()
+            process.wait()
+        for pid in helpers:
+            if _alive(pid):
+                os.kill(pid, signal.SIGKILL)

@@ -69,6 +69,29 @@ def anharmonic_oscillator() -> fm.LadderExpr:
     return fm.number(0) * (fm.number(0) - 1) + fm.raising(0) + fm.lowering(0)
 
 
+def symmetric() -> fm.SymmetricSpace:
+    """Zero-momentum sector of a 4-site ring holding two quanta."""
+    return fm.SymmetricSpace(fm.FockSpace(4, 2, total=2), [(fm.ring_translation(4), 0)])
+
+
+def empty_sector() -> fm.SymmetricSpace:
+    """Two modes holding one quantum each, odd under exchange: no state (dim 0)."""
+    return fm.SymmetricSpace(fm.FockSpace(2, 1, total=2), [(fm.ring_reflection(2), 1)])
+
+
+EMPTY_WRONG = r"needs a space with states, but .* is empty \(dim 0"
+EMPTY_ADVICE = r"choose another sector label, total or cutoffs"
+
+
+def second_writer(tmp: Path) -> object:
+    from fockmill.store.claims import claim
+
+    with claim(tmp / "same.sqlite"):
+        # Another writer of the same name, as a second process would be (the claim
+        # is a lock on an open file, so a second open in this process conflicts too).
+        return ResultsStore.create(tmp / "same.sqlite", {})
+
+
 def model_text(extra: str = "", model: str | None = None) -> str:
     base = model or '[model]\nkind = "bose-hubbard"\nlattice = "chain"\nsites = 2\ntotal = 2\n'
     return base + extra
@@ -544,7 +567,8 @@ CATALOGUE: list[BadInput] = [
         "sector CSR above a tiny memory_limit",
         lambda t: fm.build_matrix(ring_hopping(8), fm.FockSpace(8, 8, 8), memory_limit=1024),
         SizeLimitError,
-        r"needs about .*dim=6,435.*more than the 1\.00 KiB allowed",
+        r"^building the sparse matrix needs 0\.00069 GiB but the memory limit is "
+        r"9\.5e-07 GiB; .*\(dim=6,435",
         r"fm.build_operator",
     ),
     BadInput(
@@ -1180,6 +1204,64 @@ CATALOGUE: list[BadInput] = [
         r"is a directory",
         r"give the path of a file inside it",
     ),
+    # Issue 17: the third round of faults
+    BadInput(
+        "sector vector with NaN expanded",
+        lambda t: symmetric().expand(np.full(symmetric().dim, np.nan)),
+        ValueError,
+        r"sector vector contains NaN or inf",
+        r"give finite amplitudes",
+    ),
+    BadInput(
+        "base-space vector with inf projected",
+        lambda t: symmetric().project(np.full(symmetric().base.dim, np.inf)),
+        ValueError,
+        r"base-space vector contains NaN or inf",
+        r"give finite amplitudes",
+    ),
+    *[
+        BadInput(
+            f"{name} on an empty sector",
+            call,
+            SpaceError,
+            EMPTY_WRONG,
+            EMPTY_ADVICE,
+        )
+        for name, call in [
+            ("thermal", lambda t: fm.thermal(HOP, empty_sector(), [1.0])),
+            ("thermal ftlm", lambda t: fm.thermal(HOP, empty_sector(), [1.0], method="ftlm")),
+            ("ground_state", lambda t: fm.ground_state(HOP, empty_sector())),
+            ("lowest_levels", lambda t: fm.lowest_levels(HOP, empty_sector(), k=1)),
+            ("evolve", lambda t: fm.evolve(HOP, empty_sector(), np.zeros(0), [0.0, 1.0])),
+            (
+                "spectral_function",
+                lambda t: fm.spectral_function(
+                    HOP, empty_sector(), np.zeros(0), fm.lowering(0), [0.0]
+                ),
+            ),
+        ]
+    ],
+    BadInput(
+        "spectral_function with omegas of strings",
+        lambda t: fm.spectral_function(HOP, pair(), np.eye(3)[0], fm.lowering(0), ["a", "b"]),
+        TypeError,
+        r"omegas must be real numbers.*'a'",
+        r"array of floats",
+    ),
+    BadInput(
+        "exact thermal larger than the memory limit",
+        lambda t: fm.thermal(HOP, hexamer(), [1.0], method="exact", memory_limit=2**20),
+        SizeLimitError,
+        r"method 'exact' .* needs \d+\.\d+ GiB but the memory limit is 0\.00098 GiB",
+        r"use method='ftlm'",
+    ),
+    BadInput(
+        "a second writer of a results file",
+        lambda t: second_writer(t),
+        StoreError,
+        r"being written by another fockmill process \d+ on .*claim file is .*\.same\.sqlite\.claim",
+        r"wait for that run to finish, stop it, or choose another path",
+    ),
     BadInput(
         "new results file over an existing one",
         lambda t: ResultsStore.create(our_store(t), {}),
@@ -1460,6 +1542,13 @@ CLI_CASES: list[tuple[str, Callable[[Path], list[str]], str, str | None]] = [
         lambda t: ["show", str(foreign_database(t))],
         r"not a fockmill results file",
         r"give the path of a file written by a fockmill sweep",
+    ),
+    (
+        "show a temporary left by a killed writer",
+        lambda t: ["show", write(t, ".r.sqlite.4242.0123456789ab.creating", "SQLite format 3")],
+        r"temporary file left by process 4242, a fockmill run that stopped while creating "
+        r".*r\.sqlite'; it holds no results",
+        r"Delete it, or run the command again",
     ),
     (
         "show a damaged results file",

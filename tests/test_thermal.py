@@ -177,3 +177,131 @@ def test_bad_input_is_refused():
         fm.thermal(fm.number(0), space, [1.0], method="ftlm", samples=0)
     with pytest.raises(NotHermitianError):
         fm.thermal(fm.raising(0), space, [1.0])
+
+
+# -- the edges of the temperature axis ---------------------------------------------------------
+
+EDGE_TEMPERATURES = np.array([1e-300, 1e-16, 1e-10, 1.0, 1e10])
+
+
+def ring_of_four() -> tuple[fm.LadderExpr, fm.FockSpace]:
+    """Invented example: 4-site Bose–Hubbard ring (t = 1, U = 3) holding 6 bosons (dim 84)."""
+    h = fm.LadderExpr()
+    for i in range(4):
+        j = (i + 1) % 4
+        h = h - (fm.raising(i) * fm.lowering(j) + fm.raising(j) * fm.lowering(i))
+        h = h + 1.5 * fm.number(i) * (fm.number(i) - 1)
+    return h, fm.FockSpace(4, 6, total=6)
+
+
+def dense_limits(h, space, observable):
+    """Reference from numpy.linalg.eigh of the dense matrix: the T → 0 limit is the
+    average over the ground manifold (canonical ensemble; common practice, no source)
+    and T → ∞ the plain trace average, ⟨H⟩ → Tr H / d with T²C → Tr H²/d − (Tr H/d)²
+    (high-temperature expansion of ln Z to second order; common practice, no source)."""
+    hm = fm.build_matrix(h, space).toarray()
+    om = fm.build_matrix(observable, space).toarray()
+    energies, vectors = np.linalg.eigh(hm)
+    ground = np.abs(energies - energies[0]) < 1e-9
+    diag = np.einsum("ij,ij->j", vectors.conj(), om @ vectors).real
+    d = len(hm)
+    mean = np.trace(hm).real / d
+    variance = np.trace(hm @ hm).real / d - mean**2
+    return {
+        "e0": energies[0],
+        "o0": diag[ground].mean(),
+        "e_inf": mean,
+        "var_inf": variance,
+        "o_inf": np.trace(om).real / d,
+        "energies": energies,
+        "diag": diag,
+    }
+
+
+def canonical(ref, t):
+    """Plain Boltzmann sums at a moderate temperature (shifted by E0)."""
+    w = np.exp(-(ref["energies"] - ref["e0"]) / t)
+    p = w / w.sum()
+    e = p @ ref["energies"]
+    return e, (p @ ref["energies"] ** 2 - e**2) / t**2, p @ ref["diag"]
+
+
+def test_exact_thermal_is_finite_and_right_on_the_whole_axis():
+    h, space = ring_of_four()
+    hop = fm.raising(0) * fm.lowering(1) + fm.raising(1) * fm.lowering(0)
+    ref = dense_limits(h, space, hop)
+    th = fm.thermal(h, space, EDGE_TEMPERATURES, observables={"hop": hop}, method="exact")
+    assert np.all(np.isfinite(th.energy)) and np.all(np.isfinite(th.heat_capacity))
+    for k in range(3):  # T = 1e-300, 1e-16, 1e-10: the zero-temperature limit
+        assert th.energy[k] == pytest.approx(ref["e0"], abs=1e-9)
+        assert th.heat_capacity[k] == pytest.approx(0.0, abs=1e-12)
+        assert th.values["hop"][k] == pytest.approx(ref["o0"], abs=1e-9)
+    e1, c1, o1 = canonical(ref, 1.0)
+    assert th.energy[3] == pytest.approx(e1, rel=1e-10)
+    assert th.heat_capacity[3] == pytest.approx(c1, rel=1e-8)
+    assert th.values["hop"][3] == pytest.approx(o1, rel=1e-9, abs=1e-12)
+    t = EDGE_TEMPERATURES[4]
+    assert th.energy[4] == pytest.approx(ref["e_inf"] - ref["var_inf"] / t, rel=1e-12)
+    assert th.heat_capacity[4] == pytest.approx(ref["var_inf"] / t**2, rel=1e-6)
+    assert th.values["hop"][4] == pytest.approx(ref["o_inf"], abs=1e-8)
+
+
+def test_exact_thermal_heat_capacity_vanishes_where_t_squared_underflows():
+    # T = 1e-200: T² = 0 in floating point; C must be 0, not NaN (issue 17).
+    h, space = ring_of_four()
+    th = fm.thermal(h, space, [1e-200, 1e-170], method="exact")
+    np.testing.assert_array_equal(th.heat_capacity, 0.0)
+
+
+def test_ftlm_is_finite_and_right_on_the_whole_axis():
+    # Reference: the dense eigh limits above; FTLM (Jaklič & Prelovšek 1994) agrees
+    # within its jackknife error bar (five standard deviations).
+    h, space = ring_of_four()
+    hop = fm.raising(0) * fm.lowering(1) + fm.raising(1) * fm.lowering(0)
+    ref = dense_limits(h, space, hop)
+    th = fm.thermal(
+        h,
+        space,
+        EDGE_TEMPERATURES,
+        observables={"hop": hop, "n0": fm.number(0)},
+        method="ftlm",
+        samples=30,
+    )
+    for array in (th.energy, th.heat_capacity, th.values["hop"], th.values["n0"]):
+        assert np.all(np.isfinite(array))
+    for array in (th.errors, th.heat_capacity_errors, th.value_errors["hop"]):
+        assert np.all(np.isfinite(array))
+    hop_err = th.value_errors["hop"]
+    for k in range(3):  # the zero-temperature limit: the ground-state values themselves
+        assert th.energy[k] == pytest.approx(ref["e0"], abs=1e-9)
+        assert th.heat_capacity[k] == pytest.approx(0.0, abs=1e-9)
+        assert th.values["hop"][k] == pytest.approx(ref["o0"], abs=1e-8)
+        # ⟨n0⟩ = 6/4 in every eigenstate of the clean ring (translation symmetry).
+        assert th.values["n0"][k] == pytest.approx(1.5, abs=1e-8)
+        assert hop_err[k] <= 1e-8
+    e1, c1, o1 = canonical(ref, 1.0)
+    assert abs(th.energy[3] - e1) <= 5 * th.errors[3] + 1e-9
+    assert abs(th.heat_capacity[3] - c1) <= 5 * th.heat_capacity_errors[3] + 1e-9
+    assert abs(th.values["hop"][3] - o1) <= 5 * hop_err[3] + 1e-9
+    t = EDGE_TEMPERATURES[4]
+    assert abs(th.energy[4] - (ref["e_inf"] - ref["var_inf"] / t)) <= 5 * th.errors[4] + 1e-9
+    assert abs(th.values["hop"][4] - ref["o_inf"]) <= 5 * hop_err[4] + 1e-9
+    assert 0 <= th.heat_capacity[4] * t**2 <= 5 * ref["var_inf"]
+
+
+def test_exact_thermal_is_refused_up_front_when_the_dense_matrix_does_not_fit(monkeypatch):
+    from fockmill.exceptions import SizeLimitError
+
+    h, space = ring_of_four()
+    built = []
+    import fockmill.problem.builders as builders
+
+    original = builders.build_matrix
+    monkeypatch.setattr(
+        builders, "build_matrix", lambda *a, **k: built.append(1) or original(*a, **k)
+    )
+    with pytest.raises(SizeLimitError, match=r"'exact'.*GiB.*method='ftlm'"):
+        fm.thermal(h, space, [1.0], method="exact", memory_limit=2**16)
+    assert built == []  # refused before building the matrix
+    th = fm.thermal(h, space, [1.0], method="ftlm", memory_limit=2**26)
+    assert np.isfinite(th.energy[0])

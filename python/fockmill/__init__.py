@@ -68,7 +68,7 @@ from fockmill.dynamics import (
     spectral_poles,
     thermal,
 )
-from fockmill.exceptions import CutoffWarning, StateFileError
+from fockmill.exceptions import AccuracyWarning, CutoffWarning, StateFileError
 from fockmill.files import ModelFile, ModelFileError, load_model_file, parse_model_text
 from fockmill.models import Model
 from fockmill.observables import (
@@ -127,6 +127,7 @@ from fockmill.sweeps import SweepGrid, run_sweep
 from fockmill.workflows import run_quench, run_spectrum, run_thermal
 
 __all__ = [
+    "AccuracyWarning",
     "CutoffScan",
     "CutoffWarning",
     "Dispersion",

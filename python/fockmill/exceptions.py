@@ -9,6 +9,7 @@ package (the file-format modules import their errors from here).
 from __future__ import annotations
 
 __all__ = [
+    "AccuracyWarning",
     "ChargeError",
     "ConvergenceError",
     "CutoffWarning",
@@ -55,6 +56,11 @@ class ConvergenceError(RuntimeError):
 
 class CutoffWarning(UserWarning):
     """A state has weight on the highest kept level of a mode whose cutoff truncates."""
+
+
+class AccuracyWarning(UserWarning):
+    """A requested tolerance lies below what double-precision round-off allows; the
+    result is as accurate as round-off permits, and its error estimate says how much."""
 
 
 class ModelFileError(ValueError):

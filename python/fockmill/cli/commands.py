@@ -56,7 +56,8 @@ invented example.
 """
 
 _EPILOG = """\
-exit status: 0 ok, 1 computation failed, 2 bad usage or input, 130 interrupted.
+exit status: 0 ok, 1 computation failed (solve: the point; sweep: any point failed or
+  did not converge, the others are saved), 2 bad usage or input, 130 interrupted.
 examples:
   fockmill solve ring.toml --set U=2.5
   fockmill sweep ring.toml --out ring.sqlite --workers 2
@@ -327,9 +328,15 @@ def format_table(table: SweepTable, meta: dict[str, Any] | None = None) -> str:
         if table.sector:
             dims = ", ".join(f"{d:,}" for d in table.sector.get("dims") or [])
             lines.append(f"# sector: {table.sector.get('description', '')} (dim {dims})")
+    if not table.rows:
+        lines.append(
+            "# no point has finished yet (the sweep was stopped, or is still running); run "
+            "the same 'fockmill sweep' command to resume it"
+        )
+        return "\n".join(lines)
     columns = _table_columns(table)
     cells = [[_cell(row, c) for c in columns] for row in table.rows]
-    widths = [max(len(c), *(len(r[i]) for r in cells)) for i, c in enumerate(columns)]
+    widths = [max([len(c), *(len(r[i]) for r in cells)]) for i, c in enumerate(columns)]
     lines.append("  ".join(c.rjust(w) for c, w in zip(columns, widths, strict=True)))
     lines.extend("  ".join(v.rjust(w) for v, w in zip(r, widths, strict=True)) for r in cells)
     if any(k in row.observables for row in table.rows for k in _MATRIX_KEYS[:2]):
@@ -521,6 +528,11 @@ def _command_solve(args: argparse.Namespace, out: IO[str]) -> int:
         raise UsageError(
             f"--set names unknown parameter(s) {unknown}; the model has {sorted(model.parameters)}"
         )
+    # The sweep's check of [record] levels against the sector, with its message: solve
+    # and sweep accept the same files.
+    from fockmill.settings.checks import check_levels
+
+    check_levels(int(model_file.levels), _solve_dim(model_file))
     quantities = tuple(dict.fromkeys((*model_file.quantities, "levels")))
     levels = max(int(model_file.levels), 2 if "gap" in quantities else 1)
     levels = min(levels, _solve_dim(model_file))
@@ -698,7 +710,9 @@ def _command_sweep(args: argparse.Namespace, out: IO[str]) -> int:
             if cluster is not None:
                 cluster.close()
     print(_summary(table, args.out), file=out)
-    return EXIT_OK
+    # Points that failed or did not converge make the command fail (status 1), as a
+    # single point does in 'solve'; bad input stays status 2.
+    return EXIT_FAILED if table.failed else EXIT_OK
 
 
 def _summary(table: SweepTable, path: str | Path) -> str:
@@ -720,8 +734,12 @@ def _open_results(path: str) -> ResultsStore:
 
 
 def _command_show(args: argparse.Namespace, out: IO[str]) -> int:
+    from fockmill.store.claims import describe_leftover
     from fockmill.store.workflows import is_workflow_file
 
+    leftover = describe_leftover(args.results) if Path(args.results).is_file() else None
+    if leftover is not None:
+        raise UsageError(leftover)
     if is_workflow_file(args.results):
         return _show_workflow(args, out)
     with _open_results(args.results) as store:

@@ -15,6 +15,7 @@ from typing import IO, Any
 
 import numpy as np
 
+from fockmill.store.claims import claim
 from fockmill.store.workflows import WorkflowResult, write_workflow_results
 
 __all__ = ["COMMANDS", "add_parsers", "format_result", "run_command"]
@@ -108,12 +109,14 @@ def run_command(
             "another --out or delete it"
         )
     runner = {"quench": run_quench, "spectrum": run_spectrum, "thermal": run_thermal}
-    with warnings.catch_warnings(record=True) as caught:
-        warnings.simplefilter("always")
-        result = runner[args.command](model_file, overrides=overrides, threads=args.threads)
-    for item in caught:
-        print(f"fockmill: warning: {' '.join(str(item.message).split())}", file=sys.stderr)
-    path = write_workflow_results(target, result)
+    # Claim the file before computing: a second writer stops now, not after the run.
+    with claim(target):
+        with warnings.catch_warnings(record=True) as caught:
+            warnings.simplefilter("always")
+            result = runner[args.command](model_file, overrides=overrides, threads=args.threads)
+        for item in caught:
+            print(f"fockmill: warning: {' '.join(str(item.message).split())}", file=sys.stderr)
+        path = write_workflow_results(target, result, claimed=True)
     # The warnings went to stderr above; the table leaves them out.
     print(format_result(result, rows=SUMMARY_ROWS, with_warnings=False), file=out)
     print(f"results: {path}", file=out)

@@ -22,6 +22,7 @@ from fockmill.dynamics.krylov import (
     expectation_function,
     hermitian_map,
     top_weights,
+    warn_tolerance_not_met,
     warn_top_weights,
 )
 from fockmill.exceptions import ConvergenceError, SizeLimitError
@@ -236,6 +237,12 @@ def evolve(
     SizeLimitError
         The Krylov vectors (or the kept states) do not fit in memory.
 
+    Warns
+    -----
+    AccuracyWarning
+        ``tol`` lies below what round-off allows (about ``1e-15`` per step): the result
+        is as accurate as it can be and ``error_estimate`` says how accurate.
+
     Notes
     -----
     Each step builds a Krylov space ``K_m(H, ψ)`` by Lanczos (with full
@@ -355,6 +362,7 @@ def evolve(
         values[name] = arr.real.copy() if hermitian[name] else arr
     assert weights_max is not None
     warn_top_weights(space, weights_max, cutoff_warning, "the evolving state")
+    warn_tolerance_not_met(tol, error_sum, "evolve")
     # The propagation ends exactly at the last requested time.
     final = states[:, -1].copy() if states is not None else psi
     return Evolution(

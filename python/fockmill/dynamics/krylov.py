@@ -89,7 +89,7 @@ def hermitian_map(
     product (parallel, in Rust, O(terms) memory); refuses with
     :class:`~fockmill.exceptions.SizeLimitError` when even the vectors do not fit.
     """
-    from fockmill.problem.memory import format_bytes
+    from fockmill.problem.memory import size_limit_message
 
     if method not in ("auto", "csr", "operator"):
         raise ValueError(f"method must be 'auto', 'csr' or 'operator'; got {method!r}")
@@ -101,9 +101,14 @@ def hermitian_map(
     budget = _budget(memory_limit, estimate.available_bytes)
     if vector_bytes > budget:
         raise SizeLimitError(
-            f"{vectors} state vectors need {format_bytes(vector_bytes)} ({estimate}), more "
-            "than the memory allowed; use a smaller sector or cutoffs, fewer Krylov vectors, "
-            "or raise memory_limit"
+            size_limit_message(
+                f"keeping {vectors} state vectors",
+                vector_bytes,
+                budget,
+                "use a smaller sector or cutoffs, fewer Krylov vectors, or raise memory_limit",
+                given=memory_limit is not None,
+                details=str(estimate),
+            )
         )
     chosen = method
     if method == "auto":
@@ -163,7 +168,9 @@ def expectation_function(observable: Any) -> Callable[[npt.NDArray[Any]], comple
 def check_state(space: Any, psi: object, name: str = "psi", tol: float = 1e-8) -> Any:
     """A normalised state of the space as a contiguous float64/complex128 array."""
     from fockmill.observables.observe import check_vector
+    from fockmill.spaces.checks import check_not_empty
 
+    check_not_empty(space, f"a state {name}")
     v = check_vector(space, psi, name)  # type: ignore[arg-type]
     norm = float(np.linalg.norm(v))
     if abs(norm - 1.0) > tol:
@@ -286,6 +293,41 @@ def warn_top_weights(
     from fockmill.observables.truncation import warn_cutoff_weights
 
     warn_cutoff_weights(space, weights, threshold, what, stacklevel=3)
+
+
+def warn_tolerance_not_met(tol: float, reached: float, what: str) -> None:
+    """:class:`~fockmill.exceptions.AccuracyWarning` when an error estimate ``reached``
+    exceeds the requested ``tol`` (a tolerance below round-off cannot be met)."""
+    import warnings
+
+    from fockmill.exceptions import AccuracyWarning
+
+    if reached > tol:
+        warnings.warn(
+            f"{what}: tol={tol:.3g} was not met; the error estimate is {reached:.3g}, the "
+            "limit set by double-precision round-off. Ask for a tol above it (1e-12 or "
+            "more, say)",
+            AccuracyWarning,
+            stacklevel=3,
+        )
+
+
+def as_float_grid(values: object, name: str) -> npt.NDArray[np.float64]:
+    """A non-empty float array of finite values of any shape (a scalar becomes shape
+    ``(1,)``), or an error naming ``name``."""
+    try:
+        arr = np.asarray(values, dtype=np.float64)
+    except (TypeError, ValueError):
+        raise TypeError(
+            f"{name} must be real numbers (an array of floats); got {values!r}"
+        ) from None
+    if arr.ndim == 0:
+        arr = arr.reshape(1)
+    if arr.size == 0:
+        raise ValueError(f"{name} must hold at least one number; got shape {arr.shape}")
+    if not np.all(np.isfinite(arr)):
+        raise ValueError(f"{name} contains NaN or inf; give finite numbers")
+    return arr
 
 
 def as_float_array(values: Sequence[object] | npt.ArrayLike, name: str) -> npt.NDArray[np.float64]:

@@ -15,6 +15,7 @@ from fockmill.algebra.expressions import LadderExpr, as_expr
 from fockmill.dynamics.krylov import (
     MEMORY_BUDGET,
     as_float_array,
+    as_float_grid,
     check_common,
     check_hermitian,
     check_positive,
@@ -262,7 +263,7 @@ def spectral_function(
     tol = check_positive(tol, "tol", "1e-6")
     steps_cap = _check_steps(max_steps)
     # Checked before any work, naming the argument (numpy's own message would not).
-    as_float_array(np.ravel(np.asarray(omegas, dtype=object)), "omegas")
+    as_float_grid(omegas, "omegas")
     start = spectral_start(problem, psi, A, target, reference_energy)
     return function_from_start(start, omegas, eta=eta, tol=tol, max_steps=steps_cap, method=method)
 
@@ -277,7 +278,7 @@ def function_from_start(
     method: str,
 ) -> npt.NDArray[np.float64]:
     """:func:`spectral_function` from a prepared :class:`SpectralStart`."""
-    w = np.asarray(omegas, dtype=np.float64) if np.ndim(omegas) else np.asarray([omegas], float)
+    w = as_float_grid(omegas, "omegas")
     flat = as_float_array(w.reshape(-1), "omegas")
     steps_cap = max_steps
     on_target, phi, ref, norm_sq = start.on_target, start.phi, start.reference_energy, start.norm

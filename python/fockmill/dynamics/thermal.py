@@ -25,6 +25,7 @@ from fockmill.dynamics.krylov import (
 from fockmill.problem.problem import Problem, prepare_observables, problem_and_arguments
 from fockmill.settings.signatures import options_were_positional
 from fockmill.settings.threads import blas_threads
+from fockmill.spaces.checks import check_not_empty
 
 __all__ = ["EXACT_MAX_DIM", "Thermal", "thermal"]
 
@@ -106,23 +107,84 @@ def _check_temperatures(temperatures: object) -> npt.NDArray[np.float64]:
     return t
 
 
+def _resolution(energies: npt.NDArray[np.float64], dim: int) -> float:
+    """Energies closer than this to the lowest cannot be told apart numerically.
+
+    The backward error of a symmetric eigensolver is of order ``dim · ε · ‖H‖``
+    (Golub & Van Loan, Matrix Computations, 4th ed. 2013, §8.1: eigenvalue perturbation
+    bounded by the perturbation's norm); Lanczos Ritz values of one level agree to the
+    same order. Differences below it are rounding, and counting them as gaps would
+    give a ground manifold split by noise a spurious heat capacity as T → 0.
+    """
+    scale = float(np.max(np.abs(energies))) if energies.size else 0.0
+    return 16.0 * max(dim, 1) * float(np.finfo(np.float64).eps) * max(scale, 1e-300)
+
+
+def _boltzmann(
+    gaps: npt.NDArray[np.float64], t: npt.NDArray[np.float64]
+) -> tuple[npt.NDArray[np.float64], npt.NDArray[np.float64]]:
+    """Weights ``exp(−x)`` and reduced energies ``x = gap / T`` of shape (T, levels).
+
+    ``gaps`` are ``E − E_min >= 0`` (the log-sum-exp shift: the largest weight is 1, so
+    nothing overflows at any T). Where a weight underflows to 0 its ``x`` is set to 0
+    too, so ``x·weight`` and ``x²·weight`` never form ``inf · 0`` (common practice, no
+    source).
+    """
+    with np.errstate(over="ignore", divide="ignore", invalid="ignore"):
+        x = gaps[np.newaxis, :] / t[:, np.newaxis]
+        weights = np.exp(-x)
+    x = np.where(weights > 0.0, x, 0.0)
+    return weights, x
+
+
+def _exact_dense_bytes(space: Any, complex_h: bool) -> int:
+    """Peak bytes of full diagonalisation: the dense matrix, its eigenvectors and
+    LAPACK's work arrays (about one more matrix)."""
+    item = 16 if complex_h else 8
+    return 3 * int(space.dim) ** 2 * item
+
+
+def _check_exact_memory(e: LadderExpr, space: Any, memory_limit: int | None) -> None:
+    """Refuse full diagonalisation up front when its dense matrices do not fit."""
+    from fockmill.exceptions import SizeLimitError
+    from fockmill.problem.memory import available_memory, size_limit_message
+
+    need = _exact_dense_bytes(space, not e.is_real())
+    limit = memory_limit if memory_limit is not None else available_memory()
+    if limit is not None and need > limit:
+        raise SizeLimitError(
+            size_limit_message(
+                f"thermal method 'exact' (full diagonalisation of a dense {space.dim:,} x "
+                f"{space.dim:,} matrix)",
+                need,
+                limit,
+                "use method='ftlm' (random-vector Lanczos, memory of a few state vectors) "
+                "or a smaller sector",
+                given=memory_limit is not None,
+            )
+        )
+
+
 def _exact(
     problem: Problem,
     t: npt.NDArray[np.float64],
     obs: dict[str, Problem],
 ) -> tuple[npt.NDArray[Any], npt.NDArray[Any], dict[str, npt.NDArray[Any]], npt.NDArray[Any]]:
     space = problem.space
+    _check_exact_memory(problem.expr, space, problem.memory_limit)
     dense = problem.matrix().toarray()
     with blas_threads(problem.threads, dense.shape[0]):
         energies, vectors = np.linalg.eigh(dense)
     del dense
-    shifted = energies - energies[0]
-    # Boltzmann weights p[T, j], shifted by the ground energy to avoid overflow.
-    boltz = np.exp(-shifted[np.newaxis, :] / t[:, np.newaxis])
+    gaps = energies - energies[0]
+    gaps[gaps <= _resolution(energies, energies.size)] = 0.0
+    # Boltzmann weights p[T, j], shifted by the ground energy (log-sum-exp).
+    boltz, x = _boltzmann(gaps, t)
     p = boltz / boltz.sum(axis=1, keepdims=True)
-    energy = p @ energies
-    energy2 = p @ (energies * energies)
-    heat = np.maximum(energy2 - energy * energy, 0.0) / (t * t)
+    mean_x = np.sum(p * x, axis=1)
+    energy = energies[0] + p @ gaps
+    # C = ⟨(x − ⟨x⟩)²⟩ with x = (E − E0)/T: no division by T² (which underflows).
+    heat = np.sum(p * (x - mean_x[:, np.newaxis]) ** 2, axis=1)
     values: dict[str, npt.NDArray[Any]] = {}
     for name, o in obs.items():
         mat = o.matrix()
@@ -138,15 +200,26 @@ def _exact(
 
 
 def _jackknife(numerators: npt.NDArray[Any], z: npt.NDArray[Any]) -> tuple[Any, Any]:
-    """Ratio estimate ``Σ_r N_r / Σ_r Z_r`` (over axis 0) and its jackknife error."""
+    """Ratio estimate ``Σ_r N_r / Σ_r Z_r`` (over axis 0) and its jackknife error.
+
+    Leave-one-out ratios whose remaining weight is zero (at temperatures where a
+    single random vector carries all the weight) are left out of the spread, so the
+    error is finite wherever the estimate is; one random vector alone has no spread
+    (NaN error).
+    """
     total_n, total_z = numerators.sum(axis=0), z.sum(axis=0)
     estimate = total_n / total_z
     r = z.shape[0]
     if r < 2:
         return estimate, np.full(np.shape(estimate), np.nan)
-    leave_out = (total_n - numerators) / (total_z - z)
-    spread = np.sum(np.abs(leave_out - leave_out.mean(axis=0)) ** 2, axis=0)
-    return estimate, np.sqrt((r - 1) / r * spread)
+    loo_z = total_z - z
+    defined = loo_z > 0
+    with np.errstate(divide="ignore", invalid="ignore"):
+        leave_out = np.where(defined, (total_n - numerators) / np.where(defined, loo_z, 1.0), 0)
+    count = np.maximum(defined.sum(axis=0), 1)
+    mean = leave_out.sum(axis=0) / count
+    spread = np.sum(np.where(defined, np.abs(leave_out - mean) ** 2, 0.0), axis=0)
+    return estimate, np.sqrt((count - 1) / count * spread)
 
 
 class _Overlaps:
@@ -164,6 +237,64 @@ class _Overlaps:
         return np.asarray(self.rows, dtype=np.complex128).reshape(len(self.rows), len(self.fixed))
 
 
+#: Relative weight below which the Ritz levels above a sample's lowest are negligible.
+_NEGLIGIBLE = 1e-15
+
+
+def _lowest_level(
+    hmap: Any,
+    r: npt.NDArray[Any],
+    eps: npt.NDArray[np.float64],
+    u: npt.NDArray[np.float64],
+    t: npt.NDArray[np.float64],
+    operators: dict[str, Any],
+    masks: list[npt.NDArray[np.float64]],
+    dim: int,
+) -> tuple[npt.NDArray[np.bool_], dict[str, complex], list[float]]:
+    """Where one random vector's lowest Ritz level alone counts, its averages there.
+
+    At such temperatures the FTLM sum ``Σ_j e^{−βε_j}⟨r|ψ_j⟩⟨ψ_j|O|r⟩`` keeps only the
+    lowest level's term, whose ``⟨ψ_0|O|r⟩`` still carries every other eigenstate's
+    component of ``r``: a noisy ratio (and a wild one when ``⟨r|ψ_0⟩`` is small). The
+    symmetric form ``Σ_{ij} e^{−β(ε_i+ε_j)/2}⟨r|ψ_i⟩⟨ψ_i|O|ψ_j⟩⟨ψ_j|r⟩`` of the
+    low-temperature Lanczos method (Aichhorn, Daghofer, Evertz & von der Linden 2003,
+    Phys. Rev. B 67, 161103) keeps ``⟨g|O|g⟩`` with ``g = P_0 r`` the projection of ``r``
+    on the lowest level, which tends to the ground-state value as T → 0. ``g`` is
+    ``V f(T) e_1`` with ``f`` the indicator of the lowest cluster of Ritz values
+    (copies within rounding included), built by a second, identical Lanczos pass.
+
+    Returns the temperatures in that regime (other levels' weight below
+    ``_NEGLIGIBLE`` of the lowest level's), and ``⟨g|O|g⟩/⟨g|g⟩`` per observable and
+    per mask (empty when no temperature is in the regime).
+    """
+    first = u[0, :]
+    weight = first * first
+    gaps = eps - eps.min()
+    cluster = gaps <= _resolution(eps, dim)
+    boltz, _ = _boltzmann(np.where(cluster, 0.0, gaps), t)
+    inside = boltz[:, cluster] @ weight[cluster]
+    outside = boltz[:, ~cluster] @ weight[~cluster]
+    regime = outside <= _NEGLIGIBLE * inside
+    if not np.any(regime) or (not operators and not masks):
+        return regime, {}, []
+    coefficients = u[:, cluster] @ first[cluster]  # g = Σ_j c_j v_j
+    g = np.zeros(dim, dtype=r.dtype)
+
+    def accumulate(j: int, v: npt.NDArray[Any]) -> None:
+        nonlocal g
+        if g.dtype != v.dtype:
+            g = g.astype(np.result_type(g.dtype, v.dtype))
+        g += coefficients[j] * v
+
+    lanczos_coefficients(hmap, r, eps.size, on_vector=accumulate)
+    norm2 = float(np.vdot(g, g).real)
+    if norm2 == 0.0:
+        return np.zeros(t.size, dtype=bool), {}, []
+    values = {name: complex(np.vdot(g, op @ g)) / norm2 for name, op in operators.items()}
+    mask_values = [float(np.vdot(g, mask * g).real) / norm2 for mask in masks]
+    return regime, values, mask_values
+
+
 def _ftlm(
     problem: Problem,
     t: npt.NDArray[np.float64],
@@ -178,7 +309,7 @@ def _ftlm(
     complex_h = not problem.expr.is_real()
     hmap = hermitian_map(
         problem,
-        vectors=4 + len(obs) + len(masks) + 1,
+        vectors=4 + len(obs) + len(masks) + 3,
         method=method,
         complex_vectors=complex_h,
     )
@@ -186,6 +317,9 @@ def _ftlm(
     rng = np.random.default_rng(seed)
     dim = hmap.dim
     per_sample: list[tuple[Any, Any, dict[str, Any], list[Any]]] = []
+    # Per sample: the temperatures where only its lowest Ritz level counts, and there
+    # the averages in that level (the symmetric form, see _lowest_level).
+    low: list[tuple[npt.NDArray[np.bool_], dict[str, complex], list[float]]] = []
     for _ in range(samples):
         r = rng.standard_normal(dim)
         if complex_h:
@@ -207,32 +341,43 @@ def _ftlm(
         obs_terms = {name: first * (u.T @ np.asarray(d[:n])) for name, d in dots.items()}
         mask_terms = [first * (u.T @ np.asarray(d[:n])) for d in mask_dots]
         per_sample.append((eps, first * first, obs_terms, mask_terms))
+        low.append(_lowest_level(hmap, r, eps, u, t, operators, masks, dim))
     e_min = min(float(np.min(s[0])) for s in per_sample)
-    beta_t = 1.0 / t
+    resolution = _resolution(np.concatenate([s[0] for s in per_sample]), dim)
     z = np.zeros((samples, t.size))
-    n_e = np.zeros((samples, t.size))
-    n_e2 = np.zeros((samples, t.size))
+    n_x = np.zeros((samples, t.size))
+    n_x2 = np.zeros((samples, t.size))
     n_obs = {name: np.zeros((samples, t.size), dtype=np.complex128) for name in obs}
     n_mask = np.zeros((len(masks), samples, t.size))
     for k, (eps, weight, obs_terms, mask_terms) in enumerate(per_sample):
-        boltz = np.exp(-np.outer(beta_t, eps - e_min))  # (T, j)
+        gaps = eps - e_min
+        gaps[gaps <= resolution] = 0.0  # copies of the lowest level (see _resolution)
+        boltz, x = _boltzmann(gaps, t)  # (T, j), log-sum-exp shifted
         z[k] = boltz @ weight
-        n_e[k] = boltz @ (weight * eps)
-        n_e2[k] = boltz @ (weight * eps * eps)
+        n_x[k] = (boltz * x) @ weight
+        n_x2[k] = (boltz * x * x) @ weight
+        regime, ground_obs, ground_masks = low[k]
         for name, terms in obs_terms.items():
-            n_obs[name][k] = boltz @ terms
+            n_obs[name][k] = np.where(regime, z[k] * ground_obs.get(name, 0.0), boltz @ terms)
         for m, terms in enumerate(mask_terms):
-            n_mask[m, k] = (boltz @ terms).real
-    energy, energy_err = _jackknife(n_e, z)
-    # Heat capacity from the fluctuation; its jackknife uses the same leave-one-out sums.
-    total_z, total_e, total_e2 = z.sum(0), n_e.sum(0), n_e2.sum(0)
-    heat = (total_e2 / total_z - (total_e / total_z) ** 2) / (t * t)
-    loo_z, loo_e, loo_e2 = total_z - z, total_e - n_e, total_e2 - n_e2
-    loo_heat = (loo_e2 / loo_z - (loo_e / loo_z) ** 2) / (t * t)
+            value = ground_masks[m] if ground_masks else 0.0
+            n_mask[m, k] = np.where(regime, z[k] * value, (boltz @ terms).real)
+    # Reduced energies x = (ε − ε_min)/T: ⟨H⟩ = ε_min + T⟨x⟩ and C = ⟨x²⟩ − ⟨x⟩², which
+    # neither divide by T² (underflow at small T) nor subtract nearly equal ⟨H²⟩, ⟨H⟩².
+    mean_x, mean_x_err = _jackknife(n_x, z)
+    energy = e_min + t * mean_x
+    energy_err = t * mean_x_err
+    total_z, total_x, total_x2 = z.sum(0), n_x.sum(0), n_x2.sum(0)
+    heat = np.maximum(total_x2 / total_z - (total_x / total_z) ** 2, 0.0)
+    loo_z, loo_x, loo_x2 = total_z - z, total_x - n_x, total_x2 - n_x2
     if samples >= 2:
-        heat_err = np.sqrt(
-            (samples - 1) / samples * np.sum((loo_heat - loo_heat.mean(0)) ** 2, axis=0)
-        )
+        defined = loo_z > 0
+        safe = np.where(defined, loo_z, 1.0)
+        loo_heat = np.where(defined, loo_x2 / safe - (loo_x / safe) ** 2, 0.0)
+        count = np.maximum(defined.sum(0), 1)
+        mean = loo_heat.sum(0) / count
+        spread = np.sum(np.where(defined, (loo_heat - mean) ** 2, 0.0), axis=0)
+        heat_err = np.sqrt((count - 1) / count * spread)
     else:
         heat_err = np.full(t.size, np.nan)
     values: dict[str, Any] = {}
@@ -305,6 +450,11 @@ def thermal(
         Temperatures <= 0, an unknown method, bad samples or steps.
     NotHermitianError
         ``H`` is not Hermitian.
+    SpaceError
+        The space is empty (a sector without states).
+    SizeLimitError
+        ``method="exact"`` and the dense matrices (three of ``dim²`` numbers) exceed
+        ``memory_limit`` or the memory available; refused before anything is built.
 
     Notes
     -----
@@ -316,6 +466,13 @@ def thermal(
     sums; their errors are jackknife estimates over the random vectors (leave one out),
     i.e. from the sample spread. At temperatures below the level spacing reached by
     ``M`` steps the averages tend to those of the lowest Ritz states.
+
+    Both methods are valid on the whole temperature axis: weights are shifted by the
+    lowest energy (log-sum-exp), the heat capacity is the variance of the reduced energy
+    ``(E − E_0)/T`` (no ``1/T²`` that underflows), and energies within rounding of the
+    lowest (``16 · dim · ε · max|E|``) count as the ground level. As ``T → 0`` the results
+    tend to the ground-manifold averages with ``C → 0``; as ``T → ∞`` to the plain trace
+    averages over the space. FTLM error bars are finite wherever the values are.
 
     Examples
     --------
@@ -344,6 +501,7 @@ def thermal(
     if isinstance(seed, bool) or not isinstance(seed, numbers.Integral) or seed < 0:
         raise ValueError(f"seed must be a non-negative integer; got {seed!r}")
     check_hermitian(problem.expr)
+    check_not_empty(space, "a thermal average")
     obs = prepare_observables(observables, problem)
     chosen = method
     if method == "auto":

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import re
 import time
 from dataclasses import dataclass
 from typing import TYPE_CHECKING, Any, Literal
@@ -19,7 +20,7 @@ from fockmill.exceptions import (
 )
 from fockmill.observables.observe import check_vector, top_level_weights
 from fockmill.observables.truncation import warn_cutoff_weights
-from fockmill.problem.memory import MemoryEstimate, format_bytes
+from fockmill.problem.memory import MemoryEstimate, size_limit_message
 from fockmill.settings.checks import (
     METHODS,
 )
@@ -185,8 +186,14 @@ def choose_method(
     if krylov <= budget:
         return "operator"
     raise SizeLimitError(
-        f"no solver fits in memory: {estimate}; even the four-vector Lanczos solver needs "
-        f"{format_bytes(estimate.krylov_bytes(5))}. Use a smaller sector or cutoffs"
+        size_limit_message(
+            "no solver fits in memory: even the four-vector Lanczos solver",
+            estimate.krylov_bytes(5),
+            budget,
+            "use a smaller sector or cutoffs",
+            given=memory_limit is not None,
+            details=str(estimate),
+        )
     )
 
 
@@ -203,9 +210,14 @@ def _check_fits(estimate: MemoryEstimate, method: str, k: int, memory_limit: int
     }[method]
     if vectors > limit:
         raise SizeLimitError(
-            f"method={method!r} needs about {format_bytes(vectors)} for its vectors alone "
-            f"({estimate}), more than the {format_bytes(limit)} available; use a smaller "
-            "sector or cutoffs, or method='lanczos' (four vectors)"
+            size_limit_message(
+                f"method={method!r} (its vectors alone)",
+                vectors,
+                limit,
+                "use a smaller sector or cutoffs, or method='lanczos' (four vectors)",
+                given=memory_limit is not None,
+                details=str(estimate),
+            )
         )
 
 
@@ -240,20 +252,32 @@ def _converged(residual: float, energy: float, tol: float) -> bool:
     return residual <= 10 * max(tol, 1e-12) * max(1.0, abs(energy))
 
 
-class _Counted(LinearOperator):  # type: ignore[misc]
-    """A Hermitian operator (CSR matrix or matrix-free) that counts its products."""
+class _ProductLimit(Exception):
+    """Raised inside eigsh when the product budget (``max_iterations``) is spent."""
 
-    def __init__(self, inner: Any) -> None:
+
+class _Counted(LinearOperator):  # type: ignore[misc]
+    """A Hermitian operator (CSR matrix or matrix-free) that counts its products and
+    stops the solver (:class:`_ProductLimit`) before it exceeds ``limit`` of them:
+    eigsh's own ``maxiter`` counts restarts, each of many products."""
+
+    def __init__(self, inner: Any, limit: int | None = None) -> None:
         self.inner = inner
         self.products = 0
+        self.limit = limit
         super().__init__(dtype=np.dtype(inner.dtype), shape=inner.shape)
 
+    def _spend(self, count: int) -> None:
+        if self.limit is not None and self.products + count > self.limit:
+            raise _ProductLimit
+        self.products += count
+
     def _matvec(self, x: npt.NDArray[Any]) -> npt.NDArray[Any]:
-        self.products += 1
+        self._spend(1)
         return self.inner @ x  # type: ignore[no-any-return]
 
     def _matmat(self, x: npt.NDArray[Any]) -> npt.NDArray[Any]:
-        self.products += x.shape[1]
+        self._spend(x.shape[1])
         return self.inner @ x  # type: ignore[no-any-return]
 
     _rmatvec = _matvec
@@ -288,7 +312,7 @@ def _eigsh_levels(
             f"method; this one has {dim}: use method='dense'"
         )
     inner = problem.matrix() if method == "csr" else problem.operator()
-    target = _Counted(inner)
+    target = _Counted(inner, max_iterations)
     start = _start_vector(v0, problem, seed)
     if start is None:
         start = np.random.default_rng(seed).standard_normal(dim)
@@ -305,6 +329,21 @@ def _eigsh_levels(
             f"eigsh ({method}) did not converge to tol={tol} for k={k} levels "
             f"({len(exc.eigenvalues)} converged, {target.products} products); raise "
             "max_iterations or tol, or pass v0"
+        ) from exc
+    except _ProductLimit:
+        raise ConvergenceError(
+            f"eigsh ({method}) did not converge to tol={tol} for k={k} levels within "
+            f"max_iterations={max_iterations} matrix-vector products; raise max_iterations "
+            "or tol, or pass v0"
+        ) from None
+    except sla.ArpackError as exc:
+        found = re.search(r"error (-?\d+)", str(exc))
+        code = found.group(1) if found else "?"
+        raise ConvergenceError(
+            f"the eigensolver broke down: eigsh ({method}) could not build its Krylov basis "
+            f"(ARPACK error {code}), which happens when matrix elements are so large that "
+            "products overflow double precision (parameters near 1e300, say). Use moderate "
+            "parameter values, or method='dense' on a small space"
         ) from exc
     residuals = _residuals(inner, energies, vectors)
     return energies, vectors, residuals, target
@@ -411,6 +450,10 @@ def _validate(
         check_vector(problem.space, v0, "v0")
     if isinstance(k, bool) or not isinstance(k, int | np.integer):
         raise TypeError(f"k must be an integer; got {k!r}")
+    if problem.dim == 0:
+        from fockmill.spaces.checks import check_not_empty
+
+        check_not_empty(problem.space, "an eigenvalue problem")
     if k < 1 or k > problem.dim:
         raise ValueError(f"k must be between 1 and the space's dimension {problem.dim}; got {k}")
     if not problem.is_square:
@@ -514,7 +557,10 @@ def _native_levels(
             "use method='csr' or 'operator'"
         )
     start = _start_vector(v0, problem, seed, mix_noise=False)
-    max_products = 20_000 if max_iterations is None else int(max_iterations)
+    # The native solver may finish a restart cycle with up to k more products (the
+    # residual check of its k Ritz vectors) after its budget; keep that within
+    # max_iterations, which counts every product.
+    max_products = 20_000 if max_iterations is None else max(1, int(max_iterations) - k)
     ready = _ready_csr(problem)
     if ready is not None:  # a matrix handed in (sweeps): solve on it, build nothing
         found = ready.lanczos_levels(k, tol, max_products, seed, start, threads=problem.pool)

@@ -14,6 +14,8 @@ __all__ = [
     "available_memory",
     "estimate_native",
     "format_bytes",
+    "format_gib",
+    "size_limit_message",
 ]
 
 _INT32_MAX = np.iinfo(np.int32).max
@@ -25,6 +27,30 @@ def format_bytes(n: float) -> str:
         if abs(n) >= size:
             return f"{n / size:.2f} {unit}"
     return f"{int(n)} B"
+
+
+def format_gib(n: float) -> str:
+    """``n`` bytes in GiB, the one unit of every size-limit message, with enough digits
+    to tell two nearby sizes apart (``"0.863 GiB"``, ``"1.5e-05 GiB"``)."""
+    gib = n / 2**30
+    if gib >= 100:
+        return f"{gib:,.0f} GiB"
+    if gib >= 0.01:
+        return f"{gib:.3f} GiB"
+    return f"{gib:.2g} GiB"
+
+
+def size_limit_message(
+    what: str, need: float, limit: float, advice: str, *, given: bool, details: str = ""
+) -> str:
+    """The one wording of every size refusal: a sentence with both sizes in GiB.
+
+    ``given`` says whether ``limit`` is the caller's ``memory_limit`` (else it is the
+    memory available now, or the planning budget taken from it).
+    """
+    which = "the memory limit" if given else "the memory available now"
+    text = f"{what} needs {format_gib(need)} but {which} is {format_gib(limit)}; {advice}"
+    return f"{text} ({details})" if details else text
 
 
 #: Limits at or above this mean "no limit" (cgroup v1 reports 2**63 rounded to a page).
@@ -65,14 +91,17 @@ def _cgroup_dir_room(directory: Path) -> int | None:
     return max(limit - max(usage - (cache or 0), 0), 0)
 
 
-def _cgroup_room(root: Path = Path("/sys/fs/cgroup")) -> int | None:
+def _cgroup_room(
+    root: Path = Path("/sys/fs/cgroup"), membership: Path = Path("/proc/self/cgroup")
+) -> int | None:
     """Smallest room under the memory limits of this process's cgroups: its own
     directory and every ancestor (limits are hierarchical), for cgroup v2 (``0::path``)
     and v1 (the ``memory`` controller), plus the mount roots (inside a cgroup namespace
-    the root is the process's own cgroup)."""
+    the root is the process's own cgroup). ``root`` and ``membership`` (the process's
+    cgroup list) are parameters so that tests can pass a fake tree."""
     directories = [root, root / "memory"]
     try:
-        lines = Path("/proc/self/cgroup").read_text().splitlines()
+        lines = membership.read_text().splitlines()
     except OSError:
         lines = []
     for line in lines:
@@ -94,9 +123,10 @@ def _cgroup_room(root: Path = Path("/sys/fs/cgroup")) -> int | None:
     return min(rooms) if rooms else None
 
 
-def _address_space_room() -> int | None:
+def _address_space_room(status: Path = Path("/proc/self/status")) -> int | None:
     """Room under the soft address-space limit (``RLIMIT_AS``, as ``ulimit -v`` and
-    batch schedulers set it): the limit minus the current ``VmSize``."""
+    batch schedulers set it): the limit minus the current ``VmSize`` (read from
+    ``status``)."""
     try:
         import resource
     except ImportError:  # not on this platform
@@ -106,7 +136,7 @@ def _address_space_room() -> int | None:
         return None
     size = 0
     try:
-        for line in Path("/proc/self/status").read_text().splitlines():
+        for line in status.read_text().splitlines():
             if line.startswith("VmSize:"):
                 size = int(line.split()[1]) * 1024
                 break

@@ -23,7 +23,7 @@ from fockmill.algebra.expressions import LadderExpr, as_expr
 from fockmill.exceptions import SizeLimitError, SymmetryError
 from fockmill.problem.compile import compile_operator
 from fockmill.problem.eigensolve import choose_method, solve_ground, solve_levels
-from fockmill.problem.memory import MemoryEstimate, estimate_native, format_bytes
+from fockmill.problem.memory import MemoryEstimate, estimate_native
 from fockmill.settings.checks import check_memory_limit, check_threads
 from fockmill.spaces.checks import check_space
 from fockmill.spaces.fock import FockSpace
@@ -227,11 +227,19 @@ class Problem:
         estimate = self.estimate
         limit = self.memory_budget()
         if limit is not None and estimate.build_peak_bytes > limit:
+            from fockmill.problem.memory import size_limit_message
+
             raise SizeLimitError(
-                f"building this matrix needs about {format_bytes(estimate.build_peak_bytes)} "
-                f"({estimate}), more than the {format_bytes(limit)} allowed; use "
-                "fm.build_operator(...) for matrix-free products or fm.ground_state(..., "
-                "method='lanczos', store_matrix=False), or raise memory_limit"
+                size_limit_message(
+                    "building the sparse matrix",
+                    estimate.build_peak_bytes,
+                    limit,
+                    "use fm.build_operator(...) for matrix-free products or "
+                    "fm.ground_state(..., method='lanczos', store_matrix=False), or raise "
+                    "memory_limit",
+                    given=self.memory_limit is not None,
+                    details=str(estimate),
+                )
             )
 
     def matrix(self, *, index_dtype: type[np.int32] | type[np.int64] | None = None) -> sp.csr_array:

@@ -6,11 +6,11 @@ from __future__ import annotations
 import cmath
 
 from fockmill.algebra.expressions import LadderExpr, format_monomial
-from fockmill.exceptions import ModeIndexError
+from fockmill.exceptions import ModeIndexError, SpaceError
 from fockmill.spaces.fock import FockSpace
 from fockmill.spaces.symmetry import SymmetricSpace
 
-__all__ = ["MAX_POWER", "check_space", "check_terms"]
+__all__ = ["MAX_POWER", "check_not_empty", "check_space", "check_terms"]
 
 #: Largest creation or annihilation power of one mode in a term (the largest cutoff).
 MAX_POWER = 65_535
@@ -24,6 +24,17 @@ def check_space(space: object) -> FockSpace:
             "sector is accepted too)"
         )
     return space  # type: ignore[return-value]
+
+
+def check_not_empty(space: object, what: str) -> None:
+    """Refuse a space without states (an empty symmetry sector, say): the one message
+    every entry point gives for it."""
+    if getattr(space, "dim", 1) == 0:
+        raise SpaceError(
+            f"{what} needs a space with states, but {space!r} is empty (dim 0: no basis "
+            "state has these quantum numbers); choose another sector label, total or "
+            "cutoffs"
+        )
 
 
 def check_terms(e: LadderExpr, s: FockSpace) -> None:

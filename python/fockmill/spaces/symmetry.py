@@ -423,7 +423,10 @@ class SymmetricSpace:
             raise TypeError(f"{what} must be a float or complex array; got dtype {arr.dtype}")
         if arr.ndim != 1 or arr.shape[0] != n:
             raise ValueError(f"{what} must have shape ({n},); got {arr.shape}")
-        return np.ascontiguousarray(arr, dtype=np.complex128 if arr.dtype.kind == "c" else float)
+        out = np.ascontiguousarray(arr, dtype=np.complex128 if arr.dtype.kind == "c" else float)
+        if not np.all(np.isfinite(out)):
+            raise ValueError(f"{what} contains NaN or inf; give finite amplitudes")
+        return out
 
     def expand(self, v: npt.ArrayLike, *, threads: int | None = None) -> npt.NDArray[Any]:
         """The base-space vector of a sector vector (preserves norms and inner products).

@@ -38,7 +38,6 @@ import json
 import math
 import os
 import sqlite3
-import uuid
 from collections.abc import Iterator, Mapping, Sequence
 from dataclasses import dataclass, field
 from datetime import UTC, datetime
@@ -404,11 +403,15 @@ class ResultsStore:
         return cls(connection, file)
 
     @classmethod
-    def create(cls, path: str | os.PathLike[str], meta: Mapping[str, Any]) -> ResultsStore:
+    def create(
+        cls, path: str | os.PathLike[str], meta: Mapping[str, Any], *, claimed: bool = False
+    ) -> ResultsStore:
         """Create a new, empty results file.
 
         The file is written under a temporary name in the same directory and linked
-        to ``path`` only after its schema and meta data are committed.
+        to ``path`` only after its schema and meta data are committed. The name is
+        claimed meanwhile (:func:`fockmill.store.claims.claim`), which also removes
+        temporaries of writers of that name that died.
 
         Parameters
         ----------
@@ -418,6 +421,8 @@ class ResultsStore:
             Extra ``meta`` entries (model fingerprint, name, settings ...), any
             JSON-ready values. The format marker, schema version and creation time are
             added here.
+        claimed : bool
+            The caller holds the claim on ``path`` already (and keeps it).
 
         Returns
         -------
@@ -426,16 +431,31 @@ class ResultsStore:
         Raises
         ------
         StoreError
-            The file exists already.
+            The file exists already, or another process is writing it.
         """
-        from fockmill._native import __version__
+        from fockmill.store.claims import claim
 
         file = Path(path)
+        if claimed:
+            return cls._create(file, meta)
+        cls._refuse_existing(file)
+        with claim(file):
+            return cls._create(file, meta)
+
+    @staticmethod
+    def _refuse_existing(file: Path) -> None:
         if file.exists():
             raise StoreError(
                 f"{str(file)!r} exists already; open it with ResultsStore.open or choose "
                 "another path"
             )
+
+    @classmethod
+    def _create(cls, file: Path, meta: Mapping[str, Any]) -> ResultsStore:
+        from fockmill._native import __version__
+        from fockmill.store.claims import temporary_path
+
+        cls._refuse_existing(file)
         file.parent.mkdir(parents=True, exist_ok=True)
         version = SCHEMA_VERSION if meta.get("symmetry") else PLAIN_SCHEMA_VERSION
         entries: dict[str, Any] = {
@@ -445,7 +465,7 @@ class ResultsStore:
             "created": utc_now(),
         }
         entries.update({k: v for k, v in meta.items() if k not in entries})
-        temporary = file.with_name(f".{file.name}.{uuid.uuid4().hex[:12]}.creating")
+        temporary = temporary_path(file)
         try:
             connection = cls._connect(temporary)
             try:

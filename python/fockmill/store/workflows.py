@@ -28,7 +28,6 @@ import contextlib
 import json
 import os
 import sqlite3
-import uuid
 from collections.abc import Mapping
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -155,7 +154,9 @@ def _decode(shape: str, real: str, imag: str | None) -> npt.NDArray[Any]:
     return (re + 1j * im).reshape(dims)
 
 
-def write_workflow_results(path: str | os.PathLike[str], result: WorkflowResult) -> Path:
+def write_workflow_results(
+    path: str | os.PathLike[str], result: WorkflowResult, *, claimed: bool = False
+) -> Path:
     """Write ``result`` to a new results file (never replacing an existing file).
 
     Parameters
@@ -163,6 +164,9 @@ def write_workflow_results(path: str | os.PathLike[str], result: WorkflowResult)
     path : str or path-like
         Where to write; must not exist yet. Parent directories are created.
     result : WorkflowResult
+    claimed : bool
+        The caller holds the claim on ``path`` already (see
+        :func:`fockmill.store.claims.claim`); else it is claimed while writing.
 
     Returns
     -------
@@ -171,16 +175,31 @@ def write_workflow_results(path: str | os.PathLike[str], result: WorkflowResult)
     Raises
     ------
     StoreError
-        The file exists already.
+        The file exists already, or another process is writing it.
     """
-    from fockmill._native import __version__
+    from fockmill.store.claims import claim
 
     file = Path(path)
+    if claimed:
+        return _write(file, result)
+    _refuse_existing(file)
+    with claim(file):
+        return _write(file, result)
+
+
+def _refuse_existing(file: Path) -> None:
     if file.exists():
         raise StoreError(
             f"{str(file)!r} exists already; results files are never overwritten, choose "
             "another path or delete it"
         )
+
+
+def _write(file: Path, result: WorkflowResult) -> Path:
+    from fockmill._native import __version__
+    from fockmill.store.claims import temporary_path
+
+    _refuse_existing(file)
     file.parent.mkdir(parents=True, exist_ok=True)
     entries: dict[str, Any] = {
         "format": WORKFLOW_MARKER,
@@ -191,7 +210,7 @@ def write_workflow_results(path: str | os.PathLike[str], result: WorkflowResult)
     }
     entries.update({k: v for k, v in result.meta.items() if k not in entries})
     rows = [(name, *_encode(values)) for name, values in result.arrays.items()]
-    temporary = file.with_name(f".{file.name}.{uuid.uuid4().hex[:12]}.creating")
+    temporary = temporary_path(file)
     try:
         connection = sqlite3.connect(str(temporary), isolation_level=None)
         try:

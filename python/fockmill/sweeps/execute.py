@@ -12,6 +12,7 @@ import dataclasses
 import math
 import multiprocessing
 import os
+import threading
 from collections.abc import Callable
 from concurrent.futures.process import BrokenProcessPool
 from dataclasses import dataclass, field
@@ -67,6 +68,42 @@ def _limit_blas_threads(threads: int | None) -> contextlib.AbstractContextManage
     return threadpool_limits(limits=threads, user_api="blas")  # type: ignore[no-any-return]
 
 
+def _watch_parent(lifeline: Any) -> None:
+    """Pool initializer: end this worker as soon as the sweep's process is gone.
+
+    ``lifeline`` is the reading end of a pipe whose only writing end the sweep's process
+    holds. The kernel closes that end when the process dies for any reason (SIGKILL
+    included), and the read then ends with EOF; a daemon thread waiting on it ends the
+    worker at once. This works for every start method the pool uses: under the fork
+    server a worker's parent is the server, not the sweep, so ``os.getppid()`` or a
+    parent-death signal would watch the wrong process. Once the workers are gone the fork
+    server (whose liveness pipe they held) and the resource tracker (whose pipe they held)
+    see EOF too and exit.
+    """
+
+    def wait() -> None:
+        try:
+            while True:
+                lifeline.recv_bytes()
+        except (EOFError, OSError):
+            pass
+        os._exit(70)  # EX_SOFTWARE: no cleanup, the sweep that wanted the rows is gone
+
+    threading.Thread(target=wait, name="fockmill-lifeline", daemon=True).start()
+
+
+class _Lifeline:
+    """The sweep's end of the workers' lifeline pipe (see :func:`_watch_parent`)."""
+
+    def __init__(self, context: Any) -> None:
+        self.reader, self.writer = context.Pipe(duplex=False)
+
+    def close(self) -> None:
+        """Close both ends here (the workers keep their copies of the reading end)."""
+        self.reader.close()
+        self.writer.close()
+
+
 def _guard_message(detail: str) -> str:
     return (
         f"the sweep's worker processes could not start ({detail}). A script that calls "
@@ -82,9 +119,16 @@ def _refuse_nested_start() -> None:
 
 
 def _resolve_executor(
-    executor: cf.Executor | str | Any | None, workers: int | None, points: int
+    executor: cf.Executor | str | Any | None,
+    workers: int | None,
+    points: int,
+    lifelines: list[_Lifeline] | None = None,
 ) -> tuple[cf.Executor | None, bool, int]:
-    """(executor or None for in-process, whether we own it, parallel slots)."""
+    """(executor or None for in-process, whether we own it, parallel slots).
+
+    A process pool created here gets a lifeline (appended to ``lifelines``; close it
+    after the pool is shut down) so that its workers die with this process.
+    """
     if workers is not None:
         workers = check_positive_int("workers", workers)
     if isinstance(executor, str):
@@ -103,8 +147,15 @@ def _resolve_executor(
         method = (
             "forkserver" if "forkserver" in multiprocessing.get_all_start_methods() else "spawn"
         )
+        context = multiprocessing.get_context(method)
+        lifeline = _Lifeline(context)
+        if lifelines is not None:
+            lifelines.append(lifeline)
         pool = cf.ProcessPoolExecutor(
-            max_workers=slots, mp_context=multiprocessing.get_context(method)
+            max_workers=slots,
+            mp_context=context,
+            initializer=_watch_parent,
+            initargs=(lifeline.reader,),
         )
         return pool, True, slots
     if isinstance(executor, cf.Executor):
@@ -146,7 +197,26 @@ def execute(
     """Solve the points ``order`` (already in path order), handing each row to ``finish``."""
     if chunk is not None:
         chunk = check_positive_int("chunk", chunk)
-    pool, owned, slots = _resolve_executor(executor, workers, len(order))
+    lifelines: list[_Lifeline] = []
+    try:
+        _execute(recipe, full, order, settings, executor, workers, chunk, finish, lifelines)
+    finally:
+        for lifeline in lifelines:
+            lifeline.close()
+
+
+def _execute(
+    recipe: ModelRecipe,
+    full: list[dict[str, float]],
+    order: list[int],
+    settings: SweepSettings,
+    executor: cf.Executor | str | Any | None,
+    workers: int | None,
+    chunk: int | None,
+    finish: Callable[[PointResult], None],
+    lifelines: list[_Lifeline],
+) -> None:
+    pool, owned, slots = _resolve_executor(executor, workers, len(order), lifelines)
     if pool is None:
         prepared = prepare(recipe, settings, points=len(order), first=full[order[0]])
         for row in solve_points(prepared, ((i, full[i]) for i in order), settings):

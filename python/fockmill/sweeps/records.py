@@ -394,7 +394,13 @@ def solve_point(
             start = start_vector(prepared.space.dim, dtype, settings.seed, index, previous)
             solution = solve_levels(problem, settings, start)
     except ConvergenceError as exc:
-        return failure(index, values, "not_converged", str(exc), started), None
+        message = str(exc)
+        if "of nan" in message or "of inf" in message:
+            message += (
+                "; the residual is not a number because the products overflow double "
+                "precision at these parameter values: use moderate values"
+            )
+        return failure(index, values, "not_converged", message, started), None
     except _NOT_POINT_ERRORS:
         raise
     except Exception as exc:  # any other error is this point's result, not the sweep's

@@ -21,6 +21,7 @@ from fockmill.exceptions import StoreError
 from fockmill.models.model import Model
 from fockmill.spaces.sectors import SectorChoice
 from fockmill.spaces.symmetry import ModePermutation
+from fockmill.store.claims import claim
 from fockmill.store.sweeps import PointResult, ResultsStore, SweepTable
 from fockmill.sweeps.pattern import SharedPattern
 from fockmill.sweeps.plan import (
@@ -103,14 +104,17 @@ def _attach_store(
     units: Mapping[str, str],
     sectors: SweepSectors | None = None,
 ) -> tuple[ResultsStore, bool]:
-    """Open or create the store and check it belongs to this sweep; (store, owned)."""
+    """Open or create the store and check it belongs to this sweep; (store, owned).
+
+    The caller holds the claim on a path (see :func:`fockmill.store.claims.claim`).
+    """
     if isinstance(store, ResultsStore):
         handle, owned = store, False
     elif Path(store).exists():
         handle, owned = ResultsStore.open(store, purpose="resume"), True
     else:
         meta = _new_meta(model, full, swept, settings, model_text_hash, units, sectors)
-        return ResultsStore.create(store, meta), True
+        return ResultsStore.create(store, meta, claimed=True), True
     try:
         _check_resumable(handle, model, full, settings)
         check_same_sector(handle, sectors)
@@ -334,10 +338,18 @@ def run_sweep(
 
     handle: ResultsStore | None = None
     owned_store = False
-    if store is not None:
-        handle, owned_store = _attach_store(
-            store, model, full, swept, settings, model_text_hash, unit_map, sectors
-        )
+    # One writer per file: claim a path before anything is computed or written (a
+    # second sweep or workflow on it stops here, naming this one's claim file).
+    held = None if store is None or isinstance(store, ResultsStore) else claim(store)
+    try:
+        if store is not None:
+            handle, owned_store = _attach_store(
+                store, model, full, swept, settings, model_text_hash, unit_map, sectors
+            )
+    except BaseException:
+        if held is not None:
+            held.release()
+        raise
     try:
         done = handle.finished_indices(include_failed=not retry_failed) if handle else set()
         results: dict[int, PointResult] = {}
@@ -373,6 +385,8 @@ def run_sweep(
     finally:
         if handle is not None and owned_store:
             handle.close()
+        if held is not None:
+            held.release()
 
 
 def _check_units(units: Mapping[str, str] | None) -> dict[str, str]:
