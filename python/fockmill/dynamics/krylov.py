@@ -125,7 +125,7 @@ def hermitian_map(
     native, pool = problem.native, problem.pool
 
     def apply_free(x: npt.NDArray[Any]) -> npt.NDArray[Any]:
-        return native.matvec(np.ascontiguousarray(x), pool)  # type: ignore[no-any-return]
+        return native.matvec(np.ascontiguousarray(x), threads=pool)  # type: ignore[no-any-return]
 
     return HermitianMap(estimate.dim, is_real, "operator", apply_free)
 
