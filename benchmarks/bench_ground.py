@@ -32,7 +32,7 @@ space = unit_filling(sites)
 if {probe}:
     # One product first, timed on its own (two vectors, freed before the solve), so a
     # run that cannot finish still reports the time per product.
-    native = fm._native.NativeOperator(space.native, h.to_native())
+    native = fm._native.NativeOperator.on_space(space.native, h.to_native())
     x = np.ones(space.dim)
     t0 = time.perf_counter()
     native.matvec(x)

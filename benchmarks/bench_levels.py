@@ -51,10 +51,10 @@ elif variant == "lowest_levels csr":
     energies, residuals, products = levels.energies, levels.residuals, levels.products
 else:
     problem = fm.prepare(h, space)
-    energies, vectors, residuals, products, restarts, converged = problem.native.lanczos_levels(
-        k, tol=tol, stored=(variant == "rust stored"))
+    found = problem.native.lanczos_levels(k, tol=tol, store=(variant == "rust stored"))
     seconds = time.perf_counter() - t0
-    assert converged
+    assert found.converged
+    energies, residuals, products = found.energies, found.residuals, found.products
 print(json.dumps(dict(dim=space.dim, energies=[float(e) for e in energies],
                       residual=float(np.max(residuals)), products=int(products),
                       seconds=seconds)))

@@ -109,7 +109,7 @@ def test_every_cut_equals_the_dense_oracle_and_the_stored_matrix(
     block = rng.standard_normal((space.dim, 3))
     scale = max(1.0, float(np.abs(dense).max(initial=0.0))) * 1e-12 * space.dim
     for cut in range(space.modes + 1):
-        op = _native.NativeOperator(space.native, expr.to_native(), cut)
+        op = _native.NativeOperator.on_space(space.native, expr.to_native(), cut=cut)
         assert op.cut == cut
         np.testing.assert_allclose(op.matvec(x), dense @ x, atol=scale, rtol=0)
         np.testing.assert_allclose(op.matvec(x), stored @ x, atol=scale, rtol=0)
@@ -134,11 +134,11 @@ def test_thread_count_does_not_change_a_single_bit() -> None:
     space = fm.FockSpace(modes=8, cutoff=8, total=8)
     x = np.random.default_rng(3).standard_normal(space.dim)
     for cut in (2, 4, 6):
-        op = _native.NativeOperator(space.native, h.to_native(), cut)
-        one = op.matvec(x, _native.NativePool(1))
-        two = op.matvec(x, _native.NativePool(2))
+        op = _native.NativeOperator.on_space(space.native, h.to_native(), cut=cut)
+        one = op.matvec(x, threads=_native.NativePool(1))
+        two = op.matvec(x, threads=_native.NativePool(2))
         assert np.array_equal(one, two)
-        assert np.array_equal(op.matvec(x, 2), two)
+        assert np.array_equal(op.matvec(x, threads=2), two)
 
 
 def test_automatic_cut_is_balanced_and_matches_the_matrix() -> None:
@@ -148,7 +148,7 @@ def test_automatic_cut_is_balanced_and_matches_the_matrix() -> None:
     h = bose_hubbard_ring(10, 1.0, 1.0)
     space = fm.FockSpace(modes=10, cutoff=10, total=10)
     assert space.dim == 92_378
-    op = _native.NativeOperator(space.native, h.to_native())
+    op = _native.NativeOperator.on_space(space.native, h.to_native())
     assert 3 <= op.cut <= 7
     x = np.random.default_rng(5).standard_normal(space.dim)
     np.testing.assert_allclose(op.matvec(x), fm.build_matrix(h, space) @ x, atol=1e-11)
@@ -158,7 +158,7 @@ def test_bad_cut_is_refused() -> None:
     space = fm.FockSpace(modes=3, cutoff=2, total=2)
     h = fm.number(0)
     try:
-        _native.NativeOperator(space.native, h.to_native(), 4)
+        _native.NativeOperator.on_space(space.native, h.to_native(), cut=4)
     except ValueError as error:
         assert "cut=4" in str(error)
     else:
@@ -177,15 +177,14 @@ def test_build_from_every_cut_equals_the_row_kernel_build(
         space = fm.FockSpace(cutoff=spec["cutoffs"], **options)  # type: ignore[arg-type]
     except fm.exceptions.SpaceError:
         return
-    reference = _native.NativeOperator(space.native, expr.to_native(), 0).build_csr()
+    reference = _native.NativeOperator.on_space(space.native, expr.to_native(), cut=0).build_csr()
     dense = oracle(spec, expr)
     for cut in range(1, space.modes + 1):
-        indptr, indices, data = _native.NativeOperator(
-            space.native, expr.to_native(), cut
-        ).build_csr()
-        np.testing.assert_array_equal(indptr, reference[0])
-        np.testing.assert_array_equal(indices, reference[1])
-        assert data.dtype == reference[2].dtype
-        np.testing.assert_allclose(data, reference[2], rtol=1e-14, atol=1e-14)
+        parts = _native.NativeOperator.on_space(space.native, expr.to_native(), cut=cut).build_csr()
+        indptr, indices, data = parts.indptr, parts.indices, parts.data
+        np.testing.assert_array_equal(indptr, reference.indptr)
+        np.testing.assert_array_equal(indices, reference.indices)
+        assert data.dtype == reference.data.dtype
+        np.testing.assert_allclose(data, reference.data, rtol=1e-14, atol=1e-14)
         rows = np.repeat(np.arange(space.dim), np.diff(indptr))
         np.testing.assert_allclose(dense[rows, indices], data, rtol=1e-12, atol=1e-12)

@@ -321,33 +321,36 @@ WORKER = textwrap.dedent(
             values = N.monomial_expectations(
                 space, monomials, vector(length + offset, dtype, fill), threads)
             return ("expectations", values.shape)
-        op = N.NativeOperator(space, terms)
+        op = N.NativeOperator.on_space(space, terms)
         if action == "operator":
             return ("operator", op.terms, op.is_real, op.dim)
         if action == "build_csr":
-            indptr, indices, data = op.build_csr(threads, *args)
+            parts = op.build_csr(threads=threads, force_wide=args[0])
+            indptr, indices, data = parts.indptr, parts.indices, parts.data
             assert indptr.shape == (dim + 1,) and indices.shape == data.shape
             assert int(indptr[-1]) == data.size and np.all(np.diff(indptr) >= 0)
             assert data.size == 0 or (0 <= indices.min() and indices.max() < dim)
             return ("build_csr", data.size)
         if action == "matvec":
             offset, dtype, fill = args
-            y = op.matvec(vector(length + offset, dtype, fill), threads)
+            y = op.matvec(vector(length + offset, dtype, fill), threads=threads)
             assert y.shape == (dim,), y.shape
             return ("matvec", y.shape)
         if action == "matmat":
             offset, columns, dtype = args
             block = np.ones((max(length + offset, 0), columns), dtype=dtype)
-            y = op.matmat(block, threads)
+            y = op.matmat(block, threads=threads)
             assert y.shape == (dim, columns), y.shape
             return ("matmat", y.shape)
         if action == "estimate_nnz":
-            return ("estimate_nnz", op.estimate_nnz(args[0], threads))
+            e = op.estimate_nnz(samples=args[0], threads=threads)
+            return ("estimate_nnz", (e.nnz, e.std_error, e.exact, e.max_row))
         if action == "lanczos":
             tol, steps, restarts, seed, start, stored = args
             v0 = None if start is None else vector(length + start, np.float64, 1.0)
-            out = op.lanczos_ground(tol, steps, restarts, seed, v0, threads, stored)
-            return ("lanczos", out[0], out[2], out[6])
+            out = op.lanczos_ground(tol=tol, max_steps=steps, max_restarts=restarts, seed=seed,
+                                    start=v0, threads=threads, store=stored)
+            return ("lanczos", out.energy, out.residual, out.converged)
         raise AssertionError(f"unknown action {action}")
 
     read, write = sys.stdin.buffer, sys.stdout.buffer

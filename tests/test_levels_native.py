@@ -1,5 +1,5 @@
 """The native lowest-levels solver (thick-restart Lanczos in Rust) called directly:
-``NativeOperator.lanczos_levels`` (matrix-free and stored) and ``NativeCsr`` (a CSR
+``NativeOperator.lanczos_levels`` (matrix-free and stored) and ``NativeOperator.from_csr`` (a CSR
 matrix handed in from Python), against dense numpy ``eigh`` and closed-form degenerate
 spectra."""
 
@@ -40,13 +40,14 @@ def dense(problem: fm.Problem) -> np.ndarray[Any, Any]:
 
 def check_levels(
     matrix: np.ndarray[Any, Any],
-    out: tuple[Any, ...],
+    out: Any,
     exact: np.ndarray[Any, Any],
     k: int,
     tol: float = TOL,
 ) -> None:
     """Energies equal ``exact[:k]``, vectors orthonormal eigenvectors, residuals honest."""
-    energies, vectors, residuals, products, restarts, converged = out
+    energies, vectors, residuals = out.energies, out.vectors, out.residuals
+    products, restarts, converged = out.products, out.restarts, out.converged
     assert converged
     assert energies.shape == (k,) and vectors.shape == (matrix.shape[0], k)
     assert products > 0 and restarts >= 0
@@ -66,7 +67,7 @@ def test_bose_hubbard_ring_against_eigh(stored: bool, k: int) -> None:
     problem = fm.prepare(bose_hubbard_ring(6, 1.0, 2.0), fm.FockSpace(modes=6, cutoff=6, total=6))
     matrix = dense(problem)
     exact = np.linalg.eigvalsh(matrix)
-    out = problem.native.lanczos_levels(k, tol=TOL, stored=stored, threads=2)
+    out = problem.native.lanczos_levels(k, tol=TOL, store=stored, threads=2)
     check_levels(matrix, out, exact, k)
 
 
@@ -80,7 +81,7 @@ def test_one_particle_on_a_ring_finds_both_copies_of_each_doublet(stored: bool, 
     problem = fm.prepare(ring_hopping(sites, hopping), fm.FockSpace(modes=sites, cutoff=1, total=1))
     q = np.arange(sites)
     exact = np.sort(-2 * hopping * np.cos(2 * np.pi * q / sites))
-    out = problem.native.lanczos_levels(k, tol=TOL, stored=stored)
+    out = problem.native.lanczos_levels(k, tol=TOL, store=stored)
     check_levels(dense(problem), out, exact, k)
 
 
@@ -109,7 +110,7 @@ def test_equal_frequency_normal_modes_without_number_conservation() -> None:
     out = problem.native.lanczos_levels(6, tol=TOL)
     check_levels(dense(problem), out, exact, 6)
     # Cross-check against the dense reference as well (numpy eigh).
-    np.testing.assert_allclose(out[0], np.linalg.eigvalsh(dense(problem))[:6], atol=1e-8)
+    np.testing.assert_allclose(out.energies, np.linalg.eigvalsh(dense(problem))[:6], atol=1e-8)
 
 
 def test_complex_ring_with_flux_against_eigh() -> None:
@@ -127,8 +128,8 @@ def test_complex_ring_with_flux_against_eigh() -> None:
         exact, np.sort(-2 * hopping * np.cos(2 * np.pi * q / sites + phase)), atol=1e-12
     )
     for stored in (False, True):
-        out = problem.native.lanczos_levels(5, tol=TOL, stored=stored)
-        assert out[1].dtype == np.complex128
+        out = problem.native.lanczos_levels(5, tol=TOL, store=stored)
+        assert out.vectors.dtype == np.complex128
         check_levels(matrix, out, exact, 5)
 
 
@@ -137,9 +138,9 @@ def test_same_bits_for_any_thread_count() -> None:
     problem = fm.prepare(bose_hubbard_ring(7, 1.0, 1.0), fm.FockSpace(modes=7, cutoff=7, total=7))
     one = problem.native.lanczos_levels(4, tol=TOL, threads=1)
     two = problem.native.lanczos_levels(4, tol=TOL, threads=2)
-    assert one[0].tobytes() == two[0].tobytes()
-    assert one[1].tobytes() == two[1].tobytes()
-    assert one[3] == two[3]
+    assert one.energies.tobytes() == two.energies.tobytes()
+    assert one.vectors.tobytes() == two.vectors.tobytes()
+    assert one.products == two.products
 
 
 def _sector_start(sites: int) -> np.ndarray[Any, Any]:
@@ -160,15 +161,15 @@ def test_start_without_ground_sector_weight_still_finds_the_ground_state() -> No
     np.testing.assert_allclose(
         problem.native.matvec(start), -2 * np.cos(2 * np.pi / sites) * start, atol=1e-12
     )
-    energy, _, residual, _, _, _, converged = problem.native.lanczos_ground(start=start)
-    assert converged and residual <= TOL * 2
-    assert energy == pytest.approx(-2.0, abs=1e-9)
-    energies, *_rest = problem.native.lanczos_levels(3, start=start)
+    ground = problem.native.lanczos_ground(start=start)
+    assert ground.converged and ground.residual <= TOL * 2
+    assert ground.energy == pytest.approx(-2.0, abs=1e-9)
+    energies = problem.native.lanczos_levels(3, start=start).energies
     first = -2 * np.cos(2 * np.pi / sites)
     np.testing.assert_allclose(energies, [-2.0, first, first], atol=1e-9)
     # A block start (dim, b) is accepted too.
     block = np.stack([start, np.cos(2 * np.pi * np.arange(sites) / sites)], axis=1)
-    energies, *_rest = problem.native.lanczos_levels(3, start=block)
+    energies = problem.native.lanczos_levels(3, start=block).energies
     assert energies[0] == pytest.approx(-2.0, abs=1e-9)
 
 
@@ -178,16 +179,32 @@ def test_native_csr_runs_the_same_solvers() -> None:
     matrix = csr.toarray()
     exact = np.linalg.eigvalsh(matrix)
     for index in (np.int32, np.int64):
-        held = _native.NativeCsr(csr.indptr.astype(index), csr.indices.astype(index), csr.data)
-        assert held.dim == problem.dim and held.nnz == csr.nnz and held.is_real
+        held = _native.NativeOperator.from_csr(
+            csr.indptr.astype(index), csr.indices.astype(index), csr.data
+        )
+        assert held.kind == "csr" and held.shape == (problem.dim, problem.dim)
+        assert held.is_real and held.terms is None
+        found = held.estimate_nnz()
+        assert found.exact and found.nnz == csr.nnz
+        assert found.max_row == int(np.diff(csr.indptr).max())
         check_levels(matrix, held.lanczos_levels(4, tol=TOL), exact, 4)
-        energy, _vector, residual, *_rest, converged = held.lanczos_ground(tol=TOL)
-        assert residual <= TOL * max(1.0, abs(energy))
-        assert converged and energy == pytest.approx(exact[0], abs=1e-9)
+        ground = held.lanczos_ground(tol=TOL)
+        assert ground.stored and ground.residual <= TOL * max(1.0, abs(ground.energy))
+        assert ground.converged and ground.energy == pytest.approx(exact[0], abs=1e-9)
+        # Products on the held matrix equal scipy's (reference: scipy.sparse CSR @).
+        x = np.random.default_rng(1).standard_normal(problem.dim)
+        np.testing.assert_allclose(held.matvec(x), csr @ x, rtol=1e-13, atol=1e-13)
+        z = x + 1j * np.random.default_rng(2).standard_normal(problem.dim)
+        np.testing.assert_allclose(held.matvec(z), csr @ z, rtol=1e-13, atol=1e-13)
+        block = np.random.default_rng(3).standard_normal((problem.dim, 3))
+        np.testing.assert_allclose(held.matmat(block), csr @ block, rtol=1e-13, atol=1e-13)
+        with pytest.raises(ValueError, match="handed in"):
+            held.build_csr()
     # The same results as the operator's stored variant (same matrix, same seed).
-    stored = problem.native.lanczos_levels(4, tol=TOL, stored=True)
-    held = _native.NativeCsr(csr.indptr, csr.indices, csr.data)
-    assert held.lanczos_levels(4, tol=TOL)[0].tobytes() == stored[0].tobytes()
+    stored = problem.native.lanczos_levels(4, tol=TOL, store=True)
+    assert stored.stored
+    held = _native.NativeOperator.from_csr(csr.indptr, csr.indices, csr.data)
+    assert held.lanczos_levels(4, tol=TOL).energies.tobytes() == stored.energies.tobytes()
 
 
 def test_native_csr_complex() -> None:
@@ -196,7 +213,7 @@ def test_native_csr_complex() -> None:
         ring_hopping(sites, 1.0, 0.2), fm.FockSpace(modes=sites, cutoff=1, total=1)
     )
     csr = problem.matrix()
-    held = _native.NativeCsr(csr.indptr, csr.indices, csr.data)
+    held = _native.NativeOperator.from_csr(csr.indptr, csr.indices, csr.data)
     assert not held.is_real
     matrix = csr.toarray()
     check_levels(matrix, held.lanczos_levels(3, tol=TOL), np.linalg.eigvalsh(matrix), 3)
@@ -216,8 +233,10 @@ def test_bad_input_is_refused_clearly() -> None:
         problem.native.lanczos_levels(2, tol=-1.0)
     indptr = np.array([0, 1, 2], dtype=np.int32)
     with pytest.raises(ValueError, match="outside the square matrix"):
-        _native.NativeCsr(indptr, np.array([0, 5], dtype=np.int32), np.ones(2))
+        _native.NativeOperator.from_csr(indptr, np.array([0, 5], dtype=np.int32), np.ones(2))
     with pytest.raises(ValueError, match="equal length"):
-        _native.NativeCsr(indptr, np.array([0, 1], dtype=np.int32), np.ones(3))
+        _native.NativeOperator.from_csr(indptr, np.array([0, 1], dtype=np.int32), np.ones(3))
     with pytest.raises(ValueError, match="NaN"):
-        _native.NativeCsr(indptr, np.array([0, 1], dtype=np.int32), np.array([1.0, np.nan]))
+        _native.NativeOperator.from_csr(
+            indptr, np.array([0, 1], dtype=np.int32), np.array([1.0, np.nan])
+        )

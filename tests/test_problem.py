@@ -176,13 +176,17 @@ def test_each_solve_compiles_and_estimates_once(
     real_operator = _native.NativeOperator
 
     class CountingOperator:
-        def __init__(self, *args: object) -> None:
-            compiled.append(1)
-            self._inner = real_operator(*args)
+        def __init__(self, inner: object) -> None:
+            self._inner = inner
 
-        def estimate_nnz(self, *args: object) -> object:
+        @staticmethod
+        def on_space(*args: object, **options: object) -> CountingOperator:
+            compiled.append(1)
+            return CountingOperator(real_operator.on_space(*args, **options))
+
+        def estimate_nnz(self, **options: object) -> object:
             estimated.append(1)
-            return self._inner.estimate_nnz(*args)
+            return self._inner.estimate_nnz(**options)  # type: ignore[attr-defined]
 
         def __getattr__(self, name: str) -> object:
             return getattr(self._inner, name)

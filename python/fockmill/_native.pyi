@@ -12,13 +12,14 @@ import numpy as np
 import numpy.typing as npt
 
 __all__ = [
-    "NativeBetween",
-    "NativeCsr",
+    "CsrParts",
+    "LanczosResult",
+    "LevelsResult",
     "NativeOperator",
     "NativePool",
     "NativeSpace",
-    "NativeSymmetricOperator",
     "NativeSymmetricSpace",
+    "NnzEstimate",
     "__version__",
     "default_threads",
     "density_correlations",
@@ -81,68 +82,102 @@ class NativeSpace:
     ) -> npt.NDArray[np.int64]:
         """Ranks of the rows of ``occ`` (``(n, modes)`` int64); -1 outside the space."""
 
+_Threads = int | NativePool | None
+_Terms = list[tuple[float, float, list[tuple[int, int, int]]]]
+_Index1D = npt.NDArray[np.int32] | npt.NDArray[np.int64]
+
 @final
 class NativeOperator:
-    """Validated, merged terms of an operator on a space.
+    """A compiled operator with one protocol, whatever its kind.
 
-    Parameters
-    ----------
-    space : NativeSpace
-        The space.
-    terms : list of (re, im, [(mode, p, q), ...])
-        Coefficient parts and normal-ordered factors ``(a_mode†)^p (a_mode)^q``.
-    cut : int or None
-        Product kernel: None chooses automatically; 0 is the row kernel; ``k`` the
-        bipartite kernel with left modes ``0..k``. Built once, on first use.
+    Made by one of the static constructors: :meth:`on_space`, :meth:`on_sector`,
+    :meth:`between` or :meth:`from_csr`. Every kind answers the same methods; a method a
+    kind cannot serve raises ``ValueError`` saying why (eigenvalues of an operator
+    between two spaces; rebuilding a matrix handed in as CSR).
     """
 
-    def __new__(
-        cls,
-        space: NativeSpace,
-        terms: list[tuple[float, float, list[tuple[int, int, int]]]],
-        cut: int | None = None,
-    ) -> NativeOperator: ...
+    @staticmethod
+    def on_space(space: NativeSpace, terms: _Terms, *, cut: int | None = None) -> NativeOperator:
+        """An operator on a space.
+
+        ``terms``: ``(re, im, [(mode, p, q), ...])``, coefficient parts and normal-ordered
+        factors ``(a_mode†)^p (a_mode)^q``. ``cut``: the product kernel; None chooses
+        automatically, 0 is the row kernel, ``k`` the bipartite kernel with left modes
+        ``0..k``. Built once, on first use."""
+    @staticmethod
+    def on_sector(sector: NativeSymmetricSpace, terms: _Terms) -> NativeOperator:
+        """An operator commuting with the sector's group, on the sector."""
+    @staticmethod
+    def between(
+        source: NativeSpace, target: NativeSpace, terms: _Terms, *, project: bool = False
+    ) -> NativeOperator:
+        """An operator carrying the states of ``source`` into ``target`` (same modes and
+        cutoffs): a matrix of shape ``(target.dim, source.dim)``. ``project``: keep terms
+        whose image leaves ``target`` and drop that part (adjoints); by default such
+        terms are refused."""
+    @staticmethod
+    def from_csr(indptr: _Index1D, indices: _Index1D, data: _RealOrComplex1D) -> NativeOperator:
+        """A square Hermitian CSR matrix copied in (int32 or int64 indices, int64 kept
+        when either is; float64 or complex128 values). Hermiticity is assumed, not
+        checked."""
+    @property
+    def kind(self) -> str:
+        """``"space"``, ``"sector"``, ``"between"`` or ``"csr"``."""
+    @property
+    def is_real(self) -> bool:
+        """Whether the matrix is float64 (real coefficients and characters)."""
+    @property
+    def dim(self) -> int:
+        """Columns: the dimension of the space it acts on."""
+    @property
+    def rows(self) -> int:
+        """Rows: the dimension of the space products land in."""
+    @property
+    def shape(self) -> tuple[int, int]:
+        """``(rows, dim)``."""
+    @property
+    def terms(self) -> int | None:
+        """Distinct nonzero monomials after merging (None for a CSR matrix)."""
     @property
     def cut(self) -> int:
-        """The cut of the product kernel in use (0: the row kernel)."""
-    @property
-    def is_real(self) -> bool: ...
-    @property
-    def terms(self) -> int: ...
-    @property
-    def dim(self) -> int: ...
-    def build_csr(
-        self, threads: int | NativePool | None = None, force_wide: bool = False
-    ) -> tuple[
-        npt.NDArray[np.int32] | npt.NDArray[np.int64],
-        npt.NDArray[np.int32] | npt.NDArray[np.int64],
-        _RealOrComplex1D,
-    ]:
-        """CSR arrays ``(indptr, indices, data)``, moved to NumPy without a copy."""
-    def matvec(
-        self, x: _RealOrComplex1D, threads: int | NativePool | None = None
-    ) -> _RealOrComplex1D:
-        """``H x`` (complex128 when ``x`` or ``H`` is complex)."""
-    def matmat(
-        self, x: _RealOrComplex2D, threads: int | NativePool | None = None
-    ) -> _RealOrComplex2D:
-        """``H X`` for a ``(dim, k)`` block."""
-    def estimate_nnz(
-        self, samples: int = 2048, threads: int | NativePool | None = None
-    ) -> tuple[float, float, bool, int]:
-        """``(nnz, standard error, exact, largest row)`` without building."""
+        """The cut of the product kernel on a space (0: the row kernel; 0 for the other
+        kinds)."""
+    def matvec(self, x: _RealOrComplex1D, *, threads: _Threads = None) -> _RealOrComplex1D:
+        """``A x`` (complex128 when ``x`` or ``A`` is complex), length ``rows``."""
+    def matmat(self, x: _RealOrComplex2D, *, threads: _Threads = None) -> _RealOrComplex2D:
+        """``A X`` for a ``(dim, k)`` block; the result is ``(rows, k)``."""
+    def build_csr(self, *, threads: _Threads = None, force_wide: bool = False) -> CsrParts:
+        """The canonical CSR arrays, moved to NumPy without a copy."""
+    def estimate_nnz(self, *, samples: int = 2048, threads: _Threads = None) -> NnzEstimate:
+        """Stored entries and CSR sizes without building (exact for small spaces)."""
+    def stores_matrix(
+        self,
+        *,
+        levels: int = 1,
+        store: bool | None = None,
+        memory_limit: int | None = None,
+        threads: _Threads = None,
+    ) -> bool:
+        """Whether a Lanczos solve of ``levels`` levels runs on a stored CSR matrix.
+
+        ``store``: True or False obey; None decides: matrix-free on the bipartite kernel
+        (``cut > 0``), otherwise stored when the build peak plus the solver's vectors fit
+        in 0.8 of ``memory_limit`` (None: the memory available now). True beyond
+        ``memory_limit`` raises ``SizeLimitError``. Always True for a CSR matrix."""
     def lanczos_ground(
         self,
+        *,
         tol: float = 1e-9,
         max_steps: int = 400,
         max_restarts: int = 8,
         seed: int = 0x5EED,
         start: _RealOrComplex1D | None = None,
-        threads: int | NativePool | None = None,
-        stored: bool = False,
-    ) -> tuple[float, _RealOrComplex1D, float, int, int, int, bool]:
-        """Four-vector Lanczos ground state:
-        ``(energy, vector, residual, steps, products, restarts, converged)``.
+        threads: _Threads = None,
+        store: bool | None = None,
+        memory_limit: int | None = None,
+    ) -> LanczosResult:
+        """Four-vector Lanczos ground state, matrix-free or on a stored matrix as
+        :meth:`stores_matrix` decides.
 
         A ``start`` is normalised and mixed with seeded noise of relative weight 1e-4
         (seed ``seed``), so that a start with no weight on the ground state's symmetry
@@ -150,16 +185,17 @@ class NativeOperator:
     def lanczos_levels(
         self,
         k: int,
+        *,
         tol: float = 1e-9,
         max_products: int = 10_000,
         seed: int = 0x5EED,
         start: _RealOrComplex1D | _RealOrComplex2D | None = None,
-        threads: int | NativePool | None = None,
-        stored: bool = False,
+        threads: _Threads = None,
+        store: bool | None = None,
+        memory_limit: int | None = None,
         basis: int = 0,
-    ) -> tuple[npt.NDArray[np.float64], _RealOrComplex2D, npt.NDArray[np.float64], int, int, bool]:
-        """Lowest ``k`` levels by thick-restart Lanczos (Wu & Simon 2000) in Rust:
-        ``(energies, vectors, residuals, products, restarts, converged)``.
+    ) -> LevelsResult:
+        """Lowest ``k`` levels by thick-restart Lanczos (Wu & Simon 2000) in Rust.
 
         ``energies`` ascending; ``vectors`` shape ``(dim, k)`` (Fortran order, no copy),
         orthonormal; ``residuals`` the measured ``‖Hv − Ev‖``; ``converged`` when every
@@ -168,55 +204,84 @@ class NativeOperator:
         copy of a degenerate level that fits in ``k`` is returned: converged levels are
         locked, then fresh seeded runs on their orthogonal complement re-check that no
         lower level remains. Memory: ``basis + 1`` vectors (``basis`` 0 means
-        ``min(dim, 2k + 8)``; at least ``k + 4``), plus the CSR matrix when ``stored``.
+        ``min(dim, 2k + 8)``; at least ``k + 4``), plus the CSR matrix when stored.
         ``start``: one vector ``(dim,)`` or a block ``(dim, b)`` (summed, each column
         normalised), mixed with seeded noise of relative weight 1e-4."""
 
 @final
-class NativeCsr:
-    """A square Hermitian CSR matrix copied in from Python, for the Rust solvers.
+class LanczosResult:
+    """A Lanczos ground state."""
 
-    Parameters
-    ----------
-    indptr, indices : numpy.ndarray
-        int32 or int64 CSR row pointers and column indices (int64 kept when either is).
-    data : numpy.ndarray
-        float64 or complex128 values. Hermiticity is assumed, not checked.
-    """
+    @property
+    def energy(self) -> float: ...
+    @property
+    def vector(self) -> _RealOrComplex1D: ...
+    @property
+    def residual(self) -> float:
+        """``‖Hψ − Eψ‖``, measured with a final product."""
+    @property
+    def steps(self) -> int: ...
+    @property
+    def products(self) -> int: ...
+    @property
+    def restarts(self) -> int: ...
+    @property
+    def converged(self) -> bool: ...
+    @property
+    def stored(self) -> bool:
+        """Whether a stored CSR matrix served the products."""
 
-    def __new__(
-        cls,
-        indptr: npt.NDArray[np.int32] | npt.NDArray[np.int64],
-        indices: npt.NDArray[np.int32] | npt.NDArray[np.int64],
-        data: _RealOrComplex1D,
-    ) -> NativeCsr: ...
+@final
+class LevelsResult:
+    """The lowest levels of a thick-restart Lanczos run."""
+
     @property
-    def dim(self) -> int: ...
+    def energies(self) -> npt.NDArray[np.float64]: ...
     @property
-    def nnz(self) -> int: ...
+    def vectors(self) -> _RealOrComplex2D: ...
     @property
-    def is_real(self) -> bool: ...
-    def lanczos_ground(
-        self,
-        tol: float = 1e-9,
-        max_steps: int = 400,
-        max_restarts: int = 8,
-        seed: int = 0x5EED,
-        start: _RealOrComplex1D | _RealOrComplex2D | None = None,
-        threads: int | NativePool | None = None,
-    ) -> tuple[float, _RealOrComplex1D, float, int, int, int, bool]:
-        """As :meth:`NativeOperator.lanczos_ground`, on this matrix."""
-    def lanczos_levels(
-        self,
-        k: int,
-        tol: float = 1e-9,
-        max_products: int = 10_000,
-        seed: int = 0x5EED,
-        start: _RealOrComplex1D | _RealOrComplex2D | None = None,
-        threads: int | NativePool | None = None,
-        basis: int = 0,
-    ) -> tuple[npt.NDArray[np.float64], _RealOrComplex2D, npt.NDArray[np.float64], int, int, bool]:
-        """As :meth:`NativeOperator.lanczos_levels`, on this matrix."""
+    def residuals(self) -> npt.NDArray[np.float64]: ...
+    @property
+    def products(self) -> int: ...
+    @property
+    def restarts(self) -> int: ...
+    @property
+    def converged(self) -> bool: ...
+    @property
+    def stored(self) -> bool:
+        """Whether a stored CSR matrix served the products."""
+
+@final
+class NnzEstimate:
+    """Estimated stored entries of a matrix and the sizes of its CSR arrays."""
+
+    @property
+    def nnz(self) -> float: ...
+    @property
+    def std_error(self) -> float: ...
+    @property
+    def exact(self) -> bool: ...
+    @property
+    def max_row(self) -> int: ...
+    @property
+    def wide(self) -> bool:
+        """Whether the indices need int64."""
+    @property
+    def csr_bytes(self) -> int: ...
+    @property
+    def build_peak_bytes(self) -> int:
+        """Peak bytes while building (the matrix plus one row-count array)."""
+
+@final
+class CsrParts:
+    """The arrays of a canonical CSR matrix (sorted columns, no duplicates, no zeros)."""
+
+    @property
+    def data(self) -> _RealOrComplex1D: ...
+    @property
+    def indices(self) -> _Index1D: ...
+    @property
+    def indptr(self) -> _Index1D: ...
 
 @final
 class NativeSymmetricSpace:
@@ -254,118 +319,6 @@ class NativeSymmetricSpace:
         self, w: _RealOrComplex1D, threads: int | NativePool | None = None
     ) -> _RealOrComplex1D:
         """The adjoint of ``expand``."""
-
-@final
-class NativeSymmetricOperator:
-    """An operator commuting with a sector's group, on the sector (same protocol as
-    :class:`NativeOperator`)."""
-
-    def __new__(
-        cls,
-        sector: NativeSymmetricSpace,
-        terms: list[tuple[float, float, list[tuple[int, int, int]]]],
-    ) -> NativeSymmetricOperator: ...
-    @property
-    def is_real(self) -> bool: ...
-    @property
-    def terms(self) -> int: ...
-    @property
-    def dim(self) -> int: ...
-    def build_csr(
-        self, threads: int | NativePool | None = None, force_wide: bool = False
-    ) -> tuple[
-        npt.NDArray[np.int32] | npt.NDArray[np.int64],
-        npt.NDArray[np.int32] | npt.NDArray[np.int64],
-        _RealOrComplex1D,
-    ]:
-        """Canonical CSR arrays of the sector matrix."""
-    def matvec(
-        self, x: _RealOrComplex1D, threads: int | NativePool | None = None
-    ) -> _RealOrComplex1D:
-        """``H x`` on the sector."""
-    def matmat(
-        self, x: _RealOrComplex2D, threads: int | NativePool | None = None
-    ) -> _RealOrComplex2D:
-        """``H X`` for a ``(dim, k)`` block."""
-    def estimate_nnz(
-        self, samples: int = 2048, threads: int | NativePool | None = None
-    ) -> tuple[float, float, bool, int]:
-        """``(nnz, standard error, exact, largest row)`` without building."""
-    def lanczos_ground(
-        self,
-        tol: float = 1e-9,
-        max_steps: int = 400,
-        max_restarts: int = 8,
-        seed: int = 0x5EED,
-        start: _RealOrComplex1D | None = None,
-        threads: int | NativePool | None = None,
-        stored: bool = False,
-    ) -> tuple[float, _RealOrComplex1D, float, int, int, int, bool]:
-        """Four-vector Lanczos ground state on the sector."""
-    def lanczos_levels(
-        self,
-        k: int,
-        tol: float = 1e-9,
-        max_products: int = 10_000,
-        seed: int = 0x5EED,
-        start: _RealOrComplex1D | _RealOrComplex2D | None = None,
-        threads: int | NativePool | None = None,
-        stored: bool = False,
-        basis: int = 0,
-    ) -> tuple[npt.NDArray[np.float64], _RealOrComplex2D, npt.NDArray[np.float64], int, int, bool]:
-        """Lowest ``k`` levels on the sector, as ``NativeOperator.lanczos_levels``."""
-
-@final
-class NativeBetween:
-    """An operator carrying the states of ``source`` into ``target`` (same modes and
-    cutoffs): a matrix of shape ``(rows, dim) = (target.dim, source.dim)``.
-
-    Parameters
-    ----------
-    source, target : NativeSpace
-        Where the operator starts and where it lands.
-    terms : list of (re, im, [(mode, p, q), ...])
-        As for :class:`NativeOperator`.
-    project : bool
-        Keep terms whose image leaves ``target`` and drop that part (adjoints); by
-        default such terms are refused.
-    """
-
-    def __new__(
-        cls,
-        source: NativeSpace,
-        target: NativeSpace,
-        terms: list[tuple[float, float, list[tuple[int, int, int]]]],
-        project: bool = False,
-    ) -> NativeBetween: ...
-    @property
-    def is_real(self) -> bool: ...
-    @property
-    def terms(self) -> int: ...
-    @property
-    def dim(self) -> int: ...
-    @property
-    def rows(self) -> int: ...
-    def build_csr(
-        self, threads: int | NativePool | None = None, force_wide: bool = False
-    ) -> tuple[
-        npt.NDArray[np.int32] | npt.NDArray[np.int64],
-        npt.NDArray[np.int32] | npt.NDArray[np.int64],
-        _RealOrComplex1D,
-    ]:
-        """CSR arrays ``(indptr, indices, data)`` of the ``(rows, dim)`` matrix."""
-    def matvec(
-        self, x: _RealOrComplex1D, threads: int | NativePool | None = None
-    ) -> _RealOrComplex1D:
-        """``A x`` for ``x`` of length ``dim``; the result has length ``rows``."""
-    def matmat(
-        self, x: _RealOrComplex2D, threads: int | NativePool | None = None
-    ) -> _RealOrComplex2D:
-        """``A X`` for a ``(dim, k)`` block; the result is ``(rows, k)``."""
-    def estimate_nnz(
-        self, samples: int = 2048, threads: int | NativePool | None = None
-    ) -> tuple[float, float, bool, int]:
-        """``(nnz, standard error, exact, largest row)`` without building."""
 
 def monomial_expectations(
     space: NativeSpace,

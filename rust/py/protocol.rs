@@ -1,19 +1,21 @@
-//! The native operator protocol, written once: products of a vector or a block, CSR
-//! builds, nnz estimates and the two Lanczos solvers, each dispatched to the real
-//! version of an operator (when it has one and the input allows it) or to its complex
-//! version, run with the interpreter released and converted for NumPy without copying.
-//! Each operator class says how one version does the work ([`Served`], [`Solved`]) and
-//! hands its versions to [`Versions`].
+//! The native operator protocol, written once for every kind of operator: products of
+//! a vector or a block, CSR builds, nonzero estimates and the two Lanczos solvers, each
+//! dispatched to the real version of an operator (when it has one and the input allows
+//! it) or to its complex version, run with the interpreter released, and returned as
+//! NumPy arrays (moved, not copied) or small result objects. Each kind says how one
+//! version does the work ([`Served`] and the core's [`Solvable`]) and hands its versions
+//! to [`Versions`]; the stored-or-matrix-free choice of the solvers is the core's
+//! ([`fockmill_core::solve`]).
 
+use crate::arrays::{owned_copy, FromInput, InBlock, InStart, InVector, OwnedVector};
 use crate::errors::guarded;
-use crate::levels::{levels_to_python, owned_start, FromInput, InStart, LevelsTuple};
-use crate::{
-    csr_to_python, detached, outcome_to_python, owned_copy, InBlock, InVector, LanczosTuple, Threads,
-};
+use crate::results::{CsrParts, LanczosResult, LevelsResult, NnzEstimate};
+use crate::threads::{detached, Threads};
 use fockmill_core::build::CsrAny;
-use fockmill_core::lanczos::{LanczosOptions, LanczosOutcome};
-use fockmill_core::levels::{LevelsOptions, LevelsOutcome};
-use fockmill_core::symmetry::{SectorOperator, SymmetricSpace};
+use fockmill_core::estimate::NnzEstimate as CoreEstimate;
+use fockmill_core::lanczos::LanczosOptions;
+use fockmill_core::levels::LevelsOptions;
+use fockmill_core::solve::{self, Solvable, Storage};
 use fockmill_core::{CoreResult, Interrupt, Runner, Scalar};
 use num_complex::Complex64;
 use numpy::ndarray::Array2;
@@ -21,76 +23,22 @@ use numpy::{IntoPyArray, PyUntypedArrayMethods};
 use pyo3::prelude::*;
 
 /// One version (real or complex) of an operator: products, builds, estimates.
-pub(crate) trait Served<S: Scalar>: Sync {
-    /// Length of one product (rows of the matrix).
-    fn out_len(&self) -> usize;
+pub trait Served<S: Scalar>: Sync {
+    /// Rows of the matrix (length of one product).
+    fn rows(&self) -> usize;
+    /// Columns of the matrix (length of one input vector).
+    fn cols(&self) -> usize;
     /// `Y = A X` for `k` vectors stored row-major.
     fn apply(&self, x: &[S], y: &mut [S], k: usize, runner: &Runner, stop: &dyn Interrupt) -> CoreResult<()>;
-    /// The CSR matrix (its `dim` is the number of rows).
+    /// The CSR matrix.
     fn build(&self, runner: &Runner, stop: &dyn Interrupt, force_wide: bool) -> CoreResult<CsrAny<S>>;
-    /// (nnz estimate, standard error, exact?, largest row).
-    fn estimate(
-        &self,
-        samples: usize,
-        runner: &Runner,
-        stop: &dyn Interrupt,
-    ) -> CoreResult<(f64, f64, bool, u64)>;
-}
-
-/// One version of a Hermitian operator: the Lanczos solvers, matrix-free or (with
-/// `stored`) on a CSR matrix kept inside Rust.
-pub(crate) trait Solved<S: Scalar>: Sync {
-    /// Dimension of a vector.
-    fn dim(&self) -> usize;
-    /// Lanczos ground state.
-    fn ground(
-        &self,
-        stored: bool,
-        start: Option<Vec<S>>,
-        opts: &LanczosOptions,
-        runner: &Runner,
-        stop: &dyn Interrupt,
-    ) -> CoreResult<LanczosOutcome<S>>;
-    /// Lowest `k` levels.
-    #[allow(clippy::too_many_arguments)]
-    fn levels(
-        &self,
-        stored: bool,
-        k: usize,
-        start: Option<Vec<S>>,
-        opts: &LevelsOptions,
-        runner: &Runner,
-        stop: &dyn Interrupt,
-    ) -> CoreResult<LevelsOutcome<S>>;
-}
-
-/// A start vector as a method receives it: one vector, or (levels) a block.
-pub(crate) trait StartIn {
-    /// Owned copy in the solver's element type (a real solver takes the real part).
-    fn owned<S: FromInput>(&self) -> PyResult<Vec<S>>;
-}
-
-impl StartIn for InVector<'_> {
-    fn owned<S: FromInput>(&self) -> PyResult<Vec<S>> {
-        let what = "a copy of the start vector";
-        match self {
-            InVector::Real(a) => owned_copy(a.len(), a.as_array().iter().map(|&v| S::from_real(v)), what),
-            InVector::Complex(a) => {
-                owned_copy(a.len(), a.as_array().iter().map(|&v| S::from_complex(v)), what)
-            }
-        }
-    }
-}
-
-impl StartIn for InStart<'_> {
-    fn owned<S: FromInput>(&self) -> PyResult<Vec<S>> {
-        owned_start::<S>(self)
-    }
+    /// Estimated stored entries from `samples` rows.
+    fn estimate(&self, samples: usize, runner: &Runner, stop: &dyn Interrupt) -> CoreResult<CoreEstimate>;
 }
 
 /// The versions of one operator: the real one when every coefficient (and character)
 /// is real, and the complex one, which serves complex inputs and complex operators.
-pub(crate) struct Versions<R, C> {
+pub struct Versions<R, C> {
     pub real: Option<R>,
     pub complex: C,
 }
@@ -104,7 +52,7 @@ fn product<S: Scalar>(
     threads: Option<Threads<'_>>,
 ) -> PyResult<Vec<S>> {
     detached(py, threads, |r, s| {
-        let len = op.out_len().saturating_mul(k);
+        let len = op.rows().saturating_mul(k);
         let mut y = fockmill_core::memory::try_filled(len, S::ZERO, "the product")?;
         op.apply(x, &mut y, k, r, s).map(|_| y)
     })
@@ -115,71 +63,34 @@ fn shaped<S>(rows: usize, k: usize, y: Vec<S>) -> Array2<S> {
     Array2::from_shape_vec((rows, k), y).expect("shape checked by the core")
 }
 
-fn ground_of<'py, S: FromInput + numpy::Element>(
-    py: Python<'py>,
-    op: &impl Solved<S>,
-    stored: bool,
-    start: Option<&impl StartIn>,
-    opts: &LanczosOptions,
+fn estimate_of<S: Scalar>(
+    py: Python<'_>,
+    op: &impl Served<S>,
+    samples: usize,
     threads: Option<Threads<'_>>,
-) -> PyResult<LanczosTuple<'py>> {
-    let start = start.map(|s| s.owned::<S>()).transpose()?;
-    let out = detached(py, threads, |r, s| op.ground(stored, start, opts, r, s))?;
-    Ok(outcome_to_python(py, out))
-}
-
-#[allow(clippy::too_many_arguments)]
-fn levels_of<'py, S: FromInput + numpy::Element>(
-    py: Python<'py>,
-    op: &impl Solved<S>,
-    stored: bool,
-    k: usize,
-    start: Option<&InStart<'py>>,
-    opts: &LevelsOptions,
-    threads: Option<Threads<'_>>,
-) -> PyResult<LevelsTuple<'py>> {
-    let start = start.map(|s| s.owned::<S>()).transpose()?;
-    let out = detached(py, threads, |r, s| op.levels(stored, k, start, opts, r, s))?;
-    levels_to_python(py, op.dim(), out)
-}
-
-/// Lanczos ground state on one version (for classes that hold a single one).
-pub(crate) fn ground_on<'py, S: FromInput + numpy::Element>(
-    py: Python<'py>,
-    op: &impl Solved<S>,
-    opts: &LanczosOptions,
-    start: Option<&impl StartIn>,
-    threads: Option<Threads<'_>>,
-) -> PyResult<LanczosTuple<'py>> {
-    ground_of(py, op, false, start, opts, threads)
-}
-
-/// Lowest levels on one version (for classes that hold a single one).
-pub(crate) fn levels_on<'py, S: FromInput + numpy::Element>(
-    py: Python<'py>,
-    op: &impl Solved<S>,
-    k: usize,
-    opts: &LevelsOptions,
-    start: Option<&InStart<'py>>,
-    threads: Option<Threads<'_>>,
-) -> PyResult<LevelsTuple<'py>> {
-    levels_of(py, op, false, k, start, opts, threads)
+) -> PyResult<NnzEstimate> {
+    let est = detached(py, threads, |r, s| op.estimate(samples, r, s))?;
+    let size = std::mem::size_of::<S>();
+    Ok(NnzEstimate::new(est, op.rows() as u64, op.cols() as u64, size))
 }
 
 impl<R: Served<f64>, C: Served<Complex64>> Versions<R, C> {
-    /// CSR arrays (indptr, indices, data).
-    pub fn build_csr<'py>(
+    /// The CSR arrays.
+    pub fn build_csr(
         &self,
-        py: Python<'py>,
+        py: Python<'_>,
         threads: Option<Threads<'_>>,
         force_wide: bool,
-    ) -> PyResult<Bound<'py, PyAny>> {
+    ) -> PyResult<CsrParts> {
         guarded(|| match &self.real {
-            Some(op) => csr_to_python(py, detached(py, threads, |r, s| op.build(r, s, force_wide))?),
-            None => csr_to_python(
+            Some(op) => Ok(CsrParts::new(
+                py,
+                detached(py, threads, |r, s| op.build(r, s, force_wide))?,
+            )),
+            None => Ok(CsrParts::new(
                 py,
                 detached(py, threads, |r, s| self.complex.build(r, s, force_wide))?,
-            ),
+            )),
         })
     }
 
@@ -191,7 +102,7 @@ impl<R: Served<f64>, C: Served<Complex64>> Versions<R, C> {
         threads: Option<Threads<'_>>,
     ) -> PyResult<Bound<'py, PyAny>> {
         guarded(|| match (x.to_owned_vec()?, &self.real) {
-            (crate::OwnedVector::Real(x), Some(op)) => {
+            (OwnedVector::Real(x), Some(op)) => {
                 Ok(product(py, op, &x, 1, threads)?.into_pyarray(py).into_any())
             }
             (owned, _) => {
@@ -203,7 +114,7 @@ impl<R: Served<f64>, C: Served<Complex64>> Versions<R, C> {
         })
     }
 
-    /// `Y = A X` for a `(n, k)` block; the result has shape `(rows, k)`.
+    /// `Y = A X` for a `(cols, k)` block; the result has shape `(rows, k)`.
     pub fn matmat<'py>(
         &self,
         py: Python<'py>,
@@ -220,7 +131,7 @@ impl<R: Served<f64>, C: Served<Complex64>> Versions<R, C> {
                 (InBlock::Real(a), Some(op)) => {
                     let xs = owned_copy(a.len(), a.as_array().iter().copied(), what)?;
                     let y = product(py, op, &xs, k, threads)?;
-                    Ok(shaped(op.out_len(), k, y).into_pyarray(py).into_any())
+                    Ok(shaped(op.rows(), k, y).into_pyarray(py).into_any())
                 }
                 _ => {
                     let xs: Vec<Complex64> = match &x {
@@ -232,148 +143,99 @@ impl<R: Served<f64>, C: Served<Complex64>> Versions<R, C> {
                         InBlock::Complex(a) => owned_copy(a.len(), a.as_array().iter().copied(), what)?,
                     };
                     let y = product(py, &self.complex, &xs, k, threads)?;
-                    Ok(shaped(self.complex.out_len(), k, y).into_pyarray(py).into_any())
+                    Ok(shaped(self.complex.rows(), k, y).into_pyarray(py).into_any())
                 }
             }
         })
     }
 
-    /// (nnz estimate, standard error, exact?, largest row) without building.
+    /// Estimated stored entries and CSR sizes, without building.
     pub fn estimate_nnz(
         &self,
         py: Python<'_>,
         samples: usize,
         threads: Option<Threads<'_>>,
-    ) -> PyResult<(f64, f64, bool, u64)> {
+    ) -> PyResult<NnzEstimate> {
         guarded(|| match &self.real {
-            Some(op) => detached(py, threads, |r, s| op.estimate(samples, r, s)),
-            None => detached(py, threads, |r, s| self.complex.estimate(samples, r, s)),
+            Some(op) => estimate_of(py, op, samples, threads),
+            None => estimate_of(py, &self.complex, samples, threads),
         })
     }
 }
 
-impl<R: Solved<f64>, C: Solved<Complex64>> Versions<R, C> {
-    /// Lanczos ground state: (energy, vector, residual, steps, products, restarts,
-    /// converged).
-    #[allow(clippy::too_many_arguments)]
-    pub fn lanczos_ground<'py>(
-        &self,
-        py: Python<'py>,
-        tol: f64,
-        max_steps: usize,
-        max_restarts: usize,
-        seed: u64,
-        start: Option<InVector<'py>>,
-        threads: Option<Threads<'_>>,
-        stored: bool,
-    ) -> PyResult<LanczosTuple<'py>> {
-        guarded(|| {
-            let opts = LanczosOptions {
-                tol,
-                max_steps,
-                max_restarts,
-                seed,
-            };
-            match &self.real {
-                Some(op) => ground_of(py, op, stored, start.as_ref(), &opts, threads),
-                None => ground_of(py, &self.complex, stored, start.as_ref(), &opts, threads),
-            }
-        })
-    }
+/// The solver options and inputs the protocol's two Lanczos methods share.
+pub struct SolveRequest<'a, 'py> {
+    pub storage: Storage,
+    pub start: Option<InStart<'py>>,
+    pub threads: Option<Threads<'a>>,
+}
 
-    /// Lowest `k` levels: (energies, vectors (dim, k), residuals, products, restarts,
-    /// converged).
-    #[allow(clippy::too_many_arguments)]
-    pub fn lanczos_levels<'py>(
+impl<R: Solvable<f64>, C: Solvable<Complex64>> Versions<R, C> {
+    /// Whether a solve of `k` levels would store the matrix (the core's decision).
+    pub fn stores_matrix(
         &self,
-        py: Python<'py>,
+        py: Python<'_>,
         k: usize,
-        tol: f64,
-        max_products: usize,
-        seed: u64,
-        start: Option<InStart<'py>>,
+        storage: Storage,
         threads: Option<Threads<'_>>,
-        stored: bool,
-        basis: usize,
-    ) -> PyResult<LevelsTuple<'py>> {
-        guarded(|| {
-            let opts = LevelsOptions {
-                tol,
-                max_products,
-                seed,
-                basis,
-            };
-            match &self.real {
-                Some(op) => levels_of(py, op, stored, k, start.as_ref(), &opts, threads),
-                None => levels_of(py, &self.complex, stored, k, start.as_ref(), &opts, threads),
-            }
+    ) -> PyResult<bool> {
+        guarded(|| match &self.real {
+            Some(op) => detached(py, threads, |r, s| storage.decide(op, k, r, s)),
+            None => detached(py, threads, |r, s| storage.decide(&self.complex, k, r, s)),
         })
     }
-}
 
-/// One version (real or complex) of an operator on a symmetry sector.
-pub(crate) struct SectorVersion<'a, S: Scalar> {
-    sector: &'a SymmetricSpace,
-    op: &'a SectorOperator<S>,
-}
-
-/// The versions of an operator on a symmetry sector.
-pub(crate) fn sector_versions<'a>(
-    sector: &'a SymmetricSpace,
-    real: Option<&'a SectorOperator<f64>>,
-    complex: &'a SectorOperator<Complex64>,
-) -> Versions<SectorVersion<'a, f64>, SectorVersion<'a, Complex64>> {
-    Versions {
-        real: real.map(|op| SectorVersion { sector, op }),
-        complex: SectorVersion { sector, op: complex },
-    }
-}
-
-impl<S: Scalar> Served<S> for SectorVersion<'_, S> {
-    fn out_len(&self) -> usize {
-        self.sector.dim() as usize
-    }
-    fn apply(&self, x: &[S], y: &mut [S], k: usize, runner: &Runner, stop: &dyn Interrupt) -> CoreResult<()> {
-        self.op.apply_many(self.sector, x, y, k, runner, stop)
-    }
-    fn build(&self, runner: &Runner, stop: &dyn Interrupt, force_wide: bool) -> CoreResult<CsrAny<S>> {
-        self.op.build_csr(self.sector, runner, stop, force_wide)
-    }
-    fn estimate(
+    /// The four-vector Lanczos ground state.
+    pub fn lanczos_ground(
         &self,
-        samples: usize,
-        runner: &Runner,
-        stop: &dyn Interrupt,
-    ) -> CoreResult<(f64, f64, bool, u64)> {
-        self.op.estimate_nnz(self.sector, samples, runner, stop)
-    }
-}
-
-impl<S: Scalar> Solved<S> for SectorVersion<'_, S> {
-    fn dim(&self) -> usize {
-        self.sector.dim() as usize
-    }
-    fn ground(
-        &self,
-        stored: bool,
-        start: Option<Vec<S>>,
+        py: Python<'_>,
         opts: &LanczosOptions,
-        runner: &Runner,
-        stop: &dyn Interrupt,
-    ) -> CoreResult<LanczosOutcome<S>> {
-        self.op
-            .lanczos_ground(self.sector, stored, start, opts, runner, stop)
+        req: SolveRequest<'_, '_>,
+    ) -> PyResult<LanczosResult> {
+        fn on<S: FromInput>(
+            py: Python<'_>,
+            op: &impl Solvable<S>,
+            opts: &LanczosOptions,
+            req: SolveRequest<'_, '_>,
+        ) -> PyResult<LanczosResult> {
+            let start = req.start.as_ref().map(|s| s.owned::<S>()).transpose()?;
+            let storage = req.storage;
+            let (out, stored) = detached(py, req.threads, |r, s| {
+                solve::ground_state(op, &storage, start, opts, r, s)
+            })?;
+            Ok(LanczosResult::new(py, out, stored))
+        }
+        guarded(|| match &self.real {
+            Some(op) => on(py, op, opts, req),
+            None => on(py, &self.complex, opts, req),
+        })
     }
-    fn levels(
+
+    /// The lowest `k` levels by thick-restart Lanczos.
+    pub fn lanczos_levels(
         &self,
-        stored: bool,
+        py: Python<'_>,
         k: usize,
-        start: Option<Vec<S>>,
         opts: &LevelsOptions,
-        runner: &Runner,
-        stop: &dyn Interrupt,
-    ) -> CoreResult<LevelsOutcome<S>> {
-        self.op
-            .lowest_levels(self.sector, stored, k, start, opts, runner, stop)
+        req: SolveRequest<'_, '_>,
+    ) -> PyResult<LevelsResult> {
+        fn on<S: FromInput>(
+            py: Python<'_>,
+            op: &impl Solvable<S>,
+            k: usize,
+            opts: &LevelsOptions,
+            req: SolveRequest<'_, '_>,
+        ) -> PyResult<LevelsResult> {
+            let start = req.start.as_ref().map(|s| s.owned::<S>()).transpose()?;
+            let storage = req.storage;
+            let (out, stored) = detached(py, req.threads, |r, s| {
+                solve::lowest_levels(op, &storage, k, start, opts, r, s)
+            })?;
+            LevelsResult::new(py, op.dim(), out, stored)
+        }
+        guarded(|| match &self.real {
+            Some(op) => on(py, op, k, opts, req),
+            None => on(py, &self.complex, k, opts, req),
+        })
     }
 }

@@ -129,7 +129,7 @@ def hermitian_map(
     native, pool = problem.native, problem.pool
 
     def apply_free(x: npt.NDArray[Any]) -> npt.NDArray[Any]:
-        return native.matvec(np.ascontiguousarray(x), pool)  # type: ignore[no-any-return]
+        return native.matvec(np.ascontiguousarray(x), threads=pool)  # type: ignore[no-any-return]
 
     return HermitianMap(estimate.dim, is_real, "operator", apply_free)
 
@@ -160,7 +160,7 @@ def expectation_function(observable: Any) -> Callable[[npt.NDArray[Any]], comple
     native, pool = observable.native, observable.pool
 
     def value(psi: npt.NDArray[Any]) -> complex:
-        return complex(np.vdot(psi, native.matvec(np.ascontiguousarray(psi), pool)))
+        return complex(np.vdot(psi, native.matvec(np.ascontiguousarray(psi), threads=pool)))
 
     return value
 

@@ -31,7 +31,7 @@ def _check_fock(space: object, name: str) -> FockSpace:
 
 def compile_between(
     expr: object, space: object, target: object, *, project: bool = False
-) -> _native.NativeBetween:
+) -> _native.NativeOperator:
     """Validate ``expr`` as an operator from ``space`` into ``target``; compile it.
 
     Parameters
@@ -66,4 +66,4 @@ def compile_between(
             "needs the same modes (change only the total)"
         )
     check_terms(e, s)
-    return _native.NativeBetween(s.native, t.native, e.to_native(), project)
+    return _native.NativeOperator.between(s.native, t.native, e.to_native(), project=project)

@@ -19,8 +19,8 @@ __all__ = ["compile_operator"]
 def compile_operator(expr: object, space: object, target: object = None) -> Any:
     """Validate ``expr`` against ``space`` and return the compiled native operator.
 
-    The result follows the native operator protocol (``is_real``, ``dim``,
-    ``build_csr``, ``matvec``, ``matmat``, ``estimate_nnz``, ``lanczos_ground``): see
+    The result is a ``fockmill._native.NativeOperator`` of the kind the space asks for
+    (on a space, on a sector, between two spaces), answering one protocol: see
     DEVELOPERS.md. ``target`` (None: ``space``) is the space products land in.
 
     Raises
@@ -41,4 +41,4 @@ def compile_operator(expr: object, space: object, target: object = None) -> Any:
     check_terms(e, s)
     if isinstance(s, SymmetricSpace):
         return s._compile(e)
-    return _native.NativeOperator(s.native, e.to_native())
+    return _native.NativeOperator.on_space(s.native, e.to_native())

@@ -467,27 +467,40 @@ def _validate(
 
 def _pick(problem: Problem, k: int, method: str) -> str:
     if method == "auto":
-        chosen = choose_method(problem.estimate, k, problem.memory_limit)
-        if chosen == "lanczos" and k > 1 and not hasattr(problem.native, "lanczos_levels"):
-            return "csr"
-        return chosen
+        return choose_method(problem.estimate, k, problem.memory_limit)
     _check_fits(problem.estimate, method, k, problem.memory_limit)
     return method
 
 
 def _store_matrix(problem: Problem, store_matrix: bool | None, k: int = 1) -> bool:
-    if store_matrix is not None:
-        return bool(store_matrix)
-    # With a bipartite cut the matrix-free product reads no matrix and was measured as
-    # fast as or faster than the stored one, whose build then costs extra
-    # (benchmarks/results/methods.txt, bench_matvec.txt); the row kernel and symmetric
-    # sectors (no `cut`) are several times slower than a stored matrix.
-    if getattr(problem.native, "cut", 0) > 0:
-        return False
-    estimate = problem.estimate
-    limit = problem.memory_limit if problem.memory_limit is not None else estimate.available_bytes
-    budget = float("inf") if limit is None else MEMORY_BUDGET * limit
-    return estimate.build_peak_bytes + estimate.krylov_bytes(_lanczos_vectors(k)) <= budget
+    """Whether the Rust Lanczos solvers would run on a stored matrix for ``k`` levels.
+
+    The core decides (``NativeOperator.stores_matrix``, the same decision the solvers
+    make): ``store_matrix`` True or False is obeyed; None stays matrix-free on the
+    bipartite kernel (``cut > 0``, measured as fast as a stored matrix, whose build then
+    costs extra: benchmarks/results/methods.txt, bench_matvec.txt) and otherwise stores
+    the matrix when its build peak plus the solver's vectors fit in ``MEMORY_BUDGET`` of
+    the memory limit."""
+    return bool(
+        problem.native.stores_matrix(
+            levels=k,
+            store=store_matrix,
+            memory_limit=problem.memory_limit,
+            threads=problem.pool,
+        )
+    )
+
+
+def _lanczos_target(problem: Problem) -> Any:
+    """The operator the Rust solvers run on: a matrix handed to the problem
+    (``Problem._from_parts``: sweeps), else the compiled operator."""
+    ready = problem._ready_matrix
+    if ready is None:
+        return problem.native
+    import fockmill._native as _native
+
+    data = np.ascontiguousarray(ready.data)
+    return _native.NativeOperator.from_csr(ready.indptr, ready.indices, data)
 
 
 def _native_ground(
@@ -498,40 +511,36 @@ def _native_ground(
     max_iterations: int | None,
     store_matrix: bool | None,
 ) -> tuple[float, npt.NDArray[Any], float, int, int]:
-    """The four-vector Lanczos in Rust: (energy, vector, residual, steps, products)."""
+    """The four-vector Lanczos in Rust: (energy, vector, residual, steps, products).
+    Stored or matrix-free as the core decides from ``store_matrix`` and the memory
+    limit (see :func:`_store_matrix`)."""
     start = _start_vector(v0, problem, seed, mix_noise=False)
     # Each Lanczos step costs about two products (the second pass regenerates the
     # Krylov vectors), so a product budget allows half as many steps.
     max_steps = 400 if max_iterations is None else max(2, min(400, max_iterations // 2))
     restarts = 8 if max_iterations is None else max(0, max_iterations // (2 * max_steps) - 1)
-    ready = _ready_csr(problem)
-    if ready is not None:  # a matrix handed in (sweeps): solve on it, build nothing
-        found = ready.lanczos_ground(tol, max_steps, restarts, seed, start, problem.pool)
-    else:
-        stored = _store_matrix(problem, store_matrix)
-        if stored:
-            problem.check_build_fits()
-        found = problem.native.lanczos_ground(
-            tol, max_steps, restarts, seed, start, problem.pool, stored
-        )
-    energy, vector, residual, steps, products, _, converged = found
-    if not converged:
+    found = _lanczos_target(problem).lanczos_ground(
+        tol=tol,
+        max_steps=max_steps,
+        max_restarts=restarts,
+        seed=seed,
+        start=start,
+        threads=problem.pool,
+        store=store_matrix,
+        memory_limit=problem.memory_limit,
+    )
+    if not found.converged:
         raise ConvergenceError(
-            f"Lanczos reached a residual of {residual:.3e} after {products} products, "
-            f"short of tol={tol}; raise max_iterations or tol, or pass v0"
+            f"Lanczos reached a residual of {found.residual:.3e} after {found.products} "
+            f"products, short of tol={tol}; raise max_iterations or tol, or pass v0"
         )
-    return float(energy), vector, float(residual), int(steps), int(products)
-
-
-def _ready_csr(problem: Problem) -> Any:
-    """The Rust solvers' view of a matrix handed to the problem (``Problem._from_parts``),
-    or None when the problem builds its own."""
-    ready = problem._ready_matrix
-    if ready is None:
-        return None
-    import fockmill._native as _native
-
-    return _native.NativeCsr(ready.indptr, ready.indices, np.ascontiguousarray(ready.data))
+    return (
+        float(found.energy),
+        found.vector,
+        float(found.residual),
+        int(found.steps),
+        int(found.products),
+    )
 
 
 def _lanczos_vectors(k: int) -> int:
@@ -550,36 +559,37 @@ def _native_levels(
     store_matrix: bool | None,
 ) -> tuple[npt.NDArray[np.float64], npt.NDArray[Any], npt.NDArray[np.float64], int]:
     """Thick-restart Lanczos in Rust for ``k >= 2`` levels (every degenerate copy that
-    fits in ``k``): (energies, vectors, residuals, products)."""
-    if not hasattr(problem.native, "lanczos_levels"):
-        raise ValueError(
-            "method='lanczos' for several levels is not available for this space type; "
-            "use method='csr' or 'operator'"
-        )
+    fits in ``k``): (energies, vectors, residuals, products). Stored or matrix-free as
+    for :func:`_native_ground`."""
     start = _start_vector(v0, problem, seed, mix_noise=False)
     # The native solver may finish a restart cycle with up to k more products (the
     # residual check of its k Ritz vectors) after its budget; keep that within
     # max_iterations, which counts every product.
     max_products = 20_000 if max_iterations is None else max(1, int(max_iterations) - k)
-    ready = _ready_csr(problem)
-    if ready is not None:  # a matrix handed in (sweeps): solve on it, build nothing
-        found = ready.lanczos_levels(k, tol, max_products, seed, start, threads=problem.pool)
-    else:
-        stored = _store_matrix(problem, store_matrix, k)
-        if stored:
-            problem.check_build_fits()
-        found = problem.native.lanczos_levels(
-            k, tol, max_products, seed, start, problem.pool, stored
-        )
-    energies, vectors, residuals, products, _, converged = found
-    if not converged:
+    found = _lanczos_target(problem).lanczos_levels(
+        k,
+        tol=tol,
+        max_products=max_products,
+        seed=seed,
+        start=start,
+        threads=problem.pool,
+        store=store_matrix,
+        memory_limit=problem.memory_limit,
+    )
+    energies, residuals = found.energies, found.residuals
+    if not found.converged:
         worst = int(np.argmax(residuals / np.maximum(1.0, np.abs(energies))))
         raise ConvergenceError(
             f"Lanczos (k={k}) reached a residual of {float(residuals[worst]):.3e} on level "
-            f"{worst} after {products} products, short of tol={tol}; raise max_iterations "
-            "or tol, or pass v0"
+            f"{worst} after {found.products} products, short of tol={tol}; raise "
+            "max_iterations or tol, or pass v0"
         )
-    return np.asarray(energies, dtype=np.float64), vectors, np.asarray(residuals), int(products)
+    return (
+        np.asarray(energies, dtype=np.float64),
+        found.vectors,
+        np.asarray(residuals),
+        int(found.products),
+    )
 
 
 def _require_converged(

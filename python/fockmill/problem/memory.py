@@ -18,8 +18,6 @@ __all__ = [
     "size_limit_message",
 ]
 
-_INT32_MAX = np.iinfo(np.int32).max
-
 
 def format_bytes(n: float) -> str:
     """``n`` bytes in readable units (``"1.50 GiB"``, ``"12.0 KiB"``)."""
@@ -231,22 +229,20 @@ def estimate_native(
     """The :class:`MemoryEstimate` of a compiled operator of the given shape."""
     if isinstance(samples, bool) or not isinstance(samples, int) or samples < 1:
         raise ValueError(f"samples must be a positive integer; got {samples!r}")
-    nnz_f, std_error, exact, _ = native.estimate_nnz(samples, threads)
-    nnz = round(nnz_f)
-    rows, dim = shape
-    wide = nnz > _INT32_MAX or max(rows, dim) > _INT32_MAX
-    index_dtype = np.dtype(np.int64 if wide else np.int32)
+    # The CSR sizes come from the core (fockmill_core::solve::csr_size), the same
+    # numbers the solvers' stored-or-matrix-free decision uses.
+    found = native.estimate_nnz(samples=samples, threads=threads)
+    _, dim = shape
     value_dtype = np.dtype(np.float64 if native.is_real else np.complex128)
-    csr = (rows + 1) * index_dtype.itemsize + nnz * (index_dtype.itemsize + value_dtype.itemsize)
     return MemoryEstimate(
         dim=dim,
-        nnz=nnz,
-        nnz_exact=bool(exact),
-        nnz_std_error=float(std_error),
-        index_dtype=index_dtype,
+        nnz=round(found.nnz),
+        nnz_exact=bool(found.exact),
+        nnz_std_error=float(found.std_error),
+        index_dtype=np.dtype(np.int64 if found.wide else np.int32),
         value_dtype=value_dtype,
-        csr_bytes=csr,
-        build_peak_bytes=csr + 8 * (rows + 1),
+        csr_bytes=int(found.csr_bytes),
+        build_peak_bytes=int(found.build_peak_bytes),
         vector_bytes=dim * value_dtype.itemsize,
         available_bytes=available_memory(),
     )

@@ -212,13 +212,13 @@ class Problem:
         """
         v = self._checked(x, block=False)
         self.products += 1
-        return self.native.matvec(v, self.pool)  # type: ignore[no-any-return]
+        return self.native.matvec(v, threads=self.pool)  # type: ignore[no-any-return]
 
     def matmat(self, x: npt.ArrayLike) -> npt.NDArray[Any]:
         """``H X`` for a block ``X`` of shape ``(dim, k)``."""
         v = self._checked(x, block=True)
         self.products += v.shape[1]
-        return self.native.matmat(v, self.pool)  # type: ignore[no-any-return]
+        return self.native.matmat(v, threads=self.pool)  # type: ignore[no-any-return]
 
     # -- matrices and operators --------------------------------------------------------
 
@@ -251,13 +251,15 @@ class Problem:
         if ready is not None and index_dtype in (None, ready.indices.dtype.type):
             return ready
         self.check_build_fits()
-        indptr, indices, data = self.native.build_csr(self.pool, index_dtype is np.int64)
-        if index_dtype is np.int32 and indices.dtype != np.int32:
+        parts = self.native.build_csr(threads=self.pool, force_wide=index_dtype is np.int64)
+        if index_dtype is np.int32 and parts.indices.dtype != np.int32:
             raise SizeLimitError(
-                f"the matrix has {indices.size:,} entries for dim {self.dim:,}: too many for "
-                "int32 indices; use index_dtype=numpy.int64 or None"
+                f"the matrix has {parts.indices.size:,} entries for dim {self.dim:,}: too many "
+                "for int32 indices; use index_dtype=numpy.int64 or None"
             )
-        matrix = sp.csr_array((data, indices, indptr), shape=self.shape, copy=False)
+        matrix = sp.csr_array(
+            (parts.data, parts.indices, parts.indptr), shape=self.shape, copy=False
+        )
         matrix.has_sorted_indices = True
         matrix.has_canonical_format = True
         return matrix
@@ -548,12 +550,12 @@ class LadderOperator(LinearOperator):  # type: ignore[misc]
 
     def _matvec(self, x: npt.NDArray[Any]) -> npt.NDArray[Any]:
         self.products += 1
-        y = self.problem.native.matvec(self._vector(x).reshape(-1), self.problem.pool)
+        y = self.problem.native.matvec(self._vector(x).reshape(-1), threads=self.problem.pool)
         return y.reshape(-1, 1) if x.ndim == 2 else y  # type: ignore[no-any-return]
 
     def _matmat(self, x: npt.NDArray[Any]) -> npt.NDArray[Any]:
         self.products += x.shape[1]
-        return self.problem.native.matmat(self._vector(x), self.problem.pool)  # type: ignore[no-any-return]
+        return self.problem.native.matmat(self._vector(x), threads=self.problem.pool)  # type: ignore[no-any-return]
 
     def _adjoint_native(self) -> Any:
         if self._adjoint_op is None:
@@ -574,12 +576,12 @@ class LadderOperator(LinearOperator):  # type: ignore[misc]
 
     def _rmatvec(self, x: npt.NDArray[Any]) -> npt.NDArray[Any]:
         self.products += 1
-        y = self._adjoint_native().matvec(self._vector(x).reshape(-1), self.problem.pool)
+        y = self._adjoint_native().matvec(self._vector(x).reshape(-1), threads=self.problem.pool)
         return y.reshape(-1, 1) if x.ndim == 2 else y  # type: ignore[no-any-return]
 
     def _rmatmat(self, x: npt.NDArray[Any]) -> npt.NDArray[Any]:
         self.products += x.shape[1]
-        return self._adjoint_native().matmat(self._vector(x), self.problem.pool)  # type: ignore[no-any-return]
+        return self._adjoint_native().matmat(self._vector(x), threads=self.problem.pool)  # type: ignore[no-any-return]
 
     def _adjoint(self) -> LinearOperator:
         if self.problem.is_square:

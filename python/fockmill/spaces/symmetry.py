@@ -504,10 +504,10 @@ class SymmetricSpace:
             total = total + g.apply(expr)
         return total * (1.0 / len(elements))
 
-    def _compile(self, expr: LadderExpr) -> _native.NativeSymmetricOperator:
+    def _compile(self, expr: LadderExpr) -> _native.NativeOperator:
         """The compiled operator of an invariant ``expr`` on this sector."""
         self.check_invariant(expr)
-        return _native.NativeSymmetricOperator(self._native, expr.to_native())
+        return _native.NativeOperator.on_sector(self._native, expr.to_native())
 
     def __reduce__(self) -> tuple[Any, ...]:
         return (_rebuild_sector, (self._base, self._symmetries))

@@ -26,6 +26,7 @@ pub mod memory;
 pub mod observe;
 pub mod parallel;
 pub mod scalar;
+pub mod solve;
 pub mod space;
 pub mod symmetry;
 pub mod terms;
