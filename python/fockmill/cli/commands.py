@@ -437,7 +437,7 @@ def _row_dict(row: PointResult) -> dict[str, Any]:
 
 def format_json(table: SweepTable, meta: dict[str, Any]) -> str:
     """Meta data and every row as one JSON document (plain JSON, no NaN)."""
-    from fockmill.store.sweeps import json_ready
+    from fockmill.store.sqlite import json_ready
 
     document = {"meta": meta, "rows": [_row_dict(r) for r in table.rows]}
     if table.sector is not None:
@@ -558,7 +558,7 @@ def _command_solve(args: argparse.Namespace, out: IO[str]) -> int:
     row = table.rows[0]
     total = time.perf_counter() - started
     if args.format == "json":
-        from fockmill.store.sweeps import json_ready
+        from fockmill.store.sqlite import json_ready
 
         document = {**_row_dict(row), "total_seconds": total}
         if table.sector is not None:

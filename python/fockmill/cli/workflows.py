@@ -370,7 +370,7 @@ def format_csv(result: WorkflowResult) -> str:
 
 def format_json(result: WorkflowResult) -> str:
     """Meta data and every array (complex ones as ``{"real": ..., "imag": ...}``)."""
-    from fockmill.store.sweeps import json_ready
+    from fockmill.store.sqlite import json_ready
 
     arrays: dict[str, Any] = {}
     for name, values in result.arrays.items():

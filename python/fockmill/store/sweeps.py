@@ -33,14 +33,12 @@ seconds REAL, finished TEXT)``
 
 from __future__ import annotations
 
-import contextlib
 import json
 import math
 import os
 import sqlite3
 from collections.abc import Iterator, Mapping, Sequence
 from dataclasses import dataclass, field
-from datetime import UTC, datetime
 from pathlib import Path
 from types import MappingProxyType, TracebackType
 from typing import Any, Literal
@@ -49,6 +47,14 @@ import numpy as np
 import numpy.typing as npt
 
 from fockmill.exceptions import StoreError
+from fockmill.store.sqlite import (
+    connect,
+    create_atomically,
+    dumps,
+    refuse_existing,
+    transaction,
+    utc_now,
+)
 
 __all__ = [
     "FORMAT_MARKER",
@@ -104,11 +110,6 @@ _POINT_COLUMNS = (
     "point, parameters, status, message, energy, gap, levels, observables, residual, method, "
     "seconds, finished"
 )
-
-
-def utc_now() -> str:
-    """The current time as an ISO 8601 UTC string (seconds precision)."""
-    return datetime.now(UTC).isoformat(timespec="seconds")
 
 
 @dataclass(frozen=True)
@@ -287,25 +288,6 @@ def _finite_or_none(value: float | None) -> float | None:
     return None if value is None or not math.isfinite(value) else float(value)
 
 
-def json_ready(value: Any) -> Any:
-    """``value`` with non-finite floats replaced by None (strict JSON has no NaN)."""
-    if isinstance(value, float | np.floating):
-        return float(value) if math.isfinite(value) else None
-    if isinstance(value, Mapping):
-        return {str(k): json_ready(v) for k, v in value.items()}
-    if isinstance(value, list | tuple):
-        return [json_ready(v) for v in value]
-    if isinstance(value, np.ndarray):
-        return json_ready(value.tolist())
-    if isinstance(value, np.integer):
-        return int(value)
-    return value
-
-
-def _dumps(value: Any) -> str:
-    return json.dumps(json_ready(value), sort_keys=True, allow_nan=False)
-
-
 def _describe_file(file: Path) -> str:
     """What a file that is not an SQLite database looks like, for messages."""
     try:
@@ -444,16 +426,11 @@ class ResultsStore:
 
     @staticmethod
     def _refuse_existing(file: Path) -> None:
-        if file.exists():
-            raise StoreError(
-                f"{str(file)!r} exists already; open it with ResultsStore.open or choose "
-                "another path"
-            )
+        refuse_existing(file, "open it with ResultsStore.open or choose another path")
 
     @classmethod
     def _create(cls, file: Path, meta: Mapping[str, Any]) -> ResultsStore:
         from fockmill._native import __version__
-        from fockmill.store.claims import temporary_path
 
         cls._refuse_existing(file)
         file.parent.mkdir(parents=True, exist_ok=True)
@@ -465,33 +442,19 @@ class ResultsStore:
             "created": utc_now(),
         }
         entries.update({k: v for k, v in meta.items() if k not in entries})
-        temporary = temporary_path(file)
-        try:
-            connection = cls._connect(temporary)
-            try:
-                with _transaction(connection):
-                    connection.execute(f"PRAGMA application_id = {_APPLICATION_ID}")
-                    connection.execute(f"PRAGMA user_version = {version}")
-                    for statement in _SCHEMA.split(";"):
-                        if statement.strip():
-                            connection.execute(statement)
-                    connection.executemany(
-                        "INSERT INTO meta(key, value) VALUES (?, ?)",
-                        [(k, _dumps(v)) for k, v in entries.items()],
-                    )
-            finally:
-                connection.close()
-            _publish(temporary, file)
-        finally:
-            for leftover in (temporary, temporary.with_name(temporary.name + "-journal")):
-                with contextlib.suppress(FileNotFoundError):
-                    leftover.unlink()
+        create_atomically(
+            file,
+            application_id=_APPLICATION_ID,
+            schema_version=version,
+            statements=_SCHEMA.split(";"),
+            meta=entries,
+        )
         return cls.open(file, purpose="resume")
 
     @staticmethod
     def _connect(file: Path) -> sqlite3.Connection:
-        # isolation_level=None: we issue BEGIN/COMMIT ourselves, one point per commit.
-        return sqlite3.connect(str(file), isolation_level=None, timeout=30.0)
+        # Autocommit: one point per BEGIN/COMMIT.
+        return connect(file)
 
     @staticmethod
     def _configure(connection: sqlite3.Connection) -> None:
@@ -717,20 +680,20 @@ class ResultsStore:
             status, message = "failed", f"the energy is not finite ({result.energy})"
         values = (
             int(result.index),
-            _dumps(result.parameters),
+            dumps(result.parameters),
             status,
             str(message),
             energy,
             _finite_or_none(result.gap),
-            None if result.levels is None else _dumps(list(result.levels)),
-            _dumps(result.observables),
+            None if result.levels is None else dumps(list(result.levels)),
+            dumps(result.observables),
             _finite_or_none(result.residual),
             result.method,
             float(result.seconds),
             result.finished,
         )
         try:
-            with _transaction(self._connection):
+            with transaction(self._connection):
                 if replace_failed:
                     self._connection.execute(
                         "DELETE FROM points WHERE point = ? AND status != 'ok'", (values[0],)
@@ -747,9 +710,9 @@ class ResultsStore:
 
     def set_meta(self, key: str, value: Any) -> None:
         """Insert or replace one ``meta`` entry (any JSON-ready value; own transaction)."""
-        with _transaction(self._connection):
+        with transaction(self._connection):
             self._connection.execute(
-                "INSERT OR REPLACE INTO meta(key, value) VALUES (?, ?)", (key, _dumps(value))
+                "INSERT OR REPLACE INTO meta(key, value) VALUES (?, ?)", (key, dumps(value))
             )
 
 
@@ -766,38 +729,6 @@ def _loads_version(text: object) -> int:
     except ValueError:
         return -1
     return value if isinstance(value, int) and not isinstance(value, bool) else -1
-
-
-def _publish(temporary: Path, file: Path) -> None:
-    """Give the finished ``temporary`` file its real name, never replacing a file."""
-    try:
-        os.link(temporary, file)  # atomic, and fails if ``file`` appeared meanwhile
-    except FileExistsError:
-        raise StoreError(
-            f"{str(file)!r} exists already (created while this sweep started); choose another path"
-        ) from None
-    except OSError:  # a file system without hard links
-        if file.exists():
-            raise StoreError(f"{str(file)!r} exists already; choose another path") from None
-        os.replace(temporary, file)
-
-
-class _transaction:
-    """``BEGIN IMMEDIATE`` … ``COMMIT`` (``ROLLBACK`` on error) on an autocommit connection."""
-
-    def __init__(self, connection: sqlite3.Connection) -> None:
-        self._connection = connection
-
-    def __enter__(self) -> None:
-        self._connection.execute("BEGIN IMMEDIATE")
-
-    def __exit__(
-        self,
-        exc_type: type[BaseException] | None,
-        exc: BaseException | None,
-        traceback: TracebackType | None,
-    ) -> None:
-        self._connection.execute("ROLLBACK" if exc_type is not None else "COMMIT")
 
 
 def space_summary(space: Any) -> dict[str, Any]:

@@ -24,7 +24,6 @@ File layout (workflow schema version 1)
 
 from __future__ import annotations
 
-import contextlib
 import json
 import os
 import sqlite3
@@ -37,14 +36,8 @@ import numpy as np
 import numpy.typing as npt
 
 from fockmill.exceptions import StoreError
-from fockmill.store.sweeps import (
-    FORMAT_MARKER,
-    _describe_file,
-    _publish,
-    json_ready,
-    space_summary,
-    utc_now,
-)
+from fockmill.store.sqlite import connect, create_atomically, json_ready, refuse_existing, utc_now
+from fockmill.store.sweeps import FORMAT_MARKER, _describe_file, space_summary
 
 __all__ = [
     "KINDS",
@@ -188,16 +181,11 @@ def write_workflow_results(
 
 
 def _refuse_existing(file: Path) -> None:
-    if file.exists():
-        raise StoreError(
-            f"{str(file)!r} exists already; results files are never overwritten, choose "
-            "another path or delete it"
-        )
+    refuse_existing(file, "results files are never overwritten, choose another path or delete it")
 
 
 def _write(file: Path, result: WorkflowResult) -> Path:
     from fockmill._native import __version__
-    from fockmill.store.claims import temporary_path
 
     _refuse_existing(file)
     file.parent.mkdir(parents=True, exist_ok=True)
@@ -210,33 +198,20 @@ def _write(file: Path, result: WorkflowResult) -> Path:
     }
     entries.update({k: v for k, v in result.meta.items() if k not in entries})
     rows = [(name, *_encode(values)) for name, values in result.arrays.items()]
-    temporary = temporary_path(file)
-    try:
-        connection = sqlite3.connect(str(temporary), isolation_level=None)
-        try:
-            connection.execute("BEGIN IMMEDIATE")
-            connection.execute(f"PRAGMA application_id = {_APPLICATION_ID}")
-            connection.execute(f"PRAGMA user_version = {WORKFLOW_SCHEMA_VERSION}")
-            for statement in _SCHEMA:
-                connection.execute(statement)
-            connection.executemany(
-                "INSERT INTO meta(key, value) VALUES (?, ?)",
-                [
-                    (k, json.dumps(json_ready(v), sort_keys=True, allow_nan=False))
-                    for k, v in entries.items()
-                ],
-            )
-            connection.executemany(
-                "INSERT INTO arrays(name, shape, real, imag) VALUES (?, ?, ?, ?)", rows
-            )
-            connection.execute("COMMIT")
-        finally:
-            connection.close()
-        _publish(temporary, file)
-    finally:
-        for leftover in (temporary, temporary.with_name(temporary.name + "-journal")):
-            with contextlib.suppress(FileNotFoundError):
-                leftover.unlink()
+
+    def fill(connection: sqlite3.Connection) -> None:
+        connection.executemany(
+            "INSERT INTO arrays(name, shape, real, imag) VALUES (?, ?, ?, ?)", rows
+        )
+
+    create_atomically(
+        file,
+        application_id=_APPLICATION_ID,
+        schema_version=WORKFLOW_SCHEMA_VERSION,
+        statements=_SCHEMA,
+        meta=entries,
+        fill=fill,
+    )
     return file
 
 
@@ -257,7 +232,7 @@ def _marker(connection: sqlite3.Connection) -> tuple[set[str], object]:
 
 def _connect_read_only(file: Path) -> sqlite3.Connection:
     # Only SELECTs run on it; a plain connection also reads sweep files in WAL mode.
-    return sqlite3.connect(str(file), isolation_level=None, timeout=30.0)
+    return connect(file)
 
 
 def is_workflow_file(path: str | os.PathLike[str]) -> bool:

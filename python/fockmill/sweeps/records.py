@@ -38,7 +38,8 @@ from fockmill.observables.observe import (
 from fockmill.spaces.fock import FockSpace
 from fockmill.spaces.sectors import SectorChoice
 from fockmill.spaces.symmetry import SymmetricSpace
-from fockmill.store.sweeps import PointResult, utc_now
+from fockmill.store.sqlite import utc_now
+from fockmill.store.sweeps import PointResult
 from fockmill.sweeps.pattern import SharedPattern, check_hermitian_pieces
 from fockmill.sweeps.plan import SweepSettings
 

@@ -34,7 +34,8 @@ from fockmill.exceptions import StoreError, SymmetryError
 from fockmill.models.model import Model
 from fockmill.spaces.sectors import SectorChoice, sector_choice
 from fockmill.spaces.symmetry import SymmetricSpace
-from fockmill.store.sweeps import PointResult, ResultsStore, utc_now
+from fockmill.store.sqlite import utc_now
+from fockmill.store.sweeps import PointResult, ResultsStore
 from fockmill.sweeps.plan import SweepSettings
 from fockmill.sweeps.records import (
     _NOT_POINT_ERRORS,
