@@ -691,3 +691,25 @@ def test_cutoff_warning_has_a_file_form() -> None:
     ] == pytest.approx(1e-3)
     with pytest.raises(ModelFileError, match=r"solver\.cutoff_warning"):
         parse_model_text(BASE + "[solver]\ncutoff_warning = 2.0\n")
+
+
+def test_messages_name_the_right_sign_and_the_right_fix() -> None:
+    # add_adjoint: the written term's own charge (+1 for a creation), not its adjoint's.
+    drive = (
+        '[model]\nkind = "bose-hubbard"\nlattice = "chain"\nsites = 3\ntotal = 2\n'
+        '[terms.drive]\nvalue = 0.5\nterms = ["raising(0)"]\nadd_adjoint = true\n'
+    )
+    with pytest.raises(ModelFileError, match="changes the total number of quanta by 1,"):
+        parse_model_text(drive)
+    ring = '[model]\nkind = "bose-hubbard"\nlattice = "ring"\nsites = 4\ntotal = 4\n'
+    # A term family that breaks the ring's translation: no advice to make it periodic.
+    tilted = (
+        ring + '[terms.tilt]\nvalue = 0.1\nterms = ["number(0)"]\n[symmetry]\ntranslation = 0\n'
+    )
+    with pytest.raises(ModelFileError, match="these terms break it") as caught:
+        parse_model_text(tilted)
+    assert "periodic = true" not in str(caught.value)
+    # Scanning every momentum with a reflection: one sentence that says what to do.
+    scan = ring + '[symmetry]\ntranslation = "all"\nreflection = 0\n'
+    with pytest.raises(ModelFileError, match="momenta 0 and L/2\\); drop symmetry.reflection"):
+        parse_model_text(scan)

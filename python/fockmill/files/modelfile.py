@@ -747,9 +747,10 @@ def _terms(
             tpath = join_key(path, "terms")
             for k, text in enumerate(reader.array(table["terms"], tpath, "term strings")):
                 term = read_term(reader, text, join_key(tpath, k), model)
+                # The term as written: its adjoint changes the charge by the opposite amount.
+                check_charge(reader, term, join_key(tpath, k), str(text), model)
                 if adjoint:
                     term = term + term.adjoint()
-                check_charge(reader, term, join_key(tpath, k), str(text), model)
                 piece = piece + term
         if "per_mode" in table:
             ppath = join_key(path, "per_mode")
@@ -763,9 +764,9 @@ def _terms(
             weights_used[name] = weights
             for mode, weight in zip(modes, weights, strict=True):
                 term = read_term(reader, template, ppath, model, here=mode)
+                check_charge(reader, term, ppath, template, model)
                 if adjoint:
                     term = term + term.adjoint()
-                check_charge(reader, term, ppath, template, model)
                 piece = piece + weight * term
         if not piece.is_hermitian():
             reader.fail(

@@ -178,19 +178,30 @@ def _check_modes(reader: Reader, g: ModePermutation, path: str, model: Model) ->
             )
 
 
-def _check_invariant(reader: Reader, g: ModePermutation, path: str, model: Model) -> None:
+def _check_invariant(
+    reader: Reader,
+    g: ModePermutation,
+    path: str,
+    model: Model,
+    model_table: Mapping[str, Any],
+) -> None:
     parts = [(f"{name!r} terms", piece) for name, piece in model.pieces.items()]
     parts.append(("fixed terms and drives", model.constant))
     one = SectorChoice((g,), (0,), (path,))
+    periodic = model_table.get("lattice") == "ring" or bool(model_table.get("periodic", False))
     for what, expr in parts:
         try:
             one.check_invariant(expr)
         except SymmetryError as exc:
-            hint = ""
-            if path.startswith(f"{_PATH}.translation"):
+            if path.startswith(f"{_PATH}.translation") and not periodic:
                 hint = (
                     ' (an open lattice has ends: use lattice = "ring", periodic = true, or '
                     "drop the translation)"
+                )
+            else:
+                hint = (
+                    " (the lattice has the symmetry but these terms break it: give every "
+                    "mode they act on the same coefficient, or drop the symmetry)"
                 )
             reader.fail(
                 path,
@@ -252,10 +263,10 @@ def parse_symmetry(
             if "reflection" in table
             else _PATH
         )
-        reader.fail(
-            where,
-            f"these labels are no one-dimensional representation of the symmetry group: {exc}",
-        )
+        text = str(exc)
+        if '"all" scans every label' not in text:
+            text = f"these labels are no one-dimensional representation of the group: {text}"
+        reader.fail(where, text)
     for g, _, path in generators:
-        _check_invariant(reader, g, path, model)
+        _check_invariant(reader, g, path, model, model_table)
     return choice

@@ -247,11 +247,19 @@ def check_representation(choice: SectorChoice) -> None:
             exc = _named(str(error), choice.names)
             if label is None:
                 raise SymmetryError(exc) from None
+            scanned = choice.names[choice.scan or 0]
+            others = [name for n, name in enumerate(choice.names) if n != (choice.scan or 0)]
+            known = {"translation", "reflection"} <= {n.split(".")[-1] for n in choice.names}
+            why = (
+                "a translation and a reflection share sectors only at momenta 0 and L/2"
+                if known
+                else "the generators do not commute there"
+            )
             raise SymmetryError(
-                f'{choice.names[choice.scan or 0]} = "all" cannot be combined with the other '
-                f"labels: at label {label}, {exc}. Fix the other labels, or scan a generator "
-                "that commutes with the others (a translation with a reflection allows only "
-                "momenta 0 and L/2)"
+                f'{scanned} = "all" scans every label, but at label {label} it does not '
+                f"combine with {', '.join(others)} into a one-dimensional representation "
+                f"({why}); drop {', '.join(others)} to scan every label, or give {scanned} "
+                "one label"
             ) from None
 
 
