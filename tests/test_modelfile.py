@@ -711,5 +711,5 @@ def test_messages_name_the_right_sign_and_the_right_fix() -> None:
     assert "periodic = true" not in str(caught.value)
     # Scanning every momentum with a reflection: one sentence that says what to do.
     scan = ring + '[symmetry]\ntranslation = "all"\nreflection = 0\n'
-    with pytest.raises(ModelFileError, match="momenta 0 and L/2\\); drop symmetry.reflection"):
+    with pytest.raises(ModelFileError, match=r"momenta 0 and L/2\); drop symmetry\.reflection"):
         parse_model_text(scan)
