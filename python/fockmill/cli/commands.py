@@ -103,6 +103,12 @@ def build_parser() -> argparse.ArgumentParser:
         "--format", choices=("text", "json"), default="text", help="output format (default text)"
     )
     solve.add_argument(
+        "--threads",
+        type=_positive_int,
+        metavar="N",
+        help="threads of the solve (default: [solver] threads, else all cores)",
+    )
+    solve.add_argument(
         "--plot",
         metavar="FIG.png",
         help='with [symmetry] translation = "all": also draw the dispersion E(k) into FIG.png',
@@ -242,11 +248,15 @@ def _demo_model() -> Any:
     return parse_model_text(text)
 
 
-def _solver_keywords(model_file: Any) -> dict[str, Any]:
-    """The file's ``[solver]`` table as run_sweep keywords (the same words)."""
+def _solver_keywords(model_file: Any, threads: int | None = None) -> dict[str, Any]:
+    """The file's ``[solver]`` table as run_sweep keywords (the same words); ``threads``
+    from the command line wins over the file's."""
     solver = dict(getattr(model_file, "solver", None) or {})
     keys = ("method", "tol", "seed", "max_iterations", "threads")
-    return {key: solver[key] for key in keys if key in solver}
+    chosen = {key: solver[key] for key in keys if key in solver}
+    if threads is not None:
+        chosen["threads"] = threads
+    return chosen
 
 
 def _units(model_file: Any) -> dict[str, str]:
@@ -553,7 +563,7 @@ def _command_solve(args: argparse.Namespace, out: IO[str]) -> int:
         executor="serial",
         progress=False,
         symmetry=symmetry,
-        **_solver_keywords(model_file),
+        **_solver_keywords(model_file, getattr(args, "threads", None)),
     )
     row = table.rows[0]
     total = time.perf_counter() - started
