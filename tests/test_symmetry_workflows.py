@@ -594,6 +594,8 @@ def test_dispersion_figure_of_one_solve() -> None:
     (line,) = axis.get_lines()
     xs, ys = line.get_data()
     np.testing.assert_allclose(ys, -2 * np.cos(np.pi * np.asarray(xs)), atol=1e-9)
+    # k = π is shown at both ends of the zone (the same momentum), so no end is empty.
+    assert min(xs) == pytest.approx(-1.0) and max(xs) == pytest.approx(1.0)
     assert figure.get_suptitle().startswith("one particle")
 
 

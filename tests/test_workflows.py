@@ -733,10 +733,10 @@ def test_cli_quench_table_set_threads_and_csv(
     code, table, _ = run(["show", str(out), "--format", "csv"], capsys)
     lines = table.splitlines()
     header = lines[0].split(",")
-    assert header[:4] == ["times", "energy", "populations[mode 0]", "populations[mode 1]"]
+    assert header[:4] == ["times", "energy", "populations_0", "populations_1"]
     assert "values.forward.imag" in header and len(lines) == 42
     row = dict(zip(header, lines[-1].split(","), strict=True))
-    assert float(row["populations[mode 0]"]) == pytest.approx(np.cos(0.15 * 10.0) ** 2, abs=1e-8)
+    assert float(row["populations_0"]) == pytest.approx(np.cos(0.15 * 10.0) ** 2, abs=1e-8)
     code, full, _ = run(["show", str(out)], capsys)
     assert code == 0 and "times shown" not in full and len(full.splitlines()) > 41
 
@@ -811,8 +811,8 @@ def test_figures_have_units_titles_and_error_bars(
 
     spectrum = workflow_figure(results["spectrum"])
     main, sticks = spectrum.axes
-    assert main.get_xlabel() == r"frequency $\omega$ (J)"
-    assert main.get_ylabel() == r"$S(\omega)$ (1/J)"
+    assert main.get_xlabel() == r"frequency $\omega$ ($J$)"  # the unit is the hopping J
+    assert main.get_ylabel() == r"$S(\omega)$ (1/$J$)"
     assert sticks.get_ylabel() == "pole weight $w_k$"
     assert "S(ω) of lowering(site 0), η = 0.1" in spectrum.get_suptitle()
     assert len(workflow_figure(results["spectrum"], poles=False).axes) == 1

@@ -146,7 +146,8 @@ def _number(value: Any) -> str:
 def _with_error(value: float, error: float) -> str:
     if not error or np.isnan(error):
         return _number(value)
-    return f"{_number(value)}±{error:.1g}"
+    # Two significant figures of the error (one hides whether it is 1.0 or 1.4).
+    return f"{_number(value)}±{error:.2g}"
 
 
 def _short_list(values: Sequence[Any]) -> str:
@@ -340,7 +341,6 @@ def format_csv(result: WorkflowResult) -> str:
     axis = {"quench": "times", "spectrum": "omegas", "thermal": "temperatures"}[result.kind]
     count = result.arrays[axis].shape[0]
     columns: dict[str, Any] = {}
-    labels = list(result.mode_labels)
     for name, values in result.arrays.items():
         if values.ndim == 0 or values.shape[0] != count or name.startswith("pole_"):
             continue
@@ -350,9 +350,10 @@ def format_csv(result: WorkflowResult) -> str:
             else:
                 columns[name] = values
         elif values.ndim == 2:
+            # One column per mode, named as in sweep tables (populations_0, ...); the
+            # mode labels are in the results file's meta data.
             for j in range(values.shape[1]):
-                label = labels[j] if j < len(labels) else f"mode {j}"
-                columns[f"{name}[{label}]"] = values[:, j]
+                columns[f"{name}_{j}"] = values[:, j]
     buffer = io.StringIO()
     writer = csv.writer(buffer, lineterminator="\n")
     writer.writerow(list(columns))

@@ -46,6 +46,7 @@ __all__ = [
     "plot_sweep",
     "sweep_dispersion_figure",
     "sweep_figure",
+    "unit_text",
 ]
 
 _QUANTITIES = {
@@ -100,6 +101,18 @@ def _describe(
         return _PARAMETERS[name]
     # A user's parameter: one letter reads as a symbol, a longer name as written.
     return ("parameter", f"${name}$" if re.fullmatch(r"[A-Za-z]", name) else name)
+
+
+def unit_text(unit: str) -> str:
+    """A unit as axis labels show it: a unit that is a parameter's name (``"wc"``) as
+    that parameter's symbol (``$\\omega_c$``), any other unit as written.
+
+    Examples
+    --------
+    >>> unit_text("wc"), unit_text("GHz")
+    ('$\\omega_c$', 'GHz')
+    """
+    return _PARAMETERS[unit][1] if unit in _PARAMETERS else unit
 
 
 def axis_label(
@@ -326,6 +339,15 @@ def _evenly_spaced_in_log(values: npt.NDArray[np.float64]) -> bool:
     return bool(np.allclose(steps, steps[0], rtol=1e-6))
 
 
+def log_axis(axis: Any) -> None:
+    """A logarithmic x axis labelled at the decades only (the minor labels of a grid
+    spanning a decade or two overlap)."""
+    from matplotlib.ticker import NullFormatter
+
+    axis.set_xscale("log")
+    axis.xaxis.set_minor_formatter(NullFormatter())
+
+
 def _hold_constant(axis: Any, values: npt.NDArray[np.float64]) -> None:
     """Centre a constant axis on its value instead of magnifying rounding noise."""
     finite = values[np.isfinite(values)]
@@ -500,7 +522,7 @@ def sweep_figure(
         axis.grid(alpha=0.3)
     axes[-1].set_xlabel(axis_label(x, unit_map, model_name, context.get("descriptions")))
     if _evenly_spaced_in_log(xs):
-        axes[-1].set_xscale("log")
+        log_axis(axes[-1])
     else:
         axes[-1].ticklabel_format(axis="x", useOffset=False)
     heading = _title(title if title is not None else model_name, context.get("space"), labels)
@@ -637,6 +659,12 @@ def dispersion_figure(
     unit_map = dict(units) if units is not None else context.get("units", {})
     count = energies.shape[0]
     xs, xlabel, momentum = _scan_axis(symmetry, count)
+    edge = np.isclose(xs, 1.0)
+    if momentum and np.any(edge):
+        # k = π and k = −π are one momentum: show it at both ends of the zone, so the
+        # axis ends on a point at either side.
+        xs = np.concatenate([xs, -xs[edge]])
+        energies = np.concatenate([energies, energies[edge]], axis=0)
     order = np.argsort(xs, kind="stable")
     figure = new_figure((6.4, 4.4))
     axis = figure.subplots()

@@ -19,7 +19,15 @@ from typing import TYPE_CHECKING, Any
 
 import numpy as np
 
-from fockmill.plots.sweeps import _evenly_spaced_in_log, _hold_constant, _series, _title, new_figure
+from fockmill.plots.sweeps import (
+    _evenly_spaced_in_log,
+    _hold_constant,
+    _series,
+    _title,
+    log_axis,
+    new_figure,
+    unit_text,
+)
 from fockmill.store.workflows import WorkflowResult, read_workflow_results
 
 if TYPE_CHECKING:
@@ -30,7 +38,8 @@ __all__ = ["plot_workflow", "workflow_figure"]
 
 
 def _unit(result: WorkflowResult) -> str:
-    return result.units.get("energy", "")
+    # A unit named after a parameter (wc) is shown as its symbol (ω_c), as in sweeps.
+    return unit_text(result.units.get("energy", ""))
 
 
 def _energy_axis(text: str, unit: str) -> str:
@@ -183,7 +192,7 @@ def _thermal(figure: Figure, result: WorkflowResult) -> None:
         axis.grid(alpha=0.3)
     axes[-1].set_xlabel(temperature_label(unit))
     if _evenly_spaced_in_log(temperatures):
-        axes[-1].set_xscale("log")
+        log_axis(axes[-1])
 
 
 def workflow_figure(
