@@ -230,3 +230,16 @@ def sector_matrix(
             if row is not None:
                 out[row, column] += coefficient * amplitude
     return out
+
+
+def bose_hubbard_ring(sites: int, hopping: float, interaction: float) -> LadderExpr:
+    """``H = −J Σ (a_i† a_{i+1} + h.c.) + (U/2) Σ n_i (n_i − 1)`` on a ring, written term
+    by term from the definition (independent of ``fm.models``)."""
+    from fockmill import lowering, number, raising
+
+    h = LadderExpr()
+    for i in range(sites):
+        j = (i + 1) % sites
+        h = h - hopping * (raising(i) * lowering(j) + raising(j) * lowering(i))
+        h = h + 0.5 * interaction * number(i) * (number(i) - 1)
+    return h

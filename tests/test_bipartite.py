@@ -14,7 +14,7 @@ import numpy as np
 from fockmill import _native
 from hypothesis import given
 from hypothesis import strategies as st
-from reference import dense_matrix, full_basis, restrict, sector_occupations
+from reference import bose_hubbard_ring, dense_matrix, full_basis, restrict, sector_occupations
 
 REAL = st.floats(-3, 3, allow_nan=False, allow_infinity=False).filter(lambda x: x != 0)
 COMPLEX = st.builds(complex, REAL, REAL)
@@ -116,15 +116,6 @@ def test_every_cut_equals_the_dense_oracle_and_the_stored_matrix(
         np.testing.assert_allclose(op.matmat(block), dense @ block, atol=scale, rtol=0)
         if op.is_real:
             np.testing.assert_allclose(op.matvec(x.real), dense.real @ x.real, atol=scale, rtol=0)
-
-
-def bose_hubbard_ring(sites: int, hopping: float, interaction: float) -> fm.LadderExpr:
-    h = fm.LadderExpr()
-    for i in range(sites):
-        j = (i + 1) % sites
-        h = h - hopping * (fm.raising(i) * fm.lowering(j) + fm.raising(j) * fm.lowering(i))
-        h = h + 0.5 * interaction * fm.number(i) * (fm.number(i) - 1)
-    return h
 
 
 def test_thread_count_does_not_change_a_single_bit() -> None:

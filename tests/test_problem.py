@@ -13,16 +13,7 @@ import pytest
 import scipy.sparse.linalg as sla
 from fockmill.exceptions import ConvergenceError
 from fockmill.problem import eigensolve as _solve
-from reference import sector_occupations
-
-
-def bose_hubbard_ring(sites: int, hopping: float, interaction: float) -> fm.LadderExpr:
-    h = fm.LadderExpr()
-    for i in range(sites):
-        j = (i + 1) % sites
-        h = h - hopping * (fm.raising(i) * fm.lowering(j) + fm.raising(j) * fm.lowering(i))
-        h = h + 0.5 * interaction * fm.number(i) * (fm.number(i) - 1)
-    return h
+from reference import bose_hubbard_ring, sector_occupations
 
 
 def dense_sector(sites: int, hopping: float, interaction: float) -> np.ndarray:

@@ -1,31 +1,15 @@
 """Ready-made models: Bose–Hubbard on any graph, Jaynes–Cummings–Hubbard arrays, Kerr
 networks and drives, each a :class:`Model` (a Hamiltonian linear in named parameters).
+
+The builders live in :mod:`fockmill.models.builders`; their names are this package's
+API (``dir(fockmill.models)`` lists them).
 """
 
-from fockmill.models.builders import (
-    KERR_NETWORK_RENAMED,
-    Edge,
-    bose_hubbard,
-    chain_edges,
-    jaynes_cummings_hubbard,
-    kerr_network,
-    rectangular_edges,
-    ring_edges,
-    with_drives,
-)
+from fockmill.models import builders
+from fockmill.models.builders import *  # noqa: F403  (the builders are this package's API)
 from fockmill.models.model import Model as Model
 
-__all__ = [
-    "KERR_NETWORK_RENAMED",
-    "Edge",
-    "bose_hubbard",
-    "chain_edges",
-    "jaynes_cummings_hubbard",
-    "kerr_network",
-    "rectangular_edges",
-    "ring_edges",
-    "with_drives",
-]
+__all__ = list(builders.__all__)
 
 
 def __dir__() -> list[str]:
