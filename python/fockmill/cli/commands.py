@@ -19,6 +19,7 @@ from collections.abc import Sequence
 from pathlib import Path
 from typing import IO, Any, NoReturn
 
+from fockmill.cli.options import add_overrides, add_threads, positive_int
 from fockmill.exceptions import ConvergenceError, PoolStartError
 from fockmill.store.sweeps import PointResult, ResultsStore, SweepTable
 
@@ -91,23 +92,11 @@ def build_parser() -> argparse.ArgumentParser:
         "the file asks to record.",
     )
     solve.add_argument("model", metavar="MODEL.toml", help="model file")
-    solve.add_argument(
-        "--set",
-        dest="overrides",
-        metavar="NAME=VALUE",
-        action="append",
-        default=[],
-        help="change one parameter for this run (repeatable), e.g. --set U=2.5",
-    )
+    add_overrides(solve)
     solve.add_argument(
         "--format", choices=("text", "json"), default="text", help="output format (default text)"
     )
-    solve.add_argument(
-        "--threads",
-        type=_positive_int,
-        metavar="N",
-        help="threads of the solve (default: [solver] threads, else all cores)",
-    )
+    add_threads(solve)
     solve.add_argument(
         "--plot",
         metavar="FIG.png",
@@ -217,14 +206,7 @@ def build_parser() -> argparse.ArgumentParser:
     return parser
 
 
-def _positive_int(text: str) -> int:
-    try:
-        value = int(text)
-    except ValueError:
-        raise argparse.ArgumentTypeError(f"expected a positive integer, got {text!r}") from None
-    if value < 1:
-        raise argparse.ArgumentTypeError(f"expected a positive integer, got {text!r}")
-    return value
+_positive_int = positive_int
 
 
 # -- model files ----------------------------------------------------------------------

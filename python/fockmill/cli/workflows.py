@@ -15,6 +15,7 @@ from typing import IO, Any
 
 import numpy as np
 
+from fockmill.cli.options import add_overrides, add_threads
 from fockmill.store.claims import claim
 from fockmill.store.workflows import WorkflowResult, write_workflow_results
 
@@ -62,20 +63,8 @@ def add_parsers(commands: Any, positive_int: Callable[[str], int]) -> None:
             metavar="RESULTS.sqlite",
             help="results file to write (must not exist)",
         )
-        sub.add_argument(
-            "--set",
-            dest="overrides",
-            metavar="NAME=VALUE",
-            action="append",
-            default=[],
-            help="change one parameter for this run (repeatable), e.g. --set U=2.5",
-        )
-        sub.add_argument(
-            "--threads",
-            type=positive_int,
-            metavar="N",
-            help="threads (default: [solver] threads, else all cores)",
-        )
+        add_overrides(sub)
+        add_threads(sub)
         sub.add_argument("--plot", metavar="FIG.png", help="also draw a figure (needs matplotlib)")
 
 
