@@ -265,11 +265,13 @@ def in_fresh_process(function: str) -> Any:
     return ast.literal_eval(child.stdout.strip().splitlines()[-1])
 
 
+@pytest.mark.slow
 def test_solves_from_python_threads_match_serial() -> None:
     """eigsh-based solves mixed with dense ones, all at once, match serial calls."""
     assert in_fresh_process("mixed_solves_differing") == []
 
 
+@pytest.mark.slow
 def test_overlapping_solves_leave_blas_threads_alone() -> None:
     outcome = in_fresh_process("blas_threads_around_overlapping_solves")
     if outcome is None:

@@ -43,6 +43,7 @@ def points() -> list[dict[str, float]]:
     return [{"U": 0.07 * k} for k in range(TOTAL)]
 
 
+@pytest.mark.slow
 def test_repeated_sigkill_then_resume_loses_nothing(tmp_path: Path) -> None:
     path = tmp_path / "results.sqlite"
     tests_dir = str(Path(__file__).parent)
@@ -86,6 +87,7 @@ def test_repeated_sigkill_then_resume_loses_nothing(tmp_path: Path) -> None:
         )
 
 
+@pytest.mark.slow
 def test_dask_worker_killed_mid_sweep_still_completes(tmp_path: Path) -> None:
     distributed = pytest.importorskip(
         "distributed", reason="dask.distributed is not installed (extra fockmill[cluster])"
@@ -199,6 +201,7 @@ def _alive(pid: int) -> bool:
     return "\nState:\tZ" not in state
 
 
+@pytest.mark.slow
 @pytest.mark.skipif(not Path("/proc/self/status").exists(), reason="needs /proc (Linux)")
 @pytest.mark.parametrize("sig", [signal.SIGKILL, signal.SIGTERM], ids=["SIGKILL", "SIGTERM"])
 def test_killed_sweep_leaves_no_process_behind(tmp_path: Path, sig: signal.Signals) -> None:

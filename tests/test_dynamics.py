@@ -96,6 +96,7 @@ def hermitian_cases(draw: st.DrawFn):
     return expr, cutoffs, seed
 
 
+@pytest.mark.slow
 @given(hermitian_cases())
 def test_evolution_equals_scipy_expm_on_random_hermitian_expressions(case):
     # Reference: ψ(t) = expm(−iHt) ψ(0) with the dense np.kron matrix of

@@ -1371,6 +1371,7 @@ CHILD = textwrap.dedent(
 )
 
 
+@pytest.mark.slow
 @pytest.mark.parametrize("case", CHILD_CASES, ids=[c[0] for c in CHILD_CASES])
 def test_huge_requests_are_refused_without_crashing(
     case: tuple[str, str, str | None, str, str | None],
@@ -1422,6 +1423,7 @@ MEMORY_PROBE = textwrap.dedent(
 )
 
 
+@pytest.mark.slow
 def test_size_limits_refuse_before_allocating() -> None:
     child = subprocess.run(
         [sys.executable, "-c", MEMORY_PROBE], capture_output=True, text=True, timeout=120
@@ -1579,6 +1581,7 @@ def test_cli_bad_input_exits_2_with_one_line(
     assert not (tmp_path / "r.sqlite").exists()
 
 
+@pytest.mark.slow
 def test_cli_process_exit_status_2(tmp_path: Path) -> None:
     """The real command, not just ``main``: status 2 and one line, no traceback."""
     broken = write(tmp_path, "broken.toml", "[model]\nkind = = 'bose-hubbard'\n")

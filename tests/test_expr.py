@@ -118,6 +118,7 @@ def test_different_modes_commute_without_contraction() -> None:
 # -- algebraic properties (hypothesis) ----------------------------------------------
 
 
+@pytest.mark.slow
 @SMALL
 @given(EXPRESSIONS, EXPRESSIONS, EXPRESSIONS)
 def test_product_is_associative(x: LadderExpr, y: LadderExpr, z: LadderExpr) -> None:

@@ -629,6 +629,7 @@ def test_fuzz_arbitrary_text(text: str) -> None:
     parse_or_model_file_error(text)
 
 
+@pytest.mark.slow
 @FUZZ
 @given(st.dictionaries(KEYS, VALUES, max_size=5))
 def test_fuzz_random_documents(document: dict[str, Any]) -> None:

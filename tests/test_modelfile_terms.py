@@ -390,6 +390,7 @@ TERM_TABLES = st.dictionaries(
 )
 
 
+@pytest.mark.slow
 @settings(max_examples=300, deadline=None)
 @given(st.dictionaries(st.sampled_from(["x", "U", "W", "omega", "2y"]), TERM_TABLES, max_size=2))
 def test_fuzzed_terms_give_a_model_or_a_model_file_error(tables: dict[str, Any]) -> None:

@@ -110,7 +110,7 @@ def unit_text(unit: str) -> str:
     Examples
     --------
     >>> unit_text("wc"), unit_text("GHz")
-    ('$\\omega_c$', 'GHz')
+    ('$\\\\omega_c$', 'GHz')
     """
     return _PARAMETERS[unit][1] if unit in _PARAMETERS else unit
 
