@@ -129,10 +129,7 @@ pub fn ensure_room(bytes: u128, what: &str) -> CoreResult<()> {
     let limit = available_bytes().unwrap_or(UNKNOWN_LIMIT);
     if bytes > limit {
         return Err(CoreError::TooLarge {
-            what: format!(
-                "{what} (bytes); the memory available now is smaller: use a smaller sector or \
-                 cutoffs, or a method that stores less"
-            ),
+            what: format!("{what} (bytes); use a smaller sector or cutoffs, or a method that stores less"),
             requested: bytes,
             limit,
         });
