@@ -31,6 +31,7 @@ use crate::memory::try_with_capacity;
 use crate::parallel::{Interrupt, Runner};
 use crate::scalar::Scalar;
 use crate::space::{Constraint, FockSpace};
+use crate::terms::falling;
 use crate::terms::Operator;
 use rayon::prelude::*;
 use std::collections::{HashMap, HashSet};
@@ -55,16 +56,6 @@ fn residue_count(space: &FockSpace) -> usize {
         Constraint::Exact { total } => total as usize + 1,
         Constraint::Modular { modulus, .. } => modulus as usize,
     }
-}
-
-/// `n (n-1) … (n-k+1)` as `f64`.
-#[inline]
-fn falling(n: u32, k: u32) -> f64 {
-    let mut p = 1.0;
-    for j in 0..k {
-        p *= (n - j) as f64;
-    }
-    p
 }
 
 /// Visit every state of modes `a..b` that starts owing `r0` and can be completed, in

@@ -10,6 +10,7 @@ use crate::error::{CoreError, CoreResult};
 use crate::parallel::{Interrupt, Runner};
 use crate::scalar::Scalar;
 use crate::space::{Constraint, FockSpace};
+use crate::terms::falling;
 use crate::terms::{Operator, RowState};
 
 /// Rows per block of unpacked states.
@@ -113,15 +114,6 @@ pub struct ProductKernel<S: Scalar> {
     /// Hops `..hops_below` land below the diagonal; they are emitted before it.
     hops_below: usize,
     sqrt: Vec<f64>,
-}
-
-#[inline(always)]
-fn falling(n: u32, k: u32) -> f64 {
-    let mut p = 1.0;
-    for j in 0..k {
-        p *= (n - j) as f64;
-    }
-    p
 }
 
 impl<S: Scalar> ProductKernel<S> {

@@ -84,6 +84,66 @@ impl IndexBlock {
     }
 }
 
+/// The integer holding a packed string (see [`Shifts`]): `u64` when the string fits in
+/// 64 bits (shifts and rotations are then single instructions), else `u128`.
+trait Word: Copy + Ord + Send + Sync + 'static {
+    const ZERO: Self;
+    const MAX: Self;
+    /// The low bits of `x`.
+    fn from_u128(x: u128) -> Self;
+    fn from_u32(x: u32) -> Self;
+    fn shl(self, s: u32) -> Self;
+    fn shr(self, s: u32) -> Self;
+    fn and(self, o: Self) -> Self;
+    fn or(self, o: Self) -> Self;
+    fn wrapping_add(self, o: Self) -> Self;
+    /// The low 64 bits.
+    fn low(self) -> u64;
+}
+
+macro_rules! word {
+    ($t:ty) => {
+        impl Word for $t {
+            const ZERO: Self = 0;
+            const MAX: Self = <$t>::MAX;
+            #[inline(always)]
+            fn from_u128(x: u128) -> Self {
+                x as $t
+            }
+            #[inline(always)]
+            fn from_u32(x: u32) -> Self {
+                x as $t
+            }
+            #[inline(always)]
+            fn shl(self, s: u32) -> Self {
+                self << s
+            }
+            #[inline(always)]
+            fn shr(self, s: u32) -> Self {
+                self >> s
+            }
+            #[inline(always)]
+            fn and(self, o: Self) -> Self {
+                self & o
+            }
+            #[inline(always)]
+            fn or(self, o: Self) -> Self {
+                self | o
+            }
+            #[inline(always)]
+            fn wrapping_add(self, o: Self) -> Self {
+                <$t>::wrapping_add(self, o)
+            }
+            #[inline(always)]
+            fn low(self) -> u64 {
+                self as u64
+            }
+        }
+    };
+}
+word!(u64);
+word!(u128);
+
 /// Ranking straight from a packed string (see [`Shifts`]) when the space has no
 /// constraint or an exact total: the residue owed before mode `i` is then the weighted
 /// total of modes `i..M`, so the modes are read from the least significant end.
@@ -120,15 +180,15 @@ impl PackedRank {
     /// Rank of the packed string `x` of a state of the space (`table`: the space's
     /// offset table).
     #[inline(always)]
-    fn rank(&self, table: &[u64], mut x: u128) -> u64 {
+    fn rank<W: Word>(&self, table: &[u64], mut x: W) -> u64 {
         // Wrapping arithmetic: every value is bounded by the tables' size (checked
         // arithmetic costs a third of the time here).
         let field = self.field as usize;
         let mut owed = 0usize;
         let mut rank = 0u64;
         for &(start, width, weight) in &self.modes {
-            let v = (x as u64 as usize) & field;
-            x >>= self.bits;
+            let v = (x.low() as usize) & field;
+            x = x.shr(self.bits);
             owed = owed.wrapping_add(weight.wrapping_mul(v));
             rank = rank.wrapping_add(table[start.wrapping_add(owed.wrapping_mul(width)).wrapping_add(v)]);
         }
@@ -334,14 +394,22 @@ impl Shifts {
         })
     }
 
+    /// Whether packed strings fit in a `u64`.
+    #[inline(always)]
+    fn narrow(&self) -> bool {
+        self.width <= 64
+    }
+
     /// Rotate a packed string right by `modes` modes.
     #[inline(always)]
-    fn rotate(&self, x: u128, modes: usize) -> u128 {
+    fn rotate<W: Word>(&self, x: W, modes: usize) -> W {
         let shift = modes as u32 * self.bits;
         if shift == 0 {
             x
         } else {
-            ((x >> shift) | (x << (self.width - shift))) & self.mask
+            x.shr(shift)
+                .or(x.shl(self.width - shift))
+                .and(W::from_u128(self.mask))
         }
     }
 
@@ -358,7 +426,7 @@ impl Shifts {
     /// As [`Shifts::smallest`], with `empty` the modes of the state holding no quanta
     /// (see [`Shifts::empty_modes`]): through the run-of-zeros shortcut when it applies.
     #[inline(always)]
-    fn smallest_with(&self, p: u128, r: u128, empty: u64) -> (u128, usize, usize) {
+    fn smallest_with<W: Word>(&self, p: W, r: W, empty: u64) -> (W, usize, usize) {
         let Some(ring) = &self.ring else {
             return self.smallest(p, r);
         };
@@ -380,10 +448,10 @@ impl Shifts {
             starts = longer;
             run += 1;
         }
-        let mut best = u128::MAX;
+        let mut best = W::MAX;
         let mut which = usize::MAX;
         let mut ties = 0usize;
-        let mut consider = |v: u128, h: usize| {
+        let mut consider = |v: W, h: usize| {
             if v < best {
                 best = v;
                 which = h;
@@ -425,40 +493,33 @@ impl Shifts {
 
     /// The packed string and the packed reversed string of `occ`.
     #[inline(always)]
-    fn pack(&self, occ: &[u32]) -> (u128, u128) {
-        let mut p = 0u128;
-        let mut r = 0u128;
+    fn pack<W: Word>(&self, occ: &[u32]) -> (W, W) {
+        let mut p = W::ZERO;
+        let mut r = W::ZERO;
         for (i, &v) in occ.iter().enumerate() {
-            p |= (v as u128) << ((self.modes - 1 - i) as u32 * self.bits);
-            r |= (v as u128) << (i as u32 * self.bits);
+            p = p.or(W::from_u32(v).shl((self.modes - 1 - i) as u32 * self.bits));
+            r = r.or(W::from_u32(v).shl(i as u32 * self.bits));
         }
         (p, r)
     }
 
-    /// Set mode `mode` to `v` in both packed strings.
     #[inline(always)]
-    fn patch(&self, p: &mut u128, r: &mut u128, mode: usize, v: u32) {
-        let sp = (self.modes - 1 - mode) as u32 * self.bits;
-        let sr = mode as u32 * self.bits;
-        *p = (*p & !(self.field << sp)) | ((v as u128) << sp);
-        *r = (*r & !(self.field << sr)) | ((v as u128) << sr);
-    }
-
-    #[inline(always)]
-    fn image(&self, h: usize, p: u128, r: u128) -> u128 {
+    fn image<W: Word>(&self, h: usize, p: W, r: W) -> W {
         let (rev, shift) = self.moves[h];
         let x = if rev { r } else { p };
         if shift == 0 {
             x
         } else {
-            ((x >> shift) | (x << (self.width - shift))) & self.mask
+            x.shr(shift)
+                .or(x.shl(self.width - shift))
+                .and(W::from_u128(self.mask))
         }
     }
 
     /// Smallest image, the element giving it and how many elements do.
     #[inline(always)]
-    fn smallest(&self, p: u128, r: u128) -> (u128, usize, usize) {
-        let mut best = u128::MAX;
+    fn smallest<W: Word>(&self, p: W, r: W) -> (W, usize, usize) {
+        let mut best = W::MAX;
         let mut which = 0usize;
         let mut ties = 0usize;
         for h in 0..self.moves.len() {
@@ -475,9 +536,9 @@ impl Shifts {
     }
 
     #[inline(always)]
-    fn unpack(&self, x: u128, occ: &mut [u32]) {
+    fn unpack<W: Word>(&self, x: W, occ: &mut [u32]) {
         for (i, o) in occ.iter_mut().enumerate() {
-            *o = ((x >> ((self.modes - 1 - i) as u32 * self.bits)) & self.field) as u32;
+            *o = (x.shr((self.modes - 1 - i) as u32 * self.bits).low() & self.field as u64) as u32;
         }
     }
 }
@@ -1032,7 +1093,7 @@ impl SymmetricSpace {
     #[inline]
     fn is_kept_representative(&self, occ: &[u32]) -> bool {
         if let Some(f) = &self.shifts {
-            let (p, r) = f.pack(occ);
+            let (p, r) = f.pack::<u128>(occ);
             for h in 1..self.order {
                 let v = f.image(h, p, r);
                 if v < p || (v == p && self.phases[h] != 0) {
@@ -1067,7 +1128,13 @@ impl SymmetricSpace {
     #[inline]
     pub fn canonical(&self, occ: &[u32], best: &mut [u32]) -> (usize, usize) {
         if let Some(f) = &self.shifts {
-            let (p, r) = f.pack(occ);
+            if f.narrow() {
+                let (p, r) = f.pack::<u64>(occ);
+                let (x, which, ties) = f.smallest_with(p, r, Shifts::empty_modes(occ));
+                f.unpack(x, best);
+                return (which, ties);
+            }
+            let (p, r) = f.pack::<u128>(occ);
             let (x, which, ties) = f.smallest_with(p, r, Shifts::empty_modes(occ));
             f.unpack(x, best);
             return (which, ties);
@@ -1329,12 +1396,121 @@ pub struct SectorOperator<S: Scalar> {
     diagonal: Vec<SectorTerm<S>>,
     off: Vec<SectorTerm<S>>,
     characters: Vec<S>,
+    /// The diagonal terms as factor tables (see [`FactorTables`]).
+    diagonal_tables: FactorTables,
+    /// The off-diagonal terms compiled for packed strings, when the sector has them.
+    packed: Option<PackedTerms>,
+}
+
+/// Per-factor tables of the squared amplitudes of terms, indexed by a mode's
+/// occupation: `table[start + n]` is `n!/(n-lower)! · w!/(w-raise)!` with
+/// `w = n - lower + raise` (for diagonal terms, whose factors keep the occupation, the
+/// amplitude `n!/(n-lower)!` itself), or `0.0` when the factor leaves the truncated
+/// space (`n < lower` or `w > cap`). Products of these exact small integers, taken in the
+/// terms' factor order, are the squared amplitudes the row loops used to compute
+/// factor by factor, so results are unchanged; a table read replaces the loops and
+/// their checks (the representative/normalisation tables of Sandvik, AIP Conf. Proc.
+/// 1297, 135 (2010), here for the amplitudes).
+#[derive(Debug, Clone, Default)]
+struct FactorTables {
+    /// `(mode, start)` of each factor, terms one after another.
+    factors: Vec<(u32, u32)>,
+    /// `factors[ends[t - 1]..ends[t]]` are term `t`'s.
+    ends: Vec<u32>,
+    values: Vec<f64>,
+    /// `empty[start + n]`: whether the mode is empty after the factor acts.
+    empty: Vec<bool>,
+}
+
+impl FactorTables {
+    fn new<S>(terms: &[SectorTerm<S>], caps: &[u32], width: usize, diagonal: bool) -> Self {
+        let mut t = FactorTables::default();
+        for term in terms {
+            for &(mode, lower, raise) in &term.factors {
+                let start = t.values.len() as u32;
+                let cap = caps[mode];
+                for n in 0..width as u32 {
+                    let ok = n >= lower && n <= cap && n - lower + raise <= cap;
+                    if ok {
+                        let w = n - lower + raise;
+                        t.values.push(if diagonal {
+                            crate::terms::falling(n, lower)
+                        } else {
+                            crate::terms::falling(n, lower) * crate::terms::falling(w, raise)
+                        });
+                        t.empty.push(w == 0);
+                    } else {
+                        t.values.push(0.0);
+                        t.empty.push(false);
+                    }
+                }
+                t.factors.push((mode as u32, start));
+            }
+            t.ends.push(t.factors.len() as u32);
+        }
+        t
+    }
+
+    #[inline(always)]
+    fn range(&self, term: usize) -> std::ops::Range<usize> {
+        let a = if term == 0 {
+            0
+        } else {
+            self.ends[term - 1] as usize
+        };
+        a..self.ends[term] as usize
+    }
+}
+
+/// Off-diagonal terms compiled for packed strings (see [`Shifts`]): applying a term
+/// adds a fixed signed offset to the packed string and to the packed reversed string
+/// (no field over- or underflows once the factor tables accept the occupations), so an
+/// image costs a few table reads and two additions instead of a loop over its modes.
+#[derive(Debug, Clone)]
+struct PackedTerms {
+    bits: u32,
+    tables: FactorTables,
+    /// Per term: the offsets of the packed and the reversed string (two's complement),
+    /// and the bits of its modes in the empty-mode mask.
+    moves: Vec<(u128, u128, u64)>,
+    /// Per factor: the shift of its mode's field in the packed string.
+    shifts: Vec<u32>,
+}
+
+impl PackedTerms {
+    fn new<S>(off: &[SectorTerm<S>], caps: &[u32], bits: u32) -> Self {
+        let m = caps.len();
+        let tables = FactorTables::new(off, caps, 1usize << bits, false);
+        let mut moves = Vec::with_capacity(off.len());
+        let mut shifts = Vec::new();
+        for term in off {
+            let (mut dp, mut dr, mut zmask) = (0u128, 0u128, 0u64);
+            for &(mode, lower, raise) in &term.factors {
+                let sp = (m - 1 - mode) as u32 * bits;
+                let sr = mode as u32 * bits;
+                let delta = raise as i128 - lower as i128;
+                dp = dp.wrapping_add((delta as u128).wrapping_shl(sp));
+                dr = dr.wrapping_add((delta as u128).wrapping_shl(sr));
+                if mode < 64 {
+                    zmask |= 1u64 << mode;
+                }
+                shifts.push(sp);
+            }
+            moves.push((dp, dr, zmask));
+        }
+        PackedTerms {
+            bits,
+            tables,
+            moves,
+            shifts,
+        }
+    }
 }
 
 /// Per-thread buffers of the row gathering.
 struct RowScratch {
     /// Images of a row waiting for their look-ups: (rank, term, element, amplitude).
-    pending: Vec<(u64, usize, usize, f64)>,
+    pending: Vec<(u64, u32, u32, f64)>,
     occ: Vec<u32>,
     image: Vec<u32>,
     best: Vec<u32>,
@@ -1349,15 +1525,6 @@ impl RowScratch {
             best: vec![0; m],
         }
     }
-}
-
-#[inline(always)]
-fn falling(n: u32, k: u32) -> f64 {
-    let mut p = 1.0;
-    for j in 0..k {
-        p *= (n - j) as f64;
-    }
-    p
 }
 
 impl<S: Scalar> SectorOperator<S> {
@@ -1415,10 +1582,19 @@ impl<S: Scalar> SectorOperator<S> {
                 off.push(term);
             }
         }
+        let caps = sector.base.caps();
+        let width = sector.base.max_cutoff() as usize + 1;
+        let diagonal_tables = FactorTables::new(&diagonal, caps, width, true);
+        let packed = sector
+            .shifts
+            .as_ref()
+            .map(|f| PackedTerms::new(&off, caps, f.bits));
         Ok(SectorOperator {
             diagonal,
             off,
             characters,
+            diagonal_tables,
+            packed,
         })
     }
 
@@ -1436,18 +1612,17 @@ impl<S: Scalar> SectorOperator<S> {
         let caps = base.caps();
         let rank = sector.reps[row as usize];
         sector.unrank_small(rank, &mut s.occ);
-        let (_, ties_row) = sector.canonical(&s.occ, &mut s.best);
-        let inv_row = sector.inv_root(ties_row);
         let mut d = S::ZERO;
         let mut any_diagonal = false;
-        'diag: for term in &self.diagonal {
+        let dt = &self.diagonal_tables;
+        'diag: for (t, term) in self.diagonal.iter().enumerate() {
             let mut amp = 1.0;
-            for &(mode, p, _) in &term.factors {
-                let n = s.occ[mode];
-                if n < p {
+            for &(mode, start) in &dt.factors[dt.range(t)] {
+                let v = dt.values[start as usize + s.occ[mode as usize] as usize];
+                if v == 0.0 {
                     continue 'diag;
                 }
-                amp *= falling(n, p);
+                amp *= v;
             }
             d += term.coef.scale(amp);
             any_diagonal = true;
@@ -1455,52 +1630,27 @@ impl<S: Scalar> SectorOperator<S> {
         if any_diagonal {
             visit(row, d);
         }
-        if let Some(f) = &sector.shifts {
-            let (p0, r0) = f.pack(&s.occ);
-            let z0 = Shifts::empty_modes(&s.occ);
-            // First every image's rank (arithmetic only), then the index and vector
-            // look-ups back to back, so that their cache misses overlap.
-            s.pending.clear();
-            'fast: for (t, term) in self.off.iter().enumerate() {
-                let (mut p, mut r, mut z) = (p0, r0, z0);
-                let mut amp_sq = 1.0f64;
-                for &(mode, lower, raise) in &term.factors {
-                    let n = s.occ[mode];
-                    if n < lower {
-                        continue 'fast;
-                    }
-                    let w = n - lower + raise;
-                    if w > caps[mode] {
-                        continue 'fast;
-                    }
-                    amp_sq *= falling(n, lower) * falling(w, raise);
-                    f.patch(&mut p, &mut r, mode, w);
-                    if mode < 64 {
-                        z = (z & !(1u64 << mode)) | (((w == 0) as u64) << mode);
-                    }
+        if let (Some(f), Some(pt)) = (&sector.shifts, &self.packed) {
+            if f.bits == pt.bits {
+                if f.narrow() {
+                    self.packed_row::<u64>(sector, f, pt, s);
+                } else {
+                    self.packed_row::<u128>(sector, f, pt, s);
                 }
-                let (x, h, ties) = f.smallest_with(p, r, z);
-                let rank = match &sector.packed_rank {
-                    Some(pr) => pr.rank(base.offset_table(), x),
-                    None => {
-                        f.unpack(x, &mut s.best);
-                        let Some(rank) = base.rank(&s.best) else {
-                            continue;
-                        };
-                        rank
-                    }
-                };
-                s.pending
-                    .push((rank, t, h, sector.amplitude(amp_sq, ties, inv_row)));
+                for &(rank, t, h, amp) in &s.pending {
+                    let Some(col) = sector.sector_index(rank) else {
+                        continue;
+                    };
+                    visit(
+                        col,
+                        (self.off[t as usize].coef * self.characters[h as usize]).scale(amp),
+                    );
+                }
+                return Ok(());
             }
-            for &(rank, t, h, amp) in &s.pending {
-                let Some(col) = sector.sector_index(rank) else {
-                    continue;
-                };
-                visit(col, (self.off[t].coef * self.characters[h]).scale(amp));
-            }
-            return Ok(());
         }
+        let (_, ties_row) = sector.canonical(&s.occ, &mut s.best);
+        let inv_row = sector.inv_root(ties_row);
         'terms: for term in &self.off {
             s.image.copy_from_slice(&s.occ);
             let mut amp_sq = 1.0f64;
@@ -1514,7 +1664,7 @@ impl<S: Scalar> SectorOperator<S> {
                 if w > caps[mode] {
                     continue 'terms;
                 }
-                amp_sq *= falling(n, lower) * falling(w, raise);
+                amp_sq *= crate::terms::falling(n, lower) * crate::terms::falling(w, raise);
                 s.image[mode] = w;
             }
             let (h, ties) = sector.canonical(&s.image, &mut s.best);
@@ -1529,6 +1679,57 @@ impl<S: Scalar> SectorOperator<S> {
             visit(col, (term.coef * self.characters[h]).scale(amp));
         }
         Ok(())
+    }
+
+    /// The images of the row whose occupations are in `s.occ`, through packed strings:
+    /// `(base rank of the representative, term, element, amplitude)` into `s.pending`.
+    /// Each image is the row's packed string plus the term's fixed offset (after its
+    /// factor tables accept the occupations), its representative the smallest rotation
+    /// ([`Shifts::smallest_with`]), ranked straight from the packed string. Ranks come
+    /// first (arithmetic only), the index and vector look-ups afterwards, back to back,
+    /// so that their cache misses overlap.
+    #[inline(always)]
+    fn packed_row<W: Word>(&self, sector: &SymmetricSpace, f: &Shifts, pt: &PackedTerms, s: &mut RowScratch) {
+        let base = &sector.base;
+        let (p0, r0) = f.pack::<W>(&s.occ);
+        let z0 = Shifts::empty_modes(&s.occ);
+        let (_, _, ties_row) = f.smallest_with(p0, r0, z0);
+        let inv_row = sector.inv_root(ties_row);
+        let field = f.field as u64;
+        let tb = &pt.tables;
+        s.pending.clear();
+        'fast: for (t, &(dp, dr, zmask)) in pt.moves.iter().enumerate() {
+            let mut amp_sq = 1.0f64;
+            let mut z = z0 & !zmask;
+            for k in tb.range(t) {
+                let (mode, start) = tb.factors[k];
+                let n = (p0.shr(pt.shifts[k]).low() & field) as usize;
+                let at = start as usize + n;
+                let v = tb.values[at];
+                if v == 0.0 {
+                    continue 'fast;
+                }
+                amp_sq *= v;
+                if tb.empty[at] {
+                    z |= 1u64 << (mode & 63);
+                }
+            }
+            let p = p0.wrapping_add(W::from_u128(dp));
+            let r = r0.wrapping_add(W::from_u128(dr));
+            let (x, h, ties) = f.smallest_with(p, r, z);
+            let rank = match &sector.packed_rank {
+                Some(pr) => pr.rank(base.offset_table(), x),
+                None => {
+                    f.unpack(x, &mut s.best);
+                    let Some(rank) = base.rank(&s.best) else {
+                        continue;
+                    };
+                    rank
+                }
+            };
+            s.pending
+                .push((rank, t as u32, h as u32, sector.amplitude(amp_sq, ties, inv_row)));
+        }
     }
 
     /// The merged entries of one row, sorted by column, exact zeros dropped.
@@ -2184,7 +2385,7 @@ mod tests {
             let mut occ2 = vec![0u32; l];
             let mut next = 0usize;
             each_state(&base, |occ, b| {
-                let (p, _) = f.pack(occ);
+                let (p, _) = f.pack::<u128>(occ);
                 assert_eq!(pr.rank(base.offset_table(), p), b);
                 sector.unrank_small(b, &mut occ2);
                 assert_eq!(occ2, occ);
