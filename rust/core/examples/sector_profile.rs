@@ -19,7 +19,7 @@ fn main() {
     let l: usize = args.get(1).map_or(13, |s| s.parse().unwrap());
     let repeats: usize = args.get(2).map_or(5, |s| s.parse().unwrap());
     let threads: Option<usize> = args.get(3).map(|s| s.parse().unwrap());
-    let full_too = args.get(4).map_or(true, |s| s != "nofull");
+    let full_too = args.get(4).is_none_or(|s| s != "nofull");
     let runner = Runner::with_threads(threads).unwrap();
     let base = FockSpace::new(vec![l as u32; l], None, Some(l as u64), None).unwrap();
     let mut raw = Vec::new();

@@ -36,16 +36,15 @@
 //! string; and the representatives are listed by a depth-first walk over prefixes that
 //! no rotation beats, instead of testing every base state.
 
-use crate::build::{Csr, CsrAny, CsrIndex};
+use crate::build::{CsrAny, RowVisitor, SparseRows};
 use crate::error::{CoreError, CoreResult};
 use crate::lanczos::{self, HermitianMap, LanczosOptions, LanczosOutcome};
 use crate::levels::{self, LevelsOptions, LevelsOutcome};
-use crate::memory::{ensure_room, try_filled, try_with_capacity};
-use crate::parallel::{Interrupt, Runner, BLOCK_ROWS};
+use crate::memory::{ensure_room, try_filled};
+use crate::parallel::{Interrupt, Runner};
 use crate::scalar::Scalar;
 use crate::space::{Constraint, FockSpace};
 use crate::terms::{format_monomial, Operator};
-use crate::vecops::splitmix64;
 use num_complex::Complex64;
 use rayon::prelude::*;
 use std::collections::HashMap;
@@ -56,8 +55,6 @@ pub const MAX_GROUP_ORDER: usize = 1 << 16;
 pub const MAX_GROUP_ENTRIES: usize = 1 << 24;
 /// Base states covered by one block of the representative index (seven words of bits).
 const BLOCK_STATES: u64 = 448;
-/// Row blocks gathered between two appends of the one-pass build (about 130 000 rows).
-const BUILD_BLOCKS: usize = 32;
 /// Square roots kept in a table (squared amplitudes of products of few quanta).
 const ROOTS: usize = 4096;
 /// Index blocks marked by one task of the enumeration.
@@ -1742,22 +1739,7 @@ impl<S: Scalar> SectorOperator<S> {
     ) -> CoreResult<()> {
         out.clear();
         self.row_entries(sector, row, s, |c, v| out.push((c, v)))?;
-        // Stable: duplicates are summed in term order whatever the threads.
-        out.sort_by_key(|e| e.0);
-        let mut kept = 0usize;
-        let mut k = 0usize;
-        while k < out.len() {
-            let (col, mut val) = out[k];
-            k += 1;
-            while k < out.len() && out[k].0 == col {
-                val += out[k].1;
-                k += 1;
-            }
-            if val != S::ZERO {
-                out[kept] = (col, val);
-                kept += 1;
-            }
-        }
+        let kept = crate::build::merge_row(out);
         out.truncate(kept);
         Ok(())
     }
@@ -1814,32 +1796,12 @@ impl<S: Scalar> SectorOperator<S> {
         })
     }
 
-    /// Stored entries of each row.
-    fn row_counts(
-        &self,
-        sector: &SymmetricSpace,
-        runner: &Runner,
-        interrupt: &dyn Interrupt,
-    ) -> CoreResult<Vec<u64>> {
-        let mut counts = try_filled(sector.dim() as usize, 0u64, "row counts of the sparse matrix")?;
-        let m = sector.base.modes();
-        runner.for_row_chunks(&mut counts, interrupt, |first, out| {
-            let mut s = RowScratch::new(m);
-            let mut buf = Vec::new();
-            for (i, c) in out.iter_mut().enumerate() {
-                self.merged_row(sector, first + i as u64, &mut s, &mut buf)?;
-                *c = buf.len() as u64;
-            }
-            Ok(())
-        })?;
-        Ok(counts)
-    }
-
     /// The CSR matrix of the operator on the sector (canonical: sorted columns, no
     /// duplicates, no stored zeros), `i32` indices when they fit unless `force_wide`.
     ///
-    /// The rows are gathered once: blocks of rows in parallel, appended in row order to
-    /// arrays reserved from a sampled estimate of the entries (grown if it falls short).
+    /// The shared two-pass build ([`crate::build::build_rows`]): each row's entries are
+    /// counted, then written in place, so that peak memory is the output plus one row
+    /// count per row and per-thread scratch.
     ///
     /// # Errors
     /// [`CoreError::TooLarge`] when the entries do not fit in memory;
@@ -1851,97 +1813,7 @@ impl<S: Scalar> SectorOperator<S> {
         interrupt: &dyn Interrupt,
         force_wide: bool,
     ) -> CoreResult<CsrAny<S>> {
-        let dim = sector.dim();
-        let (est, err, exact, _) = self.estimate_nnz(sector, 4096, runner, interrupt)?;
-        let expected = if exact { est } else { est + 6.0 * err + 0.002 * est };
-        let bound = dim.saturating_mul(1 + self.off.len() as u64);
-        let expected = (expected.ceil() as u64).min(bound);
-        let narrow_fits = dim <= i32::MAX as u64;
-        if !force_wide && narrow_fits && expected <= i32::MAX as u64 {
-            if let Some(c) = self.fill::<i32>(sector, runner, interrupt, expected)? {
-                return Ok(CsrAny::Narrow(c));
-            }
-        }
-        let c = self
-            .fill::<i64>(sector, runner, interrupt, expected)?
-            .expect("i64 indices hold any count of entries");
-        Ok(CsrAny::Wide(c))
-    }
-
-    /// The CSR arrays with indices of type `I`, or `None` when the entries outgrow `I`.
-    fn fill<I: CsrIndex>(
-        &self,
-        sector: &SymmetricSpace,
-        runner: &Runner,
-        interrupt: &dyn Interrupt,
-        expected: u64,
-    ) -> CoreResult<Option<Csr<S, I>>> {
-        let dim = sector.dim();
-        let limit = I::MAX;
-        let mut indptr: Vec<I> = try_with_capacity(dim as usize + 1, "row pointers of the sparse matrix")?;
-        let mut indices: Vec<I> =
-            try_with_capacity(expected as usize, "column indices of the sparse matrix")?;
-        let mut data: Vec<S> = try_with_capacity(expected as usize, "values of the sparse matrix")?;
-        indptr.push(I::from_u64(0));
-        let m = sector.base.modes();
-        let blocks = dim.div_ceil(BLOCK_ROWS) as usize;
-        let mut next = 0usize;
-        while next < blocks {
-            // Few blocks at a time: their entries are held twice until appended.
-            let end = (next + BUILD_BLOCKS).min(blocks);
-            let parts: Vec<(Vec<u32>, Vec<I>, Vec<S>)> = runner.install(|| {
-                (next..end)
-                    .into_par_iter()
-                    .map(|b| {
-                        let first = b as u64 * BLOCK_ROWS;
-                        let last = (first + BLOCK_ROWS).min(dim);
-                        let mut s = RowScratch::new(m);
-                        let mut buf = Vec::new();
-                        let mut lens = Vec::with_capacity((last - first) as usize);
-                        let mut cols = Vec::new();
-                        let mut vals = Vec::new();
-                        for row in first..last {
-                            self.merged_row(sector, row, &mut s, &mut buf)?;
-                            lens.push(buf.len() as u32);
-                            cols.extend(buf.iter().map(|e| I::from_u64(e.0)));
-                            vals.extend(buf.iter().map(|e| e.1));
-                        }
-                        Ok((lens, cols, vals))
-                    })
-                    .collect::<CoreResult<Vec<_>>>()
-            })?;
-            for (lens, cols, vals) in parts {
-                let have = indices.len() as u64;
-                if have + cols.len() as u64 > limit {
-                    return Ok(None);
-                }
-                if indices.capacity() - indices.len() < cols.len() {
-                    // Grow by an eighth at least: the estimate fell short.
-                    let more = cols.len().max(indices.capacity() / 8);
-                    reserve(&mut indices, more, "column indices of the sparse matrix")?;
-                    reserve(&mut data, more, "values of the sparse matrix")?;
-                }
-                let mut at = have;
-                for len in lens {
-                    at += len as u64;
-                    indptr.push(I::from_u64(at));
-                }
-                indices.extend_from_slice(&cols);
-                data.extend_from_slice(&vals);
-            }
-            next = end;
-            if interrupt.requested() {
-                return Err(CoreError::Interrupted);
-            }
-        }
-        indices.shrink_to_fit();
-        data.shrink_to_fit();
-        Ok(Some(Csr {
-            dim,
-            indptr,
-            indices,
-            data,
-        }))
+        crate::build::build_rows(&OnSector { sector, op: self }, runner, interrupt, force_wide)
     }
 
     /// Estimated stored entries (exact when the sector has at most `4 × samples` states):
@@ -1956,44 +1828,19 @@ impl<S: Scalar> SectorOperator<S> {
         runner: &Runner,
         interrupt: &dyn Interrupt,
     ) -> CoreResult<(f64, f64, bool, u64)> {
-        let dim = sector.dim();
-        let samples = samples.max(1) as u64;
-        if dim <= 4 * samples {
-            let counts = self.row_counts(sector, runner, interrupt)?;
-            return Ok((
-                counts.iter().sum::<u64>() as f64,
-                0.0,
-                true,
-                counts.iter().copied().max().unwrap_or(0),
-            ));
-        }
         let m = sector.base.modes();
-        let counts: Vec<u64> = runner.install(|| {
-            (0..samples)
-                .into_par_iter()
-                .map_init(
-                    || (RowScratch::new(m), Vec::new()),
-                    |(s, buf), k| {
-                        let lo = k * dim / samples;
-                        let hi = (k + 1) * dim / samples;
-                        let row = lo + splitmix64(k ^ 0xA5A5_5A5A) % (hi - lo).max(1);
-                        match self.merged_row(sector, row, s, buf) {
-                            Ok(()) => buf.len() as u64,
-                            Err(_) => 0,
-                        }
-                    },
-                )
-                .collect()
-        });
-        let n = counts.len() as f64;
-        let mean = counts.iter().sum::<u64>() as f64 / n;
-        let var = counts.iter().map(|&c| (c as f64 - mean).powi(2)).sum::<f64>() / (n - 1.0).max(1.0);
-        Ok((
-            mean * dim as f64,
-            (var / n).sqrt() * dim as f64,
-            false,
-            counts.iter().copied().max().unwrap_or(0),
-        ))
+        let e = crate::estimate::estimate_from_rows(
+            sector.dim(),
+            samples,
+            runner,
+            || crate::build::counts_of(&OnSector { sector, op: self }, runner, interrupt),
+            || (RowScratch::new(m), Vec::new()),
+            |(s, buf), row| match self.merged_row(sector, row, s, buf) {
+                Ok(()) => buf.len() as u64,
+                Err(_) => 0,
+            },
+        )?;
+        Ok((e.nnz, e.std_error, e.exact, e.max_row))
     }
 
     /// Lanczos ground state on the sector: matrix-free, or on a CSR matrix built first
@@ -2054,6 +1901,40 @@ impl<S: Scalar> SectorOperator<S> {
                 levels::lowest_levels(&lanczos::CsrMap::new(c), k, start, opts, runner, interrupt)
             }
         }
+    }
+}
+
+/// A sector operator seen as the rows of its matrix, for the shared two-pass CSR build
+/// and the nonzero estimate.
+#[derive(Clone, Copy)]
+pub struct OnSector<'a, S: Scalar> {
+    /// The sector (rows and columns).
+    pub sector: &'a SymmetricSpace,
+    /// The operator.
+    pub op: &'a SectorOperator<S>,
+}
+
+impl<S: Scalar> SparseRows<S> for OnSector<'_, S> {
+    fn shape(&self) -> (u64, u64) {
+        (self.sector.dim(), self.sector.dim())
+    }
+    fn rows(&self, first: u64, count: usize, visit: &mut RowVisitor<S>) -> CoreResult<()> {
+        let end = first
+            .checked_add(count as u64)
+            .filter(|&e| e <= self.sector.dim())
+            .ok_or_else(|| {
+                CoreError::InvalidArgument(format!(
+                    "rows {first}..{first}+{count} are out of range for the sector's dimension {}",
+                    self.sector.dim()
+                ))
+            })?;
+        let mut s = RowScratch::new(self.sector.base.modes());
+        let mut buf = Vec::new();
+        for row in first..end {
+            self.op.merged_row(self.sector, row, &mut s, &mut buf)?;
+            visit(row, &buf);
+        }
+        Ok(())
     }
 }
 
@@ -2403,10 +2284,10 @@ mod tests {
     }
 
     #[test]
-    fn one_pass_build_grows_and_narrows_correctly() {
-        // Reserving too little must only grow the arrays, and wide and narrow indices
-        // must hold the same matrix; its row sums against the matrix-free product with
-        // a vector of ones (common practice, no source).
+    fn two_pass_build_is_narrow_or_wide_alike() {
+        // The shared two-pass build: wide and narrow indices must hold the same matrix,
+        // the same for 1 and 2 threads; its row sums against the matrix-free product
+        // with a vector of ones (common practice, no source).
         let l = 8;
         let base = FockSpace::new(vec![8; l], None, Some(8), None).unwrap();
         let g = [
@@ -2423,7 +2304,10 @@ mod tests {
         let s = SymmetricSpace::new(base.clone(), &g, &r, &NoInterrupt).unwrap();
         let op = Operator::<f64>::new(&base, &bose_hubbard_ring(l, 1.0, 2.0)).unwrap();
         let sop = SectorOperator::new(&s, &op, &g).unwrap();
-        let small = sop.fill::<i32>(&s, &r, &NoInterrupt, 1).unwrap().unwrap();
+        let one = Runner::with_threads(Some(1)).unwrap();
+        let CsrAny::Narrow(small) = sop.build_csr(&s, &one, &NoInterrupt, false).unwrap() else {
+            panic!("narrow expected");
+        };
         let CsrAny::Narrow(narrow) = sop.build_csr(&s, &r, &NoInterrupt, false).unwrap() else {
             panic!("narrow expected");
         };
