@@ -2226,6 +2226,267 @@ mod tests {
         }
     }
 
+    /// Hopping, Kerr, density-density and pair hopping on `bonds` (every kind of factor
+    /// table: one- and two-mode diagonal terms, single and double quanta moved).
+    fn lattice_terms(modes: usize, bonds: &[(usize, usize)]) -> Vec<RawTerm> {
+        let mut t = Vec::new();
+        for i in 0..modes {
+            t.push(RawTerm::new(0.65, 0.0, vec![(i, 2, 2)]));
+        }
+        for &(i, j) in bonds {
+            let (a, b) = (i.min(j), i.max(j));
+            t.push(RawTerm::new(-1.0, 0.0, vec![(a, 1, 0), (b, 0, 1)]));
+            t.push(RawTerm::new(-1.0, 0.0, vec![(a, 0, 1), (b, 1, 0)]));
+            t.push(RawTerm::new(0.3, 0.0, vec![(a, 1, 1), (b, 1, 1)]));
+            t.push(RawTerm::new(0.2, 0.0, vec![(a, 2, 0), (b, 0, 2)]));
+            t.push(RawTerm::new(0.2, 0.0, vec![(a, 0, 2), (b, 2, 0)]));
+        }
+        t
+    }
+
+    /// Site `(r, c)` of a `rows × cols` torus is mode `r * cols + c`.
+    fn torus_bonds(rows: usize, cols: usize) -> Vec<(usize, usize)> {
+        let site = |r: usize, c: usize| (r % rows) * cols + c % cols;
+        let mut b = Vec::new();
+        for r in 0..rows {
+            for c in 0..cols {
+                b.push((site(r, c), site(r, c + 1)));
+                b.push((site(r, c), site(r + 1, c)));
+            }
+        }
+        b
+    }
+
+    fn torus_map(rows: usize, cols: usize, f: impl Fn(usize, usize) -> (usize, usize)) -> Vec<usize> {
+        (0..rows * cols)
+            .map(|i| {
+                let (r, c) = f(i / cols, i % cols);
+                (r % rows) * cols + c % cols
+            })
+            .collect()
+    }
+
+    /// Every label combination of `images` that defines a sector, checked against a
+    /// dense projector reference (common practice, no source): the group is closed
+    /// here from the generators with its characters, the kept representatives are the
+    /// orbit minima whose stabiliser has the trivial character, the sector state of a
+    /// representative `r` is `Σ_g χ(g)^* |g r⟩` normalised, and the sector matrix must
+    /// equal `V† H V` on those states. Each sector's CSR matrix must also be
+    /// bit-identical with the shortcuts cleared (the general path) and for 1 and 2
+    /// threads, and its products (one vector and three) must match the matrix.
+    /// Returns the number of sectors checked.
+    fn check_every_label(base: &FockSpace, raw: &[RawTerm], images: &[Vec<usize>]) -> usize {
+        let m = base.modes();
+        let op = Operator::<Complex64>::new(base, raw).unwrap();
+        let (n, h) = dense_of(&build_csr(base, &op, &Runner::global(), &NoInterrupt, false).unwrap());
+        let mut states = Vec::new();
+        each_state(base, |occ, _| states.push(occ.to_vec()));
+        let orders: Vec<u64> = images.iter().map(|g| permutation_order(g).unwrap()).collect();
+        let one = Runner::with_threads(Some(1)).unwrap();
+        let two = Runner::with_threads(Some(2)).unwrap();
+        let mut checked = 0;
+        let mut labels = vec![0u64; images.len()];
+        loop {
+            let gens: Vec<Generator> = images
+                .iter()
+                .zip(&labels)
+                .map(|(g, &q)| Generator {
+                    images: g.clone(),
+                    label: q,
+                })
+                .collect();
+            if let Ok(sector) = SymmetricSpace::new(base.clone(), &gens, &one, &NoInterrupt) {
+                checked += 1;
+                // The group with its characters, closed here.
+                let ident: Vec<usize> = (0..m).collect();
+                let mut elems = vec![(ident, Complex64::new(1.0, 0.0))];
+                let mut k = 0;
+                while k < elems.len() {
+                    for (g, (&q, &o)) in images.iter().zip(labels.iter().zip(&orders)) {
+                        let composed: Vec<usize> = elems[k].0.iter().map(|&i| g[i]).collect();
+                        if elems.iter().all(|e| e.0 != composed) {
+                            let phase = 2.0 * std::f64::consts::PI * q as f64 / o as f64;
+                            let chi = elems[k].1 * Complex64::new(phase.cos(), phase.sin());
+                            elems.push((composed, chi));
+                        }
+                    }
+                    k += 1;
+                }
+                assert_eq!(elems.len(), sector.order());
+                let act = |e: &[usize], occ: &[u32]| {
+                    let mut moved = vec![0u32; m];
+                    for (i, &v) in occ.iter().enumerate() {
+                        moved[e[i]] = v;
+                    }
+                    base.rank(&moved).unwrap() as usize
+                };
+                let mut reps = Vec::new();
+                let mut columns: Vec<Vec<(usize, Complex64)>> = Vec::new();
+                for (b, occ) in states.iter().enumerate() {
+                    let images_of: Vec<usize> = elems.iter().map(|e| act(&e.0, occ)).collect();
+                    if images_of.iter().any(|&i| i < b) {
+                        continue;
+                    }
+                    let trivial = elems
+                        .iter()
+                        .zip(&images_of)
+                        .all(|(e, &i)| i != b || (e.1 - 1.0).norm() < 1e-9);
+                    if !trivial {
+                        continue;
+                    }
+                    let mut v = vec![Complex64::new(0.0, 0.0); n];
+                    for (e, &i) in elems.iter().zip(&images_of) {
+                        v[i] += e.1.conj();
+                    }
+                    let norm = v.iter().map(|z| z.norm_sqr()).sum::<f64>().sqrt();
+                    reps.push(b as u64);
+                    columns.push(
+                        v.iter()
+                            .enumerate()
+                            .filter(|(_, z)| z.norm() > 0.0)
+                            .map(|(i, z)| (i, z / norm))
+                            .collect(),
+                    );
+                }
+                assert_eq!(sector.representatives(), &reps[..], "{labels:?}");
+                let d = reps.len();
+                let sop = SectorOperator::new(&sector, &op, &gens).unwrap();
+                let got = sop.build_csr(&sector, &one, &NoInterrupt, false).unwrap();
+                let (_, a) = dense_of(&got);
+                for (r, vr) in columns.iter().enumerate() {
+                    let hv: Vec<Complex64> = (0..n)
+                        .map(|row| vr.iter().map(|&(c, z)| h[row * n + c] * z).sum())
+                        .collect();
+                    for (u, vu) in columns.iter().enumerate() {
+                        let want: Complex64 = vu.iter().map(|&(i, z)| z.conj() * hv[i]).sum();
+                        assert!((a[u * d + r] - want).norm() < 1e-10, "{labels:?} ({u}, {r})");
+                    }
+                }
+                // The general path and two threads give the very same matrix.
+                let mut slow = sector.clone();
+                slow.shifts = None;
+                slow.packed_rank = None;
+                slow.enumerate(&one, &NoInterrupt).unwrap();
+                assert_eq!(slow.representatives(), sector.representatives());
+                assert_eq!(sop.build_csr(&slow, &one, &NoInterrupt, false).unwrap(), got);
+                assert_eq!(sop.build_csr(&sector, &two, &NoInterrupt, false).unwrap(), got);
+                if let Some(f) = &sector.shifts {
+                    if f.ring.is_some() {
+                        let mut packed = sector.clone();
+                        packed.shifts.as_mut().unwrap().ring = None;
+                        assert_eq!(sop.build_csr(&packed, &one, &NoInterrupt, false).unwrap(), got);
+                    }
+                }
+                // Products: one vector on 1 and 2 threads, and three at once.
+                let x: Vec<Complex64> = (0..3 * d)
+                    .map(|i| Complex64::new((i as f64 * 0.37).sin(), (i as f64 * 0.11).cos()))
+                    .collect();
+                let first: Vec<Complex64> = (0..d).map(|i| x[3 * i]).collect();
+                let (mut y1, mut y2) = (
+                    vec![Complex64::new(0.0, 0.0); d],
+                    vec![Complex64::new(0.0, 0.0); d],
+                );
+                sop.apply_many(&sector, &first, &mut y1, 1, &one, &NoInterrupt)
+                    .unwrap();
+                sop.apply_many(&sector, &first, &mut y2, 1, &two, &NoInterrupt)
+                    .unwrap();
+                assert_eq!(y1, y2);
+                let mut ys = vec![Complex64::new(0.0, 0.0); 3 * d];
+                sop.apply_many(&sector, &x, &mut ys, 3, &two, &NoInterrupt)
+                    .unwrap();
+                let mut y3 = vec![Complex64::new(0.0, 0.0); d];
+                sop.apply_many(&slow, &first, &mut y3, 1, &one, &NoInterrupt)
+                    .unwrap();
+                assert_eq!(y1, y3);
+                for u in 0..d {
+                    for j in 0..3 {
+                        let want: Complex64 = (0..d).map(|r| a[u * d + r] * x[3 * r + j]).sum();
+                        assert!((ys[3 * u + j] - want).norm() < 1e-10);
+                        if j == 0 {
+                            assert!((y1[u] - want).norm() < 1e-10);
+                        }
+                    }
+                }
+            }
+            // Next label combination.
+            let mut g = 0;
+            loop {
+                if g == labels.len() {
+                    return checked;
+                }
+                labels[g] += 1;
+                if labels[g] < orders[g] {
+                    break;
+                }
+                labels[g] = 0;
+                g += 1;
+            }
+        }
+    }
+
+    #[test]
+    fn ring_paths_match_dense_projector_references() {
+        // Rings of 5 to 8 sites with and without the reflection, every label; a 32-mode
+        // ring (a packed string of exactly 64 bits) and a 33-mode one (beyond 64 bits,
+        // the u128 path); translation by two sites only (packed, no run-of-zeros
+        // shortcut). References as in `check_every_label`.
+        for l in 5..=8 {
+            let base = FockSpace::new(vec![2; l], None, Some(l as u64 / 2 + 1), None).unwrap();
+            let bonds: Vec<(usize, usize)> = (0..l).map(|i| (i, (i + 1) % l)).collect();
+            let raw = lattice_terms(l, &bonds);
+            assert_eq!(check_every_label(&base, &raw, &[ring(l)]), l);
+            let with_mirror = check_every_label(&base, &raw, &[ring(l), mirror(l)]);
+            assert_eq!(with_mirror, if l % 2 == 0 { 4 } else { 2 });
+        }
+        for l in [32, 33] {
+            let base = FockSpace::new(vec![2; l], None, Some(2), None).unwrap();
+            let bonds: Vec<(usize, usize)> = (0..l).map(|i| (i, (i + 1) % l)).collect();
+            let raw = lattice_terms(l, &bonds);
+            let s = SymmetricSpace::new(
+                base.clone(),
+                &[Generator {
+                    images: ring(l),
+                    label: 0,
+                }],
+                &Runner::global(),
+                &NoInterrupt,
+            )
+            .unwrap();
+            assert_eq!(s.shifts.as_ref().unwrap().narrow(), l == 32);
+            assert!(check_every_label(&base, &raw, &[ring(l), mirror(l)]) >= 2);
+        }
+        let l = 8;
+        let base = FockSpace::new(vec![3; l], None, Some(4), None).unwrap();
+        let bonds: Vec<(usize, usize)> = (0..l).map(|i| (i, (i + 1) % l)).collect();
+        let two: Vec<usize> = (0..l).map(|i| (i + 2) % l).collect();
+        assert_eq!(check_every_label(&base, &lattice_terms(l, &bonds), &[two]), 4);
+    }
+
+    #[test]
+    fn torus_paths_match_dense_projector_references() {
+        // 3×3 and 2×4 tori: both translations, then with reflections (and the diagonal
+        // reflection of the square torus), every label. The translation along the rows
+        // of the 2×4 torus alone is a rotation of the mode order (packed path without
+        // the run-of-zeros shortcut). References as in `check_every_label`.
+        for (rows, cols, total) in [(3, 3, 3), (2, 4, 4)] {
+            let m = rows * cols;
+            let base = FockSpace::new(vec![2; m], None, Some(total), None).unwrap();
+            let raw = lattice_terms(m, &torus_bonds(rows, cols));
+            let tx = torus_map(rows, cols, |r, c| (r, c + 1));
+            let ty = torus_map(rows, cols, |r, c| (r + 1, c));
+            let rx = torus_map(rows, cols, |r, c| (r, cols - c));
+            let ry = torus_map(rows, cols, |r, c| (rows - r, c));
+            assert_eq!(check_every_label(&base, &raw, &[tx.clone(), ty.clone()]), m);
+            assert!(check_every_label(&base, &raw, &[tx.clone(), ty.clone(), rx.clone()]) >= 4);
+            assert!(check_every_label(&base, &raw, &[tx.clone(), ty.clone(), rx, ry]) >= 4);
+            assert_eq!(check_every_label(&base, &raw, &[ty.clone()]), rows);
+            if rows == cols {
+                let d = torus_map(rows, cols, |r, c| (c, r));
+                assert!(check_every_label(&base, &raw, &[tx, ty, d]) >= 2);
+            }
+        }
+    }
+
     #[test]
     fn packed_rank_small_unrank_and_index_match_the_space() {
         // Ranking from packed strings and unranking by upward scans against the space's
@@ -2268,6 +2529,11 @@ mod tests {
             each_state(&base, |occ, b| {
                 let (p, _) = f.pack::<u128>(occ);
                 assert_eq!(pr.rank(base.offset_table(), p), b);
+                if f.narrow() {
+                    let (q, _) = f.pack::<u64>(occ);
+                    assert_eq!(q as u128, p);
+                    assert_eq!(pr.rank(base.offset_table(), q), b);
+                }
                 sector.unrank_small(b, &mut occ2);
                 assert_eq!(occ2, occ);
                 let reps = sector.representatives();
