@@ -1167,15 +1167,26 @@ impl SymmetricSpace {
     pub fn sector_index(&self, rank: u64) -> Option<u64> {
         let block = self.index.get((rank / BLOCK_STATES) as usize)?;
         let offset = rank % BLOCK_STATES;
-        let w = (offset / 64) as usize;
+        let w = offset / 64;
         let bit = offset % 64;
-        let word = block.words[w];
-        if (word >> bit) & 1 == 0 {
+        if (block.words[w as usize] >> bit) & 1 == 0 {
             return None;
         }
-        let mut count = block.before + (word & ((1u64 << bit) - 1)).count_ones() as u64;
-        for x in &block.words[..w] {
-            count += x.count_ones() as u64;
+        // Branch-free: every word is counted under a mask (all bits before word `w`, the
+        // bits below `bit` in it, none after), so that a mispredicted loop exit does not
+        // discard the look-ups issued after this one.
+        let below = (1u64 << bit) - 1;
+        let mut count = block.before;
+        for (j, &x) in block.words.iter().enumerate() {
+            let j = j as u64;
+            let mask = if j < w {
+                u64::MAX
+            } else if j == w {
+                below
+            } else {
+                0
+            };
+            count += (x & mask).count_ones() as u64;
         }
         Some(count)
     }
@@ -1634,14 +1645,19 @@ impl<S: Scalar> SectorOperator<S> {
                 } else {
                     self.packed_row::<u128>(sector, f, pt, s);
                 }
-                for &(rank, t, h, amp) in &s.pending {
-                    let Some(col) = sector.sector_index(rank) else {
-                        continue;
-                    };
-                    visit(
-                        col,
-                        (self.off[t as usize].coef * self.characters[h as usize]).scale(amp),
-                    );
+                // Two phases: every image's column first (index look-ups that do not
+                // wait for one another), then the entries (the vector's look-ups).
+                // Images outside the sector keep `u64::MAX`.
+                for e in s.pending.iter_mut() {
+                    e.0 = sector.sector_index(e.0).unwrap_or(u64::MAX);
+                }
+                for &(col, t, h, amp) in &s.pending {
+                    if col != u64::MAX {
+                        visit(
+                            col,
+                            (self.off[t as usize].coef * self.characters[h as usize]).scale(amp),
+                        );
+                    }
                 }
                 return Ok(());
             }
