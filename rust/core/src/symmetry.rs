@@ -2495,7 +2495,7 @@ mod tests {
             assert_eq!(check_every_label(&base, &raw, &[tx.clone(), ty.clone()]), m);
             assert!(check_every_label(&base, &raw, &[tx.clone(), ty.clone(), rx.clone()]) >= 4);
             assert!(check_every_label(&base, &raw, &[tx.clone(), ty.clone(), rx, ry]) >= 4);
-            assert_eq!(check_every_label(&base, &raw, &[ty.clone()]), rows);
+            assert_eq!(check_every_label(&base, &raw, std::slice::from_ref(&ty)), rows);
             if rows == cols {
                 let d = torus_map(rows, cols, |r, c| (c, r));
                 assert!(check_every_label(&base, &raw, &[tx, ty, d]) >= 2);
