@@ -34,7 +34,9 @@
 //! rotation in the group, only the rotations starting a longest circular run of empty
 //! modes can give the smallest image; images are ranked straight from the packed
 //! string; and the representatives are listed by a depth-first walk over prefixes that
-//! no rotation beats, instead of testing every base state.
+//! no rotation beats, instead of testing every base state. Products compile each
+//! off-diagonal term into a fixed offset of the packed strings plus per-factor tables
+//! of squared amplitudes, and use `u64` strings when they fit in 64 bits.
 
 use crate::build::{CsrAny, RowVisitor, SparseRows};
 use crate::error::{CoreError, CoreResult};
