@@ -1,6 +1,11 @@
 """Benchmark: symmetry sectors of the Bose–Hubbard ring at unit filling.
 
-Two tables:
+Three tables:
+
+``side``
+    Side by side, per row: the sector product (and build) beside the full-space one at
+    the same size, medians of 5, with their ratio and the load average (issue 19's
+    target: a sector row at most 3× a full-space row).
 
 ``rates``
     Sector (momentum 0, reflection-even) build and product rates beside the full-space
@@ -16,6 +21,7 @@ projection is under 3 h.
 
 Usage::
 
+    python benchmarks/bench_symmetry.py side --sites 13 14 [--threads 2]
     python benchmarks/bench_symmetry.py rates --sites 11 12 13
     python benchmarks/bench_symmetry.py ground --sites 12 13 14 15 16 [--full 12 13]
     python benchmarks/bench_symmetry.py ground --sites 18 --probe
@@ -270,12 +276,90 @@ def ground(sites_list: list[int], store: bool, probe: bool, full: list[int], pro
     )
 
 
+def side_row(sites: int, repeats: int, threads: int | None) -> list[str]:
+    """One row of the side-by-side table: per-row cost of the sector product (and
+    build) beside the full-space ones, same model, same process, same hour."""
+    h = bose_hubbard_ring(sites)
+    base = unit_filling(sites)
+    sector = sector_of(sites)
+    load0 = os.getloadavg()[0]
+    op_s = fm.build_operator(h, sector, threads=threads)
+    op_f = fm.build_operator(h, base, threads=threads)
+    xs = np.random.default_rng(0).normal(size=sector.dim)
+    xf = np.random.default_rng(0).normal(size=base.dim)
+    op_s @ xs  # first use prepares the kernels and faults the pages in
+    op_f @ xf
+    t_sp, _ = median_time(lambda: op_s @ xs, repeats)
+    t_fp, _ = median_time(lambda: op_f @ xf, repeats)
+    c_sp = cpu_time(lambda: op_s @ xs, repeats)
+    c_fp = cpu_time(lambda: op_f @ xf, repeats)
+    t_sb, _ = median_time(lambda: fm.build_matrix(h, sector, threads=threads), repeats)
+    t_fb, _ = median_time(lambda: fm.build_matrix(h, base, threads=threads), repeats)
+    load1 = os.getloadavg()[0]
+    ns_s = t_sp / sector.dim * 1e9
+    ns_f = t_fp / base.dim * 1e9
+    return [
+        str(sites),
+        f"{base.dim:,}",
+        f"{sector.dim:,}",
+        f"{t_sp * 1e3:.1f}",
+        f"{t_fp * 1e3:.1f}",
+        f"{ns_s:.0f}",
+        f"{ns_f:.1f}",
+        f"{ns_s / ns_f:.1f}",
+        f"{c_sp / sector.dim * 1e9:.0f}",
+        f"{c_fp / base.dim * 1e9:.1f}",
+        f"{(c_sp / sector.dim) / (c_fp / base.dim):.1f}",
+        f"{t_sb / sector.dim * 1e9:.0f}",
+        f"{t_fb / base.dim * 1e9:.0f}",
+        f"{(t_sb / sector.dim) / (t_fb / base.dim):.1f}",
+        f"{load0:.1f}-{load1:.1f}",
+    ]
+
+
+def side(sites_list: list[int], repeats: int, threads: int | None) -> None:
+    rows = []
+    for sites in sites_list:
+        rows.append(side_row(sites, repeats, threads))
+        print(rows[-1], flush=True)
+    headers = [
+        "L=N",
+        "base dim",
+        "sector dim",
+        "sector ms/prod",
+        "full ms/prod",
+        "sector ns/row",
+        "full ns/row",
+        "row ratio",
+        "sector cpu ns/row",
+        "full cpu ns/row",
+        "cpu row ratio",
+        "sector build ns/row",
+        "full build ns/row",
+        "build row ratio",
+        "load",
+    ]
+    print()
+    print(table(headers, rows))
+    print(
+        f"\nmedians of {repeats} (products after one untimed warm-up); threads "
+        f"{threads or os.cpu_count()}; sector = momentum 0, reflection-even (group of order "
+        "2L); row ratio = sector time per row / full-space time per row (target <= 3); "
+        "cpu = process CPU time of all threads; load = 1-minute load average before-after "
+        f"each size, on {os.cpu_count()} cores."
+    )
+
+
 def main() -> None:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     sub = parser.add_subparsers(dest="what", required=True)
     p_rates = sub.add_parser("rates")
     p_rates.add_argument("--sites", type=int, nargs="+", default=[11, 12, 13])
     p_rates.add_argument("--repeats", type=int, default=3)
+    p_side = sub.add_parser("side")
+    p_side.add_argument("--sites", type=int, nargs="+", default=[13, 14])
+    p_side.add_argument("--repeats", type=int, default=5)
+    p_side.add_argument("--threads", type=int, default=None)
     p_ground = sub.add_parser("ground")
     p_ground.add_argument("--sites", type=int, nargs="+", default=[12, 13, 14])
     p_ground.add_argument("--free", action="store_true", help="matrix-free Lanczos")
@@ -286,6 +370,8 @@ def main() -> None:
     print(f"uptime load at start: {os.getloadavg()}", flush=True)
     if args.what == "rates":
         rates(args.sites, args.repeats)
+    elif args.what == "side":
+        side(args.sites, args.repeats, args.threads)
     else:
         ground(args.sites, not args.free, args.probe, args.full, args.products)
 

@@ -15,7 +15,6 @@ use crate::parallel::{Interrupt, Runner};
 use crate::scalar::Scalar;
 use crate::space::{Constraint, FockSpace, MAX_CUTOFF};
 use crate::terms::{format_monomial, Monomial, RawTerm};
-use rayon::prelude::*;
 
 /// Validated, merged terms of an operator from a source space to a target space.
 #[derive(Debug, Clone)]
@@ -214,20 +213,8 @@ impl<S: Scalar> Between<S> {
                 entries.push((col, self.coefs[t].scale(amp_sq.sqrt())));
             }
         }
-        // Stable sort: duplicates are summed in term order, independent of threads.
-        entries.sort_by_key(|e| e.0);
-        let mut w = 0usize;
-        for k in 0..entries.len() {
-            let (col, val) = entries[k];
-            if w > 0 && entries[w - 1].0 == col {
-                entries[w - 1].1 += val;
-            } else {
-                entries[w] = (col, val);
-                w += 1;
-            }
-        }
-        entries.truncate(w);
-        entries.retain(|e| e.1 != S::ZERO);
+        let kept = crate::build::merge_row(entries);
+        entries.truncate(kept);
     }
 
     /// Call `visit(entries)` for target rows `first..first + rows` in order.
@@ -367,34 +354,19 @@ pub fn estimate_nnz<S: Scalar>(
     interrupt: &dyn Interrupt,
 ) -> CoreResult<(f64, f64, bool, u64)> {
     check_dims(source, target)?;
-    let dim = target.dim();
-    let samples = samples.max(1) as u64;
-    if dim <= 4 * samples {
-        let counts = row_counts(source, target, op, runner, interrupt)?;
-        let total = counts.iter().sum::<u64>() as f64;
-        return Ok((total, 0.0, true, counts.iter().copied().max().unwrap_or(0)));
-    }
-    let counts: Vec<u64> = runner.install(|| {
-        (0..samples)
-            .into_par_iter()
-            .map(|s| {
-                // The middle row of each stratum: deterministic and evenly spread.
-                let idx = (2 * s + 1) * dim / (2 * samples);
-                let mut n = 0u64;
-                let _ = op.for_each_row(source, target, idx, 1, |e| n = e.len() as u64);
-                n
-            })
-            .collect()
-    });
-    let n = counts.len() as f64;
-    let mean = counts.iter().sum::<u64>() as f64 / n;
-    let var = counts.iter().map(|&c| (c as f64 - mean).powi(2)).sum::<f64>() / (n - 1.0).max(1.0);
-    Ok((
-        mean * dim as f64,
-        (var / n).sqrt() * dim as f64,
-        false,
-        counts.iter().copied().max().unwrap_or(0),
-    ))
+    let e = crate::estimate::estimate_from_rows(
+        target.dim(),
+        samples,
+        runner,
+        || row_counts(source, target, op, runner, interrupt),
+        || (),
+        |_, idx| {
+            let mut n = 0u64;
+            let _ = op.for_each_row(source, target, idx, 1, |e| n = e.len() as u64);
+            n
+        },
+    )?;
+    Ok((e.nnz, e.std_error, e.exact, e.max_row))
 }
 
 #[cfg(test)]

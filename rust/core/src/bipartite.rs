@@ -31,6 +31,7 @@ use crate::memory::try_with_capacity;
 use crate::parallel::{Interrupt, Runner};
 use crate::scalar::Scalar;
 use crate::space::{Constraint, FockSpace};
+use crate::terms::falling;
 use crate::terms::Operator;
 use rayon::prelude::*;
 use std::collections::{HashMap, HashSet};
@@ -55,16 +56,6 @@ fn residue_count(space: &FockSpace) -> usize {
         Constraint::Exact { total } => total as usize + 1,
         Constraint::Modular { modulus, .. } => modulus as usize,
     }
-}
-
-/// `n (n-1) … (n-k+1)` as `f64`.
-#[inline]
-fn falling(n: u32, k: u32) -> f64 {
-    let mut p = 1.0;
-    for j in 0..k {
-        p *= (n - j) as f64;
-    }
-    p
 }
 
 /// Visit every state of modes `a..b` that starts owing `r0` and can be completed, in
@@ -1370,35 +1361,12 @@ fn add_hits(t: &FactorTable, i0: usize, part: &mut [u64]) {
     }
 }
 
-/// Sort `buf` by column, stably (equal columns keep their push order, so duplicates
-/// are summed in a fixed order), sum equal columns and pass the nonzero sums to `emit`.
+/// Merge `buf` ([`crate::build::merge_row`]) and pass the kept entries to `emit`.
 #[inline]
 fn merge_entries<S: Scalar>(buf: &mut [(u64, S)], mut emit: impl FnMut(u64, S)) {
-    if buf.len() == 1 {
-        if buf[0].1 != S::ZERO {
-            emit(buf[0].0, buf[0].1);
-        }
-        return;
-    }
-    // Few entries: an insertion sort.
-    for a in 1..buf.len() {
-        let mut b = a;
-        while b > 0 && buf[b - 1].0 > buf[b].0 {
-            buf.swap(b - 1, b);
-            b -= 1;
-        }
-    }
-    let mut k = 0usize;
-    while k < buf.len() {
-        let (col, mut val) = buf[k];
-        k += 1;
-        while k < buf.len() && buf[k].0 == col {
-            val += buf[k].1;
-            k += 1;
-        }
-        if val != S::ZERO {
-            emit(col, val);
-        }
+    let kept = crate::build::merge_row(buf);
+    for &(col, val) in &buf[..kept] {
+        emit(col, val);
     }
 }
 

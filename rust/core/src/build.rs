@@ -69,6 +69,41 @@ pub enum CsrAny<S> {
     Wide(Csr<S, i64>),
 }
 
+/// The one row merge of every kernel: sort `buf` by column, stably (equal columns keep
+/// their push order, so duplicates are summed in a fixed order whatever the threads),
+/// sum equal columns in that order and keep the nonzero sums at the front; returns how
+/// many were kept (`buf[..kept]` is the merged row).
+#[inline]
+pub fn merge_row<S: Scalar>(buf: &mut [(u64, S)]) -> usize {
+    if buf.len() <= 16 {
+        // Few entries: an insertion sort (stable).
+        for a in 1..buf.len() {
+            let mut b = a;
+            while b > 0 && buf[b - 1].0 > buf[b].0 {
+                buf.swap(b - 1, b);
+                b -= 1;
+            }
+        }
+    } else {
+        buf.sort_by_key(|e| e.0);
+    }
+    let mut kept = 0usize;
+    let mut k = 0usize;
+    while k < buf.len() {
+        let (col, mut val) = buf[k];
+        k += 1;
+        while k < buf.len() && buf[k].0 == col {
+            val += buf[k].1;
+            k += 1;
+        }
+        if val != S::ZERO {
+            buf[kept] = (col, val);
+            kept += 1;
+        }
+    }
+    kept
+}
+
 /// The merged, nonzero entries of one row, sorted by column, left in `scratch`.
 #[inline]
 pub fn assemble_row<S: Scalar>(
@@ -81,20 +116,8 @@ pub fn assemble_row<S: Scalar>(
     op.for_each_in_row(space, row, |t, col, amp| {
         scratch.push((col, op.coef(t).scale(amp)))
     });
-    // Stable sort: duplicates are summed in term order, so results never depend on threads.
-    scratch.sort_by_key(|e| e.0);
-    let mut w = 0usize;
-    for k in 0..scratch.len() {
-        let (col, val) = scratch[k];
-        if w > 0 && scratch[w - 1].0 == col {
-            scratch[w - 1].1 += val;
-        } else {
-            scratch[w] = (col, val);
-            w += 1;
-        }
-    }
-    scratch.truncate(w);
-    scratch.retain(|e| e.1 != S::ZERO);
+    let kept = merge_row(scratch);
+    scratch.truncate(kept);
 }
 
 /// Receives each row's merged entries: `(row, [(column, value), ...])`.

@@ -35,10 +35,42 @@ pub fn estimate_nnz<S: Scalar>(
     runner: &Runner,
     interrupt: &dyn Interrupt,
 ) -> CoreResult<NnzEstimate> {
-    let dim = space.dim();
+    estimate_from_rows(
+        space.dim(),
+        samples,
+        runner,
+        || crate::build::row_counts(space, op, runner, interrupt),
+        Vec::new,
+        |scratch, idx| match RowState::at(space, idx) {
+            Ok(row) => {
+                assemble_row(space, op, &row, scratch);
+                scratch.len() as u64
+            }
+            Err(_) => 0,
+        },
+    )
+}
+
+/// The one estimator of stored entries, for any row listing of `dim` rows: every row's
+/// count from `exact` when there are at most `4 × samples` rows, else one row drawn
+/// uniformly from each of `samples` equal strata of the rows (`row_len(scratch, row)`:
+/// its merged entries, with per-thread scratch from `init`). Strata bounds are computed
+/// in `u128`, since `s · dim` exceeds `u64` for large spaces and many samples; the rows
+/// drawn depend only on `dim` and `samples`, not on the threads.
+///
+/// # Errors
+/// The errors of `exact`.
+pub fn estimate_from_rows<T: Send>(
+    dim: u64,
+    samples: usize,
+    runner: &Runner,
+    exact: impl FnOnce() -> CoreResult<Vec<u64>>,
+    init: impl Fn() -> T + Sync + Send,
+    row_len: impl Fn(&mut T, u64) -> u64 + Sync + Send,
+) -> CoreResult<NnzEstimate> {
     let samples = samples.max(1) as u64;
     if dim <= 4 * samples {
-        let counts = crate::build::row_counts(space, op, runner, interrupt)?;
+        let counts = exact()?;
         return Ok(NnzEstimate {
             nnz: counts.iter().sum::<u64>() as f64,
             std_error: 0.0,
@@ -46,23 +78,10 @@ pub fn estimate_nnz<S: Scalar>(
             max_row: counts.iter().copied().max().unwrap_or(0),
         });
     }
-    // One row drawn uniformly from each of `samples` equal strata of the basis order.
     let counts: Vec<u64> = runner.install(|| {
         (0..samples)
             .into_par_iter()
-            .map_init(Vec::new, |scratch, s| {
-                // u128: `s * dim` exceeds u64 for large spaces and many samples.
-                let lo = (s as u128 * dim as u128 / samples as u128) as u64;
-                let hi = ((s + 1) as u128 * dim as u128 / samples as u128) as u64;
-                let idx = lo + splitmix64(s ^ 0xA5A5_5A5A) % (hi - lo).max(1);
-                match RowState::at(space, idx) {
-                    Ok(row) => {
-                        assemble_row(space, op, &row, scratch);
-                        scratch.len() as u64
-                    }
-                    Err(_) => 0,
-                }
-            })
+            .map_init(&init, |scratch, s| row_len(scratch, stratum_row(s, samples, dim)))
             .collect()
     });
     let n = counts.len() as f64;
@@ -74,6 +93,15 @@ pub fn estimate_nnz<S: Scalar>(
         exact: false,
         max_row: counts.iter().copied().max().unwrap_or(0),
     })
+}
+
+/// The row drawn from stratum `s` of `samples` equal strata of `0..dim`
+/// (`samples <= dim`), overflow-safe.
+#[inline]
+fn stratum_row(s: u64, samples: u64, dim: u64) -> u64 {
+    let lo = (s as u128 * dim as u128 / samples as u128) as u64;
+    let hi = ((s + 1) as u128 * dim as u128 / samples as u128) as u64;
+    lo + splitmix64(s ^ 0xA5A5_5A5A) % (hi - lo).max(1)
 }
 
 #[cfg(test)]

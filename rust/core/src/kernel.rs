@@ -10,6 +10,7 @@ use crate::error::{CoreError, CoreResult};
 use crate::parallel::{Interrupt, Runner};
 use crate::scalar::Scalar;
 use crate::space::{Constraint, FockSpace};
+use crate::terms::falling;
 use crate::terms::{Operator, RowState};
 
 /// Rows per block of unpacked states.
@@ -113,15 +114,6 @@ pub struct ProductKernel<S: Scalar> {
     /// Hops `..hops_below` land below the diagonal; they are emitted before it.
     hops_below: usize,
     sqrt: Vec<f64>,
-}
-
-#[inline(always)]
-fn falling(n: u32, k: u32) -> f64 {
-    let mut p = 1.0;
-    for j in 0..k {
-        p *= (n - j) as f64;
-    }
-    p
 }
 
 impl<S: Scalar> ProductKernel<S> {
@@ -356,23 +348,7 @@ impl<S: Scalar> ProductKernel<S> {
             );
             for r in 0..n {
                 let entries = &mut buf[r * cap..r * cap + lens[r]];
-                // Stable: duplicates are summed in term order whatever the threads.
-                entries.sort_by_key(|e| e.0);
-                // Sum runs of equal columns and keep nonzero sums, in one pass.
-                let mut kept = 0usize;
-                let mut k = 0usize;
-                while k < entries.len() {
-                    let (col, mut val) = entries[k];
-                    k += 1;
-                    while k < entries.len() && entries[k].0 == col {
-                        val += entries[k].1;
-                        k += 1;
-                    }
-                    if val != S::ZERO {
-                        entries[kept] = (col, val);
-                        kept += 1;
-                    }
-                }
+                let kept = crate::build::merge_row(entries);
                 visit(block.rank[r], &entries[..kept]);
             }
             done += n;

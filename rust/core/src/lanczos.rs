@@ -4,7 +4,6 @@
 //! coefficients to assemble the Ritz vector, and a final product measures the true
 //! residual ‖Hψ − Eψ‖. If that misses the tolerance the iteration restarts from ψ.
 
-use crate::build::{Csr, CsrIndex};
 use crate::error::{CoreError, CoreResult};
 use crate::matvec::Product;
 use crate::parallel::{Interrupt, Runner};
@@ -69,104 +68,7 @@ impl<S: Scalar> HermitianMap<S> for FockMap<'_, S> {
     }
 }
 
-/// A stored CSR matrix (built by [`crate::build::build_csr`]), for sectors whose
-/// matrix fits in memory: its product is several times faster than the matrix-free one.
-pub struct CsrMap<S, I> {
-    csr: Csr<S, I>,
-}
-
-impl<S: Scalar, I: CsrIndex> CsrMap<S, I> {
-    /// Wrap a square CSR matrix (assumed Hermitian).
-    pub fn new(csr: Csr<S, I>) -> Self {
-        CsrMap { csr }
-    }
-}
-
-impl<S: Scalar, I: CsrIndex> CsrMap<S, I> {
-    /// Wrap CSR arrays handed in from outside after checking them: `indptr` of
-    /// length `dim + 1`, starting at 0, non-decreasing, ending at `indices.len() ==
-    /// data.len()`; every column index in `[0, dim)`; every value finite. The matrix is
-    /// assumed Hermitian (not checked: the solvers' guarantees need it).
-    ///
-    /// # Errors
-    /// [`CoreError::Shape`] for inconsistent lengths or pointers,
-    /// [`CoreError::InvalidArgument`] for an index out of range,
-    /// [`CoreError::NonFinite`] for a NaN or infinite value.
-    pub fn from_parts(indptr: Vec<I>, indices: Vec<I>, data: Vec<S>) -> CoreResult<Self> {
-        if indptr.is_empty() {
-            return Err(CoreError::Shape(
-                "indptr is empty; a CSR matrix of n rows has n + 1 row pointers".into(),
-            ));
-        }
-        let dim = (indptr.len() - 1) as u64;
-        let nnz = indices.len() as u64;
-        if data.len() as u64 != nnz {
-            return Err(CoreError::Shape(format!(
-                "indices has {nnz} entries but data has {}; pass arrays of equal length",
-                data.len()
-            )));
-        }
-        if indptr[0].to_u64() != 0 || indptr[indptr.len() - 1].to_u64() != nnz {
-            return Err(CoreError::Shape(format!(
-                "indptr must start at 0 and end at nnz = {nnz}; got {} and {}",
-                indptr[0].to_u64() as i64,
-                indptr[indptr.len() - 1].to_u64() as i64
-            )));
-        }
-        if indptr
-            .windows(2)
-            .any(|p| (p[1].to_u64() as i64) < (p[0].to_u64() as i64))
-        {
-            return Err(CoreError::Shape("indptr must be non-decreasing".into()));
-        }
-        if let Some(bad) = indices.iter().find(|c| c.to_u64() >= dim) {
-            return Err(CoreError::InvalidArgument(format!(
-                "column index {} is outside the square matrix of dimension {dim}; CSR \
-                 matrices passed to the solvers must be square and Hermitian",
-                bad.to_u64() as i64
-            )));
-        }
-        if data.iter().any(|v| !v.is_finite()) {
-            return Err(CoreError::NonFinite(
-                "the matrix contains NaN or inf; fix the values before solving".into(),
-            ));
-        }
-        Ok(CsrMap {
-            csr: Csr {
-                dim,
-                indptr,
-                indices,
-                data,
-            },
-        })
-    }
-
-    /// Stored entries.
-    pub fn nnz(&self) -> usize {
-        self.csr.data.len()
-    }
-}
-
-impl<S: Scalar, I: CsrIndex> HermitianMap<S> for CsrMap<S, I> {
-    fn dim(&self) -> usize {
-        self.csr.dim as usize
-    }
-    fn apply(&self, x: &[S], y: &mut [S], runner: &Runner, interrupt: &dyn Interrupt) -> CoreResult<()> {
-        let c = &self.csr;
-        runner.for_row_chunks(y, interrupt, |first, out| {
-            for (k, yr) in out.iter_mut().enumerate() {
-                let r = first as usize + k;
-                let (a, b) = (c.indptr[r].to_u64() as usize, c.indptr[r + 1].to_u64() as usize);
-                let mut acc = S::ZERO;
-                for (&col, &v) in c.indices[a..b].iter().zip(&c.data[a..b]) {
-                    acc += v * x[col.to_u64() as usize];
-                }
-                *yr = acc;
-            }
-            Ok(())
-        })
-    }
-}
+pub use crate::matvec::CsrMap;
 
 /// Settings of [`ground_state`].
 #[derive(Debug, Clone)]

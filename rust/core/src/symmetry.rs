@@ -34,18 +34,19 @@
 //! rotation in the group, only the rotations starting a longest circular run of empty
 //! modes can give the smallest image; images are ranked straight from the packed
 //! string; and the representatives are listed by a depth-first walk over prefixes that
-//! no rotation beats, instead of testing every base state.
+//! no rotation beats, instead of testing every base state. Products compile each
+//! off-diagonal term into a fixed offset of the packed strings plus per-factor tables
+//! of squared amplitudes, and use `u64` strings when they fit in 64 bits.
 
-use crate::build::{Csr, CsrAny, CsrIndex};
+use crate::build::{CsrAny, RowVisitor, SparseRows};
 use crate::error::{CoreError, CoreResult};
 use crate::lanczos::{self, HermitianMap, LanczosOptions, LanczosOutcome};
 use crate::levels::{self, LevelsOptions, LevelsOutcome};
-use crate::memory::{ensure_room, try_filled, try_with_capacity};
-use crate::parallel::{Interrupt, Runner, BLOCK_ROWS};
+use crate::memory::{ensure_room, try_filled};
+use crate::parallel::{Interrupt, Runner};
 use crate::scalar::Scalar;
 use crate::space::{Constraint, FockSpace};
 use crate::terms::{format_monomial, Operator};
-use crate::vecops::splitmix64;
 use num_complex::Complex64;
 use rayon::prelude::*;
 use std::collections::HashMap;
@@ -56,8 +57,6 @@ pub const MAX_GROUP_ORDER: usize = 1 << 16;
 pub const MAX_GROUP_ENTRIES: usize = 1 << 24;
 /// Base states covered by one block of the representative index (seven words of bits).
 const BLOCK_STATES: u64 = 448;
-/// Row blocks gathered between two appends of the one-pass build (about 130 000 rows).
-const BUILD_BLOCKS: usize = 32;
 /// Square roots kept in a table (squared amplitudes of products of few quanta).
 const ROOTS: usize = 4096;
 /// Index blocks marked by one task of the enumeration.
@@ -83,6 +82,66 @@ impl IndexBlock {
         self.words.iter().map(|w| w.count_ones() as u64).sum()
     }
 }
+
+/// The integer holding a packed string (see [`Shifts`]): `u64` when the string fits in
+/// 64 bits (shifts and rotations are then single instructions), else `u128`.
+trait Word: Copy + Ord + Send + Sync + 'static {
+    const ZERO: Self;
+    const MAX: Self;
+    /// The low bits of `x`.
+    fn from_u128(x: u128) -> Self;
+    fn from_u32(x: u32) -> Self;
+    fn shl(self, s: u32) -> Self;
+    fn shr(self, s: u32) -> Self;
+    fn and(self, o: Self) -> Self;
+    fn or(self, o: Self) -> Self;
+    fn wrapping_add(self, o: Self) -> Self;
+    /// The low 64 bits.
+    fn low(self) -> u64;
+}
+
+macro_rules! word {
+    ($t:ty) => {
+        impl Word for $t {
+            const ZERO: Self = 0;
+            const MAX: Self = <$t>::MAX;
+            #[inline(always)]
+            fn from_u128(x: u128) -> Self {
+                x as $t
+            }
+            #[inline(always)]
+            fn from_u32(x: u32) -> Self {
+                x as $t
+            }
+            #[inline(always)]
+            fn shl(self, s: u32) -> Self {
+                self << s
+            }
+            #[inline(always)]
+            fn shr(self, s: u32) -> Self {
+                self >> s
+            }
+            #[inline(always)]
+            fn and(self, o: Self) -> Self {
+                self & o
+            }
+            #[inline(always)]
+            fn or(self, o: Self) -> Self {
+                self | o
+            }
+            #[inline(always)]
+            fn wrapping_add(self, o: Self) -> Self {
+                <$t>::wrapping_add(self, o)
+            }
+            #[inline(always)]
+            fn low(self) -> u64 {
+                self as u64
+            }
+        }
+    };
+}
+word!(u64);
+word!(u128);
 
 /// Ranking straight from a packed string (see [`Shifts`]) when the space has no
 /// constraint or an exact total: the residue owed before mode `i` is then the weighted
@@ -120,15 +179,15 @@ impl PackedRank {
     /// Rank of the packed string `x` of a state of the space (`table`: the space's
     /// offset table).
     #[inline(always)]
-    fn rank(&self, table: &[u64], mut x: u128) -> u64 {
+    fn rank<W: Word>(&self, table: &[u64], mut x: W) -> u64 {
         // Wrapping arithmetic: every value is bounded by the tables' size (checked
         // arithmetic costs a third of the time here).
         let field = self.field as usize;
         let mut owed = 0usize;
         let mut rank = 0u64;
         for &(start, width, weight) in &self.modes {
-            let v = (x as u64 as usize) & field;
-            x >>= self.bits;
+            let v = (x.low() as usize) & field;
+            x = x.shr(self.bits);
             owed = owed.wrapping_add(weight.wrapping_mul(v));
             rank = rank.wrapping_add(table[start.wrapping_add(owed.wrapping_mul(width)).wrapping_add(v)]);
         }
@@ -334,14 +393,22 @@ impl Shifts {
         })
     }
 
+    /// Whether packed strings fit in a `u64`.
+    #[inline(always)]
+    fn narrow(&self) -> bool {
+        self.width <= 64
+    }
+
     /// Rotate a packed string right by `modes` modes.
     #[inline(always)]
-    fn rotate(&self, x: u128, modes: usize) -> u128 {
+    fn rotate<W: Word>(&self, x: W, modes: usize) -> W {
         let shift = modes as u32 * self.bits;
         if shift == 0 {
             x
         } else {
-            ((x >> shift) | (x << (self.width - shift))) & self.mask
+            x.shr(shift)
+                .or(x.shl(self.width - shift))
+                .and(W::from_u128(self.mask))
         }
     }
 
@@ -358,7 +425,7 @@ impl Shifts {
     /// As [`Shifts::smallest`], with `empty` the modes of the state holding no quanta
     /// (see [`Shifts::empty_modes`]): through the run-of-zeros shortcut when it applies.
     #[inline(always)]
-    fn smallest_with(&self, p: u128, r: u128, empty: u64) -> (u128, usize, usize) {
+    fn smallest_with<W: Word>(&self, p: W, r: W, empty: u64) -> (W, usize, usize) {
         let Some(ring) = &self.ring else {
             return self.smallest(p, r);
         };
@@ -380,10 +447,10 @@ impl Shifts {
             starts = longer;
             run += 1;
         }
-        let mut best = u128::MAX;
+        let mut best = W::MAX;
         let mut which = usize::MAX;
         let mut ties = 0usize;
-        let mut consider = |v: u128, h: usize| {
+        let mut consider = |v: W, h: usize| {
             if v < best {
                 best = v;
                 which = h;
@@ -425,40 +492,33 @@ impl Shifts {
 
     /// The packed string and the packed reversed string of `occ`.
     #[inline(always)]
-    fn pack(&self, occ: &[u32]) -> (u128, u128) {
-        let mut p = 0u128;
-        let mut r = 0u128;
+    fn pack<W: Word>(&self, occ: &[u32]) -> (W, W) {
+        let mut p = W::ZERO;
+        let mut r = W::ZERO;
         for (i, &v) in occ.iter().enumerate() {
-            p |= (v as u128) << ((self.modes - 1 - i) as u32 * self.bits);
-            r |= (v as u128) << (i as u32 * self.bits);
+            p = p.or(W::from_u32(v).shl((self.modes - 1 - i) as u32 * self.bits));
+            r = r.or(W::from_u32(v).shl(i as u32 * self.bits));
         }
         (p, r)
     }
 
-    /// Set mode `mode` to `v` in both packed strings.
     #[inline(always)]
-    fn patch(&self, p: &mut u128, r: &mut u128, mode: usize, v: u32) {
-        let sp = (self.modes - 1 - mode) as u32 * self.bits;
-        let sr = mode as u32 * self.bits;
-        *p = (*p & !(self.field << sp)) | ((v as u128) << sp);
-        *r = (*r & !(self.field << sr)) | ((v as u128) << sr);
-    }
-
-    #[inline(always)]
-    fn image(&self, h: usize, p: u128, r: u128) -> u128 {
+    fn image<W: Word>(&self, h: usize, p: W, r: W) -> W {
         let (rev, shift) = self.moves[h];
         let x = if rev { r } else { p };
         if shift == 0 {
             x
         } else {
-            ((x >> shift) | (x << (self.width - shift))) & self.mask
+            x.shr(shift)
+                .or(x.shl(self.width - shift))
+                .and(W::from_u128(self.mask))
         }
     }
 
     /// Smallest image, the element giving it and how many elements do.
     #[inline(always)]
-    fn smallest(&self, p: u128, r: u128) -> (u128, usize, usize) {
-        let mut best = u128::MAX;
+    fn smallest<W: Word>(&self, p: W, r: W) -> (W, usize, usize) {
+        let mut best = W::MAX;
         let mut which = 0usize;
         let mut ties = 0usize;
         for h in 0..self.moves.len() {
@@ -475,9 +535,9 @@ impl Shifts {
     }
 
     #[inline(always)]
-    fn unpack(&self, x: u128, occ: &mut [u32]) {
+    fn unpack<W: Word>(&self, x: W, occ: &mut [u32]) {
         for (i, o) in occ.iter_mut().enumerate() {
-            *o = ((x >> ((self.modes - 1 - i) as u32 * self.bits)) & self.field) as u32;
+            *o = (x.shr((self.modes - 1 - i) as u32 * self.bits).low() & self.field as u64) as u32;
         }
     }
 }
@@ -1032,7 +1092,7 @@ impl SymmetricSpace {
     #[inline]
     fn is_kept_representative(&self, occ: &[u32]) -> bool {
         if let Some(f) = &self.shifts {
-            let (p, r) = f.pack(occ);
+            let (p, r) = f.pack::<u128>(occ);
             for h in 1..self.order {
                 let v = f.image(h, p, r);
                 if v < p || (v == p && self.phases[h] != 0) {
@@ -1067,7 +1127,13 @@ impl SymmetricSpace {
     #[inline]
     pub fn canonical(&self, occ: &[u32], best: &mut [u32]) -> (usize, usize) {
         if let Some(f) = &self.shifts {
-            let (p, r) = f.pack(occ);
+            if f.narrow() {
+                let (p, r) = f.pack::<u64>(occ);
+                let (x, which, ties) = f.smallest_with(p, r, Shifts::empty_modes(occ));
+                f.unpack(x, best);
+                return (which, ties);
+            }
+            let (p, r) = f.pack::<u128>(occ);
             let (x, which, ties) = f.smallest_with(p, r, Shifts::empty_modes(occ));
             f.unpack(x, best);
             return (which, ties);
@@ -1103,15 +1169,26 @@ impl SymmetricSpace {
     pub fn sector_index(&self, rank: u64) -> Option<u64> {
         let block = self.index.get((rank / BLOCK_STATES) as usize)?;
         let offset = rank % BLOCK_STATES;
-        let w = (offset / 64) as usize;
+        let w = offset / 64;
         let bit = offset % 64;
-        let word = block.words[w];
-        if (word >> bit) & 1 == 0 {
+        if (block.words[w as usize] >> bit) & 1 == 0 {
             return None;
         }
-        let mut count = block.before + (word & ((1u64 << bit) - 1)).count_ones() as u64;
-        for x in &block.words[..w] {
-            count += x.count_ones() as u64;
+        // Branch-free: every word is counted under a mask (all bits before word `w`, the
+        // bits below `bit` in it, none after), so that a mispredicted loop exit does not
+        // discard the look-ups issued after this one.
+        let below = (1u64 << bit) - 1;
+        let mut count = block.before;
+        for (j, &x) in block.words.iter().enumerate() {
+            let j = j as u64;
+            let mask = if j < w {
+                u64::MAX
+            } else if j == w {
+                below
+            } else {
+                0
+            };
+            count += (x & mask).count_ones() as u64;
         }
         Some(count)
     }
@@ -1329,12 +1406,121 @@ pub struct SectorOperator<S: Scalar> {
     diagonal: Vec<SectorTerm<S>>,
     off: Vec<SectorTerm<S>>,
     characters: Vec<S>,
+    /// The diagonal terms as factor tables (see [`FactorTables`]).
+    diagonal_tables: FactorTables,
+    /// The off-diagonal terms compiled for packed strings, when the sector has them.
+    packed: Option<PackedTerms>,
+}
+
+/// Per-factor tables of the squared amplitudes of terms, indexed by a mode's
+/// occupation: `table[start + n]` is `n!/(n-lower)! · w!/(w-raise)!` with
+/// `w = n - lower + raise` (for diagonal terms, whose factors keep the occupation, the
+/// amplitude `n!/(n-lower)!` itself), or `0.0` when the factor leaves the truncated
+/// space (`n < lower` or `w > cap`). Products of these exact small integers, taken in the
+/// terms' factor order, are the squared amplitudes the row loops used to compute
+/// factor by factor, so results are unchanged; a table read replaces the loops and
+/// their checks (the representative/normalisation tables of Sandvik, AIP Conf. Proc.
+/// 1297, 135 (2010), here for the amplitudes).
+#[derive(Debug, Clone, Default)]
+struct FactorTables {
+    /// `(mode, start)` of each factor, terms one after another.
+    factors: Vec<(u32, u32)>,
+    /// `factors[ends[t - 1]..ends[t]]` are term `t`'s.
+    ends: Vec<u32>,
+    values: Vec<f64>,
+    /// `empty[start + n]`: whether the mode is empty after the factor acts.
+    empty: Vec<bool>,
+}
+
+impl FactorTables {
+    fn new<S>(terms: &[SectorTerm<S>], caps: &[u32], width: usize, diagonal: bool) -> Self {
+        let mut t = FactorTables::default();
+        for term in terms {
+            for &(mode, lower, raise) in &term.factors {
+                let start = t.values.len() as u32;
+                let cap = caps[mode];
+                for n in 0..width as u32 {
+                    let ok = n >= lower && n <= cap && n - lower + raise <= cap;
+                    if ok {
+                        let w = n - lower + raise;
+                        t.values.push(if diagonal {
+                            crate::terms::falling(n, lower)
+                        } else {
+                            crate::terms::falling(n, lower) * crate::terms::falling(w, raise)
+                        });
+                        t.empty.push(w == 0);
+                    } else {
+                        t.values.push(0.0);
+                        t.empty.push(false);
+                    }
+                }
+                t.factors.push((mode as u32, start));
+            }
+            t.ends.push(t.factors.len() as u32);
+        }
+        t
+    }
+
+    #[inline(always)]
+    fn range(&self, term: usize) -> std::ops::Range<usize> {
+        let a = if term == 0 {
+            0
+        } else {
+            self.ends[term - 1] as usize
+        };
+        a..self.ends[term] as usize
+    }
+}
+
+/// Off-diagonal terms compiled for packed strings (see [`Shifts`]): applying a term
+/// adds a fixed signed offset to the packed string and to the packed reversed string
+/// (no field over- or underflows once the factor tables accept the occupations), so an
+/// image costs a few table reads and two additions instead of a loop over its modes.
+#[derive(Debug, Clone)]
+struct PackedTerms {
+    bits: u32,
+    tables: FactorTables,
+    /// Per term: the offsets of the packed and the reversed string (two's complement),
+    /// and the bits of its modes in the empty-mode mask.
+    moves: Vec<(u128, u128, u64)>,
+    /// Per factor: the shift of its mode's field in the packed string.
+    shifts: Vec<u32>,
+}
+
+impl PackedTerms {
+    fn new<S>(off: &[SectorTerm<S>], caps: &[u32], bits: u32) -> Self {
+        let m = caps.len();
+        let tables = FactorTables::new(off, caps, 1usize << bits, false);
+        let mut moves = Vec::with_capacity(off.len());
+        let mut shifts = Vec::new();
+        for term in off {
+            let (mut dp, mut dr, mut zmask) = (0u128, 0u128, 0u64);
+            for &(mode, lower, raise) in &term.factors {
+                let sp = (m - 1 - mode) as u32 * bits;
+                let sr = mode as u32 * bits;
+                let delta = raise as i128 - lower as i128;
+                dp = dp.wrapping_add((delta as u128).wrapping_shl(sp));
+                dr = dr.wrapping_add((delta as u128).wrapping_shl(sr));
+                if mode < 64 {
+                    zmask |= 1u64 << mode;
+                }
+                shifts.push(sp);
+            }
+            moves.push((dp, dr, zmask));
+        }
+        PackedTerms {
+            bits,
+            tables,
+            moves,
+            shifts,
+        }
+    }
 }
 
 /// Per-thread buffers of the row gathering.
 struct RowScratch {
     /// Images of a row waiting for their look-ups: (rank, term, element, amplitude).
-    pending: Vec<(u64, usize, usize, f64)>,
+    pending: Vec<(u64, u32, u32, f64)>,
     occ: Vec<u32>,
     image: Vec<u32>,
     best: Vec<u32>,
@@ -1349,15 +1535,6 @@ impl RowScratch {
             best: vec![0; m],
         }
     }
-}
-
-#[inline(always)]
-fn falling(n: u32, k: u32) -> f64 {
-    let mut p = 1.0;
-    for j in 0..k {
-        p *= (n - j) as f64;
-    }
-    p
 }
 
 impl<S: Scalar> SectorOperator<S> {
@@ -1415,10 +1592,19 @@ impl<S: Scalar> SectorOperator<S> {
                 off.push(term);
             }
         }
+        let caps = sector.base.caps();
+        let width = sector.base.max_cutoff() as usize + 1;
+        let diagonal_tables = FactorTables::new(&diagonal, caps, width, true);
+        let packed = sector
+            .shifts
+            .as_ref()
+            .map(|f| PackedTerms::new(&off, caps, f.bits));
         Ok(SectorOperator {
             diagonal,
             off,
             characters,
+            diagonal_tables,
+            packed,
         })
     }
 
@@ -1436,18 +1622,17 @@ impl<S: Scalar> SectorOperator<S> {
         let caps = base.caps();
         let rank = sector.reps[row as usize];
         sector.unrank_small(rank, &mut s.occ);
-        let (_, ties_row) = sector.canonical(&s.occ, &mut s.best);
-        let inv_row = sector.inv_root(ties_row);
         let mut d = S::ZERO;
         let mut any_diagonal = false;
-        'diag: for term in &self.diagonal {
+        let dt = &self.diagonal_tables;
+        'diag: for (t, term) in self.diagonal.iter().enumerate() {
             let mut amp = 1.0;
-            for &(mode, p, _) in &term.factors {
-                let n = s.occ[mode];
-                if n < p {
+            for &(mode, start) in &dt.factors[dt.range(t)] {
+                let v = dt.values[start as usize + s.occ[mode as usize] as usize];
+                if v == 0.0 {
                     continue 'diag;
                 }
-                amp *= falling(n, p);
+                amp *= v;
             }
             d += term.coef.scale(amp);
             any_diagonal = true;
@@ -1455,52 +1640,32 @@ impl<S: Scalar> SectorOperator<S> {
         if any_diagonal {
             visit(row, d);
         }
-        if let Some(f) = &sector.shifts {
-            let (p0, r0) = f.pack(&s.occ);
-            let z0 = Shifts::empty_modes(&s.occ);
-            // First every image's rank (arithmetic only), then the index and vector
-            // look-ups back to back, so that their cache misses overlap.
-            s.pending.clear();
-            'fast: for (t, term) in self.off.iter().enumerate() {
-                let (mut p, mut r, mut z) = (p0, r0, z0);
-                let mut amp_sq = 1.0f64;
-                for &(mode, lower, raise) in &term.factors {
-                    let n = s.occ[mode];
-                    if n < lower {
-                        continue 'fast;
-                    }
-                    let w = n - lower + raise;
-                    if w > caps[mode] {
-                        continue 'fast;
-                    }
-                    amp_sq *= falling(n, lower) * falling(w, raise);
-                    f.patch(&mut p, &mut r, mode, w);
-                    if mode < 64 {
-                        z = (z & !(1u64 << mode)) | (((w == 0) as u64) << mode);
+        if let (Some(f), Some(pt)) = (&sector.shifts, &self.packed) {
+            if f.bits == pt.bits {
+                if f.narrow() {
+                    self.packed_row::<u64>(sector, f, pt, s);
+                } else {
+                    self.packed_row::<u128>(sector, f, pt, s);
+                }
+                // Two phases: every image's column first (index look-ups that do not
+                // wait for one another), then the entries (the vector's look-ups).
+                // Images outside the sector keep `u64::MAX`.
+                for e in s.pending.iter_mut() {
+                    e.0 = sector.sector_index(e.0).unwrap_or(u64::MAX);
+                }
+                for &(col, t, h, amp) in &s.pending {
+                    if col != u64::MAX {
+                        visit(
+                            col,
+                            (self.off[t as usize].coef * self.characters[h as usize]).scale(amp),
+                        );
                     }
                 }
-                let (x, h, ties) = f.smallest_with(p, r, z);
-                let rank = match &sector.packed_rank {
-                    Some(pr) => pr.rank(base.offset_table(), x),
-                    None => {
-                        f.unpack(x, &mut s.best);
-                        let Some(rank) = base.rank(&s.best) else {
-                            continue;
-                        };
-                        rank
-                    }
-                };
-                s.pending
-                    .push((rank, t, h, sector.amplitude(amp_sq, ties, inv_row)));
+                return Ok(());
             }
-            for &(rank, t, h, amp) in &s.pending {
-                let Some(col) = sector.sector_index(rank) else {
-                    continue;
-                };
-                visit(col, (self.off[t].coef * self.characters[h]).scale(amp));
-            }
-            return Ok(());
         }
+        let (_, ties_row) = sector.canonical(&s.occ, &mut s.best);
+        let inv_row = sector.inv_root(ties_row);
         'terms: for term in &self.off {
             s.image.copy_from_slice(&s.occ);
             let mut amp_sq = 1.0f64;
@@ -1514,7 +1679,7 @@ impl<S: Scalar> SectorOperator<S> {
                 if w > caps[mode] {
                     continue 'terms;
                 }
-                amp_sq *= falling(n, lower) * falling(w, raise);
+                amp_sq *= crate::terms::falling(n, lower) * crate::terms::falling(w, raise);
                 s.image[mode] = w;
             }
             let (h, ties) = sector.canonical(&s.image, &mut s.best);
@@ -1531,6 +1696,57 @@ impl<S: Scalar> SectorOperator<S> {
         Ok(())
     }
 
+    /// The images of the row whose occupations are in `s.occ`, through packed strings:
+    /// `(base rank of the representative, term, element, amplitude)` into `s.pending`.
+    /// Each image is the row's packed string plus the term's fixed offset (after its
+    /// factor tables accept the occupations), its representative the smallest rotation
+    /// ([`Shifts::smallest_with`]), ranked straight from the packed string. Ranks come
+    /// first (arithmetic only), the index and vector look-ups afterwards, back to back,
+    /// so that their cache misses overlap.
+    #[inline(always)]
+    fn packed_row<W: Word>(&self, sector: &SymmetricSpace, f: &Shifts, pt: &PackedTerms, s: &mut RowScratch) {
+        let base = &sector.base;
+        let (p0, r0) = f.pack::<W>(&s.occ);
+        let z0 = Shifts::empty_modes(&s.occ);
+        let (_, _, ties_row) = f.smallest_with(p0, r0, z0);
+        let inv_row = sector.inv_root(ties_row);
+        let field = f.field as u64;
+        let tb = &pt.tables;
+        s.pending.clear();
+        'fast: for (t, &(dp, dr, zmask)) in pt.moves.iter().enumerate() {
+            let mut amp_sq = 1.0f64;
+            let mut z = z0 & !zmask;
+            for k in tb.range(t) {
+                let (mode, start) = tb.factors[k];
+                let n = (p0.shr(pt.shifts[k]).low() & field) as usize;
+                let at = start as usize + n;
+                let v = tb.values[at];
+                if v == 0.0 {
+                    continue 'fast;
+                }
+                amp_sq *= v;
+                if tb.empty[at] {
+                    z |= 1u64 << (mode & 63);
+                }
+            }
+            let p = p0.wrapping_add(W::from_u128(dp));
+            let r = r0.wrapping_add(W::from_u128(dr));
+            let (x, h, ties) = f.smallest_with(p, r, z);
+            let rank = match &sector.packed_rank {
+                Some(pr) => pr.rank(base.offset_table(), x),
+                None => {
+                    f.unpack(x, &mut s.best);
+                    let Some(rank) = base.rank(&s.best) else {
+                        continue;
+                    };
+                    rank
+                }
+            };
+            s.pending
+                .push((rank, t as u32, h as u32, sector.amplitude(amp_sq, ties, inv_row)));
+        }
+    }
+
     /// The merged entries of one row, sorted by column, exact zeros dropped.
     fn merged_row(
         &self,
@@ -1541,22 +1757,7 @@ impl<S: Scalar> SectorOperator<S> {
     ) -> CoreResult<()> {
         out.clear();
         self.row_entries(sector, row, s, |c, v| out.push((c, v)))?;
-        // Stable: duplicates are summed in term order whatever the threads.
-        out.sort_by_key(|e| e.0);
-        let mut kept = 0usize;
-        let mut k = 0usize;
-        while k < out.len() {
-            let (col, mut val) = out[k];
-            k += 1;
-            while k < out.len() && out[k].0 == col {
-                val += out[k].1;
-                k += 1;
-            }
-            if val != S::ZERO {
-                out[kept] = (col, val);
-                kept += 1;
-            }
-        }
+        let kept = crate::build::merge_row(out);
         out.truncate(kept);
         Ok(())
     }
@@ -1613,32 +1814,12 @@ impl<S: Scalar> SectorOperator<S> {
         })
     }
 
-    /// Stored entries of each row.
-    fn row_counts(
-        &self,
-        sector: &SymmetricSpace,
-        runner: &Runner,
-        interrupt: &dyn Interrupt,
-    ) -> CoreResult<Vec<u64>> {
-        let mut counts = try_filled(sector.dim() as usize, 0u64, "row counts of the sparse matrix")?;
-        let m = sector.base.modes();
-        runner.for_row_chunks(&mut counts, interrupt, |first, out| {
-            let mut s = RowScratch::new(m);
-            let mut buf = Vec::new();
-            for (i, c) in out.iter_mut().enumerate() {
-                self.merged_row(sector, first + i as u64, &mut s, &mut buf)?;
-                *c = buf.len() as u64;
-            }
-            Ok(())
-        })?;
-        Ok(counts)
-    }
-
     /// The CSR matrix of the operator on the sector (canonical: sorted columns, no
     /// duplicates, no stored zeros), `i32` indices when they fit unless `force_wide`.
     ///
-    /// The rows are gathered once: blocks of rows in parallel, appended in row order to
-    /// arrays reserved from a sampled estimate of the entries (grown if it falls short).
+    /// The shared two-pass build ([`crate::build::build_rows`]): each row's entries are
+    /// counted, then written in place, so that peak memory is the output plus one row
+    /// count per row and per-thread scratch.
     ///
     /// # Errors
     /// [`CoreError::TooLarge`] when the entries do not fit in memory;
@@ -1650,97 +1831,7 @@ impl<S: Scalar> SectorOperator<S> {
         interrupt: &dyn Interrupt,
         force_wide: bool,
     ) -> CoreResult<CsrAny<S>> {
-        let dim = sector.dim();
-        let (est, err, exact, _) = self.estimate_nnz(sector, 4096, runner, interrupt)?;
-        let expected = if exact { est } else { est + 6.0 * err + 0.002 * est };
-        let bound = dim.saturating_mul(1 + self.off.len() as u64);
-        let expected = (expected.ceil() as u64).min(bound);
-        let narrow_fits = dim <= i32::MAX as u64;
-        if !force_wide && narrow_fits && expected <= i32::MAX as u64 {
-            if let Some(c) = self.fill::<i32>(sector, runner, interrupt, expected)? {
-                return Ok(CsrAny::Narrow(c));
-            }
-        }
-        let c = self
-            .fill::<i64>(sector, runner, interrupt, expected)?
-            .expect("i64 indices hold any count of entries");
-        Ok(CsrAny::Wide(c))
-    }
-
-    /// The CSR arrays with indices of type `I`, or `None` when the entries outgrow `I`.
-    fn fill<I: CsrIndex>(
-        &self,
-        sector: &SymmetricSpace,
-        runner: &Runner,
-        interrupt: &dyn Interrupt,
-        expected: u64,
-    ) -> CoreResult<Option<Csr<S, I>>> {
-        let dim = sector.dim();
-        let limit = I::MAX;
-        let mut indptr: Vec<I> = try_with_capacity(dim as usize + 1, "row pointers of the sparse matrix")?;
-        let mut indices: Vec<I> =
-            try_with_capacity(expected as usize, "column indices of the sparse matrix")?;
-        let mut data: Vec<S> = try_with_capacity(expected as usize, "values of the sparse matrix")?;
-        indptr.push(I::from_u64(0));
-        let m = sector.base.modes();
-        let blocks = dim.div_ceil(BLOCK_ROWS) as usize;
-        let mut next = 0usize;
-        while next < blocks {
-            // Few blocks at a time: their entries are held twice until appended.
-            let end = (next + BUILD_BLOCKS).min(blocks);
-            let parts: Vec<(Vec<u32>, Vec<I>, Vec<S>)> = runner.install(|| {
-                (next..end)
-                    .into_par_iter()
-                    .map(|b| {
-                        let first = b as u64 * BLOCK_ROWS;
-                        let last = (first + BLOCK_ROWS).min(dim);
-                        let mut s = RowScratch::new(m);
-                        let mut buf = Vec::new();
-                        let mut lens = Vec::with_capacity((last - first) as usize);
-                        let mut cols = Vec::new();
-                        let mut vals = Vec::new();
-                        for row in first..last {
-                            self.merged_row(sector, row, &mut s, &mut buf)?;
-                            lens.push(buf.len() as u32);
-                            cols.extend(buf.iter().map(|e| I::from_u64(e.0)));
-                            vals.extend(buf.iter().map(|e| e.1));
-                        }
-                        Ok((lens, cols, vals))
-                    })
-                    .collect::<CoreResult<Vec<_>>>()
-            })?;
-            for (lens, cols, vals) in parts {
-                let have = indices.len() as u64;
-                if have + cols.len() as u64 > limit {
-                    return Ok(None);
-                }
-                if indices.capacity() - indices.len() < cols.len() {
-                    // Grow by an eighth at least: the estimate fell short.
-                    let more = cols.len().max(indices.capacity() / 8);
-                    reserve(&mut indices, more, "column indices of the sparse matrix")?;
-                    reserve(&mut data, more, "values of the sparse matrix")?;
-                }
-                let mut at = have;
-                for len in lens {
-                    at += len as u64;
-                    indptr.push(I::from_u64(at));
-                }
-                indices.extend_from_slice(&cols);
-                data.extend_from_slice(&vals);
-            }
-            next = end;
-            if interrupt.requested() {
-                return Err(CoreError::Interrupted);
-            }
-        }
-        indices.shrink_to_fit();
-        data.shrink_to_fit();
-        Ok(Some(Csr {
-            dim,
-            indptr,
-            indices,
-            data,
-        }))
+        crate::build::build_rows(&OnSector { sector, op: self }, runner, interrupt, force_wide)
     }
 
     /// Estimated stored entries (exact when the sector has at most `4 × samples` states):
@@ -1755,44 +1846,19 @@ impl<S: Scalar> SectorOperator<S> {
         runner: &Runner,
         interrupt: &dyn Interrupt,
     ) -> CoreResult<(f64, f64, bool, u64)> {
-        let dim = sector.dim();
-        let samples = samples.max(1) as u64;
-        if dim <= 4 * samples {
-            let counts = self.row_counts(sector, runner, interrupt)?;
-            return Ok((
-                counts.iter().sum::<u64>() as f64,
-                0.0,
-                true,
-                counts.iter().copied().max().unwrap_or(0),
-            ));
-        }
         let m = sector.base.modes();
-        let counts: Vec<u64> = runner.install(|| {
-            (0..samples)
-                .into_par_iter()
-                .map_init(
-                    || (RowScratch::new(m), Vec::new()),
-                    |(s, buf), k| {
-                        let lo = k * dim / samples;
-                        let hi = (k + 1) * dim / samples;
-                        let row = lo + splitmix64(k ^ 0xA5A5_5A5A) % (hi - lo).max(1);
-                        match self.merged_row(sector, row, s, buf) {
-                            Ok(()) => buf.len() as u64,
-                            Err(_) => 0,
-                        }
-                    },
-                )
-                .collect()
-        });
-        let n = counts.len() as f64;
-        let mean = counts.iter().sum::<u64>() as f64 / n;
-        let var = counts.iter().map(|&c| (c as f64 - mean).powi(2)).sum::<f64>() / (n - 1.0).max(1.0);
-        Ok((
-            mean * dim as f64,
-            (var / n).sqrt() * dim as f64,
-            false,
-            counts.iter().copied().max().unwrap_or(0),
-        ))
+        let e = crate::estimate::estimate_from_rows(
+            sector.dim(),
+            samples,
+            runner,
+            || crate::build::counts_of(&OnSector { sector, op: self }, runner, interrupt),
+            || (RowScratch::new(m), Vec::new()),
+            |(s, buf), row| match self.merged_row(sector, row, s, buf) {
+                Ok(()) => buf.len() as u64,
+                Err(_) => 0,
+            },
+        )?;
+        Ok((e.nnz, e.std_error, e.exact, e.max_row))
     }
 
     /// Lanczos ground state on the sector: matrix-free, or on a CSR matrix built first
@@ -1853,6 +1919,40 @@ impl<S: Scalar> SectorOperator<S> {
                 levels::lowest_levels(&lanczos::CsrMap::new(c), k, start, opts, runner, interrupt)
             }
         }
+    }
+}
+
+/// A sector operator seen as the rows of its matrix, for the shared two-pass CSR build
+/// and the nonzero estimate.
+#[derive(Clone, Copy)]
+pub struct OnSector<'a, S: Scalar> {
+    /// The sector (rows and columns).
+    pub sector: &'a SymmetricSpace,
+    /// The operator.
+    pub op: &'a SectorOperator<S>,
+}
+
+impl<S: Scalar> SparseRows<S> for OnSector<'_, S> {
+    fn shape(&self) -> (u64, u64) {
+        (self.sector.dim(), self.sector.dim())
+    }
+    fn rows(&self, first: u64, count: usize, visit: &mut RowVisitor<S>) -> CoreResult<()> {
+        let end = first
+            .checked_add(count as u64)
+            .filter(|&e| e <= self.sector.dim())
+            .ok_or_else(|| {
+                CoreError::InvalidArgument(format!(
+                    "rows {first}..{first}+{count} are out of range for the sector's dimension {}",
+                    self.sector.dim()
+                ))
+            })?;
+        let mut s = RowScratch::new(self.sector.base.modes());
+        let mut buf = Vec::new();
+        for row in first..end {
+            self.op.merged_row(self.sector, row, &mut s, &mut buf)?;
+            visit(row, &buf);
+        }
+        Ok(())
     }
 }
 
@@ -2144,6 +2244,267 @@ mod tests {
         }
     }
 
+    /// Hopping, Kerr, density-density and pair hopping on `bonds` (every kind of factor
+    /// table: one- and two-mode diagonal terms, single and double quanta moved).
+    fn lattice_terms(modes: usize, bonds: &[(usize, usize)]) -> Vec<RawTerm> {
+        let mut t = Vec::new();
+        for i in 0..modes {
+            t.push(RawTerm::new(0.65, 0.0, vec![(i, 2, 2)]));
+        }
+        for &(i, j) in bonds {
+            let (a, b) = (i.min(j), i.max(j));
+            t.push(RawTerm::new(-1.0, 0.0, vec![(a, 1, 0), (b, 0, 1)]));
+            t.push(RawTerm::new(-1.0, 0.0, vec![(a, 0, 1), (b, 1, 0)]));
+            t.push(RawTerm::new(0.3, 0.0, vec![(a, 1, 1), (b, 1, 1)]));
+            t.push(RawTerm::new(0.2, 0.0, vec![(a, 2, 0), (b, 0, 2)]));
+            t.push(RawTerm::new(0.2, 0.0, vec![(a, 0, 2), (b, 2, 0)]));
+        }
+        t
+    }
+
+    /// Site `(r, c)` of a `rows × cols` torus is mode `r * cols + c`.
+    fn torus_bonds(rows: usize, cols: usize) -> Vec<(usize, usize)> {
+        let site = |r: usize, c: usize| (r % rows) * cols + c % cols;
+        let mut b = Vec::new();
+        for r in 0..rows {
+            for c in 0..cols {
+                b.push((site(r, c), site(r, c + 1)));
+                b.push((site(r, c), site(r + 1, c)));
+            }
+        }
+        b
+    }
+
+    fn torus_map(rows: usize, cols: usize, f: impl Fn(usize, usize) -> (usize, usize)) -> Vec<usize> {
+        (0..rows * cols)
+            .map(|i| {
+                let (r, c) = f(i / cols, i % cols);
+                (r % rows) * cols + c % cols
+            })
+            .collect()
+    }
+
+    /// Every label combination of `images` that defines a sector, checked against a
+    /// dense projector reference (common practice, no source): the group is closed
+    /// here from the generators with its characters, the kept representatives are the
+    /// orbit minima whose stabiliser has the trivial character, the sector state of a
+    /// representative `r` is `Σ_g χ(g)^* |g r⟩` normalised, and the sector matrix must
+    /// equal `V† H V` on those states. Each sector's CSR matrix must also be
+    /// bit-identical with the shortcuts cleared (the general path) and for 1 and 2
+    /// threads, and its products (one vector and three) must match the matrix.
+    /// Returns the number of sectors checked.
+    fn check_every_label(base: &FockSpace, raw: &[RawTerm], images: &[Vec<usize>]) -> usize {
+        let m = base.modes();
+        let op = Operator::<Complex64>::new(base, raw).unwrap();
+        let (n, h) = dense_of(&build_csr(base, &op, &Runner::global(), &NoInterrupt, false).unwrap());
+        let mut states = Vec::new();
+        each_state(base, |occ, _| states.push(occ.to_vec()));
+        let orders: Vec<u64> = images.iter().map(|g| permutation_order(g).unwrap()).collect();
+        let one = Runner::with_threads(Some(1)).unwrap();
+        let two = Runner::with_threads(Some(2)).unwrap();
+        let mut checked = 0;
+        let mut labels = vec![0u64; images.len()];
+        loop {
+            let gens: Vec<Generator> = images
+                .iter()
+                .zip(&labels)
+                .map(|(g, &q)| Generator {
+                    images: g.clone(),
+                    label: q,
+                })
+                .collect();
+            if let Ok(sector) = SymmetricSpace::new(base.clone(), &gens, &one, &NoInterrupt) {
+                checked += 1;
+                // The group with its characters, closed here.
+                let ident: Vec<usize> = (0..m).collect();
+                let mut elems = vec![(ident, Complex64::new(1.0, 0.0))];
+                let mut k = 0;
+                while k < elems.len() {
+                    for (g, (&q, &o)) in images.iter().zip(labels.iter().zip(&orders)) {
+                        let composed: Vec<usize> = elems[k].0.iter().map(|&i| g[i]).collect();
+                        if elems.iter().all(|e| e.0 != composed) {
+                            let phase = 2.0 * std::f64::consts::PI * q as f64 / o as f64;
+                            let chi = elems[k].1 * Complex64::new(phase.cos(), phase.sin());
+                            elems.push((composed, chi));
+                        }
+                    }
+                    k += 1;
+                }
+                assert_eq!(elems.len(), sector.order());
+                let act = |e: &[usize], occ: &[u32]| {
+                    let mut moved = vec![0u32; m];
+                    for (i, &v) in occ.iter().enumerate() {
+                        moved[e[i]] = v;
+                    }
+                    base.rank(&moved).unwrap() as usize
+                };
+                let mut reps = Vec::new();
+                let mut columns: Vec<Vec<(usize, Complex64)>> = Vec::new();
+                for (b, occ) in states.iter().enumerate() {
+                    let images_of: Vec<usize> = elems.iter().map(|e| act(&e.0, occ)).collect();
+                    if images_of.iter().any(|&i| i < b) {
+                        continue;
+                    }
+                    let trivial = elems
+                        .iter()
+                        .zip(&images_of)
+                        .all(|(e, &i)| i != b || (e.1 - 1.0).norm() < 1e-9);
+                    if !trivial {
+                        continue;
+                    }
+                    let mut v = vec![Complex64::new(0.0, 0.0); n];
+                    for (e, &i) in elems.iter().zip(&images_of) {
+                        v[i] += e.1.conj();
+                    }
+                    let norm = v.iter().map(|z| z.norm_sqr()).sum::<f64>().sqrt();
+                    reps.push(b as u64);
+                    columns.push(
+                        v.iter()
+                            .enumerate()
+                            .filter(|(_, z)| z.norm() > 0.0)
+                            .map(|(i, z)| (i, z / norm))
+                            .collect(),
+                    );
+                }
+                assert_eq!(sector.representatives(), &reps[..], "{labels:?}");
+                let d = reps.len();
+                let sop = SectorOperator::new(&sector, &op, &gens).unwrap();
+                let got = sop.build_csr(&sector, &one, &NoInterrupt, false).unwrap();
+                let (_, a) = dense_of(&got);
+                for (r, vr) in columns.iter().enumerate() {
+                    let hv: Vec<Complex64> = (0..n)
+                        .map(|row| vr.iter().map(|&(c, z)| h[row * n + c] * z).sum())
+                        .collect();
+                    for (u, vu) in columns.iter().enumerate() {
+                        let want: Complex64 = vu.iter().map(|&(i, z)| z.conj() * hv[i]).sum();
+                        assert!((a[u * d + r] - want).norm() < 1e-10, "{labels:?} ({u}, {r})");
+                    }
+                }
+                // The general path and two threads give the very same matrix.
+                let mut slow = sector.clone();
+                slow.shifts = None;
+                slow.packed_rank = None;
+                slow.enumerate(&one, &NoInterrupt).unwrap();
+                assert_eq!(slow.representatives(), sector.representatives());
+                assert_eq!(sop.build_csr(&slow, &one, &NoInterrupt, false).unwrap(), got);
+                assert_eq!(sop.build_csr(&sector, &two, &NoInterrupt, false).unwrap(), got);
+                if let Some(f) = &sector.shifts {
+                    if f.ring.is_some() {
+                        let mut packed = sector.clone();
+                        packed.shifts.as_mut().unwrap().ring = None;
+                        assert_eq!(sop.build_csr(&packed, &one, &NoInterrupt, false).unwrap(), got);
+                    }
+                }
+                // Products: one vector on 1 and 2 threads, and three at once.
+                let x: Vec<Complex64> = (0..3 * d)
+                    .map(|i| Complex64::new((i as f64 * 0.37).sin(), (i as f64 * 0.11).cos()))
+                    .collect();
+                let first: Vec<Complex64> = (0..d).map(|i| x[3 * i]).collect();
+                let (mut y1, mut y2) = (
+                    vec![Complex64::new(0.0, 0.0); d],
+                    vec![Complex64::new(0.0, 0.0); d],
+                );
+                sop.apply_many(&sector, &first, &mut y1, 1, &one, &NoInterrupt)
+                    .unwrap();
+                sop.apply_many(&sector, &first, &mut y2, 1, &two, &NoInterrupt)
+                    .unwrap();
+                assert_eq!(y1, y2);
+                let mut ys = vec![Complex64::new(0.0, 0.0); 3 * d];
+                sop.apply_many(&sector, &x, &mut ys, 3, &two, &NoInterrupt)
+                    .unwrap();
+                let mut y3 = vec![Complex64::new(0.0, 0.0); d];
+                sop.apply_many(&slow, &first, &mut y3, 1, &one, &NoInterrupt)
+                    .unwrap();
+                assert_eq!(y1, y3);
+                for u in 0..d {
+                    for j in 0..3 {
+                        let want: Complex64 = (0..d).map(|r| a[u * d + r] * x[3 * r + j]).sum();
+                        assert!((ys[3 * u + j] - want).norm() < 1e-10);
+                        if j == 0 {
+                            assert!((y1[u] - want).norm() < 1e-10);
+                        }
+                    }
+                }
+            }
+            // Next label combination.
+            let mut g = 0;
+            loop {
+                if g == labels.len() {
+                    return checked;
+                }
+                labels[g] += 1;
+                if labels[g] < orders[g] {
+                    break;
+                }
+                labels[g] = 0;
+                g += 1;
+            }
+        }
+    }
+
+    #[test]
+    fn ring_paths_match_dense_projector_references() {
+        // Rings of 5 to 8 sites with and without the reflection, every label; a 32-mode
+        // ring (a packed string of exactly 64 bits) and a 33-mode one (beyond 64 bits,
+        // the u128 path); translation by two sites only (packed, no run-of-zeros
+        // shortcut). References as in `check_every_label`.
+        for l in 5..=8 {
+            let base = FockSpace::new(vec![2; l], None, Some(l as u64 / 2 + 1), None).unwrap();
+            let bonds: Vec<(usize, usize)> = (0..l).map(|i| (i, (i + 1) % l)).collect();
+            let raw = lattice_terms(l, &bonds);
+            assert_eq!(check_every_label(&base, &raw, &[ring(l)]), l);
+            let with_mirror = check_every_label(&base, &raw, &[ring(l), mirror(l)]);
+            assert_eq!(with_mirror, if l % 2 == 0 { 4 } else { 2 });
+        }
+        for l in [32, 33] {
+            let base = FockSpace::new(vec![2; l], None, Some(2), None).unwrap();
+            let bonds: Vec<(usize, usize)> = (0..l).map(|i| (i, (i + 1) % l)).collect();
+            let raw = lattice_terms(l, &bonds);
+            let s = SymmetricSpace::new(
+                base.clone(),
+                &[Generator {
+                    images: ring(l),
+                    label: 0,
+                }],
+                &Runner::global(),
+                &NoInterrupt,
+            )
+            .unwrap();
+            assert_eq!(s.shifts.as_ref().unwrap().narrow(), l == 32);
+            assert!(check_every_label(&base, &raw, &[ring(l), mirror(l)]) >= 2);
+        }
+        let l = 8;
+        let base = FockSpace::new(vec![3; l], None, Some(4), None).unwrap();
+        let bonds: Vec<(usize, usize)> = (0..l).map(|i| (i, (i + 1) % l)).collect();
+        let two: Vec<usize> = (0..l).map(|i| (i + 2) % l).collect();
+        assert_eq!(check_every_label(&base, &lattice_terms(l, &bonds), &[two]), 4);
+    }
+
+    #[test]
+    fn torus_paths_match_dense_projector_references() {
+        // 3×3 and 2×4 tori: both translations, then with reflections (and the diagonal
+        // reflection of the square torus), every label. The translation along the rows
+        // of the 2×4 torus alone is a rotation of the mode order (packed path without
+        // the run-of-zeros shortcut). References as in `check_every_label`.
+        for (rows, cols, total) in [(3, 3, 3), (2, 4, 4)] {
+            let m = rows * cols;
+            let base = FockSpace::new(vec![2; m], None, Some(total), None).unwrap();
+            let raw = lattice_terms(m, &torus_bonds(rows, cols));
+            let tx = torus_map(rows, cols, |r, c| (r, c + 1));
+            let ty = torus_map(rows, cols, |r, c| (r + 1, c));
+            let rx = torus_map(rows, cols, |r, c| (r, cols - c));
+            let ry = torus_map(rows, cols, |r, c| (rows - r, c));
+            assert_eq!(check_every_label(&base, &raw, &[tx.clone(), ty.clone()]), m);
+            assert!(check_every_label(&base, &raw, &[tx.clone(), ty.clone(), rx.clone()]) >= 4);
+            assert!(check_every_label(&base, &raw, &[tx.clone(), ty.clone(), rx, ry]) >= 4);
+            assert_eq!(check_every_label(&base, &raw, std::slice::from_ref(&ty)), rows);
+            if rows == cols {
+                let d = torus_map(rows, cols, |r, c| (c, r));
+                assert!(check_every_label(&base, &raw, &[tx, ty, d]) >= 2);
+            }
+        }
+    }
+
     #[test]
     fn packed_rank_small_unrank_and_index_match_the_space() {
         // Ranking from packed strings and unranking by upward scans against the space's
@@ -2184,8 +2545,13 @@ mod tests {
             let mut occ2 = vec![0u32; l];
             let mut next = 0usize;
             each_state(&base, |occ, b| {
-                let (p, _) = f.pack(occ);
+                let (p, _) = f.pack::<u128>(occ);
                 assert_eq!(pr.rank(base.offset_table(), p), b);
+                if f.narrow() {
+                    let (q, _) = f.pack::<u64>(occ);
+                    assert_eq!(q as u128, p);
+                    assert_eq!(pr.rank(base.offset_table(), q), b);
+                }
                 sector.unrank_small(b, &mut occ2);
                 assert_eq!(occ2, occ);
                 let reps = sector.representatives();
@@ -2202,10 +2568,10 @@ mod tests {
     }
 
     #[test]
-    fn one_pass_build_grows_and_narrows_correctly() {
-        // Reserving too little must only grow the arrays, and wide and narrow indices
-        // must hold the same matrix; its row sums against the matrix-free product with
-        // a vector of ones (common practice, no source).
+    fn two_pass_build_is_narrow_or_wide_alike() {
+        // The shared two-pass build: wide and narrow indices must hold the same matrix,
+        // the same for 1 and 2 threads; its row sums against the matrix-free product
+        // with a vector of ones (common practice, no source).
         let l = 8;
         let base = FockSpace::new(vec![8; l], None, Some(8), None).unwrap();
         let g = [
@@ -2222,7 +2588,10 @@ mod tests {
         let s = SymmetricSpace::new(base.clone(), &g, &r, &NoInterrupt).unwrap();
         let op = Operator::<f64>::new(&base, &bose_hubbard_ring(l, 1.0, 2.0)).unwrap();
         let sop = SectorOperator::new(&s, &op, &g).unwrap();
-        let small = sop.fill::<i32>(&s, &r, &NoInterrupt, 1).unwrap().unwrap();
+        let one = Runner::with_threads(Some(1)).unwrap();
+        let CsrAny::Narrow(small) = sop.build_csr(&s, &one, &NoInterrupt, false).unwrap() else {
+            panic!("narrow expected");
+        };
         let CsrAny::Narrow(narrow) = sop.build_csr(&s, &r, &NoInterrupt, false).unwrap() else {
             panic!("narrow expected");
         };

@@ -320,6 +320,21 @@ impl RowState {
     }
 }
 
+/// The falling factorial `n (n-1) … (n-k+1)` as `f64` (1 for `k = 0`, 0 for `k > n`):
+/// the squared amplitude factor of `a^k` on `|n⟩` is `falling(n, k)`. The one helper
+/// of every kernel (row, bipartite, sector), so that they round alike.
+#[inline(always)]
+pub(crate) fn falling(n: u32, k: u32) -> f64 {
+    let mut p = 1.0;
+    for j in 0..k {
+        if j >= n {
+            return 0.0;
+        }
+        p *= (n - j) as f64;
+    }
+    p
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;
