@@ -26,7 +26,7 @@ use std::sync::OnceLock;
 /// What the operator acts on.
 enum Kind {
     Space(Box<OnSpace>),
-    Sector(OnSector),
+    Sector(Box<OnSector>),
     Between(BetweenSpaces),
     Csr(StoredCsr),
 }
@@ -166,14 +166,14 @@ impl NativeOperator {
                 None
             };
             Ok(NativeOperator {
-                kind: Kind::Sector(OnSector {
+                kind: Kind::Sector(Box::new(OnSector {
                     sector: sector.inner.clone(),
                     real,
                     complex,
                     terms: op.len(),
                     real_estimate: OnceLock::new(),
                     complex_estimate: OnceLock::new(),
-                }),
+                })),
             })
         })
     }

@@ -735,8 +735,8 @@ def space_summary(space: Any) -> dict[str, Any]:
     """What a results file records of a space: modes, cutoffs, sector, dimension."""
     return {
         "modes": space.modes,
-        "cutoffs": list(space.cutoffs),
-        "weights": list(space.weights),
+        "cutoffs": [int(c) for c in space.cutoffs],
+        "weights": [int(w) for w in space.weights],
         "total": space.total,
         "modulus": space.modulus,
         "dim": space.dim,

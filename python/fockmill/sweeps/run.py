@@ -22,7 +22,7 @@ from fockmill.models.model import Model
 from fockmill.spaces.sectors import SectorChoice
 from fockmill.spaces.symmetry import ModePermutation
 from fockmill.store.claims import claim
-from fockmill.store.sweeps import PointResult, ResultsStore, SweepTable
+from fockmill.store.sweeps import PointResult, ResultsStore, SweepTable, space_summary
 from fockmill.sweeps.pattern import SharedPattern
 from fockmill.sweeps.plan import (
     QUANTITIES,
@@ -57,19 +57,6 @@ def mode_labels_of(model: Model) -> list[str]:
     return labels
 
 
-def space_summary(model: Model) -> dict[str, Any]:
-    """The model's space as stored in results files (``meta.space``)."""
-    space = model.space
-    return {
-        "modes": space.modes,
-        "cutoffs": [int(c) for c in space.cutoffs],
-        "weights": [int(w) for w in space.weights],
-        "total": space.total,
-        "modulus": space.modulus,
-        "dim": space.dim,
-    }
-
-
 def _new_meta(
     model: Model,
     full: list[dict[str, float]],
@@ -85,7 +72,7 @@ def _new_meta(
         "model_fingerprint": model.fingerprint(),
         "model_text_hash": model_text_hash or "",
         "dim": model.space.dim,
-        "space": space_summary(model),
+        "space": space_summary(model.space),
         "points": len(full),
         "swept_parameters": list(swept),
         "settings": settings.as_meta(),
