@@ -283,3 +283,103 @@ def test_bad_parts_are_refused() -> None:
         fm.evolve(fm.number(0), SPACE, psi0, [0.0, 1.0], max_step=0.1)
     with pytest.raises(TypeError, match="missing the space"):
         fm.evolve(fm.TimeDependent(fm.number(0), []), psi0=psi0, times=[0.0, 1.0])
+
+
+# -- model files: [quench.ramp] ------------------------------------------------------------
+
+RAMP_FILE = """
+schema = 1
+[model]
+kind = "bose-hubbard"
+lattice = "ring"
+sites = 4
+total = 4
+cutoff = 4
+[parameters]
+J = 1.0
+U = 7.0
+[quench]
+times = [0.0, 0.5, 1.0, 2.0]
+tol = 1e-9
+[quench.ramp.U]
+times = [0.0, 1.0]
+values = [1.0, 5.0]
+[quench.initial]
+state = "fock"
+occupations = [2, 0, 1, 1]
+"""
+
+
+def test_a_ramp_in_a_model_file_is_a_time_dependent_hamiltonian() -> None:
+    # Reference: solve_ivp DOP853 on the dense pieces of the model (tests/reference.py),
+    # with U(t) the same piecewise-linear table, and ⟨H(t)⟩ from the dense matrices.
+    spec = fm.parse_model_text(RAMP_FILE)
+    assert spec.quench is not None
+    assert spec.quench.ramps == {"U": ((0.0, 1.0), (1.0, 5.0))}
+    result = fm.run_quench(spec)
+    model = spec.model
+    space = model.space
+    kinetic = _dense(model.pieces["J"], space)
+    kerr = _dense(model.pieces["U"], space)
+    ramp = fm.piecewise_linear([0.0, 1.0], [1.0, 5.0])
+    psi0 = np.zeros(space.dim)
+    psi0[space.index([2, 0, 1, 1])] = 1.0
+    times = [0.0, 0.5, 1.0, 2.0]
+    # DOP853 split at the kink t = 1 of the ramp.
+    first = _reference(kinetic, [(kerr, ramp)], psi0, [0.0, 0.5, 1.0], 1e-12, 1e-14)
+    second = sla.expm(-1j * (kinetic + 5.0 * kerr)) @ first[:, -1]
+    states = np.column_stack([first, second])
+    populations = np.stack(
+        [
+            np.einsum("it,ij,jt->t", states.conj(), _dense(fm.number(i), space), states).real
+            for i in range(space.modes)
+        ],
+        axis=1,
+    )
+    np.testing.assert_allclose(result.arrays["populations"], populations, atol=1e-7)
+    energy = [
+        np.vdot(states[:, k], (kinetic + ramp(t) * kerr) @ states[:, k]).real
+        for k, t in enumerate(times)
+    ]
+    np.testing.assert_allclose(result.arrays["energy"], energy, atol=1e-7)
+    assert result.meta["settings"]["ramps"] == {"U": {"times": [0.0, 1.0], "values": [1.0, 5.0]}}
+    assert "energy_drift" not in result.summary
+    with pytest.raises(ValueError, match=r"\['U'\] follow \[quench.ramp\]"):
+        fm.run_quench(spec, overrides={"U": 2.0})
+
+
+@pytest.mark.parametrize(
+    ("ramp", "path", "words"),
+    [
+        ("[quench.ramp.V]\ntimes = [0, 1]\nvalues = [1, 2]\n", "quench.ramp.V", "unknown key"),
+        ("[quench.ramp.U]\ntimes = [0, 1]\nvalue = [1, 2]\n", "quench.ramp.U.value", "unknown"),
+        ("[quench.ramp.U]\ntimes = [0, 1]\n", "quench.ramp.U.values", "missing"),
+        ("[quench.ramp.U]\ntimes = [0]\nvalues = [1]\n", "quench.ramp.U.times", "two points"),
+        ("[quench.ramp.U]\ntimes = [0, 1]\nvalues = [1]\n", "quench.ramp.U.values", "one value"),
+        ("[quench.ramp.U]\ntimes = [-1, 1]\nvalues = [1, 2]\n", "quench.ramp.U.times", ">= 0"),
+        (
+            "[quench.ramp.U]\ntimes = [0, 2, 1]\nvalues = [1, 2, 3]\n",
+            "quench.ramp.U.times[2]",
+            "increasing",
+        ),
+        (
+            "[quench.ramp.U]\ntimes = [0, 1]\nvalues = [1, nan]\n",
+            "quench.ramp.U.values[1]",
+            "finite",
+        ),
+        (
+            '[quench.ramp.U]\ntimes = [0, 1]\nvalues = [1, "2"]\n',
+            "quench.ramp.U.values[1]",
+            "number",
+        ),
+        ("[quench.ramp]\n", "quench.ramp", "empty"),
+    ],
+)
+def test_bad_ramps_are_refused_with_their_key_path(ramp: str, path: str, words: str) -> None:
+    # Common practice, no source: every mistake names its key path.
+    text = RAMP_FILE.replace("[quench.ramp.U]\ntimes = [0.0, 1.0]\nvalues = [1.0, 5.0]\n", "")
+    head, tail = text.split("[quench.initial]")
+    with pytest.raises(fm.ModelFileError) as info:
+        fm.parse_model_text(head + ramp + "[quench.initial]" + tail)
+    message = str(info.value)
+    assert path in message and words in message, message

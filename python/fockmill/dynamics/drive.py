@@ -171,8 +171,12 @@ class TimeDependent:
     >>> import fockmill as fm
     >>> hop = fm.raising(0) * fm.lowering(1) + fm.raising(1) * fm.lowering(0)
     >>> H = fm.TimeDependent(-hop, [(fm.number(0), fm.piecewise_linear([0, 1], [0, 2]))])
-    >>> H.coefficients(0.5)
-    [1.0, 1.0]
+    >>> H.coefficients(0.5), H.breakpoints()
+    ([1.0], [0.0, 1.0])
+    >>> space = fm.FockSpace(modes=2, cutoff=1, total=1)
+    >>> ev = fm.evolve(H, space, [1.0, 0.0], [0.0, 2.0], observables={"n0": fm.number(0)})
+    >>> ev.steps > 0, ev.error_estimate < 1e-10
+    (True, True)
     """
 
     def __init__(self, H0: Any, parts: Sequence[tuple[Any, Callable[[float], float]]]) -> None:

@@ -651,6 +651,6 @@ def _evolve_time_dependent(
         steps=count.steps,
         products=count.products,
         method=maps[0].method if maps else "operator",
-        error_estimate=count.error,
+        error_estimate=float(count.error),
         seconds=time.perf_counter() - t_start,
     )
