@@ -231,6 +231,18 @@ def test_prepared_parts_and_max_step() -> None:
     assert np.linalg.norm(c.final - b.final) < 1e-8
 
 
+def test_matrix_free_products_give_the_same_evolution() -> None:
+    # Stored CSR and matrix-free products of the same parts (common practice, no source).
+    rng = np.random.default_rng(9)
+    h0, h1 = _random_hermitian(rng, 3), _random_hermitian(rng, 3)
+    H = fm.TimeDependent(h0, [(h1, lambda t: math.exp(-t))])
+    psi0 = _start(SPACE, rng)
+    a = fm.evolve(H, SPACE, psi0, [0.0, 1.5], tol=1e-10, method="csr")
+    b = fm.evolve(H, SPACE, psi0, [0.0, 1.5], tol=1e-10, method="operator")
+    assert (a.method, b.method) == ("csr", "operator")
+    assert np.linalg.norm(a.final - b.final) < 1e-12
+
+
 # -- refused input (common practice, no source) --------------------------------------------
 
 
