@@ -261,9 +261,16 @@ def evolve(
     Raises
     ------
     ValueError
-        Negative or unsorted times, a wrong-length or unnormalised state, a bad ``tol``.
+        Negative or unsorted times, a wrong-length or unnormalised state, a bad ``tol``;
+        a coefficient of a time-dependent ``H`` returning NaN, inf or a non-real value
+        (the part is named).
     NotHermitianError
         ``H`` is not Hermitian.
+    SymmetryError
+        A part of a time-dependent ``H`` is not invariant on the symmetry sector (named).
+    ConvergenceError
+        The time step of a time-dependent ``H`` shrank to round-off (a jump in a
+        coefficient without a breakpoint, or ``tol`` far too small).
     SizeLimitError
         The Krylov vectors (or the kept states) do not fit in memory.
 
