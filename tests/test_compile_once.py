@@ -105,6 +105,7 @@ def test_observables_and_probes_compile_once_each(
     ("runner", "example"),
     [
         (fm.run_quench, "dimer_interaction_quench.toml"),
+        (fm.run_quench, "ring_interaction_ramp.toml"),
         (fm.run_spectrum, "ring_photon_removal.toml"),
         (fm.run_thermal, "kerr_trimer_thermal.toml"),
     ],
@@ -124,3 +125,28 @@ def test_a_sweep_point_compiles_its_hamiltonian_once(
     fm.run_sweep(model, [{"U": 1.0}, {"U": 2.0}])
     repeated = {key: n for key, n in compiled.items() if n > 1}
     assert repeated == {}, repeated
+
+
+KERR = 0.5 * sum(fm.raising(i) ** 2 * fm.lowering(i) ** 2 for i in range(L))
+KINETIC = -(HOP + HOP.adjoint())
+
+
+@pytest.mark.parametrize("prepared", [False, True])
+def test_time_dependent_parts_compile_once_each(
+    prepared: bool, compiled: collections.Counter[str]
+) -> None:
+    # H(t) = H0 + U(t) Kerr + sin(t) n0: each part once per call (none when prepared),
+    # however many steps and exponentials the integrator takes.
+    psi = _ground()
+    parts = [KINETIC, KERR, fm.number(0)]
+    given = [fm.prepare(p, SPACE) for p in parts] if prepared else parts
+    H = fm.TimeDependent(
+        given[0], [(given[1], fm.piecewise_linear([0, 1], [1, 3])), (given[2], np.sin)]
+    )
+    compiled.clear()
+    ev = fm.evolve(H, SPACE, psi0=psi, times=[0.0, 0.5, 1.5], observables={"n1": fm.number(1)})
+    assert ev.steps > 2
+    for p in parts:
+        assert compiled[f"{p!s} @ {SPACE.dim}->"] == (0 if prepared else 1), compiled
+    assert compiled[f"{fm.number(1)!s} @ {SPACE.dim}->"] == 1, compiled
+    assert sum(compiled.values()) == (1 if prepared else 4), compiled

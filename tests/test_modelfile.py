@@ -50,6 +50,7 @@ def test_every_example_is_covered() -> None:
         "kerr_trimer.toml",
         "kerr_trimer_thermal.toml",
         "polariton_chain.toml",
+        "ring_interaction_ramp.toml",
         "ring_kerr_crossover.toml",
         "ring_momentum_bands.toml",
         "ring_photon_removal.toml",

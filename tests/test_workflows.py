@@ -166,6 +166,7 @@ def test_grids_accept_a_table_with_geometric_spacing() -> None:
     [
         ("kerr_oscillator_revival.toml", "quench"),
         ("dimer_interaction_quench.toml", "quench"),
+        ("ring_interaction_ramp.toml", "quench"),
         ("ring_photon_removal.toml", "spectrum"),
         ("kerr_trimer_thermal.toml", "thermal"),
     ],
@@ -691,6 +692,7 @@ def one_line_error(err: str, *fragments: str) -> None:
     ("command", "example", "words"),
     [
         ("quench", "dimer_interaction_quench.toml", ["initial", "ground state at U=0"]),
+        ("quench", "ring_interaction_ramp.toml", ["ramp U", "(ramped)"]),
         ("spectrum", "ring_photon_removal.toml", ["poles", "removes 1 quantum"]),
         ("thermal", "kerr_trimer_thermal.toml", ["heat_capacity", "method", "exact"]),
     ],

@@ -26,7 +26,8 @@ entanglement_entropy, top_level_weights
 converge_cutoffs, CutoffScan, CutoffWarning
     Truncation diagnostics.
 evolve, Evolution, spectral_function, spectral_poles, SpectralPoles, thermal, Thermal
-    Time evolution, spectral functions and thermal averages (``build_matrix``,
+    Time evolution (also under ``TimeDependent`` Hamiltonians, with coefficients such
+    as ``piecewise_linear`` ramps), spectral functions and thermal averages (``build_matrix``,
     ``build_operator`` and ``prepare`` take ``target=`` for operators between sectors).
 density_correlations
     ``⟨n_i n_j⟩`` for every pair of modes in one pass.
@@ -61,9 +62,12 @@ from fockmill.algebra import (
 )
 from fockmill.dynamics import (
     Evolution,
+    PiecewiseLinear,
     SpectralPoles,
     Thermal,
+    TimeDependent,
     evolve,
+    piecewise_linear,
     spectral_function,
     spectral_poles,
     thermal,
@@ -142,6 +146,7 @@ __all__ = [
     "Model",
     "ModelFile",
     "ModelFileError",
+    "PiecewiseLinear",
     "PointResult",
     "Problem",
     "ResultsStore",
@@ -153,6 +158,7 @@ __all__ = [
     "SweepTable",
     "SymmetricSpace",
     "Thermal",
+    "TimeDependent",
     "WorkflowResult",
     "__version__",
     "available_memory",
@@ -181,6 +187,7 @@ __all__ = [
     "one_body_matrix",
     "parse_model_text",
     "parse_terms",
+    "piecewise_linear",
     "plot_dispersion",
     "plot_sweep",
     "plot_workflow",

@@ -194,9 +194,20 @@ def _quench_text(result: WorkflowResult, rows: int | None) -> list[str]:
         )
     )
     energy = result.arrays["energy"]
-    entries.append(
-        ("energy", f"⟨H⟩ = {_number(energy[0])} (drift {summary.get('energy_drift', 0):.1e})")
-    )
+    ramps = settings.get("ramps") or {}
+    for name, table in ramps.items():
+        points = ", ".join(
+            f"({t:g}, {v:g})" for t, v in zip(table["times"], table["values"], strict=True)
+        )
+        entries.append((f"ramp {name}", f"piecewise linear through (t, value) = {points}"))
+    if ramps:
+        entries.append(
+            ("energy", f"⟨H(t)⟩ from {_number(energy[0])} to {_number(energy[-1])} (ramped)")
+        )
+    else:
+        entries.append(
+            ("energy", f"⟨H⟩ = {_number(energy[0])} (drift {summary.get('energy_drift', 0):.1e})")
+        )
     entries.append(("seconds", f"{summary.get('seconds', 0):.3f}"))
     columns = ["t"]
     if "populations" in result.arrays:

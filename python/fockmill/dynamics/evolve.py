@@ -14,6 +14,8 @@ import numpy.typing as npt
 import scipy.linalg as sla
 
 from fockmill.algebra.expressions import LadderExpr
+from fockmill.dynamics.cfqm import Integrator
+from fockmill.dynamics.drive import TimeDependent
 from fockmill.dynamics.krylov import (
     as_float_array,
     check_common,
@@ -25,8 +27,20 @@ from fockmill.dynamics.krylov import (
     warn_tolerance_not_met,
     warn_top_weights,
 )
-from fockmill.exceptions import ConvergenceError, SizeLimitError
-from fockmill.problem.problem import Problem, prepare_observables, problem_and_arguments
+from fockmill.exceptions import (
+    ChargeError,
+    ConvergenceError,
+    ModeIndexError,
+    SizeLimitError,
+    SymmetryError,
+)
+from fockmill.problem.problem import (
+    Problem,
+    as_problem,
+    prepare,
+    prepare_observables,
+    problem_and_arguments,
+)
 from fockmill.settings.signatures import options_were_positional
 from fockmill.settings.threads import blas_threads
 
@@ -175,7 +189,7 @@ class _Propagator:
 
 @options_were_positional(4, ("observables", "keep_states", "tol"))
 def evolve(
-    H: LadderExpr | Problem,
+    H: LadderExpr | Problem | TimeDependent,
     space: Any = None,
     psi0: npt.ArrayLike | None = None,
     times: npt.ArrayLike | None = None,
@@ -188,15 +202,20 @@ def evolve(
     threads: int | None = None,
     memory_limit: int | None = None,
     cutoff_warning: float | None = 1e-6,
+    max_step: float | None = None,
+    _fixed_step: float | None = None,
 ) -> Evolution:
     """Propagate ``ψ(t) = exp(−iHt) ψ(0)`` (ħ = 1) and record observables.
 
     Parameters
     ----------
-    H : LadderExpr or Problem
+    H : LadderExpr, Problem or TimeDependent
         A Hermitian Hamiltonian that conserves the space's sector, or a prepared problem
         (:func:`fockmill.prepare`; then ``space`` is omitted and its compiled operator,
-        thread pool and memory limit are reused: ``evolve(problem, psi0=..., times=...)``).
+        thread pool and memory limit are reused: ``evolve(problem, psi0=..., times=...)``),
+        or a time-dependent Hamiltonian ``H(t) = H0 + Σ_k f_k(t) H_k``
+        (:class:`fockmill.TimeDependent`; see Notes). ``H(t)`` is evaluated at the
+        absolute time ``t`` measured from the state ``psi0`` at ``t = 0``.
     space : FockSpace or SymmetricSpace
         The basis of the state.
     psi0 : array_like
@@ -223,6 +242,17 @@ def evolve(
     cutoff_warning : float or None
         Warn (:class:`~fockmill.exceptions.CutoffWarning`) when a truncating cutoff
         carries more than this weight at any recorded time; None disables it.
+    max_step : float, optional
+        Longest time step of a time-dependent ``H`` (default: none; the step control
+        alone decides). Use it when a coefficient has features narrower than the steps
+        the control would otherwise take (a short pulse between two smooth stretches).
+        Refused for a time-independent ``H``, whose steps are exact up to the Krylov
+        estimate.
+    _fixed_step : float, optional
+        Private (convergence studies and tests): a time-dependent ``H`` is propagated
+        with steps of this length, shortened evenly to land on the recorded times and
+        breakpoints, without step control; ``error_estimate`` then holds the Krylov
+        estimates only.
 
     Returns
     -------
@@ -231,9 +261,16 @@ def evolve(
     Raises
     ------
     ValueError
-        Negative or unsorted times, a wrong-length or unnormalised state, a bad ``tol``.
+        Negative or unsorted times, a wrong-length or unnormalised state, a bad ``tol``;
+        a coefficient of a time-dependent ``H`` returning NaN, inf or a non-real value
+        (the part is named).
     NotHermitianError
         ``H`` is not Hermitian.
+    SymmetryError
+        A part of a time-dependent ``H`` is not invariant on the symmetry sector (named).
+    ConvergenceError
+        The time step of a time-dependent ``H`` shrank to round-off (a jump in a
+        coefficient without a breakpoint, or ``tol`` far too small).
     SizeLimitError
         The Krylov vectors (or the kept states) do not fit in memory.
 
@@ -255,6 +292,23 @@ def evolve(
     ``[0, t_end]``. Requested times inside a step are read off the same Krylov space
     without further products.
 
+    A :class:`~fockmill.TimeDependent` ``H`` is propagated by the fourth-order
+    commutator-free exponential integrator of Blanes & Moan (2006, Appl. Numer. Math. 56,
+    1519) in the form of Alvermann & Fehske (2011, J. Comput. Phys. 230, 5930): per step
+    ``h``, ``ψ ← exp(−ihA2) exp(−ihA1) ψ`` with ``A1``, ``A2`` fixed combinations of
+    ``H`` at the two Gauss nodes of the step (``fockmill.dynamics.cfqm``). Each part is
+    compiled once; ``A ψ`` is ``Σ_k c_k (H_k ψ)`` from the parts' products, and each
+    exponential is a Krylov exponential grown until its estimate is below
+    ``0.05 · tol · h / t_end``. The step is controlled by step doubling: one step of
+    ``h`` against two of ``h/2``, whose difference over ``2⁴ − 1`` estimates the error
+    of the two half steps (Hairer, Nørsett & Wanner 1993, Sec. II.4), which are kept
+    when that estimate is at most ``0.5 · tol · h / t_end``; the next step is
+    ``h · min(4, 0.9 (allowed/estimate)^(1/4))``. Steps end exactly on every requested
+    time and on every breakpoint of the coefficients (:func:`fockmill.piecewise_linear`).
+    ``steps`` counts accepted steps, ``products`` the products with ``H(t)`` (each one
+    product with every part whose coefficient is not zero), including rejected steps;
+    ``error_estimate`` sums the step-doubling and Krylov estimates.
+
     Examples
     --------
     >>> import numpy as np, fockmill as fm
@@ -267,6 +321,29 @@ def evolve(
     """
     t_start = time.perf_counter()
     threads, memory_limit = check_common(threads, memory_limit)
+    if isinstance(H, TimeDependent):
+        return _evolve_time_dependent(
+            H,
+            space,
+            psi0,
+            times,
+            observables=observables,
+            keep_states=keep_states,
+            tol=tol,
+            krylov_dim=krylov_dim,
+            method=method,
+            threads=threads,
+            memory_limit=memory_limit,
+            cutoff_warning=cutoff_warning,
+            max_step=max_step,
+            fixed_step=_fixed_step,
+            t_start=t_start,
+        )
+    if max_step is not None or _fixed_step is not None:
+        raise TypeError(
+            "max_step applies to a time-dependent Hamiltonian (fm.TimeDependent) only; "
+            "the steps of a time-independent one are set by the Krylov error estimate"
+        )
     problem, (psi0, times) = problem_and_arguments(
         H, space, (psi0, times), threads=threads, memory_limit=memory_limit
     )
@@ -375,5 +452,212 @@ def evolve(
         products=hmap.products,
         method=hmap.method,
         error_estimate=error_sum,
+        seconds=time.perf_counter() - t_start,
+    )
+
+
+# -- time-dependent Hamiltonians ------------------------------------------------------------
+
+
+def _driven_space(H: TimeDependent, space: Any) -> Any:
+    """The space of a time-dependent call: ``space``, else that of a prepared part."""
+    if space is not None:
+        return space
+    for part in (H.H0, *(p for p, _ in H.parts)):
+        if isinstance(part, Problem):
+            return part.space
+    raise TypeError(
+        "missing the space: evolve(fm.TimeDependent(...), space, psi0=..., times=...) "
+        "(or prepare one of the parts with fm.prepare(expr, space))"
+    )
+
+
+def _compile_part(
+    part: Any,
+    what: str,
+    space: Any,
+    host: Problem | None,
+    threads: int | None = None,
+    memory_limit: int | None = None,
+) -> Problem:
+    """One part compiled on ``space`` (once; a prepared part is reused), sharing the
+    thread pool of ``host``; a part leaving the sector is refused, naming the part."""
+    from fockmill.spaces.symmetry import SymmetricSpace
+
+    if isinstance(part, Problem):
+        if part.space != space:
+            raise ValueError(
+                f"{what} is prepared on another space ({part.space!r}) than the state's "
+                f"({space!r}); prepare every part on the same space"
+            )
+        return part
+    if isinstance(space, SymmetricSpace):
+        try:
+            space.check_invariant(part)
+        except SymmetryError as error:
+            raise SymmetryError(
+                f"{what} is not invariant under the symmetry of the sector, so H(t) would "
+                f"leave it: {error}"
+            ) from None
+    try:
+        if host is None:  # the constant part: it starts the thread pool the others share
+            return prepare(part, space, threads=threads, memory_limit=memory_limit)
+        return Problem._from_parts(part, space, pool=host.pool, threads=host.threads)
+    except (ChargeError, ModeIndexError) as error:
+        raise type(error)(f"{what}: {error}") from None
+
+
+def _driven_maps(
+    problems: list[Problem], vectors: int, method: str, memory_limit: int | None
+) -> list[Any]:
+    """The parts' products, all stored or all matrix-free (decided on their sum)."""
+    from fockmill.dynamics.krylov import MEMORY_BUDGET
+    from fockmill.problem.memory import available_memory
+
+    if method not in ("auto", "csr", "operator"):
+        raise ValueError(f"method must be 'auto', 'csr' or 'operator'; got {method!r}")
+    if method == "auto":
+        dim = problems[0].dim
+        limit = memory_limit if memory_limit is not None else available_memory()
+        budget = float("inf") if limit is None else MEMORY_BUDGET * limit
+        stored = sum(p.estimate.csr_bytes for p in problems)
+        peak = max(p.estimate.build_peak_bytes - p.estimate.csr_bytes for p in problems)
+        method = "csr" if stored + peak + vectors * 16 * dim <= budget else "operator"
+    return [hermitian_map(p, vectors=vectors, method=method) for p in problems]
+
+
+def _evolve_time_dependent(
+    H: TimeDependent,
+    space: Any,
+    psi0: Any,
+    times: Any,
+    *,
+    observables: Mapping[str, LadderExpr] | None,
+    keep_states: bool,
+    tol: float,
+    krylov_dim: int | None,
+    method: str,
+    threads: int | None,
+    memory_limit: int | None,
+    cutoff_warning: float | None,
+    max_step: float | None,
+    fixed_step: float | None,
+    t_start: float,
+) -> Evolution:
+    """:func:`evolve` for ``H(t) = H0 + Σ_k f_k(t) H_k`` (see its Notes)."""
+    from fockmill.spaces.checks import check_space
+
+    space = check_space(_driven_space(H, space))
+    if psi0 is None or times is None:
+        raise TypeError("evolve needs psi0= (the state at t = 0) and times=")
+    t = _check_times(times)
+    tol = check_positive(tol, "tol", "1e-10")
+    if max_step is not None:
+        max_step = check_positive(max_step, "max_step", "0.1")
+    if fixed_step is not None:
+        fixed_step = check_positive(fixed_step, "_fixed_step", "0.01")
+    if krylov_dim is not None:
+        if isinstance(krylov_dim, bool) or not isinstance(krylov_dim, numbers.Integral):
+            raise TypeError(f"krylov_dim must be an integer >= 2 or None; got {krylov_dim!r}")
+        if krylov_dim < 2:
+            raise ValueError(f"krylov_dim must be >= 2; got {krylov_dim}")
+    if not isinstance(keep_states, bool | np.bool_):
+        raise TypeError(f"keep_states must be True or False; got {keep_states!r}")
+    # Every coefficient is evaluated once before any work, so a bad one fails at once.
+    H.coefficients(0.0)
+    if isinstance(H.H0, Problem):
+        if H.H0.space != space:
+            raise ValueError(
+                f"H0 (the constant part) is prepared on another space ({H.H0.space!r}) than "
+                f"the state's ({space!r}); prepare every part on the same space"
+            )
+        host = as_problem(H.H0, space, threads=threads, memory_limit=memory_limit)
+    else:
+        host = _compile_part(H.H0, "H0 (the constant part)", space, None, threads, memory_limit)
+    problems = [host]
+    for k, (part, _) in enumerate(H.parts, start=1):
+        what = f"part {k} (H_{k}) of the time-dependent Hamiltonian"
+        problems.append(_compile_part(part, what, space, host))
+    memory_limit = host.memory_limit
+    psi = check_state(space, psi0, "psi0").astype(np.complex128)
+    obs = prepare_observables(observables, host)
+    dim = psi.shape[0]
+    if krylov_dim is None:
+        krylov_dim = _default_krylov_dim(dim, memory_limit)
+    m = int(min(krylov_dim, dim))
+    # Krylov basis, ψ and the three trial states of a doubled step, products in flight.
+    kept = dim * t.size * 16 if keep_states else 0
+    vectors = m + 8 + -(-kept // max(16 * dim, 1))
+    # Parts that are zero (say H0 = 0) cost no products.
+    used = [k for k, p in enumerate(problems) if not p.expr.is_zero()]
+    maps = _driven_maps([problems[k] for k in used], vectors, method, memory_limit)
+    states = np.zeros((dim, t.size), dtype=np.complex128) if keep_states else None
+    hermitian = {name: o.expr.is_hermitian() for name, o in obs.items()}
+    measure = {name: expectation_function(o) for name, o in obs.items()}
+    raw: dict[str, list[complex]] = {name: [] for name in obs}
+    weights_max = None
+
+    def record(k: int, state: npt.NDArray[np.complex128]) -> None:
+        nonlocal weights_max
+        for name, f in measure.items():
+            raw[name].append(f(state))
+        if states is not None:
+            states[:, k] = state
+        w = top_weights(space, state, host.pool)
+        weights_max = w if weights_max is None else np.fmax(weights_max, w)
+
+    def coefficients(time_: float) -> list[float]:
+        every = [1.0, *H.coefficients(time_)]
+        return [every[k] for k in used]
+
+    t_end = float(t[-1])
+    stops = sorted({float(x) for x in t if x > 0} | {b for b in H.breakpoints() if 0 < b < t_end})
+    try:
+        integrator = Integrator(
+            maps,
+            coefficients,
+            dim=dim,
+            krylov_dim=m,
+            tol=tol,
+            t_end=max(t_end, 1e-300),
+            max_step=max_step,
+            fixed_step=fixed_step,
+            reorthogonalize=m * dim <= REORTHOGONALIZE_MAX,
+        )
+    except MemoryError:
+        raise SizeLimitError(
+            f"the Krylov basis of {m} vectors of {dim:,} states does not fit; lower krylov_dim"
+        ) from None
+    now = 0.0
+    k = 0
+    while k < t.size and t[k] <= now:
+        record(k, psi)
+        k += 1
+    with blas_threads(1):  # many small vector operations: see fockmill.settings.threads
+        for stop in stops:
+            psi = integrator.advance(psi, now, stop)
+            now = stop
+            while k < t.size and t[k] <= now:
+                record(k, psi)
+                k += 1
+    values: dict[str, npt.NDArray[Any]] = {}
+    for name, series in raw.items():
+        arr = np.asarray(series, dtype=np.complex128)
+        values[name] = arr.real.copy() if hermitian[name] else arr
+    assert weights_max is not None
+    warn_top_weights(space, weights_max, cutoff_warning, "the evolving state")
+    count = integrator.count
+    if fixed_step is None:
+        warn_tolerance_not_met(tol, count.error, "evolve")
+    return Evolution(
+        times=t,
+        values=values,
+        states=states,
+        final=psi.copy(),
+        top_weights=weights_max,
+        steps=count.steps,
+        products=count.products,
+        method=maps[0].method if maps else "operator",
+        error_estimate=float(count.error),
         seconds=time.perf_counter() - t_start,
     )

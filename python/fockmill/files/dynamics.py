@@ -13,7 +13,11 @@ description of every key is in ``docs/model-files.md``; in short:
     or ``[re, im]`` per mode; only without a conserved total) or ``"ground"``
     (``parameters = {NAME = value}``: the ground state with these values changed);
     ``[quench.observables]`` ``NAME = "term"`` or ``["term", ...]`` (summed), in the
-    term syntax of ``[terms]``. The state evolves under the model at ``[parameters]``.
+    term syntax of ``[terms]``; ``[quench.ramp.NAME]`` with ``times`` (>= 0, strictly
+    increasing, at least two) and ``values``: the parameter NAME follows that
+    piecewise-linear table during the evolution (constant before the first and after
+    the last time). The state evolves under the model at ``[parameters]``, with ramped
+    parameters replaced by their ramps.
 ``[spectrum]``
     ``operator`` (term string or array of them, summed; it may change the number of
     quanta by one fixed amount, then H acts on the sector it lands in), ``omegas``
@@ -156,6 +160,9 @@ class QuenchSpec:
         Record ``⟨n_i⟩`` of every mode.
     tol : float
         Accuracy of the propagated state in norm over the whole interval.
+    ramps : dict of str to (tuple of float, tuple of float)
+        Parameter name -> ``(times, values)`` of its piecewise-linear ramp
+        (``[quench.ramp.NAME]``); empty for a sudden quench.
     """
 
     initial: InitialState
@@ -164,6 +171,7 @@ class QuenchSpec:
     texts: dict[str, tuple[str, ...]] = field(default_factory=dict)
     populations: bool = True
     tol: float = 1e-8
+    ramps: dict[str, tuple[tuple[float, ...], tuple[float, ...]]] = field(default_factory=dict)
 
 
 @dataclass(frozen=True)
@@ -393,11 +401,63 @@ def _initial(reader: Reader, value: object, model: Model) -> InitialState:
     return InitialState(kind, parameters=values)
 
 
+#: Most points in one ramp table.
+MAX_RAMP_POINTS = 100_000
+
+
+def _ramps(
+    reader: Reader, value: object, model: Model
+) -> dict[str, tuple[tuple[float, ...], tuple[float, ...]]]:
+    """``[quench.ramp]``: one piecewise-linear table per ramped parameter."""
+    path = "quench.ramp"
+    table = reader.table(value, path)
+    if not table:
+        reader.fail(path, "empty; add [quench.ramp.NAME] with times and values, or drop it")
+    reader.check_keys(table, path, list(model.parameters), hint=f" for model {model.name!r}")
+    out: dict[str, tuple[tuple[float, ...], tuple[float, ...]]] = {}
+    for name, raw in table.items():
+        where = join_key(path, name)
+        ramp = reader.table(raw, where)
+        reader.check_keys(ramp, where, ["times", "values"])
+        columns: dict[str, tuple[float, ...]] = {}
+        for key in ("times", "values"):
+            spot = join_key(where, key)
+            items = reader.array(
+                reader.required(ramp, key, where, "an array of numbers"), spot, "numbers"
+            )
+            if len(items) > MAX_RAMP_POINTS:
+                reader.fail(spot, f"expected at most {MAX_RAMP_POINTS:,} points; got {len(items)}")
+            columns[key] = tuple(reader.number(v, join_key(spot, k)) for k, v in enumerate(items))
+        times, values = columns["times"], columns["values"]
+        if len(times) < 2:
+            reader.fail(join_key(where, "times"), "a ramp needs at least two points")
+        if len(values) != len(times):
+            reader.fail(
+                join_key(where, "values"),
+                f"expected one value per time ({len(times)}); got {len(values)}",
+            )
+        if times[0] < 0:
+            reader.fail(
+                join_key(where, "times"),
+                f"times must be >= 0 (the initial state is at t = 0); got {times[0]:g}",
+            )
+        for k in range(1, len(times)):
+            if times[k] <= times[k - 1]:
+                reader.fail(
+                    join_key(join_key(where, "times"), k),
+                    f"times must be strictly increasing; {times[k]:g} follows {times[k - 1]:g}",
+                )
+        out[name] = (times, values)
+    return out
+
+
 def _quench(reader: Reader, value: object, model: Model) -> QuenchSpec:
 
     path = "quench"
     table = reader.table(value, path)
-    reader.check_keys(table, path, ["initial", "times", "observables", "populations", "tol"])
+    reader.check_keys(
+        table, path, ["initial", "times", "observables", "populations", "tol", "ramp"]
+    )
     initial = _initial(reader, reader.required(table, "initial", path, "a table"), model)
     where = join_key(path, "times")
     times = _grid(reader, reader.required(table, "times", path, "an array of times"), where)
@@ -424,6 +484,7 @@ def _quench(reader: Reader, value: object, model: Model) -> QuenchSpec:
         texts=texts,
         populations=populations,
         tol=_positive(reader, table, "tol", path, 1e-8, upper=1.0),
+        ramps=_ramps(reader, table["ramp"], model) if "ramp" in table else {},
     )
 
 
