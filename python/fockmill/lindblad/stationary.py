@@ -24,9 +24,6 @@ __all__ = ["StationaryState", "choose_stationary_method", "stationary_state"]
 #: Dense Liouvillian (singular values for the null space, then a dense solve) up to this
 #: many density-matrix entries ``n = Σ_b d_b²`` (a ``n × n`` complex matrix: 13 MB).
 DENSE_MAX = 900
-#: Sparse LU of the stored Liouvillian up to this many entries; beyond, or when its
-#: estimated factor does not fit, the matrix-free iterative solve.
-SPARSE_MAX = 40_000
 #: Singular values below this fraction of the largest count as zero (dense method).
 NULL_TOL = 1e-9
 
@@ -122,14 +119,15 @@ class StationaryState:
         return nn / n**2 if n > 0 else float("nan")
 
 
-def choose_stationary_method(size: int, memory_limit: int | None = None) -> str:
+def choose_stationary_method(size: int) -> str:
     """The method ``"auto"`` picks for ``size = Σ_b d_b²`` density-matrix entries:
-    ``"dense"`` up to ``DENSE_MAX``, ``"sparse"`` up to ``SPARSE_MAX``, else
-    ``"iterative"``."""
+    ``"dense"`` up to ``DENSE_MAX``, else ``"iterative"``.
+
+    The sparse LU is never picked: its fill-in made it slower than the iterative solve
+    at every size measured (n = 4096: 4.4 s against 0.2 s; n = 10⁴: 12 s; n = 6 × 10⁴:
+    over 5 minutes), see benchmarks/bench_lindblad.py."""
     if size <= DENSE_MAX:
         return "dense"
-    if size <= SPARSE_MAX:
-        return "sparse"
     return "iterative"
 
 
@@ -271,18 +269,23 @@ def _solve_iterative(
         nonlocal count
         count += 1
 
-    x, info = gmres(
-        a,
-        scale * e,
-        x0=x0,
-        rtol=tol,
-        atol=0.0,
-        restart=restart,
-        maxiter=max(1, max_iterations // restart),
-        M=m,
-        callback=callback,
-        callback_type="pr_norm",
-    )
+    from fockmill.settings.threads import blas_threads
+
+    # GMRES's many vector operations on a shared machine: one BLAS thread is several
+    # times faster than several (measured, see benchmarks/bench_lindblad.py).
+    with blas_threads(1):
+        x, info = gmres(
+            a,
+            scale * e,
+            x0=x0,
+            rtol=tol,
+            atol=0.0,
+            restart=restart,
+            maxiter=max(1, max_iterations // restart),
+            M=m,
+            callback=callback,
+            callback_type="pr_norm",
+        )
     if info != 0:
         rel = np.linalg.norm(apply(x) - scale * e) / (scale * np.linalg.norm(e))
         raise ConvergenceError(
@@ -354,13 +357,18 @@ def stationary_state(
     singular values (more than one: :class:`~fockmill.exceptions.NotUniqueError`) and
     solves ``(𝓛 + s e tᵀ) ρ = s e`` where ``t`` is the trace functional and ``e`` the
     identity divided by the dimension (the trace of ``𝓛ρ`` vanishes, so the solution
-    has ``Tr ρ = 1`` and ``𝓛ρ = 0``); ``"sparse"`` solves the same system by sparse LU
-    and checks uniqueness with a second trace condition; ``"iterative"`` runs
+    has ``Tr ρ = 1`` and ``𝓛ρ = 0``); ``"sparse"`` (only on request) solves the same
+    system by sparse LU and checks uniqueness with a second trace condition;
+    ``"iterative"`` runs
     preconditioned GMRES (preconditioner: the Liouvillian's diagonal) on the real space
     of Hermitian matrices, with every Liouvillian application done by the compiled
     block products, never storing the superoperator. ``"auto"`` picks by the number of
-    density-matrix entries ``n = Σ_b d_b²``: dense up to ``DENSE_MAX`` = 900, sparse
-    up to ``SPARSE_MAX`` = 40000, iterative beyond.
+    density-matrix entries ``n = Σ_b d_b²``: dense up to ``DENSE_MAX`` = 900,
+    iterative beyond (the sparse LU's fill-in made it slower at every size measured).
+    The iterative method cannot prove uniqueness: a non-unique stationary state shows
+    as a solve that does not converge (:class:`~fockmill.exceptions.ConvergenceError`)
+    or converges to one of the stationary states; check a smaller cutoff with
+    ``method="dense"`` when in doubt.
 
     Number sectors: when ``H`` conserves the weighted number of quanta ``N`` and every
     jump changes it by a fixed amount ``c_k``, the Liouvillian commutes with the
