@@ -171,6 +171,7 @@ def main() -> None:
         ["stationary", "pumped", "4", "3", "auto"],
         ["stationary", "pumped", "5", "3", "auto"],
         ["stationary", "pumped", "6", "2", "auto"],
+        ["stationary", "pumped", "6", "3", "auto"],
     ]
     rows = [run(c, 11) for c in cases]
     print(

@@ -98,7 +98,7 @@ def jump(operator: Any, rate: float) -> Jump:
     --------
     >>> import fockmill as fm
     >>> fm.jump(fm.lowering(0) - fm.lowering(1), 0.2)   # loss of an antisymmetric mode
-    Jump(jump: L = a0 - a1, rate = 0.2)
+    Jump(jump: L = 1.0·a0 - 1.0·a1, rate = 0.2)
     """
     return Jump(as_expr(operator), rate, "jump")
 
@@ -114,7 +114,7 @@ def loss(i: int, rate: float) -> Jump:
     --------
     >>> import fockmill as fm
     >>> fm.loss(0, 1.0)
-    Jump(loss(0): L = a0, rate = 1)
+    Jump(loss(0): L = 1.0·a0, rate = 1)
     """
     m = _mode(i)
     return Jump(lowering(m), rate, f"loss({m})")

@@ -383,7 +383,7 @@ def stationary_state(
     >>> space = fm.FockSpace(modes=1, cutoff=12)
     >>> h = fm.number(0) + 0.3 * (fm.lowering(0) + fm.raising(0))  # invented values
     >>> ss = fm.stationary_state(h, space, [fm.loss(0, 1.0)])
-    >>> round(ss.populations[0], 6)    # |F / (Δ − iκ/2)|² = 0.09 / 1.25
+    >>> round(float(ss.populations[0]), 6)    # |F / (Δ − iκ/2)|² = 0.09 / 1.25
     0.072
     """
     from fockmill.problem.problem import Problem, _is_space
