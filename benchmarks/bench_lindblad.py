@@ -42,7 +42,9 @@ def load() -> str:
     return os.getloadavg().__repr__()
 
 
-def stationary(kind: str, sites: int, cutoff: int, method: str) -> list[str]:
+def stationary(
+    kind: str, sites: int, cutoff: int, method: str, preconditioner: str = "auto"
+) -> list[str]:
     space = fm.FockSpace(modes=sites, cutoff=cutoff)
     if kind == "driven":
         h = chain(sites, F)
@@ -52,7 +54,15 @@ def stationary(kind: str, sites: int, cutoff: int, method: str) -> list[str]:
         jumps = [fm.loss(i, KAPPA) for i in range(sites)] + [fm.pump(0, PUMP)]
     before = load()
     t0 = time.perf_counter()
-    ss = fm.stationary_state(h, space, jumps, method=method, tol=1e-8, max_iterations=4000)
+    ss = fm.stationary_state(
+        h,
+        space,
+        jumps,
+        method=method,
+        tol=1e-8,
+        max_iterations=4000,
+        preconditioner=preconditioner,
+    )
     seconds = time.perf_counter() - t0
     n = sum(b.shape[0] ** 2 for b in ss.blocks)
     return [
@@ -152,7 +162,7 @@ def main() -> None:
     if len(sys.argv) > 1:
         case, *rest = sys.argv[1:]
         if case == "stationary":
-            row = stationary(rest[0], int(rest[1]), int(rest[2]), rest[3])
+            row = stationary(rest[0], int(rest[1]), int(rest[2]), *rest[3:])
         elif case == "apply":
             row = apply_once(int(rest[0]), int(rest[1]))
         else:
@@ -166,6 +176,8 @@ def main() -> None:
         ["stationary", "driven", "4", "2", "iterative"],
         ["stationary", "driven", "4", "3", "iterative"],
         ["stationary", "driven", "5", "2", "iterative"],
+        ["stationary", "driven", "4", "3", "iterative", "diagonal"],
+        ["stationary", "driven", "5", "3", "iterative"],
         ["apply", "5", "3"],
         ["apply", "6", "3"],
         ["stationary", "pumped", "4", "3", "auto"],
