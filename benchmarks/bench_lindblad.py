@@ -5,7 +5,8 @@ loss κ = 1 on every site; pumping 0.2 on site 0 for the number-conserving chain
 Every case runs in a fresh process (``python bench_lindblad.py CASE ARGS``) and prints
 one table row with the load average (``uptime``) measured right before it.
 
-    python benchmarks/bench_lindblad.py            # the default table (minutes)
+    python benchmarks/bench_lindblad.py                   # both tables (minutes)
+    python benchmarks/bench_lindblad.py --trajectories    # the trajectory table only
 """
 
 from __future__ import annotations
@@ -143,6 +144,10 @@ def trajectories(sites: int, cutoff: int, count: int, workers: int) -> list[str]
     ]
 
 
+def print_table(headers: list[str], rows: list[list[str]]) -> None:
+    print(table(headers, rows), flush=True)
+
+
 def run(args: list[str], width: int) -> list[str]:
     """One case in a fresh process; its row padded to ``width`` columns."""
     row = _run(args)
@@ -159,7 +164,8 @@ def _run(args: list[str]) -> list[str]:
 
 
 def main() -> None:
-    if len(sys.argv) > 1:
+    only_trajectories = sys.argv[1:] == ["--trajectories"]
+    if len(sys.argv) > 1 and not only_trajectories:
         case, *rest = sys.argv[1:]
         if case == "stationary":
             row = stationary(rest[0], int(rest[1]), int(rest[2]), *rest[3:])
@@ -185,9 +191,9 @@ def main() -> None:
         ["stationary", "pumped", "6", "2", "auto"],
         ["stationary", "pumped", "6", "3", "auto"],
     ]
-    rows = [run(c, 11) for c in cases]
-    print(
-        table(
+    rows = [] if only_trajectories else [run(c, 11) for c in cases]
+    if rows:
+        print_table(
             [
                 "chain",
                 "sites x cutoff",
@@ -203,12 +209,13 @@ def main() -> None:
             ],
             rows,
         )
-    )
     traj = [
         ["traj", "6", "2", "40", "0"],
         ["traj", "6", "2", "40", "2"],
         ["traj", "8", "2", "8", "0"],
         ["traj", "8", "2", "8", "2"],
+        ["traj", "10", "2", "8", "0"],
+        ["traj", "10", "2", "8", "2"],
     ]
     rows = [run(c, 8) for c in traj]
     print()

@@ -109,6 +109,14 @@ class _Runner:
         return out  # type: ignore[no-any-return]
 
     def run(self, index: int) -> tuple[dict[str, npt.NDArray[np.complex128]], int]:
+        """One trajectory; its values at every time and its number of jumps."""
+        from fockmill.settings.threads import blas_threads
+
+        # Many small vector operations per step: one BLAS thread (see evolve).
+        with blas_threads(1):
+            return self._run(index)
+
+    def _run(self, index: int) -> tuple[dict[str, npt.NDArray[np.complex128]], int]:
         from scipy.integrate import DOP853
 
         task = self.task
