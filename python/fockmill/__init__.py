@@ -43,6 +43,10 @@ load_model_file, parse_model_text, ModelFile, SweepGrid, ModelFileError
     Model files in TOML.
 run_sweep, SweepTable, PointResult, ResultsStore, StoreError, plot_sweep, plot_dispersion
     Parameter sweeps (process pool, any Executor, Dask), resumable SQLite results, plots.
+jump, loss, pump, dephasing, Jump, stationary_state, StationaryState, evolve_density,
+DensityEvolution, sample_trajectories, Trajectories
+    Open systems (Lindblad master equation): jumps with explicit rates, stationary
+    states, density-matrix evolution and quantum-jump trajectories.
 run_quench, run_spectrum, run_thermal, WorkflowResult, read_workflow_results,
 write_workflow_results, plot_workflow
     The ``[quench]``, ``[spectrum]`` and ``[thermal]`` sections of a model file:
@@ -74,6 +78,19 @@ from fockmill.dynamics import (
 )
 from fockmill.exceptions import AccuracyWarning, CutoffWarning, StateFileError
 from fockmill.files import ModelFile, ModelFileError, load_model_file, parse_model_text
+from fockmill.lindblad import (
+    DensityEvolution,
+    Jump,
+    StationaryState,
+    Trajectories,
+    dephasing,
+    evolve_density,
+    jump,
+    loss,
+    pump,
+    sample_trajectories,
+    stationary_state,
+)
 from fockmill.models import Model
 from fockmill.observables import (
     SavedState,
@@ -134,10 +151,12 @@ __all__ = [
     "AccuracyWarning",
     "CutoffScan",
     "CutoffWarning",
+    "DensityEvolution",
     "Dispersion",
     "Evolution",
     "FockSpace",
     "GroundState",
+    "Jump",
     "LadderExpr",
     "LadderOperator",
     "Levels",
@@ -153,12 +172,14 @@ __all__ = [
     "SavedState",
     "SpectralPoles",
     "StateFileError",
+    "StationaryState",
     "StoreError",
     "SweepGrid",
     "SweepTable",
     "SymmetricSpace",
     "Thermal",
     "TimeDependent",
+    "Trajectories",
     "WorkflowResult",
     "__version__",
     "available_memory",
@@ -167,16 +188,20 @@ __all__ = [
     "choose_method",
     "converge_cutoffs",
     "density_correlations",
+    "dephasing",
     "entanglement_entropy",
     "estimate_memory",
     "evolve",
+    "evolve_density",
     "exceptions",
     "expectation",
     "format_monomial",
     "ground_state",
     "identity",
+    "jump",
     "load_model_file",
     "load_state",
+    "loss",
     "lowering",
     "lowest_levels",
     "models",
@@ -193,6 +218,7 @@ __all__ = [
     "plot_workflow",
     "populations",
     "prepare",
+    "pump",
     "raising",
     "read_workflow_results",
     "ring_reflection",
@@ -201,9 +227,11 @@ __all__ = [
     "run_spectrum",
     "run_sweep",
     "run_thermal",
+    "sample_trajectories",
     "save_state",
     "spectral_function",
     "spectral_poles",
+    "stationary_state",
     "thermal",
     "top_level_weights",
     "torus_translations",

@@ -16,6 +16,7 @@ __all__ = [
     "ModeIndexError",
     "ModelFileError",
     "NotHermitianError",
+    "NotUniqueError",
     "PoolStartError",
     "SizeLimitError",
     "SpaceError",
@@ -52,6 +53,11 @@ class SizeLimitError(MemoryError):
 
 class ConvergenceError(RuntimeError):
     """An iterative eigensolver did not reach its tolerance."""
+
+
+class NotUniqueError(ValueError):
+    """An open system has more than one stationary state (the Liouvillian has several
+    zero modes), so none can be returned as *the* stationary state."""
 
 
 class CutoffWarning(UserWarning):

@@ -1,0 +1,240 @@
+"""Open systems: stationary states and quantum-jump trajectories of lossy Bose–Hubbard
+chains (invented parameters: J = 1, U = 2, μ = 0.5, drive F = 0.3 on every site,
+loss κ = 1 on every site; pumping 0.2 on site 0 for the number-conserving chain).
+
+Every case runs in a fresh process (``python bench_lindblad.py CASE ARGS``) and prints
+one table row with the load average (``uptime``) measured right before it.
+
+    python benchmarks/bench_lindblad.py                   # both tables (minutes)
+    python benchmarks/bench_lindblad.py --trajectories    # the trajectory table only
+"""
+
+from __future__ import annotations
+
+import os
+import subprocess
+import sys
+import time
+
+import fockmill as fm
+import numpy as np
+
+sys.path.insert(0, os.path.dirname(__file__))
+from _common import table
+
+J, U, MU, F, KAPPA, PUMP = 1.0, 2.0, 0.5, 0.3, 1.0, 0.2
+#: Seconds a case may take before it is stopped (the row says so).
+TIMEOUT = 900
+
+
+def chain(sites: int, drive: float) -> fm.LadderExpr:
+    h = fm.LadderExpr()
+    for i in range(sites - 1):
+        h -= J * (fm.raising(i) * fm.lowering(i + 1) + fm.raising(i + 1) * fm.lowering(i))
+    for i in range(sites):
+        h += 0.5 * U * fm.raising(i) * fm.raising(i) * fm.lowering(i) * fm.lowering(i)
+        h -= MU * fm.number(i)
+        if drive:
+            h += drive * (fm.lowering(i) + fm.raising(i))
+    return h
+
+
+def load() -> str:
+    return os.getloadavg().__repr__()
+
+
+def stationary(
+    kind: str, sites: int, cutoff: int, method: str, preconditioner: str = "auto"
+) -> list[str]:
+    space = fm.FockSpace(modes=sites, cutoff=cutoff)
+    if kind == "driven":
+        h = chain(sites, F)
+        jumps = [fm.loss(i, KAPPA) for i in range(sites)]
+    else:
+        h = chain(sites, 0.0)
+        jumps = [fm.loss(i, KAPPA) for i in range(sites)] + [fm.pump(0, PUMP)]
+    before = load()
+    t0 = time.perf_counter()
+    ss = fm.stationary_state(
+        h,
+        space,
+        jumps,
+        method=method,
+        tol=1e-8,
+        max_iterations=4000,
+        preconditioner=preconditioner,
+    )
+    seconds = time.perf_counter() - t0
+    n = sum(b.shape[0] ** 2 for b in ss.blocks)
+    return [
+        kind,
+        f"{sites}x{cutoff}",
+        f"{space.dim:,}",
+        f"{n:,}",
+        f"{space.dim**2:,}",
+        ss.method,
+        str(ss.iterations),
+        f"{seconds:.2f}",
+        f"{ss.residual:.1e}",
+        f"{float(np.mean(ss.populations)):.4f}",
+        before,
+    ]
+
+
+def apply_once(sites: int, cutoff: int) -> list[str]:
+    """One matrix-free Liouvillian application on the whole space (driven chain)."""
+    from fockmill.lindblad.liouvillian import build_liouvillian
+
+    space = fm.FockSpace(modes=sites, cutoff=cutoff)
+    liou = build_liouvillian(chain(sites, F), space, [fm.loss(i, KAPPA) for i in range(sites)])
+    rho = [np.eye(space.dim, dtype=np.complex128) / space.dim]
+    liou.apply(rho)  # builds the stored block matrices once
+    before = load()
+    times = []
+    for _ in range(3):
+        t0 = time.perf_counter()
+        liou.apply(rho)
+        times.append(time.perf_counter() - t0)
+    return [
+        "driven",
+        f"{sites}x{cutoff}",
+        f"{space.dim:,}",
+        "-",
+        f"{space.dim**2:,}",
+        "one 𝓛ρ",
+        "-",
+        f"{float(np.median(times)):.2f}",
+        "-",
+        "-",
+        before,
+    ]
+
+
+def trajectories(sites: int, cutoff: int, count: int, workers: int) -> list[str]:
+    import concurrent.futures as cf
+
+    space = fm.FockSpace(modes=sites, cutoff=cutoff)
+    h = chain(sites, F)
+    jumps = [fm.loss(i, KAPPA) for i in range(sites)]
+    psi0 = np.zeros(space.dim)
+    psi0[0] = 1.0
+    times = np.linspace(0.0, 4.0, 9)
+    obs = {"n0": fm.number(0)}
+    before = load()
+    t0 = time.perf_counter()
+    if workers == 0:
+        tr = fm.sample_trajectories(
+            h, space, psi0, times, jumps, observables=obs, count=count, seed=1
+        )
+    else:
+        with cf.ProcessPoolExecutor(workers) as pool:
+            tr = fm.sample_trajectories(
+                h, space, psi0, times, jumps, observables=obs, count=count, seed=1, executor=pool
+            )
+    seconds = time.perf_counter() - t0
+    return [
+        f"{sites}x{cutoff}",
+        f"{space.dim:,}",
+        str(count),
+        str(workers or "serial"),
+        f"{seconds:.1f}",
+        f"{seconds / count:.2f}",
+        f"{tr.mean['n0'][-1]:.4f} ± {tr.stderr['n0'][-1]:.4f}",
+        before,
+    ]
+
+
+def print_table(headers: list[str], rows: list[list[str]]) -> None:
+    print(table(headers, rows), flush=True)
+
+
+def run(args: list[str], width: int) -> list[str]:
+    """One case in a fresh process; its row padded to ``width`` columns."""
+    row = _run(args)
+    return (row + ["-"] * width)[:width] if len(row) < width else row
+
+
+def _run(args: list[str]) -> list[str]:
+    out = subprocess.run(
+        [sys.executable, __file__, *args], capture_output=True, text=True, check=False
+    )
+    if out.returncode != 0:
+        return [*args, "FAILED: " + out.stderr.strip().splitlines()[-1]]
+    return out.stdout.strip().splitlines()[-1].split("|")
+
+
+def main() -> None:
+    only_trajectories = sys.argv[1:] == ["--trajectories"]
+    if len(sys.argv) > 1 and not only_trajectories:
+        case, *rest = sys.argv[1:]
+        if case == "stationary":
+            row = stationary(rest[0], int(rest[1]), int(rest[2]), *rest[3:])
+        elif case == "apply":
+            row = apply_once(int(rest[0]), int(rest[1]))
+        else:
+            row = trajectories(int(rest[0]), int(rest[1]), int(rest[2]), int(rest[3]))
+        print("|".join(row))
+        return
+    print(f"fockmill {fm.__version__}, {os.cpu_count()} cores, load at start {os.getloadavg()}")
+    cases = [
+        ["stationary", "driven", "3", "2", "dense"],
+        ["stationary", "driven", "3", "3", "iterative"],
+        ["stationary", "driven", "4", "2", "iterative"],
+        ["stationary", "driven", "4", "3", "iterative"],
+        ["stationary", "driven", "5", "2", "iterative"],
+        ["stationary", "driven", "4", "3", "iterative", "diagonal"],
+        ["stationary", "driven", "5", "3", "iterative"],
+        ["apply", "5", "3"],
+        ["apply", "6", "3"],
+        ["stationary", "pumped", "4", "3", "auto"],
+        ["stationary", "pumped", "5", "3", "auto"],
+        ["stationary", "pumped", "6", "2", "auto"],
+        ["stationary", "pumped", "6", "3", "auto"],
+    ]
+    rows = [] if only_trajectories else [run(c, 11) for c in cases]
+    if rows:
+        print_table(
+            [
+                "chain",
+                "sites x cutoff",
+                "states",
+                "unknowns Σd²",
+                "(Σd)²",
+                "method",
+                "iterations",
+                "seconds",
+                "‖𝓛ρ‖",
+                "mean n",
+                "load before",
+            ],
+            rows,
+        )
+    traj = [
+        ["traj", "6", "2", "40", "0"],
+        ["traj", "6", "2", "40", "2"],
+        ["traj", "8", "2", "8", "0"],
+        ["traj", "8", "2", "8", "2"],
+        ["traj", "10", "2", "8", "0"],
+        ["traj", "10", "2", "8", "2"],
+    ]
+    rows = [run(c, 8) for c in traj]
+    print()
+    print(
+        table(
+            [
+                "sites x cutoff",
+                "states",
+                "trajectories",
+                "workers",
+                "seconds",
+                "s / trajectory",
+                "⟨n0⟩(t=4)",
+                "load before",
+            ],
+            rows,
+        )
+    )
+
+
+if __name__ == "__main__":
+    main()

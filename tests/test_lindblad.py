@@ -1,0 +1,421 @@
+"""Open systems: jumps, the Liouvillian, stationary states, density-matrix evolution
+and quantum-jump trajectories, checked against published results and against dense
+Liouvillians built here with numpy (row-major vectorisation, vec(A X B) = (A ⊗ Bᵀ) vec X;
+common practice, no source)."""
+
+from __future__ import annotations
+
+import concurrent.futures as cf
+
+import fockmill as fm
+import numpy as np
+import pytest
+import scipy.linalg as sla
+from fockmill.exceptions import (
+    ChargeError,
+    ModeIndexError,
+    NotHermitianError,
+    NotUniqueError,
+)
+
+# -- an independent dense reference (numpy only) -----------------------------------------
+
+
+def ladder(cutoffs: list[int]) -> list[np.ndarray]:
+    """Truncated annihilation matrices of every mode on the kron product basis."""
+    ops = []
+    for i, c in enumerate(cutoffs):
+        a = np.diag(np.sqrt(np.arange(1, c + 1)), 1).astype(complex)
+        mats = [np.eye(cc + 1) for cc in cutoffs]
+        mats[i] = a
+        out = mats[0]
+        for m in mats[1:]:
+            out = np.kron(out, m)
+        ops.append(out)
+    return ops
+
+
+def dense_liouvillian(h: np.ndarray, jumps: list[tuple[float, np.ndarray]]) -> np.ndarray:
+    d = h.shape[0]
+    eye = np.eye(d)
+    out = -1j * (np.kron(h, eye) - np.kron(eye, h.T))
+    for rate, op in jumps:
+        ld = op.conj().T @ op  # the product of the truncated matrices
+        out += rate * (np.kron(op, op.conj()) - 0.5 * np.kron(ld, eye) - 0.5 * np.kron(eye, ld.T))
+    return out
+
+
+def dense_stationary(h: np.ndarray, jumps: list[tuple[float, np.ndarray]]) -> np.ndarray:
+    lmat = dense_liouvillian(h, jumps)
+    null = sla.null_space(lmat)
+    assert null.shape[1] == 1
+    d = h.shape[0]
+    rho = null[:, 0].reshape(d, d)
+    return rho / np.trace(rho)
+
+
+# -- jumps ------------------------------------------------------------------------------
+
+
+def test_jump_constructors() -> None:
+    # Common practice, no source: the operators the names promise.
+    assert fm.loss(2, 0.1).operator == fm.lowering(2)
+    assert fm.pump(1, 0.1).operator == fm.raising(1)
+    assert fm.dephasing(0, 0.3).operator == fm.number(0)
+    j = fm.jump(fm.lowering(0) - fm.lowering(1), 0.2)
+    assert j.rate == 0.2 and j.operator == fm.lowering(0) - fm.lowering(1)
+
+
+@pytest.mark.parametrize("rate", [-0.1, float("nan"), float("inf")])
+def test_bad_rates(rate: float) -> None:
+    with pytest.raises(ValueError, match="rate must be"):
+        fm.loss(0, rate)
+
+
+def test_rate_types() -> None:
+    with pytest.raises(TypeError, match="rate must be a real number"):
+        fm.loss(0, True)
+    with pytest.raises(TypeError, match="rate must be a real number"):
+        fm.jump(fm.lowering(0), 1j)
+
+
+def test_bad_input_is_refused_clearly() -> None:
+    space = fm.FockSpace(modes=2, cutoff=2)
+    h = fm.number(0)
+    with pytest.raises(ModeIndexError, match="acts on mode 3 but the space has 2 modes"):
+        fm.stationary_state(h, space, [fm.loss(3, 0.1)])
+    with pytest.raises(NotHermitianError, match="not Hermitian"):
+        fm.stationary_state(fm.lowering(0), space, [fm.loss(0, 0.1)])
+    with pytest.raises(TypeError, match="jumps must be a list"):
+        fm.stationary_state(h, space, "loss")
+    with pytest.raises(TypeError, match=r"jumps\[0\]"):
+        fm.stationary_state(h, space, [fm.lowering(0)])
+    sector = fm.FockSpace(modes=2, cutoff=2, total=1)
+    with pytest.raises(ChargeError, match="without total"):
+        fm.stationary_state(h, sector, [fm.loss(0, 0.1)])
+    with pytest.raises(ValueError, match="method must be"):
+        fm.stationary_state(h, space, [fm.loss(0, 0.1)], method="fast")
+
+
+@pytest.mark.parametrize(
+    ("rho", "message"),
+    [
+        (np.eye(3) / 3, "shape"),
+        (np.array([[0.5, 0.5], [0.0, 0.5]]), "not Hermitian"),
+        (np.eye(2), "trace"),
+        (np.array([[1.5, 0.0], [0.0, -0.5]]), "positive semidefinite"),
+        (np.array([1.0, 1.0]), "norm"),
+        (np.array([[np.nan, 0], [0, 1]]), "NaN"),
+    ],
+)
+def test_density_matrix_that_is_not_one(rho: np.ndarray, message: str) -> None:
+    space = fm.FockSpace(modes=1, cutoff=1)
+    with pytest.raises(ValueError, match=message):
+        fm.evolve_density(fm.number(0), space, rho, [0.0, 1.0], [fm.loss(0, 1.0)])
+
+
+# -- stationary states against published results ----------------------------------------
+
+
+@pytest.mark.parametrize("method", ["dense", "sparse", "iterative"])
+def test_driven_damped_oscillator_is_coherent(method: str) -> None:
+    # H = Δ a†a + F (a + a†), L = a at rate κ: the linear equation of motion
+    # d⟨a⟩/dt = −(iΔ + κ/2)⟨a⟩ − iF gives ⟨a⟩ = −F/(Δ − iκ/2), and the stationary state
+    # is the coherent state |α⟩ with g⁽²⁾(0) = 1 (Walls & Milburn, Quantum Optics, 2nd ed.
+    # 2008, Sec. 7.2, driven damped cavity; from memory). Invented values; cutoff 14
+    # leaves a truncation weight ~ 1e-16 for |α|² ≈ 0.33.
+    delta, force, kappa = 0.8, 0.4, 1.1
+    space = fm.FockSpace(modes=1, cutoff=14)
+    h = delta * fm.number(0) + force * (fm.lowering(0) + fm.raising(0))
+    ss = fm.stationary_state(h, space, [fm.loss(0, kappa)], method=method, tol=1e-11)
+    alpha = -force / (delta - 0.5j * kappa)
+    assert ss.method.startswith(method)
+    assert ss.expectation(fm.lowering(0)) == pytest.approx(alpha, abs=1e-8)
+    assert ss.populations[0] == pytest.approx(abs(alpha) ** 2, abs=1e-8)
+    assert ss.g2(0) == pytest.approx(1.0, abs=1e-6)
+    assert ss.purity == pytest.approx(1.0, abs=1e-7)  # a coherent state is pure
+    assert ss.residual < 1e-7
+
+
+def test_thermal_equilibrium_from_loss_and_pump() -> None:
+    # Loss γ(n̄+1) and pumping γn̄ balance in the geometric (Bose–Einstein) distribution
+    # P(n) = n̄ⁿ/(1+n̄)^{n+1} (Breuer & Petruccione, The Theory of Open Quantum Systems,
+    # 2002, Sec. 3.4.6; from memory). Detailed balance γ n̄ (n+1) P(n) = γ(n̄+1)(n+1) P(n+1)
+    # keeps the ratios exact in the truncated space (the pump does nothing on the top
+    # level in the truncated convention), so the distribution is the geometric one
+    # renormalised to 0..cutoff.
+    nbar, gamma, cutoff = 0.7, 0.5, 25
+    space = fm.FockSpace(modes=1, cutoff=cutoff)
+    jumps = [fm.loss(0, gamma * (nbar + 1)), fm.pump(0, gamma * nbar)]
+    ss = fm.stationary_state(fm.number(0), space, jumps)
+    n = np.arange(cutoff + 1)
+    geometric = nbar**n / (1 + nbar) ** (n + 1)
+    np.testing.assert_allclose(ss.distribution(0), geometric / geometric.sum(), atol=1e-12)
+    assert ss.populations[0] == pytest.approx(nbar, abs=1e-5)  # truncation: weight 1e-6
+    assert ss.sectors is not None  # the number-sector path was taken
+
+
+@pytest.mark.parametrize(("detuning", "rabi", "decay"), [(0.0, 1.0, 1.0), (0.7, 1.3, 0.9)])
+def test_resonance_fluorescence_excited_population(
+    detuning: float, rabi: float, decay: float
+) -> None:
+    # Optical Bloch equations of a driven two-level emitter, H = Δ σ†σ + (Ω/2)(σ + σ†),
+    # L = σ at rate Γ: ρ_ee = (Ω²/4)/(Δ² + Ω²/2 + Γ²/4) (Mollow, Phys. Rev. 188, 1969
+    # (1969); the form with this convention is checked against the dense Liouvillian
+    # below too). A mode with cutoff 1 is the emitter.
+    space = fm.FockSpace(modes=1, cutoff=1)
+    h = detuning * fm.number(0) + 0.5 * rabi * (fm.lowering(0) + fm.raising(0))
+    ss = fm.stationary_state(h, space, [fm.loss(0, decay)])
+    expected = (rabi**2 / 4) / (detuning**2 + rabi**2 / 2 + decay**2 / 4)
+    assert ss.populations[0] == pytest.approx(expected, abs=1e-12)
+    (a,) = ladder([1])
+    ref = dense_stationary(detuning * a.conj().T @ a + 0.5 * rabi * (a + a.conj().T), [(decay, a)])
+    assert ref[1, 1].real == pytest.approx(expected, abs=1e-12)
+
+
+def _kerr_g2(u: float, method: str = "auto") -> tuple[float, float]:
+    # H = Δ a†a + U a†a†aa + F(a + a†), L = a at rate κ (invented values, weak drive).
+    delta, force, kappa, cutoff = 0.0, 0.05, 1.0, 6
+    space = fm.FockSpace(modes=1, cutoff=cutoff)
+    a_, ad = fm.lowering(0), fm.raising(0)
+    h = delta * fm.number(0) + u * ad * ad * a_ * a_ + force * (a_ + ad)
+    ss = fm.stationary_state(h, space, [fm.loss(0, kappa)], method=method)
+    (a,) = ladder([cutoff])
+    hd = delta * a.conj().T @ a + u * a.conj().T @ a.conj().T @ a @ a + force * (a + a.conj().T)
+    rho = dense_stationary(hd, [(kappa, a)])
+    n = np.trace(a.conj().T @ a @ rho).real
+    nn = np.trace(a.conj().T @ a.conj().T @ a @ a @ rho).real
+    return ss.g2(0), nn / n**2
+
+
+def test_kerr_photon_blockade_against_dense_reference() -> None:
+    # Photon blockade: a Kerr resonator driven weakly on resonance antibunches,
+    # g⁽²⁾(0) < 1, the more so as U/κ grows (Imamoḡlu, Schmidt, Woods & Deutsch, Phys.
+    # Rev. Lett. 79, 1467 (1997)); values against the dense numpy Liouvillian.
+    values = []
+    for u in (0.5, 2.0, 8.0):
+        got, ref = _kerr_g2(u)
+        assert got == pytest.approx(ref, rel=1e-5)  # g2 = nn/n² amplifies round-off
+        values.append(got)
+    assert values[0] < 1.0
+    assert values[0] > values[1] > values[2]
+    assert values[2] < 0.05
+
+
+# -- dense references for everything else ------------------------------------------------
+
+
+def _chain(
+    sites: int, cutoff: int, drive: float
+) -> tuple[fm.LadderExpr, np.ndarray, list[np.ndarray]]:
+    """A Bose–Hubbard chain (invented values) as an expression and as a dense matrix."""
+    j, u, mu = 0.7, 1.3, 0.4
+    ops = ladder([cutoff] * sites)
+    h = fm.LadderExpr()
+    hd = np.zeros_like(ops[0])
+    for i in range(sites - 1):
+        h -= j * (fm.raising(i) * fm.lowering(i + 1) + fm.raising(i + 1) * fm.lowering(i))
+        hop = ops[i].conj().T @ ops[i + 1]
+        hd -= j * (hop + hop.conj().T)
+    for i in range(sites):
+        h += 0.5 * u * fm.raising(i) * fm.raising(i) * fm.lowering(i) * fm.lowering(i)
+        h -= mu * fm.number(i)
+        a = ops[i]
+        hd += 0.5 * u * a.conj().T @ a.conj().T @ a @ a - mu * a.conj().T @ a
+    if drive:
+        h += drive * (fm.lowering(0) + fm.raising(0))
+        hd += drive * (ops[0] + ops[0].conj().T)
+    return h, hd, ops
+
+
+@pytest.mark.parametrize("method", ["dense", "sparse", "iterative"])
+@pytest.mark.parametrize("split", [None, False])
+def test_lossy_pumped_dephased_chain_against_dense(method: str, split: bool | None) -> None:
+    # Number-conserving chain with loss, pumping at a truncating top level and dephasing:
+    # the number-sector blocks and the whole space give the dense reference's ρ.
+    h, hd, ops = _chain(3, 2, 0.0)
+    jumps = [fm.loss(0, 0.3), fm.loss(2, 0.2), fm.pump(1, 0.25), fm.dephasing(2, 0.15)]
+    ref_jumps = [
+        (0.3, ops[0]),
+        (0.2, ops[2]),
+        (0.25, ops[1].conj().T),
+        (0.15, ops[2].conj().T @ ops[2]),
+    ]
+    ref = dense_stationary(hd, ref_jumps)
+    ss = fm.stationary_state(
+        h,
+        fm.FockSpace(modes=3, cutoff=2),
+        jumps,
+        method=method,
+        split_sectors=split,
+        tol=1e-12,
+        max_iterations=20000,
+    )
+    assert (ss.sectors is not None) == (split is None)
+    np.testing.assert_allclose(ss.rho, ref, atol=1e-8)
+    assert ss.purity == pytest.approx(np.trace(ref @ ref).real, abs=1e-8)
+
+
+def test_sector_blocks_save_what_the_docs_say() -> None:
+    # Σ_N d_N² against (Σ_N d_N)² for 6 modes of cutoff 3 (counting; common practice).
+    from fockmill.lindblad.liouvillian import build_liouvillian
+
+    liou = build_liouvillian(fm.number(0), fm.FockSpace(modes=6, cutoff=3), [fm.loss(0, 1.0)])
+    assert liou.size == 1_703_636 and liou.full_size == 4096**2
+    assert max(liou.dims) == 580
+
+
+@pytest.mark.parametrize(
+    ("method", "preconditioner"),
+    [("dense", "auto"), ("sparse", "auto"), ("iterative", "sylvester"), ("iterative", "diagonal")],
+)
+def test_driven_chain_with_general_jump_against_dense(method: str, preconditioner: str) -> None:
+    # A drive breaks number conservation (one block: the whole space); a collective jump
+    # L = a0 − a1 and a pump with mixed charges.
+    h, hd, ops = _chain(2, 2, 0.35)
+    jumps = [fm.jump(fm.lowering(0) - fm.lowering(1), 0.4), fm.loss(1, 0.3), fm.pump(0, 0.1)]
+    ref = dense_stationary(hd, [(0.4, ops[0] - ops[1]), (0.3, ops[1]), (0.1, ops[0].conj().T)])
+    ss = fm.stationary_state(
+        h,
+        fm.FockSpace(modes=2, cutoff=2),
+        jumps,
+        method=method,
+        tol=1e-12,
+        preconditioner=preconditioner,
+        max_iterations=20000,
+    )
+    assert ss.sectors is None
+    if method == "iterative":
+        assert ss.method == f"iterative ({preconditioner})"
+    np.testing.assert_allclose(ss.rho, ref, atol=1e-8)
+    got = ss.expectation(fm.raising(0) * fm.lowering(1))
+    assert got == pytest.approx(np.trace(ops[0].conj().T @ ops[1] @ ref), abs=1e-8)
+
+
+@pytest.mark.parametrize("method", ["dense", "sparse"])
+def test_not_unique_is_refused(method: str) -> None:
+    # An undamped, uncoupled mode keeps its populations: every mixture of its number
+    # states is stationary (common practice, no source).
+    h = fm.number(0) + 0.3 * fm.number(1)
+    space = fm.FockSpace(modes=2, cutoff=2)
+    with pytest.raises(NotUniqueError, match="not unique"):
+        fm.stationary_state(h, space, [fm.loss(0, 1.0)], method=method)
+
+
+def test_problem_in_place_of_hamiltonian_and_space() -> None:
+    space = fm.FockSpace(modes=1, cutoff=1)
+    problem = fm.prepare(0.5 * (fm.lowering(0) + fm.raising(0)), space)
+    ss = fm.stationary_state(problem, [fm.loss(0, 1.0)])
+    # Mollow's ρ_ee with Δ = 0, Ω = Γ = 1: (1/4)/(1/2 + 1/4) = 1/3.
+    assert ss.populations[0] == pytest.approx(1 / 3, abs=1e-12)
+
+
+# -- evolution ---------------------------------------------------------------------------
+
+
+def test_evolution_against_dense_exponential() -> None:
+    # ρ(t) = exp(𝓛t) ρ(0) with the dense numpy Liouvillian (common practice, no source).
+    h, hd, ops = _chain(2, 2, 0.3)
+    jumps = [fm.loss(0, 0.5), fm.dephasing(1, 0.2)]
+    lmat = dense_liouvillian(hd, [(0.5, ops[0]), (0.2, ops[1].conj().T @ ops[1])])
+    space = fm.FockSpace(modes=2, cutoff=2)
+    psi0 = np.zeros(space.dim)
+    psi0[space.index([1, 1])] = 1.0
+    times = [0.0, 0.5, 2.0]
+    n0 = ops[0].conj().T @ ops[0]
+    ev = fm.evolve_density(
+        h, space, psi0, times, jumps, observables={"n0": fm.number(0)}, tol=1e-11
+    )
+    rho0 = np.outer(psi0, psi0).astype(complex)
+    for k, t in enumerate(times):
+        rho = (sla.expm(lmat * t) @ rho0.ravel()).reshape(rho0.shape)
+        assert ev.values["n0"][k] == pytest.approx(np.trace(n0 @ rho).real, abs=1e-8)
+    np.testing.assert_allclose(ev.final, rho, atol=1e-8)
+
+
+def test_trace_is_preserved_with_a_pump_at_the_top_level() -> None:
+    # The truncated convention (L†L as the product of truncated matrices) keeps
+    # Tr ρ = 1 exactly; the normal-ordered a a† = n + 1 would leak trace from the top
+    # level at rate γ (common practice, no source: Tr(L ρ L†) = Tr(L† L ρ)).
+    space = fm.FockSpace(modes=1, cutoff=2)
+    psi0 = np.array([0.0, 0.0, 1.0])  # start on the top level
+    ev = fm.evolve_density(
+        fm.number(0),
+        space,
+        psi0,
+        np.linspace(0, 5, 6),
+        [fm.pump(0, 2.0), fm.loss(0, 0.1)],
+        tol=1e-11,
+    )
+    np.testing.assert_allclose(ev.traces, 1.0, atol=1e-10)
+    # The stationary state of pure pumping sits on the top level.
+    ss = fm.stationary_state(fm.number(0), space, [fm.pump(0, 1.0), fm.loss(0, 1e-3)])
+    assert ss.distribution(0)[-1] > 0.99
+
+
+def test_evolution_keeps_sector_coherences_when_present() -> None:
+    # A superposition of 0 and 1 quanta has a coherence ⟨a⟩ that decays as e^{−κt/2}
+    # (Walls & Milburn 2008, damped oscillator; from memory) — the block path must not
+    # drop it.
+    space = fm.FockSpace(modes=1, cutoff=2)
+    psi0 = np.array([1.0, 1.0, 0.0]) / np.sqrt(2)
+    ev = fm.evolve_density(
+        0.0 * fm.number(0),
+        space,
+        psi0,
+        [0.0, 1.0],
+        [fm.loss(0, 0.8)],
+        observables={"a": fm.lowering(0)},
+        tol=1e-11,
+    )
+    assert ev.values["a"][1] == pytest.approx(0.5 * np.exp(-0.4), abs=1e-8)
+
+
+# -- trajectories ------------------------------------------------------------------------
+
+
+def _trajectory_case() -> tuple[fm.LadderExpr, fm.FockSpace, np.ndarray, list[fm.Jump]]:
+    h, _hd, _ops = _chain(2, 2, 0.4)
+    space = fm.FockSpace(modes=2, cutoff=2)
+    psi0 = np.zeros(space.dim)
+    psi0[space.index([2, 0])] = 1.0
+    return h, space, psi0, [fm.loss(0, 0.6), fm.loss(1, 0.4), fm.dephasing(1, 0.3)]
+
+
+def test_trajectories_agree_with_density_evolution() -> None:
+    # Averages of quantum-jump trajectories converge to Tr(O ρ(t)) (Dalibard, Castin &
+    # Mølmer, Phys. Rev. Lett. 68, 580 (1992)); within 4 standard errors at every time.
+    h, space, psi0, jumps = _trajectory_case()
+    times = np.linspace(0.0, 3.0, 7)
+    obs = {"n0": fm.number(0), "n1": fm.number(1)}
+    ev = fm.evolve_density(h, space, psi0, times, jumps, observables=obs, tol=1e-10)
+    tr = fm.sample_trajectories(h, space, psi0, times, jumps, observables=obs, count=300, seed=7)
+    for name in obs:
+        err = tr.stderr[name][1:]
+        assert np.all(err > 0)
+        assert np.all(np.abs(tr.mean[name][1:] - ev.values[name][1:]) < 4 * err + 1e-9)
+    assert tr.jumps.sum() > 0
+
+
+def test_trajectories_reproducible_whatever_the_workers() -> None:
+    # Each trajectory draws from SeedSequence(seed, spawn_key=(i,)): the same samples
+    # serially and on a process pool with any chunking (common practice, no source).
+    h, space, psi0, jumps = _trajectory_case()
+    times = [0.0, 1.0, 2.0]
+    obs = {"n0": fm.number(0)}
+    serial = fm.sample_trajectories(h, space, psi0, times, jumps, observables=obs, count=12, seed=3)
+    with cf.ProcessPoolExecutor(2) as pool:
+        parallel = fm.sample_trajectories(
+            h, space, psi0, times, jumps, observables=obs, count=12, seed=3, executor=pool, chunk=5
+        )
+    np.testing.assert_array_equal(serial.samples["n0"], parallel.samples["n0"])
+    np.testing.assert_array_equal(serial.jumps, parallel.jumps)
+    other = fm.sample_trajectories(h, space, psi0, times, jumps, observables=obs, count=12, seed=4)
+    assert not np.array_equal(other.samples["n0"], serial.samples["n0"])
+
+
+def test_trajectories_refuse_a_jump_leaving_the_sector() -> None:
+    space = fm.FockSpace(modes=2, cutoff=2, total=1)
+    psi0 = np.array([1.0, 0.0])
+    with pytest.raises(ChargeError, match="without total"):
+        fm.sample_trajectories(fm.number(0), space, psi0, [0.0, 1.0], [fm.loss(0, 1.0)])
