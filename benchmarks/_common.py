@@ -45,3 +45,24 @@ def table(headers: list[str], rows: list[list[str]]) -> str:
     lines.append("  ".join("-" * w for w in widths))
     lines += ["  ".join(c.rjust(w) for c, w in zip(r, widths, strict=True)) for r in rows]
     return "\n".join(lines)
+
+
+def timed(run: Callable[[], Any], repeats: int) -> tuple[float, float, Any]:
+    """Median wall time, median CPU time of the process (all threads) and the last
+    result of ``repeats`` calls. On a shared machine the CPU time shows the work done,
+    the wall time what the load left of the cores."""
+    walls, cpus = [], []
+    result = None
+    for _ in range(repeats):
+        w0, c0 = time.perf_counter(), time.process_time()
+        result = run()
+        walls.append(time.perf_counter() - w0)
+        cpus.append(time.process_time() - c0)
+    return statistics.median(walls), statistics.median(cpus), result
+
+
+def load() -> str:
+    """The 1, 5 and 15 minute load averages."""
+    import os
+
+    return " ".join(f"{x:.2f}" for x in os.getloadavg())

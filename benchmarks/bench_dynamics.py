@@ -17,11 +17,8 @@ from __future__ import annotations
 
 import argparse
 import os
-import statistics
 import sys
 import time
-from collections.abc import Callable
-from typing import Any
 
 # BLAS pinned to one thread unless set: the Krylov vector operations are many small
 # BLAS calls, and a multi-threaded OpenBLAS on a loaded machine spends more time waking
@@ -33,28 +30,9 @@ import numpy as np  # noqa: E402
 
 sys.path.insert(0, os.path.dirname(__file__))
 import fockmill as fm  # noqa: E402
-from _common import bose_hubbard_ring, table, unit_filling  # noqa: E402
+from _common import bose_hubbard_ring, load, table, timed, unit_filling  # noqa: E402
 
 TARGETS = {"evolve": 120.0, "spectral": 60.0, "ftlm": 600.0}
-
-
-def timed(run: Callable[[], Any], repeats: int) -> tuple[float, float, Any]:
-    """Median wall time, median CPU time of the process (all threads) and the last
-    result of ``repeats`` calls. On a shared machine the CPU time shows the work done,
-    the wall time what the load left of the cores."""
-    walls, cpus = [], []
-    result = None
-    for _ in range(repeats):
-        w0, c0 = time.perf_counter(), time.process_time()
-        result = run()
-        walls.append(time.perf_counter() - w0)
-        cpus.append(time.process_time() - c0)
-    return statistics.median(walls), statistics.median(cpus), result
-
-
-def load() -> str:
-    """The 1, 5 and 15 minute load averages."""
-    return " ".join(f"{x:.2f}" for x in os.getloadavg())
 
 
 def bench_size(sites: int, tasks: list[str], repeats: int, samples: int = 20) -> list[tuple]:

@@ -20,11 +20,7 @@ from __future__ import annotations
 
 import argparse
 import os
-import statistics
 import sys
-import time
-from collections.abc import Callable
-from typing import Any
 
 # BLAS pinned to one thread unless set (see bench_dynamics.py and README "BLAS threads").
 for _name in ("OPENBLAS_NUM_THREADS", "OMP_NUM_THREADS", "MKL_NUM_THREADS"):
@@ -34,27 +30,10 @@ import numpy as np  # noqa: E402
 
 sys.path.insert(0, os.path.dirname(__file__))
 import fockmill as fm  # noqa: E402
-from _common import table, unit_filling  # noqa: E402
+from _common import load, table, timed, unit_filling  # noqa: E402
 
 T_END = 20.0
 U_START, U_END = 2.0, 10.0
-
-
-def timed(run: Callable[[], Any], repeats: int) -> tuple[float, float, Any]:
-    """Median wall time, median process CPU time and the last result."""
-    walls, cpus = [], []
-    result = None
-    for _ in range(repeats):
-        w0, c0 = time.perf_counter(), time.process_time()
-        result = run()
-        walls.append(time.perf_counter() - w0)
-        cpus.append(time.process_time() - c0)
-    return statistics.median(walls), statistics.median(cpus), result
-
-
-def load() -> str:
-    """The 1, 5 and 15 minute load averages."""
-    return " ".join(f"{x:.2f}" for x in os.getloadavg())
 
 
 def pieces(sites: int) -> tuple[fm.LadderExpr, fm.LadderExpr]:

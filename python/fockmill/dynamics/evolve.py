@@ -101,6 +101,17 @@ class Evolution:
     seconds: float
 
 
+def _check_krylov_options(krylov_dim: object, keep_states: object) -> None:
+    """``krylov_dim`` (None or an integer >= 2) and ``keep_states`` (a bool)."""
+    if krylov_dim is not None:
+        if isinstance(krylov_dim, bool) or not isinstance(krylov_dim, numbers.Integral):
+            raise TypeError(f"krylov_dim must be an integer >= 2 or None; got {krylov_dim!r}")
+        if krylov_dim < 2:
+            raise ValueError(f"krylov_dim must be >= 2; got {krylov_dim}")
+    if not isinstance(keep_states, bool | np.bool_):
+        raise TypeError(f"keep_states must be True or False; got {keep_states!r}")
+
+
 def _check_times(times: object) -> npt.NDArray[np.float64]:
     t = as_float_array(times, "times")  # type: ignore[arg-type]
     if np.any(t < 0):
@@ -352,13 +363,7 @@ def evolve(
         raise TypeError("evolve needs psi0= (the state at t = 0) and times=")
     t = _check_times(times)
     tol = check_positive(tol, "tol", "1e-10")
-    if krylov_dim is not None:
-        if isinstance(krylov_dim, bool) or not isinstance(krylov_dim, numbers.Integral):
-            raise TypeError(f"krylov_dim must be an integer >= 2 or None; got {krylov_dim!r}")
-        if krylov_dim < 2:
-            raise ValueError(f"krylov_dim must be >= 2; got {krylov_dim}")
-    if not isinstance(keep_states, bool | np.bool_):
-        raise TypeError(f"keep_states must be True or False; got {keep_states!r}")
+    _check_krylov_options(krylov_dim, keep_states)
     psi = check_state(space, psi0, "psi0").astype(np.complex128)
     obs = prepare_observables(observables, problem)
     dim = psi.shape[0]
@@ -556,13 +561,7 @@ def _evolve_time_dependent(
         max_step = check_positive(max_step, "max_step", "0.1")
     if fixed_step is not None:
         fixed_step = check_positive(fixed_step, "_fixed_step", "0.01")
-    if krylov_dim is not None:
-        if isinstance(krylov_dim, bool) or not isinstance(krylov_dim, numbers.Integral):
-            raise TypeError(f"krylov_dim must be an integer >= 2 or None; got {krylov_dim!r}")
-        if krylov_dim < 2:
-            raise ValueError(f"krylov_dim must be >= 2; got {krylov_dim}")
-    if not isinstance(keep_states, bool | np.bool_):
-        raise TypeError(f"keep_states must be True or False; got {keep_states!r}")
+    _check_krylov_options(krylov_dim, keep_states)
     # Every coefficient is evaluated once before any work, so a bad one fails at once.
     H.coefficients(0.0)
     if isinstance(H.H0, Problem):
