@@ -175,6 +175,43 @@ def _default_krylov_dim(dim: int, memory_limit: int | None) -> int:
     return max(10, min(DEFAULT_KRYLOV_DIM, fits))
 
 
+class _Recorder:
+    """The observables, states and top-level weights an evolution records at the
+    requested times (the same for time-independent and time-dependent ``H``)."""
+
+    def __init__(
+        self, obs: Mapping[str, Any], space: Any, dim: int, count: int, keep_states: bool
+    ) -> None:
+        self.space = space
+        self.hermitian = {name: o.expr.is_hermitian() for name, o in obs.items()}
+        self.measure = {name: expectation_function(o) for name, o in obs.items()}
+        self.raw: dict[str, list[complex]] = {name: [] for name in obs}
+        self.states = np.zeros((dim, count), dtype=np.complex128) if keep_states else None
+        self.weights_max: npt.NDArray[np.float64] | None = None
+
+    def record(self, k: int, state: npt.NDArray[np.complex128], pool: Any) -> None:
+        for name, f in self.measure.items():
+            self.raw[name].append(f(state))
+        if self.states is not None:
+            self.states[:, k] = state
+        w = top_weights(self.space, state, pool)
+        self.weights_max = w if self.weights_max is None else np.fmax(self.weights_max, w)
+
+    def values(self) -> dict[str, npt.NDArray[Any]]:
+        """Each observable's series: real for a Hermitian observable, else complex."""
+        out: dict[str, npt.NDArray[Any]] = {}
+        for name, series in self.raw.items():
+            arr = np.asarray(series, dtype=np.complex128)
+            out[name] = arr.real.copy() if self.hermitian[name] else arr
+        return out
+
+    def finish(self, cutoff_warning: float | None) -> npt.NDArray[np.float64]:
+        """The largest top-level weights over the times, warned about if too large."""
+        assert self.weights_max is not None
+        warn_top_weights(self.space, self.weights_max, cutoff_warning, "the evolving state")
+        return self.weights_max
+
+
 class _Propagator:
     """``exp(−iτT) e₁`` in one Krylov space and its a posteriori error estimate."""
 
@@ -372,11 +409,7 @@ def evolve(
     m = int(min(krylov_dim, dim))
     kept = dim * t.size * 16 if keep_states else 0
     hmap = hermitian_map(problem, vectors=m + 4 + -(-kept // max(16 * dim, 1)), method=method)
-    states = np.zeros((dim, t.size), dtype=np.complex128) if keep_states else None
-    hermitian = {name: o.expr.is_hermitian() for name, o in obs.items()}
-    measure = {name: expectation_function(o) for name, o in obs.items()}
-    raw: dict[str, list[complex]] = {name: [] for name in obs}
-    weights_max = None
+    recorder = _Recorder(obs, space, dim, t.size, keep_states)
     try:
         basis = np.zeros((m, dim), dtype=np.complex128)
     except MemoryError:
@@ -385,13 +418,7 @@ def evolve(
         ) from None
 
     def record(k: int, state: npt.NDArray[np.complex128]) -> None:
-        nonlocal weights_max
-        for name, f in measure.items():
-            raw[name].append(f(state))
-        if states is not None:
-            states[:, k] = state
-        w = top_weights(space, state, problem.pool)
-        weights_max = w if weights_max is None else np.fmax(weights_max, w)
+        recorder.record(k, state, problem.pool)
 
     t_end = float(t[-1])
     now = 0.0
@@ -438,19 +465,15 @@ def evolve(
                 k += 1
             psi = coefficients(tau) @ basis[:n]
             now += tau
-    values: dict[str, npt.NDArray[Any]] = {}
-    for name, series in raw.items():
-        arr = np.asarray(series, dtype=np.complex128)
-        values[name] = arr.real.copy() if hermitian[name] else arr
-    assert weights_max is not None
-    warn_top_weights(space, weights_max, cutoff_warning, "the evolving state")
+    values = recorder.values()
+    weights_max = recorder.finish(cutoff_warning)
     warn_tolerance_not_met(tol, error_sum, "evolve")
     # The propagation ends exactly at the last requested time.
-    final = states[:, -1].copy() if states is not None else psi
+    final = recorder.states[:, -1].copy() if recorder.states is not None else psi
     return Evolution(
         times=t,
         values=values,
-        states=states,
+        states=recorder.states,
         final=final,
         top_weights=weights_max,
         steps=steps,
@@ -590,20 +613,10 @@ def _evolve_time_dependent(
     # Parts that are zero (say H0 = 0) cost no products.
     used = [k for k, p in enumerate(problems) if not p.expr.is_zero()]
     maps = _driven_maps([problems[k] for k in used], vectors, method, memory_limit)
-    states = np.zeros((dim, t.size), dtype=np.complex128) if keep_states else None
-    hermitian = {name: o.expr.is_hermitian() for name, o in obs.items()}
-    measure = {name: expectation_function(o) for name, o in obs.items()}
-    raw: dict[str, list[complex]] = {name: [] for name in obs}
-    weights_max = None
+    recorder = _Recorder(obs, space, dim, t.size, keep_states)
 
     def record(k: int, state: npt.NDArray[np.complex128]) -> None:
-        nonlocal weights_max
-        for name, f in measure.items():
-            raw[name].append(f(state))
-        if states is not None:
-            states[:, k] = state
-        w = top_weights(space, state, host.pool)
-        weights_max = w if weights_max is None else np.fmax(weights_max, w)
+        recorder.record(k, state, host.pool)
 
     def coefficients(time_: float) -> list[float]:
         every = [1.0, *H.coefficients(time_)]
@@ -639,19 +652,15 @@ def _evolve_time_dependent(
             while k < t.size and t[k] <= now:
                 record(k, psi)
                 k += 1
-    values: dict[str, npt.NDArray[Any]] = {}
-    for name, series in raw.items():
-        arr = np.asarray(series, dtype=np.complex128)
-        values[name] = arr.real.copy() if hermitian[name] else arr
-    assert weights_max is not None
-    warn_top_weights(space, weights_max, cutoff_warning, "the evolving state")
+    values = recorder.values()
+    weights_max = recorder.finish(cutoff_warning)
     count = integrator.count
     if fixed_step is None:
         warn_tolerance_not_met(tol, count.error, "evolve")
     return Evolution(
         times=t,
         values=values,
-        states=states,
+        states=recorder.states,
         final=psi.copy(),
         top_weights=weights_max,
         steps=count.steps,
