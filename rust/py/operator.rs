@@ -364,7 +364,7 @@ impl NativeOperator {
 
     /// Four-vector Lanczos ground state, on the matrix-free product or on a CSR matrix
     /// built first and kept inside Rust (`store`: True, False, or None to decide).
-    #[pyo3(signature = (*, tol=1e-9, max_steps=400, max_restarts=8, seed=0x5EED, start=None, threads=None, store=None, memory_limit=None))]
+    #[pyo3(signature = (*, tol=1e-9, max_steps=400, max_restarts=8, seed=0, start=None, threads=None, store=None, memory_limit=None))]
     #[allow(clippy::too_many_arguments)]
     fn lanczos_ground<'py>(
         &self,
@@ -395,7 +395,7 @@ impl NativeOperator {
     /// Lowest `k` levels by thick-restart Lanczos with locking and a deflated re-check,
     /// on the matrix-free product or on a CSR matrix kept inside Rust (`store` as for
     /// `lanczos_ground`).
-    #[pyo3(signature = (k, *, tol=1e-9, max_products=10_000, seed=0x5EED, start=None, threads=None, store=None, memory_limit=None, basis=0))]
+    #[pyo3(signature = (k, *, tol=1e-9, max_products=20_000, seed=0, start=None, threads=None, store=None, memory_limit=None, basis=0))]
     #[allow(clippy::too_many_arguments)]
     fn lanczos_levels<'py>(
         &self,

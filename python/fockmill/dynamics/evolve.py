@@ -42,7 +42,7 @@ from fockmill.problem.problem import (
     problem_and_arguments,
 )
 from fockmill.settings.signatures import options_were_positional
-from fockmill.settings.threads import blas_threads
+from fockmill.settings.threads import vector_blas_threads
 
 __all__ = ["Evolution", "evolve"]
 
@@ -429,9 +429,8 @@ def evolve(
         record(k, psi)
         k += 1
     reorthogonalize = m * dim <= REORTHOGONALIZE_MAX
-    # The Krylov vector operations are many small, memory-bound BLAS calls: one BLAS
-    # thread beats several, by far on a loaded machine (see fockmill.settings.threads).
-    with blas_threads(1):
+    # Memory-bound vector work: one BLAS thread on short vectors (fockmill.settings.threads).
+    with vector_blas_threads(problem.threads, dim):
         while k < t.size:
             alpha, beta, beta_next, n = _krylov_space(hmap, psi, m, basis, reorthogonalize)
             steps += 1
@@ -645,7 +644,7 @@ def _evolve_time_dependent(
     while k < t.size and t[k] <= now:
         record(k, psi)
         k += 1
-    with blas_threads(1):  # many small vector operations: see fockmill.settings.threads
+    with vector_blas_threads(host.threads, dim):  # see fockmill.settings.threads
         for stop in stops:
             psi = integrator.advance(psi, now, stop)
             now = stop

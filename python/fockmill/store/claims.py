@@ -28,7 +28,6 @@ import sys
 import time
 import uuid
 from pathlib import Path
-from types import TracebackType
 from typing import Any
 
 from fockmill.exceptions import StoreError
@@ -139,12 +138,7 @@ class Claim:
     def __enter__(self) -> Claim:
         return self
 
-    def __exit__(
-        self,
-        exc_type: type[BaseException] | None,
-        exc: BaseException | None,
-        traceback: TracebackType | None,
-    ) -> None:
+    def __exit__(self, exc_type: type[BaseException] | None, *_: object) -> None:
         self.release()
 
     def __repr__(self) -> str:

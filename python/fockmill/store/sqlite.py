@@ -16,7 +16,6 @@ import sqlite3
 from collections.abc import Callable, Iterable, Mapping
 from datetime import UTC, datetime
 from pathlib import Path
-from types import TracebackType
 from typing import Any
 
 import numpy as np
@@ -76,12 +75,7 @@ class transaction:
     def __enter__(self) -> None:
         self._connection.execute("BEGIN IMMEDIATE")
 
-    def __exit__(
-        self,
-        exc_type: type[BaseException] | None,
-        exc: BaseException | None,
-        traceback: TracebackType | None,
-    ) -> None:
+    def __exit__(self, exc_type: type[BaseException] | None, *_: object) -> None:
         self._connection.execute("ROLLBACK" if exc_type is not None else "COMMIT")
 
 

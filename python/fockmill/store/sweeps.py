@@ -40,7 +40,7 @@ import sqlite3
 from collections.abc import Iterator, Mapping, Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
-from types import MappingProxyType, TracebackType
+from types import MappingProxyType
 from typing import Any, Literal
 
 import numpy as np
@@ -525,12 +525,7 @@ class ResultsStore:
     def __enter__(self) -> ResultsStore:
         return self
 
-    def __exit__(
-        self,
-        exc_type: type[BaseException] | None,
-        exc: BaseException | None,
-        traceback: TracebackType | None,
-    ) -> None:
+    def __exit__(self, exc_type: type[BaseException] | None, *_: object) -> None:
         self.close()
 
     def close(self) -> None:

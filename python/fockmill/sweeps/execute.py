@@ -199,58 +199,44 @@ def execute(
         chunk = check_positive_int("chunk", chunk)
     lifelines: list[_Lifeline] = []
     try:
-        _execute(recipe, full, order, settings, executor, workers, chunk, finish, lifelines)
+        pool, owned, slots = _resolve_executor(executor, workers, len(order), lifelines)
+        if pool is None:
+            prepared = prepare(recipe, settings, points=len(order), first=full[order[0]])
+            for row in solve_points(prepared, ((i, full[i]) for i in order), settings):
+                finish(row)
+            return
+        size = chunk if chunk is not None else _default_chunk(len(order), slots)
+        futures: list[cf.Future[list[PointResult]]] = []
+        failed = True
+        finished = 0
+        try:
+            for start in range(0, len(order), size):
+                part = order[start : start + size]
+                per_worker = math.ceil(len(order) / slots)
+                task = _Chunk(recipe, settings, tuple((i, full[i]) for i in part), per_worker)
+                futures.append(pool.submit(_solve_chunk, task))
+            for future in cf.as_completed(futures):
+                for row in future.result():
+                    finish(row)
+                    finished += 1
+            failed = False
+        except BrokenProcessPool as exc:
+            if finished == 0:
+                raise PoolStartError(_guard_message(str(exc))) from exc
+            raise PoolStartError(
+                f"a worker process of the sweep stopped abruptly after {finished} points ({exc}); "
+                "it may have run out of memory. Finished points are kept: run the sweep again "
+                "to resume, with fewer workers"
+            ) from exc
+        finally:
+            if failed:
+                for future in futures:
+                    future.cancel()
+            if owned:
+                _close_pool(pool, cancel=failed)
     finally:
         for lifeline in lifelines:
             lifeline.close()
-
-
-def _execute(
-    recipe: ModelRecipe,
-    full: list[dict[str, float]],
-    order: list[int],
-    settings: SweepSettings,
-    executor: cf.Executor | str | Any | None,
-    workers: int | None,
-    chunk: int | None,
-    finish: Callable[[PointResult], None],
-    lifelines: list[_Lifeline],
-) -> None:
-    pool, owned, slots = _resolve_executor(executor, workers, len(order), lifelines)
-    if pool is None:
-        prepared = prepare(recipe, settings, points=len(order), first=full[order[0]])
-        for row in solve_points(prepared, ((i, full[i]) for i in order), settings):
-            finish(row)
-        return
-    size = chunk if chunk is not None else _default_chunk(len(order), slots)
-    futures: list[cf.Future[list[PointResult]]] = []
-    failed = True
-    finished = 0
-    try:
-        for start in range(0, len(order), size):
-            part = order[start : start + size]
-            per_worker = math.ceil(len(order) / slots)
-            task = _Chunk(recipe, settings, tuple((i, full[i]) for i in part), per_worker)
-            futures.append(pool.submit(_solve_chunk, task))
-        for future in cf.as_completed(futures):
-            for row in future.result():
-                finish(row)
-                finished += 1
-        failed = False
-    except BrokenProcessPool as exc:
-        if finished == 0:
-            raise PoolStartError(_guard_message(str(exc))) from exc
-        raise PoolStartError(
-            f"a worker process of the sweep stopped abruptly after {finished} points ({exc}); "
-            "it may have run out of memory. Finished points are kept: run the sweep again "
-            "to resume, with fewer workers"
-        ) from exc
-    finally:
-        if failed:
-            for future in futures:
-                future.cancel()
-        if owned:
-            _close_pool(pool, cancel=failed)
 
 
 def _close_pool(pool: cf.Executor, *, cancel: bool) -> None:

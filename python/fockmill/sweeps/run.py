@@ -85,11 +85,9 @@ def _attach_store(
     store: str | os.PathLike[str] | ResultsStore,
     model: Model,
     full: list[dict[str, float]],
-    swept: tuple[str, ...],
     settings: SweepSettings,
-    model_text_hash: str | None,
-    units: Mapping[str, str],
-    sectors: SweepSectors | None = None,
+    sectors: SweepSectors | None,
+    new_meta: Callable[[], dict[str, Any]],
 ) -> tuple[ResultsStore, bool]:
     """Open or create the store and check it belongs to this sweep; (store, owned).
 
@@ -100,8 +98,7 @@ def _attach_store(
     elif Path(store).exists():
         handle, owned = ResultsStore.open(store, purpose="resume"), True
     else:
-        meta = _new_meta(model, full, swept, settings, model_text_hash, units, sectors)
-        return ResultsStore.create(store, meta, claimed=True), True
+        return ResultsStore.create(store, new_meta(), claimed=True), True
     try:
         _check_resumable(handle, model, full, settings)
         check_same_sector(handle, sectors)
@@ -331,7 +328,14 @@ def run_sweep(
     try:
         if store is not None:
             handle, owned_store = _attach_store(
-                store, model, full, swept, settings, model_text_hash, unit_map, sectors
+                store,
+                model,
+                full,
+                settings,
+                sectors,
+                lambda: _new_meta(
+                    model, full, swept, settings, model_text_hash, unit_map, sectors
+                ),
             )
     except BaseException:
         if held is not None:

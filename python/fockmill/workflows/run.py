@@ -15,6 +15,7 @@ import os
 import time
 import warnings
 from collections.abc import Iterator, Mapping
+from dataclasses import dataclass
 from typing import Any
 
 import numpy as np
@@ -52,7 +53,7 @@ def _section(model_file: Any, name: str) -> Any:
             f"[symmetry] is not used by [{name}]: it runs in the model's whole space "
             f"(dim {model_file.model.space.dim:,}); sectors apply to `solve` and `sweep`",
             UserWarning,
-            stacklevel=3,
+            stacklevel=4,  # the runner's caller (via _begin)
         )
     return spec
 
@@ -90,6 +91,63 @@ def _split_populations(
     table = np.column_stack([np.asarray(values[k], dtype=np.float64) for k in keys])
     rest = {k: v for k, v in values.items() if not k.startswith("#")}
     return table.reshape(count, modes), rest
+
+
+@dataclass(frozen=True)
+class _Run:
+    """What every runner starts from: the file, its section and the parameter values."""
+
+    model_file: Any
+    kind: str
+    spec: Any
+    values: dict[str, float]
+    solver: dict[str, Any]
+    started: float
+
+    @property
+    def model(self) -> Any:
+        return self.model_file.model
+
+    @property
+    def space(self) -> Any:
+        return self.model_file.model.space
+
+    def finish(
+        self,
+        arrays: dict[str, Any],
+        *,
+        settings: dict[str, Any],
+        summary: dict[str, Any],
+        messages: list[str],
+    ) -> WorkflowResult:
+        """The result with its meta data (the run's seconds added to ``summary``)."""
+        summary["seconds"] = time.perf_counter() - self.started
+        texts = getattr(self.spec, "texts", {})
+        meta = meta_of(
+            self.model_file,
+            self.kind,
+            self.values,
+            settings=settings,
+            # [spectrum]'s texts are its operator (in settings), not recorded observables.
+            observables={} if self.kind == "spectrum" else {k: list(v) for k, v in texts.items()},
+            summary=summary,
+            warnings=messages,
+        )
+        return WorkflowResult(self.kind, arrays, meta)
+
+
+def _begin(
+    model_file: Any,
+    kind: str,
+    overrides: Mapping[str, float] | None,
+    threads: int | None,
+) -> _Run:
+    """Read the file (if a path), its ``[kind]`` section, the values and the solver settings."""
+    started = time.perf_counter()
+    model_file = _model_file(model_file)
+    spec = _section(model_file, kind)
+    values = _values(model_file, overrides)
+    return _Run(model_file, kind, spec, values, _solver(model_file, threads), started)
 
 
 @contextlib.contextmanager
@@ -150,17 +208,13 @@ def run_quench(
         parameter; the errors of :func:`fockmill.evolve` and
         :func:`fockmill.ground_state`.
     """
-    model_file = _model_file(model_file)
     from fockmill.dynamics.drive import TimeDependent, piecewise_linear
     from fockmill.dynamics.evolve import evolve
     from fockmill.problem.problem import Problem, prepare
     from fockmill.solvers.ground import ground_state
 
-    started = time.perf_counter()
-    spec = _section(model_file, "quench")
-    model = model_file.model
-    space = model.space
-    values = _values(model_file, overrides)
+    run = _begin(model_file, "quench", overrides, threads)
+    spec, model, space, values, solver = run.spec, run.model, run.space, run.values, run.solver
     ramped = sorted(set(spec.ramps) & set(overrides or {}))
     if ramped:
         raise ValueError(
@@ -168,7 +222,6 @@ def run_quench(
             "Change the ramp's values instead"
         )
     ramps = {name: piecewise_linear(*table) for name, table in spec.ramps.items()}
-    solver = _solver(model_file, threads)
     # Ramped parameters leave the constant part; at t = 0 they take their ramps' values.
     h = model.hamiltonian(**{**values, **dict.fromkeys(ramps, 0.0)})
     values_at_start = {**values, **{name: f(0.0) for name, f in ramps.items()}}
@@ -232,7 +285,6 @@ def run_quench(
         method=ev.method,
         error_estimate=ev.error_estimate,
         energy_drift=float(np.max(np.abs(energy - energy[0]))) if energy.size else 0.0,
-        seconds=time.perf_counter() - started,
     )
     if ramps:
         # ⟨H(t)⟩ changes under a ramp: its change is no accuracy check.
@@ -249,16 +301,7 @@ def run_quench(
             name: {"times": list(t), "values": list(v)} for name, (t, v) in spec.ramps.items()
         },
     }
-    meta = meta_of(
-        model_file,
-        "quench",
-        values,
-        settings=settings,
-        observables={k: list(v) for k, v in spec.texts.items()},
-        summary=summary,
-        warnings=messages,
-    )
-    return WorkflowResult("quench", arrays, meta)
+    return run.finish(arrays, settings=settings, summary=summary, messages=messages)
 
 
 def run_spectrum(
@@ -290,18 +333,13 @@ def run_spectrum(
     ValueError, ConvergenceError
         No ``[spectrum]`` section; the errors of :func:`fockmill.spectral_function`.
     """
-    model_file = _model_file(model_file)
     from fockmill.dynamics.spectral import function_from_start, poles_from_start, spectral_start
     from fockmill.problem.problem import prepare
     from fockmill.solvers.ground import ground_state
 
-    started = time.perf_counter()
-    spec = _section(model_file, "spectrum")
-    model = model_file.model
-    space = model.space
-    values = _values(model_file, overrides)
-    solver = _solver(model_file, threads)
-    h = model.hamiltonian(**values)
+    run = _begin(model_file, "spectrum", overrides, threads)
+    spec, space, solver = run.spec, run.space, run.solver
+    h = run.model.hamiltonian(**run.values)
     with _collected_warnings() as messages:
         # H on the space, H on the target and A are each compiled once for the whole run.
         problem = prepare(h, space, threads=solver["threads"], memory_limit=memory_limit)
@@ -326,7 +364,6 @@ def run_spectrum(
             arrays["pole_frequencies"] = poles.frequencies
             arrays["pole_weights"] = poles.weights
             summary.update(pole_steps=poles.steps, poles_exact=poles.exhausted)
-    summary["seconds"] = time.perf_counter() - started
     target = spec.target
     settings = {
         "operator": list(spec.texts),
@@ -339,16 +376,7 @@ def run_spectrum(
         "target_total": target.total,
         "target_dim": target.dim,
     }
-    meta = meta_of(
-        model_file,
-        "spectrum",
-        values,
-        settings=settings,
-        observables={},
-        summary=summary,
-        warnings=messages,
-    )
-    return WorkflowResult("spectrum", arrays, meta)
+    return run.finish(arrays, settings=settings, summary=summary, messages=messages)
 
 
 def run_thermal(
@@ -381,16 +409,11 @@ def run_thermal(
     ValueError
         No ``[thermal]`` section; the errors of :func:`fockmill.thermal`.
     """
-    model_file = _model_file(model_file)
     from fockmill.dynamics.thermal import thermal
 
-    started = time.perf_counter()
-    spec = _section(model_file, "thermal")
-    model = model_file.model
-    space = model.space
-    values = _values(model_file, overrides)
-    solver = _solver(model_file, threads)
-    h = model.hamiltonian(**values)
+    run = _begin(model_file, "thermal", overrides, threads)
+    spec, space, solver = run.spec, run.space, run.solver
+    h = run.model.hamiltonian(**run.values)
     observables: dict[str, LadderExpr] = {}
     if spec.populations:
         observables.update(_population_observables(space.modes))
@@ -437,19 +460,5 @@ def run_thermal(
         "steps": spec.steps,
         "populations": spec.populations,
     }
-    summary = {
-        "method": th.method,
-        "samples": th.samples,
-        "steps": th.steps,
-        "seconds": time.perf_counter() - started,
-    }
-    meta = meta_of(
-        model_file,
-        "thermal",
-        values,
-        settings=settings,
-        observables={k: list(v) for k, v in spec.texts.items()},
-        summary=summary,
-        warnings=messages,
-    )
-    return WorkflowResult("thermal", arrays, meta)
+    summary = {"method": th.method, "samples": th.samples, "steps": th.steps}
+    return run.finish(arrays, settings=settings, summary=summary, messages=messages)

@@ -72,8 +72,8 @@ impl Default for LevelsOptions {
     fn default() -> Self {
         LevelsOptions {
             tol: 1e-9,
-            max_products: 10_000,
-            seed: 0x5EED,
+            max_products: 20_000,
+            seed: 0,
             basis: 0,
         }
     }
