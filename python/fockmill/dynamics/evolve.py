@@ -12,6 +12,7 @@ from typing import Any
 import numpy as np
 import numpy.typing as npt
 import scipy.linalg as sla
+from scipy.linalg.blas import zaxpy
 
 from fockmill.algebra.expressions import LadderExpr
 from fockmill.dynamics.cfqm import Integrator
@@ -137,29 +138,42 @@ def _krylov_space(
     """Lanczos (optionally with one full reorthogonalisation per step): fills
     ``basis[:n]``, returns the diagonal, the off-diagonal, the next coupling ``beta_n``
     (0 on an invariant subspace) and ``n``."""
-    norm = float(np.linalg.norm(psi))
-    basis[0] = psi / norm
+    np.multiply(psi, 1.0 / _norm(psi), out=basis[0])
     alpha = np.zeros(m)
     beta = np.zeros(m)
     n = m
     for j in range(m):
-        w = apply(basis[j])
+        w = np.asarray(apply(basis[j]), dtype=np.complex128)
         alpha[j] = float(np.vdot(basis[j], w).real)
-        w = w - alpha[j] * basis[j]
+        # In place, without temporaries: the vectors are the memory traffic of a step.
+        _subtract(w, alpha[j], basis[j])
         if j > 0:
-            w -= beta[j - 1] * basis[j - 1]
+            _subtract(w, beta[j - 1], basis[j - 1])
         if reorthogonalize:
             # ⟨v_i|w⟩ as conj(v_i · conj(w)): no conjugated copy of the basis.
             w -= basis[: j + 1].T @ (basis[: j + 1] @ w.conj()).conj()
-        b = float(np.linalg.norm(w))
+        b = _norm(w)
         beta[j] = b
         scale = max(float(np.max(np.abs(alpha[: j + 1]))), float(np.max(beta[: j + 1])), 1e-300)
         if b <= 1e-13 * scale:
             # Invariant subspace: the propagation in it is exact.
             return alpha[: j + 1], beta[:j], 0.0, j + 1
         if j + 1 < m:
-            basis[j + 1] = w / b
+            np.multiply(w, 1.0 / b, out=basis[j + 1])
     return alpha[:n], beta[: n - 1], float(beta[n - 1]), n
+
+
+def _norm(v: npt.NDArray[np.complex128]) -> float:
+    """‖v‖ in one pass (numpy's norm of a complex vector reads it twice, strided)."""
+    return float(np.sqrt(np.vdot(v, v).real))
+
+
+def _subtract(w: npt.NDArray[np.complex128], c: float, v: npt.NDArray[np.complex128]) -> None:
+    """``w -= c v`` in place (BLAS axpy: no temporary vector)."""
+    if w.flags.c_contiguous and v.flags.c_contiguous:
+        zaxpy(v, w, a=-c)
+    else:
+        w -= c * v
 
 
 def _default_krylov_dim(dim: int, memory_limit: int | None) -> int:
