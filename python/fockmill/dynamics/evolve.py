@@ -43,7 +43,7 @@ from fockmill.problem.problem import (
     problem_and_arguments,
 )
 from fockmill.settings.signatures import options_were_positional
-from fockmill.settings.threads import vector_blas_threads
+from fockmill.settings.threads import blas_threads
 
 __all__ = ["Evolution", "evolve"]
 
@@ -443,8 +443,8 @@ def evolve(
         record(k, psi)
         k += 1
     reorthogonalize = m * dim <= REORTHOGONALIZE_MAX
-    # Memory-bound vector work: one BLAS thread on short vectors (fockmill.settings.threads).
-    with vector_blas_threads(problem.threads, dim):
+    # Many memory-bound vector operations: one BLAS thread (fockmill.settings.threads).
+    with blas_threads(1):
         while k < t.size:
             alpha, beta, beta_next, n = _krylov_space(hmap, psi, m, basis, reorthogonalize)
             steps += 1
@@ -658,7 +658,7 @@ def _evolve_time_dependent(
     while k < t.size and t[k] <= now:
         record(k, psi)
         k += 1
-    with vector_blas_threads(host.threads, dim):  # see fockmill.settings.threads
+    with blas_threads(1):  # many small vector operations: see fockmill.settings.threads
         for stop in stops:
             psi = integrator.advance(psi, now, stop)
             now = stop

@@ -15,7 +15,7 @@ import numpy.typing as npt
 from fockmill.algebra.expressions import LadderExpr
 from fockmill.exceptions import NotHermitianError, SizeLimitError
 from fockmill.settings.checks import check_memory_limit, check_threads
-from fockmill.settings.threads import vector_blas_threads
+from fockmill.settings.threads import blas_threads
 
 __all__ = [
     "HermitianMap",
@@ -45,8 +45,6 @@ class HermitianMap:
         Whether ``H`` has real matrix elements.
     method : str
         ``"csr"`` (stored scipy matrix) or ``"operator"`` (matrix-free products in Rust).
-    threads : int or None
-        The problem's thread count (None: all cores), for the vector work beside it.
     products : int
         Vectors multiplied so far.
     """
@@ -55,7 +53,6 @@ class HermitianMap:
     is_real: bool
     method: str
     _apply: Callable[[npt.NDArray[Any]], npt.NDArray[Any]] = field(repr=False)
-    threads: int | None = None
     products: int = 0
 
     def __call__(self, x: npt.NDArray[Any]) -> npt.NDArray[Any]:
@@ -133,13 +130,13 @@ def hermitian_map(
                 return both[:, 0] + 1j * both[:, 1]
             return np.asarray(matrix @ x)
 
-        return HermitianMap(estimate.dim, is_real, "csr", apply, problem.threads)
+        return HermitianMap(estimate.dim, is_real, "csr", apply)
     native, pool = problem.native, problem.pool
 
     def apply_free(x: npt.NDArray[Any]) -> npt.NDArray[Any]:
         return native.matvec(np.ascontiguousarray(x), threads=pool)  # type: ignore[no-any-return]
 
-    return HermitianMap(estimate.dim, is_real, "operator", apply_free, problem.threads)
+    return HermitianMap(estimate.dim, is_real, "operator", apply_free)
 
 
 def expectation_function(observable: Any) -> Callable[[npt.NDArray[Any]], complex]:
@@ -224,8 +221,7 @@ def lanczos_coefficients(
     each step; ``on_vector(j, v_j)`` sees each Lanczos vector. The recurrence stops early
     on an invariant subspace (``beta`` below ``1e-12`` of the scale).
     """
-    threads = getattr(apply, "threads", None)
-    with vector_blas_threads(threads, start.shape[0]):  # see fockmill.settings.threads
+    with blas_threads(1):  # many small vector operations: see fockmill.settings.threads
         return _lanczos_coefficients(apply, start, max_steps, keep_basis, done, on_vector)
 
 

@@ -6,12 +6,8 @@ path sees, those threads cost more in start-up and contention than they save (me
 on a busy 2-core machine: one dense sector solve took 0.58 s with one BLAS thread and
 2.3–37 s without a limit), so a dense solve runs with at most the library's
 ``threads=`` BLAS threads, and one thread below :data:`SMALL_DENSE_DIM`. Krylov loops
-(evolution, spectra, FTLM) make many memory-bound vector operations: on vectors of
-fewer than :data:`SHORT_VECTOR_DIM` states they run with one BLAS thread (start-up costs
-more than the work), on longer ones with ``threads=`` BLAS threads (the Krylov basis
-products are matrix-vector products over the whole basis, which two cores read faster
-than one: measured on the 12-site ring, 1.35 M states). Their Hamiltonian products run
-on the library's own threads either way.
+(evolution, spectra, FTLM) make many small, memory-bound vector operations and always
+run with one BLAS thread; their matrix products run on the library's own threads.
 """
 
 from __future__ import annotations
@@ -20,13 +16,10 @@ import contextlib
 import os
 from collections.abc import Iterator
 
-__all__ = ["SHORT_VECTOR_DIM", "SMALL_DENSE_DIM", "blas_threads", "vector_blas_threads"]
+__all__ = ["SMALL_DENSE_DIM", "blas_threads"]
 
 #: Dense matrices up to this dimension are diagonalised with one BLAS thread.
 SMALL_DENSE_DIM = 1000
-
-#: Krylov vectors shorter than this (2 MiB of complex numbers) use one BLAS thread.
-SHORT_VECTOR_DIM = 1 << 17
 
 
 def _cores() -> int:
@@ -53,9 +46,3 @@ def blas_threads(threads: int | None, dim: int | None = None) -> Iterator[None]:
         limit = 1
     with threadpool_limits(limits=max(1, int(limit)), user_api="blas"):
         yield
-
-
-def vector_blas_threads(threads: int | None, dim: int) -> contextlib.AbstractContextManager[None]:
-    """BLAS threads for a Krylov loop over vectors of ``dim`` states: one below
-    :data:`SHORT_VECTOR_DIM`, else ``threads`` (None: the cores this process may use)."""
-    return blas_threads(1 if dim < SHORT_VECTOR_DIM else threads)

@@ -333,9 +333,7 @@ def run_sweep(
                 full,
                 settings,
                 sectors,
-                lambda: _new_meta(
-                    model, full, swept, settings, model_text_hash, unit_map, sectors
-                ),
+                lambda: _new_meta(model, full, swept, settings, model_text_hash, unit_map, sectors),
             )
     except BaseException:
         if held is not None:
