@@ -51,6 +51,11 @@ impl<S: Scalar> Product<S> {
             Some(c) => Ok(Product::Split(Box::new(Bipartite::new_interruptible(
                 space, op, c, interrupt,
             )?))),
+            // Many terms: the row kernel indexes them by the quanta they remove, while
+            // the bipartite tables would grow with the terms.
+            None if crate::kernel::indexes_terms(space, op) => {
+                Ok(Product::Rows(ProductKernel::new(space, op)))
+            }
             None => match choose_cut(space, op) {
                 Some(c) => match Bipartite::new_interruptible(space, op, c, interrupt) {
                     Ok(b) => Ok(Product::Split(Box::new(b))),
