@@ -127,6 +127,8 @@ struct Lowering<S> {
 struct HopTable {
     inter: FockSpace,
     cols: Vec<u64>,
+    /// The mode each term of the single groups adds a quantum to.
+    to: Vec<u32>,
 }
 
 /// Largest intermediate table (entries) relative to the sector's dimension.
@@ -205,7 +207,11 @@ impl HopTable {
                 cols.push(sparse_rank(space, image.iter().copied()));
             }
         }
-        Some(HopTable { inter, cols })
+        Some(HopTable {
+            inter,
+            cols,
+            to: Vec::new(),
+        })
     }
 }
 
@@ -320,11 +326,14 @@ impl<S: Scalar> Lowering<S> {
             .iter()
             .take(starts[m] as usize)
             .all(|(_, added, _)| added.len() == 1 && added[0].1 == 1);
-        let hop_table = if hop_like && starts[m] > 0 {
+        let mut hop_table = if hop_like && starts[m] > 0 {
             HopTable::new(space)
         } else {
             None
         };
+        if let Some(table) = hop_table.as_mut() {
+            table.to = keyed[..starts[m] as usize].iter().map(|k| k.1[0].0).collect();
+        }
         let mut coef = Vec::with_capacity(keyed.len());
         let mut raised = Vec::with_capacity(keyed.len());
         for (_, added, c) in keyed {
@@ -805,24 +814,44 @@ impl<S: Scalar> ProductKernel<S> {
                 .map(|&o| (o, if o == i { occ[o] - 1 } else { occ[o] })),
         ) as usize;
         let cols = &table.cols[k * m..(k + 1) * m];
-        let n_i = occ[i] as usize;
-        let sqrt_len = self.sqrt.len();
-        for t in first..last {
-            let j = index.raised[t][0].0 as usize;
+        let sqrt = &self.sqrt;
+        let root_i = sqrt[occ[i] as usize];
+        let to = &table.to[first..last];
+        let coefs = &index.coef[first..last];
+        // The amplitude is sqrt(n_i) sqrt(s'_j + 1), with s'_j = n_j (a group's terms
+        // never add to the mode they remove from): sqrt(n_i) for an empty mode j.
+        if let Some(x) = sink.input() {
+            // A product: two running sums in a fixed pattern (shorter dependency
+            // chains), the occupied modes' factors applied from `boost`.
+            let mut sums = [S::ZERO; 2];
+            for (k, (&j, &c)) in to.iter().zip(coefs).enumerate() {
+                let col = cols[j as usize];
+                if col == u64::MAX {
+                    continue;
+                }
+                let v = x[col as usize];
+                let w = occ[j as usize];
+                let term = if w == 0 {
+                    c * v
+                } else {
+                    c.scale(sqrt[w as usize + 1]) * v
+                };
+                sums[k & 1] += term;
+            }
+            sink.add(r, (sums[0] + sums[1]).scale(root_i));
+            return;
+        }
+        let entries = to.iter().zip(coefs).filter_map(move |(&j, &c)| {
+            let j = j as usize;
             let col = cols[j];
             if col == u64::MAX {
-                continue;
+                return None;
             }
-            // s'_j + 1 quanta in mode j after the move.
-            let w_j = occ[j] as usize + 1 - usize::from(j == i);
-            let amp_sq = n_i * w_j;
-            let amp = if amp_sq < sqrt_len {
-                self.sqrt[amp_sq]
-            } else {
-                (amp_sq as f64).sqrt()
-            };
-            sink.push(r, col, index.coef[t].scale(amp));
-        }
+            let w = occ[j] as usize + 1;
+            let amp = if w == 1 { root_i } else { root_i * sqrt[w] };
+            Some((col, c.scale(amp)))
+        });
+        sink.push_all(r, entries);
     }
 
     /// The entries of row `r` from group `g`, whose terms remove `removed` (one or two
@@ -997,6 +1026,21 @@ impl<S: Scalar> ProductKernel<S> {
 /// Where the kernel sends the entries it generates.
 trait Sink<S> {
     fn push(&mut self, row: usize, col: u64, val: S);
+    /// The vector a product multiplies (`None` for a build).
+    #[inline(always)]
+    fn input(&self) -> Option<&[S]> {
+        None
+    }
+    /// Add `val` to the output of `row` (products only).
+    #[inline(always)]
+    fn add(&mut self, _row: usize, _val: S) {}
+    /// Push every `(column, value)` of `entries` to `row`, in order.
+    #[inline(always)]
+    fn push_all(&mut self, row: usize, entries: impl Iterator<Item = (u64, S)>) {
+        for (col, val) in entries {
+            self.push(row, col, val);
+        }
+    }
 }
 
 /// Accumulates `y[row] += val · x[col]` (a product).
@@ -1009,6 +1053,27 @@ impl<S: Scalar> Sink<S> for ProductSink<'_, S> {
     #[inline(always)]
     fn push(&mut self, row: usize, col: u64, val: S) {
         self.ys[row] += val * self.x[col as usize];
+    }
+
+    #[inline(always)]
+    fn input(&self) -> Option<&[S]> {
+        Some(self.x)
+    }
+
+    #[inline(always)]
+    fn add(&mut self, row: usize, val: S) {
+        self.ys[row] += val;
+    }
+
+    /// Summed in a register, then added once (the same order as pushing one by one
+    /// up to the association of the additions, which is fixed).
+    #[inline(always)]
+    fn push_all(&mut self, row: usize, entries: impl Iterator<Item = (u64, S)>) {
+        let mut sum = S::ZERO;
+        for (col, val) in entries {
+            sum += val * self.x[col as usize];
+        }
+        self.ys[row] += sum;
     }
 }
 
