@@ -186,8 +186,8 @@ impl HopTable {
             }
             occupied.clear();
             occupied.extend((0..m).filter(|&i| row.occ[i] > 0).map(|i| (i, row.occ[i])));
-            for j in 0..m {
-                if row.occ[j] + 1 > caps[j] {
+            for (j, &cap) in caps.iter().enumerate() {
+                if row.occ[j] + 1 > cap {
                     cols.push(u64::MAX);
                     continue;
                 }
@@ -222,7 +222,12 @@ const LOWERING_TERMS_PER_MODE: usize = 8;
 
 /// `(removed, added)` of a term in gathering form when the index can take it: one or
 /// two quanta removed, at most two modes raised.
-fn lowering_shape(factors: &[FactorPlan]) -> Option<(Vec<(usize, u32)>, Vec<(u32, u32)>)> {
+/// Quanta a term removes, `(mode, count)` by mode.
+type Removed = Vec<(usize, u32)>;
+/// Quanta a term adds, `(mode, power)` by mode.
+type Added = Vec<(u32, u32)>;
+
+fn lowering_shape(factors: &[FactorPlan]) -> Option<(Removed, Added)> {
     let removed: Vec<(usize, u32)> = factors
         .iter()
         .filter(|f| f.lower > 0)
@@ -281,7 +286,7 @@ fn max_occupied(space: &FockSpace) -> usize {
 }
 
 impl<S: Scalar> Lowering<S> {
-    fn new(space: &FockSpace, terms: Vec<(S, Vec<(usize, u32)>, Vec<(u32, u32)>)>) -> Self {
+    fn new(space: &FockSpace, terms: Vec<(S, Removed, Added)>) -> Self {
         let m = space.modes();
         let groups = m + m * m;
         let group_of = |removed: &[(usize, u32)]| -> usize {
@@ -292,7 +297,7 @@ impl<S: Scalar> Lowering<S> {
                 _ => unreachable!("lowering_shape admits one or two quanta only"),
             }
         };
-        let mut keyed: Vec<(usize, Vec<(u32, u32)>, S)> = terms
+        let mut keyed: Vec<(usize, Added, S)> = terms
             .into_iter()
             .map(|(coef, removed, added)| (group_of(&removed), added, coef))
             .collect();
