@@ -14,13 +14,13 @@ one-quantum states (``⟨i| H |j⟩ = t[i, j]``) and the form is Hermitian exact
 ``t`` is a Hermitian matrix.
 
 ``pair_interaction(V)`` is ``½ Σ_ijkl V[i, j, k, l] a_i† a_j† a_k a_l``, indices in the
-order written (normal ordered, no reordering of ``k`` and ``l``): with this order
-``⟨ij| H |lk⟩``-style conventions of other texts differ by swapping the last two
-indices, which for bosons changes nothing when ``V`` is symmetric under
-``(k, l) → (l, k)``. The operator is Hermitian when
-``V[i, j, k, l] = conj(V[l, k, j, i])`` (together with the symmetry of the pairs,
-``V[i, j, k, l] = V[j, i, l, k]``). The factor ½ makes a contact interaction
-``V[i, i, i, i] = U`` give ``(U / 2) n_i (n_i − 1)``.
+order written (normal ordered: creators ``i, j``, then annihilators ``k, l``). Bosonic
+operators of one kind commute, so only the part of ``V`` symmetric under ``i ↔ j`` and
+under ``k ↔ l`` matters: texts that write ``½ Σ ⟨ij|V|kl⟩ a_i† a_j† a_l a_k`` give the
+same operator with ``V[i, j, k, l] = ⟨ij|V|kl⟩``. The operator is Hermitian when
+``V[i, j, k, l] = conj(V[l, k, j, i])`` once entries giving the same monomial are
+summed. The factor ½ makes a contact interaction ``V[i, i, i, i] = U`` give
+``(U / 2) n_i (n_i − 1)``.
 
 Worked example (two modes): ``t = [[0, −J], [−J, 0]]`` gives ``−J (a0† a1 + a1† a0)``;
 ``V[0, 0, 0, 0] = V[1, 1, 1, 1] = U`` gives ``(U/2) (a0†² a0² + a1†² a1²)``; and
