@@ -61,7 +61,9 @@ from fockmill.algebra import (
     identity,
     lowering,
     number,
+    pair_interaction,
     parse_terms,
+    quadratic_form,
     raising,
 )
 from fockmill.dynamics import (
@@ -210,6 +212,7 @@ __all__ = [
     "number_variances",
     "occupation_distribution",
     "one_body_matrix",
+    "pair_interaction",
     "parse_model_text",
     "parse_terms",
     "piecewise_linear",
@@ -219,6 +222,7 @@ __all__ = [
     "populations",
     "prepare",
     "pump",
+    "quadratic_form",
     "raising",
     "read_workflow_results",
     "ring_reflection",

@@ -84,6 +84,9 @@ class NativeSpace:
 
 _Threads = int | NativePool | None
 _Terms = list[tuple[float, float, list[tuple[int, int, int]]]]
+_TermBlocks = list[
+    tuple[int, npt.NDArray[np.int64], npt.NDArray[np.float64], npt.NDArray[np.float64]]
+]
 _Index1D = npt.NDArray[np.int32] | npt.NDArray[np.int64]
 
 @final
@@ -97,19 +100,35 @@ class NativeOperator:
     """
 
     @staticmethod
-    def on_space(space: NativeSpace, terms: _Terms, *, cut: int | None = None) -> NativeOperator:
+    def on_space(
+        space: NativeSpace,
+        terms: _Terms,
+        *,
+        blocks: _TermBlocks = ...,
+        cut: int | None = None,
+    ) -> NativeOperator:
         """An operator on a space.
 
         ``terms``: ``(re, im, [(mode, p, q), ...])``, coefficient parts and normal-ordered
-        factors ``(a_mode†)^p (a_mode)^q``. ``cut``: the product kernel; None chooses
-        automatically, 0 is the row kernel, ``k`` the bipartite kernel with left modes
-        ``0..k``. Built once, on first use."""
+        factors ``(a_mode†)^p (a_mode)^q``. ``blocks``: more terms as arrays,
+        ``(creators, modes, re, im)`` with row ``r`` of ``modes`` (int64) listing the
+        creation then the annihilation modes of term ``r``. ``cut``: the product kernel;
+        None chooses automatically, 0 is the row kernel, ``k`` the bipartite kernel with
+        left modes ``0..k``. Built once, on first use."""
     @staticmethod
-    def on_sector(sector: NativeSymmetricSpace, terms: _Terms) -> NativeOperator:
-        """An operator commuting with the sector's group, on the sector."""
+    def on_sector(
+        sector: NativeSymmetricSpace, terms: _Terms, *, blocks: _TermBlocks = ...
+    ) -> NativeOperator:
+        """An operator commuting with the sector's group, on the sector (``blocks`` as
+        in :meth:`on_space`)."""
     @staticmethod
     def between(
-        source: NativeSpace, target: NativeSpace, terms: _Terms, *, project: bool = False
+        source: NativeSpace,
+        target: NativeSpace,
+        terms: _Terms,
+        *,
+        blocks: _TermBlocks = ...,
+        project: bool = False,
     ) -> NativeOperator:
         """An operator carrying the states of ``source`` into ``target`` (same modes and
         cutoffs): a matrix of shape ``(target.dim, source.dim)``. ``project``: keep terms

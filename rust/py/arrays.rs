@@ -13,12 +13,63 @@ use pyo3::prelude::*;
 /// Terms as they come from Python: (re, im, [(mode, p, q), ...]).
 pub type InTerm = (f64, f64, Vec<(usize, u32, u32)>);
 
-/// The core's raw terms of Python's terms.
-pub fn raw_terms(terms: Vec<InTerm>) -> Vec<RawTerm> {
-    terms
-        .into_iter()
-        .map(|(re, im, f)| RawTerm::new(re, im, f))
-        .collect()
+/// Array-backed terms as they come from Python: `(creators, modes, re, im)`, row `r`
+/// of `modes` holding the creation modes (first `creators` columns) then the
+/// annihilation modes of term `r`, a mode repeated for a power above one.
+#[derive(FromPyObject)]
+pub struct InTermBlock<'py>(
+    usize,
+    PyReadonlyArray2<'py, i64>,
+    PyReadonlyArray1<'py, f64>,
+    PyReadonlyArray1<'py, f64>,
+);
+
+/// The core's raw terms of Python's terms and term blocks.
+///
+/// # Errors
+/// `ValueError` for a block whose shapes disagree or that holds a negative mode.
+pub fn raw_terms(terms: Vec<InTerm>, blocks: &[InTermBlock<'_>]) -> PyResult<Vec<RawTerm>> {
+    let total = terms.len() + blocks.iter().map(|b| b.2.len()).sum::<usize>();
+    let mut out: Vec<RawTerm> = memory::try_with_capacity(total, "the terms").map_err(PyCoreError)?;
+    out.extend(terms.into_iter().map(|(re, im, f)| RawTerm::new(re, im, f)));
+    for InTermBlock(creators, modes, re, im) in blocks {
+        let (modes, re, im) = (modes.as_array(), re.as_array(), im.as_array());
+        let (rows, width) = modes.dim();
+        if re.len() != rows || im.len() != rows || *creators > width {
+            return Err(pyo3::exceptions::PyValueError::new_err(format!(
+                "a term block has {rows} rows of {width} modes, {} and {} coefficient parts                  and {creators} creators; pass matching arrays",
+                re.len(),
+                im.len()
+            )));
+        }
+        for r in 0..rows {
+            let mut factors: Vec<(usize, u32, u32)> = Vec::with_capacity(width);
+            for c in 0..width {
+                let mode = modes[[r, c]];
+                if mode < 0 {
+                    return Err(pyo3::exceptions::PyValueError::new_err(format!(
+                        "a term block holds the mode {mode}; modes are numbered 0, 1, 2, ..."
+                    )));
+                }
+                let mode = mode as usize;
+                let slot = match factors.iter_mut().position(|f| f.0 == mode) {
+                    Some(k) => k,
+                    None => {
+                        factors.push((mode, 0, 0));
+                        factors.len() - 1
+                    }
+                };
+                if c < *creators {
+                    factors[slot].1 += 1;
+                } else {
+                    factors[slot].2 += 1;
+                }
+            }
+            factors.sort_unstable();
+            out.push(RawTerm::new(re[r], im[r], factors));
+        }
+    }
+    Ok(out)
 }
 
 /// A vector handed in from Python: float64 or complex128, any strides.

@@ -4,7 +4,7 @@
 //! (eigenvalues between two spaces, rebuilding a handed-in matrix) raises a `ValueError`
 //! that says so.
 
-use crate::arrays::{raw_terms, InBlock, InData, InIndex, InStart, InTerm, InVector};
+use crate::arrays::{raw_terms, InBlock, InData, InIndex, InStart, InTerm, InTermBlock, InVector};
 use crate::errors::{guarded, PyCoreError};
 use crate::kinds::{held_from, BetweenSpaces, Held, OnSector, OnSpace, StoredCsr};
 use crate::protocol::SolveRequest;
@@ -116,8 +116,13 @@ impl NativeOperator {
     /// An operator on a space (`cut`: None automatic, 0 the row kernel, `k` the bipartite
     /// kernel with left modes `0..k`).
     #[staticmethod]
-    #[pyo3(signature = (space, terms, *, cut=None))]
-    fn on_space(space: &NativeSpace, terms: Vec<InTerm>, cut: Option<usize>) -> PyResult<Self> {
+    #[pyo3(signature = (space, terms, *, blocks=Vec::new(), cut=None))]
+    fn on_space(
+        space: &NativeSpace,
+        terms: Vec<InTerm>,
+        blocks: Vec<InTermBlock<'_>>,
+        cut: Option<usize>,
+    ) -> PyResult<Self> {
         guarded(|| {
             let modes = space.inner.modes();
             if let Some(c) = cut {
@@ -129,7 +134,7 @@ impl NativeOperator {
                     .into());
                 }
             }
-            let raw = raw_terms(terms);
+            let raw = raw_terms(terms, &blocks)?;
             let complex = Operator::<Complex64>::new(&space.inner, &raw).map_err(PyCoreError)?;
             let real = if raw.iter().all(|t| t.im == 0.0) {
                 Some(Operator::<f64>::new(&space.inner, &raw).map_err(PyCoreError)?)
@@ -153,9 +158,14 @@ impl NativeOperator {
 
     /// An operator commuting with a sector's group, on the sector.
     #[staticmethod]
-    fn on_sector(sector: &NativeSymmetricSpace, terms: Vec<InTerm>) -> PyResult<Self> {
+    #[pyo3(signature = (sector, terms, *, blocks=Vec::new()))]
+    fn on_sector(
+        sector: &NativeSymmetricSpace,
+        terms: Vec<InTerm>,
+        blocks: Vec<InTermBlock<'_>>,
+    ) -> PyResult<Self> {
         guarded(|| {
-            let raw = raw_terms(terms);
+            let raw = raw_terms(terms, &blocks)?;
             let base = sector.inner.base();
             let op = Operator::<Complex64>::new(base, &raw).map_err(PyCoreError)?;
             let complex = SectorOperator::new(&sector.inner, &op, &sector.generators).map_err(PyCoreError)?;
@@ -181,15 +191,16 @@ impl NativeOperator {
     /// An operator carrying the states of `source` into `target` (`project`: drop the
     /// part of a term's image outside `target` instead of refusing the term).
     #[staticmethod]
-    #[pyo3(signature = (source, target, terms, *, project=false))]
+    #[pyo3(signature = (source, target, terms, *, blocks=Vec::new(), project=false))]
     fn between(
         source: &NativeSpace,
         target: &NativeSpace,
         terms: Vec<InTerm>,
+        blocks: Vec<InTermBlock<'_>>,
         project: bool,
     ) -> PyResult<Self> {
         guarded(|| {
-            let raw = raw_terms(terms);
+            let raw = raw_terms(terms, &blocks)?;
             let complex = Between::<Complex64>::new(&source.inner, &target.inner, &raw, project)
                 .map_err(PyCoreError)?;
             let real = if raw.iter().all(|t| t.im == 0.0) {

@@ -2,8 +2,10 @@
 normal ordered, and the term strings of model files.
 """
 
+from fockmill.algebra.arrays import pair_interaction, quadratic_form
 from fockmill.algebra.expressions import (
     LadderExpr,
+    TermBlock,
     as_expr,
     format_monomial,
     identity,
@@ -15,13 +17,16 @@ from fockmill.algebra.terms import TermSyntaxError, parse_term, parse_terms
 
 __all__ = [
     "LadderExpr",
+    "TermBlock",
     "TermSyntaxError",
     "as_expr",
     "format_monomial",
     "identity",
     "lowering",
     "number",
+    "pair_interaction",
     "parse_term",
     "parse_terms",
+    "quadratic_form",
     "raising",
 ]

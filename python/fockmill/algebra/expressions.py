@@ -40,17 +40,21 @@ from collections.abc import Callable, Iterable, Mapping
 from typing import Any, ClassVar, NoReturn, TypeAlias, cast
 
 import numpy as np
+import numpy.typing as npt
 
 __all__ = [
     "Factor",
     "LadderExpr",
     "ModeIndex",
     "MonomialKey",
+    "NativeBlock",
     "NativeTerm",
     "Scalar",
+    "TermBlock",
     "as_expr",
     "format_monomial",
     "identity",
+    "key_of_row",
     "lowering",
     "number",
     "raising",
@@ -70,6 +74,11 @@ Scalar: TypeAlias = int | float | complex | np.number[Any]
 
 NativeTerm: TypeAlias = tuple[float, float, list[Factor]]
 """``(real part, imaginary part, factors)``: one term in the binding's form."""
+
+NativeBlock: TypeAlias = tuple[
+    int, "npt.NDArray[np.int64]", "npt.NDArray[np.float64]", "npt.NDArray[np.float64]"
+]
+"""``(creators, modes, re, im)``: array-backed terms in the binding's form."""
 
 
 def _reject_number_as(value: object, what: str, instead: str) -> NoReturn:
@@ -262,6 +271,195 @@ def _is_negative(value: complex) -> bool:
     return value.real == 0 and value.imag < 0
 
 
+def _key_count(key: MonomialKey) -> tuple[int, int]:
+    """Numbers of creation and annihilation operators of a monomial."""
+    return (sum(p for _, p, _ in key), sum(q for _, _, q in key))
+
+
+def key_of_row(row: Iterable[int], creators: int) -> MonomialKey:
+    """The monomial key of one block row (creator modes, then annihilator modes).
+
+    Examples
+    --------
+    >>> key_of_row([0, 0, 2, 1], 2)
+    ((0, 2, 0), (1, 0, 1), (2, 0, 1))
+    """
+    counts: dict[int, list[int]] = {}
+    for position, mode in enumerate(row):
+        pair = counts.setdefault(int(mode), [0, 0])
+        pair[0 if position < creators else 1] += 1
+    return tuple((mode, p, q) for mode, (p, q) in sorted(counts.items()))
+
+
+class TermBlock:
+    """Terms with the same numbers of creation and annihilation operators, as arrays.
+
+    Row ``r`` of :attr:`modes` lists the modes of the creation operators of term ``r``
+    (the first ``count[0]`` columns, ascending) then those of its annihilation operators
+    (ascending); a mode repeats for a power above one. Rows are unique, sorted, and
+    their coefficients nonzero and finite. Blocks live inside a :class:`LadderExpr`
+    (made by :func:`fockmill.quadratic_form` and :func:`fockmill.pair_interaction`) so
+    that many terms cost arrays, not one Python object each.
+
+    Parameters
+    ----------
+    count : (int, int)
+        Numbers of creation and annihilation operators of every term.
+    modes : ndarray of int, shape (n, count[0] + count[1])
+        Modes of each term, in any order within the creators and the annihilators;
+        repeated rows are summed.
+    coefs : ndarray of complex, shape (n,)
+        Coefficients; finite.
+    """
+
+    __slots__ = ("coefs", "count", "modes")
+    count: tuple[int, int]
+    modes: npt.NDArray[np.int64]
+    coefs: npt.NDArray[np.complex128]
+
+    def __init__(
+        self,
+        count: tuple[int, int],
+        modes: npt.NDArray[np.int64],
+        coefs: npt.NDArray[np.complex128],
+    ) -> None:
+        creators, annihilators = count
+        width = creators + annihilators
+        rows = np.array(modes, dtype=np.int64, copy=True).reshape(-1, width)
+        values = np.asarray(coefs, dtype=np.complex128).reshape(-1)
+        if creators > 1:
+            rows[:, :creators].sort(axis=1)
+        if annihilators > 1:
+            rows[:, creators:].sort(axis=1)
+        if rows.shape[0] > 1:
+            base = int(rows.max()) + 1
+            if width and base**width < 2**62:
+                # One integer per row (mixed radix): a single sort, same order as lexsort.
+                keys = rows @ (base ** np.arange(width - 1, -1, -1, dtype=np.int64))
+                order = np.argsort(keys, kind="stable")
+                keys = keys[order]
+                changed = keys[1:] != keys[:-1]
+            else:
+                order = np.lexsort(rows.T[::-1])
+                changed = np.any(rows[order][1:] != rows[order][:-1], axis=1)
+            rows = rows[order]
+            values = values[order]
+            starts = np.flatnonzero(np.concatenate(([True], changed)))
+            if starts.size < rows.shape[0]:
+                values = np.add.reduceat(values, starts)
+                rows = rows[starts]
+        keep = values != 0
+        if not keep.all():
+            rows, values = rows[keep], values[keep]
+        rows = np.ascontiguousarray(rows)
+        values = np.ascontiguousarray(values)
+        rows.flags.writeable = False
+        values.flags.writeable = False
+        self.count = (creators, annihilators)
+        self.modes = rows
+        self.coefs = values
+
+    @classmethod
+    def from_keys(
+        cls, count: tuple[int, int], items: list[tuple[MonomialKey, complex]]
+    ) -> TermBlock:
+        """A block from monomial keys (all with ``count`` operators) and coefficients."""
+        rows = [
+            [mode for mode, p, _ in key for _ in range(p)]
+            + [mode for mode, _, q in key for _ in range(q)]
+            for key, _ in items
+        ]
+        return cls(
+            count,
+            np.array(rows, dtype=np.int64).reshape(len(rows), sum(count)),
+            np.array([value for _, value in items], dtype=np.complex128),
+        )
+
+    @classmethod
+    def concatenate(cls, blocks: list[TermBlock]) -> TermBlock:
+        """The sum of blocks with one count (equal rows summed, zeros dropped)."""
+        return cls(
+            blocks[0].count,
+            np.concatenate([b.modes for b in blocks]),
+            np.concatenate([b.coefs for b in blocks]),
+        )
+
+    def __len__(self) -> int:
+        return int(self.coefs.shape[0])
+
+    def scaled(self, factor: complex, *, divide: bool = False) -> TermBlock:
+        """The block times ``factor`` (divided by it when ``divide``)."""
+        with np.errstate(over="ignore", invalid="ignore"):
+            values = self.coefs / factor if divide else self.coefs * factor
+        if not np.all(np.isfinite(values)):
+            raise ValueError(
+                "an operation produced a coefficient that is not finite; coefficients must "
+                "be finite numbers (check for overflow, NaN or inf parameters)"
+            )
+        return TermBlock(self.count, self.modes, values)
+
+    def adjoint(self) -> TermBlock:
+        """The adjoint terms: creators and annihilators swapped, coefficients conjugated."""
+        creators = self.count[0]
+        swapped = np.concatenate((self.modes[:, creators:], self.modes[:, :creators]), axis=1)
+        return TermBlock((self.count[1], creators), swapped, self.coefs.conj())
+
+    def same_as(self, other: TermBlock) -> bool:
+        """Whether both blocks hold the same terms exactly."""
+        return (
+            self.count == other.count
+            and self.modes.shape == other.modes.shape
+            and bool(np.array_equal(self.modes, other.modes))
+            and bool(np.array_equal(self.coefs, other.coefs))
+        )
+
+    def used_modes(self) -> set[int]:
+        """The modes the terms act on."""
+        return {int(m) for m in np.unique(self.modes)}
+
+    def is_real(self) -> bool:
+        """Whether every coefficient has imaginary part 0."""
+        return not np.any(self.coefs.imag)
+
+    def largest(self) -> float:
+        """The largest coefficient magnitude (0 for an empty block)."""
+        return float(np.abs(self.coefs).max()) if len(self) else 0.0
+
+    def anti_hermitian_largest(self) -> float:
+        """Largest magnitude of ``X - X†`` (a block whose adjoint has the same count)."""
+        mirrored = self.adjoint()
+        difference = TermBlock(
+            self.count,
+            np.concatenate((self.modes, mirrored.modes)),
+            np.concatenate((self.coefs, -mirrored.coefs)),
+        )
+        return difference.largest()
+
+    def charges(self, weights: Mapping[int, int | float]) -> set[int | float]:
+        """The distinct charges ``Σ w (created − annihilated)`` of the terms."""
+        if not len(self):
+            return set()
+        top = int(self.modes.max())
+        table = np.array([weights.get(m, 0) for m in range(top + 1)])
+        signs = np.array([1] * self.count[0] + [-1] * self.count[1])
+        values = (table[self.modes] * signs).sum(axis=1)
+        return {v.item() for v in np.unique(values)}
+
+    def items(self) -> Iterable[tuple[MonomialKey, complex]]:
+        """``(key, coefficient)`` per term: one Python object per term."""
+        creators = self.count[0]
+        for row, value in zip(self.modes.tolist(), self.coefs.tolist(), strict=True):
+            yield key_of_row(row, creators), complex(value)
+
+    def __reduce__(self) -> tuple[Any, tuple[Any, ...]]:
+        return (TermBlock, (self.count, np.array(self.modes), np.array(self.coefs)))
+
+
+def _rebuild(terms: dict[MonomialKey, complex], blocks: tuple[TermBlock, ...]) -> LadderExpr:
+    """Unpickle an expression with blocks."""
+    return LadderExpr._assemble(terms, blocks)
+
+
 class LadderExpr:
     """An immutable, normal-ordered polynomial in bosonic ladder operators.
 
@@ -297,8 +495,13 @@ class LadderExpr:
     True
     """
 
-    __slots__ = ("_terms",)
+    __slots__ = ("_blocks", "_full", "_terms")
     _terms: dict[MonomialKey, complex]
+    # Array-backed terms (see TermBlock), one block per (creators, annihilators) count,
+    # sorted by that count; a monomial is either in ``_terms`` or in a block, never both.
+    _blocks: tuple[TermBlock, ...]
+    # Every term as a dict, made on first request when there are blocks.
+    _full: dict[MonomialKey, complex] | None
 
     # Make numpy scalars and arrays on the left hand operations over to us.
     __array_priority__: ClassVar[float] = 1000.0
@@ -319,6 +522,8 @@ class LadderExpr:
                 if value != 0:
                     clean[key] = value
         object.__setattr__(self, "_terms", clean)
+        object.__setattr__(self, "_blocks", ())
+        object.__setattr__(self, "_full", None)
 
     @classmethod
     def _wrap(cls, terms: dict[MonomialKey, complex]) -> LadderExpr:
@@ -331,7 +536,51 @@ class LadderExpr:
                 )
         expr = object.__new__(cls)
         object.__setattr__(expr, "_terms", terms)
+        object.__setattr__(expr, "_blocks", ())
+        object.__setattr__(expr, "_full", None)
         return expr
+
+    @classmethod
+    def _assemble(
+        cls, terms: dict[MonomialKey, complex], blocks: Iterable[TermBlock]
+    ) -> LadderExpr:
+        """Build from a clean dict and canonical blocks, merging blocks of one count and
+        moving dict terms whose count has a block into it (one home per monomial)."""
+        by_count: dict[tuple[int, int], list[TermBlock]] = {}
+        for block in blocks:
+            by_count.setdefault(block.count, []).append(block)
+        if not by_count:
+            return cls._wrap(terms)
+        loose: dict[tuple[int, int], list[tuple[MonomialKey, complex]]] = {}
+        kept: dict[MonomialKey, complex] = {}
+        for key, value in terms.items():
+            count = _key_count(key)
+            if count in by_count:
+                loose.setdefault(count, []).append((key, value))
+            else:
+                kept[key] = value
+        merged: list[TermBlock] = []
+        for count in sorted(by_count):
+            parts = by_count[count]
+            if count in loose:
+                parts = [*parts, TermBlock.from_keys(count, loose[count])]
+            block = parts[0] if len(parts) == 1 else TermBlock.concatenate(parts)
+            if len(block):
+                merged.append(block)
+        expr = cls._wrap(kept)
+        object.__setattr__(expr, "_blocks", tuple(merged))
+        return expr
+
+    def _all_terms(self) -> dict[MonomialKey, complex]:
+        """Every term as a dict (made once when the expression has blocks)."""
+        if not self._blocks:
+            return self._terms
+        if self._full is None:
+            full = dict(self._terms)
+            for block in self._blocks:
+                full.update(block.items())
+            object.__setattr__(self, "_full", full)
+        return cast(dict[MonomialKey, complex], self._full)
 
     @classmethod
     def from_terms(cls, terms: Mapping[MonomialKey, Scalar]) -> LadderExpr:
@@ -398,7 +647,9 @@ class LadderExpr:
     def __delattr__(self, name: str) -> None:
         raise AttributeError("LadderExpr is immutable")
 
-    def __reduce__(self) -> tuple[type[LadderExpr], tuple[dict[MonomialKey, complex]]]:
+    def __reduce__(self) -> tuple[Any, tuple[Any, ...]]:
+        if self._blocks:
+            return (_rebuild, (dict(self._terms), self._blocks))
         return (LadderExpr, (dict(self._terms),))
 
     def __copy__(self) -> LadderExpr:
@@ -423,13 +674,16 @@ class LadderExpr:
                 merged.pop(key, None)
             else:
                 merged[key] = total
-        return LadderExpr._wrap(merged)
+        if not self._blocks and not right._blocks:
+            return LadderExpr._wrap(merged)
+        return LadderExpr._assemble(merged, self._blocks + right._blocks)
 
     def __radd__(self, other: Scalar) -> LadderExpr:
         return self._coerce(other) + self
 
     def __neg__(self) -> LadderExpr:
-        return LadderExpr._wrap({key: -value for key, value in self._terms.items()})
+        negated = {key: -value for key, value in self._terms.items()}
+        return LadderExpr._assemble(negated, [b.scaled(-1.0) for b in self._blocks])
 
     def __pos__(self) -> LadderExpr:
         return self
@@ -446,14 +700,15 @@ class LadderExpr:
             product = value * factor
             if product != 0:
                 scaled[key] = product
-        return LadderExpr._wrap(scaled)
+        return LadderExpr._assemble(scaled, [b.scaled(factor) for b in self._blocks])
 
     def __mul__(self, other: LadderExpr | Scalar) -> LadderExpr:
         if not isinstance(other, LadderExpr):
             return self._scale(_coefficient(other))
         product: dict[MonomialKey, complex] = {}
-        for left_key, left_value in self._terms.items():
-            for right_key, right_value in other._terms.items():
+        # Products of array-backed terms go term by term (one object per term).
+        for left_key, left_value in self._all_terms().items():
+            for right_key, right_value in other._all_terms().items():
                 pair = left_value * right_value
                 for weight, key in _multiply_monomials(left_key, right_key):
                     product[key] = product.get(key, 0j) + pair * weight
@@ -474,7 +729,7 @@ class LadderExpr:
             quotient = value / divisor
             if quotient != 0:
                 divided[key] = quotient
-        return LadderExpr._wrap(divided)
+        return LadderExpr._assemble(divided, [b.scaled(divisor, divide=True) for b in self._blocks])
 
     def __rtruediv__(self, other: object) -> NoReturn:
         raise TypeError(
@@ -513,22 +768,28 @@ class LadderExpr:
         >>> (2j * raising(0) * lowering(1)).adjoint()
         LadderExpr(-2j·a1† a0)
         """
-        return LadderExpr._wrap(
+        return LadderExpr._assemble(
             {
                 tuple((mode, q, p) for mode, p, q in key): value.conjugate()
                 for key, value in self._terms.items()
-            }
+            },
+            [b.adjoint() for b in self._blocks],
         )
 
     # -- comparison ----------------------------------------------------------------
 
     def __eq__(self, other: object) -> bool:
         if isinstance(other, LadderExpr):
-            return self._terms == other._terms
+            mine = [b.count for b in self._blocks]
+            if mine == [b.count for b in other._blocks]:
+                return self._terms == other._terms and all(
+                    a.same_as(b) for a, b in zip(self._blocks, other._blocks, strict=True)
+                )
+            return self._all_terms() == other._all_terms()
         if not _is_number(other):
             return NotImplemented
         try:
-            return self._terms == LadderExpr.scalar(other)._terms  # type: ignore[arg-type]
+            return self._all_terms() == LadderExpr.scalar(other)._terms  # type: ignore[arg-type]
         except ValueError:
             return False  # NaN and infinities equal no expression
 
@@ -547,7 +808,8 @@ class LadderExpr:
         >>> (3 + raising(1)).terms()
         [((3+0j), ()), ((1+0j), ((1, 1, 0),))]
         """
-        return [(self._terms[key], key) for key in sorted(self._terms)]
+        every = self._all_terms()
+        return [(every[key], key) for key in sorted(every)]
 
     def is_zero(self) -> bool:
         """Return True when the expression has no terms.
@@ -557,7 +819,17 @@ class LadderExpr:
         >>> (number(0) - number(0)).is_zero()
         True
         """
-        return not self._terms
+        return not self._terms and not self._blocks
+
+    def term_count(self) -> int:
+        """Return the number of terms, without making one object per term.
+
+        Examples
+        --------
+        >>> (number(0) + 2 * raising(1) + 3).term_count()
+        3
+        """
+        return len(self._terms) + sum(len(b) for b in self._blocks)
 
     def modes(self) -> tuple[int, ...]:
         """Return the sorted modes that carry an operator.
@@ -567,7 +839,10 @@ class LadderExpr:
         >>> (raising(3) * lowering(1) + 2).modes()
         (1, 3)
         """
-        return tuple(sorted({mode for key in self._terms for mode, _, _ in key}))
+        used = {mode for key in self._terms for mode, _, _ in key}
+        for block in self._blocks:
+            used.update(block.used_modes())
+        return tuple(sorted(used))
 
     def max_mode(self) -> int:
         """Return the largest mode used, or -1 when the expression is a scalar.
@@ -588,7 +863,8 @@ class LadderExpr:
         >>> (raising(0) ** 2 * lowering(1) + number(2)).degree()
         3
         """
-        return max((sum(p + q for _, p, q in key) for key in self._terms), default=0)
+        blocks = (sum(b.count) for b in self._blocks)
+        return max([*(sum(p + q for _, p, q in key) for key in self._terms), *blocks], default=0)
 
     def is_real(self) -> bool:
         """Return True when every coefficient has imaginary part exactly 0.
@@ -598,7 +874,9 @@ class LadderExpr:
         >>> number(0).is_real(), (1j * number(0)).is_real()
         (True, False)
         """
-        return all(value.imag == 0 for value in self._terms.values())
+        return all(value.imag == 0 for value in self._terms.values()) and all(
+            b.is_real() for b in self._blocks
+        )
 
     def is_hermitian(self, tol: float = 1e-12) -> bool:
         """Return True when the expression equals its adjoint within ``tol``.
@@ -630,14 +908,31 @@ class LadderExpr:
             _reject_number_as(tol, "tol", "a non-negative float")
         if not math.isfinite(tol) or tol < 0:
             raise ValueError(f"tol must be a finite non-negative float, got {tol!r}")
-        if not self._terms:
+        if self.is_zero():
             return True
-        scale = max(abs(value) for value in self._terms.values())
-        mirrored = self.adjoint()._terms
-        return all(
+        if any(b.count[0] != b.count[1] for b in self._blocks):
+            # A block's adjoint lives elsewhere: compare term by term.
+            every = self._all_terms()
+            scale = max(abs(value) for value in every.values())
+            mirrored = self.adjoint()._all_terms()
+            return all(
+                abs(every.get(key, 0j) - mirrored.get(key, 0j)) <= tol * scale
+                for key in every.keys() | mirrored.keys()
+            )
+        # Each block is mapped onto itself by the adjoint, and so is the dict.
+        scale = max(
+            [*(abs(value) for value in self._terms.values()), *(b.largest() for b in self._blocks)]
+        )
+        mirrored = {
+            tuple((mode, q, p) for mode, p, q in key): value.conjugate()
+            for key, value in self._terms.items()
+        }
+        if not all(
             abs(self._terms.get(key, 0j) - mirrored.get(key, 0j)) <= tol * scale
             for key in self._terms.keys() | mirrored.keys()
-        )
+        ):
+            return False
+        return all(b.anti_hermitian_largest() <= tol * scale for b in self._blocks)
 
     def hermitian_part(self) -> LadderExpr:
         """Return ``(X + X†) / 2``.
@@ -693,7 +988,10 @@ class LadderExpr:
                     f"weights has {len(lookup)} entries but the expression uses mode "
                     f"{self.max_mode()}; give one weight per mode"
                 )
-        return {sum(lookup.get(mode, 0) * (p - q) for mode, p, q in key) for key in self._terms}
+        found = {sum(lookup.get(mode, 0) * (p - q) for mode, p, q in key) for key in self._terms}
+        for block in self._blocks:
+            found.update(block.charges(lookup))
+        return found
 
     def filter(self, predicate: Callable[[complex, MonomialKey], bool]) -> LadderExpr:
         """Return the terms for which ``predicate(coefficient, key)`` is true.
@@ -713,7 +1011,7 @@ class LadderExpr:
         LadderExpr(2.0·a1†)
         """
         return LadderExpr._wrap(
-            {key: value for key, value in self._terms.items() if predicate(value, key)}
+            {key: value for key, value in self._all_terms().items() if predicate(value, key)}
         )
 
     def to_native(self) -> list[NativeTerm]:
@@ -731,6 +1029,43 @@ class LadderExpr:
         [(0.0, 0.5, [(0, 1, 0), (2, 0, 1)])]
         """
         return [(value.real, value.imag, list(key)) for value, key in self.terms()]
+
+    def to_native_parts(self) -> tuple[list[NativeTerm], list[NativeBlock]]:
+        """Return the terms in the binding's form without one object per array term.
+
+        Returns
+        -------
+        terms : list of (float, float, list of (int, int, int))
+            The terms kept one by one, as :meth:`to_native`.
+        blocks : list of (int, ndarray, ndarray, ndarray)
+            The array-backed terms, one entry per count of ladder operators:
+            ``(creators, modes, re, im)`` where row ``r`` of the int64 array ``modes``
+            lists the modes of the creation operators (its first ``creators`` columns)
+            then those of the annihilation operators of term ``r`` (a mode repeats for a
+            power above one), and ``re[r] + 1j * im[r]`` is its coefficient.
+
+        Examples
+        --------
+        >>> import numpy as np
+        >>> import fockmill as fm
+        >>> terms, blocks = (fm.quadratic_form(np.eye(2)) + 1).to_native_parts()
+        >>> terms
+        [(1.0, 0.0, [])]
+        >>> creators, modes, re, im = blocks[0]
+        >>> creators, modes.tolist(), re.tolist()
+        (1, [[0, 0], [1, 1]], [1.0, 1.0])
+        """
+        terms = [(value.real, value.imag, list(key)) for key, value in sorted(self._terms.items())]
+        blocks = [
+            (
+                b.count[0],
+                b.modes,
+                np.ascontiguousarray(b.coefs.real),
+                np.ascontiguousarray(b.coefs.imag),
+            )
+            for b in self._blocks
+        ]
+        return terms, blocks
 
     # -- rendering -----------------------------------------------------------------
 

@@ -15,8 +15,9 @@ Schema (every table but ``[model]`` is optional; unknown keys are errors)
 ``schema = 1``
     Optional version marker of this layout.
 ``[model]``
-    ``kind`` is ``"bose-hubbard"``, ``"jaynes-cummings-hubbard"`` or
-    ``"kerr-network"``; the other keys depend on it:
+    ``kind`` is ``"bose-hubbard"``, ``"jaynes-cummings-hubbard"``,
+    ``"kerr-network"``, ``"lowest-landau-level"`` or ``"modes"``; the other keys
+    depend on it:
 
     * bose-hubbard: ``lattice`` = ``"chain"`` | ``"ring"`` (with ``sites``),
       ``"rectangle"`` (with ``rows``, ``cols``, optional ``periodic``) or ``"edges"``
@@ -27,13 +28,19 @@ Schema (every table but ``[model]`` is optional; unknown keys are errors)
     * kerr-network: ``frequencies = [...]``, optional ``self_kerr`` (number or one per
       mode), ``cross_kerr = [[i, j, chi], ...]``, ``couplings = [[i, j, g], ...]``;
       ``cutoff`` (integer or one per mode), optional ``total``.
+    * lowest-landau-level: ``total`` (bosons), ``angular_momentum``, optional
+      ``orbitals`` (see :func:`fockmill.models.builders.lowest_landau_level`).
+    * modes: ``modes``, ``cutoff`` (integer or one per mode), optional ``total`` and
+      ``weights``; no terms of its own (give them in ``[terms.NAME]``).
 ``[terms.NAME]``
     The user's own terms, multiplied by parameter ``NAME`` (new, or an existing one
     whose family they join): ``value`` (default of a new parameter, 1.0), ``fixed``
     (add to every point instead), ``terms = ["0.5 raising(0) lowering(1)", ...]`` (syntax
     in :mod:`fockmill.algebra.terms`), ``per_mode = "number(@)"`` with ``modes``,
-    ``weights`` or ``random = {distribution, seed, low/high or mean/std}``, and
-    ``add_adjoint``.
+    ``weights`` or ``random = {distribution, seed, low/high or mean/std}``,
+    ``quadratic_form`` and ``pair_interaction`` (coefficient arrays: a ``.npy`` path
+    relative to the model file, nested lists, or ``{indices = ..., values = ...}``; see
+    :func:`fockmill.quadratic_form`), and ``add_adjoint``.
 ``[parameters]``
     Default value of any model parameter (``J``, ``U``, ``mu``; ``wc``, ``we``,
     ``g``, ``J``; ``frequency_scale``, ``kerr_scale``, ``cross_kerr_scale``,
@@ -82,6 +89,7 @@ from typing import TYPE_CHECKING, Any
 import numpy as np
 import numpy.typing as npt
 
+from fockmill.algebra.arrays import pair_interaction, quadratic_form
 from fockmill.algebra.expressions import LadderExpr
 from fockmill.exceptions import ModelFileError
 from fockmill.files.dynamics import parse_dynamics_sections
@@ -101,12 +109,14 @@ from fockmill.models.builders import (
     chain_edges,
     jaynes_cummings_hubbard,
     kerr_network,
+    lowest_landau_level,
     rectangular_edges,
     with_drives,
 )
 from fockmill.models.model import Model
 from fockmill.settings.checks import MAX_SEED, MAX_THREADS, METHODS
 from fockmill.settings.solver import SolverSettings
+from fockmill.spaces.fock import FockSpace
 from fockmill.sweeps.plan import RECORDABLE, RENAMED_QUANTITIES, SweepGrid
 
 if TYPE_CHECKING:
@@ -123,7 +133,13 @@ __all__ = [
     "parse_model_text",
 ]
 
-KINDS: tuple[str, ...] = ("bose-hubbard", "jaynes-cummings-hubbard", "kerr-network")
+KINDS: tuple[str, ...] = (
+    "bose-hubbard",
+    "jaynes-cummings-hubbard",
+    "kerr-network",
+    "lowest-landau-level",
+    "modes",
+)
 """Values of ``model.kind``."""
 
 SOLVER_METHODS: tuple[str, ...] = METHODS
@@ -400,6 +416,62 @@ def _kerr_network(reader: Reader, table: Mapping[str, Any]) -> Model:
     )
 
 
+def _lowest_landau_level(reader: Reader, table: Mapping[str, Any]) -> Model:
+    path = "model"
+    reader.check_keys(table, path, ["kind", "total", "angular_momentum", "orbitals"])
+    total = reader.integer(
+        reader.required(table, "total", path, "an integer >= 1 (the number of bosons)"),
+        "model.total",
+        1,
+        MAX_TOTAL,
+    )
+    momentum = reader.integer(
+        reader.required(table, "angular_momentum", path, "an integer >= 0"),
+        "model.angular_momentum",
+        0,
+        MAX_TOTAL,
+    )
+    orbitals = None
+    if "orbitals" in table:
+        orbitals = reader.integer(table["orbitals"], "model.orbitals", 1, MAX_MODES)
+    elif momentum + 1 > MAX_MODES:
+        reader.fail(
+            "model.angular_momentum", f"expected at most {MAX_MODES - 1} (one orbital each)"
+        )
+    return lowest_landau_level(orbitals, total=total, angular_momentum=momentum)
+
+
+def _modes(reader: Reader, table: Mapping[str, Any], has_terms: bool) -> Model:
+    path = "model"
+    reader.check_keys(table, path, ["kind", "modes", "cutoff", "total", "weights"])
+    if not has_terms:
+        reader.fail(
+            "model.kind",
+            '"modes" has no terms of its own; give the Hamiltonian in [terms.NAME] tables',
+        )
+    modes = reader.integer(
+        reader.required(table, "modes", path, "an integer >= 1"), "model.modes", 1, MAX_MODES
+    )
+    cutoff = _cutoff(
+        reader,
+        reader.required(table, "cutoff", path, "an integer >= 1 or one per mode"),
+        "model.cutoff",
+        modes,
+    )
+    weights = None
+    if "weights" in table:
+        items = reader.array(table["weights"], "model.weights", "integers (one per mode)")
+        if len(items) != modes:
+            reader.fail("model.weights", f"expected {modes} integers (one per mode)")
+        weights = [
+            reader.integer(v, join_key("model.weights", k), 0, 2**32 - 1)
+            for k, v in enumerate(items)
+        ]
+    space = FockSpace(modes, cutoff, _total(reader, table, path), weights=weights)
+    labels = tuple(f"mode {i}" for i in range(modes))
+    return Model("modes", space, {}, {}, mode_labels=labels)
+
+
 def _drive_table(
     reader: Reader, value: object, path: str, modes: int
 ) -> dict[str, dict[int, float]]:
@@ -438,6 +510,10 @@ def _build_model(reader: Reader, document: Mapping[str, Any]) -> Model:
             model = _bose_hubbard(reader, table, needs_cutoff="drives" in document)
         elif kind == "jaynes-cummings-hubbard":
             model = _jaynes_cummings_hubbard(reader, table)
+        elif kind == "lowest-landau-level":
+            model = _lowest_landau_level(reader, table)
+        elif kind == "modes":
+            model = _modes(reader, table, "terms" in document)
         else:
             model = _kerr_network(reader, table)
         if "drives" in document:
@@ -615,8 +691,11 @@ _TERM_KEYS = [
     "modes",
     "weights",
     "random",
+    "quadratic_form",
+    "pair_interaction",
     "add_adjoint",
 ]
+_ARRAY_ORDERS = {"quadratic_form": 2, "pair_interaction": 4}
 _DISTRIBUTIONS = ("uniform", "normal")
 MAX_UNIT_LENGTH = 40
 
@@ -673,6 +752,80 @@ def _mode_weights(
     return tuple(float(v) for v in draws)
 
 
+def _array_source(reader: Reader, value: object, path: str, base: str | None) -> Any:
+    """A coefficient array from a ``.npy`` path (relative to the model file) or inline
+    nested lists."""
+    if isinstance(value, str):
+        if not value.endswith(".npy"):
+            reader.fail(path, f"expected a path to a .npy file or nested lists; got {value!r}")
+        name = value if os.path.isabs(value) or base is None else os.path.join(base, value)
+        try:
+            return np.load(name, allow_pickle=False)
+        except (OSError, ValueError) as error:
+            reader.fail(path, f"cannot read the array {name!r}: {error}")
+    if isinstance(value, list):
+        try:
+            array = np.array(value, dtype=np.float64)
+        except (TypeError, ValueError):
+            reader.fail(path, "expected nested lists of numbers of one rectangular shape")
+        return array
+    reader.wrong(path, "a .npy path, nested lists, or {indices = ..., values = ...}", value)
+
+
+def _array_terms(
+    reader: Reader, table: Mapping[str, Any], path: str, model: Model, base: str | None
+) -> LadderExpr:
+    """The ``quadratic_form`` and ``pair_interaction`` keys of one ``[terms.NAME]``."""
+    piece = LadderExpr()
+    modes = model.space.modes
+    for key, order in _ARRAY_ORDERS.items():
+        if key not in table:
+            continue
+        kpath = join_key(path, key)
+        value = table[key]
+        coefficients: Any
+        if isinstance(value, dict):
+            reader.check_keys(value, kpath, ["indices", "values"])
+            indices = _array_source(
+                reader,
+                reader.required(value, "indices", kpath, f"(n, {order}) mode indices"),
+                join_key(kpath, "indices"),
+                base,
+            )
+            values = _array_source(
+                reader,
+                reader.required(value, "values", kpath, "n numbers"),
+                join_key(kpath, "values"),
+                base,
+            )
+            if np.issubdtype(indices.dtype, np.floating):
+                if not np.all(indices == np.round(indices)):
+                    reader.fail(join_key(kpath, "indices"), "expected integer mode indices")
+                indices = indices.astype(np.int64)
+            coefficients = (indices, values)
+        else:
+            coefficients = _array_source(reader, value, kpath, base)
+            if coefficients.shape != (modes,) * order:
+                reader.fail(
+                    kpath,
+                    f"expected an array of shape {(modes,) * order} (one axis per index over "
+                    f"the model's {modes} modes); got shape {coefficients.shape}",
+                )
+        build = quadratic_form if order == 2 else pair_interaction
+        try:
+            expr = build(coefficients)
+        except (TypeError, ValueError) as error:
+            reader.fail(kpath, str(error))
+        if expr.max_mode() >= modes:
+            reader.fail(
+                kpath,
+                f"an index reaches mode {expr.max_mode()}, but the model has {modes} modes",
+            )
+        check_charge(reader, expr, kpath, key, model)
+        piece = piece + expr
+    return piece
+
+
 def _term_modes(reader: Reader, table: Mapping[str, Any], path: str, model: Model) -> list[int]:
     modes = model.space.modes
     if "modes" not in table:
@@ -694,7 +847,7 @@ def _term_modes(reader: Reader, table: Mapping[str, Any], path: str, model: Mode
 
 
 def _terms(
-    reader: Reader, value: object, model: Model
+    reader: Reader, value: object, model: Model, base: str | None = None
 ) -> tuple[Model, dict[str, tuple[float, ...]], dict[str, str]]:
     """``[terms.NAME]`` tables: the user's own terms, each family scaled by parameter NAME."""
     sections = reader.table(value, "terms")
@@ -736,8 +889,11 @@ def _terms(
                     join_key(path, "description"), "fixed terms have no parameter to describe"
                 )
             descriptions[name] = text.strip()
-        if "terms" not in table and "per_mode" not in table:
-            reader.fail(path, 'expected terms = ["..."] and/or per_mode = "..."')
+        if not any(k in table for k in ("terms", "per_mode", *_ARRAY_ORDERS)):
+            reader.fail(
+                path,
+                'expected terms = ["..."], per_mode = "...", quadratic_form or pair_interaction',
+            )
         for key in ("modes", "weights", "random"):
             if key in table and "per_mode" not in table:
                 reader.fail(join_key(path, key), 'only meaningful with per_mode = "..."')
@@ -768,6 +924,9 @@ def _terms(
                 if adjoint:
                     term = term + term.adjoint()
                 piece = piece + weight * term
+        if any(k in table for k in _ARRAY_ORDERS):
+            arrays = _array_terms(reader, table, path, model, base)
+            piece = piece + (arrays + arrays.adjoint() if adjoint else arrays)
         if not piece.is_hermitian():
             reader.fail(
                 path,
@@ -850,7 +1009,8 @@ def _parse(text: str, source: str, path: str | None) -> ModelFile:
     mode_weights: dict[str, tuple[float, ...]] = {}
     descriptions: dict[str, str] = {}
     if "terms" in document:
-        model, mode_weights, descriptions = _terms(reader, document["terms"], model)
+        base = None if path is None else os.path.dirname(os.path.abspath(path))
+        model, mode_weights, descriptions = _terms(reader, document["terms"], model, base)
     if "parameters" in document:
         model = _parameters(reader, document["parameters"], model)
     units = _units(reader, document["units"], model) if "units" in document else {}

@@ -1,5 +1,6 @@
 """Ready-made models: Bose–Hubbard on any graph, Jaynes–Cummings–Hubbard arrays, Kerr
-networks and drives, each a :class:`Model` (a Hamiltonian linear in named parameters).
+networks, lowest-Landau-level bosons and drives, each a :class:`Model` (a Hamiltonian
+linear in named parameters).
 
 The builders live in :mod:`fockmill.models.builders`; their names are this package's
 API (``dir(fockmill.models)`` lists them).

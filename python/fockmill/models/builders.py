@@ -17,6 +17,9 @@ kerr_network
     exchange couplings; one unit-default scale factor per family: ``frequency_scale``,
     ``kerr_scale``, ``cross_kerr_scale``, ``exchange_scale`` (the old names ``omega``,
     ``kerr``, ``cross_kerr``, ``exchange`` still work, with a DeprecationWarning).
+lowest_landau_level
+    Bosons in the lowest Landau level of a disk (a rapidly rotating trap) with a
+    contact interaction, at fixed particle number and angular momentum; piece ``g``.
 with_drives
     Adds coherent (one-photon) and two-photon drives to any model and moves it to the
     Fock space those drives leave invariant; pieces ``drive``, ``two_photon``.
@@ -38,6 +41,7 @@ from typing import cast as _cast
 
 import numpy as _np
 
+from fockmill.algebra.arrays import pair_interaction
 from fockmill.algebra.expressions import LadderExpr, MonomialKey
 from fockmill.models.model import Model
 from fockmill.spaces.fock import FockSpace
@@ -49,6 +53,8 @@ __all__ = [
     "chain_edges",
     "jaynes_cummings_hubbard",
     "kerr_network",
+    "landau_level_interaction",
+    "lowest_landau_level",
     "rectangular_edges",
     "ring_edges",
     "with_drives",
@@ -678,6 +684,136 @@ def kerr_network(
         mode_labels=labels,
         renamed=KERR_NETWORK_RENAMED,
     )
+
+
+def landau_level_interaction(
+    orbitals: int,
+) -> tuple[_np.ndarray[_Any, _np.dtype[_np.int64]], _np.ndarray[_Any, _np.dtype[_np.float64]]]:
+    """Contact-interaction elements between lowest-Landau-level orbitals of a disk.
+
+    ``V[m1, m2, m3, m4] = δ(m1 + m2, m3 + m4) (m1 + m2)! / (2^(m1 + m2)
+    sqrt(m1! m2! m3! m4!))``, in units of ``g_2D / (2π a²)`` (see
+    :func:`lowest_landau_level`), so that ``V[0, 0, 0, 0] = 1``.
+
+    Parameters
+    ----------
+    orbitals : int
+        Number of orbitals ``M``; angular momenta ``m = 0 … M − 1``.
+
+    Returns
+    -------
+    indices : ndarray of int64, shape (n, 4)
+        Every ``(m1, m2, m3, m4)`` with ``m1 + m2 = m3 + m4``, all below ``M``.
+    values : ndarray of float64, shape (n,)
+        The elements, ready for :func:`fockmill.pair_interaction` as
+        ``pair_interaction((indices, values))``.
+
+    Examples
+    --------
+    >>> indices, values = landau_level_interaction(2)
+    >>> [(tuple(i), float(v)) for i, v in zip(indices.tolist(), values) if i[0] == 0]
+    [((0, 0, 0, 0), 1.0), ((0, 1, 0, 1), 0.5), ((0, 1, 1, 0), 0.5)]
+    """
+    count = _count(orbitals, "orbitals", 1)
+    m = _np.arange(count, dtype=_np.int64)
+    m1, m2, m3 = (a.reshape(-1) for a in _np.meshgrid(m, m, m, indexing="ij"))
+    m4 = m1 + m2 - m3
+    keep = (m4 >= 0) & (m4 < count)
+    indices = _np.stack((m1[keep], m2[keep], m3[keep], m4[keep]), axis=1)
+    total = indices[:, 0] + indices[:, 1]
+    # Logarithms keep the factorials finite for many orbitals.
+    from scipy.special import gammaln
+
+    log_value = (
+        gammaln(total + 1.0) - total * _math.log(2.0) - 0.5 * gammaln(indices + 1.0).sum(axis=1)
+    )
+    return _np.ascontiguousarray(indices), _np.exp(log_value)
+
+
+def lowest_landau_level(
+    orbitals: int | None = None,
+    *,
+    total: int,
+    angular_momentum: int,
+    g: float = 1.0,
+) -> Model:
+    """Bosons in the lowest Landau level of a disk with a contact interaction.
+
+    ``H = (g/2) Σ V[m1, m2, m3, m4] a_m1† a_m2† a_m3 a_m4`` over the orbitals
+    ``m = 0 … M − 1`` of angular momentum ``m``, with the elements of
+    :func:`landau_level_interaction` (``V[0, 0, 0, 0] = 1``), at a fixed number of
+    bosons ``N = Σ n_m`` and total angular momentum ``L = Σ m n_m``.
+
+    Parameters
+    ----------
+    orbitals : int, optional
+        Number of orbitals ``M``; default ``L + 1`` (no boson can sit in an orbital
+        above ``L``, so more orbitals change nothing).
+    total : int
+        Number of bosons ``N`` (keyword, required).
+    angular_momentum : int
+        Total angular momentum ``L`` (keyword, required).
+    g : float, default 1.0
+        Default of the parameter ``g``: the interaction energy of two bosons in the
+        orbital ``m = 0``, ``g = g_2D / (2π a²)`` for the contact potential
+        ``g_2D δ²(r1 − r2)`` and orbitals ``z^m exp(−|z|²/2) / sqrt(π m!)`` with ``z``
+        in units of the length ``a`` (the trap's oscillator length; ``a² = 2ℓ²`` with
+        ``ℓ`` the magnetic length of the equivalent Landau problem).
+
+    Returns
+    -------
+    Model
+        Named ``"lowest-landau-level"``, mode ``m`` labelled ``"m = m"``, one piece
+        ``"g"``. The space fixes both ``N`` and ``L`` through the one weighted charge
+        ``Σ (m + K) n_m = L + K N`` with ``K = max(L + 1, (M − 1)(N − 1) − L + 1)``:
+        no other ``(N', L')`` reaches that charge (``N' > N`` would need ``L' < 0``,
+        ``N' < N`` an ``L'`` beyond ``(M − 1) N'``), so the sector is exactly the states
+        with ``N`` bosons and angular momentum ``L``; ``model.space.weights`` are the
+        ``m + K``.
+
+    Raises
+    ------
+    ValueError
+        For ``total < 1``, ``angular_momentum < 0`` or ``orbitals < 1``.
+    TypeError
+        For non-integer arguments or a non-real ``g``.
+    SpaceError
+        For a sector with no states (``L > (M − 1) N``).
+
+    Notes
+    -----
+    The elements follow from ``∫ d²r |z|^(2s) exp(−2|z|²) = π s! / 2^(s+1)`` with
+    ``s = m1 + m2`` and the angular integral, which keeps ``m1 + m2 = m3 + m4``;
+    derivation in ``docs/model-files.md``. The energy of ``N`` bosons in ``m = 0`` is
+    ``g N (N − 1) / 2``; the Laughlin state at ``L = N (N − 1)`` has zero energy.
+
+    Examples
+    --------
+    >>> model = lowest_landau_level(total=3, angular_momentum=3)
+    >>> model.space.dim, model.parameters
+    (3, {'g': 1.0})
+    """
+    particles = _count(total, "total", 1)
+    momentum = _index(angular_momentum, "angular_momentum")
+    count = momentum + 1 if orbitals is None else _count(orbitals, "orbitals", 1)
+    if momentum > (count - 1) * particles:
+        from fockmill.exceptions import SpaceError
+
+        raise SpaceError(
+            f"no state of {particles} bosons in {count} orbitals (m = 0 … {count - 1}) has "
+            f"angular momentum {momentum}: the most is {(count - 1) * particles}; give more "
+            "orbitals or a smaller angular_momentum"
+        )
+    shift = max(momentum + 1, (count - 1) * (particles - 1) - momentum + 1)
+    space = FockSpace(
+        count,
+        particles,
+        momentum + shift * particles,
+        weights=[m + shift for m in range(count)],
+    )
+    pieces = {"g": pair_interaction(landau_level_interaction(count))}
+    labels = tuple(f"m = {m}" for m in range(count))
+    return Model("lowest-landau-level", space, pieces, {"g": _real(g, "g")}, mode_labels=labels)
 
 
 def _drive_terms(

@@ -66,4 +66,5 @@ def compile_between(
             "needs the same modes (change only the total)"
         )
     check_terms(e, s)
-    return _native.NativeOperator.between(s.native, t.native, e.to_native(), project=project)
+    terms, blocks = e.to_native_parts()
+    return _native.NativeOperator.between(s.native, t.native, terms, blocks=blocks, project=project)

@@ -41,4 +41,5 @@ def compile_operator(expr: object, space: object, target: object = None) -> Any:
     check_terms(e, s)
     if isinstance(s, SymmetricSpace):
         return s._compile(e)
-    return _native.NativeOperator.on_space(s.native, e.to_native())
+    terms, blocks = e.to_native_parts()
+    return _native.NativeOperator.on_space(s.native, terms, blocks=blocks)

@@ -286,7 +286,7 @@ class Problem:
 
     def __repr__(self) -> str:
         return (
-            f"Problem({len(self.expr.terms())} terms on {self.space!r}, shape={self.shape}, "
+            f"Problem({self.expr.term_count()} terms on {self.space!r}, shape={self.shape}, "
             f"dtype={self.dtype}, threads={self.threads})"
         )
 

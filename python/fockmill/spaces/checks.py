@@ -5,7 +5,9 @@ from __future__ import annotations
 
 import cmath
 
-from fockmill.algebra.expressions import LadderExpr, format_monomial
+import numpy as np
+
+from fockmill.algebra.expressions import LadderExpr, format_monomial, key_of_row
 from fockmill.exceptions import ModeIndexError, SpaceError
 from fockmill.spaces.fock import FockSpace
 from fockmill.spaces.symmetry import SymmetricSpace
@@ -47,7 +49,9 @@ def check_terms(e: LadderExpr, s: FockSpace) -> None:
     ValueError
         A power above :data:`MAX_POWER` or a NaN/inf coefficient.
     """
-    for coefficient, key in e.terms():
+    native_terms, blocks = e.to_native_parts()
+    for re, im, factors in native_terms:
+        key = tuple(factors)
         for mode, p, q in key:
             if mode >= s.modes:
                 raise ModeIndexError(
@@ -60,8 +64,20 @@ def check_terms(e: LadderExpr, s: FockSpace) -> None:
                     f"term {format_monomial(key)} has a power above {MAX_POWER}; such powers "
                     "vanish on every supported space, drop the term"
                 )
+        coefficient = complex(re, im)
         if not cmath.isfinite(coefficient):
             raise ValueError(
                 f"term {format_monomial(key)} has the coefficient {coefficient}, which is not "
                 "finite; check the parameters for NaN, inf or overflow"
+            )
+    # Array-backed terms: finite coefficients and small powers by construction.
+    for creators, modes, _re, _im in blocks:
+        if modes.size and int(modes.max()) >= s.modes:
+            row = modes[int(np.argmax(modes.max(axis=1)))]
+            mode = int(row.max())
+            key = key_of_row(row, creators)
+            raise ModeIndexError(
+                f"term {format_monomial(key)} acts on mode {mode}, but the space has only "
+                f"{s.modes} modes (valid indices 0..{s.modes - 1}); use a space with more "
+                "modes or give a coefficient array with one index per mode of the space"
             )

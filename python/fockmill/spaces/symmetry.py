@@ -507,7 +507,8 @@ class SymmetricSpace:
     def _compile(self, expr: LadderExpr) -> _native.NativeOperator:
         """The compiled operator of an invariant ``expr`` on this sector."""
         self.check_invariant(expr)
-        return _native.NativeOperator.on_sector(self._native, expr.to_native())
+        terms, blocks = expr.to_native_parts()
+        return _native.NativeOperator.on_sector(self._native, terms, blocks=blocks)
 
     def __reduce__(self) -> tuple[Any, ...]:
         return (_rebuild_sector, (self._base, self._symmetries))

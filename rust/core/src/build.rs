@@ -228,7 +228,7 @@ impl<S: Scalar> SparseRows<S> for OnSpace<'_, Product<S>> {
             Product::Split(b) => b.count_rows(first, out),
             Product::Rows(k) => OnSpace {
                 space: self.space,
-                kernel: k,
+                kernel: k.as_ref(),
             }
             .count_rows(first, out),
         }
@@ -238,7 +238,7 @@ impl<S: Scalar> SparseRows<S> for OnSpace<'_, Product<S>> {
             Product::Split(b) => b.emit_rows(first, count, emit),
             Product::Rows(k) => OnSpace {
                 space: self.space,
-                kernel: k,
+                kernel: k.as_ref(),
             }
             .emit_rows(first, count, emit),
         }

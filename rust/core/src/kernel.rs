@@ -3,6 +3,16 @@
 //! term's constants (modes, powers, table strides) hoisted out of the row loop.
 //! Diagonal single-mode terms are folded into per-mode tables.
 //!
+//! Operators with many terms (coupling matrices, pair interactions: far more terms than
+//! modes) would make that loop visit every term on every row although only a few act
+//! on it. Their terms that remove one or two quanta from the row state are indexed by
+//! the quanta they remove instead ([`Lowering`]): a row visits only the groups of the
+//! modes it occupies, so the work follows the entries, as configuration-interaction
+//! codes drive their builds from the excitations a state allows (Knowles & Handy,
+//! Chem. Phys. Lett. 111, 315 (1984); Olsen et al., J. Chem. Phys. 89, 2185 (1988)).
+//! Their columns are ranked from the occupied modes only (a mode without quanta adds
+//! nothing to the rank and leaves the residue alone).
+//!
 //! Every row still receives its contributions in a fixed order (the diagonal first,
 //! then the off-diagonal terms in order), so results do not depend on threads.
 
@@ -89,6 +99,266 @@ struct Hop<S> {
     rest: Vec<SpanStep>,
 }
 
+/// Terms that remove one or two quanta from the row state, grouped by the quanta they
+/// remove. Group `g` holds terms `starts[g]..starts[g + 1]`: group `i` removes one
+/// quantum of mode `i`, group `m + i * m + j` (`i <= j`) one of `i` and one of `j`
+/// (two of `i` when `i == j`). Within a group, terms are sorted so that their columns
+/// come out ascending on every row.
+#[derive(Debug, Clone)]
+struct Lowering<S> {
+    starts: Vec<u32>,
+    coef: Vec<S>,
+    /// Quanta added: up to two `(mode, power)`, sorted by mode; power 0 is unused.
+    raised: Vec<[(u32, u32); 2]>,
+    /// Upper bound of the entries one row gets from the index.
+    row_bound: usize,
+    /// Columns of the single groups by intermediate state, when they apply.
+    hop_table: Option<HopTable>,
+}
+
+/// Columns of the single groups' terms by intermediate state. When every term of the
+/// single groups moves one quantum (removes one of mode `i`, adds one of mode `j`) and
+/// the sector fixes a total with equal weights, the image of row state `s` is
+/// `s' + e_j` with `s' = s − e_i` a state of the sector with one quantum fewer: its
+/// column is read from `cols[k * m + j]` (`k` the rank of `s'` there; `u64::MAX` past
+/// a cutoff) instead of being ranked, so a row costs one look-up per entry, as a
+/// stored matrix does.
+#[derive(Debug, Clone)]
+struct HopTable {
+    inter: FockSpace,
+    cols: Vec<u64>,
+    /// The mode each term of the single groups adds a quantum to.
+    to: Vec<u32>,
+}
+
+/// Largest intermediate table (entries) relative to the sector's dimension.
+const HOP_TABLE_PER_STATE: u64 = 64;
+
+/// Rank of the state with the given `(mode, occupation)` pairs (ascending modes, zero
+/// occupations allowed): modes without quanta add nothing and keep the residue.
+fn sparse_rank(space: &FockSpace, occupied: impl Iterator<Item = (usize, u32)>) -> u64 {
+    let mut residue = space.start_residue();
+    let mut rank = 0u64;
+    for (mode, v) in occupied {
+        if v == 0 {
+            continue;
+        }
+        rank += space.offset(mode, residue, v);
+        residue = match space.step(residue, mode, v) {
+            Some(r) => r,
+            None => return u64::MAX,
+        };
+    }
+    rank
+}
+
+impl HopTable {
+    /// The table for `space`, or `None` when it does not apply or would be too large.
+    fn new(space: &FockSpace) -> Option<Self> {
+        let m = space.modes();
+        let w = *space.weights().first()?;
+        let total = match space.constraint() {
+            Constraint::Exact { total } => total,
+            _ => return None,
+        };
+        if w == 0 || space.weights().iter().any(|&x| x != w) || total < w as u64 {
+            return None;
+        }
+        let inter = FockSpace::new(
+            space.cutoffs().to_vec(),
+            Some(space.weights().to_vec()),
+            Some(total - w as u64),
+            None,
+        )
+        .ok()?;
+        let len = inter.dim().checked_mul(m as u64)?;
+        if len > HOP_TABLE_PER_STATE.saturating_mul(space.dim()).max(1 << 20) {
+            return None;
+        }
+        let mut cols: Vec<u64> = crate::memory::try_with_capacity(len as usize, "the hop table").ok()?;
+        let caps = space.caps();
+        let mut row = RowState::at(&inter, 0).ok()?;
+        let mut occupied: Vec<(usize, u32)> = Vec::with_capacity(16);
+        let mut image: Vec<(usize, u32)> = Vec::with_capacity(17);
+        for k in 0..inter.dim() {
+            if k > 0 {
+                row.advance(&inter);
+            }
+            occupied.clear();
+            occupied.extend((0..m).filter(|&i| row.occ[i] > 0).map(|i| (i, row.occ[i])));
+            for (j, &cap) in caps.iter().enumerate() {
+                if row.occ[j] + 1 > cap {
+                    cols.push(u64::MAX);
+                    continue;
+                }
+                image.clear();
+                let at = occupied.partition_point(|o| o.0 < j);
+                image.extend_from_slice(&occupied[..at]);
+                match occupied.get(at) {
+                    Some(&(mode, v)) if mode == j => {
+                        image.push((j, v + 1));
+                        image.extend_from_slice(&occupied[at + 1..]);
+                    }
+                    _ => {
+                        image.push((j, 1));
+                        image.extend_from_slice(&occupied[at..]);
+                    }
+                }
+                cols.push(sparse_rank(space, image.iter().copied()));
+            }
+        }
+        Some(HopTable {
+            inter,
+            cols,
+            to: Vec::new(),
+        })
+    }
+}
+
+/// Largest number of modes for which the pair groups are indexed by a table.
+const LOWERING_MAX_MODES: usize = 1024;
+/// The index is used when the candidate terms outnumber the modes this many times.
+const LOWERING_TERMS_PER_MODE: usize = 8;
+
+/// `(removed, added)` of a term in gathering form when the index can take it: one or
+/// two quanta removed, at most two modes raised.
+/// Quanta a term removes, `(mode, count)` by mode.
+type Removed = Vec<(usize, u32)>;
+/// Quanta a term adds, `(mode, power)` by mode.
+type Added = Vec<(u32, u32)>;
+
+fn lowering_shape(factors: &[FactorPlan]) -> Option<(Removed, Added)> {
+    let removed: Vec<(usize, u32)> = factors
+        .iter()
+        .filter(|f| f.lower > 0)
+        .map(|f| (f.mode, f.lower))
+        .collect();
+    let count: u32 = removed.iter().map(|r| r.1).sum();
+    let added: Vec<(u32, u32)> = factors
+        .iter()
+        .filter(|f| f.raise > 0)
+        .map(|f| (f.mode as u32, f.raise))
+        .collect();
+    ((1..=2).contains(&count) && added.len() <= 2).then_some((removed, added))
+}
+
+/// Whether `op` on `space` has enough terms for the index of the quanta they remove
+/// (see the module notes); the product then prefers the row kernel to the bipartite
+/// one, whose tables grow with the terms.
+pub fn indexes_terms<S: Scalar>(space: &FockSpace, op: &Operator<S>) -> bool {
+    let m = space.modes();
+    if !(2..=LOWERING_MAX_MODES).contains(&m) {
+        return false;
+    }
+    let mut candidates = 0usize;
+    for t in 0..op.len() {
+        let factors: Vec<FactorPlan> = op
+            .factors(t)
+            .map(|(mode, lower, raise)| FactorPlan {
+                mode,
+                lower,
+                raise,
+                cutoff: 0,
+            })
+            .collect();
+        let single_diagonal = factors.len() <= 1 && factors.iter().all(|f| f.lower == f.raise);
+        if !single_diagonal && lowering_shape(&factors).is_some() {
+            candidates += 1;
+        }
+    }
+    candidates >= LOWERING_TERMS_PER_MODE * m
+}
+
+/// The most modes a basis state of `space` can occupy at once.
+fn max_occupied(space: &FockSpace) -> usize {
+    let m = space.modes();
+    match space.constraint() {
+        Constraint::Exact { total } => {
+            let least = space.weights().iter().copied().min().unwrap_or(0);
+            if least == 0 {
+                m
+            } else {
+                ((total / least as u64) as usize).min(m)
+            }
+        }
+        _ => m,
+    }
+}
+
+impl<S: Scalar> Lowering<S> {
+    fn new(space: &FockSpace, terms: Vec<(S, Removed, Added)>) -> Self {
+        let m = space.modes();
+        let groups = m + m * m;
+        let group_of = |removed: &[(usize, u32)]| -> usize {
+            match removed {
+                [(i, 1)] => *i,
+                [(i, 2)] => m + i * m + i,
+                [(i, _), (j, _)] => m + i.min(j) * m + i.max(j),
+                _ => unreachable!("lowering_shape admits one or two quanta only"),
+            }
+        };
+        let mut keyed: Vec<(usize, Added, S)> = terms
+            .into_iter()
+            .map(|(coef, removed, added)| (group_of(&removed), added, coef))
+            .collect();
+        // Within a group, columns ascend when the added quanta, read as the list of
+        // their modes with repeats, descend: a quantum in a more significant mode
+        // makes a later state.
+        let spelled = |added: &[(u32, u32)]| -> Vec<u32> {
+            added
+                .iter()
+                .flat_map(|&(mode, power)| std::iter::repeat_n(mode, power as usize))
+                .collect()
+        };
+        keyed.sort_by_cached_key(|k| (k.0, std::cmp::Reverse(spelled(&k.1))));
+        let mut starts = vec![0u32; groups + 1];
+        for (g, _, _) in &keyed {
+            starts[g + 1] += 1;
+        }
+        for g in 0..groups {
+            starts[g + 1] += starts[g];
+        }
+        // A row visits each single group at most once per occupied mode and each pair
+        // group at most once per pair of them.
+        let occupied = max_occupied(space);
+        let bound_of = |range: std::ops::Range<usize>, slots: usize| -> usize {
+            let mut sizes: Vec<usize> = range.map(|g| (starts[g + 1] - starts[g]) as usize).collect();
+            sizes.sort_unstable_by(|a, b| b.cmp(a));
+            sizes.iter().take(slots).sum()
+        };
+        let row_bound = bound_of(0..m, occupied) + bound_of(m..groups, occupied * (occupied + 1) / 2);
+        let hop_like = keyed
+            .iter()
+            .take(starts[m] as usize)
+            .all(|(_, added, _)| added.len() == 1 && added[0].1 == 1);
+        let mut hop_table = if hop_like && starts[m] > 0 {
+            HopTable::new(space)
+        } else {
+            None
+        };
+        if let Some(table) = hop_table.as_mut() {
+            table.to = keyed[..starts[m] as usize].iter().map(|k| k.1[0].0).collect();
+        }
+        let mut coef = Vec::with_capacity(keyed.len());
+        let mut raised = Vec::with_capacity(keyed.len());
+        for (_, added, c) in keyed {
+            let mut slots = [(0u32, 0u32); 2];
+            for (k, a) in added.into_iter().enumerate() {
+                slots[k] = a;
+            }
+            coef.push(c);
+            raised.push(slots);
+        }
+        Lowering {
+            starts,
+            coef,
+            raised,
+            row_bound,
+            hop_table,
+        }
+    }
+}
+
 #[derive(Debug, Clone)]
 struct OffDiagonal<S> {
     coef: S,
@@ -113,6 +383,8 @@ pub struct ProductKernel<S: Scalar> {
     hops: Vec<Hop<S>>,
     /// Hops `..hops_below` land below the diagonal; they are emitted before it.
     hops_below: usize,
+    /// Terms indexed by the quanta they remove (operators with many terms).
+    lowering: Option<Lowering<S>>,
     sqrt: Vec<f64>,
 }
 
@@ -132,6 +404,8 @@ impl<S: Scalar> ProductKernel<S> {
         let mut multi_diag = Vec::new();
         let mut off = Vec::new();
         let mut hops = Vec::new();
+        let index = indexes_terms(space, op);
+        let mut indexed = Vec::new();
         for t in 0..op.len() {
             let coef = op.coef(t);
             let factors: Vec<FactorPlan> = op
@@ -144,7 +418,14 @@ impl<S: Scalar> ProductKernel<S> {
                 })
                 .collect();
             let diagonal = factors.iter().all(|f| f.lower == f.raise);
-            if diagonal && factors.len() <= 1 {
+            let shape = if index && !(diagonal && factors.len() <= 1) {
+                lowering_shape(&factors)
+            } else {
+                None
+            };
+            if let Some((removed, added)) = shape {
+                indexed.push((coef, removed, added));
+            } else if diagonal && factors.len() <= 1 {
                 let (mode, power) = factors.first().map_or((0, 0), |f| (f.mode, f.lower));
                 diag_used[mode] = true;
                 for n in power..=cut[mode] {
@@ -216,6 +497,7 @@ impl<S: Scalar> ProductKernel<S> {
         let hops_below = hops.iter().take_while(|h| h.d_lo < 0).count();
         let sqrt_len = ((space.max_cutoff() as usize + 1).pow(2) + 1).clamp(SQRT_TABLE, 1 << 20);
         let sqrt = (0..sqrt_len).map(|k| (k as f64).sqrt()).collect();
+        let lowering = index.then(|| Lowering::new(space, indexed));
         ProductKernel {
             modes: m,
             diag_start,
@@ -225,6 +507,7 @@ impl<S: Scalar> ProductKernel<S> {
             off,
             hops,
             hops_below,
+            lowering,
             sqrt,
         }
     }
@@ -286,7 +569,12 @@ impl<S: Scalar> ProductKernel<S> {
 
     /// Upper bound of the stored entries of one row.
     pub fn row_capacity(&self) -> usize {
-        1 + self.hops.len() + self.off.len()
+        1 + self.hops.len() + self.off.len() + self.lowering.as_ref().map_or(0, |l| l.row_bound)
+    }
+
+    /// Whether the terms that remove one or two quanta are indexed by those quanta.
+    pub fn indexes_terms(&self) -> bool {
+        self.lowering.is_some()
     }
 
     /// Rows per block when a block's entries are buffered (keeps the buffer small).
@@ -398,6 +686,9 @@ impl<S: Scalar> ProductKernel<S> {
         for hop in &self.hops[self.hops_below..] {
             self.hop_rows(rule, hop, b, n, offsets, sink);
         }
+        if let Some(index) = &self.lowering {
+            self.indexed_rows(space, rule, index, b, n, sink);
+        }
         let mut new_occ: Vec<u32> = Vec::with_capacity(8);
         for term in &self.off {
             new_occ.clear();
@@ -445,6 +736,250 @@ impl<S: Scalar> ProductKernel<S> {
 }
 
 impl<S: Scalar> ProductKernel<S> {
+    /// The indexed terms over a block of rows: each row visits the groups of the one or
+    /// two quanta its occupied modes can give, in a fixed order (by the first removed
+    /// mode, then the second).
+    #[inline(always)]
+    fn indexed_rows<R: ResidueRule>(
+        &self,
+        space: &FockSpace,
+        rule: R,
+        index: &Lowering<S>,
+        b: &Block,
+        n: usize,
+        sink: &mut impl Sink<S>,
+    ) {
+        let m = self.modes;
+        let mut occupied: Vec<usize> = Vec::with_capacity(16);
+        for r in 0..n {
+            let occ = &b.occ[r * m..(r + 1) * m];
+            occupied.clear();
+            occupied.extend((0..m).filter(|&i| occ[i] > 0));
+            for (a, &i) in occupied.iter().enumerate() {
+                match &index.hop_table {
+                    Some(table) => self.table_entries(index, table, b, r, &occupied, i, sink),
+                    None => self.group_entries(
+                        space,
+                        rule,
+                        index,
+                        b,
+                        r,
+                        &occupied,
+                        i,
+                        [(i, 1), (usize::MAX, 0)],
+                        sink,
+                    ),
+                }
+                if occ[i] >= 2 {
+                    let g = m + i * m + i;
+                    self.group_entries(
+                        space,
+                        rule,
+                        index,
+                        b,
+                        r,
+                        &occupied,
+                        g,
+                        [(i, 2), (usize::MAX, 0)],
+                        sink,
+                    );
+                }
+                for &j in &occupied[a + 1..] {
+                    let g = m + i * m + j;
+                    self.group_entries(space, rule, index, b, r, &occupied, g, [(i, 1), (j, 1)], sink);
+                }
+            }
+        }
+    }
+
+    /// The entries of row `r` from the single group of mode `i`, columns read from the
+    /// hop table.
+    #[allow(clippy::too_many_arguments)]
+    #[inline(always)]
+    fn table_entries(
+        &self,
+        index: &Lowering<S>,
+        table: &HopTable,
+        b: &Block,
+        r: usize,
+        occupied: &[usize],
+        i: usize,
+        sink: &mut impl Sink<S>,
+    ) {
+        let (first, last) = (index.starts[i] as usize, index.starts[i + 1] as usize);
+        if first == last {
+            return;
+        }
+        let m = self.modes;
+        let occ = &b.occ[r * m..(r + 1) * m];
+        let k = sparse_rank(
+            &table.inter,
+            occupied
+                .iter()
+                .map(|&o| (o, if o == i { occ[o] - 1 } else { occ[o] })),
+        ) as usize;
+        let cols = &table.cols[k * m..(k + 1) * m];
+        let sqrt = &self.sqrt;
+        let root_i = sqrt[occ[i] as usize];
+        let to = &table.to[first..last];
+        let coefs = &index.coef[first..last];
+        // The amplitude is sqrt(n_i) sqrt(s'_j + 1), with s'_j = n_j (a group's terms
+        // never add to the mode they remove from): sqrt(n_i) for an empty mode j.
+        if let Some(x) = sink.input() {
+            // A product: two running sums in a fixed pattern (shorter dependency
+            // chains), the occupied modes' factors applied from `boost`.
+            let mut sums = [S::ZERO; 2];
+            for (k, (&j, &c)) in to.iter().zip(coefs).enumerate() {
+                let col = cols[j as usize];
+                if col == u64::MAX {
+                    continue;
+                }
+                let v = x[col as usize];
+                let w = occ[j as usize];
+                let term = if w == 0 {
+                    c * v
+                } else {
+                    c.scale(sqrt[w as usize + 1]) * v
+                };
+                sums[k & 1] += term;
+            }
+            sink.add(r, (sums[0] + sums[1]).scale(root_i));
+            return;
+        }
+        let entries = to.iter().zip(coefs).filter_map(move |(&j, &c)| {
+            let j = j as usize;
+            let col = cols[j];
+            if col == u64::MAX {
+                return None;
+            }
+            let w = occ[j] as usize + 1;
+            let amp = if w == 1 { root_i } else { root_i * sqrt[w] };
+            Some((col, c.scale(amp)))
+        });
+        sink.push_all(r, entries);
+    }
+
+    /// The entries of row `r` from group `g`, whose terms remove `removed` (one or two
+    /// `(mode, quanta)`, the second `usize::MAX` when unused).
+    #[allow(clippy::too_many_arguments)]
+    #[inline(always)]
+    fn group_entries<R: ResidueRule>(
+        &self,
+        space: &FockSpace,
+        rule: R,
+        index: &Lowering<S>,
+        b: &Block,
+        r: usize,
+        occupied: &[usize],
+        g: usize,
+        removed: [(usize, u32); 2],
+        sink: &mut impl Sink<S>,
+    ) {
+        let (first, last) = (index.starts[g] as usize, index.starts[g + 1] as usize);
+        if first == last {
+            return;
+        }
+        let m = self.modes;
+        let occ = &b.occ[r * m..(r + 1) * m];
+        let res = &b.res[r * m..(r + 1) * m];
+        let p = &b.prefix[r * (m + 1)..(r + 1) * (m + 1)];
+        let caps = space.caps();
+        let offsets = space.offset_table();
+        let mut low_sq = 1.0;
+        for &(mode, k) in &removed {
+            if mode != usize::MAX {
+                low_sq *= falling(occ[mode], k);
+            }
+        }
+        let removed_at = |mode: usize| -> u32 {
+            let mut k = 0;
+            for &(rm, q) in &removed {
+                if rm == mode {
+                    k += q;
+                }
+            }
+            k
+        };
+        let low_lo = removed[0].0;
+        let low_hi = if removed[1].0 == usize::MAX {
+            low_lo
+        } else {
+            removed[1].0
+        };
+        'terms: for t in first..last {
+            let added = &index.raised[t];
+            let mut amp_sq = low_sq;
+            let mut lo = low_lo;
+            let mut hi = low_hi;
+            // New occupations of the raised modes.
+            let mut new_val = [0u32; 2];
+            for (k, &(mode, power)) in added.iter().enumerate() {
+                if power == 0 {
+                    continue;
+                }
+                let mode = mode as usize;
+                let w = occ[mode] - removed_at(mode) + power;
+                if w > caps[mode] {
+                    continue 'terms;
+                }
+                amp_sq *= falling(w, power);
+                new_val[k] = w;
+                lo = lo.min(mode);
+                hi = hi.max(mode);
+            }
+            // Rank the image from the modes in lo..=hi that hold quanta after it: the
+            // row's occupied modes (less what was removed) and the raised ones.
+            let mut residue = res[lo];
+            let mut part = 0u64;
+            let mut ai = 0usize;
+            let mut oi = occupied.partition_point(|&o| o < lo);
+            loop {
+                let next_occ = occupied.get(oi).copied().filter(|&o| o <= hi);
+                while ai < 2 && added[ai].1 == 0 {
+                    ai += 1;
+                }
+                let next_add = (ai < 2).then(|| added[ai].0 as usize);
+                let (mode, v) = match (next_occ, next_add) {
+                    (None, None) => break,
+                    (Some(o), Some(a)) if a == o => {
+                        oi += 1;
+                        ai += 1;
+                        (o, new_val[ai - 1])
+                    }
+                    (Some(o), Some(a)) if a < o => {
+                        ai += 1;
+                        (a, new_val[ai - 1])
+                    }
+                    (None, Some(a)) => {
+                        ai += 1;
+                        (a, new_val[ai - 1])
+                    }
+                    (Some(o), _) => {
+                        oi += 1;
+                        (o, occ[o] - removed_at(o))
+                    }
+                };
+                if v == 0 {
+                    continue;
+                }
+                let base = space.offset_base(mode);
+                let width = caps[mode] as usize + 2;
+                part = part.wrapping_add(offsets[base + residue as usize * width + v as usize]);
+                residue = rule.step(residue, (space.weights()[mode] as u64).wrapping_mul(v as u64));
+            }
+            // Wrapping: valid images by construction (see `hop_rows`).
+            let col = b.rank[r]
+                .wrapping_sub(p[hi + 1].wrapping_sub(p[lo]))
+                .wrapping_add(part);
+            let amp = if amp_sq < self.sqrt.len() as f64 {
+                self.sqrt[amp_sq as usize]
+            } else {
+                amp_sq.sqrt()
+            };
+            sink.push(r, col, index.coef[t].scale(amp));
+        }
+    }
+
     /// One hop term over a block of rows. Wrapping arithmetic: every index computed
     /// here is that of a valid basis state (checked cutoffs, conserved charge), so no
     /// intermediate can overflow, and the overflow checks would only cost branches.
@@ -496,6 +1031,21 @@ impl<S: Scalar> ProductKernel<S> {
 /// Where the kernel sends the entries it generates.
 trait Sink<S> {
     fn push(&mut self, row: usize, col: u64, val: S);
+    /// The vector a product multiplies (`None` for a build).
+    #[inline(always)]
+    fn input(&self) -> Option<&[S]> {
+        None
+    }
+    /// Add `val` to the output of `row` (products only).
+    #[inline(always)]
+    fn add(&mut self, _row: usize, _val: S) {}
+    /// Push every `(column, value)` of `entries` to `row`, in order.
+    #[inline(always)]
+    fn push_all(&mut self, row: usize, entries: impl Iterator<Item = (u64, S)>) {
+        for (col, val) in entries {
+            self.push(row, col, val);
+        }
+    }
 }
 
 /// Accumulates `y[row] += val · x[col]` (a product).
@@ -508,6 +1058,27 @@ impl<S: Scalar> Sink<S> for ProductSink<'_, S> {
     #[inline(always)]
     fn push(&mut self, row: usize, col: u64, val: S) {
         self.ys[row] += val * self.x[col as usize];
+    }
+
+    #[inline(always)]
+    fn input(&self) -> Option<&[S]> {
+        Some(self.x)
+    }
+
+    #[inline(always)]
+    fn add(&mut self, row: usize, val: S) {
+        self.ys[row] += val;
+    }
+
+    /// Summed in a register, then added once (the same order as pushing one by one
+    /// up to the association of the additions, which is fixed).
+    #[inline(always)]
+    fn push_all(&mut self, row: usize, entries: impl Iterator<Item = (u64, S)>) {
+        let mut sum = S::ZERO;
+        for (col, val) in entries {
+            sum += val * self.x[col as usize];
+        }
+        self.ys[row] += sum;
     }
 }
 

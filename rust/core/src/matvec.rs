@@ -20,7 +20,7 @@ pub enum Product<S: Scalar> {
     /// Bipartite kernel (left modes `0..cut`).
     Split(Box<Bipartite<S>>),
     /// Row kernel: re-ranks the images of each row.
-    Rows(ProductKernel<S>),
+    Rows(Box<ProductKernel<S>>),
 }
 
 impl<S: Scalar> Product<S> {
@@ -30,7 +30,7 @@ impl<S: Scalar> Product<S> {
     pub fn new(space: &FockSpace, op: &Operator<S>) -> Self {
         match Self::prepare(space, op, None, &crate::parallel::NoInterrupt) {
             Ok(p) => p,
-            Err(_) => Product::Rows(ProductKernel::new(space, op)),
+            Err(_) => Product::Rows(Box::new(ProductKernel::new(space, op))),
         }
     }
 
@@ -47,18 +47,23 @@ impl<S: Scalar> Product<S> {
         interrupt: &dyn Interrupt,
     ) -> CoreResult<Self> {
         match cut {
-            Some(0) => Ok(Product::Rows(ProductKernel::new(space, op))),
+            Some(0) => Ok(Product::Rows(Box::new(ProductKernel::new(space, op)))),
             Some(c) => Ok(Product::Split(Box::new(Bipartite::new_interruptible(
                 space, op, c, interrupt,
             )?))),
+            // Many terms: the row kernel indexes them by the quanta they remove, while
+            // the bipartite tables would grow with the terms.
+            None if crate::kernel::indexes_terms(space, op) => {
+                Ok(Product::Rows(Box::new(ProductKernel::new(space, op))))
+            }
             None => match choose_cut(space, op) {
                 Some(c) => match Bipartite::new_interruptible(space, op, c, interrupt) {
                     Ok(b) => Ok(Product::Split(Box::new(b))),
                     Err(CoreError::Interrupted) => Err(CoreError::Interrupted),
                     // Tables that do not fit: the row kernel needs none.
-                    Err(_) => Ok(Product::Rows(ProductKernel::new(space, op))),
+                    Err(_) => Ok(Product::Rows(Box::new(ProductKernel::new(space, op)))),
                 },
-                None => Ok(Product::Rows(ProductKernel::new(space, op))),
+                None => Ok(Product::Rows(Box::new(ProductKernel::new(space, op)))),
             },
         }
     }
@@ -126,7 +131,17 @@ impl<S: Scalar> Product<S> {
             Product::Split(b) => b.apply(x, y, k, runner, interrupt),
             Product::Rows(kernel) if k == 1 => kernel.apply(space, x, y, runner, interrupt),
             // Several vectors: each row's entries are listed once and used for all k.
-            Product::Rows(kernel) => apply_rows(&OnSpace { space, kernel }, x, y, k, runner, interrupt),
+            Product::Rows(kernel) => apply_rows(
+                &OnSpace {
+                    space,
+                    kernel: kernel.as_ref(),
+                },
+                x,
+                y,
+                k,
+                runner,
+                interrupt,
+            ),
         }
     }
 }

@@ -234,3 +234,111 @@ fn lanczos_matches_dense_ground_energy() {
     let exact = 1.5 - (2.25f64 + 4.0).sqrt();
     assert!((out.energy - exact).abs() < 1e-12, "{} vs {exact}", out.energy);
 }
+
+/// Normal-ordered `a_c1† … a_a1 …` as a raw term (modes may repeat).
+fn monomial(coef: f64, creators: &[usize], annihilators: &[usize]) -> RawTerm {
+    let mut factors: Vec<(usize, u32, u32)> = Vec::new();
+    for (list, is_creator) in [(creators, true), (annihilators, false)] {
+        for &mode in list {
+            let slot = match factors.iter().position(|f| f.0 == mode) {
+                Some(k) => k,
+                None => {
+                    factors.push((mode, 0, 0));
+                    factors.len() - 1
+                }
+            };
+            if is_creator {
+                factors[slot].1 += 1;
+            } else {
+                factors[slot].2 += 1;
+            }
+        }
+    }
+    factors.sort_unstable();
+    RawTerm::new(coef, 0.0, factors)
+}
+
+/// All-to-all one- and two-body terms with pseudo-random real coefficients, Hermitian
+/// (each term with its adjoint), repeated indices included: far more terms than modes,
+/// so the product indexes them by the quanta they remove.
+fn all_to_all(m: usize, seed: u64) -> Vec<RawTerm> {
+    let mut state = seed;
+    let mut draw = move || {
+        state = state
+            .wrapping_mul(6364136223846793005)
+            .wrapping_add(1442695040888963407);
+        ((state >> 11) as f64 / (1u64 << 53) as f64) - 0.5
+    };
+    let mut terms = Vec::new();
+    for i in 0..m {
+        for j in 0..m {
+            let t = draw();
+            terms.push(monomial(t, &[i], &[j]));
+            terms.push(monomial(t, &[j], &[i]));
+        }
+    }
+    for i in 0..m {
+        for j in 0..m {
+            for k in 0..m {
+                for l in 0..m {
+                    if (i + 2 * j + 3 * k + 5 * l) % 3 == 0 {
+                        let v = draw();
+                        terms.push(monomial(v, &[i, j], &[k, l]));
+                        terms.push(monomial(v, &[l, k], &[j, i]));
+                    }
+                }
+            }
+        }
+    }
+    terms
+}
+
+#[test]
+fn many_terms_indexed_by_removed_quanta() {
+    use fockmill_core::kernel::ProductKernel;
+    let terms = all_to_all(5, 7);
+    // Number-conserving sectors, with cutoffs below and above the total.
+    for (cutoffs, total) in [([3u32; 5], 3u64), ([1; 5], 2), ([2, 3, 1, 4, 2], 4)] {
+        let space = FockSpace::new(cutoffs.to_vec(), None, Some(total), None).unwrap();
+        let op = Operator::<f64>::new(&space, &terms).unwrap();
+        assert!(ProductKernel::new(&space, &op).indexes_terms());
+        check(&cutoffs, &[1; 5], Some(total), None, &terms);
+    }
+    // Pairs only: terms that change the number by two, kept by a parity sector and
+    // the whole truncated space.
+    let mut pairs = terms.clone();
+    for i in 0..5 {
+        for j in 0..5 {
+            pairs.push(monomial(0.1 * (i + j) as f64 + 0.05, &[i, j], &[]));
+            pairs.push(monomial(0.1 * (i + j) as f64 + 0.05, &[], &[j, i]));
+        }
+    }
+    check(&[2; 5], &[1; 5], Some(0), Some(2), &pairs);
+    check(&[2; 5], &[1; 5], None, None, &terms);
+}
+
+#[test]
+fn many_terms_with_weighted_charge() {
+    // Orbitals of angular momentum m with the charge Σ m n_m conserved: two-body terms
+    // keeping m1 + m2 = m3 + m4 (a lowest-Landau-level-like interaction).
+    let m = 6;
+    let mut terms = Vec::new();
+    for i in 0..m {
+        for j in 0..m {
+            for k in 0..m {
+                for l in 0..m {
+                    if i + j == k + l {
+                        let v = 1.0 / (1.0 + (i * j + k * l) as f64);
+                        terms.push(monomial(v, &[i, j], &[k, l]));
+                    }
+                }
+            }
+        }
+    }
+    for i in 0..m {
+        terms.push(monomial(0.3 * i as f64, &[i], &[i]));
+    }
+    let weights: Vec<u32> = (0..m as u32).collect();
+    check(&[3; 6], &weights, Some(6), None, &terms);
+    check(&[2; 6], &weights, Some(5), None, &terms);
+}
