@@ -3096,12 +3096,12 @@ mod tests {
                         CsrAny::Narrow(c) => c,
                         CsrAny::Wide(_) => panic!("small"),
                     };
-                    for r in 0..tgt.dim() as usize {
+                    for (r, want) in mv.iter().enumerate() {
                         let mut acc = Complex64::new(0.0, 0.0);
                         for e in c.indptr[r] as usize..c.indptr[r + 1] as usize {
                             acc += c.data[e] * v[c.indices[e] as usize];
                         }
-                        assert!((acc - mv[r]).norm() < 1e-12);
+                        assert!((acc - want).norm() < 1e-12);
                     }
                     // Any other target label is refused, naming the one expected.
                     let wrong = gen((q + p + 1) % l as u64);
