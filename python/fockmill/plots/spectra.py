@@ -45,8 +45,11 @@ def draw_momentum_map(
     poles: Sequence[tuple[npt.NDArray[np.float64], npt.NDArray[np.float64]]] | None = None,
 ) -> Any:
     """Draw ``intensity`` (rows: label shifts ``labels``) over momentum and ``omegas`` on
-    ``axis``; returns the colour mesh (for a colour bar). ``poles``: per row
-    ``(frequencies, weights)``, drawn as points whose area follows the weight."""
+    ``axis``; returns the colour mesh (for a colour bar; its ``fockmill_extend`` says
+    whether the bar should extend above: the colours span the rows with a nonzero shift,
+    since the zero shift of a conserved density is one saturating line at ω = 0).
+    ``poles``: per row ``(frequencies, weights)``, drawn as points whose area follows the
+    weight."""
     labels = np.asarray(labels, dtype=np.int64).reshape(len(intensity), len(orders))
     if len(orders) == 1:
         x = 2.0 * labels[:, 0] / orders[0]
@@ -57,13 +60,22 @@ def draw_momentum_map(
         xlabel = "momentum transfer (labels per generator)"
     order = np.argsort(x, kind="stable")
     xs = x[order]
+    values = np.asarray(intensity, dtype=np.float64)
+    # The zero shift of a conserved density is one elastic line (weight N²/L at ω = 0)
+    # that would saturate the scale: the colours span the other rows, the bar extends.
+    moving = np.any(labels != 0, axis=1)
+    top = float(values[moving].max()) if np.any(moving) else float(values.max())
+    extend = "max" if values.max() > top * (1 + 1e-9) and top > 0 else "neither"
     mesh = axis.pcolormesh(
         _edges(xs),
         _edges(np.asarray(omegas, dtype=np.float64)),
-        np.asarray(intensity, dtype=np.float64)[order].T,
+        values[order].T,
         shading="flat",
         cmap="viridis",
+        vmin=0.0,
+        vmax=top if top > 0 else None,
     )
+    mesh.fockmill_extend = extend  # read by the colour bar of the callers
     if len(orders) > 1:
         axis.set_xticks(xs)
         axis.set_xticklabels(
@@ -72,14 +84,17 @@ def draw_momentum_map(
             fontsize="small",
         )
     if poles is not None:
-        top = max((float(np.max(w)) for _, w in poles if np.size(w)), default=0.0)
+        top = max(
+            (float(np.max(w)) for k, (_, w) in enumerate(poles) if np.size(w) and moving[k]),
+            default=0.0,
+        )
         for k, (freqs, weights) in enumerate(poles):
             inside = (freqs >= omegas.min()) & (freqs <= omegas.max()) & (weights > 1e-3 * top)
             if np.any(inside) and top > 0:
                 axis.scatter(
                     np.full(int(np.sum(inside)), x[k]),
                     freqs[inside],
-                    s=30.0 * weights[inside] / top,
+                    s=np.minimum(30.0 * weights[inside] / top, 60.0),
                     color="white",
                     edgecolors="none",
                     alpha=0.8,
@@ -135,7 +150,7 @@ def momentum_figure(
     mesh = draw_momentum_map(
         axis, labels, orders, spectrum.omegas, spectrum.intensity, unit=shown, poles=pole_list
     )
-    bar = figure.colorbar(mesh, ax=axis)
+    bar = figure.colorbar(mesh, ax=axis, extend=mesh.fockmill_extend)
     bar.set_label(f"$S(q,\\omega)$ (1/{shown})" if shown else r"$S(q,\omega)$")
     heading = f"S(q, ω), η = {spectrum.eta:g}"
     figure.suptitle(f"{title}\n{heading}" if title else heading)

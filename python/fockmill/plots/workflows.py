@@ -170,7 +170,7 @@ def _momentum_map(figure: Figure, result: WorkflowResult, poles: bool) -> None:
     mesh = draw_momentum_map(
         axis, labels, orders, arrays["omegas"], arrays["S"], unit=unit, poles=pole_list
     )
-    bar = figure.colorbar(mesh, ax=axis)
+    bar = figure.colorbar(mesh, ax=axis, extend=mesh.fockmill_extend)
     bar.set_label(f"$S(q,\\omega)$ (1/{unit})" if unit else r"$S(q,\omega)$")
 
 
