@@ -54,6 +54,7 @@ def test_every_example_is_covered() -> None:
         "ring_kerr_crossover.toml",
         "ring_momentum_bands.toml",
         "ring_photon_removal.toml",
+        "ring_structure_factor.toml",
         "squeezed_kerr_pair.toml",
     ]
 

@@ -168,6 +168,7 @@ def test_grids_accept_a_table_with_geometric_spacing() -> None:
         ("dimer_interaction_quench.toml", "quench"),
         ("ring_interaction_ramp.toml", "quench"),
         ("ring_photon_removal.toml", "spectrum"),
+        ("ring_structure_factor.toml", "spectrum"),
         ("kerr_trimer_thermal.toml", "thermal"),
     ],
 )

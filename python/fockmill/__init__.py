@@ -28,7 +28,10 @@ converge_cutoffs, CutoffScan, CutoffWarning
 evolve, Evolution, spectral_function, spectral_poles, SpectralPoles, thermal, Thermal
     Time evolution (also under ``TimeDependent`` Hamiltonians, with coefficients such
     as ``piecewise_linear`` ramps), spectral functions and thermal averages (``build_matrix``,
-    ``build_operator`` and ``prepare`` take ``target=`` for operators between sectors).
+    ``build_operator`` and ``prepare`` take ``target=`` for operators between sectors,
+    symmetry sectors included).
+momentum_spectrum, MomentumSpectrum, plot_momentum_spectrum
+    Momentum-resolved spectra S(q, ω): one symmetry sector per momentum, and their figure.
 density_correlations
     ``⟨n_i n_j⟩`` for every pair of modes in one pass.
 save_state, load_state, SavedState, StateFileError
@@ -68,11 +71,13 @@ from fockmill.algebra import (
 )
 from fockmill.dynamics import (
     Evolution,
+    MomentumSpectrum,
     PiecewiseLinear,
     SpectralPoles,
     Thermal,
     TimeDependent,
     evolve,
+    momentum_spectrum,
     piecewise_linear,
     spectral_function,
     spectral_poles,
@@ -107,7 +112,7 @@ from fockmill.observables import (
     save_state,
     top_level_weights,
 )
-from fockmill.plots import plot_dispersion, plot_sweep, plot_workflow
+from fockmill.plots import plot_dispersion, plot_momentum_spectrum, plot_sweep, plot_workflow
 from fockmill.problem import (
     GroundState,
     LadderOperator,
@@ -167,6 +172,7 @@ __all__ = [
     "Model",
     "ModelFile",
     "ModelFileError",
+    "MomentumSpectrum",
     "PiecewiseLinear",
     "PointResult",
     "Problem",
@@ -208,6 +214,7 @@ __all__ = [
     "lowest_levels",
     "models",
     "momentum_levels",
+    "momentum_spectrum",
     "number",
     "number_variances",
     "occupation_distribution",
@@ -217,6 +224,7 @@ __all__ = [
     "parse_terms",
     "piecewise_linear",
     "plot_dispersion",
+    "plot_momentum_spectrum",
     "plot_sweep",
     "plot_workflow",
     "populations",

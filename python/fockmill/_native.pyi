@@ -94,9 +94,9 @@ class NativeOperator:
     """A compiled operator with one protocol, whatever its kind.
 
     Made by one of the static constructors: :meth:`on_space`, :meth:`on_sector`,
-    :meth:`between` or :meth:`from_csr`. Every kind answers the same methods; a method a
-    kind cannot serve raises ``ValueError`` saying why (eigenvalues of an operator
-    between two spaces; rebuilding a matrix handed in as CSR).
+    :meth:`between`, :meth:`between_sectors` or :meth:`from_csr`. Every kind answers the
+    same methods; a method a kind cannot serve raises ``ValueError`` saying why
+    (eigenvalues of an operator between two spaces; rebuilding a matrix handed in as CSR).
     """
 
     @staticmethod
@@ -134,6 +134,18 @@ class NativeOperator:
         cutoffs): a matrix of shape ``(target.dim, source.dim)``. ``project``: keep terms
         whose image leaves ``target`` and drop that part (adjoints); by default such
         terms are refused."""
+    @staticmethod
+    def between_sectors(
+        source: NativeSymmetricSpace,
+        target: NativeSymmetricSpace,
+        terms: _Terms,
+        *,
+        project: bool = False,
+    ) -> NativeOperator:
+        """An operator with a definite character under every generator, carrying the
+        states of the sector ``source`` into the sector ``target`` (same generators, the
+        target's labels the source's shifted by the operator's): kind ``"between"``,
+        shape ``(target.dim, source.dim)``. ``project`` as for :meth:`between`."""
     @staticmethod
     def from_csr(indptr: _Index1D, indices: _Index1D, data: _RealOrComplex1D) -> NativeOperator:
         """A square Hermitian CSR matrix copied in (int32 or int64 indices, int64 kept
@@ -328,6 +340,10 @@ class NativeSymmetricSpace:
     def order(self) -> int: ...
     @property
     def is_real(self) -> bool: ...
+    def operator_labels(self, terms: _Terms) -> list[int | None]:
+        """The label of each generator under which an operator has a definite character
+        (``g A g⁻¹ = exp(2πi·label/order) A``; None for the zero operator); raises
+        ``SymmetryError`` when it has none."""
     def representatives(self) -> npt.NDArray[np.uint64]:
         """Base ranks of the orbit representatives, ascending (the sector basis)."""
     def expand(

@@ -1,6 +1,7 @@
-//! The four kinds of native operator and how each version (real or complex) of each
-//! kind serves the protocol: on a space (the kept product kernel), on a symmetry
-//! sector, between two spaces, and a CSR matrix handed in from Python.
+//! The kinds of native operator and how each version (real or complex) of each kind
+//! serves the protocol: on a space (the kept product kernel), on a symmetry sector,
+//! between two spaces, between two symmetry sectors, and a CSR matrix handed in from
+//! Python.
 
 use crate::protocol::{Served, Versions};
 use fockmill_core::between::{self, Between};
@@ -278,6 +279,64 @@ impl<S: Scalar> Served<S> for BetweenVersion<'_, S> {
     }
     fn estimate(&self, samples: usize, runner: &Runner, stop: &dyn Interrupt) -> CoreResult<NnzEstimate> {
         between::estimate_nnz(self.source, self.target, self.op, samples, runner, stop).map(from_tuple)
+    }
+}
+
+// -- between two symmetry sectors -----------------------------------------------------
+
+/// An operator with a definite character carrying the states of the sector `source`
+/// into the sector `target` (same generators; labels shifted by the operator's).
+pub struct BetweenSectors {
+    pub source: Arc<SymmetricSpace>,
+    pub target: Arc<SymmetricSpace>,
+    pub real: Option<SectorOperator<f64>>,
+    pub complex: SectorOperator<Complex64>,
+    pub terms: usize,
+}
+
+/// One version of an operator between two sectors.
+pub struct SectorsVersion<'a, S: Scalar> {
+    source: &'a SymmetricSpace,
+    target: &'a SymmetricSpace,
+    op: &'a SectorOperator<S>,
+}
+
+impl BetweenSectors {
+    pub fn versions(&self) -> Versions<SectorsVersion<'_, f64>, SectorsVersion<'_, Complex64>> {
+        Versions {
+            real: self.real.as_ref().map(|op| SectorsVersion {
+                source: &self.source,
+                target: &self.target,
+                op,
+            }),
+            complex: SectorsVersion {
+                source: &self.source,
+                target: &self.target,
+                op: &self.complex,
+            },
+        }
+    }
+}
+
+impl<S: Scalar> Served<S> for SectorsVersion<'_, S> {
+    fn rows(&self) -> usize {
+        self.target.dim() as usize
+    }
+    fn cols(&self) -> usize {
+        self.source.dim() as usize
+    }
+    fn apply(&self, x: &[S], y: &mut [S], k: usize, runner: &Runner, stop: &dyn Interrupt) -> CoreResult<()> {
+        self.op
+            .apply_between(self.source, self.target, x, y, k, runner, stop)
+    }
+    fn build(&self, runner: &Runner, stop: &dyn Interrupt, force_wide: bool) -> CoreResult<CsrAny<S>> {
+        self.op
+            .build_between(self.source, self.target, runner, stop, force_wide)
+    }
+    fn estimate(&self, samples: usize, runner: &Runner, stop: &dyn Interrupt) -> CoreResult<NnzEstimate> {
+        self.op
+            .estimate_between(self.source, self.target, samples, runner, stop)
+            .map(from_tuple)
     }
 }
 

@@ -1,12 +1,13 @@
 //! `NativeOperator`: the one native operator class. Its kind is one of: on a space, on a
-//! symmetry sector, between two spaces, or a CSR matrix handed in from Python; every
+//! symmetry sector, between two spaces (or two sectors), or a CSR matrix handed in from
+//! Python; every
 //! kind answers the same protocol (`protocol.rs`), and a method a kind cannot serve
 //! (eigenvalues between two spaces, rebuilding a handed-in matrix) raises a `ValueError`
 //! that says so.
 
 use crate::arrays::{raw_terms, InBlock, InData, InIndex, InStart, InTerm, InTermBlock, InVector};
 use crate::errors::{guarded, PyCoreError};
-use crate::kinds::{held_from, BetweenSpaces, Held, OnSector, OnSpace, StoredCsr};
+use crate::kinds::{held_from, BetweenSectors, BetweenSpaces, Held, OnSector, OnSpace, StoredCsr};
 use crate::protocol::SolveRequest;
 use crate::results::{CsrParts, LanczosResult, LevelsResult, NnzEstimate};
 use crate::space::{NativeSpace, NativeSymmetricSpace};
@@ -28,6 +29,7 @@ enum Kind {
     Space(Box<OnSpace>),
     Sector(Box<OnSector>),
     Between(BetweenSpaces),
+    Sectors(Box<BetweenSectors>),
     Csr(StoredCsr),
 }
 
@@ -51,6 +53,10 @@ macro_rules! with_versions {
                 $body
             }
             Kind::Between(k) => {
+                let $v = k.versions();
+                $body
+            }
+            Kind::Sectors(k) => {
                 let $v = k.versions();
                 $body
             }
@@ -78,7 +84,7 @@ macro_rules! with_solvable {
                 let $v = k.versions();
                 $body
             }
-            Kind::Between(_) => Err(PyValueError::new_err(
+            Kind::Between(_) | Kind::Sectors(_) => Err(PyValueError::new_err(
                 "eigenvalues need an operator from a space to itself; this operator maps \
                  between two spaces",
             )),
@@ -219,6 +225,41 @@ impl NativeOperator {
         })
     }
 
+    /// An operator with a definite character under every generator, carrying the states
+    /// of the sector `source` into the sector `target` (same generators; the target's
+    /// labels are the source's shifted by the operator's). `project` as for `between`.
+    #[staticmethod]
+    #[pyo3(signature = (source, target, terms, *, project=false))]
+    fn between_sectors(
+        source: &NativeSymmetricSpace,
+        target: &NativeSymmetricSpace,
+        terms: Vec<InTerm>,
+        project: bool,
+    ) -> PyResult<Self> {
+        guarded(|| {
+            let raw = raw_terms(terms);
+            let (src, dst) = (&source.inner, &target.inner);
+            let (gs, gt) = (&source.generators, &target.generators);
+            let op = Between::<Complex64>::new(src.base(), dst.base(), &raw, project).map_err(PyCoreError)?;
+            let complex = SectorOperator::between(src, dst, &op, gs, gt).map_err(PyCoreError)?;
+            let real = if src.is_real() && dst.is_real() && raw.iter().all(|t| t.im == 0.0) {
+                let op = Between::<f64>::new(src.base(), dst.base(), &raw, project).map_err(PyCoreError)?;
+                Some(SectorOperator::between(src, dst, &op, gs, gt).map_err(PyCoreError)?)
+            } else {
+                None
+            };
+            Ok(NativeOperator {
+                kind: Kind::Sectors(Box::new(BetweenSectors {
+                    source: src.clone(),
+                    target: dst.clone(),
+                    real,
+                    complex,
+                    terms: op.len(),
+                })),
+            })
+        })
+    }
+
     /// A square Hermitian CSR matrix copied in from Python, for products and the
     /// solvers (Hermiticity is assumed, not checked).
     #[staticmethod]
@@ -248,7 +289,7 @@ impl NativeOperator {
         match self.kind {
             Kind::Space(_) => "space",
             Kind::Sector(_) => "sector",
-            Kind::Between(_) => "between",
+            Kind::Between(_) | Kind::Sectors(_) => "between",
             Kind::Csr(_) => "csr",
         }
     }
@@ -260,6 +301,7 @@ impl NativeOperator {
             Kind::Space(k) => k.real.is_some(),
             Kind::Sector(k) => k.real.is_some(),
             Kind::Between(k) => k.real.is_some(),
+            Kind::Sectors(k) => k.real.is_some(),
             Kind::Csr(k) => k.is_real(),
         }
     }
@@ -283,6 +325,7 @@ impl NativeOperator {
             Kind::Space(k) => (k.space.dim(), k.space.dim()),
             Kind::Sector(k) => (k.sector.dim(), k.sector.dim()),
             Kind::Between(k) => (k.target.dim(), k.source.dim()),
+            Kind::Sectors(k) => (k.target.dim(), k.source.dim()),
             Kind::Csr(k) => (k.dim(), k.dim()),
         }
     }
@@ -294,6 +337,7 @@ impl NativeOperator {
             Kind::Space(k) => Some(k.complex.len()),
             Kind::Sector(k) => Some(k.terms),
             Kind::Between(k) => Some(k.complex.len()),
+            Kind::Sectors(k) => Some(k.terms),
             Kind::Csr(_) => None,
         }
     }

@@ -181,6 +181,16 @@ impl NativeSymmetricSpace {
         })
     }
 
+    /// The label of each generator under which an operator has a definite character,
+    /// `g A g⁻¹ = exp(2πi·label/order) A` (None for every generator when the operator is
+    /// zero); raises `SymmetryError` when it has none.
+    fn operator_labels(&self, terms: Vec<crate::arrays::InTerm>) -> PyResult<Vec<Option<u64>>> {
+        guarded(|| {
+            let raw = crate::arrays::raw_terms(terms);
+            Ok(fockmill_core::symmetry::labels_of_terms(&raw, &self.generators).map_err(PyCoreError)?)
+        })
+    }
+
     /// Number of sector states.
     #[getter]
     fn dim(&self) -> u64 {

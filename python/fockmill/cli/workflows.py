@@ -226,7 +226,59 @@ def _quench_text(result: WorkflowResult, rows: int | None) -> list[str]:
     return lines
 
 
+def _momentum_text(result: WorkflowResult, rows: int | None) -> list[str]:
+    """A momentum-resolved map: per momentum its weight, strongest pole and peak."""
+    settings, summary, arrays = result.meta.get("settings") or {}, result.summary, result.arrays
+    omegas, s = arrays["omegas"], arrays["S"]
+    labels, momenta = arrays["labels"].astype(int), arrays["momenta"]
+    entries = _header(result)
+    entries.append(("sector", f"{settings.get('sector')} (dim {summary.get('sector_dim')})"))
+    entries.append(
+        ("operator", f"{' + '.join(settings.get('operator') or [])}, resolved in momentum")
+    )
+    entries.append(("ground energy", _number(summary.get("ground_energy"))))
+    entries.append(("reference", f"E_ref = {_number(summary.get('reference_energy'))}"))
+    entries.append(
+        (
+            "grid",
+            f"{labels.shape[0]} momenta × {omegas.size} frequencies from {omegas[0]:g} to "
+            f"{omegas[-1]:g}, η = {settings.get('eta')}",
+        )
+    )
+    entries.append(("seconds", f"{summary.get('seconds', 0):.3f}"))
+    lines = _entries(entries)
+    has_poles = "pole_frequencies" in arrays
+    columns = ["labels", "q a/π", "dim", "weight", "peak omega", "peak S"]
+    if has_poles:
+        columns += ["strongest pole", "its weight"]
+    cells = []
+    for k in range(labels.shape[0]):
+        peak = int(np.argmax(s[k]))
+        row = [
+            ",".join(str(v) for v in labels[k]),
+            ",".join(f"{v / np.pi:.4f}" for v in momenta[k]),
+            f"{int(arrays['dims'][k])}",
+            _number(arrays["norms"][k]),
+            f"{omegas[peak]:g}",
+            _number(s[k, peak]),
+        ]
+        if has_poles:
+            mine = arrays["pole_rows"] == k
+            if np.any(mine):
+                best = int(np.argmax(np.where(mine, arrays["pole_weights"], -np.inf)))
+                row += [
+                    _number(arrays["pole_frequencies"][best]),
+                    _number(arrays["pole_weights"][best]),
+                ]
+            else:
+                row += ["-", "-"]
+        cells.append(row)
+    return lines + _aligned(columns, cells)
+
+
 def _spectrum_text(result: WorkflowResult, rows: int | None) -> list[str]:
+    if "labels" in result.arrays:
+        return _momentum_text(result, rows)
     settings, summary = result.meta.get("settings") or {}, result.summary
     omegas, s = result.arrays["omegas"], result.arrays["S"]
     entries = _header(result)
@@ -338,6 +390,8 @@ def format_csv(result: WorkflowResult) -> str:
     poles) are left to the JSON format, except the poles, which follow after a blank
     line as their own table.
     """
+    if "labels" in result.arrays:
+        return _momentum_csv(result)
     axis = {"quench": "times", "spectrum": "omegas", "thermal": "temperatures"}[result.kind]
     count = result.arrays[axis].shape[0]
     columns: dict[str, Any] = {}
@@ -366,6 +420,32 @@ def format_csv(result: WorkflowResult) -> str:
             result.arrays["pole_frequencies"], result.arrays["pole_weights"], strict=True
         ):
             writer.writerow([repr(float(f)), repr(float(w))])
+    return buffer.getvalue().rstrip("\n")
+
+
+def _momentum_csv(result: WorkflowResult) -> str:
+    """A momentum-resolved map in long form: one row per (momentum, frequency), then the
+    poles with their momentum after a blank line."""
+    arrays = result.arrays
+    labels, momenta, omegas, s = arrays["labels"], arrays["momenta"], arrays["omegas"], arrays["S"]
+    count = labels.shape[1]
+    names = [f"label_{j}" for j in range(count)] + [f"q_{j}" for j in range(count)]
+    buffer = io.StringIO()
+    writer = csv.writer(buffer, lineterminator="\n")
+    writer.writerow([*names, "omega", "S"])
+    for k in range(labels.shape[0]):
+        head = [str(int(v)) for v in labels[k]] + [repr(float(v)) for v in momenta[k]]
+        for w, value in zip(omegas, s[k], strict=True):
+            writer.writerow([*head, repr(float(w)), repr(float(value))])
+    if "pole_frequencies" in arrays:
+        writer.writerow([])
+        writer.writerow([*names, "pole_frequency", "pole_weight"])
+        for row, f, w in zip(
+            arrays["pole_rows"], arrays["pole_frequencies"], arrays["pole_weights"], strict=True
+        ):
+            k = int(row)
+            head = [str(int(v)) for v in labels[k]] + [repr(float(v)) for v in momenta[k]]
+            writer.writerow([*head, repr(float(f)), repr(float(w))])
     return buffer.getvalue().rstrip("\n")
 
 

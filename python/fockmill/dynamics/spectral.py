@@ -187,7 +187,7 @@ def spectral_function(
     H : LadderExpr
         A Hermitian Hamiltonian; it acts on ``target`` (and on ``space`` for the default
         reference energy).
-    space : FockSpace
+    space : FockSpace or SymmetricSpace
         The space of ``psi``.
     psi : array_like
         A normalised state of ``space`` (a ground state, say).
@@ -198,8 +198,12 @@ def spectral_function(
         Frequencies (any shape); the result has the same shape.
     eta : float
         Lorentzian broadening (> 0).
-    target : FockSpace, optional
-        Where ``A`` lands (default: ``space``); same modes and cutoffs.
+    target : FockSpace or SymmetricSpace, optional
+        Where ``A`` lands (default: ``space``); same modes and cutoffs. On a symmetry
+        sector, a probe with a definite character (a momentum component such as
+        ``sector.component(fm.number(0), [q])``) lands in the sector
+        ``space.target_for(A, base)``; :func:`fockmill.momentum_spectrum` gives every
+        momentum at once.
     reference_energy : float, optional
         ``E_ref``; default ``⟨ψ|H|ψ⟩`` (the ground energy when ``psi`` is the ground
         state, so that ω is an excitation energy).

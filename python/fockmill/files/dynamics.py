@@ -24,7 +24,11 @@ description of every key is in ``docs/model-files.md``; in short:
     (array or ``{start, stop, num}``), ``eta`` (> 0, default 0.05),
     ``reference_energy`` (default: the ground energy), ``poles`` (also keep poles and
     weights, default true), ``tol`` (default 1e-6), ``max_steps``. The state is the
-    ground state of the model at ``[parameters]``.
+    ground state of the model at ``[parameters]``. ``momenta`` (``"all"`` or a list of
+    label shifts: integers, or ``[a, b]`` for two translations) makes it a
+    momentum-resolved map ``S(q, ω)``: the ground state is solved in the ``[symmetry]``
+    sector (which must fix every label) and ``operator`` is resolved into its momentum
+    components, one sector per momentum (:func:`fockmill.momentum_spectrum`).
 ``[thermal]``
     ``temperatures`` (array or ``{start, stop, num, spacing}``, all > 0), ``method``
     (``"auto"``, ``"exact"``, ``"ftlm"``), ``samples``, ``seed``, ``steps`` (FTLM),
@@ -59,6 +63,7 @@ __all__ = [
     "QuenchSpec",
     "SpectrumSpec",
     "TemperatureSpec",
+    "check_momentum_map",
     "parse_dynamics_sections",
 ]
 
@@ -196,6 +201,9 @@ class SpectrumSpec:
         Also compute and keep the poles and weights.
     tol : float
     max_steps : int or None
+    momenta : "all", tuple of tuple of int, or None
+        A momentum-resolved map over these label shifts (one tuple per row, one label
+        per generator of ``[symmetry]``), or every one; None for one spectrum.
     """
 
     operator: LadderExpr
@@ -208,6 +216,7 @@ class SpectrumSpec:
     poles: bool = True
     tol: float = 1e-6
     max_steps: int | None = None
+    momenta: str | tuple[tuple[int, ...], ...] | None = None
 
 
 @dataclass(frozen=True)
@@ -540,7 +549,7 @@ def _spectrum(reader: Reader, value: object, model: Model) -> SpectrumSpec:
     reader.check_keys(
         table,
         path,
-        ["operator", "omegas", "eta", "reference_energy", "poles", "tol", "max_steps"],
+        ["operator", "omegas", "eta", "reference_energy", "poles", "tol", "max_steps", "momenta"],
     )
     where = join_key(path, "operator")
     operator, texts = _operator(
@@ -572,7 +581,67 @@ def _spectrum(reader: Reader, value: object, model: Model) -> SpectrumSpec:
         poles=reader.boolean(table.get("poles", True), join_key(path, "poles")),
         tol=_positive(reader, table, "tol", path, 1e-6, upper=1.0),
         max_steps=max_steps,
+        momenta=_momenta(reader, table["momenta"], join_key(path, "momenta"))
+        if "momenta" in table
+        else None,
     )
+
+
+def _momenta(reader: Reader, value: object, path: str) -> str | tuple[tuple[int, ...], ...]:
+    """``"all"`` or a non-empty list of label shifts (an integer or a list of integers
+    each); ranges are checked against ``[symmetry]`` once both are read."""
+    if value == "all":
+        return "all"
+    if not isinstance(value, list) or not value:
+        reader.wrong(path, '"all" or a non-empty list of label shifts such as [0, 1, 2]', value)
+    rows: list[tuple[int, ...]] = []
+    for n, item in enumerate(value):
+        where = f"{path}[{n}]"
+        items = item if isinstance(item, list) else [item]
+        if not items or any(isinstance(v, bool) or not isinstance(v, int) for v in items):
+            reader.wrong(
+                where, "an integer label shift, or a list of them (one per generator)", item
+            )
+        rows.append(tuple(int(v) for v in items))
+    if len({len(r) for r in rows}) != 1:
+        reader.fail(path, "every entry must give the same number of labels (one per generator)")
+    return tuple(rows)
+
+
+def check_momentum_map(reader: Reader, spectrum: SpectrumSpec | None, symmetry: Any) -> None:
+    """Refuse ``[spectrum] momenta`` without a ``[symmetry]`` that fixes every label, or
+    with label shifts that do not fit its generators."""
+    if spectrum is None or spectrum.momenta is None:
+        return
+    path = join_key("spectrum", "momenta")
+    if symmetry is None:
+        reader.fail(
+            path,
+            "a momentum-resolved map needs the sector of the ground state: add [symmetry] "
+            "(for example translation = 0)",
+        )
+    if any(label is None for label in symmetry.labels):
+        reader.fail(
+            path,
+            'a momentum-resolved map starts from one sector, but [symmetry] has a label "all"; '
+            "fix it (for example translation = 0) and list the momenta here instead",
+        )
+    if spectrum.momenta == "all":
+        return
+    count = len(symmetry.generators)
+    for n, row in enumerate(spectrum.momenta):
+        if len(row) != count:
+            reader.fail(
+                f"{path}[{n}]",
+                f"gives {len(row)} label(s) but [symmetry] has {count} generator(s); give one "
+                "label shift per generator",
+            )
+        for label, g in zip(row, symmetry.generators, strict=True):
+            if not 0 <= label < g.order:
+                reader.fail(
+                    f"{path}[{n}]",
+                    f"label shift {label} is out of range: labels run over 0..{g.order - 1}",
+                )
 
 
 # -- [thermal] ------------------------------------------------------------------------

@@ -1023,6 +1023,9 @@ def _parse(text: str, source: str, path: str | None) -> ModelFile:
         from fockmill.files.symmetry import parse_symmetry
 
         symmetry = parse_symmetry(reader, document["symmetry"], document["model"], model)
+    from fockmill.files.dynamics import check_momentum_map
+
+    check_momentum_map(reader, dynamics["spectrum"], symmetry)
     return ModelFile(
         path=path,
         model=model,

@@ -2,7 +2,9 @@
 
 * quench: mean occupations per mode against time (coinciding modes drawn once), then
   one panel for the named observables (real part solid, imaginary part dashed);
-* spectrum: S(ω), with the Lanczos poles as sticks on a second axis (their weights);
+* spectrum: S(ω), with the Lanczos poles as sticks on a second axis (their weights); a
+  momentum-resolved map as S(q, ω) in colour over momentum and frequency, with a colour
+  bar and the poles as points;
 * thermal: energy and heat capacity against temperature (error bars for FTLM), then
   populations and named observables.
 
@@ -70,7 +72,12 @@ def _heading(result: WorkflowResult, title: str | None) -> str:
         what = f"quench from {settings.get('initial_state', '?')}"
     elif result.kind == "spectrum":
         operator = " + ".join(settings.get("operator") or ["?"])
-        what = f"S(ω) of {operator}, η = {settings.get('eta', '?'):g}"
+        if "labels" in result.arrays:
+            what = f"S(q, ω) of {operator}, η = {settings.get('eta', '?'):g}"
+            if settings.get("sector"):
+                what += f"; from {settings['sector']}"
+        else:
+            what = f"S(ω) of {operator}, η = {settings.get('eta', '?'):g}"
     else:
         summary = result.summary
         what = f"thermal averages ({summary.get('method', settings.get('method', '?'))}"
@@ -143,7 +150,34 @@ def _quench(figure: Figure, result: WorkflowResult) -> None:
     axes[-1].set_xlabel(time_label(_unit(result)))
 
 
+def _momentum_map(figure: Figure, result: WorkflowResult, poles: bool) -> None:
+    from fockmill.plots.spectra import draw_momentum_map
+
+    unit = _unit(result)
+    arrays = result.arrays
+    labels = arrays["labels"].astype(np.int64)
+    orders = (result.meta.get("settings") or {}).get("orders") or [
+        int(labels[:, j].max()) + 1 for j in range(labels.shape[1])
+    ]
+    pole_list = None
+    if poles and "pole_frequencies" in arrays:
+        rows = arrays["pole_rows"].astype(np.int64)
+        pole_list = [
+            (arrays["pole_frequencies"][rows == k], arrays["pole_weights"][rows == k])
+            for k in range(labels.shape[0])
+        ]
+    axis = figure.subplots(1, 1)
+    mesh = draw_momentum_map(
+        axis, labels, orders, arrays["omegas"], arrays["S"], unit=unit, poles=pole_list
+    )
+    bar = figure.colorbar(mesh, ax=axis, extend=mesh.fockmill_extend)
+    bar.set_label(f"$S(q,\\omega)$ (1/{unit})" if unit else r"$S(q,\omega)$")
+
+
 def _spectrum(figure: Figure, result: WorkflowResult, poles: bool) -> None:
+    if "labels" in result.arrays:
+        _momentum_map(figure, result, poles)
+        return
     unit = _unit(result)
     axis = figure.subplots(1, 1)
     omegas, s = result.arrays["omegas"], result.arrays["S"]

@@ -160,6 +160,14 @@ class ModePermutation:
         return f"ModePermutation({list(self._images)})"
 
 
+def _unit_root(turn: Any) -> complex:
+    """``exp(2πi·turn)`` for a fraction of a turn, exact at multiples of a quarter turn."""
+    quarter = (turn * 4) % 4
+    if quarter.denominator == 1:
+        return (1 + 0j, 1j, -1 + 0j, -1j)[int(quarter)]
+    return cmath.exp(2j * cmath.pi * float(turn))
+
+
 def _move(key: MonomialKey, images: Sequence[int]) -> MonomialKey:
     return tuple(sorted((images[m], p, q) for m, p, q in key))
 
@@ -504,11 +512,207 @@ class SymmetricSpace:
             total = total + g.apply(expr)
         return total * (1.0 / len(elements))
 
+    def operator_labels(self, expr: LadderExpr) -> tuple[int, ...]:
+        """The label ``p`` of each generator under which ``expr`` has a definite character,
+        ``g A g⁻¹ = exp(2πi p / g.order) A``.
+
+        ``A`` then carries this sector (labels ``q``) into the sector with labels
+        ``q + p`` (mod each order): ``g A|ψ⟩ = χ_A(g) χ(g) A|ψ⟩``. An invariant operator
+        has every ``p = 0``; the zero operator has every label and gets 0. With the
+        labels' convention ``g|ψ⟩ = exp(2πi q / order)|ψ⟩`` and ``g a_j g⁻¹ = a_{g(j)}``,
+        the density wave ``Σ_j exp(2πi k j / L) n_j`` of a ring has ``p = −k mod L``.
+
+        Raises
+        ------
+        SymmetryError
+            ``expr`` has no definite character under some generator (the message names
+            the generator and a term whose image breaks it).
+
+        Examples
+        --------
+        >>> import cmath, fockmill as fm
+        >>> t = fm.ring_translation(4)
+        >>> sector = fm.SymmetricSpace(fm.FockSpace(modes=4, cutoff=2, total=2), [(t, 0)])
+        >>> rho = sum(cmath.exp(2j * cmath.pi * j / 4) * fm.number(j) for j in range(4))
+        >>> sector.operator_labels(rho)
+        (3,)
+        """
+        return tuple(0 if p is None else p for p in self._labels(expr))
+
+    def _labels(self, expr: LadderExpr) -> list[int | None]:
+        """:meth:`operator_labels`, None for every generator when ``expr`` is zero."""
+        try:
+            found = self._native.operator_labels(expr.to_native())
+        except SymmetryError as exc:
+            names = "; ".join(f"generator {n} = {g!r}" for n, (g, _) in enumerate(self._symmetries))
+            raise SymmetryError(f"{exc} ({names})") from None
+        return [None if p is None else int(p) for p in found]
+
+    def component(self, expr: LadderExpr, labels: Sequence[int]) -> LadderExpr:
+        """The part of ``expr`` with the character of ``labels`` under the generators:
+        ``O_p = |G|^{-1/2} Σ_{g ∈ G} χ_p(g)^* g O g⁻¹``, ``χ_p(g_k) = exp(2πi p_k / order_k)``.
+
+        ``h O_p h⁻¹ = χ_p(h) O_p`` for every ``h``, so ``O_p`` carries a sector with labels
+        ``q`` into ``q + p``. For ``O = n_0`` on a ring of ``L`` sites this is the density
+        wave ``L^{-1/2} Σ_j exp(−2πi p j / L) n_j``; for ``O = a_0`` the annihilator
+        ``a_κ`` removing momentum ``κ = −2πp/L`` in the sectors' convention (the momentum
+        label of the sector rises by ``p``). The group is this sector's; the sector's own
+        labels play no part.
+
+        Raises
+        ------
+        SymmetryError
+            ``labels`` has the wrong length, a label out of range, or labels that make no
+            one-dimensional representation (a translation with a reflection at a momentum
+            other than 0 or L/2).
+
+        Examples
+        --------
+        >>> import fockmill as fm
+        >>> t = fm.ring_translation(2)
+        >>> sector = fm.SymmetricSpace(fm.FockSpace(modes=2, cutoff=1, total=1), [(t, 0)])
+        >>> print(sector.component(fm.number(0), [1]))
+        0.7071067811865475·a0† a0 - 0.7071067811865475·a1† a1
+        """
+        from fractions import Fraction
+
+        gens = [g for g, _ in self._symmetries]
+        if isinstance(labels, str | bytes) or not isinstance(labels, Sequence | np.ndarray):
+            raise TypeError(
+                f"labels must be a sequence of integers, one per generator; got {labels!r}"
+            )
+        if len(labels) != len(gens):
+            raise SymmetryError(f"give one label per generator ({len(gens)}); got {list(labels)}")
+        steps: list[Fraction] = []
+        for n, (g, p) in enumerate(zip(gens, labels, strict=True)):
+            if isinstance(p, bool | np.bool_) or not isinstance(p, numbers.Integral):
+                raise TypeError(f"label {n} must be an integer; got {p!r}")
+            if not 0 <= int(p) < g.order:
+                raise SymmetryError(
+                    f"label {n} is {p}, but generator {n} ({g!r}) has order {g.order}: labels "
+                    f"run over 0..{g.order - 1}"
+                )
+            steps.append(Fraction(int(p), g.order))
+        identity = ModePermutation(list(range(self.modes)))
+        phases: dict[ModePermutation, Fraction] = {identity: Fraction(0)}
+        elements = [identity]
+        for element in elements:  # grows while it is read: a breadth-first closure
+            for n, g in enumerate(gens):
+                product = g * element
+                phase = (phases[element] + steps[n]) % 1
+                if product not in phases:
+                    phases[product] = phase
+                    elements.append(product)
+                elif phases[product] != phase:
+                    raise SymmetryError(
+                        f"the labels {list(labels)} make no one-dimensional representation of "
+                        "the group (a relation among the generators would need two different "
+                        "characters; a translation with a reflection allows only momentum 0 "
+                        "or L/2); choose other labels"
+                    )
+        acc: dict[MonomialKey, complex] = {}
+        for element in elements:
+            root = _unit_root(-phases[element])
+            for c, key in expr.terms():
+                moved = _move(key, element.images)
+                acc[moved] = acc.get(moved, 0j) + c * root
+        # Cancellations leave rounding residues: drop them and snap parts that vanish
+        # exactly, so that a real component stays real and a zero one is zero.
+        scale = max((abs(c) for c, _ in expr.terms()), default=0.0) * len(elements)
+        clean: dict[MonomialKey, complex] = {}
+        for key, value in acc.items():
+            re = value.real if abs(value.real) > 1e-14 * scale else 0.0
+            im = value.imag if abs(value.imag) > 1e-14 * scale else 0.0
+            if re or im:
+                clean[key] = complex(re, im) / math.sqrt(len(elements))
+        return LadderExpr.from_terms(clean)
+
+    def target_for(self, expr: LadderExpr, base: FockSpace | None = None) -> SymmetricSpace:
+        """The sector ``expr`` carries this sector into: the same generators with the
+        labels shifted by ``expr``'s (:meth:`operator_labels`), over ``base`` (default
+        this sector's base; give the base with the total ``expr`` lands in, e.g. one
+        quantum fewer for a lowering operator).
+
+        Raises
+        ------
+        SymmetryError
+            ``expr`` has no definite character, or the shifted labels make no
+            one-dimensional representation (a translation with a reflection at a
+            momentum other than 0 or L/2).
+
+        Examples
+        --------
+        >>> import cmath, fockmill as fm
+        >>> t = fm.ring_translation(4)
+        >>> base = fm.FockSpace(modes=4, cutoff=2, total=2)
+        >>> a_k = sum(cmath.exp(-2j * cmath.pi * j / 4) * fm.lowering(j) for j in range(4))
+        >>> fm.SymmetricSpace(base, [(t, 0)]).target_for(
+        ...     a_k, fm.FockSpace(modes=4, cutoff=2, total=1)).symmetries[0][1]
+        1
+        """
+        labels = self.operator_labels(expr)
+        pairs = [(g, (q + p) % g.order) for (g, q), p in zip(self._symmetries, labels, strict=True)]
+        return SymmetricSpace(self._base if base is None else base, pairs)
+
     def _compile(self, expr: LadderExpr) -> _native.NativeOperator:
         """The compiled operator of an invariant ``expr`` on this sector."""
-        self.check_invariant(expr)
+        try:
+            self.check_invariant(expr)
+        except SymmetryError as exc:
+            # An operator with a definite character lands in a shifted sector: say which.
+            try:
+                labels = self.operator_labels(expr)
+            except SymmetryError:
+                raise exc from None
+            shifted = [
+                (q + p) % g.order for (g, q), p in zip(self._symmetries, labels, strict=True)
+            ]
+            raise SymmetryError(
+                f"{exc}. The operator has a definite character (labels {list(labels)}), so it "
+                f"carries this sector (labels {[q for _, q in self._symmetries]}) into the "
+                f"sector with labels {shifted}: pass that sector as target= (for example "
+                "sector.target_for(A))"
+            ) from None
         terms, blocks = expr.to_native_parts()
         return _native.NativeOperator.on_sector(self._native, terms, blocks=blocks)
+
+    def _compile_into(
+        self, expr: LadderExpr, target: SymmetricSpace, *, project: bool = False
+    ) -> _native.NativeOperator:
+        """The compiled operator of ``expr`` from this sector into the sector ``target``.
+
+        Raises
+        ------
+        SymmetryError
+            Different generators, no definite character, or target labels that are not
+            this sector's shifted by ``expr``'s (naming the labels expected).
+        """
+        mine = [g for g, _ in self._symmetries]
+        theirs = [g for g, _ in target.symmetries]
+        if mine != theirs:
+            raise SymmetryError(
+                f"the source sector has generators {mine} and the target {theirs}; an "
+                "operator between sectors needs the same generators in the same order (only "
+                "the labels and the total may differ): build the target with "
+                "source.target_for(A, base)"
+            )
+        found = self._labels(expr)
+        labels = [0 if p is None else p for p in found]
+        expected = [(q + p) % g.order for (g, q), p in zip(self._symmetries, labels, strict=True)]
+        given = [q for _, q in target.symmetries]
+        if given != expected and any(p is not None for p in found):
+            wrong = [n for n, (a, b) in enumerate(zip(given, expected, strict=True)) if a != b]
+            raise SymmetryError(
+                f"the operator carries labels {list(labels)} (g A g⁻¹ = exp(2πi·label/order) A "
+                f"for each generator), so from the source labels "
+                f"{[q for _, q in self._symmetries]} it lands in labels {expected}, but the "
+                f"target has {given} (generator {wrong[0]}: expected label "
+                f"{expected[wrong[0]]}, got {given[wrong[0]]}); pass the target with labels "
+                f"{expected}, for example source.target_for(A, base)"
+            )
+        return _native.NativeOperator.between_sectors(
+            self._native, target.native, expr.to_native(), project=project
+        )
 
     def __reduce__(self) -> tuple[Any, ...]:
         return (_rebuild_sector, (self._base, self._symmetries))

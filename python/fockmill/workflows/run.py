@@ -46,6 +46,8 @@ def _section(model_file: Any, name: str) -> Any:
         raise ValueError(
             f"{source} has no [{name}] section; add one (see docs/model-files.md) to run it"
         )
+    if getattr(spec, "momenta", None) is not None:
+        return spec  # a momentum-resolved map runs in the [symmetry] sectors
     if getattr(model_file, "symmetry", None) is not None:
         # A Fock or coherent initial state, a probe that changes the momentum and a
         # canonical ensemble all live in the whole space, not in one symmetry sector.
@@ -326,7 +328,13 @@ def run_spectrum(
         ``kind="spectrum"``; arrays ``omegas``, ``S`` and, with ``poles = true``,
         ``pole_frequencies`` and ``pole_weights``; ``summary`` holds the ground energy,
         the reference energy, ``norm`` = ‖Aψ‖² (⟨ψ|A†A|ψ⟩ within the cutoffs, the
-        integral of S over all ω) and Lanczos step counts.
+        integral of S over all ω) and Lanczos step counts. With ``momenta``
+        (a momentum-resolved map, :func:`fockmill.momentum_spectrum` from the ground
+        state of the ``[symmetry]`` sector): ``S`` has shape ``(rows, omegas)``, with
+        arrays ``labels`` ``(rows, generators)``, ``momenta`` (``2π·label/order`` folded
+        into (−π, π], per generator), ``norms`` and ``dims`` per row, and the poles of
+        every row in ``pole_frequencies``, ``pole_weights`` with their row in
+        ``pole_rows``.
 
     Raises
     ------
@@ -338,6 +346,8 @@ def run_spectrum(
     from fockmill.solvers.ground import ground_state
 
     run = _begin(model_file, "spectrum", overrides, threads)
+    if run.spec.momenta is not None:
+        return _momentum_map(run, memory_limit)
     spec, space, solver = run.spec, run.space, run.solver
     h = run.model.hamiltonian(**run.values)
     with _collected_warnings() as messages:
@@ -375,6 +385,76 @@ def run_spectrum(
         "max_steps": spec.max_steps,
         "target_total": target.total,
         "target_dim": target.dim,
+    }
+    return run.finish(arrays, settings=settings, summary=summary, messages=messages)
+
+
+def _momentum_map(run: _Run, memory_limit: int | None) -> WorkflowResult:
+    """The ``[spectrum]`` with ``momenta``: S(q, ω) from the ground state of the
+    ``[symmetry]`` sector, one sector per momentum."""
+    from fockmill.dynamics.momentum import momentum_spectrum
+    from fockmill.problem.problem import prepare
+    from fockmill.solvers.ground import ground_state
+
+    spec, model, solver = run.spec, run.model, run.solver
+    choice = run.model_file.symmetry
+    h = model.hamiltonian(**run.values)
+    with _collected_warnings() as messages:
+        sector = choice.sector(model.space, threads=solver["threads"])
+        problem = prepare(h, sector, threads=solver["threads"], memory_limit=memory_limit)
+        ground = ground_state(problem, **{k: v for k, v in solver.items() if k != "threads"})
+        reference = ground.energy if spec.reference_energy is None else spec.reference_energy
+        omegas = np.asarray(spec.omegas)
+        found = momentum_spectrum(
+            problem,
+            psi=ground.vector,
+            A=spec.operator,
+            omegas=omegas,
+            labels=None if spec.momenta == "all" else [tuple(r) for r in spec.momenta],
+            base=spec.target,
+            eta=spec.eta,
+            poles=spec.poles,
+            reference_energy=reference,
+            tol=spec.tol,
+            max_steps=spec.max_steps,
+        )
+        arrays: dict[str, Any] = {
+            "omegas": omegas,
+            "S": found.intensity,
+            "labels": found.labels.astype(np.float64),
+            "momenta": found.momenta.reshape(len(found.labels), -1),
+            "norms": found.norms,
+            "dims": found.dims.astype(np.float64),
+        }
+        summary: dict[str, Any] = {
+            "ground_energy": ground.energy,
+            "ground_residual": ground.residual,
+            "reference_energy": reference,
+            "norm": float(np.sum(found.norms)),
+            "sector_dim": sector.dim,
+        }
+        if found.poles is not None:
+            arrays["pole_frequencies"] = np.concatenate([p.frequencies for p in found.poles])
+            arrays["pole_weights"] = np.concatenate([p.weights for p in found.poles])
+            arrays["pole_rows"] = np.concatenate(
+                [
+                    np.full(p.frequencies.size, k, dtype=np.float64)
+                    for k, p in enumerate(found.poles)
+                ]
+            )
+            summary.update(poles_exact=all(p.exhausted for p in found.poles))
+    settings = {
+        "operator": list(spec.texts),
+        "charge": spec.charge,
+        "eta": spec.eta,
+        "reference_energy": spec.reference_energy,
+        "poles": spec.poles,
+        "tol": spec.tol,
+        "max_steps": spec.max_steps,
+        "target_total": spec.target.total,
+        "momenta": spec.momenta if spec.momenta == "all" else [list(r) for r in spec.momenta],
+        "orders": list(found.orders),
+        "sector": choice.describe(),
     }
     return run.finish(arrays, settings=settings, summary=summary, messages=messages)
 

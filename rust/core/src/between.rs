@@ -180,6 +180,17 @@ impl<S: Scalar> Between<S> {
         self.coefs.is_empty()
     }
 
+    /// Coefficient of term `t`.
+    pub fn coef(&self, t: usize) -> S {
+        self.coefs[t]
+    }
+
+    /// Factors of term `t` in gathering form, `(mode, quanta removed from the row
+    /// state, quanta added)`, sorted by mode (the sector kernel gathers rows from them).
+    pub fn factors(&self, t: usize) -> &[(usize, u32, u32)] {
+        &self.factors[t]
+    }
+
     /// The merged, nonzero entries of the row whose target state is `occ`, sorted by
     /// source column, left in `entries`; `work` is scratch of length M.
     fn row_entries(&self, source: &FockSpace, occ: &[u32], work: &mut [u32], entries: &mut Vec<(u64, S)>) {

@@ -38,6 +38,7 @@
 //! off-diagonal term into a fixed offset of the packed strings plus per-factor tables
 //! of squared amplitudes, and use `u64` strings when they fit in 64 bits.
 
+use crate::between::Between;
 use crate::build::{CsrAny, RowVisitor, SparseRows};
 use crate::error::{CoreError, CoreResult};
 use crate::lanczos::{self, HermitianMap, LanczosOptions, LanczosOutcome};
@@ -46,7 +47,7 @@ use crate::memory::{ensure_room, try_filled};
 use crate::parallel::{Interrupt, Runner};
 use crate::scalar::Scalar;
 use crate::space::{Constraint, FockSpace};
-use crate::terms::{format_monomial, Operator};
+use crate::terms::{format_monomial, Monomial, Operator};
 use num_complex::Complex64;
 use rayon::prelude::*;
 use std::collections::HashMap;
@@ -217,6 +218,131 @@ pub fn permutation_order(images: &[usize]) -> Option<u64> {
         }
     }
     Some(order as u64)
+}
+
+/// Relative tolerance of the character found for an operator (coefficients compared to
+/// the largest), as the invariance check of [`SectorOperator::new`].
+const CHARACTER_TOL: f64 = 1e-12;
+
+/// The label `p` of each generator under which an operator has a definite character,
+/// `g A g⁻¹ = exp(2πi p / order) A` (None for the zero operator, which has every one).
+///
+/// `g A g⁻¹` renames the modes of every term (mode `i` becomes `images[i]`), so the
+/// coefficient of the renamed monomial `g(m)` in `A` must be `χ^* c_m` for every term;
+/// `χ` is read off the largest term and must be an `order`-th root of unity.
+/// `ρ = Σ_j e^{iκj} n_j` on a ring (`κ = 2πk/L`) has `χ = e^{−iκ}` under the unit
+/// translation, so label `−k mod L`: it carries the sector `q` into `q − k`.
+///
+/// # Errors
+/// [`CoreError::Symmetry`] naming the generator and a term whose image breaks the
+/// character (or has no partner in `A`).
+pub fn operator_labels(
+    terms: &[(Monomial, Complex64)],
+    generators: &[Generator],
+) -> CoreResult<Vec<Option<u64>>> {
+    let lookup: HashMap<&Monomial, Complex64> = terms.iter().map(|(m, c)| (m, *c)).collect();
+    let Some((big, _)) = terms
+        .iter()
+        .enumerate()
+        .filter(|(_, (_, c))| c.norm() > 0.0)
+        .max_by(|a, b| a.1 .1.norm().total_cmp(&b.1 .1.norm()))
+    else {
+        return Ok(vec![None; generators.len()]);
+    };
+    let scale = terms[big].1.norm();
+    let moved = |m: &Monomial, g: &Generator| -> Monomial {
+        let mut out: Monomial = m.iter().map(|&(i, p, q)| (g.images[i], p, q)).collect();
+        out.sort_unstable();
+        out
+    };
+    let mut labels = Vec::with_capacity(generators.len());
+    for (k, g) in generators.iter().enumerate() {
+        let order = permutation_order(&g.images).unwrap_or(1);
+        let (m0, c0) = &terms[big];
+        let image = moved(m0, g);
+        let partner = lookup.get(&image).copied().unwrap_or_default();
+        let refuse = |m: &Monomial, c: Complex64, image: &Monomial, found: Complex64, why: &str| {
+            CoreError::Symmetry(format!(
+                "the operator has no definite character under generator {k} (g A g⁻¹ = χ A \
+                 for one number χ): it maps the term ({}{:+}j)·{} to {}, whose coefficient is \
+                 ({}{:+}j){why}; an operator between sectors must be a momentum component such \
+                 as Σ_j exp(2πi·k·j/L) n_j, or use the base spaces",
+                c.re,
+                c.im,
+                format_monomial(m),
+                format_monomial(image),
+                found.re,
+                found.im
+            ))
+        };
+        if partner.norm() <= CHARACTER_TOL * scale {
+            return Err(refuse(m0, *c0, &image, partner, ""));
+        }
+        // c_m = χ · A[g(m)].
+        let chi = c0 / partner;
+        let turns = chi.arg() / (2.0 * std::f64::consts::PI) * order as f64;
+        let p = (turns.round() as i64).rem_euclid(order as i64) as u64;
+        let root = unit_root(p, order);
+        if (chi - root).norm() > 1e-9 {
+            return Err(refuse(
+                m0,
+                *c0,
+                &image,
+                partner,
+                &format!(
+                    ", a ratio {:.6}{:+.6}j that is no {order}-th root of unity",
+                    chi.re, chi.im
+                ),
+            ));
+        }
+        for (m, c) in terms {
+            let image = moved(m, g);
+            let found = lookup.get(&image).copied().unwrap_or_default();
+            if (c - root * found).norm() > CHARACTER_TOL * scale {
+                return Err(refuse(
+                    m,
+                    *c,
+                    &image,
+                    found,
+                    &format!(
+                        ", while the largest term gives χ = exp(2πi·{p}/{order}) (coefficient \
+                         ({:.6}{:+.6}j) expected)",
+                        (c / root).re,
+                        (c / root).im
+                    ),
+                ));
+            }
+        }
+        labels.push(Some(p));
+    }
+    Ok(labels)
+}
+
+/// [`operator_labels`] of terms as a caller gives them (identical monomials summed,
+/// exact zeros dropped, factors sorted by mode).
+///
+/// # Errors
+/// As [`operator_labels`].
+pub fn labels_of_terms(
+    terms: &[crate::terms::RawTerm],
+    generators: &[Generator],
+) -> CoreResult<Vec<Option<u64>>> {
+    let mut merged: Vec<(Monomial, Complex64)> = Vec::new();
+    let mut at: HashMap<Monomial, usize> = HashMap::new();
+    for t in terms {
+        let mut m: Monomial = t.factors.iter().copied().filter(|f| f.1 + f.2 > 0).collect();
+        m.sort_unstable();
+        let c = Complex64::new(t.re, t.im);
+        match at.get(&m) {
+            Some(&k) => merged[k].1 += c,
+            None => {
+                at.insert(m.clone(), merged.len());
+                merged.push((m, c));
+            }
+        }
+    }
+    merged.retain(|(_, c)| c.norm() > 0.0);
+    operator_labels(&merged, generators)
 }
 
 fn gcd(mut a: u128, mut b: u128) -> u128 {
@@ -1579,14 +1705,23 @@ impl<S: Scalar> SectorOperator<S> {
                 }
             }
         }
-        let mut diagonal = Vec::new();
-        let mut off = Vec::new();
-        for t in 0..op.len() {
-            let term = SectorTerm {
+        let terms: Vec<SectorTerm<S>> = (0..op.len())
+            .map(|t| SectorTerm {
                 coef: op.coef(t),
                 factors: op.factors(t).collect(),
-            };
-            if term.factors.iter().all(|f| f.1 == f.2) {
+            })
+            .collect();
+        Ok(Self::assemble(sector, terms, characters, true))
+    }
+
+    /// The prepared operator from its terms in gathering form; `characters` are those
+    /// of the columns' sector. With `split`, terms that keep the occupations are summed
+    /// into the diagonal (only for an operator from a sector to itself).
+    fn assemble(sector: &SymmetricSpace, terms: Vec<SectorTerm<S>>, characters: Vec<S>, split: bool) -> Self {
+        let mut diagonal = Vec::new();
+        let mut off = Vec::new();
+        for term in terms {
+            if split && term.factors.iter().all(|f| f.1 == f.2) {
                 diagonal.push(term);
             } else {
                 off.push(term);
@@ -1599,29 +1734,109 @@ impl<S: Scalar> SectorOperator<S> {
             .shifts
             .as_ref()
             .map(|f| PackedTerms::new(&off, caps, f.bits));
-        Ok(SectorOperator {
+        SectorOperator {
             diagonal,
             off,
             characters,
             diagonal_tables,
             packed,
-        })
+        }
     }
 
-    /// Call `visit(column, value)` for the entries of sector row `row`, in a fixed order
-    /// (the diagonal first, then the off-diagonal terms); duplicates are not merged.
+    /// Prepare an operator `A` from the sector `source` into the sector `target` of the
+    /// same generators (their base spaces may differ in the conserved total, as
+    /// [`Between`] allows). `A` must carry a definite character under every generator,
+    /// `g A g⁻¹ = χ_A(g) A` (see [`operator_labels`]), and `target`'s labels must be
+    /// `source`'s shifted by `A`'s.
+    ///
+    /// For a target row `ũ` (representative `u`) and a source column `r̃`,
+    /// `⟨ũ|A|r̃⟩ = sqrt(o_u / o_r) Σ_{s ∈ orbit(r)} A_{u s} χ_S(g_s)^*`: the formula of the
+    /// invariant case with the source's characters, because `χ_T(g) χ_A(g)^* = χ_S(g)`
+    /// lets the sum over the row's orbit collapse onto `u` as there. Rows are therefore
+    /// gathered by the same kernel, with the row's representative taken in `target`
+    /// and each image's representative looked up in `source`.
+    ///
+    /// # Errors
+    /// [`CoreError::Symmetry`] when the generators differ, `A` has no definite
+    /// character, or the target's labels are not the source's shifted by `A`'s (naming
+    /// the label expected); [`CoreError::InvalidArgument`] for a real element type with
+    /// complex characters.
+    pub fn between(
+        source: &SymmetricSpace,
+        target: &SymmetricSpace,
+        op: &Between<S>,
+        source_generators: &[Generator],
+        target_generators: &[Generator],
+    ) -> CoreResult<Self> {
+        if source_generators.len() != target_generators.len()
+            || source_generators
+                .iter()
+                .zip(target_generators)
+                .any(|(a, b)| a.images != b.images)
+            || source.base.cutoffs() != target.base.cutoffs()
+        {
+            return Err(CoreError::Symmetry(
+                "the source and target sectors must have the same generators, in the same \
+                 order, over modes with the same cutoffs (only the labels and the conserved \
+                 total may differ); build both sectors from one list of generators"
+                    .into(),
+            ));
+        }
+        let characters = source.characters_as::<S>()?;
+        target.characters_as::<S>()?;
+        let terms: Vec<(Monomial, Complex64)> = (0..op.len())
+            .map(|t| {
+                let c = op.coef(t);
+                (op.factors(t).to_vec(), Complex64::new(c.re(), c.im()))
+            })
+            .collect();
+        let labels = operator_labels(&terms, source_generators)?;
+        for (k, ((s, t), p)) in source_generators
+            .iter()
+            .zip(target_generators)
+            .zip(&labels)
+            .enumerate()
+        {
+            let order = permutation_order(&s.images).unwrap_or(1);
+            if let Some(p) = p {
+                let expect = (s.label + p) % order;
+                if t.label != expect {
+                    return Err(CoreError::Symmetry(format!(
+                        "the operator carries label {p} under generator {k} (g A g⁻¹ = \
+                         exp(2πi·{p}/{order}) A), so from source label {} it lands in label \
+                         {expect}, but the target has label {}; give the target label {expect} \
+                         for generator {k}",
+                        s.label, t.label
+                    )));
+                }
+            }
+        }
+        let terms: Vec<SectorTerm<S>> = (0..op.len())
+            .map(|t| SectorTerm {
+                coef: op.coef(t),
+                factors: op.factors(t).to_vec(),
+            })
+            .collect();
+        Ok(Self::assemble(source, terms, characters, false))
+    }
+
+    /// Call `visit(column, value)` for the entries of row `row` of `rows`, in a fixed
+    /// order (the diagonal first, then the off-diagonal terms); duplicates are not
+    /// merged. Columns are states of `cols`: the same sector for an operator on a
+    /// sector, the source sector for one between sectors (then there is no diagonal).
     #[inline]
     fn row_entries(
         &self,
-        sector: &SymmetricSpace,
+        rows: &SymmetricSpace,
+        cols: &SymmetricSpace,
         row: u64,
         s: &mut RowScratch,
         mut visit: impl FnMut(u64, S),
     ) -> CoreResult<()> {
-        let base = &sector.base;
+        let base = &cols.base;
         let caps = base.caps();
-        let rank = sector.reps[row as usize];
-        sector.unrank_small(rank, &mut s.occ);
+        let rank = rows.reps[row as usize];
+        rows.unrank_small(rank, &mut s.occ);
         let mut d = S::ZERO;
         let mut any_diagonal = false;
         let dt = &self.diagonal_tables;
@@ -1640,18 +1855,18 @@ impl<S: Scalar> SectorOperator<S> {
         if any_diagonal {
             visit(row, d);
         }
-        if let (Some(f), Some(pt)) = (&sector.shifts, &self.packed) {
-            if f.bits == pt.bits {
+        if let (Some(f), Some(pt)) = (&rows.shifts, &self.packed) {
+            if f.bits == pt.bits && cols.shifts.is_some() {
                 if f.narrow() {
-                    self.packed_row::<u64>(sector, f, pt, s);
+                    self.packed_row::<u64>(cols, f, pt, s);
                 } else {
-                    self.packed_row::<u128>(sector, f, pt, s);
+                    self.packed_row::<u128>(cols, f, pt, s);
                 }
                 // Two phases: every image's column first (index look-ups that do not
                 // wait for one another), then the entries (the vector's look-ups).
                 // Images outside the sector keep `u64::MAX`.
                 for e in s.pending.iter_mut() {
-                    e.0 = sector.sector_index(e.0).unwrap_or(u64::MAX);
+                    e.0 = cols.sector_index(e.0).unwrap_or(u64::MAX);
                 }
                 for &(col, t, h, amp) in &s.pending {
                     if col != u64::MAX {
@@ -1664,8 +1879,8 @@ impl<S: Scalar> SectorOperator<S> {
                 return Ok(());
             }
         }
-        let (_, ties_row) = sector.canonical(&s.occ, &mut s.best);
-        let inv_row = sector.inv_root(ties_row);
+        let (_, ties_row) = rows.canonical(&s.occ, &mut s.best);
+        let inv_row = rows.inv_root(ties_row);
         'terms: for term in &self.off {
             s.image.copy_from_slice(&s.occ);
             let mut amp_sq = 1.0f64;
@@ -1682,22 +1897,23 @@ impl<S: Scalar> SectorOperator<S> {
                 amp_sq *= crate::terms::falling(n, lower) * crate::terms::falling(w, raise);
                 s.image[mode] = w;
             }
-            let (h, ties) = sector.canonical(&s.image, &mut s.best);
+            let (h, ties) = cols.canonical(&s.image, &mut s.best);
             let Some(r) = base.rank(&s.best) else {
                 continue;
             };
-            let Some(col) = sector.sector_index(r) else {
+            let Some(col) = cols.sector_index(r) else {
                 continue;
             };
             // sqrt(o_u / o_r) = sqrt(ties_r / ties_u).
-            let amp = sector.amplitude(amp_sq, ties, inv_row);
+            let amp = cols.amplitude(amp_sq, ties, inv_row);
             visit(col, (term.coef * self.characters[h]).scale(amp));
         }
         Ok(())
     }
 
     /// The images of the row whose occupations are in `s.occ`, through packed strings:
-    /// `(base rank of the representative, term, element, amplitude)` into `s.pending`.
+    /// `(base rank of the representative, term, element, amplitude)` into `s.pending`,
+    /// ranked in the base space of `sector` (the columns' sector).
     /// Each image is the row's packed string plus the term's fixed offset (after its
     /// factor tables accept the occupations), its representative the smallest rotation
     /// ([`Shifts::smallest_with`]), ranked straight from the packed string. Ranks come
@@ -1750,13 +1966,14 @@ impl<S: Scalar> SectorOperator<S> {
     /// The merged entries of one row, sorted by column, exact zeros dropped.
     fn merged_row(
         &self,
-        sector: &SymmetricSpace,
+        rows: &SymmetricSpace,
+        cols: &SymmetricSpace,
         row: u64,
         s: &mut RowScratch,
         out: &mut Vec<(u64, S)>,
     ) -> CoreResult<()> {
         out.clear();
-        self.row_entries(sector, row, s, |c, v| out.push((c, v)))?;
+        self.row_entries(rows, cols, row, s, |c, v| out.push((c, v)))?;
         let kept = crate::build::merge_row(out);
         out.truncate(kept);
         Ok(())
@@ -1775,22 +1992,56 @@ impl<S: Scalar> SectorOperator<S> {
         runner: &Runner,
         interrupt: &dyn Interrupt,
     ) -> CoreResult<()> {
-        let dim = sector.dim() as usize;
-        if k == 0 || x.len() != dim * k || y.len() != dim * k {
+        self.apply_rows(sector, sector, x, y, k, runner, interrupt)
+    }
+
+    /// `Y = A X` for an operator prepared by [`SectorOperator::between`]: `k` source
+    /// vectors stored row-major in `x`, `k` target vectors into `y`.
+    ///
+    /// # Errors
+    /// [`CoreError::Shape`] for wrong lengths; [`CoreError::Interrupted`].
+    #[allow(clippy::too_many_arguments)]
+    pub fn apply_between(
+        &self,
+        source: &SymmetricSpace,
+        target: &SymmetricSpace,
+        x: &[S],
+        y: &mut [S],
+        k: usize,
+        runner: &Runner,
+        interrupt: &dyn Interrupt,
+    ) -> CoreResult<()> {
+        self.apply_rows(target, source, x, y, k, runner, interrupt)
+    }
+
+    #[allow(clippy::too_many_arguments)]
+    fn apply_rows(
+        &self,
+        rows: &SymmetricSpace,
+        cols: &SymmetricSpace,
+        x: &[S],
+        y: &mut [S],
+        k: usize,
+        runner: &Runner,
+        interrupt: &dyn Interrupt,
+    ) -> CoreResult<()> {
+        let (nr, nc) = (rows.dim() as usize, cols.dim() as usize);
+        if k == 0 || x.len() != nc * k || y.len() != nr * k {
             return Err(CoreError::Shape(format!(
-                "vectors must have shape ({dim}, {k}) to match the sector (got {} and {} \
-                 elements); pass arrays whose length is the sector's dim",
+                "the input must have shape ({nc}, {k}) and the output ({nr}, {k}) to match \
+                 the sectors (got {} and {} elements); pass arrays whose length is the \
+                 sector's dim",
                 x.len(),
                 y.len()
             )));
         }
-        let m = sector.base.modes();
+        let m = rows.base.modes();
         if k == 1 {
             return runner.for_row_chunks(y, interrupt, |first, out| {
                 let mut s = RowScratch::new(m);
                 for (i, yi) in out.iter_mut().enumerate() {
                     let mut acc = S::ZERO;
-                    self.row_entries(sector, first + i as u64, &mut s, |c, v| {
+                    self.row_entries(rows, cols, first + i as u64, &mut s, |c, v| {
                         acc += v * x[c as usize];
                     })?;
                     *yi = acc;
@@ -1798,12 +2049,12 @@ impl<S: Scalar> SectorOperator<S> {
                 Ok(())
             });
         }
-        let mut rows: Vec<&mut [S]> = y.chunks_mut(k).collect();
-        runner.for_row_chunks(&mut rows, interrupt, |first, out| {
+        let mut chunks: Vec<&mut [S]> = y.chunks_mut(k).collect();
+        runner.for_row_chunks(&mut chunks, interrupt, |first, out| {
             let mut s = RowScratch::new(m);
             for (i, yi) in out.iter_mut().enumerate() {
                 yi.fill(S::ZERO);
-                self.row_entries(sector, first + i as u64, &mut s, |c, v| {
+                self.row_entries(rows, cols, first + i as u64, &mut s, |c, v| {
                     let xs = &x[c as usize * k..][..k];
                     for (yj, &xj) in yi.iter_mut().zip(xs) {
                         *yj += v * xj;
@@ -1831,7 +2082,29 @@ impl<S: Scalar> SectorOperator<S> {
         interrupt: &dyn Interrupt,
         force_wide: bool,
     ) -> CoreResult<CsrAny<S>> {
-        crate::build::build_rows(&OnSector { sector, op: self }, runner, interrupt, force_wide)
+        let listing = OnSector::square(sector, self);
+        crate::build::build_rows(&listing, runner, interrupt, force_wide)
+    }
+
+    /// The `(target.dim, source.dim)` CSR matrix of an operator prepared by
+    /// [`SectorOperator::between`] (as [`SectorOperator::build_csr`]).
+    ///
+    /// # Errors
+    /// As [`SectorOperator::build_csr`].
+    pub fn build_between(
+        &self,
+        source: &SymmetricSpace,
+        target: &SymmetricSpace,
+        runner: &Runner,
+        interrupt: &dyn Interrupt,
+        force_wide: bool,
+    ) -> CoreResult<CsrAny<S>> {
+        let listing = OnSector {
+            rows: target,
+            cols: source,
+            op: self,
+        };
+        crate::build::build_rows(&listing, runner, interrupt, force_wide)
     }
 
     /// Estimated stored entries (exact when the sector has at most `4 × samples` states):
@@ -1846,14 +2119,45 @@ impl<S: Scalar> SectorOperator<S> {
         runner: &Runner,
         interrupt: &dyn Interrupt,
     ) -> CoreResult<(f64, f64, bool, u64)> {
-        let m = sector.base.modes();
+        self.estimate_rows(OnSector::square(sector, self), samples, runner, interrupt)
+    }
+
+    /// As [`SectorOperator::estimate_nnz`], for an operator prepared by
+    /// [`SectorOperator::between`] (rows: the target's states).
+    ///
+    /// # Errors
+    /// [`CoreError::Interrupted`] during an exact count.
+    pub fn estimate_between(
+        &self,
+        source: &SymmetricSpace,
+        target: &SymmetricSpace,
+        samples: usize,
+        runner: &Runner,
+        interrupt: &dyn Interrupt,
+    ) -> CoreResult<(f64, f64, bool, u64)> {
+        let listing = OnSector {
+            rows: target,
+            cols: source,
+            op: self,
+        };
+        self.estimate_rows(listing, samples, runner, interrupt)
+    }
+
+    fn estimate_rows(
+        &self,
+        listing: OnSector<'_, S>,
+        samples: usize,
+        runner: &Runner,
+        interrupt: &dyn Interrupt,
+    ) -> CoreResult<(f64, f64, bool, u64)> {
+        let m = listing.rows.base.modes();
         let e = crate::estimate::estimate_from_rows(
-            sector.dim(),
+            listing.rows.dim(),
             samples,
             runner,
-            || crate::build::counts_of(&OnSector { sector, op: self }, runner, interrupt),
+            || crate::build::counts_of(&listing, runner, interrupt),
             || (RowScratch::new(m), Vec::new()),
-            |(s, buf), row| match self.merged_row(sector, row, s, buf) {
+            |(s, buf), row| match self.merged_row(listing.rows, listing.cols, row, s, buf) {
                 Ok(()) => buf.len() as u64,
                 Err(_) => 0,
             },
@@ -1923,33 +2227,47 @@ impl<S: Scalar> SectorOperator<S> {
 }
 
 /// A sector operator seen as the rows of its matrix, for the shared two-pass CSR build
-/// and the nonzero estimate.
+/// and the nonzero estimate: rows are states of `rows`, columns states of `cols` (the
+/// same sector for an operator on a sector; target and source between sectors).
 #[derive(Clone, Copy)]
 pub struct OnSector<'a, S: Scalar> {
-    /// The sector (rows and columns).
-    pub sector: &'a SymmetricSpace,
+    /// The sector of the rows.
+    pub rows: &'a SymmetricSpace,
+    /// The sector of the columns.
+    pub cols: &'a SymmetricSpace,
     /// The operator.
     pub op: &'a SectorOperator<S>,
 }
 
+impl<'a, S: Scalar> OnSector<'a, S> {
+    /// An operator from `sector` to itself.
+    pub fn square(sector: &'a SymmetricSpace, op: &'a SectorOperator<S>) -> Self {
+        OnSector {
+            rows: sector,
+            cols: sector,
+            op,
+        }
+    }
+}
+
 impl<S: Scalar> SparseRows<S> for OnSector<'_, S> {
     fn shape(&self) -> (u64, u64) {
-        (self.sector.dim(), self.sector.dim())
+        (self.rows.dim(), self.cols.dim())
     }
     fn rows(&self, first: u64, count: usize, visit: &mut RowVisitor<S>) -> CoreResult<()> {
         let end = first
             .checked_add(count as u64)
-            .filter(|&e| e <= self.sector.dim())
+            .filter(|&e| e <= self.rows.dim())
             .ok_or_else(|| {
                 CoreError::InvalidArgument(format!(
                     "rows {first}..{first}+{count} are out of range for the sector's dimension {}",
-                    self.sector.dim()
+                    self.rows.dim()
                 ))
             })?;
-        let mut s = RowScratch::new(self.sector.base.modes());
+        let mut s = RowScratch::new(self.rows.base.modes());
         let mut buf = Vec::new();
         for row in first..end {
-            self.op.merged_row(self.sector, row, &mut s, &mut buf)?;
+            self.op.merged_row(self.rows, self.cols, row, &mut s, &mut buf)?;
             visit(row, &buf);
         }
         Ok(())
@@ -2707,5 +3025,103 @@ mod tests {
             .lanczos_ground(&s, true, None, &LanczosOptions::default(), &two, &NoInterrupt)
             .unwrap();
         assert!((a.energy - b.energy).abs() < 1e-10);
+    }
+
+    /// `A x` on the base spaces by the between-spaces kernel (the independent path).
+    fn base_product(
+        src: &FockSpace,
+        dst: &FockSpace,
+        op: &Between<Complex64>,
+        x: &[Complex64],
+    ) -> Vec<Complex64> {
+        let mut y = vec![Complex64::new(0.0, 0.0); dst.dim() as usize];
+        crate::between::apply_many(src, dst, op, x, &mut y, 1, &Runner::global(), &NoInterrupt).unwrap();
+        y
+    }
+
+    #[test]
+    fn operators_between_sectors_commute_with_expand() {
+        // expand_T(M v) == A expand_S(v) for a_κ = Σ_j e^{2πi k j/L} a_j (N → N − 1) and
+        // ρ_κ = Σ_j e^{2πi k j/L} n_j (N → N), every source label; the labels follow
+        // g A g⁻¹ = e^{−2πik/L} A (derived in `operator_labels`; common practice, no source).
+        let l = 5;
+        let two_pi = 2.0 * std::f64::consts::PI;
+        let n3 = FockSpace::new(vec![3; l], None, Some(3), None).unwrap();
+        let n2 = FockSpace::new(vec![3; l], None, Some(2), None).unwrap();
+        for (dst, raise) in [(&n2, 0u32), (&n3, 1u32)] {
+            for k in 0..l as u64 {
+                let raw: Vec<RawTerm> = (0..l)
+                    .map(|j| {
+                        let a = two_pi * (k * j as u64) as f64 / l as f64;
+                        RawTerm::new(a.cos(), a.sin(), vec![(j, raise, 1)])
+                    })
+                    .collect();
+                let op = Between::<Complex64>::new(&n3, dst, &raw, false).unwrap();
+                let terms: Vec<(Monomial, Complex64)> = (0..op.len())
+                    .map(|t| (op.factors(t).to_vec(), op.coef(t)))
+                    .collect();
+                let p = (l as u64 - k) % l as u64;
+                let gen = |label| {
+                    vec![Generator {
+                        images: ring(l),
+                        label,
+                    }]
+                };
+                assert_eq!(operator_labels(&terms, &gen(0)).unwrap(), vec![Some(p)]);
+                for q in 0..l as u64 {
+                    let (gs, gt) = (gen(q), gen((q + p) % l as u64));
+                    let src = SymmetricSpace::new(n3.clone(), &gs, &Runner::global(), &NoInterrupt).unwrap();
+                    let tgt = SymmetricSpace::new(dst.clone(), &gt, &Runner::global(), &NoInterrupt).unwrap();
+                    let sop = SectorOperator::between(&src, &tgt, &op, &gs, &gt).unwrap();
+                    let v: Vec<Complex64> = (0..src.dim() as usize)
+                        .map(|i| Complex64::new((i as f64 * 0.7).sin(), (i as f64 * 0.3).cos()))
+                        .collect();
+                    let mut mv = vec![Complex64::new(0.0, 0.0); tgt.dim() as usize];
+                    sop.apply_between(&src, &tgt, &v, &mut mv, 1, &Runner::global(), &NoInterrupt)
+                        .unwrap();
+                    let mut left = vec![Complex64::new(0.0, 0.0); dst.dim() as usize];
+                    tgt.expand(&mv, &mut left, &Runner::global(), &NoInterrupt)
+                        .unwrap();
+                    let mut w = vec![Complex64::new(0.0, 0.0); n3.dim() as usize];
+                    src.expand(&v, &mut w, &Runner::global(), &NoInterrupt).unwrap();
+                    let right = base_product(&n3, dst, &op, &w);
+                    for (a, b) in left.iter().zip(&right) {
+                        assert!((a - b).norm() < 1e-10, "k={k} q={q}: {a} vs {b}");
+                    }
+                    // The built matrix gives the same product.
+                    let c = match sop
+                        .build_between(&src, &tgt, &Runner::global(), &NoInterrupt, false)
+                        .unwrap()
+                    {
+                        CsrAny::Narrow(c) => c,
+                        CsrAny::Wide(_) => panic!("small"),
+                    };
+                    for (r, want) in mv.iter().enumerate() {
+                        let mut acc = Complex64::new(0.0, 0.0);
+                        for e in c.indptr[r] as usize..c.indptr[r + 1] as usize {
+                            acc += c.data[e] * v[c.indices[e] as usize];
+                        }
+                        assert!((acc - want).norm() < 1e-12);
+                    }
+                    // Any other target label is refused, naming the one expected.
+                    let wrong = gen((q + p + 1) % l as u64);
+                    let other =
+                        SymmetricSpace::new(dst.clone(), &wrong, &Runner::global(), &NoInterrupt).unwrap();
+                    let e = SectorOperator::between(&src, &other, &op, &gs, &wrong).unwrap_err();
+                    let expect = format!("give the target label {}", (q + p) % l as u64);
+                    assert!(e.to_string().contains(&expect), "{e}");
+                }
+            }
+        }
+        // No definite character: n_0 alone.
+        let op =
+            Between::<Complex64>::new(&n3, &n3, &[RawTerm::new(1.0, 0.0, vec![(0, 1, 1)])], false).unwrap();
+        let terms: Vec<(Monomial, Complex64)> = vec![(op.factors(0).to_vec(), op.coef(0))];
+        let g = [Generator {
+            images: ring(l),
+            label: 0,
+        }];
+        let e = operator_labels(&terms, &g).unwrap_err();
+        assert!(e.to_string().contains("no definite character"), "{e}");
     }
 }
