@@ -582,6 +582,8 @@ def sweep_figure(
         axes[-1].ticklabel_format(axis="x", useOffset=False)
     heading = _title(title if title is not None else model_name, context.get("space"), labels)
     heading = _with_sector(heading, context.get("symmetry"))
+    if stationary:
+        heading += "\nstationary states of the master equation (open system)"
     if heading:
         figure.suptitle(heading)
     return figure
