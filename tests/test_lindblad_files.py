@@ -387,6 +387,10 @@ def test_quench_trajectories_agree_with_the_density_matrix() -> None:
     assert np.all(gap <= 4 * error + 1e-9)
     again = run_quench(spec)
     np.testing.assert_array_equal(again.arrays["populations"], sampled.arrays["populations"])
+    from fockmill.cli.workflows import format_result
+
+    text = format_result(sampled)
+    assert "150 quantum-jump trajectories (seed 7)" in text and "±" in text
 
 
 # -- the command line and the figures -----------------------------------------------------

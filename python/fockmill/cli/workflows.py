@@ -244,7 +244,12 @@ def _quench_text(result: WorkflowResult, rows: int | None) -> list[str]:
     for k in _picked(times.size, rows):
         row = [f"{times[k]:g}"]
         if "populations" in result.arrays:
-            row.append(_short_list(result.arrays["populations"][k]))
+            errors = result.arrays.get("populations_error")  # trajectories only
+            if errors is None:
+                row.append(_short_list(result.arrays["populations"][k]))
+            else:
+                pairs = zip(result.arrays["populations"][k], errors[k], strict=True)
+                row.append("[" + " ".join(f"{v:.4f}±{e:.2g}" for v, e in pairs) + "]")
         for n in result.observables:
             value = result.arrays[f"values.{n}"][k]
             error = result.arrays.get(f"errors.{n}")
