@@ -530,3 +530,15 @@ def test_trajectories_on_a_local_dask_cluster_equal_the_serial_run() -> None:
     np.testing.assert_array_equal(remote.jumps, serial.jumps)
     here = run_sweep(spec.model, spec.sweep, workers=1, progress=False)
     assert [r.observables for r in on_dask] == [r.observables for r in here]
+
+
+def test_thermal_of_an_open_file_warns_that_jumps_are_unused() -> None:
+    from fockmill.workflows.run import run_thermal
+
+    thermal = "[thermal]\ntemperatures = [1.0]\n[solver]\ncutoff_warning = false\n"
+    spec = parse(PAIR + thermal)
+    with pytest.warns(UserWarning, match=r"\[jumps\] are not used by \[thermal\]"):
+        result = run_thermal(spec)
+    # The Hamiltonian alone: the same as the file without jumps.
+    closed = run_thermal(parse(PAIR.split("[jumps.kappa]")[0] + thermal))
+    np.testing.assert_array_equal(result.arrays["energy"], closed.arrays["energy"])
