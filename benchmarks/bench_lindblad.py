@@ -7,6 +7,9 @@ one table row with the load average (``uptime``) measured right before it.
 
     python benchmarks/bench_lindblad.py                   # both tables (minutes)
     python benchmarks/bench_lindblad.py --trajectories    # the trajectory table only
+    python benchmarks/bench_lindblad.py --workers SITES CUTOFF COUNT
+        # COUNT trajectories serially, on a process pool and on a local Dask cluster of
+        # 1 and 2 single-threaded worker processes (needs fockmill[cluster])
 """
 
 from __future__ import annotations
@@ -110,7 +113,9 @@ def apply_once(sites: int, cutoff: int) -> list[str]:
     ]
 
 
-def trajectories(sites: int, cutoff: int, count: int, workers: int) -> list[str]:
+def trajectories(sites: int, cutoff: int, count: int, workers: int | str) -> list[str]:
+    """``workers``: 0 serial, N a process pool of N, ``"daskN"`` a local Dask cluster of N
+    single-threaded worker processes (started before the clock starts)."""
     import concurrent.futures as cf
 
     space = fm.FockSpace(modes=sites, cutoff=cutoff)
@@ -126,12 +131,37 @@ def trajectories(sites: int, cutoff: int, count: int, workers: int) -> list[str]
         tr = fm.sample_trajectories(
             h, space, psi0, times, jumps, observables=obs, count=count, seed=1
         )
+    elif isinstance(workers, str):
+        from distributed import Client, LocalCluster
+
+        size = int(workers.removeprefix("dask"))
+        with (
+            LocalCluster(
+                n_workers=size, threads_per_worker=1, processes=True, dashboard_address=None
+            ) as cluster,
+            Client(cluster) as client,
+        ):
+            before = load()
+            t0 = time.perf_counter()
+            tr = fm.sample_trajectories(
+                h,
+                space,
+                psi0,
+                times,
+                jumps,
+                observables=obs,
+                count=count,
+                seed=1,
+                executor=client,
+            )
+            seconds = time.perf_counter() - t0
     else:
         with cf.ProcessPoolExecutor(workers) as pool:
             tr = fm.sample_trajectories(
                 h, space, psi0, times, jumps, observables=obs, count=count, seed=1, executor=pool
             )
-    seconds = time.perf_counter() - t0
+    if not isinstance(workers, str):
+        seconds = time.perf_counter() - t0
     return [
         f"{sites}x{cutoff}",
         f"{space.dim:,}",
@@ -142,6 +172,34 @@ def trajectories(sites: int, cutoff: int, count: int, workers: int) -> list[str]
         f"{tr.mean['n0'][-1]:.4f} ± {tr.stderr['n0'][-1]:.4f}",
         before,
     ]
+
+
+TRAJECTORY_HEADERS = [
+    "sites x cutoff",
+    "states",
+    "trajectories",
+    "workers",
+    "seconds",
+    "s / trajectory",
+    "⟨n0⟩(t=4)",
+    "load before",
+]
+
+
+def workers_table(sites: int, cutoff: int, count: int) -> None:
+    """The same trajectories serially, on a process pool and on a local Dask cluster
+    (1 and 2 workers each), every run in a fresh process; the samples are identical
+    (seeded per trajectory), so ⟨n0⟩ agrees to the last digit."""
+    print(f"fockmill {fm.__version__}, {os.cpu_count()} cores, load at start {os.getloadavg()}")
+    setups = ["0", "1", "2", "dask1", "dask2"]
+    rows = [run(["traj", str(sites), str(cutoff), str(count), w], 8) for w in setups]
+    serial = float(rows[0][4]) if rows[0][4].replace(".", "", 1).isdigit() else float("nan")
+    for row in rows:
+        try:
+            row.append(f"{serial / float(row[4]):.2f}")
+        except ValueError:
+            row.append("-")
+    print(table([*TRAJECTORY_HEADERS, "speed-up vs serial"], rows))
 
 
 def print_table(headers: list[str], rows: list[list[str]]) -> None:
@@ -171,8 +229,12 @@ def main() -> None:
             row = stationary(rest[0], int(rest[1]), int(rest[2]), *rest[3:])
         elif case == "apply":
             row = apply_once(int(rest[0]), int(rest[1]))
+        elif case == "--workers":
+            workers_table(int(rest[0]), int(rest[1]), int(rest[2]))
+            return
         else:
-            row = trajectories(int(rest[0]), int(rest[1]), int(rest[2]), int(rest[3]))
+            who = rest[3] if rest[3].startswith("dask") else int(rest[3])
+            row = trajectories(int(rest[0]), int(rest[1]), int(rest[2]), who)
         print("|".join(row))
         return
     print(f"fockmill {fm.__version__}, {os.cpu_count()} cores, load at start {os.getloadavg()}")

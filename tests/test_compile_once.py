@@ -108,6 +108,7 @@ def test_observables_and_probes_compile_once_each(
         (fm.run_quench, "ring_interaction_ramp.toml"),
         (fm.run_spectrum, "ring_photon_removal.toml"),
         (fm.run_thermal, "kerr_trimer_thermal.toml"),
+        (fm.run_quench, "kerr_pair_blockade.toml"),  # with [jumps]: the density matrix
     ],
 )
 def test_workflow_runners_compile_each_expression_once(
@@ -123,6 +124,16 @@ def test_a_sweep_point_compiles_its_hamiltonian_once(
 ) -> None:
     model = fm.models.bose_hubbard(fm.models.ring_edges(L), cutoff=2, total=2)
     fm.run_sweep(model, [{"U": 1.0}, {"U": 2.0}])
+    repeated = {key: n for key, n in compiled.items() if n > 1}
+    assert repeated == {}, repeated
+
+
+def test_a_stationary_sweep_compiles_its_jumps_once(
+    compiled: collections.Counter[str],
+) -> None:
+    # The rates change from point to point, the jump operators do not.
+    spec = fm.load_model_file(EXAMPLES / "kerr_pair_blockade.toml")
+    fm.run_sweep(spec.model, [{"Delta": 0.0}, {"Delta": 1.0, "kappa": 0.5}], workers=1)
     repeated = {key: n for key, n in compiled.items() if n > 1}
     assert repeated == {}, repeated
 

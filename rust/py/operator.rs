@@ -237,7 +237,8 @@ impl NativeOperator {
         project: bool,
     ) -> PyResult<Self> {
         guarded(|| {
-            let raw = raw_terms(terms);
+            // Array blocks are expanded to terms by the caller on this path.
+            let raw = raw_terms(terms, &[])?;
             let (src, dst) = (&source.inner, &target.inner);
             let (gs, gt) = (&source.generators, &target.generators);
             let op = Between::<Complex64>::new(src.base(), dst.base(), &raw, project).map_err(PyCoreError)?;

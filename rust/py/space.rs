@@ -186,7 +186,7 @@ impl NativeSymmetricSpace {
     /// zero); raises `SymmetryError` when it has none.
     fn operator_labels(&self, terms: Vec<crate::arrays::InTerm>) -> PyResult<Vec<Option<u64>>> {
         guarded(|| {
-            let raw = crate::arrays::raw_terms(terms);
+            let raw = crate::arrays::raw_terms(terms, &[])?;
             Ok(fockmill_core::symmetry::labels_of_terms(&raw, &self.generators).map_err(PyCoreError)?)
         })
     }

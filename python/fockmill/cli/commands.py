@@ -19,7 +19,13 @@ from collections.abc import Sequence
 from pathlib import Path
 from typing import IO, Any, NoReturn
 
-from fockmill.cli.options import add_overrides, add_threads, positive_int
+from fockmill.cli.options import (
+    add_overrides,
+    add_threads,
+    positive_int,
+    solver_keywords,
+    units_of,
+)
 from fockmill.exceptions import ConvergenceError, PoolStartError
 from fockmill.store.sweeps import PointResult, ResultsStore, SweepTable
 
@@ -52,8 +58,9 @@ _DESCRIPTION = """\
 Ground states, gaps and observables of coupled bosonic modes described by a TOML
 model file: solve one point, run a resumable parameter sweep into an SQLite results
 file, then show or plot the results; 'quench', 'spectrum' and 'thermal' run a model
-file's [quench], [spectrum] and [thermal] sections. 'fockmill demo' runs a bundled
-invented example.
+file's [quench], [spectrum] and [thermal] sections; 'stationary' solves the stationary
+state of a file with [jumps] (an open system; 'sweep' scans it). 'fockmill demo' runs a
+bundled invented example.
 """
 
 _EPILOG = """\
@@ -68,6 +75,8 @@ examples:
   fockmill spectrum ring.toml --out ring-spectrum.sqlite
   fockmill thermal trimer.toml --out trimer-thermal.sqlite --set exchange_scale=2
   fockmill plot bands.sqlite --out bands.png --y dispersion   ([symmetry] translation = "all")
+  fockmill stationary kerr_pair.toml --set Delta=0.5           (a file with [jumps])
+  fockmill sweep kerr_pair.toml --out scan.sqlite && fockmill plot scan.sqlite --out scan.png
 """
 
 
@@ -178,15 +187,19 @@ def build_parser() -> argparse.ArgumentParser:
         "--y",
         default=None,
         metavar="Q1,Q2,...",
-        help="comma-separated quantities (default energy,gap); any of energy, gap, levels, "
+        help="comma-separated quantities (default energy,gap; populations,g2,purity for "
+        "stationary states); any of energy, gap, levels, "
         "populations, number_variances, one_body_matrix, entanglement_entropy, "
-        "top_level_weights, residual, seconds; "
+        "top_level_weights, g2, purity, residual, seconds; "
         "or 'dispersion' alone (E0(k) per point, for sweeps over every momentum)",
     )
     plot.add_argument("--no-poles", action="store_true", help="spectra: leave out the pole sticks")
     from fockmill.cli.workflows import add_parsers
 
     add_parsers(commands, _positive_int)
+    from fockmill.cli.stationary import add_parser as add_stationary
+
+    add_stationary(commands)
 
     demo = commands.add_parser(
         "demo",
@@ -228,23 +241,6 @@ def _demo_model() -> Any:
 
     text = files("fockmill.cli").joinpath(DEMO_MODEL).read_text(encoding="utf-8")
     return parse_model_text(text)
-
-
-def _solver_keywords(model_file: Any, threads: int | None = None) -> dict[str, Any]:
-    """The file's ``[solver]`` table as run_sweep keywords (the same words); ``threads``
-    from the command line wins over the file's."""
-    solver = dict(getattr(model_file, "solver", None) or {})
-    keys = ("method", "tol", "seed", "max_iterations", "threads")
-    chosen = {key: solver[key] for key in keys if key in solver}
-    if threads is not None:
-        chosen["threads"] = threads
-    return chosen
-
-
-def _units(model_file: Any) -> dict[str, str]:
-    """The model file's units (parameter or "energy" -> unit), when it gives any."""
-    units = getattr(model_file, "units", None) or {}
-    return {str(k): str(v) for k, v in dict(units).items()}
 
 
 # -- formatting -----------------------------------------------------------------------
@@ -320,6 +316,11 @@ def format_table(table: SweepTable, meta: dict[str, Any] | None = None) -> str:
         if table.sector:
             dims = ", ".join(f"{d:,}" for d in table.sector.get("dims") or [])
             lines.append(f"# sector: {table.sector.get('description', '')} (dim {dims})")
+    if table.stationary:
+        lines.append(
+            "# stationary states of an open model ([jumps]): energy = Tr(ρH), residual = "
+            "‖𝓛ρ‖, g2 = g2(0) per mode"
+        )
     if not table.rows:
         lines.append(
             "# no point has finished yet (the sweep was stopped, or is still running); run "
@@ -514,6 +515,12 @@ def _command_solve(args: argparse.Namespace, out: IO[str]) -> int:
     started = time.perf_counter()
     model_file = _load_model(args.model)
     model = model_file.model
+    if model.is_open:
+        raise UsageError(
+            f"{args.model} has [jumps]: an open system relaxes to a stationary state rather "
+            f"than a ground state; run 'fockmill stationary {args.model}' (or drop [jumps] "
+            "for the ground state of the Hamiltonian alone)"
+        )
     overrides = _parse_overrides(args.overrides)
     unknown = sorted(set(overrides) - set(model.parameters))
     if unknown:
@@ -545,7 +552,7 @@ def _command_solve(args: argparse.Namespace, out: IO[str]) -> int:
         executor="serial",
         progress=False,
         symmetry=symmetry,
-        **_solver_keywords(model_file, getattr(args, "threads", None)),
+        **solver_keywords(model_file, getattr(args, "threads", None)),
     )
     row = table.rows[0]
     total = time.perf_counter() - started
@@ -563,7 +570,9 @@ def _command_solve(args: argparse.Namespace, out: IO[str]) -> int:
     if args.plot and row.observables.get("dispersion") is not None:
         from fockmill.plots.sweeps import plot_dispersion
 
-        shown = SweepTable(rows=table.rows, swept=(), units=_units(model_file), sector=table.sector)
+        shown = SweepTable(
+            rows=table.rows, swept=(), units=units_of(model_file), sector=table.sector
+        )
         where = ", ".join(f"{k}={v:g}" for k, v in row.parameters.items())
         path = plot_dispersion(shown, args.plot, title=f"{model.name} at {where}")
         print(f"figure: {path}", file=out)
@@ -647,9 +656,10 @@ def _run_file_sweep(
     from fockmill.sweeps.run import run_sweep
 
     if model_file.sweep is None:
+        single = "stationary" if model_file.model.is_open else "solve"
         raise UsageError(
             f"{model_file.path or 'the model file'} defines no sweep grid; add one, or use "
-            "'fockmill solve' for a single point"
+            f"'fockmill {single}' for a single point"
         )
     return run_sweep(
         model_file.model,
@@ -663,10 +673,11 @@ def _run_file_sweep(
         chunk=chunk,
         progress=progress,
         retry_failed=retry_failed,
-        units=_units(model_file),
+        units=units_of(model_file),
         model_text_hash=model_file.text_hash,
         symmetry=getattr(model_file, "symmetry", None),
-        **_solver_keywords(model_file),
+        descriptions=dict(getattr(model_file, "descriptions", None) or {}),
+        **solver_keywords(model_file),
     )
 
 
@@ -785,7 +796,12 @@ def _command_plot(args: argparse.Namespace, out: IO[str]) -> int:
 
     if is_workflow_file(args.results):
         return _plot_workflow(args, out)
-    quantities = [q.strip() for q in (args.y or "energy,gap").split(",") if q.strip()]
+    default = "energy,gap"
+    if args.y is None:
+        with _open_results(args.results) as store:
+            if (store.meta.get("settings") or {}).get("stationary"):
+                default = "populations,g2,purity"
+    quantities = [q.strip() for q in (args.y or default).split(",") if q.strip()]
     if "dispersion" in quantities:
         if quantities != ["dispersion"]:
             raise UsageError("--y dispersion draws its own figure; give it alone")
@@ -842,6 +858,12 @@ def _command_demo(args: argparse.Namespace, out: IO[str]) -> int:
     return EXIT_OK
 
 
+def _command_stationary(args: argparse.Namespace, out: IO[str]) -> int:
+    from fockmill.cli.stationary import run_stationary
+
+    return run_stationary(args, out, _load_model, _parse_overrides, UsageError)
+
+
 def _command_workflow(args: argparse.Namespace, out: IO[str]) -> int:
     from fockmill.cli.workflows import run_command
 
@@ -857,6 +879,7 @@ _COMMANDS = {
     "quench": _command_workflow,
     "spectrum": _command_workflow,
     "thermal": _command_workflow,
+    "stationary": _command_stationary,
 }
 
 

@@ -3,8 +3,9 @@
 from __future__ import annotations
 
 import argparse
+from typing import Any
 
-__all__ = ["add_overrides", "add_threads", "positive_int"]
+__all__ = ["add_overrides", "add_threads", "positive_int", "solver_keywords", "units_of"]
 
 
 def positive_int(text: str) -> int:
@@ -38,3 +39,20 @@ def add_threads(parser: argparse.ArgumentParser) -> None:
         metavar="N",
         help="threads (default: [solver] threads, else all cores)",
     )
+
+
+def solver_keywords(model_file: Any, threads: int | None = None) -> dict[str, Any]:
+    """The file's ``[solver]`` table as run_sweep keywords (the same words); ``threads``
+    from the command line wins over the file's."""
+    solver = dict(getattr(model_file, "solver", None) or {})
+    keys = ("method", "tol", "seed", "max_iterations", "threads")
+    chosen = {key: solver[key] for key in keys if key in solver}
+    if threads is not None:
+        chosen["threads"] = threads
+    return chosen
+
+
+def units_of(model_file: Any) -> dict[str, str]:
+    """The model file's units (parameter or "energy" -> unit), when it gives any."""
+    units = getattr(model_file, "units", None) or {}
+    return {str(k): str(v) for k, v in dict(units).items()}

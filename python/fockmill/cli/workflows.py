@@ -186,13 +186,36 @@ def _quench_text(result: WorkflowResult, rows: int | None) -> list[str]:
     if "initial_energy" in summary:
         entries.append(("initial energy", _number(summary["initial_energy"])))
     entries.append(("times", f"{times.size} from {times[0]:g} to {times[-1]:g}"))
-    entries.append(
-        (
-            "propagation",
-            f"{summary.get('steps')} Krylov steps, {summary.get('products')} products "
-            f"({summary.get('method')}), error estimate {summary.get('error_estimate', 0):.1e}",
+    jumps = list(settings.get("jumps") or [])
+    for k, line in enumerate(jumps):
+        entries.append(("jumps" if k == 0 else "", str(line)))
+    if not jumps:
+        entries.append(
+            (
+                "propagation",
+                f"{summary.get('steps')} Krylov steps, {summary.get('products')} products "
+                f"({summary.get('method')}), error estimate "
+                f"{summary.get('error_estimate', 0):.1e}",
+            )
         )
-    )
+    elif settings.get("trajectories"):
+        entries.append(
+            (
+                "propagation",
+                f"{summary.get('trajectories')} quantum-jump trajectories (seed "
+                f"{summary.get('seed')}), {summary.get('mean_jumps', 0):.3g} jumps each on "
+                "average; values are means ± standard errors",
+            )
+        )
+    else:
+        entries.append(
+            (
+                "propagation",
+                f"density matrix, {summary.get('steps')} steps, {summary.get('evaluations')} "
+                f"Liouvillian applications ({summary.get('method')}), |Tr ρ − 1| <= "
+                f"{summary.get('trace_error', 0):.1e}",
+            )
+        )
     energy = result.arrays["energy"]
     ramps = settings.get("ramps") or {}
     for name, table in ramps.items():
@@ -203,6 +226,10 @@ def _quench_text(result: WorkflowResult, rows: int | None) -> list[str]:
     if ramps:
         entries.append(
             ("energy", f"⟨H(t)⟩ from {_number(energy[0])} to {_number(energy[-1])} (ramped)")
+        )
+    elif jumps:
+        entries.append(
+            ("energy", f"Tr(ρH) from {_number(energy[0])} to {_number(energy[-1])} (open)")
         )
     else:
         entries.append(
@@ -217,8 +244,19 @@ def _quench_text(result: WorkflowResult, rows: int | None) -> list[str]:
     for k in _picked(times.size, rows):
         row = [f"{times[k]:g}"]
         if "populations" in result.arrays:
-            row.append(_short_list(result.arrays["populations"][k]))
-        row += [_number(result.arrays[f"values.{n}"][k]) for n in result.observables]
+            errors = result.arrays.get("populations_error")  # trajectories only
+            if errors is None:
+                row.append(_short_list(result.arrays["populations"][k]))
+            else:
+                pairs = zip(result.arrays["populations"][k], errors[k], strict=True)
+                row.append("[" + " ".join(f"{v:.4f}±{e:.2g}" for v, e in pairs) + "]")
+        for n in result.observables:
+            value = result.arrays[f"values.{n}"][k]
+            error = result.arrays.get(f"errors.{n}")
+            if error is None or np.iscomplexobj(value):
+                row.append(_number(value))
+            else:
+                row.append(_with_error(value, float(error[k])))
         cells.append(row)
     lines = _entries(entries) + _aligned(columns, cells)
     if rows is not None and times.size > rows:

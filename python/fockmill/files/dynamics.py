@@ -17,7 +17,10 @@ description of every key is in ``docs/model-files.md``; in short:
     increasing, at least two) and ``values``: the parameter NAME follows that
     piecewise-linear table during the evolution (constant before the first and after
     the last time). The state evolves under the model at ``[parameters]``, with ramped
-    parameters replaced by their ramps.
+    parameters replaced by their ramps. With ``[jumps]`` the density matrix evolves
+    under the master equation (``fm.evolve_density``), or ``trajectories = N``
+    quantum-jump trajectories are averaged (``fm.sample_trajectories``, ``seed``);
+    ramps are not supported with jumps yet.
 ``[spectrum]``
     ``operator`` (term string or array of them, summed; it may change the number of
     quanta by one fixed amount, then H acts on the sector it lands in), ``omegas``
@@ -168,6 +171,12 @@ class QuenchSpec:
     ramps : dict of str to (tuple of float, tuple of float)
         Parameter name -> ``(times, values)`` of its piecewise-linear ramp
         (``[quench.ramp.NAME]``); empty for a sudden quench.
+    trajectories : int or None
+        With ``[jumps]``: average this many quantum-jump trajectories instead of
+        evolving the density matrix (None).
+    seed : int
+        Seed of the trajectories (trajectory ``i`` draws from
+        ``SeedSequence(seed, spawn_key=(i,))``).
     """
 
     initial: InitialState
@@ -177,6 +186,12 @@ class QuenchSpec:
     populations: bool = True
     tol: float = 1e-8
     ramps: dict[str, tuple[tuple[float, ...], tuple[float, ...]]] = field(default_factory=dict)
+    trajectories: int | None = None
+    seed: int = 0
+
+
+#: Most trajectories a [quench] may ask for.
+MAX_TRAJECTORIES = 10**7
 
 
 @dataclass(frozen=True)
@@ -299,6 +314,11 @@ def _observables(
     return exprs, texts
 
 
+def _hamiltonian_parameters(model: Model) -> list[str]:
+    """The parameters of ``H`` (not the jump rates)."""
+    return [name for name in model.parameters if name not in model.jumps]
+
+
 def _positive(
     reader: Reader,
     table: Mapping[str, Any],
@@ -405,7 +425,9 @@ def _initial(reader: Reader, value: object, model: Model) -> InitialState:
     changed = reader.table(reader.required(table, "parameters", path, "a table"), where)
     if not changed:
         reader.fail(where, "empty; name the parameters whose values differ before the quench")
-    reader.check_keys(changed, where, list(model.parameters), hint=f" for model {model.name!r}")
+    reader.check_keys(
+        changed, where, _hamiltonian_parameters(model), hint=f" for model {model.name!r}"
+    )
     values = {name: reader.number(v, join_key(where, name)) for name, v in changed.items()}
     return InitialState(kind, parameters=values)
 
@@ -422,6 +444,12 @@ def _ramps(
     table = reader.table(value, path)
     if not table:
         reader.fail(path, "empty; add [quench.ramp.NAME] with times and values, or drop it")
+    if model.jumps:
+        reader.fail(
+            path,
+            "ramps are not supported with [jumps] yet (the open-system solvers take a "
+            "time-independent Hamiltonian); drop [quench.ramp] or [jumps]",
+        )
     reader.check_keys(table, path, list(model.parameters), hint=f" for model {model.name!r}")
     out: dict[str, tuple[tuple[float, ...], tuple[float, ...]]] = {}
     for name, raw in table.items():
@@ -465,8 +493,24 @@ def _quench(reader: Reader, value: object, model: Model) -> QuenchSpec:
     path = "quench"
     table = reader.table(value, path)
     reader.check_keys(
-        table, path, ["initial", "times", "observables", "populations", "tol", "ramp"]
+        table,
+        path,
+        ["initial", "times", "observables", "populations", "tol", "ramp", "trajectories", "seed"],
     )
+    trajectories = None
+    if "trajectories" in table:
+        if not model.jumps:
+            reader.fail(
+                join_key(path, "trajectories"),
+                "quantum-jump trajectories need [jumps]; a closed system evolves one state "
+                "exactly: drop this key, or add [jumps]",
+            )
+        trajectories = reader.integer(
+            table["trajectories"], join_key(path, "trajectories"), 1, MAX_TRAJECTORIES
+        )
+    if "seed" in table and trajectories is None:
+        reader.fail(join_key(path, "seed"), "only meaningful with trajectories = N")
+    seed = reader.integer(table.get("seed", 0), join_key(path, "seed"), 0, MAX_SEED - 1)
     initial = _initial(reader, reader.required(table, "initial", path, "a table"), model)
     where = join_key(path, "times")
     times = _grid(reader, reader.required(table, "times", path, "an array of times"), where)
@@ -494,6 +538,8 @@ def _quench(reader: Reader, value: object, model: Model) -> QuenchSpec:
         populations=populations,
         tol=_positive(reader, table, "tol", path, 1e-8, upper=1.0),
         ramps=_ramps(reader, table["ramp"], model) if "ramp" in table else {},
+        trajectories=trajectories,
+        seed=seed,
     )
 
 

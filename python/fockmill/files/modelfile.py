@@ -41,6 +41,11 @@ Schema (every table but ``[model]`` is optional; unknown keys are errors)
     ``quadratic_form`` and ``pair_interaction`` (coefficient arrays: a ``.npy`` path
     relative to the model file, nested lists, or ``{indices = ..., values = ...}``; see
     :func:`fockmill.quadratic_form`), and ``add_adjoint``.
+``[jumps.NAME]``
+    Dissipation channels whose rate is the parameter ``NAME`` (default ``rate``):
+    ``per_mode = "lowering(@)"`` with ``modes`` and ``weights`` (one jump per mode),
+    ``operators = ["...", [...]]`` (one jump each), ``description``; read by
+    :mod:`fockmill.files.jumps`. With jumps a sweep records stationary states.
 ``[parameters]``
     Default value of any model parameter (``J``, ``U``, ``mu``; ``wc``, ``we``,
     ``g``, ``J``; ``frequency_scale``, ``kerr_scale``, ``cross_kerr_scale``,
@@ -58,7 +63,9 @@ Schema (every table but ``[model]`` is optional; unknown keys are errors)
     ``quantities = [...]`` from ``energy``, ``gap``, ``levels``, ``populations``,
     ``number_variances``, ``one_body_matrix``, ``entanglement_entropy``,
     ``top_level_weights``, ``residual``
-    (default ``["energy"]``); ``levels`` (how many lowest levels to compute);
+    (default ``["energy"]``); with ``[jumps]``: ``energy`` (Tr ρH), ``populations``,
+    ``g2``, ``purity``, ``number_variances``, ``residual`` (‖𝓛ρ‖), default
+    ``["populations", "g2", "purity"]``; ``levels`` (how many lowest levels to compute);
     ``entropy_modes`` (the subsystem for ``entanglement_entropy``; default the first half of the
     modes).
 ``[symmetry]``
@@ -102,6 +109,7 @@ from fockmill.files.reader import (
     check_charge,
     join_key,
     read_axis,
+    read_modes,
     read_term,
 )
 from fockmill.models.builders import (
@@ -117,7 +125,14 @@ from fockmill.models.model import Model
 from fockmill.settings.checks import MAX_SEED, MAX_THREADS, METHODS
 from fockmill.settings.solver import SolverSettings
 from fockmill.spaces.fock import FockSpace
-from fockmill.sweeps.plan import RECORDABLE, RENAMED_QUANTITIES, SweepGrid
+from fockmill.sweeps.plan import (
+    DEFAULT_STATIONARY_QUANTITIES,
+    RECORDABLE,
+    RENAMED_QUANTITIES,
+    STATIONARY_METHODS,
+    STATIONARY_QUANTITIES,
+    SweepGrid,
+)
 
 if TYPE_CHECKING:
     from fockmill.spaces.sectors import SectorChoice
@@ -188,6 +203,10 @@ class ModelFile:
         ``[thermal]`` before; the attribute ``temperature`` still returns it.)
     symmetry : SectorChoice or None
         ``[symmetry]``: the sector(s) to solve in, None for the whole space.
+    jump_texts : dict of str to tuple of str
+        ``[jumps.NAME]``: per rate parameter, its jump operators as written (one text per
+        channel); empty for a closed system (the channels themselves are
+        ``model.jumps``).
     """
 
     path: str | None
@@ -206,6 +225,7 @@ class ModelFile:
     spectrum: Any = None
     thermal: Any = None
     symmetry: SectorChoice | None = None
+    jump_texts: dict[str, tuple[str, ...]] = field(default_factory=dict)
 
     def __hash__(self) -> int:
         return hash(self.text_hash)
@@ -563,6 +583,12 @@ def _parameters(reader: Reader, value: object, model: Model) -> Model:
     defaults = dict(model.parameters)
     for name, raw in table.items():
         defaults[name] = reader.number(raw, join_key("parameters", name))
+        if name in model.jumps and defaults[name] < 0:
+            reader.fail(
+                join_key("parameters", name),
+                f"{name} is a rate ([jumps.{name}]): expected a number >= 0; got "
+                f"{defaults[name]:g}",
+            )
     return dataclasses.replace(model, parameters=defaults)
 
 
@@ -575,13 +601,19 @@ def _sweep(reader: Reader, value: object, model: Model) -> SweepGrid:
     size = 1
     for name, spec in table.items():
         path = join_key("sweep", name)
-        if model.pieces[name].is_zero():
+        if name not in model.jumps and model.pieces[name].is_zero():
             reader.fail(
                 path,
                 f"the model has no {name!r} terms, so sweeping this parameter changes "
                 "nothing; add those terms to [model] or drop the sweep",
             )
         axes[name] = read_axis(reader, spec, path)
+        if name in model.jumps and np.any(axes[name] < 0):
+            reader.fail(
+                path,
+                f"{name} is a rate ([jumps.{name}]): every value must be >= 0; got "
+                f"{float(axes[name].min()):g}",
+            )
         size *= len(axes[name])
         if size > MAX_POINTS:
             reader.fail("sweep", f"expected at most {MAX_POINTS} grid points; got {size} or more")
@@ -593,6 +625,8 @@ def _record(
 ) -> tuple[tuple[str, ...], int, tuple[int, ...]]:
     table = reader.table(value, "record")
     reader.check_keys(table, "record", ["quantities", "levels", "entropy_modes"])
+    if model.is_open:
+        return _record_stationary(reader, table), 1, ()
     quantities: tuple[str, ...] = ("energy",)
     if "quantities" in table:
         path = "record.quantities"
@@ -645,12 +679,60 @@ def _record(
     return quantities, levels, entropy_modes
 
 
-def _solver(reader: Reader, value: object) -> dict[str, object]:
+def _record_stationary(reader: Reader, table: Mapping[str, Any]) -> tuple[str, ...]:
+    """``[record]`` of an open model: quantities of the stationary state."""
+    for key in ("levels", "entropy_modes"):
+        if key in table:
+            reader.fail(
+                join_key("record", key),
+                "with [jumps] a sweep records the stationary state, which has no levels "
+                "or entanglement cut; drop this key",
+            )
+    if "quantities" not in table:
+        return DEFAULT_STATIONARY_QUANTITIES
+    path = "record.quantities"
+    chosen: list[str] = []
+    for k, item in enumerate(reader.array(table["quantities"], path, "quantity names")):
+        where = join_key(path, k)
+        if isinstance(item, str) and item in RECORDABLE and item not in STATIONARY_QUANTITIES:
+            reader.fail(
+                where,
+                f"{item!r} describes eigenstates of a closed system; with [jumps] a sweep "
+                "records the stationary state: choose from "
+                + ", ".join(repr(q) for q in STATIONARY_QUANTITIES),
+            )
+        name = reader.choice(item, where, STATIONARY_QUANTITIES)
+        if name in chosen:
+            reader.fail(where, f"{name!r} is listed twice")
+        chosen.append(name)
+    return tuple(chosen)
+
+
+def _solver(reader: Reader, value: object, *, open_system: bool = False) -> dict[str, object]:
     """The ``[solver]`` table: read with key paths, checked by :class:`SolverSettings`
-    (the same rules as the library's keywords), returned as the solvers' keywords."""
+    (the same rules as the library's keywords), returned as the solvers' keywords.
+
+    With ``open_system`` (a model with ``[jumps]``) ``method`` names a method of
+    :func:`fockmill.stationary_state` (``STATIONARY_METHODS``) instead."""
     table = reader.table(value, "solver")
     keys = ["method", "tol", "seed", "max_iterations", "threads", "cutoff_warning"]
     reader.check_keys(table, "solver", keys)
+    if open_system and "method" in table:
+        method = table["method"]
+        if (
+            isinstance(method, str)
+            and method in SOLVER_METHODS
+            and method not in (STATIONARY_METHODS)
+        ):
+            reader.fail(
+                "solver.method",
+                f"{method!r} is a ground-state method; with [jumps] the stationary state is "
+                "solved with " + ", ".join(f'"{m}"' for m in STATIONARY_METHODS),
+            )
+        chosen = reader.choice(method, "solver.method", STATIONARY_METHODS)
+        settings = _solver(reader, {k: v for k, v in table.items() if k != "method"})
+        settings["method"] = chosen
+        return settings
     read: dict[str, Any] = {}
     if "cutoff_warning" in table:
         raw = table["cutoff_warning"]
@@ -826,26 +908,6 @@ def _array_terms(
     return piece
 
 
-def _term_modes(reader: Reader, table: Mapping[str, Any], path: str, model: Model) -> list[int]:
-    modes = model.space.modes
-    if "modes" not in table:
-        return list(range(modes))
-    mpath = join_key(path, "modes")
-    labels = list(model.mode_labels)
-    picked: list[int] = []
-    for k, item in enumerate(reader.array(table["modes"], mpath, "mode indices or labels")):
-        if isinstance(item, str):
-            if item not in labels:
-                reader.fail(join_key(mpath, k), f"{item!r} is not a mode label of this model")
-            mode = labels.index(item)
-        else:
-            mode = reader.integer(item, join_key(mpath, k), 0, modes - 1)
-        if mode in picked:
-            reader.fail(join_key(mpath, k), f"mode {mode} is listed twice")
-        picked.append(mode)
-    return picked
-
-
 def _terms(
     reader: Reader, value: object, model: Model, base: str | None = None
 ) -> tuple[Model, dict[str, tuple[float, ...]], dict[str, str]]:
@@ -915,7 +977,7 @@ def _terms(
                 reader.wrong(
                     ppath, 'a term string using @ for the mode, e.g. "number(@)"', template
                 )
-            modes = _term_modes(reader, table, path, model)
+            modes = read_modes(reader, table, path, model)
             weights = _mode_weights(reader, table, path, len(modes))
             weights_used[name] = weights
             for mode, weight in zip(modes, weights, strict=True):
@@ -987,6 +1049,7 @@ def _parse(text: str, source: str, path: str | None) -> ModelFile:
         "thermal",
         "temperature",
         "symmetry",
+        "jumps",
     ]
     reader.check_keys(document, "", allowed)
     if "temperature" in document:
@@ -1011,12 +1074,25 @@ def _parse(text: str, source: str, path: str | None) -> ModelFile:
     if "terms" in document:
         base = None if path is None else os.path.dirname(os.path.abspath(path))
         model, mode_weights, descriptions = _terms(reader, document["terms"], model, base)
+    jump_texts: dict[str, tuple[str, ...]] = {}
+    if "jumps" in document:
+        from fockmill.files.jumps import parse_jumps
+
+        model, rate_descriptions, jump_texts = parse_jumps(reader, document["jumps"], model)
+        descriptions.update(rate_descriptions)
+        if "symmetry" in document:
+            reader.fail(
+                "symmetry",
+                "[symmetry] sectors are not supported with [jumps] yet: open systems are "
+                "solved on the whole space (the number sectors are used by themselves); "
+                "drop [symmetry]",
+            )
     if "parameters" in document:
         model = _parameters(reader, document["parameters"], model)
     units = _units(reader, document["units"], model) if "units" in document else {}
     sweep = _sweep(reader, document["sweep"], model) if "sweep" in document else None
     quantities, levels, entropy_modes = _record(reader, document.get("record", {}), model)
-    solver = _solver(reader, document.get("solver", {}))
+    solver = _solver(reader, document.get("solver", {}), open_system=model.is_open)
     dynamics = parse_dynamics_sections(reader, document, model)
     symmetry = None
     if "symmetry" in document:
@@ -1040,6 +1116,7 @@ def _parse(text: str, source: str, path: str | None) -> ModelFile:
         descriptions=descriptions,
         **dynamics,
         symmetry=symmetry,
+        jump_texts=jump_texts,
     )
 
 

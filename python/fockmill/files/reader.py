@@ -189,6 +189,34 @@ def read_term(
         reader.fail(path, f"{error} in {text!r}")
 
 
+def read_modes(reader: Reader, table: Mapping[str, Any], path: str, model: Model) -> list[int]:
+    """The modes listed under ``table["modes"]`` (indices or mode labels, each once), or
+    every mode when the key is absent."""
+    modes = model.space.modes
+    if "modes" not in table:
+        return list(range(modes))
+    mpath = join_key(path, "modes")
+    labels = list(model.mode_labels)
+    picked: list[int] = []
+    for k, item in enumerate(reader.array(table["modes"], mpath, "mode indices or labels")):
+        if isinstance(item, str):
+            if item not in labels:
+                shown = ", ".join(repr(label) for label in labels[:4])
+                shown += ", ..." if len(labels) > 4 else ""
+                reader.fail(
+                    join_key(mpath, k),
+                    f"{item!r} is not a mode label of this model; give a mode index "
+                    f"(0..{modes - 1})" + (f" or a label ({shown})" if labels else ""),
+                )
+            mode = labels.index(item)
+        else:
+            mode = reader.integer(item, join_key(mpath, k), 0, modes - 1)
+        if mode in picked:
+            reader.fail(join_key(mpath, k), f"mode {mode} is listed twice")
+        picked.append(mode)
+    return picked
+
+
 def check_charge(reader: Reader, expr: LadderExpr, path: str, text: str, model: Model) -> None:
     """A term must keep the model's sector (a conserved total or its parity)."""
     space = model.space

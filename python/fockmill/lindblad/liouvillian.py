@@ -281,9 +281,25 @@ def _sector(space: FockSpace, n: int) -> FockSpace | None:
         return None  # no state carries this charge (possible with weights)
 
 
-def _compile(expr: LadderExpr, space: FockSpace, target: FockSpace | None, pool: Any) -> Problem:
+def _compile(
+    expr: LadderExpr,
+    space: FockSpace,
+    target: FockSpace | None,
+    pool: Any,
+    cache: dict[Any, Problem] | None = None,
+) -> Problem:
+    """``expr`` compiled from ``space`` (into ``target``); with a ``cache``, a jump
+    compiled by an earlier call on the same spaces is reused."""
+    key = None
+    if cache is not None:
+        key = (tuple(expr.terms()), space, target)
+        found = cache.get(key)
+        if found is not None:
+            return found
     problem = Problem(expr, space, target=target)
     problem.pool = pool
+    if key is not None:
+        cache[key] = problem
     return problem
 
 
@@ -295,6 +311,7 @@ def build_liouvillian(
     split_sectors: bool | None = None,
     threads: int | None = None,
     memory_limit: int | None = None,
+    jump_cache: dict[Any, Problem] | None = None,
 ) -> Liouvillian:
     """Compile ``H`` and the jumps once, on the whole space or on its number sectors.
 
@@ -311,6 +328,10 @@ def build_liouvillian(
         structure applies (``space`` has no ``total``, ``H`` conserves the weighted
         number of quanta and each jump changes it by one fixed amount). True refuses
         when it does not apply.
+    jump_cache : dict, optional
+        Compiled jump operators (and their adjoints) kept between calls: a scan over
+        parameters builds a Liouvillian per point, and its jumps, whose rates change but
+        whose operators do not, are then compiled once.
 
     Raises
     ------
@@ -345,14 +366,14 @@ def build_liouvillian(
         channels = []
         for k, j in active:
             try:
-                fwd = _compile(j.operator, full, None, pool)
+                fwd = _compile(j.operator, full, None, pool, jump_cache)
             except ChargeError as exc:
                 raise ChargeError(
                     f"jumps[{k}] ({j.label}, L = {j.operator}) changes the conserved total "
                     f"of the space ({exc}). Pass the whole truncated space (fm.FockSpace "
                     "without total): the number sectors are then built internally"
                 ) from None
-            bwd = _compile(j.operator.adjoint(), full, None, pool)
+            bwd = _compile(j.operator.adjoint(), full, None, pool, jump_cache)
             channels.append(_Channel(j.rate, fwd, bwd, 0, 0, j.label))
         return Liouvillian(full, spaces, None, hams, channels, jumps)
     charges, changes = structure
@@ -372,8 +393,8 @@ def build_liouvillian(
             d = position.get(n + changes[k])
             if d is None:
                 continue  # L carries this sector outside the space: L = 0 there
-            fwd = _compile(j.operator, spaces[b], None if d == b else spaces[d], pool)
-            bwd = _compile(adjoint, spaces[d], None if d == b else spaces[b], pool)
+            fwd = _compile(j.operator, spaces[b], None if d == b else spaces[d], pool, jump_cache)
+            bwd = _compile(adjoint, spaces[d], None if d == b else spaces[b], pool, jump_cache)
             channels.append(_Channel(j.rate, fwd, bwd, b, d, j.label))
     return Liouvillian(full, spaces, sectors, hams, channels, jumps)
 
@@ -473,6 +494,8 @@ def block_observable(liouvillian: Liouvillian, op: Any) -> list[Problem] | None:
         e = conserving_part(e, liouvillian.full.weights)
         if e.is_zero():
             return None
+    if e == liouvillian.hamiltonians[0].expr:  # Tr(ρH): H is compiled on every block
+        return list(liouvillian.hamiltonians)
     pool = liouvillian.hamiltonians[0].pool
     return [_compile(e, s, None, pool) for s in liouvillian.spaces]
 

@@ -952,4 +952,5 @@ def with_drives(
         constant=model.constant,
         mode_labels=model.mode_labels,
         renamed=model.renamed,
+        jumps=model.jumps,
     )

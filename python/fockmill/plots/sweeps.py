@@ -16,7 +16,11 @@ file's metadata, then a plain fallback):
   legends sit outside the axes;
 * an axis whose data are constant is centred on the value instead of magnifying
   rounding noise, and no axis uses offset notation;
-* the entropy axis names its bipartition.
+* the entropy axis names its bipartition;
+* stationary states of open models (``settings.stationary``) label their energy axis
+  ``Tr(ρH)`` and their residual ``‖𝓛ρ‖``, draw ``g⁽²⁾(0)`` with the coherent value 1 as
+  a dashed line (on a log axis when it spans more than a decade), and rates named after
+  Greek letters (``kappa``, ``gamma``, ``Delta``) show as their symbols.
 """
 
 from __future__ import annotations
@@ -60,6 +64,14 @@ _QUANTITIES = {
     "top_level_weights": "top-level weight",
     "residual": r"residual $\|Hv-Ev\|$",
     "seconds": "seconds per point",
+    "g2": r"$g^{(2)}(0)$",
+    "purity": r"purity Tr$\,\rho^2$",
+}
+# The same quantities of a stationary state (sweeps of open models).
+_STATIONARY_QUANTITIES = {
+    "energy": r"mean energy Tr$(\rho H)$",
+    "residual": r"residual $\|\mathcal{L}\rho\|$",
+    "number_variances": r"number variance Var $n_i$",
 }
 _ENERGY_QUANTITIES = ("energy", "gap", "levels", "residual")
 
@@ -85,7 +97,24 @@ _PARAMETERS: dict[str, tuple[str, str]] = {
 _MODEL_SPECIFIC: dict[tuple[str, str], tuple[str, str]] = {
     ("jaynes-cummings-hubbard", "J"): ("photon hopping", "$J$"),
 }
+_GREEK = (
+    "alpha beta gamma delta epsilon zeta eta theta iota kappa lambda mu nu xi pi rho sigma "
+    "tau upsilon phi chi psi omega Gamma Delta Theta Lambda Xi Pi Sigma Phi Psi Omega"
+).split()
 _MAX_CYCLE = 10
+
+
+def _symbol(name: str) -> str:
+    """A parameter's name as mathtext: one letter as itself, a Greek letter's name
+    (optionally with a subscript, ``gamma_d``) as the letter, anything else as written."""
+    if re.fullmatch(r"[A-Za-z]", name):
+        return f"${name}$"
+    stem, _, sub = name.partition("_")
+    if stem in _GREEK and re.fullmatch(r"[A-Za-z0-9]*", sub):
+        return f"$\\{stem}_{{{sub}}}$" if sub else f"$\\{stem}$"
+    return name
+
+
 _TRAILING_INDEX = re.compile(r"^(.*?)(\d+)$")
 
 
@@ -94,13 +123,13 @@ def _describe(
 ) -> tuple[str, str]:
     base = model_name.removeprefix("driven ")
     if descriptions and name in descriptions:
-        return (descriptions[name], f"${name}$" if re.fullmatch(r"[A-Za-z]", name) else name)
+        return (descriptions[name], _symbol(name))
     if (base, name) in _MODEL_SPECIFIC:
         return _MODEL_SPECIFIC[(base, name)]
     if name in _PARAMETERS:
         return _PARAMETERS[name]
-    # A user's parameter: one letter reads as a symbol, a longer name as written.
-    return ("parameter", f"${name}$" if re.fullmatch(r"[A-Za-z]", name) else name)
+    # A user's parameter: one letter or a Greek name reads as a symbol, others as written.
+    return ("parameter", _symbol(name))
 
 
 def unit_text(unit: str) -> str:
@@ -112,7 +141,10 @@ def unit_text(unit: str) -> str:
     >>> unit_text("wc"), unit_text("GHz")
     ('$\\\\omega_c$', 'GHz')
     """
-    return _PARAMETERS[unit][1] if unit in _PARAMETERS else unit
+    if unit in _PARAMETERS:
+        return _PARAMETERS[unit][1]
+    symbol = _symbol(unit)
+    return symbol if symbol.startswith("$\\") else unit
 
 
 def axis_label(
@@ -150,7 +182,7 @@ def axis_label(
     unit = units.get(name)
     if not unit:
         return f"{description} {symbol}"
-    if unit in _PARAMETERS or (unit in units and unit != "energy"):
+    if unit in _PARAMETERS or (unit in units and unit != "energy") or _greek(unit):
         # The unit is another parameter: write the ratio, U/J.
         unit_symbol = _describe(unit, model_name)[1]
         if symbol.startswith("$") and unit_symbol.startswith("$"):
@@ -159,14 +191,18 @@ def axis_label(
     return f"{description} {symbol} ({unit})"
 
 
-def _energy_label(quantity: str, units: Mapping[str, str]) -> str:
-    text = _QUANTITIES[quantity]
+def _greek(unit: str) -> bool:
+    """A unit named after a Greek letter (``kappa``): a rate or energy of the model."""
+    return _symbol(unit).startswith("$\\")
+
+
+def _energy_label(quantity: str, units: Mapping[str, str], stationary: bool = False) -> str:
+    text = (_STATIONARY_QUANTITIES if stationary else {}).get(quantity, _QUANTITIES[quantity])
     unit = units.get("energy")
     if not unit:
         return text
-    if unit in _PARAMETERS:
-        symbol = _PARAMETERS[unit][1]
-        return f"{text} / {symbol}"
+    if unit in _PARAMETERS or _greek(unit):
+        return f"{text} / {unit_text(unit)}"
     return f"{text} ({unit})"
 
 
@@ -295,7 +331,9 @@ def _group_equal(
     for j, values in series:
         for group in groups:
             reference = group[0][1]
-            scale = max(1.0, float(np.nanmax(np.abs(reference))) if reference.size else 1.0)
+            finite = np.abs(reference[np.isfinite(reference)])
+            # An all-NaN column (g2 of a mode that stays empty) has no scale of its own.
+            scale = max(1.0, float(finite.max()) if finite.size else 1.0)
             if np.allclose(values, reference, rtol=0, atol=1e-6 * scale, equal_nan=True):
                 group.append((j, values))
                 break
@@ -360,6 +398,17 @@ def _hold_constant(axis: Any, values: npt.NDArray[np.float64]) -> None:
         axis.set_ylim(middle - pad, middle + pad)
 
 
+def _g2_axis(axis: Any, values: npt.NDArray[np.float64]) -> None:
+    """``g⁽²⁾(0)``: the coherent value 1 as a dashed line; a log axis when the finite
+    values are positive and span more than a decade (blockade reaches far below 1)."""
+    finite = values[np.isfinite(values)]
+    axis.axhline(1.0, color="0.5", linestyle="--", linewidth=1.0)
+    if finite.size and float(finite.min()) > 0 and float(finite.max()) > 10 * float(finite.min()):
+        axis.set_yscale("log")
+    else:
+        axis.ticklabel_format(axis="y", useOffset=False)
+
+
 def new_figure(figsize: tuple[float, float]) -> Figure:
     """An empty Figure (constrained layout) on its own Agg canvas: no pyplot, no global
     state. ImportError naming the install command when matplotlib is missing."""
@@ -404,7 +453,8 @@ def sweep_figure(
     y : sequence of str
         Quantities, one panel each: ``energy``, ``gap``, ``levels``, ``populations``,
         ``number_variances``, ``one_body_matrix`` (row of mode 0),
-        ``entanglement_entropy``, ``top_level_weights``, ``residual``, ``seconds``.
+        ``entanglement_entropy``, ``top_level_weights``, ``residual``, ``seconds``; of
+        stationary states ``g2`` and ``purity`` too.
     title : str, optional
         First line of the title (default: the model name); a second line gives the
         number of modes, the dimension, the sector and the filling when known.
@@ -457,6 +507,7 @@ def sweep_figure(
     model_name = str(context.get("model_name", ""))
     if len(table) == 0:
         raise ValueError("the results hold no finished point yet; nothing to plot")
+    stationary = bool(getattr(table, "stationary", False))
     arrays = table.to_arrays()
     varying = [name for name in table.swept if np.unique(arrays[name]).size > 1]
     if x is None:
@@ -498,15 +549,19 @@ def sweep_figure(
             colours = [f"C{k}" for k in range(len(lines))]
         for (text, rows, values), colour in zip(lines, colours, strict=True):
             axis.plot(xs[rows], values, marker="o", markersize=3, color=colour, label=text or None)
-        if quantity in _ENERGY_QUANTITIES and quantity != "residual":
-            ylabel = _energy_label(quantity, unit_map)
+        if quantity in _ENERGY_QUANTITIES and (quantity != "residual" or stationary):
+            # ‖𝓛ρ‖ has the units of the rates and energies; ‖Hv − Ev‖ of a unit vector too,
+            # but it is shown as a bare accuracy figure as before.
+            ylabel = _energy_label(quantity, unit_map, stationary)
         elif quantity == "entanglement_entropy" and subsystem:
             ylabel = f"entropy $S_A$ (nats)\nA = {_describe_modes(subsystem, labels)}"
         else:
             ylabel = _QUANTITIES.get(quantity, quantity)
         axis.set_ylabel(ylabel)
         stacked = np.concatenate([values for _, _, values in lines])
-        if quantity == "residual" and np.all(stacked > 0):
+        if quantity == "g2":
+            _g2_axis(axis, stacked)
+        elif quantity == "residual" and np.all(stacked > 0):
             axis.set_yscale("log")
         else:
             axis.ticklabel_format(axis="y", useOffset=False)
@@ -527,6 +582,8 @@ def sweep_figure(
         axes[-1].ticklabel_format(axis="x", useOffset=False)
     heading = _title(title if title is not None else model_name, context.get("space"), labels)
     heading = _with_sector(heading, context.get("symmetry"))
+    if stationary:
+        heading += "\nstationary states of the master equation (open system)"
     if heading:
         figure.suptitle(heading)
     return figure

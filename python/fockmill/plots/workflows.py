@@ -70,6 +70,14 @@ def _heading(result: WorkflowResult, title: str | None) -> str:
     settings = meta.get("settings") or {}
     if result.kind == "quench":
         what = f"quench from {settings.get('initial_state', '?')}"
+        if settings.get("jumps"):
+            how = (
+                f"{settings['trajectories']} trajectories"
+                if settings.get("trajectories")
+                else "density matrix"
+            )
+            rates = "; ".join(str(line).split(":")[0] for line in settings["jumps"])
+            what += f", open ({how}; {rates})"
     elif result.kind == "spectrum":
         operator = " + ".join(settings.get("operator") or ["?"])
         if "labels" in result.arrays:
@@ -142,9 +150,10 @@ def _quench(figure: Figure, result: WorkflowResult) -> None:
     axes = figure.subplots(len(panels), 1, sharex=True, squeeze=False)[:, 0]
     for axis, panel in zip(axes, panels, strict=True):
         if panel == "populations":
-            _population_lines(axis, times, result)
+            # Trajectory runs carry standard errors (populations_error, errors.NAME).
+            _population_lines(axis, times, result, result.arrays.get("populations_error"))
         else:
-            _observable_lines(axis, times, result, errors=False)
+            _observable_lines(axis, times, result, errors=True)
         _steady(axis)
         axis.grid(alpha=0.3)
     axes[-1].set_xlabel(time_label(_unit(result)))

@@ -20,8 +20,10 @@ fockmill versions read; they refuse version 3 with a clear message.
     ``schema_version``, ``package_version``, ``created``, ``model_name``,
     ``model_fingerprint``, ``model_text_hash``, ``dim``, ``points``,
     ``swept_parameters`` (list of str), ``settings`` (object: quantities, levels,
-    entropy modes, method, tol, seed, max_iterations), ``mode_labels`` (list of str, one
-    per mode), ``units`` (object: parameter name or ``"energy"`` -> unit string).
+    entropy modes, method, tol, seed, max_iterations; ``stationary: true`` when the
+    points are stationary states of a model with jumps), ``mode_labels`` (list of str, one
+    per mode), ``units`` (object: parameter name or ``"energy"`` -> unit string),
+    optionally ``descriptions`` (object: a user parameter or rate -> what it is).
 ``points(point INTEGER PRIMARY KEY, parameters TEXT, status TEXT, message TEXT,
 energy REAL, gap REAL, levels TEXT, observables TEXT, residual REAL, method TEXT,
 seconds REAL, finished TEXT)``
@@ -123,7 +125,8 @@ class PointResult:
     parameters : dict of str to float
         Every parameter value used at this point (swept values and defaults).
     energy : float or None
-        Ground-state energy (None when the point failed).
+        Ground-state energy (None when the point failed); for a stationary state of an
+        open model, ``Tr(ρH)``.
     gap : float or None
         ``E1 − E0`` when recorded, else None.
     levels : tuple of float or None
@@ -132,9 +135,10 @@ class PointResult:
         Recorded ground-state observables as JSON-ready values (floats and nested
         lists): ``populations``, ``number_variances``, ``one_body_matrix`` (plus
         ``one_body_matrix_imag`` for complex states), ``entanglement_entropy``,
-        ``top_level_weights``.
+        ``top_level_weights``; of a stationary state ``populations``, ``g2``,
+        ``purity``, ``number_variances``.
     residual : float or None
-        ``‖H v − E v‖`` of the returned ground vector.
+        ``‖H v − E v‖`` of the returned ground vector; ``‖𝓛ρ‖`` for a stationary state.
     method : str
         The solver method that ran (as in :attr:`fockmill.GroundState.method`).
     seconds : float
@@ -207,6 +211,9 @@ class SweepTable:
     sector : Mapping or None
         The symmetry sector(s) the points were solved in (``meta.symmetry``), None for
         the whole space.
+    stationary : bool
+        The points are stationary states of an open model (``meta.settings.stationary``):
+        ``energy`` is ``Tr(ρH)`` and ``residual`` is ``‖𝓛ρ‖``.
 
     Examples
     --------
@@ -220,6 +227,7 @@ class SweepTable:
     mode_labels: tuple[str, ...] = field(default=())
     units: Mapping[str, str] = field(default_factory=lambda: MappingProxyType({}))
     sector: Mapping[str, Any] | None = None
+    stationary: bool = False
 
     def __len__(self) -> int:
         return len(self.rows)
@@ -601,6 +609,7 @@ class ResultsStore:
             mode_labels=self.mode_labels,
             units=MappingProxyType(self.units),
             sector=self._sector(),
+            stationary=bool((self._meta_value("settings", dict) or {}).get("stationary")),
         )
 
     def _sector(self) -> dict[str, Any] | None:

@@ -2,7 +2,10 @@
 
 The solver settings use the words and defaults of :func:`fockmill.ground_state` and
 :func:`fockmill.lowest_levels` (``method``, ``tol``, ``seed``, ``max_iterations``,
-``threads``), plus ``levels``, the number of lowest levels (``k``).
+``threads``), plus ``levels``, the number of lowest levels (``k``). A model with jumps
+(``Model.jumps``) is solved for its stationary state instead, with the words of
+:func:`fockmill.stationary_state` (``STATIONARY_METHODS``), and records
+``STATIONARY_QUANTITIES``.
 """
 
 from __future__ import annotations
@@ -25,9 +28,12 @@ from fockmill.settings.solver import SolverSettings
 
 __all__ = [
     "DEFAULT_QUANTITIES",
+    "DEFAULT_STATIONARY_QUANTITIES",
     "QUANTITIES",
     "RENAMED_QUANTITIES",
     "SOLVER_DEFAULTS",
+    "STATIONARY_METHODS",
+    "STATIONARY_QUANTITIES",
     "SweepSettings",
     "current_quantity_names",
     "full_points",
@@ -47,6 +53,28 @@ RECORDABLE: tuple[str, ...] = (
     "residual",
 )
 """Values allowed in ``record.quantities``."""
+
+STATIONARY_QUANTITIES: tuple[str, ...] = (
+    "energy",
+    "populations",
+    "g2",
+    "purity",
+    "number_variances",
+    "residual",
+)
+"""What a sweep of an open model (one with jumps) can record of each stationary state:
+``energy`` is ``Tr(ρH)``, ``g2`` the ``g⁽²⁾(0)`` of every mode (NaN for an empty mode),
+``purity`` ``Tr ρ²``, ``residual`` ``‖𝓛ρ‖``."""
+
+DEFAULT_STATIONARY_QUANTITIES: tuple[str, ...] = ("populations", "g2", "purity")
+"""What an open model's sweep records when ``quantities`` is not given (with the
+always-recorded ``energy`` and ``residual``)."""
+
+STATIONARY_METHODS: tuple[str, ...] = ("auto", "dense", "iterative")
+"""``method=`` words of a sweep of an open model (those of ``fm.stationary_state``)."""
+
+#: ``max_iterations`` of a stationary solve when none is given (GMRES applications).
+STATIONARY_MAX_ITERATIONS = 2000
 
 RENAMED_QUANTITIES: Mapping[str, str] = {
     "number_variance": "number_variances",
@@ -161,10 +189,11 @@ class SweepSettings:
     seed: int
     max_iterations: int | None
     threads: int | None
+    stationary: bool = False  # the model has jumps: points are stationary states
 
     def as_meta(self) -> dict[str, object]:
         """The settings stored with the results (JSON-ready)."""
-        return {
+        meta: dict[str, object] = {
             "quantities": list(self.quantities),
             "levels": self.levels,
             "entropy_modes": list(self.entropy_modes),
@@ -173,6 +202,9 @@ class SweepSettings:
             "seed": self.seed,
             "max_iterations": self.max_iterations,
         }
+        if self.stationary:  # closed sweeps keep the meta data they always had
+            meta["stationary"] = True
+        return meta
 
 
 def _deprecated(old: str, new: str) -> None:
@@ -230,6 +262,8 @@ def sweep_settings(
             if name != "dense_limit" and options[name] == SOLVER_DEFAULTS[name]:
                 options[name] = value
 
+    if model.is_open:
+        return _stationary_settings(model, quantities, levels, entropy_modes, options)
     chosen = tuple(DEFAULT_QUANTITIES if quantities is None else _names(quantities))
     unknown = [q for q in chosen if q not in QUANTITIES]
     if unknown:
@@ -268,6 +302,55 @@ def sweep_settings(
         seed=solver.seed,
         max_iterations=solver.max_iterations,
         threads=solver.threads,
+    )
+
+
+def _stationary_settings(
+    model: Model,
+    quantities: Sequence[str] | None,
+    levels: int | None,
+    entropy_modes: Sequence[int] | None,
+    options: Mapping[str, object],
+) -> SweepSettings:
+    """The settings of a sweep over stationary states (a model with jumps)."""
+    chosen = tuple(
+        DEFAULT_STATIONARY_QUANTITIES
+        if quantities is None
+        else dict.fromkeys([quantities] if isinstance(quantities, str) else quantities)
+    )
+    unknown = [q for q in chosen if q not in STATIONARY_QUANTITIES]
+    if unknown:
+        raise ValueError(
+            f"cannot record {unknown} of a stationary state (model {model.name!r} has jumps); "
+            f"choose from {list(STATIONARY_QUANTITIES)}"
+        )
+    if levels not in (None, 1) or entropy_modes is not None:
+        raise ValueError(
+            "levels= and entropy_modes= describe eigenstates of a closed system; a model "
+            "with jumps is solved for its stationary state: leave them out"
+        )
+    method = options["method"]
+    if method not in STATIONARY_METHODS:
+        raise ValueError(
+            f"method={method!r}: a model with jumps is solved for its stationary state with "
+            f"method in {STATIONARY_METHODS} (those of fm.stationary_state)"
+        )
+    solver = SolverSettings(
+        tol=options["tol"],  # type: ignore[arg-type]
+        seed=options["seed"],  # type: ignore[arg-type]
+        max_iterations=options["max_iterations"],  # type: ignore[arg-type]
+        threads=options["threads"],  # type: ignore[arg-type]
+    )
+    return SweepSettings(
+        quantities=tuple(str(q) for q in chosen),
+        levels=1,
+        entropy_modes=(),
+        method=str(method),
+        tol=solver.tol,
+        seed=solver.seed,
+        max_iterations=solver.max_iterations,
+        threads=solver.threads,
+        stationary=True,
     )
 
 

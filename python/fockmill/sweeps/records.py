@@ -69,7 +69,9 @@ class ModelRecipe:
     ``space`` is where points are solved: the model's space or one symmetry sector of
     it. ``scan`` (a :class:`~fockmill.spaces.sectors.SectorChoice` with an ``"all"``
     label) asks for every sector along one generator (see :mod:`fockmill.sweeps.sectors`).
-    The fingerprint then covers the sector too.
+    The fingerprint then covers the sector too. ``jumps`` (rate parameter -> its jump
+    operators with weights, the model's ``jumps``) makes every point a stationary state
+    (see :mod:`fockmill.sweeps.stationary`).
     """
 
     name: str
@@ -79,6 +81,7 @@ class ModelRecipe:
     fingerprint: str
     defaults: tuple[tuple[str, float], ...] = ()
     scan: SectorChoice | None = None
+    jumps: tuple[tuple[str, tuple[tuple[LadderExpr, float], ...]], ...] = ()
 
     @classmethod
     def from_model(
@@ -100,6 +103,7 @@ class ModelRecipe:
             fingerprint=fingerprint,
             defaults=tuple((k, float(v)) for k, v in model.parameters.items()),
             scan=scan,
+            jumps=tuple(model.jumps.items()),
         )
 
     def __hash__(self) -> int:

@@ -6,6 +6,9 @@ them where asked (:mod:`fockmill.sweeps.execute`) with ``ground_state``/``lowest
 through prepared problems (:mod:`fockmill.sweeps.records`; stored-matrix points share one
 sparsity pattern, :mod:`fockmill.sweeps.pattern`), and commits each point's record to the
 results store as it finishes (:mod:`fockmill.store.sweeps`). Failed points are records too.
+A model with jumps (``Model.jumps``) is solved for the stationary state of its master
+equation at every point instead (:mod:`fockmill.sweeps.stationary`), through the same
+order, executors and store.
 """
 
 from __future__ import annotations
@@ -65,8 +68,11 @@ def _new_meta(
     model_text_hash: str | None,
     units: Mapping[str, str],
     sectors: SweepSectors | None = None,
+    descriptions: Mapping[str, str] | None = None,
 ) -> dict[str, Any]:
     extra = {} if sectors is None else sectors.meta()
+    if descriptions:
+        extra["descriptions"] = dict(descriptions)
     return extra | {
         "model_name": model.name,
         "model_fingerprint": model.fingerprint(),
@@ -183,13 +189,20 @@ def run_sweep(
     record: Sequence[str] | None = None,
     solver_options: Mapping[str, object] | None = None,
     symmetry: SectorChoice | Sequence[tuple[ModePermutation, int | str]] | None = None,
+    descriptions: Mapping[str, str] | None = None,
 ) -> SweepTable:
     """Ground states of ``model`` at many parameter points, optionally saved as they finish.
 
     Parameters
     ----------
     model : Model
-        The parametrised Hamiltonian.
+        The parametrised Hamiltonian. A model with jumps (``model.jumps``, e.g. from a
+        model file's ``[jumps]``) is solved for the stationary state of its master
+        equation at each point (:func:`fockmill.stationary_state`): ``quantities`` then
+        come from :data:`~fockmill.sweeps.plan.STATIONARY_QUANTITIES` (default
+        ``populations``, ``g2``, ``purity``), ``energy`` holds ``Tr(ρH)``, ``residual``
+        ``‖𝓛ρ‖``, ``method`` is one of ``"auto"``, ``"dense"``, ``"iterative"`` and
+        ``max_iterations`` counts Liouvillian applications (default 2000).
     points : SweepGrid or iterable of Mapping[str, float]
         A grid (its axes are the swept parameters), or parameter values per point;
         parameters a point omits keep the model's default. Point ``i`` keeps index
@@ -249,6 +262,9 @@ def run_sweep(
         Observables are those of the ground state. The sector is stored in the
         results file's meta data (``meta.symmetry``) and a resumed sweep must ask for
         the same one.
+    descriptions : Mapping[str, str], optional
+        What the user's own parameters and rates are (a model file's ``description``
+        keys), kept in the store's meta data for axis labels.
 
     Returns
     -------
@@ -301,6 +317,12 @@ def run_sweep(
     """
     from fockmill.sweeps.execute import execute
 
+    if symmetry is not None and model.is_open:
+        raise ValueError(
+            f"model {model.name!r} has jumps: open systems are solved on the whole space "
+            "(their number sectors are used by themselves); symmetry sectors are not "
+            "supported for them yet, drop symmetry="
+        )
     sectors = None if symmetry is None else SweepSectors(model, symmetry, threads)
     settings = sweep_settings(
         model,
@@ -333,7 +355,16 @@ def run_sweep(
                 full,
                 settings,
                 sectors,
-                lambda: _new_meta(model, full, swept, settings, model_text_hash, unit_map, sectors),
+                lambda: _new_meta(
+                    model,
+                    full,
+                    swept,
+                    settings,
+                    model_text_hash,
+                    unit_map,
+                    sectors,
+                    descriptions,
+                ),
             )
     except BaseException:
         if held is not None:
@@ -370,6 +401,7 @@ def run_sweep(
             mode_labels=labels,
             units=MappingProxyType(unit_map),
             sector=None if sectors is None else sectors.table_sector(),
+            stationary=settings.stationary,
         )
     finally:
         if handle is not None and owned_store:

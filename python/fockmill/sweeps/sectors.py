@@ -48,6 +48,7 @@ from fockmill.sweeps.records import (
     solve_point,
     worker_model,
 )
+from fockmill.sweeps.stationary import PreparedStationary, solve_stationary_path
 
 __all__ = [
     "PreparedScan",
@@ -116,8 +117,11 @@ def prepare(
     *,
     points: int,
     first: Mapping[str, float] | None = None,
-) -> PreparedModel | PreparedScan:
-    """A prepared model, or one per sector when the recipe scans a generator."""
+) -> PreparedModel | PreparedScan | PreparedStationary:
+    """A prepared model, one per sector when the recipe scans a generator, or an open
+    model's parts when it has jumps (stationary states)."""
+    if recipe.jumps:
+        return PreparedStationary.build(recipe, settings)
     if recipe.scan is not None:
         return PreparedScan.build(recipe, settings, points=points, first=first)
     return PreparedModel.build(recipe, settings, points=points, first=first)
@@ -126,8 +130,11 @@ def prepare(
 @functools.lru_cache(maxsize=1)
 def worker_prepared(
     recipe: ModelRecipe, settings: SweepSettings, many: bool
-) -> PreparedModel | PreparedScan:
-    """As :func:`fockmill.sweeps.records.worker_model`, for scans too (a one-entry memo)."""
+) -> PreparedModel | PreparedScan | PreparedStationary:
+    """As :func:`fockmill.sweeps.records.worker_model`, for scans and open models too (a
+    one-entry memo)."""
+    if recipe.jumps:
+        return PreparedStationary.build(recipe, settings)
     if recipe.scan is None:
         return worker_model(recipe, settings, many)
     points = SHARED_PATTERN_MIN_POINTS if many else 1
@@ -135,11 +142,15 @@ def worker_prepared(
 
 
 def solve_points(
-    prepared: PreparedModel | PreparedScan,
+    prepared: PreparedModel | PreparedScan | PreparedStationary,
     points: Iterable[tuple[int, Mapping[str, float]]],
     settings: SweepSettings,
 ) -> Iterator[PointResult]:
-    """Solve points in order, chaining warm starts (per sector for a scan)."""
+    """Solve points in order, chaining warm starts (per sector for a scan, from the last
+    stationary state for an open model)."""
+    if isinstance(prepared, PreparedStationary):
+        yield from solve_stationary_path(prepared, points, settings)
+        return
     if isinstance(prepared, PreparedModel):
         yield from solve_path(prepared, points, settings)
         return

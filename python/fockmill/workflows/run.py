@@ -48,6 +48,14 @@ def _section(model_file: Any, name: str) -> Any:
         )
     if getattr(spec, "momenta", None) is not None:
         return spec  # a momentum-resolved map runs in the [symmetry] sectors
+    if name != "quench" and model_file.model.is_open:
+        warnings.warn(
+            f"[jumps] are not used by [{name}]: it is computed for the Hamiltonian alone, "
+            "as a closed system; the open system's own results are 'fockmill stationary' "
+            "and [quench]",
+            UserWarning,
+            stacklevel=4,  # the runner's caller (via _begin)
+        )
     if getattr(model_file, "symmetry", None) is not None:
         # A Fock or coherent initial state, a probe that changes the momentum and a
         # canonical ensemble all live in the whole space, not in one symmetry sector.
@@ -203,6 +211,13 @@ def run_quench(
     is compiled once. A ground-state initial state is then the ground state of ``H(0)``
     with ``[quench.initial] parameters`` changed.
 
+    With ``[jumps]`` the state evolves under the master equation: the density matrix by
+    :func:`fockmill.evolve_density` (to ``tol``), or, with ``trajectories = N``, ``N``
+    quantum-jump trajectories by :func:`fockmill.sample_trajectories` (``seed``). The
+    arrays are the same (``energy`` is ``Tr(ρH)``, ``top_weights`` the largest
+    ``P(n_i = cutoff_i)`` over the times); trajectories add their standard errors
+    ``energy_error``, ``populations_error`` and ``errors.NAME``.
+
     Raises
     ------
     ValueError
@@ -217,6 +232,8 @@ def run_quench(
 
     run = _begin(model_file, "quench", overrides, threads)
     spec, model, space, values, solver = run.spec, run.model, run.space, run.values, run.solver
+    if model.is_open:
+        return _open_quench(run, memory_limit)
     ramped = sorted(set(spec.ramps) & set(overrides or {}))
     if ramped:
         raise ValueError(
@@ -302,6 +319,144 @@ def run_quench(
         "ramps": {
             name: {"times": list(t), "values": list(v)} for name, (t, v) in spec.ramps.items()
         },
+    }
+    return run.finish(arrays, settings=settings, summary=summary, messages=messages)
+
+
+def _top_observables(space: Any) -> dict[str, LadderExpr]:
+    """``P(n_i = c_i)`` per mode as ``a_i†^c a_i^c / c!``: on the truncated space it is 1 on
+    the top level ``c_i`` and 0 below (``n(n−1)…(n−c+1)/c!``)."""
+    from math import factorial
+
+    from fockmill.algebra.expressions import lowering, raising
+
+    out: dict[str, LadderExpr] = {}
+    for i, c in enumerate(space.cutoffs):
+        out[f"#top{i}"] = (raising(i) ** c * lowering(i) ** c) * (1.0 / factorial(c))
+    return out
+
+
+def _open_quench(run: _Run, memory_limit: int | None) -> WorkflowResult:
+    """``[quench]`` of a model with ``[jumps]`` (see :func:`run_quench`)."""
+    from fockmill.files.jumps import describe_jumps
+    from fockmill.lindblad.evolution import evolve_density
+    from fockmill.lindblad.jumps import Jump
+    from fockmill.lindblad.trajectories import sample_trajectories
+    from fockmill.problem.problem import prepare
+    from fockmill.settings.checks import METHODS
+    from fockmill.solvers.ground import ground_state
+
+    model_file, spec, values, solver = run.model_file, run.spec, run.values, run.solver
+    model, space = run.model, run.space
+    # [solver] method names a stationary-state method here; a ground state picks its own.
+    ground_options = {k: v for k, v in solver.items() if k != "threads"}
+    if ground_options.get("method") not in METHODS:
+        ground_options["method"] = "auto"
+    h = model.hamiltonian(**values)
+    jumps = [Jump(op, rate, label) for label, op, rate in model.channels(**values)]
+    times = np.asarray(spec.times)
+    summary: dict[str, Any] = {}
+    with _collected_warnings() as messages:
+        problem = prepare(h, space, threads=solver["threads"], memory_limit=memory_limit)
+        if spec.initial.kind == "ground":
+            start = model.hamiltonian(**{**values, **spec.initial.parameters})
+            if start == h:
+                ground = ground_state(problem, **ground_options)
+            else:
+                ground = ground_state(
+                    start,
+                    space,
+                    memory_limit=memory_limit,
+                    threads=solver["threads"],
+                    **ground_options,
+                )
+            psi0 = ground.vector
+            summary["initial_energy"] = ground.energy
+            summary["initial_residual"] = ground.residual
+        else:
+            psi0 = spec.initial.vector(space)
+        observables: dict[str, Any] = {"#energy": h}
+        if spec.populations:
+            observables.update(_population_observables(space.modes))
+        observables.update(_top_observables(space))
+        observables.update(spec.observables)
+        errors: dict[str, Any] = {}
+        if spec.trajectories is None:
+            ev = evolve_density(
+                problem,
+                None,
+                psi0,
+                times,
+                jumps,
+                observables=observables,
+                tol=spec.tol,
+                memory_limit=memory_limit,
+            )
+            series = ev.values
+            summary.update(
+                method="DOP853",
+                steps=ev.steps,
+                evaluations=ev.evaluations,
+                trace_error=float(np.max(np.abs(ev.traces - 1.0))) if ev.traces.size else 0.0,
+                blocks=len(ev.spaces),
+            )
+        else:
+            tr = sample_trajectories(
+                problem,
+                None,
+                psi0,
+                times,
+                jumps,
+                observables=observables,
+                count=spec.trajectories,
+                seed=spec.seed,
+                tol=spec.tol,
+            )
+            series, errors = tr.mean, tr.stderr
+            summary.update(
+                method="quantum-jump trajectories",
+                trajectories=tr.count,
+                seed=tr.seed,
+                mean_jumps=float(np.mean(tr.jumps)) if tr.jumps.size else 0.0,
+            )
+    count = times.size
+    top = np.column_stack(
+        [np.asarray(series[f"#top{i}"], dtype=np.float64) for i in range(space.modes)]
+    ).reshape(count, space.modes)
+    rest = {k: v for k, v in series.items() if not k.startswith("#top") and k != "#energy"}
+    populations, named = _split_populations(rest, space.modes, count)
+    arrays: dict[str, Any] = {
+        "times": np.asarray(times, dtype=np.float64),
+        "energy": np.asarray(series["#energy"], dtype=np.float64),
+    }
+    if populations is not None:
+        arrays["populations"] = populations
+    for name, values_of in named.items():
+        arrays[f"values.{name}"] = np.asarray(values_of)
+    arrays["top_weights"] = top.max(axis=0) if count else np.zeros(space.modes)
+    if errors:
+        arrays["energy_error"] = np.asarray(errors["#energy"], dtype=np.float64)
+        population_errors, named_errors = _split_populations(
+            {k: v for k, v in errors.items() if not k.startswith("#top") and k != "#energy"},
+            space.modes,
+            count,
+        )
+        if population_errors is not None:
+            arrays["populations_error"] = population_errors
+        for name, values_of in named_errors.items():
+            arrays[f"errors.{name}"] = np.asarray(values_of)
+    settings = {
+        "initial": spec.initial.kind,
+        "initial_state": spec.initial.describe(),
+        "occupations": list(spec.initial.occupations),
+        "amplitudes": [[a.real, a.imag] for a in spec.initial.amplitudes],
+        "initial_parameters": dict(spec.initial.parameters),
+        "tol": spec.tol,
+        "populations": spec.populations,
+        "ramps": {},
+        "jumps": describe_jumps(model, values, model_file.jump_texts),
+        "trajectories": spec.trajectories,
+        "seed": spec.seed if spec.trajectories is not None else None,
     }
     return run.finish(arrays, settings=settings, summary=summary, messages=messages)
 
