@@ -198,23 +198,14 @@ impl<S: LeBytes> Watch<S> for PyWatch<'_> {
 
 /// A saved state read back through the loader object (see the module documentation).
 pub fn restored<S: FromInput>(loader: &Bound<'_, PyAny>) -> PyResult<Restored<S>> {
-    let integers: HashMap<String, u64> = loader
-        .getattr("integers")?
-        .extract()
-        .map_err(Into::<PyErr>::into)?;
-    let numbers: HashMap<String, Vec<f64>> = loader
-        .getattr("numbers")?
-        .extract()
-        .map_err(Into::<PyErr>::into)?;
-    let names: Vec<String> = loader
-        .getattr("vectors")?
-        .extract()
-        .map_err(Into::<PyErr>::into)?;
+    let integers: HashMap<String, u64> = loader.getattr("integers")?.extract()?;
+    let numbers: HashMap<String, Vec<f64>> = loader.getattr("numbers")?.extract()?;
+    let names: Vec<String> = loader.getattr("vectors")?.extract()?;
     let mut vectors = HashMap::new();
     for name in names {
         let what = "the saved vectors";
         let loaded = loader.call_method1("load", (name.as_str(),))?;
-        let v: Vec<S> = match loaded.extract::<InVector<'_>>().map_err(Into::<PyErr>::into)? {
+        let v: Vec<S> = match loaded.extract::<InVector<'_>>()? {
             InVector::Real(a) => owned_copy(a.len(), a.as_array().iter().map(|&x| S::from_real(x)), what)?,
             InVector::Complex(a) => {
                 owned_copy(a.len(), a.as_array().iter().map(|&x| S::from_complex(x)), what)?

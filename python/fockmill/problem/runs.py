@@ -22,7 +22,7 @@ def array_hash(v: npt.ArrayLike | None) -> str | None:
         return None
     a = np.ascontiguousarray(np.asarray(v))
     digest = hashlib.sha256(str(a.dtype).encode())
-    digest.update(memoryview(a.reshape(-1).view(np.uint8)))
+    digest.update(a.reshape(-1).view(np.uint8).data)
     return digest.hexdigest()[:16]
 
 

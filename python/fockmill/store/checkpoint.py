@@ -131,9 +131,9 @@ class _Writer:
             raise TypeError(f"checkpoint member {name} has objects; pass numbers or strings")
         fortran = a.ndim > 1 and not a.flags.c_contiguous and a.flags.f_contiguous
         flat = a.T if fortran else np.ascontiguousarray(a)
-        self.begin(name, np.lib.format.dtype_to_descr(a.dtype), tuple(a.shape), fortran)
+        self.begin(name, a.dtype.str, tuple(a.shape), fortran)
         if flat.size:
-            self.write(memoryview(flat.reshape(-1).view(np.uint8)))
+            self.write(flat.reshape(-1).view(np.uint8).data)
         self.end()
 
     def commit(self) -> None:

@@ -730,8 +730,8 @@ pub fn lowest_levels<S: Scalar, A: HermitianMap<S>>(
 /// [`lowest_levels`] reporting to `watch` after every product and, when it asks,
 /// handing it the resumable state at the next thick restart of the first run (the one
 /// that locks the `k` levels; the deflated re-check after it is short and not saved):
-/// the locked and kept columns with the next Lanczos vector (`basis`, `locked + active
-/// + 1` vectors), the projected matrix, the locked energies and the counters. Given
+/// the locked and kept columns with the next Lanczos vector (`basis`, `locked +
+/// active + 1` vectors), the projected matrix, the locked energies and the counters. Given
 /// such a state as `resume` (same map, `k` and options; `start` is then ignored), the
 /// solver continues from it and returns what an uninterrupted run returns, bit for bit.
 ///
