@@ -160,7 +160,7 @@ class Progress:
 
     def _draw(self, record: ProgressRecord) -> None:
         if self.total is not None and record.time is not None:
-            self.bar.n = min(record.time, self.total)
+            self.bar.n = float(f"{min(record.time, self.total):.4g}")
         elif self.total is not None:
             self.bar.n = min(record.step, self.total)
         else:
