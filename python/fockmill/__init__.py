@@ -20,6 +20,9 @@ estimate_memory, available_memory, MemoryEstimate
     Size planning before a build.
 ground_state, lowest_levels, GroundState, Levels, choose_method
     Eigensolvers (dense, scipy eigsh on CSR or matrix-free, low-memory Lanczos).
+ProgressRecord, CheckpointError
+    Long runs: ``progress=`` (a bar, or a callable receiving records) and
+    ``checkpoint=`` (restartable ground states, levels and evolutions).
 expectation, populations, number_variances, one_body_matrix, occupation_distribution,
 entanglement_entropy, top_level_weights
     Observables of a state, computed without building matrices.
@@ -83,7 +86,7 @@ from fockmill.dynamics import (
     spectral_poles,
     thermal,
 )
-from fockmill.exceptions import AccuracyWarning, CutoffWarning, StateFileError
+from fockmill.exceptions import AccuracyWarning, CheckpointError, CutoffWarning, StateFileError
 from fockmill.files import ModelFile, ModelFileError, load_model_file, parse_model_text
 from fockmill.lindblad import (
     DensityEvolution,
@@ -126,6 +129,7 @@ from fockmill.problem import (
     estimate_memory,
     prepare,
 )
+from fockmill.settings.progress import ProgressRecord
 from fockmill.solvers import (
     CutoffScan,
     Dispersion,
@@ -156,6 +160,7 @@ from fockmill.workflows import run_quench, run_spectrum, run_thermal
 
 __all__ = [
     "AccuracyWarning",
+    "CheckpointError",
     "CutoffScan",
     "CutoffWarning",
     "DensityEvolution",
@@ -176,6 +181,7 @@ __all__ = [
     "PiecewiseLinear",
     "PointResult",
     "Problem",
+    "ProgressRecord",
     "ResultsStore",
     "SavedState",
     "SpectralPoles",

@@ -6,7 +6,8 @@ is a thread count (None or 0: rayon's global pool, sized by ``RAYON_NUM_THREADS`
 number of cores) or a :class:`NativePool` kept between calls.
 """
 
-from typing import final
+from collections.abc import Callable
+from typing import Any, Protocol, final
 
 import numpy as np
 import numpy.typing as npt
@@ -31,6 +32,30 @@ __version__: str
 
 _RealOrComplex1D = npt.NDArray[np.float64] | npt.NDArray[np.complex128]
 _RealOrComplex2D = npt.NDArray[np.float64] | npt.NDArray[np.complex128]
+
+class _Sink(Protocol):
+    """Receives a solver's snapshot: ``begin``, ``write`` per piece of a vector,
+    ``commit`` (``fockmill.store.checkpoint.Checkpoint``)."""
+
+    def begin(
+        self,
+        solver: str,
+        integers: dict[str, int],
+        numbers: dict[str, list[float]],
+        vectors: list[tuple[str, int, int]],
+        dtype: str,
+        report: dict[str, Any],
+    ) -> None: ...
+    def write(self, name: str, data: bytes) -> None: ...
+    def commit(self) -> None: ...
+
+class _Loader(Protocol):
+    """A saved snapshot (``fockmill.store.checkpoint.CheckpointState``)."""
+
+    integers: dict[str, int]
+    numbers: dict[str, list[float]]
+    vectors: list[str]
+    def load(self, name: str) -> _RealOrComplex1D: ...
 
 @final
 class NativePool:
@@ -206,13 +231,25 @@ class NativeOperator:
         threads: _Threads = None,
         store: bool | None = None,
         memory_limit: int | None = None,
+        progress: Callable[[dict[str, Any]], object] | None = None,
+        report_every: float = 0.5,
+        checkpoint: _Sink | None = None,
+        checkpoint_every: float = 300.0,
+        resume: _Loader | None = None,
     ) -> LanczosResult:
         """Four-vector Lanczos ground state, matrix-free or on a stored matrix as
         :meth:`stores_matrix` decides.
 
         A ``start`` is normalised and mixed with seeded noise of relative weight 1e-4
         (seed ``seed``), so that a start with no weight on the ground state's symmetry
-        sector still converges to the true ground state."""
+        sector still converges to the true ground state.
+
+        ``progress`` is called with ``{"step", "products", "residual"}`` at most every
+        ``report_every`` seconds; ``checkpoint`` receives the resumable state (phase,
+        counters, coefficients and three vectors, streamed in pieces) at the end of a
+        Lanczos step at most every ``checkpoint_every`` seconds; ``resume`` gives such
+        a state back (``start`` is then ignored) and the run continues bit for bit. An
+        exception raised by a callback stops the solver and propagates."""
     def lanczos_levels(
         self,
         k: int,
@@ -225,6 +262,11 @@ class NativeOperator:
         store: bool | None = None,
         memory_limit: int | None = None,
         basis: int = 0,
+        progress: Callable[[dict[str, Any]], object] | None = None,
+        report_every: float = 0.5,
+        checkpoint: _Sink | None = None,
+        checkpoint_every: float = 300.0,
+        resume: _Loader | None = None,
     ) -> LevelsResult:
         """Lowest ``k`` levels by thick-restart Lanczos (Wu & Simon 2000) in Rust.
 
@@ -237,7 +279,9 @@ class NativeOperator:
         lower level remains. Memory: ``basis + 1`` vectors (``basis`` 0 means
         ``min(dim, 2k + 8)``; at least ``k + 4``), plus the CSR matrix when stored.
         ``start``: one vector ``(dim,)`` or a block ``(dim, b)`` (summed, each column
-        normalised), mixed with seeded noise of relative weight 1e-4."""
+        normalised), mixed with seeded noise of relative weight 1e-4. ``progress``,
+        ``checkpoint``, ``resume`` as for :meth:`lanczos_ground`; a snapshot is taken at
+        a thick restart of the first run (the locked and kept basis vectors)."""
 
 @final
 class LanczosResult:

@@ -11,6 +11,7 @@ from __future__ import annotations
 __all__ = [
     "AccuracyWarning",
     "ChargeError",
+    "CheckpointError",
     "ConvergenceError",
     "CutoffWarning",
     "ModeIndexError",
@@ -96,6 +97,10 @@ class ModelFileError(ValueError):
 
 class StateFileError(ValueError):
     """A state file is not a fockmill state file, is damaged, or does not fit the basis."""
+
+
+class CheckpointError(ValueError):
+    """A checkpoint file belongs to another problem or other settings, or is damaged."""
 
 
 class StoreError(ValueError):

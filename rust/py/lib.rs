@@ -11,6 +11,7 @@
 //! - `results.rs`: `LanczosResult`, `LevelsResult`, `NnzEstimate`, `CsrParts`
 //! - `observe.rs`: observables of a state
 //! - `errors.rs`, `interrupt.rs`: error mapping, panic guard, signal polling
+//! - `watch.rs`: progress reports and checkpoints of the solvers, streamed to Python
 
 mod arrays;
 mod errors;
@@ -22,6 +23,7 @@ mod protocol;
 mod results;
 mod space;
 mod threads;
+mod watch;
 
 use pyo3::prelude::*;
 

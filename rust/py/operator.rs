@@ -12,6 +12,7 @@ use crate::protocol::SolveRequest;
 use crate::results::{CsrParts, LanczosResult, LevelsResult, NnzEstimate};
 use crate::space::{NativeSpace, NativeSymmetricSpace};
 use crate::threads::{detached, Threads};
+use crate::watch::Hooks;
 use fockmill_core::between::Between;
 use fockmill_core::lanczos::LanczosOptions;
 use fockmill_core::levels::LevelsOptions;
@@ -420,7 +421,12 @@ impl NativeOperator {
 
     /// Four-vector Lanczos ground state, on the matrix-free product or on a CSR matrix
     /// built first and kept inside Rust (`store`: True, False, or None to decide).
-    #[pyo3(signature = (*, tol=1e-9, max_steps=400, max_restarts=8, seed=0, start=None, threads=None, store=None, memory_limit=None))]
+    ///
+    /// `progress`: called with `{"step", "products", "residual"}` at most every
+    /// `report_every` seconds. `checkpoint`: a sink receiving the resumable state at most
+    /// every `checkpoint_every` seconds (`begin`, `write` per chunk, `commit`; see
+    /// `rust/py/watch.rs`). `resume`: a loader of such a state to continue from.
+    #[pyo3(signature = (*, tol=1e-9, max_steps=400, max_restarts=8, seed=0, start=None, threads=None, store=None, memory_limit=None, progress=None, report_every=0.5, checkpoint=None, checkpoint_every=300.0, resume=None))]
     #[allow(clippy::too_many_arguments)]
     fn lanczos_ground<'py>(
         &self,
@@ -433,6 +439,11 @@ impl NativeOperator {
         threads: Option<Threads<'_>>,
         store: Option<bool>,
         memory_limit: Option<u128>,
+        progress: Option<Bound<'py, PyAny>>,
+        report_every: f64,
+        checkpoint: Option<Bound<'py, PyAny>>,
+        checkpoint_every: f64,
+        resume: Option<Bound<'py, PyAny>>,
     ) -> PyResult<LanczosResult> {
         let opts = LanczosOptions {
             tol,
@@ -444,6 +455,8 @@ impl NativeOperator {
             storage: storage(store, memory_limit),
             start,
             threads,
+            hooks: Hooks::new(progress, checkpoint, report_every, checkpoint_every)?,
+            resume,
         };
         with_solvable!(self, v => v.lanczos_ground(py, &opts, req))
     }
@@ -451,7 +464,9 @@ impl NativeOperator {
     /// Lowest `k` levels by thick-restart Lanczos with locking and a deflated re-check,
     /// on the matrix-free product or on a CSR matrix kept inside Rust (`store` as for
     /// `lanczos_ground`).
-    #[pyo3(signature = (k, *, tol=1e-9, max_products=20_000, seed=0, start=None, threads=None, store=None, memory_limit=None, basis=0))]
+    /// `progress`, `report_every`, `checkpoint`, `checkpoint_every`, `resume` as for
+    /// `lanczos_ground` (snapshots at thick restarts of the first run).
+    #[pyo3(signature = (k, *, tol=1e-9, max_products=20_000, seed=0, start=None, threads=None, store=None, memory_limit=None, basis=0, progress=None, report_every=0.5, checkpoint=None, checkpoint_every=300.0, resume=None))]
     #[allow(clippy::too_many_arguments)]
     fn lanczos_levels<'py>(
         &self,
@@ -465,6 +480,11 @@ impl NativeOperator {
         store: Option<bool>,
         memory_limit: Option<u128>,
         basis: usize,
+        progress: Option<Bound<'py, PyAny>>,
+        report_every: f64,
+        checkpoint: Option<Bound<'py, PyAny>>,
+        checkpoint_every: f64,
+        resume: Option<Bound<'py, PyAny>>,
     ) -> PyResult<LevelsResult> {
         let opts = LevelsOptions {
             tol,
@@ -476,6 +496,8 @@ impl NativeOperator {
             storage: storage(store, memory_limit),
             start,
             threads,
+            hooks: Hooks::new(progress, checkpoint, report_every, checkpoint_every)?,
+            resume,
         };
         with_solvable!(self, v => v.lanczos_levels(py, k, &opts, req))
     }

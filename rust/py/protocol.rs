@@ -10,12 +10,13 @@
 use crate::arrays::{owned_copy, FromInput, InBlock, InStart, InVector, OwnedVector};
 use crate::errors::guarded;
 use crate::results::{CsrParts, LanczosResult, LevelsResult, NnzEstimate};
-use crate::threads::{detached, Threads};
+use crate::threads::{detached, detached_watched, Threads};
+use crate::watch::{restored, Hooks, LeBytes};
 use fockmill_core::build::CsrAny;
 use fockmill_core::estimate::NnzEstimate as CoreEstimate;
 use fockmill_core::lanczos::LanczosOptions;
 use fockmill_core::levels::LevelsOptions;
-use fockmill_core::solve::{self, Solvable, Storage};
+use fockmill_core::solve::{self, Solvable, Storage, Watched};
 use fockmill_core::{CoreResult, Interrupt, Runner, Scalar};
 use num_complex::Complex64;
 use numpy::ndarray::Array2;
@@ -168,6 +169,10 @@ pub struct SolveRequest<'a, 'py> {
     pub storage: Storage,
     pub start: Option<InStart<'py>>,
     pub threads: Option<Threads<'a>>,
+    /// Progress and checkpoint callbacks.
+    pub hooks: Hooks,
+    /// A loader of a saved state to continue from (see [`crate::watch`]).
+    pub resume: Option<Bound<'py, PyAny>>,
 }
 
 impl<R: Solvable<f64>, C: Solvable<Complex64>> Versions<R, C> {
@@ -192,16 +197,18 @@ impl<R: Solvable<f64>, C: Solvable<Complex64>> Versions<R, C> {
         opts: &LanczosOptions,
         req: SolveRequest<'_, '_>,
     ) -> PyResult<LanczosResult> {
-        fn on<S: FromInput>(
+        fn on<S: FromInput + LeBytes>(
             py: Python<'_>,
             op: &impl Solvable<S>,
             opts: &LanczosOptions,
             req: SolveRequest<'_, '_>,
         ) -> PyResult<LanczosResult> {
             let start = req.start.as_ref().map(|s| s.owned::<S>()).transpose()?;
+            let resume = req.resume.as_ref().map(restored::<S>).transpose()?;
             let storage = req.storage;
-            let (out, stored) = detached(py, req.threads, |r, s| {
-                solve::ground_state(op, &storage, start, opts, r, s)
+            let (out, stored) = detached_watched(py, req.threads, &req.hooks, |r, s, watch| {
+                let watched = Watched { watch, resume };
+                solve::ground_state_watched(op, &storage, start, opts, r, s, watched)
             })?;
             Ok(LanczosResult::new(py, out, stored))
         }
@@ -219,7 +226,7 @@ impl<R: Solvable<f64>, C: Solvable<Complex64>> Versions<R, C> {
         opts: &LevelsOptions,
         req: SolveRequest<'_, '_>,
     ) -> PyResult<LevelsResult> {
-        fn on<S: FromInput>(
+        fn on<S: FromInput + LeBytes>(
             py: Python<'_>,
             op: &impl Solvable<S>,
             k: usize,
@@ -227,9 +234,11 @@ impl<R: Solvable<f64>, C: Solvable<Complex64>> Versions<R, C> {
             req: SolveRequest<'_, '_>,
         ) -> PyResult<LevelsResult> {
             let start = req.start.as_ref().map(|s| s.owned::<S>()).transpose()?;
+            let resume = req.resume.as_ref().map(restored::<S>).transpose()?;
             let storage = req.storage;
-            let (out, stored) = detached(py, req.threads, |r, s| {
-                solve::lowest_levels(op, &storage, k, start, opts, r, s)
+            let (out, stored) = detached_watched(py, req.threads, &req.hooks, |r, s, watch| {
+                let watched = Watched { watch, resume };
+                solve::lowest_levels_watched(op, &storage, k, start, opts, r, s, watched)
             })?;
             LevelsResult::new(py, op.dim(), out, stored)
         }

@@ -4,6 +4,7 @@
 
 use crate::errors::{guarded, PyCoreError};
 use crate::interrupt::SignalCheck;
+use crate::watch::{Hooks, PyWatch};
 use fockmill_core::{CoreError, CoreResult, Interrupt, Runner};
 use pyo3::exceptions::PyKeyboardInterrupt;
 use pyo3::prelude::*;
@@ -67,6 +68,32 @@ pub fn detached<T: Send>(
         let check = SignalCheck::new();
         let result = work(runner, &check);
         (result, check.take())
+    });
+    match result {
+        Ok(v) => Ok(v),
+        Err(CoreError::Interrupted) => {
+            Err(raised.unwrap_or_else(|| PyKeyboardInterrupt::new_err("interrupted")))
+        }
+        Err(e) => Err(PyCoreError(e).into()),
+    }
+}
+
+/// [`detached`] for a solver that reports to `hooks` (progress and checkpoints, see
+/// [`crate::watch`]): a Python exception raised by a callback stops the solver and is
+/// raised here.
+pub fn detached_watched<T: Send>(
+    py: Python<'_>,
+    threads: Option<Threads<'_>>,
+    hooks: &Hooks,
+    work: impl FnOnce(&Runner, &dyn Interrupt, &PyWatch<'_>) -> CoreResult<T> + Send,
+) -> PyResult<T> {
+    let runner = Threads::runner(threads)?;
+    let runner = runner.as_ref();
+    let (result, raised) = py.detach(|| {
+        let check = SignalCheck::new();
+        let watch = PyWatch::new(hooks);
+        let result = work(runner, &check, &watch);
+        (result, watch.take().or_else(|| check.take()))
     });
     match result {
         Ok(v) => Ok(v),

@@ -20,9 +20,11 @@ from pathlib import Path
 from typing import IO, Any, NoReturn
 
 from fockmill.cli.options import (
+    add_long_run,
     add_overrides,
     add_threads,
     positive_int,
+    progress_option,
     solver_keywords,
     units_of,
 )
@@ -106,6 +108,7 @@ def build_parser() -> argparse.ArgumentParser:
         "--format", choices=("text", "json"), default="text", help="output format (default text)"
     )
     add_threads(solve)
+    add_long_run(solve)
     solve.add_argument(
         "--plot",
         metavar="FIG.png",
@@ -538,6 +541,11 @@ def _command_solve(args: argparse.Namespace, out: IO[str]) -> int:
     if levels < 2:
         quantities = tuple(q for q in quantities if q != "gap")
     symmetry = getattr(model_file, "symmetry", None)
+    if args.checkpoint and symmetry is not None and symmetry.scan is not None:
+        raise UsageError(
+            "--checkpoint keeps one solve, and this model file scans every momentum sector "
+            "(one solve per sector); pick one sector in [symmetry] or drop --checkpoint"
+        )
     if args.plot and (symmetry is None or symmetry.scan is None):
         raise UsageError(
             '--plot draws a dispersion: it needs [symmetry] with translation = "all" (or a '
@@ -552,6 +560,8 @@ def _command_solve(args: argparse.Namespace, out: IO[str]) -> int:
         executor="serial",
         progress=False,
         symmetry=symmetry,
+        _checkpoint=args.checkpoint,
+        _solver_progress=progress_option(args),
         **solver_keywords(model_file, getattr(args, "threads", None)),
     )
     row = table.rows[0]

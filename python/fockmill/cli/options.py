@@ -3,9 +3,18 @@
 from __future__ import annotations
 
 import argparse
+import sys
 from typing import Any
 
-__all__ = ["add_overrides", "add_threads", "positive_int", "solver_keywords", "units_of"]
+__all__ = [
+    "add_long_run",
+    "add_overrides",
+    "add_threads",
+    "positive_int",
+    "progress_option",
+    "solver_keywords",
+    "units_of",
+]
 
 
 def positive_int(text: str) -> int:
@@ -56,3 +65,35 @@ def units_of(model_file: Any) -> dict[str, str]:
     """The model file's units (parameter or "energy" -> unit), when it gives any."""
     units = getattr(model_file, "units", None) or {}
     return {str(k): str(v) for k, v in dict(units).items()}
+
+
+def add_long_run(parser: argparse.ArgumentParser, *, checkpoint: bool = True) -> None:
+    """``--no-progress`` and (with ``checkpoint``) ``--checkpoint PATH``."""
+    parser.add_argument(
+        "--no-progress", action="store_true", help="hide the progress bar of the computation"
+    )
+    if checkpoint:
+        parser.add_argument(
+            "--checkpoint",
+            metavar="STATE.npz",
+            help="keep the run's state in this file (every few minutes and at the end); "
+            "the same command with the same file continues an interrupted run or prints "
+            "the finished result at once",
+        )
+
+
+def progress_option(args: argparse.Namespace) -> bool:
+    """``progress=`` of a command: a bar on stderr unless ``--no-progress``, when stderr
+    is a terminal and tqdm is installed (a log file gets no bar)."""
+    if getattr(args, "no_progress", False):
+        return False
+    try:
+        if not sys.stderr.isatty():
+            return False
+    except (AttributeError, ValueError):
+        return False
+    try:
+        import tqdm  # noqa: F401
+    except ImportError:
+        return False
+    return True

@@ -15,7 +15,7 @@ from typing import IO, Any
 
 import numpy as np
 
-from fockmill.cli.options import add_overrides, add_threads
+from fockmill.cli.options import add_long_run, add_overrides, add_threads, progress_option
 from fockmill.store.claims import claim
 from fockmill.store.workflows import WorkflowResult, write_workflow_results
 
@@ -65,6 +65,7 @@ def add_parsers(commands: Any, positive_int: Callable[[str], int]) -> None:
         )
         add_overrides(sub)
         add_threads(sub)
+        add_long_run(sub, checkpoint=name != "thermal")
         sub.add_argument("--plot", metavar="FIG.png", help="also draw a figure (needs matplotlib)")
 
 
@@ -102,7 +103,12 @@ def run_command(
     with claim(target):
         with warnings.catch_warnings(record=True) as caught:
             warnings.simplefilter("always")
-            result = runner[args.command](model_file, overrides=overrides, threads=args.threads)
+            long_run: dict[str, Any] = {"progress": progress_option(args)}
+            if getattr(args, "checkpoint", None):
+                long_run["checkpoint"] = args.checkpoint
+            result = runner[args.command](
+                model_file, overrides=overrides, threads=args.threads, **long_run
+            )
         for item in caught:
             print(f"fockmill: warning: {' '.join(str(item.message).split())}", file=sys.stderr)
         path = write_workflow_results(target, result, claimed=True)

@@ -4,6 +4,7 @@ control from the Krylov error estimate."""
 from __future__ import annotations
 
 import numbers
+import os
 import time
 from collections.abc import Callable, Mapping
 from dataclasses import dataclass
@@ -15,7 +16,7 @@ import scipy.linalg as sla
 from scipy.linalg.blas import zaxpy
 
 from fockmill.algebra.expressions import LadderExpr
-from fockmill.dynamics.cfqm import Integrator
+from fockmill.dynamics.cfqm import Counters, Integrator
 from fockmill.dynamics.drive import TimeDependent
 from fockmill.dynamics.krylov import (
     as_float_array,
@@ -42,8 +43,11 @@ from fockmill.problem.problem import (
     prepare_observables,
     problem_and_arguments,
 )
+from fockmill.problem.runs import array_hash, hamiltonian_hash, open_checkpoint
+from fockmill.settings.progress import Progress, ProgressOption, make_progress
 from fockmill.settings.signatures import options_were_positional
 from fockmill.settings.threads import blas_threads
+from fockmill.store.checkpoint import DEFAULT_CHECKPOINT_EVERY, Checkpoint, CheckpointState
 
 __all__ = ["Evolution", "evolve"]
 
@@ -225,6 +229,26 @@ class _Recorder:
         warn_top_weights(self.space, self.weights_max, cutoff_warning, "the evolving state")
         return self.weights_max
 
+    def saved(self, k: int) -> dict[str, npt.NDArray[Any]]:
+        """What has been recorded at the first ``k`` times, for a checkpoint."""
+        out: dict[str, npt.NDArray[Any]] = {}
+        for i, series in enumerate(self.raw.values()):
+            out[f"raw.{i}"] = np.asarray(series, dtype=np.complex128)
+        if self.weights_max is not None:
+            out["weights"] = self.weights_max
+        if self.states is not None:
+            out["states"] = self.states[:, :k]
+        return out
+
+    def restore(self, saved: CheckpointState, k: int) -> None:
+        """Take back what :meth:`saved` wrote."""
+        for i, name in enumerate(self.raw):
+            self.raw[name] = saved.load(f"raw.{i}").tolist()
+        if "weights" in saved.vectors:
+            self.weights_max = saved.load("weights")
+        if self.states is not None and k > 0:
+            self.states[:, :k] = saved.array("states")
+
 
 class _Propagator:
     """``exp(−iτT) e₁`` in one Krylov space and its a posteriori error estimate."""
@@ -265,6 +289,9 @@ def evolve(
     memory_limit: int | None = None,
     cutoff_warning: float | None = 1e-6,
     max_step: float | None = None,
+    progress: ProgressOption = None,
+    checkpoint: str | os.PathLike[str] | None = None,
+    checkpoint_every: float = DEFAULT_CHECKPOINT_EVERY,
     _fixed_step: float | None = None,
 ) -> Evolution:
     """Propagate ``ψ(t) = exp(−iHt) ψ(0)`` (ħ = 1) and record observables.
@@ -310,6 +337,20 @@ def evolve(
         the control would otherwise take (a short pulse between two smooth stretches).
         Refused for a time-independent ``H``, whose steps are exact up to the Krylov
         estimate.
+    progress : bool, callable or None
+        Progress reports (see :func:`fockmill.lowest_levels`): a record after each
+        Krylov step (a time-dependent ``H``: after each recorded time or breakpoint) with
+        the time reached; the bar runs from 0 to the last time.
+    checkpoint : str or path, optional
+        A file where the evolution keeps its state (ψ, the time reached, the values
+        recorded so far): written every ``checkpoint_every`` seconds at the end of a
+        step, and with the result when the run finishes. A call with the same file
+        continues from the saved state and records the same values as an uninterrupted
+        run, or returns the finished result at once; a file written for another
+        Hamiltonian, state, times or settings is refused (:class:`CheckpointError`
+        naming the difference).
+    checkpoint_every : float
+        Seconds between two writes of the state (default 300).
     _fixed_step : float, optional
         Private (convergence studies and tests): a time-dependent ``H`` is propagated
         with steps of this length, shortened evenly to land on the recorded times and
@@ -400,6 +441,9 @@ def evolve(
             max_step=max_step,
             fixed_step=_fixed_step,
             t_start=t_start,
+            progress=progress,
+            checkpoint=checkpoint,
+            checkpoint_every=checkpoint_every,
         )
     if max_step is not None or _fixed_step is not None:
         raise TypeError(
@@ -418,7 +462,20 @@ def evolve(
     psi = check_state(space, psi0, "psi0").astype(np.complex128)
     obs = prepare_observables(observables, problem)
     dim = psi.shape[0]
-    if krylov_dim is None:
+    ck = open_checkpoint(
+        checkpoint,
+        checkpoint_every,
+        task="evolve",
+        space=space,
+        hamiltonian=hamiltonian_hash(problem.expr),
+        settings=_evolve_settings(t, psi, obs, tol, krylov_dim, keep_states, method),
+    )
+    if ck is not None and ck.finished is not None:
+        return _evolution_from(ck.finished, t, obs, space, cutoff_warning, t_start)
+    resumed = None if ck is None else ck.running("evolve")
+    if resumed is not None:
+        krylov_dim = resumed.integers["krylov_dim"]
+    elif krylov_dim is None:
         krylov_dim = _default_krylov_dim(dim, memory_limit)
     m = int(min(krylov_dim, dim))
     kept = dim * t.size * 16 if keep_states else 0
@@ -439,12 +496,19 @@ def evolve(
     k = 0
     steps = 0
     error_sum = 0.0
+    if resumed is not None:
+        psi = resumed.load("psi").astype(np.complex128)
+        now, error_sum = resumed.numbers["now"][0], resumed.numbers["error"][0]
+        k, steps = resumed.integers["k"], resumed.integers["steps"]
+        hmap.products = resumed.integers["products"]
+        recorder.restore(resumed, k)
     while k < t.size and t[k] <= now:
         record(k, psi)
         k += 1
     reorthogonalize = m * dim <= REORTHOGONALIZE_MAX
+    reporter = make_progress(progress, "evolve", total=t_end, unit="time")
     # Many memory-bound vector operations: one BLAS thread (fockmill.settings.threads).
-    with blas_threads(1):
+    with blas_threads(1), _Closing(reporter, ck):
         while k < t.size:
             alpha, beta, beta_next, n = _krylov_space(hmap, psi, m, basis, reorthogonalize)
             steps += 1
@@ -478,12 +542,22 @@ def evolve(
                 k += 1
             psi = coefficients(tau) @ basis[:n]
             now += tau
+            if reporter is not None:
+                reporter.update(step=steps, products=hmap.products, time_reached=now)
+            if ck is not None and k < t.size and ck.due():
+                ck.save(
+                    status="running",
+                    solver="evolve",
+                    integers={"k": k, "steps": steps, "products": hmap.products, "krylov_dim": m},
+                    numbers={"now": [now], "error": [error_sum]},
+                    vectors={"psi": psi, **recorder.saved(k)},
+                )
     values = recorder.values()
     weights_max = recorder.finish(cutoff_warning)
     warn_tolerance_not_met(tol, error_sum, "evolve")
     # The propagation ends exactly at the last requested time.
     final = recorder.states[:, -1].copy() if recorder.states is not None else psi
-    return Evolution(
+    result = Evolution(
         times=t,
         values=values,
         states=recorder.states,
@@ -493,6 +567,91 @@ def evolve(
         products=hmap.products,
         method=hmap.method,
         error_estimate=error_sum,
+        seconds=time.perf_counter() - t_start,
+    )
+    _save_evolution(ck, result)
+    return result
+
+
+class _Closing:
+    """Close the progress bar and drop a half-written checkpoint on the way out."""
+
+    def __init__(self, reporter: Progress | None, ck: Checkpoint | None) -> None:
+        self.reporter, self.ck = reporter, ck
+
+    def __enter__(self) -> None:
+        return None
+
+    def __exit__(self, *exc: object) -> None:
+        if self.ck is not None:
+            self.ck.abort()
+        if self.reporter is not None:
+            self.reporter.close()
+
+
+def _evolve_settings(
+    t: npt.NDArray[np.float64],
+    psi: npt.NDArray[Any],
+    obs: Mapping[str, Any],
+    tol: float,
+    krylov_dim: int | None,
+    keep_states: bool,
+    method: str,
+    **more: Any,
+) -> dict[str, Any]:
+    """The settings an evolution's checkpoint must match."""
+    return {
+        "times": array_hash(t),
+        "psi0": array_hash(psi),
+        "observables": {name: hamiltonian_hash(o.expr) for name, o in obs.items()},
+        "tol": tol,
+        "krylov_dim": krylov_dim,
+        "keep_states": bool(keep_states),
+        "method": method,
+        **more,
+    }
+
+
+def _save_evolution(ck: Checkpoint | None, result: Evolution) -> None:
+    """Keep the finished result in the checkpoint."""
+    if ck is None:
+        return
+    vectors = {f"value.{i}": v for i, v in enumerate(result.values.values())}
+    vectors["final"] = result.final
+    vectors["top_weights"] = result.top_weights
+    if result.states is not None:
+        vectors["states"] = result.states
+    ck.save(
+        status="finished",
+        solver="result",
+        integers={"steps": result.steps, "products": result.products},
+        numbers={"error": [result.error_estimate]},
+        texts={"method": result.method},
+        vectors=vectors,
+    )
+
+
+def _evolution_from(
+    saved: CheckpointState,
+    t: npt.NDArray[np.float64],
+    obs: Mapping[str, Any],
+    space: Any,
+    cutoff_warning: float | None,
+    t_start: float,
+) -> Evolution:
+    """The finished evolution kept in a checkpoint."""
+    weights = saved.array("top_weights")
+    warn_top_weights(space, weights, cutoff_warning, "the evolving state")
+    return Evolution(
+        times=t,
+        values={name: saved.array(f"value.{i}") for i, name in enumerate(obs)},
+        states=saved.array("states") if "states" in saved.vectors else None,
+        final=saved.array("final"),
+        top_weights=weights,
+        steps=saved.integers["steps"],
+        products=saved.integers["products"],
+        method=saved.texts["method"],
+        error_estimate=float(saved.numbers["error"][0]),
         seconds=time.perf_counter() - t_start,
     )
 
@@ -584,6 +743,9 @@ def _evolve_time_dependent(
     max_step: float | None,
     fixed_step: float | None,
     t_start: float,
+    progress: ProgressOption = None,
+    checkpoint: object = None,
+    checkpoint_every: float = DEFAULT_CHECKPOINT_EVERY,
 ) -> Evolution:
     """:func:`evolve` for ``H(t) = H0 + Σ_k f_k(t) H_k`` (see its Notes)."""
     from fockmill.spaces.checks import check_space
@@ -617,7 +779,32 @@ def _evolve_time_dependent(
     psi = check_state(space, psi0, "psi0").astype(np.complex128)
     obs = prepare_observables(observables, host)
     dim = psi.shape[0]
-    if krylov_dim is None:
+    ck = open_checkpoint(
+        checkpoint,
+        checkpoint_every,
+        task="evolve",
+        space=space,
+        hamiltonian=hamiltonian_hash(host.expr),
+        settings=_evolve_settings(
+            t,
+            psi,
+            obs,
+            tol,
+            krylov_dim,
+            keep_states,
+            method,
+            parts=[hamiltonian_hash(p.expr) for p in problems[1:]],
+            coefficients=_coefficients_identity(H, t),
+            max_step=max_step,
+            fixed_step=fixed_step,
+        ),
+    )
+    if ck is not None and ck.finished is not None:
+        return _evolution_from(ck.finished, t, obs, space, cutoff_warning, t_start)
+    resumed = None if ck is None else ck.running("evolve")
+    if resumed is not None:
+        krylov_dim = resumed.integers["krylov_dim"]
+    elif krylov_dim is None:
         krylov_dim = _default_krylov_dim(dim, memory_limit)
     m = int(min(krylov_dim, dim))
     # Krylov basis, ψ and the three trial states of a doubled step, products in flight.
@@ -655,22 +842,62 @@ def _evolve_time_dependent(
         ) from None
     now = 0.0
     k = 0
+    first = 0
+    if resumed is not None:
+        psi = resumed.load("psi").astype(np.complex128)
+        k, first = resumed.integers["k"], resumed.integers["stop"]
+        now = stops[first - 1] if first > 0 else 0.0
+        h = resumed.numbers["h"]
+        integrator.h = h[0] if h else None
+        integrator.count = Counters(
+            steps=resumed.integers["steps"],
+            rejected=resumed.integers["rejected"],
+            products=resumed.integers["products"],
+            exponentials=resumed.integers["exponentials"],
+            error=resumed.numbers["error"][0],
+        )
+        recorder.restore(resumed, k)
     while k < t.size and t[k] <= now:
         record(k, psi)
         k += 1
-    with blas_threads(1):  # many small vector operations: see fockmill.settings.threads
-        for stop in stops:
+    reporter = make_progress(progress, "evolve", total=t_end, unit="time")
+    # Many small vector operations: see fockmill.settings.threads.
+    with blas_threads(1), _Closing(reporter, ck):
+        for i in range(first, len(stops)):
+            stop = stops[i]
             psi = integrator.advance(psi, now, stop)
             now = stop
             while k < t.size and t[k] <= now:
                 record(k, psi)
                 k += 1
+            count = integrator.count
+            if reporter is not None:
+                reporter.update(step=count.steps, products=count.products, time_reached=now)
+            if ck is not None and i + 1 < len(stops) and ck.due():
+                ck.save(
+                    status="running",
+                    solver="evolve",
+                    integers={
+                        "k": k,
+                        "stop": i + 1,
+                        "krylov_dim": m,
+                        "steps": count.steps,
+                        "rejected": count.rejected,
+                        "products": count.products,
+                        "exponentials": count.exponentials,
+                    },
+                    numbers={
+                        "h": [] if integrator.h is None else [integrator.h],
+                        "error": [count.error],
+                    },
+                    vectors={"psi": psi, **recorder.saved(k)},
+                )
     values = recorder.values()
     weights_max = recorder.finish(cutoff_warning)
     count = integrator.count
     if fixed_step is None:
         warn_tolerance_not_met(tol, count.error, "evolve")
-    return Evolution(
+    result = Evolution(
         times=t,
         values=values,
         states=recorder.states,
@@ -682,3 +909,17 @@ def _evolve_time_dependent(
         error_estimate=float(count.error),
         seconds=time.perf_counter() - t_start,
     )
+    _save_evolution(ck, result)
+    return result
+
+
+def _coefficients_identity(H: TimeDependent, t: npt.NDArray[np.float64]) -> list[str]:
+    """What identifies the coefficients of a time-dependent ``H`` in a checkpoint: a
+    piecewise-linear table by its values, a callable by its name and its values at the
+    recorded times (its code itself is not compared)."""
+    out = []
+    for _, f in H.parts:
+        name = f"{getattr(f, '__module__', '')}.{getattr(f, '__qualname__', type(f).__name__)}"
+        values = np.array([float(f(float(x))) for x in t])
+        out.append(f"{name}:{array_hash(values)}")
+    return out

@@ -25,6 +25,7 @@ from fockmill.dynamics.krylov import (
 )
 from fockmill.exceptions import ChargeError, ConvergenceError
 from fockmill.problem.problem import Problem, prepare, problem_and_arguments
+from fockmill.settings.progress import ProgressOption, make_progress
 from fockmill.settings.signatures import options_were_positional
 
 __all__ = [
@@ -179,6 +180,7 @@ def spectral_function(
     method: str = "auto",
     threads: int | None = None,
     memory_limit: int | None = None,
+    progress: ProgressOption = None,
 ) -> npt.NDArray[np.float64]:
     """The spectral function ``S(ω) = −(1/π) Im ⟨ψ|A† (ω + E_ref + iη − H)⁻¹ A|ψ⟩``.
 
@@ -215,6 +217,9 @@ def spectral_function(
         Products on the stored matrix or matrix-free (``"auto"``: from memory).
     threads, memory_limit
         As for :func:`fockmill.ground_state`.
+    progress : bool, callable or None
+        Progress reports (see :func:`fockmill.lowest_levels`): a record after each
+        Lanczos step.
 
     Returns
     -------
@@ -269,7 +274,9 @@ def spectral_function(
     # Checked before any work, naming the argument (numpy's own message would not).
     as_float_grid(omegas, "omegas")
     start = spectral_start(problem, psi, A, target, reference_energy)
-    return function_from_start(start, omegas, eta=eta, tol=tol, max_steps=steps_cap, method=method)
+    return function_from_start(
+        start, omegas, eta=eta, tol=tol, max_steps=steps_cap, method=method, progress=progress
+    )
 
 
 def function_from_start(
@@ -280,6 +287,7 @@ def function_from_start(
     tol: float,
     max_steps: int | None,
     method: str,
+    progress: ProgressOption = None,
 ) -> npt.NDArray[np.float64]:
     """:func:`spectral_function` from a prepared :class:`SpectralStart`."""
     w = as_float_grid(omegas, "omegas")
@@ -295,8 +303,12 @@ def function_from_start(
     history: list[npt.NDArray[np.float64]] = []
     quiet = [0]
 
+    reporter = make_progress(progress, "spectral_function", unit="step")
+
     def converged(alpha: list[float], beta: list[float]) -> bool:
         n = len(alpha)
+        if reporter is not None:
+            reporter.update(step=n, products=hmap.products)
         if n % CHECK_EVERY:
             return False
         s = -norm_sq * _continued_fraction(z, np.asarray(alpha), np.asarray(beta)).imag / np.pi
@@ -307,7 +319,11 @@ def function_from_start(
         return quiet[0] >= 2
 
     unit = phi / np.sqrt(norm_sq)
-    alpha, beta, _ = lanczos_coefficients(hmap, unit, limit, done=converged)
+    try:
+        alpha, beta, _ = lanczos_coefficients(hmap, unit, limit, done=converged)
+    finally:
+        if reporter is not None:
+            reporter.close()
     closed = alpha.size < limit and quiet[0] < 2
     if quiet[0] < 2 and not closed and alpha.size < tgt.dim:
         raise ConvergenceError(

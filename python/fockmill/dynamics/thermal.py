@@ -6,7 +6,7 @@ from __future__ import annotations
 import numbers
 import time
 from collections.abc import Mapping
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from typing import Any
 
 import numpy as np
@@ -23,6 +23,7 @@ from fockmill.dynamics.krylov import (
     warn_top_weights,
 )
 from fockmill.problem.problem import Problem, prepare_observables, problem_and_arguments
+from fockmill.settings.progress import Progress, ProgressOption, make_progress
 from fockmill.settings.signatures import options_were_positional
 from fockmill.settings.threads import blas_threads
 from fockmill.spaces.checks import check_not_empty
@@ -303,6 +304,7 @@ def _ftlm(
     steps: int,
     seed: int,
     method: str,
+    reporter: Progress | None = None,
 ) -> tuple[Any, ...]:
     space = problem.space
     modes, masks = _masks(space)
@@ -320,7 +322,9 @@ def _ftlm(
     # Per sample: the temperatures where only its lowest Ritz level counts, and there
     # the averages in that level (the symmetric form, see _lowest_level).
     low: list[tuple[npt.NDArray[np.bool_], dict[str, complex], list[float]]] = []
-    for _ in range(samples):
+    for sample in range(samples):
+        if reporter is not None:
+            reporter.update(step=sample, products=hmap.products)
         r = rng.standard_normal(dim)
         if complex_h:
             r = r + 1j * rng.standard_normal(dim)
@@ -342,6 +346,8 @@ def _ftlm(
         mask_terms = [first * (u.T @ np.asarray(d[:n])) for d in mask_dots]
         per_sample.append((eps, first * first, obs_terms, mask_terms))
         low.append(_lowest_level(hmap, r, eps, u, t, operators, masks, dim))
+    if reporter is not None:
+        reporter.update(step=samples, products=hmap.products)
     e_min = min(float(np.min(s[0])) for s in per_sample)
     resolution = _resolution(np.concatenate([s[0] for s in per_sample]), dim)
     z = np.zeros((samples, t.size))
@@ -407,6 +413,7 @@ def thermal(
     threads: int | None = None,
     memory_limit: int | None = None,
     cutoff_warning: float | None = 1e-6,
+    progress: ProgressOption = None,
 ) -> Thermal:
     """Canonical averages ``Tr(O e^{−H/T}) / Tr(e^{−H/T})`` in a space (k_B = 1).
 
@@ -439,6 +446,10 @@ def thermal(
     cutoff_warning : float or None
         Warn (:class:`~fockmill.exceptions.CutoffWarning`) when the ensemble puts more
         than this weight on a truncating cutoff at any temperature; None disables it.
+    progress : bool, callable or None
+        Progress reports (see :func:`fockmill.lowest_levels`): FTLM reports before each
+        random vector and at the end (the bar counts vectors); exact diagonalisation
+        reports once, at the end.
 
     Returns
     -------
@@ -519,8 +530,44 @@ def thermal(
                 f"method='exact' diagonalises fully and has no use for {', '.join(ignored)}; "
                 "drop them, or pass method='ftlm' to sample"
             )
+    n_samples = DEFAULT_SAMPLES if samples is None else int(samples)
+    reporter = make_progress(
+        progress, "thermal", total=n_samples if chosen == "ftlm" else None, unit="vector"
+    )
+    try:
+        result = _thermal(problem, t, obs, chosen, n_samples, steps, seed, product_method, reporter)
+    finally:
+        if reporter is not None:
+            reporter.close()
+    result = replace(result, seconds=time.perf_counter() - t_start)
+    top = result.top_weights
+    if top.size:
+        warn_top_weights(
+            space,
+            np.nanmax(np.where(np.isnan(top), -np.inf, top), axis=0),
+            cutoff_warning,
+            "the thermal ensemble",
+        )
+    return result
+
+
+def _thermal(
+    problem: Problem,
+    t: npt.NDArray[np.float64],
+    obs: dict[str, Problem],
+    chosen: str,
+    n_samples: int,
+    steps: int | None,
+    seed: int,
+    product_method: str,
+    reporter: Progress | None,
+) -> Thermal:
+    """:func:`thermal` once the method is chosen (``seconds`` is set by the caller)."""
+    space = problem.space
     if chosen == "exact":
         energy, heat, values, top = _exact(problem, t, obs)
+        if reporter is not None:
+            reporter.update(step=1)
         zeros = np.zeros(t.size)
         result = Thermal(
             temperatures=t,
@@ -534,13 +581,12 @@ def thermal(
             method="exact",
             samples=0,
             steps=0,
-            seconds=time.perf_counter() - t_start,
+            seconds=0.0,
         )
     else:
-        n_samples = DEFAULT_SAMPLES if samples is None else int(samples)
         n_steps = DEFAULT_STEPS if steps is None else int(steps)
         energy, energy_err, heat, heat_err, values, value_errors, top = _ftlm(
-            problem, t, obs, n_samples, n_steps, int(seed), product_method
+            problem, t, obs, n_samples, n_steps, int(seed), product_method, reporter
         )
         result = Thermal(
             temperatures=t,
@@ -554,13 +600,6 @@ def thermal(
             method="ftlm",
             samples=n_samples,
             steps=min(n_steps, space.dim),
-            seconds=time.perf_counter() - t_start,
-        )
-    if top.size:
-        warn_top_weights(
-            space,
-            np.nanmax(np.where(np.isnan(top), -np.inf, top), axis=0),
-            cutoff_warning,
-            "the thermal ensemble",
+            seconds=0.0,
         )
     return result

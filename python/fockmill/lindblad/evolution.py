@@ -22,6 +22,7 @@ from fockmill.lindblad.liouvillian import (
     trace_product,
 )
 from fockmill.problem.memory import available_memory
+from fockmill.settings.progress import ProgressOption, make_progress
 
 __all__ = ["DensityEvolution", "check_times", "evolve_density"]
 
@@ -107,6 +108,7 @@ def evolve_density(
     split_sectors: bool | None = None,
     threads: int | None = None,
     memory_limit: int | None = None,
+    progress: ProgressOption = None,
 ) -> DensityEvolution:
     """Integrate ``dρ/dt = −i[H, ρ] + Σ_k γ_k (L_k ρ L_k† − ½{L_k†L_k, ρ})`` (ħ = 1).
 
@@ -130,6 +132,9 @@ def evolve_density(
     split_sectors : bool or None
         Evolve number-sector blocks only (None: when the structure applies and ``ρ(0)``
         has no coherence between sectors, which the evolution then never creates).
+    progress : bool, callable or None
+        Progress reports (see :func:`fockmill.lowest_levels`): a record after each
+        integrator step with the time reached (``products``: Liouvillian applications).
 
     Returns
     -------
@@ -204,20 +209,29 @@ def evolve_density(
         k += 1
     evaluations = 0
     steps = 0
-    if k < t.size:
-        solver = DOP853(rhs, 0.0, x, float(t[-1]), rtol=tol, atol=tol)
-        while k < t.size:
-            message = solver.step()
-            if solver.status == "failed":
-                raise ConvergenceError(f"the integrator failed at t = {solver.t:.6g}: {message}")
-            steps += 1
-            if k < t.size and t[k] <= solver.t:
-                dense = solver.dense_output()
-                while k < t.size and t[k] <= solver.t:
-                    record(solver.y if t[k] == solver.t else dense(float(t[k])))
-                    k += 1
-        evaluations = solver.nfev
-        x = solver.y
+    reporter = make_progress(progress, "evolve_density", total=float(t[-1]), unit="time")
+    try:
+        if k < t.size:
+            solver = DOP853(rhs, 0.0, x, float(t[-1]), rtol=tol, atol=tol)
+            while k < t.size:
+                message = solver.step()
+                if solver.status == "failed":
+                    raise ConvergenceError(
+                        f"the integrator failed at t = {solver.t:.6g}: {message}"
+                    )
+                steps += 1
+                if k < t.size and t[k] <= solver.t:
+                    dense = solver.dense_output()
+                    while k < t.size and t[k] <= solver.t:
+                        record(solver.y if t[k] == solver.t else dense(float(t[k])))
+                        k += 1
+                if reporter is not None:
+                    reporter.update(step=steps, products=solver.nfev, time_reached=solver.t)
+            evaluations = solver.nfev
+            x = solver.y
+    finally:
+        if reporter is not None:
+            reporter.close()
     values: dict[str, npt.NDArray[Any]] = {}
     for name, (_p, herm) in obs.items():
         arr = np.asarray(raw[name], dtype=np.complex128)

@@ -18,6 +18,7 @@ from fockmill.lindblad.liouvillian import (
     trace_product,
 )
 from fockmill.problem.memory import available_memory
+from fockmill.settings.progress import Progress, ProgressOption, make_progress
 
 __all__ = ["StationaryState", "choose_stationary_method", "stationary_state"]
 
@@ -319,6 +320,7 @@ def _solve_iterative(
     restart: int,
     guess: Any,
     preconditioner: str = "auto",
+    reporter: Progress | None = None,
 ) -> tuple[list[Any], int, str]:
     from scipy.sparse.linalg import LinearOperator, gmres
 
@@ -340,9 +342,11 @@ def _solve_iterative(
     x0 = e if guess is None else liou.to_real(guess)
     count = 0
 
-    def callback(_res: Any) -> None:
+    def callback(res: Any) -> None:
         nonlocal count
         count += 1
+        if reporter is not None:
+            reporter.update(step=count, products=liou.products, residual=float(res))
 
     from fockmill.settings.threads import blas_threads
 
@@ -386,6 +390,7 @@ def stationary_state(
     threads: int | None = None,
     memory_limit: int | None = None,
     jump_cache: dict[Any, Any] | None = None,
+    progress: ProgressOption = None,
 ) -> StationaryState:
     """The stationary state ``𝓛ρ = 0``, ``Tr ρ = 1`` of a Lindblad master equation.
 
@@ -421,6 +426,9 @@ def stationary_state(
     jump_cache : dict, optional
         A dict (empty at first) that keeps the compiled jump operators between calls on
         the same space, e.g. along a scan of one model (sweeps pass one).
+    progress : bool, callable or None
+        Progress reports (see :func:`fockmill.lowest_levels`): a record after each GMRES
+        iteration (with its preconditioned residual) and at the end.
 
     Returns
     -------
@@ -509,17 +517,24 @@ def stationary_state(
             )
     null_dim: int | None = None
     iterations = 0
-    if chosen == "dense":
-        blocks, null_dim = _solve_dense(liou)
-    elif chosen == "sparse":
-        blocks = _solve_sparse(liou)
-    else:
-        blocks, iterations, used = _solve_iterative(
-            liou, float(tol), max_iterations, restart, guess, preconditioner
-        )
-        chosen = f"iterative ({used})"
-    blocks = _normalised(liou, blocks)
-    residual = liou.residual(blocks)
+    reporter = make_progress(progress, "stationary_state", unit="iteration")
+    try:
+        if chosen == "dense":
+            blocks, null_dim = _solve_dense(liou)
+        elif chosen == "sparse":
+            blocks = _solve_sparse(liou)
+        else:
+            blocks, iterations, used = _solve_iterative(
+                liou, float(tol), max_iterations, restart, guess, preconditioner, reporter
+            )
+            chosen = f"iterative ({used})"
+        blocks = _normalised(liou, blocks)
+        residual = liou.residual(blocks)
+        if reporter is not None:
+            reporter.update(step=iterations, products=liou.products, residual=residual)
+    finally:
+        if reporter is not None:
+            reporter.close()
     return StationaryState(
         blocks=blocks,
         spaces=liou.spaces,

@@ -28,6 +28,7 @@ from fockmill.lindblad.evolution import check_times
 from fockmill.lindblad.jumps import Jump, check_jumps
 from fockmill.problem.problem import Problem, as_problem, prepare_observables
 from fockmill.settings.checks import check_positive_int
+from fockmill.settings.progress import ProgressOption, make_progress
 
 __all__ = ["Trajectories", "sample_trajectories"]
 
@@ -220,6 +221,7 @@ def sample_trajectories(
     chunk: int | None = None,
     tol: float = 1e-8,
     threads: int | None = None,
+    progress: ProgressOption = None,
 ) -> Trajectories:
     """Average observables over quantum-jump trajectories.
 
@@ -253,6 +255,10 @@ def sample_trajectories(
         Relative and absolute tolerance of the integrator (DOP853) between jumps.
     threads : int, optional
         Native threads per product (in executor workers default 1).
+    progress : bool, callable or None
+        Progress reports (see :func:`fockmill.lowest_levels`): a record after each
+        trajectory (with an executor: after each finished chunk); the bar counts
+        trajectories.
 
     Returns
     -------
@@ -310,19 +316,29 @@ def sample_trajectories(
         )
 
     results: list[tuple[int, dict[str, npt.NDArray[np.complex128]], int]] = []
-    if executor is None:
-        runner = _Runner(task((), problem.threads), problem)
-        results = [(i, *runner.run(i)) for i in range(count)]
-    else:
-        if not hasattr(executor, "submit"):
-            raise TypeError(
-                "executor must have a submit method (a concurrent.futures.Executor or a "
-                f"dask.distributed.Client); got {type(executor).__name__}"
-            )
-        worker_threads = 1 if threads is None else threads
-        futures = [executor.submit(_run_task, task(g, worker_threads)) for g in groups]
-        for f in futures:
-            results.extend(f.result())
+    if executor is not None and not hasattr(executor, "submit"):
+        raise TypeError(
+            "executor must have a submit method (a concurrent.futures.Executor or a "
+            f"dask.distributed.Client); got {type(executor).__name__}"
+        )
+    reporter = make_progress(progress, "sample_trajectories", total=count, unit="trajectory")
+    try:
+        if executor is None:
+            runner = _Runner(task((), problem.threads), problem)
+            for i in range(count):
+                results.append((i, *runner.run(i)))
+                if reporter is not None:
+                    reporter.update(step=len(results))
+        else:
+            worker_threads = 1 if threads is None else threads
+            futures = [executor.submit(_run_task, task(g, worker_threads)) for g in groups]
+            for f in futures:
+                results.extend(f.result())
+                if reporter is not None:
+                    reporter.update(step=len(results))
+    finally:
+        if reporter is not None:
+            reporter.close()
     results.sort(key=lambda r: r[0])
     names = [name for name, _ in obs]
     hermitian = {name: e.is_hermitian() for name, e in obs}

@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import re
 import time
+from collections.abc import Mapping
 from dataclasses import dataclass
 from typing import TYPE_CHECKING, Any, Literal
 
@@ -21,11 +22,14 @@ from fockmill.exceptions import (
 from fockmill.observables.observe import check_vector, top_level_weights
 from fockmill.observables.truncation import warn_cutoff_weights
 from fockmill.problem.memory import MemoryEstimate, size_limit_message
+from fockmill.problem.runs import array_hash, hamiltonian_hash, native_hooks, open_checkpoint
 from fockmill.settings.checks import (
     METHODS,
 )
+from fockmill.settings.progress import Progress, ProgressOption, make_progress
 from fockmill.settings.solver import SolverSettings
 from fockmill.settings.threads import blas_threads
+from fockmill.store.checkpoint import DEFAULT_CHECKPOINT_EVERY, Checkpoint, CheckpointState
 
 if TYPE_CHECKING:
     from fockmill.problem.problem import Problem
@@ -261,16 +265,21 @@ class _Counted(LinearOperator):  # type: ignore[misc]
     stops the solver (:class:`_ProductLimit`) before it exceeds ``limit`` of them:
     eigsh's own ``maxiter`` counts restarts, each of many products."""
 
-    def __init__(self, inner: Any, limit: int | None = None) -> None:
+    def __init__(
+        self, inner: Any, limit: int | None = None, reporter: Progress | None = None
+    ) -> None:
         self.inner = inner
         self.products = 0
         self.limit = limit
+        self.reporter = reporter
         super().__init__(dtype=np.dtype(inner.dtype), shape=inner.shape)
 
     def _spend(self, count: int) -> None:
         if self.limit is not None and self.products + count > self.limit:
             raise _ProductLimit
         self.products += count
+        if self.reporter is not None:
+            self.reporter.update(step=self.products, products=self.products)
 
     def _matvec(self, x: npt.NDArray[Any]) -> npt.NDArray[Any]:
         self._spend(1)
@@ -295,6 +304,7 @@ def _eigsh_levels(
     v0: npt.ArrayLike | None,
     max_iterations: int | None,
     seed: int,
+    reporter: Progress | None = None,
 ) -> tuple[npt.NDArray[np.float64], npt.NDArray[Any], npt.NDArray[np.float64], _Counted | None]:
     """Energies, vectors, residuals and the (counting) operator used, for the eigsh and
     dense methods (the operator is None for dense)."""
@@ -312,7 +322,7 @@ def _eigsh_levels(
             f"method; this one has {dim}: use method='dense'"
         )
     inner = problem.matrix() if method == "csr" else problem.operator()
-    target = _Counted(inner, max_iterations)
+    target = _Counted(inner, max_iterations, reporter)
     start = _start_vector(v0, problem, seed)
     if start is None:
         start = np.random.default_rng(seed).standard_normal(dim)
@@ -510,10 +520,12 @@ def _native_ground(
     seed: int,
     max_iterations: int | None,
     store_matrix: bool | None,
+    hooks: Mapping[str, Any] | None = None,
 ) -> tuple[float, npt.NDArray[Any], float, int, int]:
     """The four-vector Lanczos in Rust: (energy, vector, residual, steps, products).
     Stored or matrix-free as the core decides from ``store_matrix`` and the memory
-    limit (see :func:`_store_matrix`)."""
+    limit (see :func:`_store_matrix`). ``hooks``: progress, snapshots and a resumed
+    state (:func:`fockmill.problem.runs.native_hooks`)."""
     start = _start_vector(v0, problem, seed, mix_noise=False)
     # Each Lanczos step costs about two products (the second pass regenerates the
     # Krylov vectors), so a product budget allows half as many steps.
@@ -528,6 +540,7 @@ def _native_ground(
         threads=problem.pool,
         store=store_matrix,
         memory_limit=problem.memory_limit,
+        **(hooks or {}),
     )
     if not found.converged:
         raise ConvergenceError(
@@ -557,6 +570,7 @@ def _native_levels(
     seed: int,
     max_iterations: int | None,
     store_matrix: bool | None,
+    hooks: Mapping[str, Any] | None = None,
 ) -> tuple[npt.NDArray[np.float64], npt.NDArray[Any], npt.NDArray[np.float64], int]:
     """Thick-restart Lanczos in Rust for ``k >= 2`` levels (every degenerate copy that
     fits in ``k``): (energies, vectors, residuals, products). Stored or matrix-free as
@@ -575,6 +589,7 @@ def _native_levels(
         threads=problem.pool,
         store=store_matrix,
         memory_limit=problem.memory_limit,
+        **(hooks or {}),
     )
     energies, residuals = found.energies, found.residuals
     if not found.converged:
@@ -606,6 +621,82 @@ def _require_converged(
             )
 
 
+def _run_settings(
+    method: str,
+    tol: float,
+    v0: npt.ArrayLike | None,
+    seed: int,
+    max_iterations: int | None,
+    store_matrix: bool | None,
+    **more: Any,
+) -> dict[str, Any]:
+    """The settings a checkpoint must match (everything that changes the numbers)."""
+    return {
+        "method": method,
+        "tol": tol,
+        "seed": seed,
+        "max_iterations": max_iterations,
+        "store_matrix": store_matrix,
+        "v0": array_hash(v0),
+        **more,
+    }
+
+
+def _checkpoint(
+    problem: Problem,
+    task: str,
+    checkpoint: object,
+    checkpoint_every: float,
+    settings: Mapping[str, Any],
+) -> Checkpoint | None:
+    if checkpoint is None:
+        return None
+    if problem._ready_matrix is not None:
+        raise ValueError(
+            "checkpoint= needs a problem compiled from an expression (fm.prepare or "
+            "expr, space); this one carries a matrix made elsewhere"
+        )
+    return open_checkpoint(
+        checkpoint,
+        checkpoint_every,
+        task=task,
+        space=problem.space,
+        hamiltonian=hamiltonian_hash(problem.expr),
+        settings=settings,
+    )
+
+
+def _levels_from(saved: CheckpointState, t0: float) -> Levels:
+    """The finished result kept in a checkpoint."""
+    energies = np.asarray(saved.numbers["energies"], dtype=np.float64)
+    return Levels(
+        energies=energies,
+        vectors=saved.array("vectors"),
+        residuals=np.asarray(saved.numbers["residuals"], dtype=np.float64),
+        method=saved.texts["method"],
+        products=saved.integers["products"],
+        seconds=time.perf_counter() - t0,
+        degeneracies=tuple(int(g) for g in saved.numbers["degeneracies"]),
+    )
+
+
+def _save_levels(checkpoint: Checkpoint | None, levels: Levels) -> None:
+    if checkpoint is None:
+        return
+    checkpoint.save(
+        status="finished",
+        solver="result",
+        integers={"products": levels.products},
+        numbers={
+            "energies": levels.energies,
+            "residuals": levels.residuals,
+            "degeneracies": np.asarray(levels.degeneracies, dtype=np.float64),
+        },
+        texts={"method": levels.method},
+        vectors={"vectors": levels.vectors},
+    )
+
+
 def solve_levels(
     problem: Problem,
     k: int = 4,
@@ -616,23 +707,62 @@ def solve_levels(
     seed: int = 0,
     max_iterations: int | None = None,
     store_matrix: bool | None = None,
+    progress: ProgressOption = None,
+    checkpoint: object = None,
+    checkpoint_every: float = DEFAULT_CHECKPOINT_EVERY,
 ) -> Levels:
     """:func:`lowest_levels` on a prepared problem."""
     t0 = time.perf_counter()
     _validate(k, method, tol, problem, v0, seed, max_iterations)
-    chosen = _pick(problem, k, method)
+    settings = _run_settings(method, tol, v0, seed, max_iterations, store_matrix, k=int(k))
+    ck = _checkpoint(problem, "lowest_levels", checkpoint, checkpoint_every, settings)
+    if ck is not None and ck.finished is not None:
+        return _levels_from(ck.finished, t0)
+    reporter = make_progress(progress, "lowest_levels")
+    try:
+        levels = _solve_levels(
+            problem, k, method, tol, v0, seed, max_iterations, store_matrix, reporter, ck, t0
+        )
+    finally:
+        if ck is not None:
+            ck.abort()
+        if reporter is not None:
+            reporter.close()
+    _save_levels(ck, levels)
+    return levels
+
+
+def _solve_levels(
+    problem: Problem,
+    k: int,
+    method: str,
+    tol: float,
+    v0: npt.ArrayLike | None,
+    seed: int,
+    max_iterations: int | None,
+    store_matrix: bool | None,
+    reporter: Progress | None,
+    ck: Checkpoint | None,
+    t0: float,
+) -> Levels:
+    solver = "ground" if k == 1 else "levels"
+    resuming = ck is not None and ck.running(solver) is not None
+    chosen = "lanczos" if resuming else _pick(problem, k, method)
     if chosen == "lanczos":
+        hooks = native_hooks(reporter, ck, solver)
         if k == 1:
             energy, vector, residual, _, products = _native_ground(
-                problem, tol, v0, seed, max_iterations, store_matrix
+                problem, tol, v0, seed, max_iterations, store_matrix, hooks
             )
             energies = np.array([energy])
             vectors = vector[:, np.newaxis]
             residuals = np.array([residual])
         else:
             energies, vectors, residuals, products = _native_levels(
-                problem, k, tol, v0, seed, max_iterations, store_matrix
+                problem, k, tol, v0, seed, max_iterations, store_matrix, hooks
             )
+        if reporter is not None:
+            reporter.update(step=products, products=products, residual=float(np.max(residuals)))
         return Levels(
             energies=energies,
             vectors=vectors,
@@ -643,7 +773,7 @@ def solve_levels(
             degeneracies=_degeneracy_groups(energies, max(1e3 * tol, 1e-9)),
         )
     energies, vectors, residuals, target = _eigsh_levels(
-        problem, k, chosen, tol, v0, max_iterations, seed
+        problem, k, chosen, tol, v0, max_iterations, seed, reporter
     )
     _require_converged(chosen, energies, residuals, tol)
     products = 0 if target is None else target.products
@@ -666,6 +796,39 @@ def _warn_cutoff(space: Any, vector: npt.NDArray[Any], threshold: float | None) 
     warn_cutoff_weights(space, weights, threshold, "the ground state", stacklevel=4)
 
 
+def _ground_from(saved: CheckpointState, t0: float) -> GroundState:
+    """The finished result kept in a checkpoint."""
+    degeneracy = saved.integers["degeneracy"]
+    return GroundState(
+        energy=float(saved.numbers["energy"][0]),
+        vector=saved.array("vector"),
+        residual=float(saved.numbers["residual"][0]),
+        method=saved.texts["method"],
+        products=saved.integers["products"],
+        iterations=saved.integers["iterations"],
+        seconds=time.perf_counter() - t0,
+        degeneracy=None if degeneracy < 0 else degeneracy,
+        converged=True,
+    )
+
+
+def _save_ground(checkpoint: Checkpoint | None, found: GroundState) -> None:
+    if checkpoint is None:
+        return
+    checkpoint.save(
+        status="finished",
+        solver="result",
+        integers={
+            "products": found.products,
+            "iterations": found.iterations,
+            "degeneracy": -1 if found.degeneracy is None else found.degeneracy,
+        },
+        numbers={"energy": [found.energy], "residual": [found.residual]},
+        texts={"method": found.method},
+        vectors={"vector": found.vector},
+    )
+
+
 def solve_ground(
     problem: Problem,
     *,
@@ -676,16 +839,59 @@ def solve_ground(
     max_iterations: int | None = None,
     cutoff_warning: float | None = 1e-6,
     store_matrix: bool | None = None,
+    progress: ProgressOption = None,
+    checkpoint: object = None,
+    checkpoint_every: float = DEFAULT_CHECKPOINT_EVERY,
 ) -> GroundState:
     """:func:`ground_state` on a prepared problem."""
     t0 = time.perf_counter()
     _validate(1, method, tol, problem, v0, seed, max_iterations)
-    chosen = _pick(problem, 1, method)
+    settings = _run_settings(method, tol, v0, seed, max_iterations, store_matrix)
+    ck = _checkpoint(problem, "ground_state", checkpoint, checkpoint_every, settings)
+    if ck is not None and ck.finished is not None:
+        found = _ground_from(ck.finished, t0)
+    else:
+        reporter = make_progress(progress, "ground_state")
+        try:
+            found = _solve_ground(
+                problem, method, tol, v0, seed, max_iterations, store_matrix, reporter, ck, t0
+            )
+        finally:
+            if ck is not None:
+                ck.abort()
+            if reporter is not None:
+                reporter.close()
+        _save_ground(ck, found)
+    _warn_cutoff(problem.space, found.vector, cutoff_warning)
+    return found
+
+
+def _solve_ground(
+    problem: Problem,
+    method: str,
+    tol: float,
+    v0: npt.ArrayLike | None,
+    seed: int,
+    max_iterations: int | None,
+    store_matrix: bool | None,
+    reporter: Progress | None,
+    ck: Checkpoint | None,
+    t0: float,
+) -> GroundState:
+    resuming = ck is not None and ck.running("ground") is not None
+    chosen = "lanczos" if resuming else _pick(problem, 1, method)
     if chosen == "lanczos":
         energy, vector, residual, steps, products = _native_ground(
-            problem, tol, v0, seed, max_iterations, store_matrix
+            problem,
+            tol,
+            v0,
+            seed,
+            max_iterations,
+            store_matrix,
+            native_hooks(reporter, ck, "ground"),
         )
-        _warn_cutoff(problem.space, vector, cutoff_warning)
+        if reporter is not None:
+            reporter.update(step=steps, products=products, residual=residual)
         return GroundState(
             energy=energy,
             vector=vector,
@@ -705,7 +911,7 @@ def solve_ground(
         )
     else:
         energies, vectors, _, target = _eigsh_levels(
-            problem, 1, chosen, tol, v0, max_iterations, seed
+            problem, 1, chosen, tol, v0, max_iterations, seed, reporter
         )
         assert target is not None
         ncv = min(problem.dim, 20)
@@ -717,12 +923,11 @@ def solve_ground(
         products = target.products
     _require_converged(chosen, energies[:1], residuals[:1], tol)
     degeneracy = _degeneracy_groups(energies, degeneracy_tol)[0]
-    energy = float(energies[0])
-    vector = vectors[:, 0]
-    _warn_cutoff(problem.space, vector, cutoff_warning)
+    if reporter is not None:
+        reporter.update(step=products, products=products, residual=float(residuals[0]))
     return GroundState(
-        energy=energy,
-        vector=vector,
+        energy=float(energies[0]),
+        vector=vectors[:, 0],
         residual=float(residuals[0]),
         method=chosen,
         products=products,

@@ -190,6 +190,11 @@ class SweepSettings:
     max_iterations: int | None
     threads: int | None
     stationary: bool = False  # the model has jumps: points are stationary states
+    #: A checkpoint file for the solve of a single point (``fockmill solve
+    #: --checkpoint``); never stored with the results.
+    checkpoint: str | None = None
+    #: ``progress=`` of each point's solve (False: the sweep draws its own bar).
+    solver_progress: Any = False
 
     def as_meta(self) -> dict[str, object]:
         """The settings stored with the results (JSON-ready)."""

@@ -308,7 +308,10 @@ def solve_levels(
         "seed": settings.seed,
         "max_iterations": settings.max_iterations,
         "v0": start,
+        "progress": settings.solver_progress,
     }
+    if settings.checkpoint is not None:
+        options["checkpoint"] = settings.checkpoint
     if settings.levels == 1:
         found = problem.ground_state(cutoff_warning=None, **options)
         return _Solution(

@@ -14,6 +14,7 @@ order, executors and store.
 from __future__ import annotations
 
 import concurrent.futures as cf
+import dataclasses
 import os
 from collections.abc import Callable, Iterable, Mapping, Sequence
 from pathlib import Path
@@ -190,6 +191,8 @@ def run_sweep(
     solver_options: Mapping[str, object] | None = None,
     symmetry: SectorChoice | Sequence[tuple[ModePermutation, int | str]] | None = None,
     descriptions: Mapping[str, str] | None = None,
+    _checkpoint: str | None = None,
+    _solver_progress: Any = False,
 ) -> SweepTable:
     """Ground states of ``model`` at many parameter points, optionally saved as they finish.
 
@@ -339,6 +342,14 @@ def run_sweep(
         dim=None if sectors is None else sectors.solve_dim,
     )
     full, swept = full_points(model, points)
+    if _checkpoint is not None or _solver_progress is not False:
+        # Private (``fockmill solve``): one point's solve reports progress and keeps a
+        # checkpoint file, which identifies a single run.
+        if _checkpoint is not None and len(full) != 1:
+            raise ValueError("a checkpoint file keeps the solve of one point; pass one point")
+        settings = dataclasses.replace(
+            settings, checkpoint=_checkpoint, solver_progress=_solver_progress
+        )
     unit_map = _check_units(units)
     labels = tuple(mode_labels_of(model))
 

@@ -16,12 +16,14 @@ import time
 import warnings
 from collections.abc import Iterator, Mapping
 from dataclasses import dataclass
+from pathlib import Path
 from typing import Any
 
 import numpy as np
 
 from fockmill.algebra.expressions import LadderExpr, number
 from fockmill.files.modelfile import ModelFile, load_model_file
+from fockmill.settings.progress import ProgressOption
 from fockmill.store.workflows import WorkflowResult, meta_of
 
 __all__ = ["run_quench", "run_spectrum", "run_thermal"]
@@ -172,12 +174,22 @@ def _collected_warnings() -> Iterator[list[str]]:
         warnings.warn_explicit(item.message, item.category, item.filename, item.lineno)
 
 
+def _ground_checkpoint(checkpoint: str | os.PathLike[str] | None) -> Path | None:
+    """The initial ground state's checkpoint next to a quench's: ``STEM.ground.SUFFIX``."""
+    if checkpoint is None:
+        return None
+    path = Path(checkpoint)
+    return path.with_name(f"{path.stem}.ground{path.suffix}")
+
+
 def run_quench(
     model_file: Any,
     *,
     overrides: Mapping[str, float] | None = None,
     threads: int | None = None,
     memory_limit: int | None = None,
+    progress: ProgressOption = None,
+    checkpoint: str | os.PathLike[str] | None = None,
 ) -> WorkflowResult:
     """Evolve the ``[quench]`` initial state under the model and record observables.
 
@@ -192,6 +204,11 @@ def run_quench(
         Threads (default: ``[solver] threads``, else all cores).
     memory_limit : int, optional
         Bytes the computation may plan to use.
+    progress : bool, callable or None
+        Progress of the ground state and the evolution (see :func:`fockmill.evolve`).
+    checkpoint : str or path, optional
+        The evolution's checkpoint file (:func:`fockmill.evolve`); a ground-state initial
+        state keeps its own next to it, named ``STEM.ground.SUFFIX``.
 
     Returns
     -------
@@ -258,10 +275,20 @@ def run_quench(
             start = model.hamiltonian(**start_values)
             if start == h:  # the constant part itself, compiled once
                 ground = ground_state(
-                    problem, **{k: v for k, v in solver.items() if k != "threads"}
+                    problem,
+                    progress=progress,
+                    checkpoint=_ground_checkpoint(checkpoint),
+                    **{k: v for k, v in solver.items() if k != "threads"},
                 )
             else:
-                ground = ground_state(start, space, memory_limit=memory_limit, **solver)
+                ground = ground_state(
+                    start,
+                    space,
+                    memory_limit=memory_limit,
+                    progress=progress,
+                    checkpoint=_ground_checkpoint(checkpoint),
+                    **solver,
+                )
             psi0 = ground.vector
             summary["initial_energy"] = ground.energy
             summary["initial_residual"] = ground.residual
@@ -284,6 +311,8 @@ def run_quench(
             observables=observables,
             tol=spec.tol,
             cutoff_warning=solver["cutoff_warning"],
+            progress=progress,
+            checkpoint=checkpoint,
         )
     # ⟨H(t)⟩ = ⟨H0⟩ + Σ_k f_k(t) ⟨H_k⟩ from the parts recorded separately.
     energy = np.asarray(ev.values["#energy"], dtype=np.float64).copy()
@@ -467,6 +496,8 @@ def run_spectrum(
     overrides: Mapping[str, float] | None = None,
     threads: int | None = None,
     memory_limit: int | None = None,
+    progress: ProgressOption = None,
+    checkpoint: str | os.PathLike[str] | None = None,
 ) -> WorkflowResult:
     """``S(ω)`` of the ``[spectrum]`` operator in the model's ground state.
 
@@ -474,8 +505,10 @@ def run_spectrum(
     ----------
     model_file : ModelFile
         With a ``[spectrum]`` section.
-    overrides, threads, memory_limit
+    overrides, threads, memory_limit, progress
         As for :func:`run_quench`.
+    checkpoint : str or path, optional
+        The ground state's checkpoint file (:func:`fockmill.ground_state`).
 
     Returns
     -------
@@ -508,12 +541,23 @@ def run_spectrum(
     with _collected_warnings() as messages:
         # H on the space, H on the target and A are each compiled once for the whole run.
         problem = prepare(h, space, threads=solver["threads"], memory_limit=memory_limit)
-        ground = ground_state(problem, **{k: v for k, v in solver.items() if k != "threads"})
+        ground = ground_state(
+            problem,
+            progress=progress,
+            checkpoint=checkpoint,
+            **{k: v for k, v in solver.items() if k != "threads"},
+        )
         reference = ground.energy if spec.reference_energy is None else spec.reference_energy
         omegas = np.asarray(spec.omegas)
         start = spectral_start(problem, ground.vector, spec.operator, spec.target, reference)
         s = function_from_start(
-            start, omegas, eta=spec.eta, tol=spec.tol, max_steps=spec.max_steps, method="auto"
+            start,
+            omegas,
+            eta=spec.eta,
+            tol=spec.tol,
+            max_steps=spec.max_steps,
+            method="auto",
+            progress=progress,
         )
         arrays: dict[str, Any] = {"omegas": omegas, "S": s}
         # ‖Aψ‖² in the target space: ⟨ψ|A†A|ψ⟩ within the cutoffs (the sum rule of S).
@@ -620,6 +664,7 @@ def run_thermal(
     overrides: Mapping[str, float] | None = None,
     threads: int | None = None,
     memory_limit: int | None = None,
+    progress: ProgressOption = None,
 ) -> WorkflowResult:
     """Canonical averages on the ``[thermal]`` grid (k_B = 1).
 
@@ -627,7 +672,7 @@ def run_thermal(
     ----------
     model_file : ModelFile
         With a ``[thermal]`` section.
-    overrides, threads, memory_limit
+    overrides, threads, memory_limit, progress
         As for :func:`run_quench`.
 
     Returns
@@ -670,6 +715,7 @@ def run_thermal(
             ),
             threads=solver["threads"],
             memory_limit=memory_limit,
+            progress=progress,
         )
     count = temperatures.size
     populations, named = _split_populations(th.values, space.modes, count)

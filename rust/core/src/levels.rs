@@ -43,6 +43,7 @@ use crate::memory;
 use crate::parallel::{Interrupt, Runner};
 use crate::scalar::Scalar;
 use crate::vecops;
+use crate::watch::{Report, Restored, Snapshot, Unwatched, Watch};
 use rayon::prelude::*;
 
 /// Rows per reduction chunk (partial sums are added in chunk order).
@@ -183,6 +184,13 @@ struct Krylov<'a, S: Scalar, A: HermitianMap<S>> {
     restarts: usize,
     seed: u64,
     draws: u64,
+    /// Receives a report after every product and, when it asks, a snapshot at the next
+    /// thick restart of the first run.
+    watch: &'a dyn Watch<S>,
+    /// A snapshot was asked for and not yet saved.
+    wanted: bool,
+    /// The lowest residual estimate of the last Rayleigh–Ritz step (NaN before).
+    estimate: f64,
 }
 
 impl<'a, S: Scalar, A: HermitianMap<S>> Krylov<'a, S, A> {
@@ -345,6 +353,11 @@ impl<'a, S: Scalar, A: HermitianMap<S>> Krylov<'a, S, A> {
                     self.map.apply(x, w, self.runner, self.interrupt)?;
                 }
                 self.products += 1;
+                self.wanted |= self.watch.step(&Report {
+                    step: self.products,
+                    products: self.products,
+                    residual: self.estimate,
+                })?;
                 let (h, before, after) = self.orthogonalize(c + 1);
                 self.anorm = self.anorm.max(before);
                 *self.t_at(j, j) = h[c].re();
@@ -381,6 +394,7 @@ impl<'a, S: Scalar, A: HermitianMap<S>> Krylov<'a, S, A> {
             let na = self.na;
             let (theta, y) = symmetric_eigen(&self.t, self.m, na);
             let need = target - p;
+            self.estimate = (self.beta * y[na - 1]).abs();
             let mut nconv = 0;
             while nconv < need.min(na) {
                 let estimate = (self.beta * y[nconv * na + na - 1]).abs();
@@ -437,7 +451,82 @@ impl<'a, S: Scalar, A: HermitianMap<S>> Krylov<'a, S, A> {
             self.na = keep;
             let next = self.locked + keep;
             self.w_into_col(next, 1.0);
+            // A resumable point: the basis up to `next`, the arrowhead and the counters
+            // describe the iteration completely (only in the first run: the re-check's
+            // bookkeeping lives outside this struct).
+            if self.wanted && self.confirm_above.is_none() {
+                self.save(next + 1)?;
+            }
         }
+    }
+
+    /// Hand the state at a thick restart to the watcher: the first `rows` columns.
+    fn save(&mut self, rows: usize) -> CoreResult<()> {
+        let report = Report {
+            step: self.products,
+            products: self.products,
+            residual: self.estimate,
+        };
+        let snap = Snapshot {
+            solver: "levels",
+            integers: vec![
+                ("locked", self.locked as u64),
+                ("active", self.na as u64),
+                ("columns", self.m as u64),
+                ("products", self.products as u64),
+                ("restarts", self.restarts as u64),
+                ("draws", self.draws),
+            ],
+            numbers: vec![
+                ("energies", self.energies.clone()),
+                ("residuals", self.residuals.clone()),
+                ("projected", self.t.clone()),
+                ("scales", vec![self.anorm, self.lock_tol, self.estimate]),
+            ],
+            vectors: vec![("basis", rows, &self.basis[..rows * self.dim])],
+        };
+        self.watch.save(&report, &snap)?;
+        self.wanted = false;
+        Ok(())
+    }
+
+    /// Put a saved state (see [`Krylov::save`]) in place of the start.
+    fn restore(&mut self, mut saved: Restored<S>) -> CoreResult<()> {
+        let locked = saved.integer("locked")?;
+        let na = saved.integer("active")?;
+        let rows = locked + na + 1;
+        let energies = saved.numbers("energies")?.to_vec();
+        let residuals = saved.numbers("residuals")?.to_vec();
+        let t = saved.numbers("projected")?.to_vec();
+        let scales = saved.numbers("scales")?.to_vec();
+        if saved.integer("columns")? != self.m
+            || rows > self.m.min(self.dim)
+            || energies.len() != locked
+            || residuals.len() != locked
+            || t.len() != self.m * self.m
+            || scales.len() != 3
+        {
+            return Err(CoreError::InvalidArgument(
+                "the saved state of the levels solver does not fit this problem (basis size, \
+                 locked levels or projected matrix differ); delete the checkpoint and run again"
+                    .into(),
+            ));
+        }
+        let block = saved.take_vector("basis", rows * self.dim)?;
+        self.basis[..rows * self.dim].copy_from_slice(&block);
+        drop(block);
+        self.locked = locked;
+        self.na = na;
+        self.energies = energies;
+        self.residuals = residuals;
+        self.t = t;
+        self.anorm = scales[0];
+        self.lock_tol = scales[1];
+        self.estimate = scales[2];
+        self.products = saved.integer("products")?;
+        self.restarts = saved.integer("restarts")?;
+        self.draws = saved.integer("draws")? as u64;
+        Ok(())
     }
 
     /// Rotate columns `[p, p + na)` onto `cols` Ritz vectors (`y` column-major `na × na`).
@@ -549,6 +638,9 @@ impl<'a, S: Scalar, A: HermitianMap<S>> Krylov<'a, S, A> {
                 RunEnd::Locked => {}
                 other => return Ok(other),
             }
+            // Every column locked in this run, and any a resumed run locked before its
+            // snapshot (their residuals are still unmeasured).
+            let first = (0..first).find(|&j| self.residuals[j].is_nan()).unwrap_or(first);
             for j in first..self.locked {
                 self.verify(j)?;
             }
@@ -632,6 +724,31 @@ pub fn lowest_levels<S: Scalar, A: HermitianMap<S>>(
     runner: &Runner,
     interrupt: &dyn Interrupt,
 ) -> CoreResult<LevelsOutcome<S>> {
+    lowest_levels_watched(map, k, start, opts, runner, interrupt, &Unwatched, None)
+}
+
+/// [`lowest_levels`] reporting to `watch` after every product and, when it asks,
+/// handing it the resumable state at the next thick restart of the first run (the one
+/// that locks the `k` levels; the deflated re-check after it is short and not saved):
+/// the locked and kept columns with the next Lanczos vector (`basis`, `locked +
+/// active + 1` vectors), the projected matrix, the locked energies and the counters. Given
+/// such a state as `resume` (same map, `k` and options; `start` is then ignored), the
+/// solver continues from it and returns what an uninterrupted run returns, bit for bit.
+///
+/// # Errors
+/// As [`lowest_levels`]; whatever `watch` returns; [`CoreError::InvalidArgument`] or
+/// [`CoreError::Shape`] for a state that does not fit this problem.
+#[allow(clippy::too_many_arguments)]
+pub fn lowest_levels_watched<S: Scalar, A: HermitianMap<S>>(
+    map: &A,
+    k: usize,
+    start: Option<Vec<S>>,
+    opts: &LevelsOptions,
+    runner: &Runner,
+    interrupt: &dyn Interrupt,
+    watch: &dyn Watch<S>,
+    resume: Option<Restored<S>>,
+) -> CoreResult<LevelsOutcome<S>> {
     let dim = map.dim();
     if !(opts.tol > 0.0 && opts.tol.is_finite()) {
         return Err(CoreError::InvalidArgument(format!(
@@ -699,10 +816,14 @@ pub fn lowest_levels<S: Scalar, A: HermitianMap<S>>(
         restarts: 0,
         seed: opts.seed,
         draws: 0,
+        watch,
+        wanted: false,
+        estimate: f64::NAN,
     };
-    // Start vector in column 0.
-    match start {
-        Some(s) => {
+    // Start vector in column 0 (or the saved state).
+    match (resume, start) {
+        (Some(saved), _) => kr.restore(saved)?,
+        (None, Some(s)) => {
             if s.is_empty() || s.len() % dim != 0 {
                 return Err(CoreError::Shape(format!(
                     "start has {} elements; pass one vector of the space's dimension {dim} \
@@ -728,7 +849,7 @@ pub fn lowest_levels<S: Scalar, A: HermitianMap<S>>(
                 ));
             }
         }
-        None => {
+        (None, None) => {
             kr.restart_from(0);
         }
     }
@@ -1187,6 +1308,54 @@ mod tests {
         for r in 0..3 {
             let ay: f64 = (0..3).map(|c| a[r * 3 + c] * y[c]).sum();
             assert!((ay - theta[0] * y[r]).abs() < 1e-14);
+        }
+    }
+    #[test]
+    fn a_run_stopped_at_a_snapshot_resumes_to_the_same_bits() {
+        // Common practice, no source: the resumed run repeats the arithmetic of the
+        // uninterrupted one from the saved thick restart on.
+        use crate::watch::Capture;
+        let l = 3000;
+        let mut potential = vec![0.0; l];
+        vecops::fill_seeded(11, &mut potential);
+        let map = Disordered {
+            ring: Ring { l, j: 1.0 },
+            potential: potential.iter().map(|v| 2.0 * v).collect(),
+        };
+        let opts = LevelsOptions::default();
+        let whole = lowest_levels(&map, 3, None, &opts, &Runner::global(), &NoInterrupt).unwrap();
+        assert!(whole.restarts > 3, "too easy a test: {} restarts", whole.restarts);
+        for after in [5, whole.products / 2] {
+            let capture = Capture::new(after);
+            let stopped = lowest_levels_watched(
+                &map,
+                3,
+                None,
+                &opts,
+                &Runner::global(),
+                &NoInterrupt,
+                &capture,
+                None,
+            );
+            assert!(matches!(stopped, Err(CoreError::Interrupted)));
+            let saved = capture.saved.borrow_mut().take().expect("a snapshot");
+            let again = lowest_levels_watched(
+                &map,
+                3,
+                None,
+                &opts,
+                &Runner::global(),
+                &NoInterrupt,
+                &Unwatched,
+                Some(saved),
+            )
+            .unwrap();
+            assert_eq!(
+                whole.energies.iter().map(|e| e.to_bits()).collect::<Vec<_>>(),
+                again.energies.iter().map(|e| e.to_bits()).collect::<Vec<_>>()
+            );
+            assert_eq!(whole.vectors, again.vectors);
+            assert_eq!(whole.products, again.products);
         }
     }
 }

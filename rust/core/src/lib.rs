@@ -32,6 +32,7 @@ pub mod symmetry;
 pub mod terms;
 pub mod tridiag;
 pub mod vecops;
+pub mod watch;
 
 pub use error::{CoreError, CoreResult};
 pub use parallel::{Interrupt, NoInterrupt, Runner};

@@ -18,6 +18,7 @@ use crate::lanczos::{self, CsrMap, HermitianMap, LanczosOptions, LanczosOutcome}
 use crate::levels::{self, LevelsOptions, LevelsOutcome};
 use crate::parallel::{Interrupt, Runner};
 use crate::scalar::Scalar;
+use crate::watch::{Restored, Unwatched, Watch};
 
 /// Fraction of the memory limit a solve may plan to use.
 pub const MEMORY_BUDGET: f64 = 0.8;
@@ -204,11 +205,21 @@ struct Ground<'a, S> {
     opts: &'a LanczosOptions,
     runner: &'a Runner,
     interrupt: &'a dyn Interrupt,
+    watch: &'a dyn Watch<S>,
+    resume: Option<Restored<S>>,
 }
 
 impl<S: Scalar> SolveOn<S, LanczosOutcome<S>> for Ground<'_, S> {
     fn on<M: HermitianMap<S>>(self, map: &M) -> CoreResult<LanczosOutcome<S>> {
-        lanczos::ground_state(map, self.start, self.opts, self.runner, self.interrupt)
+        lanczos::ground_state_watched(
+            map,
+            self.start,
+            self.opts,
+            self.runner,
+            self.interrupt,
+            self.watch,
+            self.resume,
+        )
     }
 }
 
@@ -218,11 +229,40 @@ struct Lowest<'a, S> {
     opts: &'a LevelsOptions,
     runner: &'a Runner,
     interrupt: &'a dyn Interrupt,
+    watch: &'a dyn Watch<S>,
+    resume: Option<Restored<S>>,
 }
 
 impl<S: Scalar> SolveOn<S, LevelsOutcome<S>> for Lowest<'_, S> {
     fn on<M: HermitianMap<S>>(self, map: &M) -> CoreResult<LevelsOutcome<S>> {
-        levels::lowest_levels(map, self.k, self.start, self.opts, self.runner, self.interrupt)
+        levels::lowest_levels_watched(
+            map,
+            self.k,
+            self.start,
+            self.opts,
+            self.runner,
+            self.interrupt,
+            self.watch,
+            self.resume,
+        )
+    }
+}
+
+/// What a watched solve reports to and resumes from (see [`crate::watch`]).
+pub struct Watched<'a, S: Scalar> {
+    /// Receives reports and snapshots.
+    pub watch: &'a dyn Watch<S>,
+    /// A saved state to continue from.
+    pub resume: Option<Restored<S>>,
+}
+
+impl<S: Scalar> Watched<'_, S> {
+    /// Nothing reported, nothing resumed.
+    pub fn none() -> Self {
+        Watched {
+            watch: &Unwatched,
+            resume: None,
+        }
     }
 }
 
@@ -239,11 +279,30 @@ pub fn ground_state<S: Scalar, A: Solvable<S>>(
     runner: &Runner,
     interrupt: &dyn Interrupt,
 ) -> CoreResult<(LanczosOutcome<S>, bool)> {
+    ground_state_watched(op, storage, start, opts, runner, interrupt, Watched::none())
+}
+
+/// [`ground_state`] with reports, snapshots and a resumed state
+/// ([`lanczos::ground_state_watched`]).
+///
+/// # Errors
+/// As [`ground_state`] and [`lanczos::ground_state_watched`].
+pub fn ground_state_watched<S: Scalar, A: Solvable<S>>(
+    op: &A,
+    storage: &Storage,
+    start: Option<Vec<S>>,
+    opts: &LanczosOptions,
+    runner: &Runner,
+    interrupt: &dyn Interrupt,
+    watched: Watched<'_, S>,
+) -> CoreResult<(LanczosOutcome<S>, bool)> {
     let solve = Ground {
         start,
         opts,
         runner,
         interrupt,
+        watch: watched.watch,
+        resume: watched.resume,
     };
     run(op, storage, 1, runner, interrupt, solve)
 }
@@ -263,12 +322,33 @@ pub fn lowest_levels<S: Scalar, A: Solvable<S>>(
     runner: &Runner,
     interrupt: &dyn Interrupt,
 ) -> CoreResult<(LevelsOutcome<S>, bool)> {
+    lowest_levels_watched(op, storage, k, start, opts, runner, interrupt, Watched::none())
+}
+
+/// [`lowest_levels`] with reports, snapshots and a resumed state
+/// ([`levels::lowest_levels_watched`]).
+///
+/// # Errors
+/// As [`lowest_levels`] and [`levels::lowest_levels_watched`].
+#[allow(clippy::too_many_arguments)]
+pub fn lowest_levels_watched<S: Scalar, A: Solvable<S>>(
+    op: &A,
+    storage: &Storage,
+    k: usize,
+    start: Option<Vec<S>>,
+    opts: &LevelsOptions,
+    runner: &Runner,
+    interrupt: &dyn Interrupt,
+    watched: Watched<'_, S>,
+) -> CoreResult<(LevelsOutcome<S>, bool)> {
     let solve = Lowest {
         k,
         start,
         opts,
         runner,
         interrupt,
+        watch: watched.watch,
+        resume: watched.resume,
     };
     run(op, storage, k, runner, interrupt, solve)
 }
