@@ -70,6 +70,11 @@ def check_hermitian(expr: LadderExpr, what: str = "the Hamiltonian") -> None:
         )
 
 
+#: Below this dimension Krylov products use a stored scipy matrix whatever the kernel
+#: (per-call overhead dominates there: measured at 462 states, 1.4x slower matrix-free).
+SMALL_KRYLOV_DIM = 1 << 14
+
+
 def _budget(memory_limit: int | None, available: int | None) -> float:
     limit = memory_limit if memory_limit is not None else available
     return float("inf") if limit is None else MEMORY_BUDGET * limit
@@ -115,9 +120,11 @@ def hermitian_map(
     if method == "auto":
         # As the core's solvers decide (rust/core/src/solve.rs, Storage::decide): the
         # bipartite product kernel reads no matrix and beats a stored one (on complex
-        # vectors by about 1.5x at L = 11), so a matrix is stored only for the others.
+        # vectors by about 1.5x at L = 11), so a matrix is stored only for the others;
+        # but on small spaces a scipy product costs less than a native call's start-up.
         fits = estimate.build_peak_bytes + vector_bytes <= budget
-        chosen = "csr" if fits and problem.native.cut == 0 else "operator"
+        fast = estimate.dim >= SMALL_KRYLOV_DIM and problem.native.cut > 0
+        chosen = "csr" if fits and not fast else "operator"
     is_real = problem.is_real
     if chosen == "csr":
         matrix = problem.matrix()
