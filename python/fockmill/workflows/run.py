@@ -105,6 +105,19 @@ def _split_populations(
     return table.reshape(count, modes), rest
 
 
+def _quench_settings(spec: Any) -> dict[str, Any]:
+    """The ``[quench]`` settings every quench records (initial state, tol, populations)."""
+    return {
+        "initial": spec.initial.kind,
+        "initial_state": spec.initial.describe(),
+        "occupations": list(spec.initial.occupations),
+        "amplitudes": [[a.real, a.imag] for a in spec.initial.amplitudes],
+        "initial_parameters": dict(spec.initial.parameters),
+        "tol": spec.tol,
+        "populations": spec.populations,
+    }
+
+
 @dataclass(frozen=True)
 class _Run:
     """What every runner starts from: the file, its section and the parameter values."""
@@ -338,13 +351,7 @@ def run_quench(
         # ⟨H(t)⟩ changes under a ramp: its change is no accuracy check.
         del summary["energy_drift"]
     settings = {
-        "initial": spec.initial.kind,
-        "initial_state": spec.initial.describe(),
-        "occupations": list(spec.initial.occupations),
-        "amplitudes": [[a.real, a.imag] for a in spec.initial.amplitudes],
-        "initial_parameters": dict(spec.initial.parameters),
-        "tol": spec.tol,
-        "populations": spec.populations,
+        **_quench_settings(spec),
         "ramps": {
             name: {"times": list(t), "values": list(v)} for name, (t, v) in spec.ramps.items()
         },
@@ -475,13 +482,7 @@ def _open_quench(run: _Run, memory_limit: int | None) -> WorkflowResult:
         for name, values_of in named_errors.items():
             arrays[f"errors.{name}"] = np.asarray(values_of)
     settings = {
-        "initial": spec.initial.kind,
-        "initial_state": spec.initial.describe(),
-        "occupations": list(spec.initial.occupations),
-        "amplitudes": [[a.real, a.imag] for a in spec.initial.amplitudes],
-        "initial_parameters": dict(spec.initial.parameters),
-        "tol": spec.tol,
-        "populations": spec.populations,
+        **_quench_settings(spec),
         "ramps": {},
         "jumps": describe_jumps(model, values, model_file.jump_texts),
         "trajectories": spec.trajectories,
