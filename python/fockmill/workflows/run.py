@@ -144,17 +144,19 @@ class _Run:
         settings: dict[str, Any],
         summary: dict[str, Any],
         messages: list[str],
+        observables: dict[str, Any] | None = None,
     ) -> WorkflowResult:
-        """The result with its meta data (the run's seconds added to ``summary``)."""
+        """The result with its meta data (the run's seconds added to ``summary``);
+        ``observables`` defaults to the section's recorded observable texts."""
         summary["seconds"] = time.perf_counter() - self.started
-        texts = getattr(self.spec, "texts", {})
+        if observables is None:
+            observables = {k: list(v) for k, v in getattr(self.spec, "texts", {}).items()}
         meta = meta_of(
             self.model_file,
             self.kind,
             self.values,
             settings=settings,
-            # [spectrum]'s texts are its operator (in settings), not recorded observables.
-            observables={} if self.kind == "spectrum" else {k: list(v) for k, v in texts.items()},
+            observables=observables,
             summary=summary,
             warnings=messages,
         )
@@ -586,7 +588,8 @@ def run_spectrum(
         "target_total": target.total,
         "target_dim": target.dim,
     }
-    return run.finish(arrays, settings=settings, summary=summary, messages=messages)
+    # [spectrum]'s texts are its operator (in settings), not recorded observables.
+    return run.finish(arrays, settings=settings, summary=summary, messages=messages, observables={})
 
 
 def _momentum_map(run: _Run, memory_limit: int | None) -> WorkflowResult:
@@ -656,7 +659,8 @@ def _momentum_map(run: _Run, memory_limit: int | None) -> WorkflowResult:
         "orders": list(found.orders),
         "sector": choice.describe(),
     }
-    return run.finish(arrays, settings=settings, summary=summary, messages=messages)
+    # [spectrum]'s texts are its operator (in settings), not recorded observables.
+    return run.finish(arrays, settings=settings, summary=summary, messages=messages, observables={})
 
 
 def run_thermal(
