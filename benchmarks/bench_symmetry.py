@@ -44,10 +44,13 @@ import fockmill as fm
 from _common import bose_hubbard_ring, median_time, table, unit_filling
 
 
-def sector_of(sites: int) -> fm.SymmetricSpace:
-    """Momentum 0, reflection-even sector of the unit-filled ring."""
+def sector_of(sites: int, orbit_table: bool | None = None) -> fm.SymmetricSpace:
+    """Momentum 0, reflection-even sector of the unit-filled ring (``orbit_table`` as in
+    ``fm.SymmetricSpace``: None lets the library choose)."""
     return fm.SymmetricSpace(
-        unit_filling(sites), [(fm.ring_translation(sites), 0), (fm.ring_reflection(sites), 0)]
+        unit_filling(sites),
+        [(fm.ring_translation(sites), 0), (fm.ring_reflection(sites), 0)],
+        orbit_table=orbit_table,
     )
 
 
@@ -281,15 +284,24 @@ def side_row(sites: int, repeats: int, threads: int | None) -> list[str]:
     build) beside the full-space ones, same model, same process, same hour."""
     h = bose_hubbard_ring(sites)
     base = unit_filling(sites)
-    sector = sector_of(sites)
     load0 = os.getloadavg()[0]
+    t0 = time.perf_counter()
+    plain = sector_of(sites, orbit_table=False)
+    t_enum_plain = time.perf_counter() - t0
+    t0 = time.perf_counter()
+    sector = sector_of(sites, orbit_table=True)
+    t_enum = time.perf_counter() - t0
     op_s = fm.build_operator(h, sector, threads=threads)
+    op_p = fm.build_operator(h, plain, threads=threads)
     op_f = fm.build_operator(h, base, threads=threads)
     xs = np.random.default_rng(0).normal(size=sector.dim)
     xf = np.random.default_rng(0).normal(size=base.dim)
-    op_s @ xs  # first use prepares the kernels and faults the pages in
+    # First use prepares the kernels and faults the pages in; both sector paths agree.
+    if not np.array_equal(op_s @ xs, op_p @ xs):
+        raise SystemExit("the sector product differs with and without the orbit table")
     op_f @ xf
     t_sp, _ = median_time(lambda: op_s @ xs, repeats)
+    t_pp, _ = median_time(lambda: op_p @ xs, repeats)
     t_fp, _ = median_time(lambda: op_f @ xf, repeats)
     c_sp = cpu_time(lambda: op_s @ xs, repeats)
     c_fp = cpu_time(lambda: op_f @ xf, repeats)
@@ -302,6 +314,11 @@ def side_row(sites: int, repeats: int, threads: int | None) -> list[str]:
         str(sites),
         f"{base.dim:,}",
         f"{sector.dim:,}",
+        f"{t_enum_plain:.2f}",
+        f"{t_enum:.2f}",
+        f"{sector.orbit_table_bytes / 2**20:,.0f}",
+        f"{t_pp * 1e3:.1f}",
+        f"{t_pp / t_sp:.2f}",
         f"{t_sp * 1e3:.1f}",
         f"{t_fp * 1e3:.1f}",
         f"{ns_s:.0f}",
@@ -326,6 +343,11 @@ def side(sites_list: list[int], repeats: int, threads: int | None) -> None:
         "L=N",
         "base dim",
         "sector dim",
+        "enumerate s (no table)",
+        "enumerate s (table)",
+        "table MiB",
+        "no-table ms/prod",
+        "table speed-up",
         "sector ms/prod",
         "full ms/prod",
         "sector ns/row",
@@ -344,7 +366,9 @@ def side(sites_list: list[int], repeats: int, threads: int | None) -> None:
     print(
         f"\nmedians of {repeats} (products after one untimed warm-up); threads "
         f"{threads or os.cpu_count()}; sector = momentum 0, reflection-even (group of order "
-        "2L); row ratio = sector time per row / full-space time per row (target <= 3); "
+        "2L), with the orbit table; no-table = the same sector without it (the previous "
+        "kernel), table speed-up = its time / the table's; row ratio = sector time per row / "
+        "full-space time per row (target <= 3); "
         "cpu = process CPU time of all threads; load = 1-minute load average before-after "
         f"each size, on {os.cpu_count()} cores."
     )

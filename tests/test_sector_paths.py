@@ -115,6 +115,17 @@ def check_every_label(
         y1 = fm.build_operator(h, sector, threads=1) @ x[:, 0]
         y2 = fm.build_operator(h, sector, threads=2) @ x[:, 0]
         assert np.array_equal(y1, y2)
+        # The orbit table (kept by default at these sizes) and the search for the
+        # smallest image give the same sector, matrix and products to the bit.
+        assert sector.orbit_table_bytes > 0
+        plain = fm.SymmetricSpace(base, pairs, orbit_table=False)
+        assert plain.orbit_table_bytes == 0
+        assert np.array_equal(plain.representatives(), sector.representatives())
+        other = fm.build_matrix(h, plain, threads=2)
+        assert np.array_equal(other.indptr, one.indptr)
+        assert np.array_equal(other.indices, one.indices)
+        assert np.array_equal(other.data, one.data)
+        assert np.array_equal(fm.build_operator(h, plain, threads=2) @ x[:, 0], y1)
         np.testing.assert_allclose(y1, want @ x[:, 0], atol=1e-10)
         np.testing.assert_allclose(
             fm.build_operator(h, sector, threads=2) @ x, want @ x, atol=1e-10
@@ -153,3 +164,50 @@ def test_tori_every_label(rows: int, cols: int, total: int, kind: str) -> None:
             pytest.skip("the diagonal reflection needs a square torus")
         d = torus_map(rows, cols, lambda r, c: (c, r))
         assert check_every_label(base, h, [tx, ty, d]) >= 2
+
+
+def test_square_torus_space_group_holds_the_ground_state() -> None:
+    """3 × 3 torus, 3 bosons, with both translations, the rotation by 90° and a mirror
+    (72 elements; no rotation of the mode order, so the orbit table is found by one scan
+    of the base space). The Bose–Hubbard Hamiltonian has non-positive off-diagonal
+    elements in the occupation basis and a connected hopping graph, so its ground state
+    is unique with positive amplitudes (Perron–Frobenius) and lies in the trivial
+    representation: the sector's lowest level equals the number sector's (dense numpy
+    reference; common practice, no source)."""
+    rows = cols = 3
+    base = fm.FockSpace(modes=9, cutoff=3, total=3)
+    h = fm.LadderExpr()
+    for a, b in torus_bonds(rows, cols):
+        hop = fm.raising(a) * fm.lowering(b)
+        h = h - (hop + hop.adjoint())
+    for i in range(9):
+        h = h + 0.5 * 2.0 * fm.number(i) * (fm.number(i) - 1)
+    tx, ty = fm.torus_translations(rows, cols)
+    rot = torus_map(rows, cols, lambda r, c: (c, -r))
+    mirror = torus_map(rows, cols, lambda r, c: (r, -c))
+    sector = fm.SymmetricSpace(base, [(tx, 0), (ty, 0), (rot, 0), (mirror, 0)])
+    assert sector.group_order == 72
+    assert sector.orbit_table_bytes > 0
+    plain = fm.SymmetricSpace(base, [(tx, 0), (ty, 0), (rot, 0), (mirror, 0)], orbit_table=False)
+    assert np.array_equal(plain.representatives(), sector.representatives())
+    full = np.linalg.eigvalsh(fm.build_matrix(h, base).toarray())
+    mat = fm.build_matrix(h, sector).toarray()
+    assert np.array_equal(mat, fm.build_matrix(h, plain).toarray())
+    assert abs(np.linalg.eigvalsh(mat)[0] - full[0]) < 1e-10
+    # Every sector level is a level of the number sector.
+    for e in np.linalg.eigvalsh(mat):
+        assert np.min(np.abs(full - e)) < 1e-9
+
+
+def test_orbit_table_choice_is_checked() -> None:
+    base = fm.FockSpace(modes=130, cutoff=1, total=1)
+    gens = [(fm.ring_translation(130), 0), (fm.ring_reflection(130), 0)]
+    with pytest.raises(TypeError, match="orbit_table must be True, False or None"):
+        fm.SymmetricSpace(base, gens, orbit_table="yes")  # type: ignore[arg-type]
+    # 260 elements do not fit the table's one byte per state: refused when insisted on,
+    # skipped when automatic.
+    with pytest.raises(ValueError, match="at most 256 elements"):
+        fm.SymmetricSpace(base, gens, orbit_table=True)
+    auto = fm.SymmetricSpace(base, gens)
+    assert auto.orbit_table_bytes == 0
+    assert auto.dim == 1

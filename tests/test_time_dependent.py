@@ -243,6 +243,26 @@ def test_matrix_free_products_give_the_same_evolution() -> None:
     assert np.linalg.norm(a.final - b.final) < 1e-12
 
 
+def test_automatic_products_follow_the_time_independent_rule() -> None:
+    # A ring large enough for the parallel bipartite kernel (24,310 states): automatic
+    # products are matrix-free, as for a time-independent H, and agree with stored ones
+    # (common practice, no source).
+    sites = 9
+    space = fm.FockSpace(modes=sites, cutoff=sites, total=sites)
+    kinetic, interaction = fm.LadderExpr(), fm.LadderExpr()
+    for i in range(sites):
+        hop = fm.raising(i) * fm.lowering((i + 1) % sites)
+        kinetic = kinetic - (hop + hop.adjoint())
+        interaction = interaction + 0.5 * fm.number(i) * (fm.number(i) - 1)
+    H = fm.TimeDependent(kinetic, [(interaction, lambda t: 2.0 + t)])
+    psi0 = np.zeros(space.dim, dtype=complex)
+    psi0[space.index([1] * sites)] = 1.0
+    auto = fm.evolve(H, space, psi0, [0.0, 0.05], tol=1e-10)
+    stored = fm.evolve(H, space, psi0, [0.0, 0.05], tol=1e-10, method="csr")
+    assert (auto.method, stored.method) == ("operator", "csr")
+    assert np.linalg.norm(auto.final - stored.final) < 1e-12
+
+
 # -- refused input (common practice, no source) --------------------------------------------
 
 

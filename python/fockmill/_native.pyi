@@ -377,9 +377,13 @@ class NativeSymmetricSpace:
         space: NativeSpace,
         generators: list[tuple[list[int], int]],
         threads: int | NativePool | None = None,
+        orbit_table: bool | None = None,
     ) -> NativeSymmetricSpace: ...
     @property
     def dim(self) -> int: ...
+    @property
+    def orbit_table_bytes(self) -> int:
+        """Bytes of the orbit table (one entry per base state), 0 without one."""
     @property
     def order(self) -> int: ...
     @property

@@ -4,6 +4,7 @@
 use crate::arrays::{owned_copy, InVector, OwnedVector};
 use crate::errors::{guarded, PyCoreError};
 use crate::threads::{detached, Threads};
+use fockmill_core::orbit_table::TableChoice;
 use fockmill_core::symmetry::{Generator, SymmetricSpace};
 use fockmill_core::{observe, CoreError, FockSpace};
 use num_complex::Complex64;
@@ -160,12 +161,13 @@ fn complex_of(v: OwnedVector) -> Vec<Complex64> {
 #[pymethods]
 impl NativeSymmetricSpace {
     #[new]
-    #[pyo3(signature = (space, generators, threads=None))]
+    #[pyo3(signature = (space, generators, threads=None, orbit_table=None))]
     fn new(
         py: Python<'_>,
         space: &NativeSpace,
         generators: Vec<(Vec<usize>, u64)>,
         threads: Option<Threads<'_>>,
+        orbit_table: Option<bool>,
     ) -> PyResult<Self> {
         guarded(|| {
             let gens: Vec<Generator> = generators
@@ -173,7 +175,14 @@ impl NativeSymmetricSpace {
                 .map(|(images, label)| Generator { images, label })
                 .collect();
             let base = (*space.inner).clone();
-            let inner = detached(py, threads, |r, s| SymmetricSpace::new(base, &gens, r, s))?;
+            let choice = match orbit_table {
+                None => TableChoice::Auto,
+                Some(true) => TableChoice::Always,
+                Some(false) => TableChoice::Never,
+            };
+            let inner = detached(py, threads, |r, s| {
+                SymmetricSpace::with_table(base, &gens, choice, r, s)
+            })?;
             Ok(NativeSymmetricSpace {
                 inner: Arc::new(inner),
                 generators: Arc::new(gens),
@@ -195,6 +204,12 @@ impl NativeSymmetricSpace {
     #[getter]
     fn dim(&self) -> u64 {
         self.inner.dim()
+    }
+
+    /// Bytes of the orbit table (one entry per base state), 0 without one.
+    #[getter]
+    fn orbit_table_bytes(&self) -> u64 {
+        self.inner.orbit_table_bytes() as u64
     }
 
     /// Order of the group.

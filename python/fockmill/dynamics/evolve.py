@@ -711,7 +711,7 @@ def _driven_maps(
     problems: list[Problem], vectors: int, method: str, memory_limit: int | None
 ) -> list[Any]:
     """The parts' products, all stored or all matrix-free (decided on their sum)."""
-    from fockmill.dynamics.krylov import MEMORY_BUDGET
+    from fockmill.dynamics.krylov import MEMORY_BUDGET, SMALL_KRYLOV_DIM
     from fockmill.problem.memory import available_memory
 
     if method not in ("auto", "csr", "operator"):
@@ -722,7 +722,12 @@ def _driven_maps(
         budget = float("inf") if limit is None else MEMORY_BUDGET * limit
         stored = sum(p.estimate.csr_bytes for p in problems)
         peak = max(p.estimate.build_peak_bytes - p.estimate.csr_bytes for p in problems)
-        method = "csr" if stored + peak + vectors * 16 * dim <= budget else "operator"
+        fits = stored + peak + vectors * 16 * dim <= budget
+        # The rule of the time-independent products (krylov.hermitian_map): where the
+        # bipartite kernel serves every part, its parallel matrix-free product beats a
+        # stored matrix, so nothing is stored.
+        fast = dim >= SMALL_KRYLOV_DIM and all(p.native.cut > 0 for p in problems)
+        method = "csr" if fits and not fast else "operator"
     return [hermitian_map(p, vectors=vectors, method=method) for p in problems]
 
 

@@ -262,6 +262,15 @@ class SymmetricSpace:
         one-dimensional representation of the group the generators generate.
     threads : int, optional
         Threads for enumerating the orbits (default: all cores).
+    orbit_table : bool or None, optional
+        Whether to keep a table from every base state to its orbit's sector state (4
+        bytes per base state, one more when some character is not 1): products and
+        builds then find each image's column with one read instead of a search over
+        the group, and groups that are not rotations of the mode order are enumerated
+        in one pass over the base space. ``None`` (default) keeps it when the group has
+        at most 256 elements and the table takes at most a quarter of the memory
+        available; ``True`` insists (``SizeLimitError`` with the size when it does not
+        fit); ``False`` never keeps it. Results are the same either way, to the bit.
 
     Raises
     ------
@@ -278,7 +287,8 @@ class SymmetricSpace:
     character, ``|r̃⟩ = o_r^{-1/2} Σ_{s ∈ orbit(r)} χ(g_s)^* |s⟩``, labelled by the
     orbit's first state in the base order and sorted by it. An empty sector
     (``dim == 0``) is allowed. Enumerating it walks the whole base space once and keeps
-    one bit per base state (``base.dim / 8`` bytes) plus 8 bytes per sector state.
+    one bit per base state (``base.dim / 8`` bytes) plus 8 bytes per sector state, and
+    the orbit table when it is kept.
     Matrices on a sector are complex128 unless every character is real (±1) and the
     coefficients are real.
 
@@ -301,6 +311,7 @@ class SymmetricSpace:
         symmetries: Sequence[tuple[ModePermutation, int]],
         *,
         threads: int | None = None,
+        orbit_table: bool | None = None,
     ) -> None:
         if not isinstance(space, FockSpace):
             raise TypeError(f"space must be a fm.FockSpace; got {type(space).__name__}")
@@ -343,9 +354,16 @@ class SymmetricSpace:
                     "exp(2πi·label/order))"
                 )
             pairs.append((g, q))
+        if orbit_table is not None and not isinstance(orbit_table, bool):
+            raise TypeError(
+                f"orbit_table must be True, False or None (automatic); got {orbit_table!r}"
+            )
         try:
             native = _native.NativeSymmetricSpace(
-                space.native, [(list(g.images), q) for g, q in pairs], check_threads(threads)
+                space.native,
+                [(list(g.images), q) for g, q in pairs],
+                check_threads(threads),
+                orbit_table,
             )
         except SymmetryError as exc:
             names = "; ".join(f"generator {n} = {g!r}" for n, (g, _) in enumerate(pairs))
@@ -370,6 +388,11 @@ class SymmetricSpace:
     def dim(self) -> int:
         """Number of sector states (0 for an empty sector)."""
         return int(self._native.dim)
+
+    @property
+    def orbit_table_bytes(self) -> int:
+        """Bytes of the sector's orbit table (0 without one; see ``orbit_table``)."""
+        return int(self._native.orbit_table_bytes)
 
     @property
     def group_order(self) -> int:

@@ -24,6 +24,7 @@ pub mod levels;
 pub mod matvec;
 pub mod memory;
 pub mod observe;
+pub mod orbit_table;
 pub mod parallel;
 pub mod scalar;
 pub mod solve;

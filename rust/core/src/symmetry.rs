@@ -44,6 +44,7 @@ use crate::error::{CoreError, CoreResult};
 use crate::lanczos::{self, HermitianMap, LanczosOptions, LanczosOutcome};
 use crate::levels::{self, LevelsOptions, LevelsOutcome};
 use crate::memory::{ensure_room, try_filled};
+use crate::orbit_table::{Images, OrbitTable, RowRanks, TableChoice, OUTSIDE};
 use crate::parallel::{Interrupt, Runner};
 use crate::scalar::Scalar;
 use crate::space::{Constraint, FockSpace};
@@ -51,6 +52,7 @@ use crate::terms::{format_monomial, Monomial, Operator};
 use num_complex::Complex64;
 use rayon::prelude::*;
 use std::collections::HashMap;
+use std::sync::Arc;
 
 /// Largest group order accepted (elements are stored as full permutations).
 pub const MAX_GROUP_ORDER: usize = 1 << 16;
@@ -441,6 +443,11 @@ pub struct SymmetricSpace {
     packed_rank: Option<PackedRank>,
     /// `roots[k] = sqrt(k)`, for stabiliser orders and small squared amplitudes.
     roots: Vec<f64>,
+    /// `inverse_elements[h]`: the element undoing `h`.
+    inverse_elements: Vec<u32>,
+    /// Every base state's sector state, when kept (see [`OrbitTable`]); shared by
+    /// clones.
+    table: Option<Arc<OrbitTable>>,
 }
 
 /// Occupation tuples packed into one `u128` (`bits` per mode, mode 0 most significant,
@@ -767,6 +774,22 @@ impl SymmetricSpace {
         runner: &Runner,
         interrupt: &dyn Interrupt,
     ) -> CoreResult<Self> {
+        Self::with_table(base, generators, TableChoice::Auto, runner, interrupt)
+    }
+
+    /// As [`SymmetricSpace::new`], choosing whether to keep an [`OrbitTable`] (one entry
+    /// per base state, which makes products and builds look each image up in one read).
+    ///
+    /// # Errors
+    /// As [`SymmetricSpace::new`]; with [`TableChoice::Always`], those of
+    /// [`OrbitTable::wanted`].
+    pub fn with_table(
+        base: FockSpace,
+        generators: &[Generator],
+        table: TableChoice,
+        runner: &Runner,
+        interrupt: &dyn Interrupt,
+    ) -> CoreResult<Self> {
         let m = base.modes();
         let mut gens: Vec<Vec<u32>> = Vec::with_capacity(generators.len());
         let mut orders = Vec::with_capacity(generators.len());
@@ -860,6 +883,23 @@ impl SymmetricSpace {
             .map(|&p| unit_root(p, denominator))
             .collect();
         let real = closure.phases.iter().all(|&p| (2 * p) % denominator == 0);
+        let mut by_images: HashMap<&[u32], u32> = HashMap::with_capacity(order);
+        for h in 0..order {
+            by_images.insert(&inverse[h * m..(h + 1) * m], h as u32);
+        }
+        let inverse_elements: Vec<u32> = (0..order)
+            .map(|h| {
+                // (h n)_j = n_{inv_h[j]}: the element undoing h reads through the
+                // inverse permutation of inv_h.
+                let inv = &inverse[h * m..(h + 1) * m];
+                let mut undo = vec![0u32; m];
+                for (j, &i) in inv.iter().enumerate() {
+                    undo[i as usize] = j as u32;
+                }
+                by_images.get(undo.as_slice()).copied().unwrap_or(0)
+            })
+            .collect();
+        drop(by_images);
         let mut sector = SymmetricSpace {
             base,
             order,
@@ -873,13 +913,15 @@ impl SymmetricSpace {
             shifts: None,
             packed_rank: None,
             roots: (0..=order.max(ROOTS)).map(|k| (k as f64).sqrt()).collect(),
+            inverse_elements,
+            table: None,
         };
         sector.shifts = Shifts::detect(m, sector.base.max_cutoff(), &sector.inverse, order);
         sector.packed_rank = sector
             .shifts
             .as_ref()
             .and_then(|f| PackedRank::new(&sector.base, f.bits));
-        sector.enumerate(runner, interrupt)?;
+        sector.enumerate(table, runner, interrupt)?;
         Ok(sector)
     }
 
@@ -925,7 +967,12 @@ impl SymmetricSpace {
     /// Find the kept representatives and build the index: for rotation groups by
     /// descending through the prefixes that can still start the smallest rotation; for
     /// other groups by testing every base state.
-    fn enumerate(&mut self, runner: &Runner, interrupt: &dyn Interrupt) -> CoreResult<()> {
+    fn enumerate(
+        &mut self,
+        choice: TableChoice,
+        runner: &Runner,
+        interrupt: &dyn Interrupt,
+    ) -> CoreResult<()> {
         let dim = self.base.dim();
         let blocks = dim.div_ceil(BLOCK_STATES) as usize;
         let mut index = try_filled(
@@ -933,13 +980,46 @@ impl SymmetricSpace {
             IndexBlock::default(),
             "index of the sector's representatives",
         )?;
-        let listed = match &self.shifts {
-            Some(f) => {
+        let with_elements = self.phases.iter().any(|&p| p != 0);
+        let want = OrbitTable::wanted(choice, dim, self.order, with_elements)?;
+        let listed = match (&self.shifts, want) {
+            (Some(f), _) => {
                 let reps = self.list_by_prefixes(f, runner, interrupt)?;
                 self.mark(&reps, &mut index, runner);
+                if want {
+                    let m = self.base.modes();
+                    let table = OrbitTable::from_representatives(
+                        dim,
+                        &reps,
+                        &self.inverse_elements,
+                        with_elements,
+                        runner,
+                        interrupt,
+                        || (vec![0u32; m], vec![0u32; m]),
+                        |(occ, image), r, out| {
+                            self.unrank_small(r, occ);
+                            self.images_of(occ, image, out);
+                        },
+                    )?;
+                    self.table = Some(Arc::new(table));
+                }
                 Some(reps)
             }
-            None => {
+            (None, true) => {
+                let mut image = vec![0u32; self.base.modes()];
+                let (table, reps) = OrbitTable::by_scan(
+                    &self.base,
+                    &self.inverse_elements,
+                    with_elements,
+                    interrupt,
+                    |h| self.phases[h as usize] == 0,
+                    |occ, out| self.images_of(occ, &mut image, out),
+                )?;
+                self.mark(&reps, &mut index, runner);
+                self.table = Some(Arc::new(table));
+                Some(reps)
+            }
+            (None, false) => {
                 self.mark_by_scan(&mut index, runner, interrupt)?;
                 None
             }
@@ -1213,6 +1293,38 @@ impl SymmetricSpace {
         }
     }
 
+    /// The base ranks of `h occ` for every element `h`, as `(rank, h)` in `out`
+    /// (`image`: scratch of one state).
+    fn images_of(&self, occ: &[u32], image: &mut [u32], out: &mut Images) {
+        let base = &self.base;
+        if let (Some(f), Some(pr)) = (&self.shifts, &self.packed_rank) {
+            if f.narrow() {
+                let (p, r) = f.pack::<u64>(occ);
+                for h in 0..self.order {
+                    out.push((pr.rank(base.offset_table(), f.image(h, p, r)), h as u32));
+                }
+            } else {
+                let (p, r) = f.pack::<u128>(occ);
+                for h in 0..self.order {
+                    out.push((pr.rank(base.offset_table(), f.image(h, p, r)), h as u32));
+                }
+            }
+            return;
+        }
+        let m = occ.len();
+        for h in 0..self.order {
+            let inv = &self.inverse[h * m..(h + 1) * m];
+            for (j, &src) in inv.iter().enumerate() {
+                image[j] = occ[src as usize];
+            }
+            // Every image of a state of the space is one (the generators keep cutoffs
+            // and weights).
+            if let Some(rank) = base.rank(image) {
+                out.push((rank, h as u32));
+            }
+        }
+    }
+
     /// Whether `occ` is the smallest state of its orbit and its stabiliser has the
     /// trivial character.
     #[inline]
@@ -1365,6 +1477,16 @@ impl SymmetricSpace {
                 .step(residue, i, v as u32)
                 .expect("unrank follows only reachable residues");
         }
+    }
+
+    /// Whether the sector keeps an [`OrbitTable`].
+    pub fn has_orbit_table(&self) -> bool {
+        self.table.is_some()
+    }
+
+    /// Bytes of the sector's [`OrbitTable`] (0 without one).
+    pub fn orbit_table_bytes(&self) -> u128 {
+        self.table.as_ref().map_or(0, |t| t.held_bytes())
     }
 
     /// Number of sector states.
@@ -1536,6 +1658,8 @@ pub struct SectorOperator<S: Scalar> {
     diagonal_tables: FactorTables,
     /// The off-diagonal terms compiled for packed strings, when the sector has them.
     packed: Option<PackedTerms>,
+    /// The off-diagonal terms compiled for the sector's orbit table, when it has one.
+    spans: Option<TermSpans>,
 }
 
 /// Per-factor tables of the squared amplitudes of terms, indexed by a mode's
@@ -1643,6 +1767,51 @@ impl PackedTerms {
     }
 }
 
+/// Off-diagonal terms compiled for a sector with an [`OrbitTable`]: per term, its
+/// factor tables and the change of occupation of every mode from the first it touches
+/// to the last, from which [`RowRanks::shifted`] ranks the image.
+#[derive(Debug, Clone)]
+struct TermSpans {
+    tables: FactorTables,
+    /// `(mode, change)`, term after term.
+    spans: Vec<(u32, i32)>,
+    /// `spans[ends[t - 1]..ends[t]]` are term `t`'s.
+    ends: Vec<u32>,
+}
+
+impl TermSpans {
+    fn new<S>(off: &[SectorTerm<S>], caps: &[u32], width: usize) -> Self {
+        let tables = FactorTables::new(off, caps, width, false);
+        let mut spans = Vec::new();
+        let mut ends = Vec::with_capacity(off.len());
+        for term in off {
+            let first = term.factors.iter().map(|f| f.0).min().unwrap_or(0);
+            let last = term.factors.iter().map(|f| f.0).max().unwrap_or(0);
+            for mode in first..=last {
+                let change: i32 = term
+                    .factors
+                    .iter()
+                    .filter(|f| f.0 == mode)
+                    .map(|&(_, lower, raise)| raise as i32 - lower as i32)
+                    .sum();
+                spans.push((mode as u32, change));
+            }
+            ends.push(spans.len() as u32);
+        }
+        TermSpans { tables, spans, ends }
+    }
+
+    #[inline(always)]
+    fn span(&self, term: usize) -> &[(u32, i32)] {
+        let a = if term == 0 {
+            0
+        } else {
+            self.ends[term - 1] as usize
+        };
+        &self.spans[a..self.ends[term] as usize]
+    }
+}
+
 /// Per-thread buffers of the row gathering.
 struct RowScratch {
     /// Images of a row waiting for their look-ups: (rank, term, element, amplitude).
@@ -1650,6 +1819,7 @@ struct RowScratch {
     occ: Vec<u32>,
     image: Vec<u32>,
     best: Vec<u32>,
+    ranks: RowRanks,
 }
 
 impl RowScratch {
@@ -1659,6 +1829,7 @@ impl RowScratch {
             occ: vec![0; m],
             image: vec![0; m],
             best: vec![0; m],
+            ranks: RowRanks::new(m),
         }
     }
 }
@@ -1734,12 +1905,14 @@ impl<S: Scalar> SectorOperator<S> {
             .shifts
             .as_ref()
             .map(|f| PackedTerms::new(&off, caps, f.bits));
+        let spans = sector.table.as_ref().map(|_| TermSpans::new(&off, caps, width));
         SectorOperator {
             diagonal,
             off,
             characters,
             diagonal_tables,
             packed,
+            spans,
         }
     }
 
@@ -1855,6 +2028,22 @@ impl<S: Scalar> SectorOperator<S> {
         if any_diagonal {
             visit(row, d);
         }
+        if let (Some(table), Some(ts)) = (&cols.table, &self.spans) {
+            if std::ptr::eq(rows, cols) {
+                self.table_row(cols, table, ts, rank, s);
+                let inv_row = cols.inv_root(table.ties(row));
+                for &(col, t, h, amp_sq) in &s.pending {
+                    if col != u64::MAX {
+                        let amp = cols.amplitude(amp_sq, table.ties(col), inv_row);
+                        visit(
+                            col,
+                            (self.off[t as usize].coef * self.characters[h as usize]).scale(amp),
+                        );
+                    }
+                }
+                return Ok(());
+            }
+        }
         if let (Some(f), Some(pt)) = (&rows.shifts, &self.packed) {
             if f.bits == pt.bits && cols.shifts.is_some() {
                 if f.narrow() {
@@ -1960,6 +2149,45 @@ impl<S: Scalar> SectorOperator<S> {
             };
             s.pending
                 .push((rank, t as u32, h as u32, sector.amplitude(amp_sq, ties, inv_row)));
+        }
+    }
+
+    /// The images of the row whose occupations are in `s.occ` (base rank `rank`)
+    /// through the sector's orbit table: `(column or u64::MAX, term, element, squared
+    /// amplitude)` into `s.pending`. Ranks first (table reads of the modes each term
+    /// changes, no search for the smallest image), then every column and element look-up
+    /// back to back, so that their cache misses overlap.
+    #[inline(always)]
+    fn table_row(
+        &self,
+        sector: &SymmetricSpace,
+        table: &OrbitTable,
+        ts: &TermSpans,
+        rank: u64,
+        s: &mut RowScratch,
+    ) {
+        let base = &sector.base;
+        let loaded = s.ranks.load(base, &s.occ);
+        debug_assert_eq!(loaded, rank);
+        let tb = &ts.tables;
+        s.pending.clear();
+        'terms: for t in 0..ts.ends.len() {
+            let mut amp_sq = 1.0f64;
+            for &(mode, start) in &tb.factors[tb.range(t)] {
+                let v = tb.values[start as usize + s.occ[mode as usize] as usize];
+                if v == 0.0 {
+                    continue 'terms;
+                }
+                amp_sq *= v;
+            }
+            if let Some(image) = s.ranks.shifted(base, &s.occ, ts.span(t)) {
+                s.pending.push((image, t as u32, 0, amp_sq));
+            }
+        }
+        for e in s.pending.iter_mut() {
+            let col = table.column(e.0);
+            e.2 = table.element(e.0);
+            e.0 = if col == OUTSIDE { u64::MAX } else { col as u64 };
         }
     }
 
@@ -2458,7 +2686,9 @@ mod tests {
             assert_eq!(fast.shifts.is_some(), g.len() == 1);
             let mut slow = fast.clone();
             slow.shifts = None;
-            slow.enumerate(&Runner::global(), &NoInterrupt).unwrap();
+            slow.table = None;
+            slow.enumerate(TableChoice::Never, &Runner::global(), &NoInterrupt)
+                .unwrap();
             assert_eq!(fast.representatives(), slow.representatives());
             let sop = SectorOperator::new(&fast, &op, &g).unwrap();
             let a = dense_of(
@@ -2540,7 +2770,9 @@ mod tests {
                 packed.packed_rank = None;
                 let mut slow = fast.clone();
                 slow.shifts = None;
-                slow.enumerate(&Runner::global(), &NoInterrupt).unwrap();
+                slow.table = None;
+                slow.enumerate(TableChoice::Never, &Runner::global(), &NoInterrupt)
+                    .unwrap();
                 assert_eq!(fast.representatives(), slow.representatives());
                 let m = base.modes();
                 let (mut b1, mut b2, mut b3) = (vec![0; m], vec![0; m], vec![0; m]);
@@ -2702,10 +2934,33 @@ mod tests {
                 let mut slow = sector.clone();
                 slow.shifts = None;
                 slow.packed_rank = None;
-                slow.enumerate(&one, &NoInterrupt).unwrap();
+                slow.table = None;
+                slow.enumerate(TableChoice::Never, &one, &NoInterrupt).unwrap();
                 assert_eq!(slow.representatives(), sector.representatives());
                 assert_eq!(sop.build_csr(&slow, &one, &NoInterrupt, false).unwrap(), got);
                 assert_eq!(sop.build_csr(&sector, &two, &NoInterrupt, false).unwrap(), got);
+                // With and without the orbit table (kept by default at these sizes), and
+                // the table found by one scan of the base space instead of from the
+                // packed representatives: the very same matrix.
+                assert!(sector.has_orbit_table());
+                let mut untabled = sector.clone();
+                untabled.table = None;
+                assert_eq!(sop.build_csr(&untabled, &one, &NoInterrupt, false).unwrap(), got);
+                let mut scanned = sector.clone();
+                scanned.shifts = None;
+                scanned.packed_rank = None;
+                scanned.table = None;
+                scanned
+                    .enumerate(TableChoice::Always, &one, &NoInterrupt)
+                    .unwrap();
+                assert!(scanned.has_orbit_table());
+                assert_eq!(scanned.representatives(), sector.representatives());
+                assert_eq!(sop.build_csr(&scanned, &two, &NoInterrupt, false).unwrap(), got);
+                let sop_plain = SectorOperator::new(&slow, &op, &gens).unwrap();
+                assert_eq!(
+                    sop_plain.build_csr(&slow, &one, &NoInterrupt, false).unwrap(),
+                    got
+                );
                 if let Some(f) = &sector.shifts {
                     if f.ring.is_some() {
                         let mut packed = sector.clone();
@@ -2732,6 +2987,12 @@ mod tests {
                     .unwrap();
                 let mut y3 = vec![Complex64::new(0.0, 0.0); d];
                 sop.apply_many(&slow, &first, &mut y3, 1, &one, &NoInterrupt)
+                    .unwrap();
+                assert_eq!(y1, y3);
+                sop.apply_many(&untabled, &first, &mut y3, 1, &two, &NoInterrupt)
+                    .unwrap();
+                assert_eq!(y1, y3);
+                sop.apply_many(&scanned, &first, &mut y3, 1, &two, &NoInterrupt)
                     .unwrap();
                 assert_eq!(y1, y3);
                 for u in 0..d {
@@ -3006,7 +3267,8 @@ mod tests {
         assert!(s.shifts.is_some());
         let mut slow = s.clone();
         slow.shifts = None;
-        slow.enumerate(&one, &NoInterrupt).unwrap();
+        slow.table = None;
+        slow.enumerate(TableChoice::Never, &one, &NoInterrupt).unwrap();
         assert_eq!(s.representatives(), slow.representatives());
         let op = Operator::<f64>::new(&base, &bose_hubbard_ring(l, 1.0, 3.0)).unwrap();
         let sop = SectorOperator::new(&s, &op, &g).unwrap();
