@@ -205,7 +205,12 @@ impl<R: Solvable<f64>, C: Solvable<Complex64>> Versions<R, C> {
                 Some(op) => detached(py, threads, |r, s| storage.plan(op, k, held, r, s))?,
                 None => detached(py, threads, |r, s| storage.plan(&self.complex, k, held, r, s))?,
             };
-            Ok((plan.stored, plan.matrix_bytes, plan.build_bytes, plan.vector_bytes))
+            Ok((
+                plan.stored,
+                plan.matrix_bytes,
+                plan.build_bytes,
+                plan.vector_bytes,
+            ))
         })
     }
 

@@ -550,7 +550,9 @@ mod tests {
         assert!(est.exact);
         let size = csr_size(dim as u64, dim as u64, est.nnz, 8);
         for held in [0usize, 1] {
-            let plan = storage(Some(true), None).plan(&ring, 1, held, &runner, &stop).unwrap();
+            let plan = storage(Some(true), None)
+                .plan(&ring, 1, held, &runner, &stop)
+                .unwrap();
             assert!(plan.stored);
             assert_eq!(plan.matrix_bytes, size.csr_bytes);
             assert_eq!(plan.build_bytes, 8 * (dim + 1) + held as u128 * 8 * dim);
@@ -560,11 +562,10 @@ mod tests {
                 size.csr_bytes + plan.build_bytes.max(plan.vector_bytes)
             );
         }
-        let free = storage(Some(false), None).plan(&ring, 3, 0, &runner, &stop).unwrap();
-        assert_eq!(
-            (free.stored, free.matrix_bytes, free.build_bytes),
-            (false, 0, 0)
-        );
+        let free = storage(Some(false), None)
+            .plan(&ring, 3, 0, &runner, &stop)
+            .unwrap();
+        assert_eq!((free.stored, free.matrix_bytes, free.build_bytes), (false, 0, 0));
         assert_eq!(free.vector_bytes, (2 * 3 + 9) * 8 * dim);
     }
 
