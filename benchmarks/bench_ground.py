@@ -43,10 +43,13 @@ if {probe}:
                           product=time.perf_counter() - t0)), file=sys.stderr, flush=True)
     del native, x
 t0 = time.perf_counter()
+problem = fm.prepare(h, space)
+plan = problem.memory_plan(store_matrix=store) if method == "lanczos" else None
 options = dict(store_matrix=store) if method == "lanczos" else dict()
-g = fm.ground_state(h, space, method=method, tol=1e-8, cutoff_warning=None, **options)
+g = problem.ground_state(method=method, tol=1e-8, cutoff_warning=None, **options)
 print(json.dumps(dict(dim=space.dim, energy=g.energy, residual=g.residual,
-                      products=g.products, seconds=time.perf_counter() - t0)))
+                      products=g.products, seconds=time.perf_counter() - t0,
+                      plan=None if plan is None else plan.peak_bytes)))
 """
 
 
@@ -105,7 +108,9 @@ def main() -> None:
                     str(int(r["products"])),
                     f"{r['seconds']:.1f}",
                     f"{r['seconds'] / max(r['products'], 1) * 1e3:.0f}",
+                    "-" if r["plan"] is None else f"{r['plan'] / 2**30:.2f}",
                     f"{r['peak_gib']:.2f}",
+                    "-" if r["plan"] is None else f"{r['peak_gib'] * 2**30 / r['plan']:.2f}",
                 ]
             )
             print(table(HEADERS, rows[-1:]).splitlines()[-1], flush=True)
@@ -114,7 +119,9 @@ def main() -> None:
     print(
         f"\nmethod={args.method}, J=1, U={args.interaction}, tol=1e-8; peak = maximum "
         "resident memory of the solving process (wait4); 'stored' builds the CSR inside "
-        "Rust first (its build time is included), 'free' never stores a matrix."
+        "Rust first (its build time is included), 'free' never stores a matrix; plan = "
+        "Problem.memory_plan(...).peak_bytes (resident memory when planned + the solve's "
+        "planned growth), peak/plan should stay <= 1.10 (issue 19 item 6)."
     )
 
 
@@ -128,7 +135,9 @@ HEADERS = [
     "products",
     "solve s",
     "ms/product",
+    "plan GiB",
     "peak GiB",
+    "peak/plan",
 ]
 
 if __name__ == "__main__":

@@ -142,7 +142,7 @@ def rates(sites_list: list[int], repeats: int) -> None:
 
 
 CHILD = """
-import json, sys, time
+import json, resource, sys, time
 import numpy as np
 sys.path.insert(0, {here!r})
 from bench_symmetry import sector_of
@@ -169,10 +169,15 @@ if probe:
     out["product_cpu"] = float(np.median(cpus))
 else:
     t0 = time.perf_counter()
-    g = fm.ground_state(h, sector, method="lanczos", tol=1e-8, cutoff_warning=None,
-                        store_matrix=store)
+    problem = fm.prepare(h, sector)
+    plan = problem.memory_plan(store_matrix=store)
+    print(json.dumps(dict(stage="planned", plan=str(plan))), flush=True)
+    # The default cutoff check runs (cutoff_warning as the default): it is part of what
+    # a default ground state costs.
+    g = problem.ground_state(method="lanczos", tol=1e-8, store_matrix=store)
     out.update(energy=g.energy, residual=g.residual, products=g.products,
-               seconds=time.perf_counter() - t0)
+               seconds=time.perf_counter() - t0, plan=plan.peak_bytes,
+               sector_peak=resource.getrusage(resource.RUSAGE_SELF).ru_maxrss * 1024)
     if full:
         t0 = time.perf_counter()
         gf = fm.ground_state(h, unit_filling(sites), method="lanczos", tol=1e-8,
@@ -239,7 +244,9 @@ def ground(sites_list: list[int], store: bool, probe: bool, full: list[int], pro
                     f"{r['energy']:.10f}",
                     f"{r['residual']:.1e}",
                     f"{r['full_energy']:.10f}" if "full_energy" in r else "-",
+                    f"{r['plan'] / 2**30:.2f}",
                     f"{r['peak_gib']:.2f}",
+                    f"{r['sector_peak'] / r['plan']:.2f}",
                 ]
             )
         print(rows[-1], flush=True)
@@ -267,13 +274,19 @@ def ground(sites_list: list[int], store: bool, probe: bool, full: list[int], pro
             "E0 (sector)",
             "residual",
             "E0 (full space)",
+            "plan GiB",
             "peak GiB",
+            "peak/plan",
         ]
     print()
     print(table(headers, rows))
     load = os.getloadavg()
     print(
-        f"\nJ = U = 1, tol = 1e-8, sector = momentum 0, reflection-even; wall includes the "
+        f"\nJ = U = 1, tol = 1e-8, sector = momentum 0, reflection-even; plan = "
+        "Problem.memory_plan(...).peak_bytes of the sector solve (resident memory when "
+        "planned + planned growth); peak = wait4 maximum of the process (with the full-space "
+        "check, when run); peak/plan = the process's maximum resident memory at the end of "
+        "the sector solve / plan, which should stay <= 1.10; wall includes the "
         f"process start and the expression build; load average at the end {load[0]:.1f}, "
         f"{load[1]:.1f}, {load[2]:.1f} on {os.cpu_count()} cores."
     )

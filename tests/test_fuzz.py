@@ -280,7 +280,7 @@ CALL_TIMEOUT = 60.0
 
 WORKER = textwrap.dedent(
     """
-    import os, pickle, resource, struct, sys
+    import os, pickle, resource, struct, sys, traceback
     # Allocations beyond this fail at once instead of swapping the shared machine.
     resource.setrlimit(resource.RLIMIT_AS, (4 * 2**30, 4 * 2**30))
     import numpy as np
@@ -363,7 +363,7 @@ WORKER = textwrap.dedent(
             reply = ("ok", run(call))
         except BaseException as exc:
             names = [c.__name__ for c in type(exc).__mro__]
-            reply = ("raised", names, str(exc)[:400])
+            reply = ("raised", names, str(exc)[:400], traceback.format_exc()[-1500:])
         data = pickle.dumps(reply)
         write.write(struct.pack("<I", len(data)) + data)
         write.flush()
@@ -575,11 +575,13 @@ LANCZOS_ARGS = (1e-9, 30, 1, 0, None, False)
 def test_native_layer_raises_only_python_errors() -> None:
     worker = NativeWorker()
     seen: dict[str, int] = {}
+    tried: list[tuple[Any, ...]] = []  # the last calls, newest last, for failure reports
 
     @settings(
         max_examples=5 * settings().max_examples,
         suppress_health_check=[HealthCheck.too_slow, HealthCheck.data_too_large],
         database=None,
+        print_blob=True,  # a failure prints the @reproduce_failure line that replays it
     )
     @given(call=native_calls())
     # Always tried: the largest full spaces the core accepts (2.8e14 states).
@@ -587,23 +589,30 @@ def test_native_layer_raises_only_python_errors() -> None:
     @example(call=(([65535] * 3, None, None, None), NUMBER_0, "build_csr", (False,), 2))
     @example(call=(([65535] * 3, None, None, None), NUMBER_0, "lanczos", LANCZOS_ARGS, 2))
     def check(call: tuple[Any, ...]) -> None:
+        tried.append(call)
+        del tried[:-8]
         try:
             reply = worker.call(call)
         except WorkerDied as died:
             pytest.fail(f"native call {call!r} killed the process: {died}")
         if reply[0] == "raised":
-            names, message = reply[1], reply[2]
+            names, message, trace = reply[1], reply[2], reply[3]
             seen[names[0]] = seen.get(names[0], 0) + 1
-            assert "RuntimeError" not in names, f"panic on {call!r}: {message}"
-            assert any(n in names for n in ALLOWED), f"{names[0]} on {call!r}: {message}"
+            assert "RuntimeError" not in names, f"panic on {call!r}: {message}\n{trace}"
+            assert any(n in names for n in ALLOWED), f"{names[0]} on {call!r}: {message}\n{trace}"
         else:
             seen["ok"] = seen.get("ok", 0) + 1
 
     try:
         check()
+    except BaseException as failure:
+        # Whatever escapes (a failure hypothesis could not replay, a harness error)
+        # names the calls that led to it.
+        failure.add_note("last native calls, newest last:\n" + "\n".join(map(repr, tried)))
+        raise
     finally:
         worker.close()
-    assert seen.get("ok", 0) > 0  # the strategies reach working calls too
+    assert seen.get("ok", 0) > 0, f"no call succeeded: {seen}"  # working calls are reached
 
 
 def test_native_refuses_absurd_thread_counts() -> None:

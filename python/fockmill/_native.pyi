@@ -217,9 +217,22 @@ class NativeOperator:
         """Whether a Lanczos solve of ``levels`` levels runs on a stored CSR matrix.
 
         ``store``: True or False obey; None decides: matrix-free on the bipartite kernel
-        (``cut > 0``), otherwise stored when the build peak plus the solver's vectors fit
+        (``cut > 0``), otherwise stored when the peak of ``memory_plan`` fits
         in 0.8 of ``memory_limit`` (None: the memory available now). True beyond
         ``memory_limit`` raises ``SizeLimitError``. Always True for a CSR matrix."""
+    def memory_plan(
+        self,
+        *,
+        levels: int = 1,
+        store: bool | None = None,
+        memory_limit: int | None = None,
+        held: int = 0,
+        threads: _Threads = None,
+    ) -> tuple[bool, int, int, int]:
+        """``(stored, matrix_bytes, build_bytes, vector_bytes)``: the memory a Lanczos
+        solve of ``levels`` levels plans to add, as its stored-or-matrix-free choice
+        counts it (peak ``matrix_bytes + max(build_bytes, vector_bytes)``); ``held``:
+        vectors handed in and held while the matrix is built."""
     def lanczos_ground(
         self,
         *,
@@ -402,6 +415,11 @@ class NativeSymmetricSpace:
         self, w: _RealOrComplex1D, threads: int | NativePool | None = None
     ) -> _RealOrComplex1D:
         """The adjoint of ``expand``."""
+    def occupation_distributions(
+        self, psi: _RealOrComplex1D, threads: int | NativePool | None = None
+    ) -> npt.NDArray[np.float64]:
+        """``Σ |ψ|²`` per mode and occupation of a sector state's expansion, concatenated
+        over modes, from the representatives alone (no base-space vector)."""
 
 def monomial_expectations(
     space: NativeSpace,

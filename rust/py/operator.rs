@@ -419,6 +419,23 @@ impl NativeOperator {
         with_solvable!(self, v => v.stores_matrix(py, levels, storage(store, memory_limit), threads))
     }
 
+    /// The memory a Lanczos solve of `levels` levels plans to add (the numbers its
+    /// stored-or-matrix-free choice compares with `memory_limit`):
+    /// `(stored, matrix_bytes, build_bytes, vector_bytes)`; the peak is `matrix_bytes +
+    /// max(build_bytes, vector_bytes)`. `held`: vectors handed in (a start vector: 1).
+    #[pyo3(signature = (*, levels=1, store=None, memory_limit=None, held=0, threads=None))]
+    fn memory_plan(
+        &self,
+        py: Python<'_>,
+        levels: usize,
+        store: Option<bool>,
+        memory_limit: Option<u128>,
+        held: usize,
+        threads: Option<Threads<'_>>,
+    ) -> PyResult<(bool, u128, u128, u128)> {
+        with_solvable!(self, v => v.memory_plan(py, levels, held, storage(store, memory_limit), threads))
+    }
+
     /// Four-vector Lanczos ground state, on the matrix-free product or on a CSR matrix
     /// built first and kept inside Rust (`store`: True, False, or None to decide).
     ///

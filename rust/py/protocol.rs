@@ -190,6 +190,30 @@ impl<R: Solvable<f64>, C: Solvable<Complex64>> Versions<R, C> {
         })
     }
 
+    /// The memory plan of a solve of `k` levels (the core's, from which it decides):
+    /// `(stored, matrix bytes, bytes held only while building, vector bytes)`.
+    pub fn memory_plan(
+        &self,
+        py: Python<'_>,
+        k: usize,
+        held: usize,
+        storage: Storage,
+        threads: Option<Threads<'_>>,
+    ) -> PyResult<(bool, u128, u128, u128)> {
+        guarded(|| {
+            let plan = match &self.real {
+                Some(op) => detached(py, threads, |r, s| storage.plan(op, k, held, r, s))?,
+                None => detached(py, threads, |r, s| storage.plan(&self.complex, k, held, r, s))?,
+            };
+            Ok((
+                plan.stored,
+                plan.matrix_bytes,
+                plan.build_bytes,
+                plan.vector_bytes,
+            ))
+        })
+    }
+
     /// The four-vector Lanczos ground state.
     pub fn lanczos_ground(
         &self,

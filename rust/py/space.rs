@@ -229,6 +229,30 @@ impl NativeSymmetricSpace {
         self.inner.representatives().to_vec().into_pyarray(py)
     }
 
+    /// Occupation distributions of a sector state (as `occupation_distributions` of its
+    /// expansion, concatenated over modes, not normalised), from one pass over the
+    /// representatives: no base-space vector is made.
+    #[pyo3(signature = (psi, threads=None))]
+    fn occupation_distributions<'py>(
+        &self,
+        py: Python<'py>,
+        psi: InVector<'py>,
+        threads: Option<Threads<'_>>,
+    ) -> PyResult<Bound<'py, PyArray1<f64>>> {
+        guarded(|| {
+            let sector = &self.inner;
+            let values = match psi.to_owned_vec()? {
+                OwnedVector::Real(v) => detached(py, threads, |r, s| {
+                    observe::sector_occupation_distributions(sector, &v, r, s)
+                })?,
+                OwnedVector::Complex(v) => detached(py, threads, |r, s| {
+                    observe::sector_occupation_distributions(sector, &v, r, s)
+                })?,
+            };
+            Ok(values.into_pyarray(py))
+        })
+    }
+
     /// The base-space vector of a sector vector (norm-preserving).
     #[pyo3(signature = (v, threads=None))]
     fn expand<'py>(

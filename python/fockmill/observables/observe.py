@@ -180,8 +180,10 @@ def occupation_distribution(
     s = check_space(space)
     v = check_vector(s, vector)
     if isinstance(s, SymmetricSpace):
-        return occupation_distribution(s.base, s.expand(v, threads=threads), threads=threads)
-    flat = _native.occupation_distributions(s.native, v, check_threads(threads)) / _norm_sq(v)
+        # From the representatives: no base-space vector (|G| times the sector's size).
+        flat = s.native.occupation_distributions(v, check_threads(threads)) / _norm_sq(v)
+    else:
+        flat = _native.occupation_distributions(s.native, v, check_threads(threads)) / _norm_sq(v)
     out = np.zeros((s.modes, max(s.cutoffs) + 1))
     start = 0
     for i, c in enumerate(s.cutoffs):

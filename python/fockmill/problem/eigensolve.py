@@ -21,7 +21,12 @@ from fockmill.exceptions import (
 )
 from fockmill.observables.observe import check_vector, top_level_weights
 from fockmill.observables.truncation import warn_cutoff_weights
-from fockmill.problem.memory import MemoryEstimate, size_limit_message
+from fockmill.problem.memory import (
+    MemoryEstimate,
+    SolvePlan,
+    resident_bytes,
+    size_limit_message,
+)
 from fockmill.problem.runs import array_hash, hamiltonian_hash, native_hooks, open_checkpoint
 from fockmill.settings.checks import (
     METHODS,
@@ -39,6 +44,7 @@ __all__ = [
     "Levels",
     "Method",
     "choose_method",
+    "memory_plan",
     "solve_ground",
     "solve_levels",
 ]
@@ -192,7 +198,7 @@ def choose_method(
     raise SizeLimitError(
         size_limit_message(
             "no solver fits in memory: even the four-vector Lanczos solver",
-            estimate.krylov_bytes(5),
+            estimate.krylov_bytes(4),
             budget,
             "use a smaller sector or cutoffs",
             given=memory_limit is not None,
@@ -501,6 +507,31 @@ def _store_matrix(problem: Problem, store_matrix: bool | None, k: int = 1) -> bo
     )
 
 
+def memory_plan(
+    problem: Problem, k: int = 1, store_matrix: bool | None = None, *, v0_given: bool = False
+) -> SolvePlan:
+    """The memory plan of the Rust Lanczos solve of ``k`` levels (``method="lanczos"``,
+    which ``"auto"`` picks above 500 states): the process's resident memory now plus
+    what the core plans to add, from the same numbers its stored-or-matrix-free choice
+    uses (``NativeOperator.memory_plan``). Preparing the plan prepares the operator's
+    product tables, so that they count as resident. ``v0_given``: a start vector will
+    be passed (held while a matrix is built)."""
+    stored, matrix, build, vectors = _lanczos_target(problem).memory_plan(
+        levels=k,
+        store=store_matrix,
+        memory_limit=problem.memory_limit,
+        held=int(v0_given),
+        threads=problem.pool,
+    )
+    return SolvePlan(
+        stored=bool(stored),
+        resident_bytes=resident_bytes(),
+        matrix_bytes=int(matrix),
+        build_bytes=int(build),
+        vector_bytes=int(vectors),
+    )
+
+
 def _lanczos_target(problem: Problem) -> Any:
     """The operator the Rust solvers run on: a matrix handed to the problem
     (``Problem._from_parts``: sweeps), else the compiled operator."""
@@ -557,9 +588,9 @@ def _native_ground(
 
 
 def _lanczos_vectors(k: int) -> int:
-    """Vectors the Rust Lanczos solvers keep: four for one level; the thick-restart
-    basis (``2k + 8``) plus one for several."""
-    return 5 if k == 1 else 2 * k + 9
+    """Vectors the Rust Lanczos solvers hold at once (the core's ``solver_vectors``):
+    four for one level; the thick-restart basis (``2k + 8``) plus one for several."""
+    return 4 if k == 1 else 2 * k + 9
 
 
 def _native_levels(
@@ -791,6 +822,10 @@ def _solve_levels(
 
 def _warn_cutoff(space: Any, vector: npt.NDArray[Any], threshold: float | None) -> None:
     if threshold is None or not hasattr(space, "binding_cutoffs"):
+        return
+    # Only truncating cutoffs (>= 2, below what the total allows) can be flagged: with
+    # none, the weights are not computed at all (one pass over the space saved).
+    if not any(b and c >= 2 for b, c in zip(space.binding_cutoffs(), space.cutoffs, strict=True)):
         return
     weights = top_level_weights(space, vector)
     warn_cutoff_weights(space, weights, threshold, "the ground state", stacklevel=4)

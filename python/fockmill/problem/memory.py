@@ -11,10 +11,12 @@ import numpy as np
 
 __all__ = [
     "MemoryEstimate",
+    "SolvePlan",
     "available_memory",
     "estimate_native",
     "format_bytes",
     "format_gib",
+    "resident_bytes",
     "size_limit_message",
 ]
 
@@ -246,3 +248,65 @@ def estimate_native(
         vector_bytes=dim * value_dtype.itemsize,
         available_bytes=available_memory(),
     )
+
+
+def resident_bytes(status: Path = Path("/proc/self/status")) -> int:
+    """Resident memory of this process now (``VmRSS``), in bytes; 0 when unknown."""
+    try:
+        for line in status.read_text().splitlines():
+            if line.startswith("VmRSS:"):
+                return int(line.split()[1]) * 1024
+    except (OSError, ValueError, IndexError):
+        pass
+    return 0
+
+
+@dataclass(frozen=True)
+class SolvePlan:
+    """The memory plan of a Lanczos solve: what the process holds when it is planned,
+    plus what the solve adds (the numbers its stored-or-matrix-free choice compares
+    with the memory limit, see :meth:`fockmill.Problem.memory_plan`).
+
+    Attributes
+    ----------
+    stored : bool
+        Whether the solve runs on a CSR matrix built first and kept in Rust.
+    resident_bytes : int
+        Resident memory of the process when planned: the interpreter and libraries,
+        the space (a sector's representatives) and the operator's prepared tables.
+    matrix_bytes : int
+        Bytes of the stored matrix, kept for the whole solve (0 matrix-free).
+    build_bytes : int
+        Bytes held only while the matrix is built: one 8-byte count per row and any
+        vector handed in (0 matrix-free).
+    vector_bytes : int
+        Bytes of the solver's vectors (four for the ground state; ``2k + 9`` for
+        ``k`` levels), allocated after the build.
+    """
+
+    stored: bool
+    resident_bytes: int
+    matrix_bytes: int
+    build_bytes: int
+    vector_bytes: int
+
+    @property
+    def added_bytes(self) -> int:
+        """Peak bytes the solve adds: the matrix plus the larger of its build's extra
+        and the solver's vectors (never held at once)."""
+        return self.matrix_bytes + max(self.build_bytes, self.vector_bytes)
+
+    @property
+    def peak_bytes(self) -> int:
+        """Planned peak resident memory of the process: ``resident_bytes +
+        added_bytes``."""
+        return self.resident_bytes + self.added_bytes
+
+    def __str__(self) -> str:
+        how = "stored matrix" if self.stored else "matrix-free"
+        return (
+            f"{how}: peak {format_bytes(self.peak_bytes)} = resident "
+            f"{format_bytes(self.resident_bytes)} + matrix {format_bytes(self.matrix_bytes)} "
+            f"+ max(build {format_bytes(self.build_bytes)}, vectors "
+            f"{format_bytes(self.vector_bytes)})"
+        )

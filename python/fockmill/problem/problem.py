@@ -22,8 +22,8 @@ import fockmill._native as _native
 from fockmill.algebra.expressions import LadderExpr, as_expr
 from fockmill.exceptions import SizeLimitError, SymmetryError
 from fockmill.problem.compile import compile_operator
-from fockmill.problem.eigensolve import choose_method, solve_ground, solve_levels
-from fockmill.problem.memory import MemoryEstimate, estimate_native
+from fockmill.problem.eigensolve import choose_method, memory_plan, solve_ground, solve_levels
+from fockmill.problem.memory import MemoryEstimate, SolvePlan, estimate_native
 from fockmill.settings.checks import check_memory_limit, check_threads
 from fockmill.spaces.checks import check_space
 from fockmill.spaces.fock import FockSpace
@@ -275,6 +275,25 @@ class Problem:
         """The method ``method="auto"`` uses for ``k`` levels (see
         :func:`fockmill.choose_method`)."""
         return choose_method(self.estimate, k, self.memory_limit)
+
+    def memory_plan(
+        self, k: int = 1, *, store_matrix: bool | None = None, v0_given: bool = False
+    ) -> SolvePlan:
+        """The memory plan of a Lanczos solve of ``k`` levels (``method="lanczos"``,
+        which ``"auto"`` picks above 500 states) with this ``store_matrix``: the
+        process's resident memory now plus what the solve adds, the numbers its
+        stored-or-matrix-free choice compares with the memory limit.
+
+        Examples
+        --------
+        >>> import fockmill as fm
+        >>> space = fm.FockSpace(modes=3, cutoff=2, total=2)
+        >>> h = fm.raising(0) * fm.lowering(1) + fm.raising(1) * fm.lowering(0)
+        >>> plan = fm.prepare(h, space).memory_plan(store_matrix=False)
+        >>> plan.stored, plan.vector_bytes
+        (False, 192)
+        """
+        return memory_plan(self, k, store_matrix, v0_given=v0_given)
 
     def ground_state(self, **options: Any) -> GroundState:
         """The lowest eigenpair; ``options`` as :func:`fockmill.ground_state`."""

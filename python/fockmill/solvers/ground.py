@@ -190,7 +190,8 @@ def ground_state(
         instead of the matrix-free product. None (default) uses the matrix-free
         product when it runs on the bipartite kernel (``Problem.native.cut > 0``,
         measured as fast as or faster than a stored matrix, with no build), and
-        otherwise stores the matrix when it and five vectors fit in the memory budget.
+        otherwise stores the matrix when it and four vectors fit in the memory budget
+        (the plan :meth:`fockmill.Problem.memory_plan` gives).
     cutoff_warning : float or None
         Warn with :class:`~fockmill.exceptions.CutoffWarning` when a mode whose cutoff
         truncates (cutoff >= 2 and below what the total allows) holds more than this

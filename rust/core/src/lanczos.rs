@@ -176,8 +176,8 @@ pub fn ground_state_watched<S: Scalar, A: HermitianMap<S>>(
         ));
     }
     crate::memory::ensure_room(
-        5 * dim as u128 * std::mem::size_of::<S>() as u128,
-        "the Lanczos vectors (five of the space's dimension)",
+        crate::solve::solver_vectors(1) as u128 * dim as u128 * std::mem::size_of::<S>() as u128,
+        "the Lanczos vectors (four of the space's dimension)",
     )?;
     if let (Some(v), None) = (&start, &resume) {
         if v.len() != dim {

@@ -55,13 +55,40 @@ pub fn csr_size(rows: u64, cols: u64, nnz: f64, value_bytes: usize) -> CsrSize {
     }
 }
 
-/// Vectors the Lanczos solvers keep for `k` levels: four (plus one) for the ground
-/// state, the thick-restart basis (`2k + 8`) plus one for several levels.
+/// Vectors of the space's dimension the Lanczos solvers hold at once for `k` levels:
+/// four for the ground state (a start vector handed in becomes one of them), the
+/// thick-restart basis (`2k + 8`) plus one work vector for several levels.
 pub fn solver_vectors(k: usize) -> usize {
     if k <= 1 {
-        5
+        4
     } else {
         2 * k + 9
+    }
+}
+
+/// What a Lanczos solve plans to add to the process's memory, by part: the numbers
+/// [`Storage::decide`] compares with the memory limit, and what the solve then holds.
+///
+/// The matrix is kept for the whole solve; its build's row counts (and a start vector
+/// handed in) are held only until the build ends, before the solver allocates its
+/// vectors, so the peak is the matrix plus the larger of the two.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub struct SolvePlan {
+    /// Whether the solve runs on a stored matrix.
+    pub stored: bool,
+    /// Bytes of the stored matrix (`indptr` + `indices` + `data`; 0 matrix-free).
+    pub matrix_bytes: u128,
+    /// Bytes held only while the matrix is built: one `u64` count per row, and the
+    /// vectors handed in (a start vector, a resumed state's; 0 matrix-free).
+    pub build_bytes: u128,
+    /// Bytes of the solver's vectors ([`solver_vectors`]).
+    pub vector_bytes: u128,
+}
+
+impl SolvePlan {
+    /// Peak bytes the solve adds to the process.
+    pub fn peak_bytes(&self) -> u128 {
+        self.matrix_bytes + self.build_bytes.max(self.vector_bytes)
     }
 }
 
@@ -119,11 +146,10 @@ impl Storage {
     }
 
     /// Whether a solve of `k` levels on `op` runs on a stored matrix (always true for
-    /// an operator that is a stored matrix).
+    /// an operator that is a stored matrix): [`Storage::plan`] with no vector handed in.
     ///
     /// # Errors
-    /// [`CoreError::TooLarge`] when storing is asked for and the build would exceed the
-    /// memory limit; [`CoreError::Interrupted`] while estimating.
+    /// As [`Storage::plan`].
     pub fn decide<S: Scalar, A: Solvable<S>>(
         &self,
         op: &A,
@@ -131,42 +157,83 @@ impl Storage {
         runner: &Runner,
         interrupt: &dyn Interrupt,
     ) -> CoreResult<bool> {
-        if op.is_stored() {
-            return Ok(true);
-        }
-        let size = |runner: &Runner| -> CoreResult<CsrSize> {
-            let est = op.estimate(runner, interrupt)?;
-            let dim = op.dim() as u64;
-            Ok(csr_size(dim, dim, est.nnz, std::mem::size_of::<S>()))
+        Ok(self.plan(op, k, 0, runner, interrupt)?.stored)
+    }
+
+    /// The memory plan of a solve of `k` levels on `op` (`held`: vectors of the space's
+    /// dimension handed in and held while the matrix is built: a start vector, or a
+    /// resumed state's), with the stored-or-matrix-free choice made from it: the
+    /// preference when given, else matrix-free when the operator's product is as fast
+    /// as a stored matrix, else stored when [`SolvePlan::peak_bytes`] fits in
+    /// [`MEMORY_BUDGET`] of the memory limit. The operator's own tables are prepared
+    /// first (they are part of the process's memory when the plan is compared with it).
+    ///
+    /// # Errors
+    /// [`CoreError::TooLarge`] when storing is asked for and the plan exceeds the memory
+    /// limit; [`CoreError::Interrupted`] while preparing or estimating.
+    pub fn plan<S: Scalar, A: Solvable<S>>(
+        &self,
+        op: &A,
+        k: usize,
+        held: usize,
+        runner: &Runner,
+        interrupt: &dyn Interrupt,
+    ) -> CoreResult<SolvePlan> {
+        let dim = op.dim() as u128;
+        let value = std::mem::size_of::<S>() as u128;
+        let free = SolvePlan {
+            stored: false,
+            matrix_bytes: 0,
+            build_bytes: 0,
+            vector_bytes: solver_vectors(k) as u128 * dim * value,
         };
+        let stored = |runner: &Runner| -> CoreResult<SolvePlan> {
+            let est = op.estimate(runner, interrupt)?;
+            let size = csr_size(dim as u64, dim as u64, est.nnz, std::mem::size_of::<S>());
+            Ok(SolvePlan {
+                stored: true,
+                matrix_bytes: size.csr_bytes,
+                build_bytes: size.build_peak_bytes - size.csr_bytes + held as u128 * dim * value,
+                ..free
+            })
+        };
+        if op.is_stored() {
+            return Ok(SolvePlan { stored: true, ..free });
+        }
+        // The product's tables: kept by the operator, used by the build as well.
+        op.matrix_free(interrupt)?;
         match self.store {
-            Some(false) => Ok(false),
+            Some(false) => Ok(free),
             Some(true) => {
+                let plan = stored(runner)?;
                 if let Some(limit) = self.limit() {
-                    let peak = size(runner)?.build_peak_bytes;
+                    let peak = plan.peak_bytes();
                     if peak > limit {
                         return Err(CoreError::TooLarge {
                             what: "storing this matrix for the solver (bytes at the peak of its \
-                                   build, estimated); solve matrix-free (store_matrix=False) or \
-                                   allow more memory (memory_limit)"
+                                   build and solve, estimated); solve matrix-free \
+                                   (store_matrix=False) or allow more memory (memory_limit)"
                                 .into(),
                             requested: peak,
                             limit,
                         });
                     }
                 }
-                Ok(true)
+                Ok(plan)
             }
             None => {
                 if op.fast_matrix_free(interrupt)? {
-                    return Ok(false);
+                    return Ok(free);
                 }
+                let plan = stored(runner)?;
                 let Some(limit) = self.limit() else {
-                    return Ok(true);
+                    return Ok(plan);
                 };
-                let vectors = solver_vectors(k) as u128 * op.dim() as u128 * std::mem::size_of::<S>() as u128;
-                let need = size(runner)?.build_peak_bytes + vectors;
-                Ok(need as f64 <= MEMORY_BUDGET * limit as f64)
+                if plan.peak_bytes() as f64 <= MEMORY_BUDGET * limit as f64 {
+                    Ok(plan)
+                } else {
+                    Ok(free)
+                }
             }
         }
     }
@@ -179,11 +246,12 @@ fn run<S: Scalar, A: Solvable<S>, T>(
     op: &A,
     storage: &Storage,
     k: usize,
+    held: usize,
     runner: &Runner,
     interrupt: &dyn Interrupt,
     solve: impl SolveOn<S, T>,
 ) -> CoreResult<(T, bool)> {
-    let stored = storage.decide(op, k, runner, interrupt)?;
+    let stored = storage.plan(op, k, held, runner, interrupt)?.stored;
     if !stored || op.is_stored() {
         let map = op.matrix_free(interrupt)?;
         return Ok((solve.on(&map)?, stored));
@@ -193,6 +261,17 @@ fn run<S: Scalar, A: Solvable<S>, T>(
         CsrAny::Wide(c) => solve.on(&CsrMap::new(c))?,
     };
     Ok((found, true))
+}
+
+/// Vectors of the space's dimension a solve holds before it starts: a resumed state
+/// (three; the levels' saved basis is counted as that many, a lower bound), else the
+/// start vector handed in.
+fn held_vectors(start: bool, resume: bool) -> usize {
+    if resume {
+        3
+    } else {
+        usize::from(start)
+    }
 }
 
 /// A solver waiting for its product (a generic closure).
@@ -296,6 +375,7 @@ pub fn ground_state_watched<S: Scalar, A: Solvable<S>>(
     interrupt: &dyn Interrupt,
     watched: Watched<'_, S>,
 ) -> CoreResult<(LanczosOutcome<S>, bool)> {
+    let held = held_vectors(start.is_some(), watched.resume.is_some());
     let solve = Ground {
         start,
         opts,
@@ -304,7 +384,7 @@ pub fn ground_state_watched<S: Scalar, A: Solvable<S>>(
         watch: watched.watch,
         resume: watched.resume,
     };
-    run(op, storage, 1, runner, interrupt, solve)
+    run(op, storage, 1, held, runner, interrupt, solve)
 }
 
 /// The lowest `k` levels ([`levels::lowest_levels`]) on `op`, stored or matrix-free as
@@ -341,6 +421,7 @@ pub fn lowest_levels_watched<S: Scalar, A: Solvable<S>>(
     interrupt: &dyn Interrupt,
     watched: Watched<'_, S>,
 ) -> CoreResult<(LevelsOutcome<S>, bool)> {
+    let held = held_vectors(start.is_some(), watched.resume.is_some());
     let solve = Lowest {
         k,
         start,
@@ -350,7 +431,7 @@ pub fn lowest_levels_watched<S: Scalar, A: Solvable<S>>(
         watch: watched.watch,
         resume: watched.resume,
     };
-    run(op, storage, k, runner, interrupt, solve)
+    run(op, storage, k, held, runner, interrupt, solve)
 }
 
 #[cfg(test)]
@@ -454,6 +535,38 @@ mod tests {
             .decide(&slow, 1, &runner, &stop)
             .unwrap_err();
         assert!(matches!(err, CoreError::TooLarge { limit: 64, .. }), "{err}");
+    }
+
+    #[test]
+    fn the_plan_counts_the_matrix_its_build_and_the_vectors() {
+        // Common practice, no source: the matrix is kept for the solve; its row counts
+        // (and a start vector handed in) live only during the build, the solver's four
+        // vectors only after it, so the peak holds the larger of the two.
+        let runner = Runner::global();
+        let stop = NoInterrupt;
+        let ring = Ring::new(false);
+        let dim = ring.dim() as u128;
+        let est = ring.estimate(&runner, &stop).unwrap();
+        assert!(est.exact);
+        let size = csr_size(dim as u64, dim as u64, est.nnz, 8);
+        for held in [0usize, 1] {
+            let plan = storage(Some(true), None)
+                .plan(&ring, 1, held, &runner, &stop)
+                .unwrap();
+            assert!(plan.stored);
+            assert_eq!(plan.matrix_bytes, size.csr_bytes);
+            assert_eq!(plan.build_bytes, 8 * (dim + 1) + held as u128 * 8 * dim);
+            assert_eq!(plan.vector_bytes, 4 * 8 * dim);
+            assert_eq!(
+                plan.peak_bytes(),
+                size.csr_bytes + plan.build_bytes.max(plan.vector_bytes)
+            );
+        }
+        let free = storage(Some(false), None)
+            .plan(&ring, 3, 0, &runner, &stop)
+            .unwrap();
+        assert_eq!((free.stored, free.matrix_bytes, free.build_bytes), (false, 0, 0));
+        assert_eq!(free.vector_bytes, (2 * 3 + 9) * 8 * dim);
     }
 
     #[test]
