@@ -30,7 +30,7 @@ use crate::error::{CoreError, CoreResult};
 use crate::memory::try_with_capacity;
 use crate::parallel::{Interrupt, Runner};
 use crate::scalar::Scalar;
-use crate::space::{Constraint, FockSpace};
+use crate::space::FockSpace;
 use crate::terms::falling;
 use crate::terms::Operator;
 use rayon::prelude::*;
@@ -51,11 +51,7 @@ const SQRT_TABLE: usize = 1 << 12;
 
 /// Number of residue classes the space's tables use.
 fn residue_count(space: &FockSpace) -> usize {
-    match space.constraint() {
-        Constraint::Free => 1,
-        Constraint::Exact { total } => total as usize + 1,
-        Constraint::Modular { modulus, .. } => modulus as usize,
-    }
+    space.residue_count()
 }
 
 /// Visit every state of modes `a..b` that starts owing `r0` and can be completed, in
@@ -159,17 +155,11 @@ fn partial_rank(space: &FockSpace, a: usize, r0: usize, occ: &[u32]) -> Option<(
     Some((rank, res))
 }
 
-/// The residue owed after a right factor changes the right charge of a state owing
-/// `r` by `delta` (the source state's residue is `r + delta`), if such a residue exists.
-fn shifted_residue(space: &FockSpace, r: usize, delta: i64) -> Option<usize> {
-    match space.constraint() {
-        Constraint::Free => Some(0),
-        Constraint::Exact { total } => {
-            let s = r as i64 + delta;
-            (s >= 0 && s <= total as i64).then_some(s as usize)
-        }
-        Constraint::Modular { modulus, .. } => Some((r as i64 + delta).rem_euclid(modulus as i64) as usize),
-    }
+/// The residue owed after a right factor changes the right charges of a state owing
+/// `r` by `deltas` (the source state's residue is `r + deltas`, digit by digit with
+/// several charges), if such a residue exists.
+fn shifted_residue(space: &FockSpace, r: usize, deltas: &[i64]) -> Option<usize> {
+    space.shift_residue(r, deltas)
 }
 
 /// What a cut costs, from counts alone (no tables built).
@@ -641,13 +631,11 @@ impl<S: Scalar> Bipartite<S> {
                     Some(&id) => id,
                     None => {
                         let id = tables.len() as u32;
-                        let delta: i64 = rf
-                            .iter()
-                            .map(|&(mode, lower, raise)| {
-                                space.weights()[mode] as i64 * (raise as i64 - lower as i64)
-                            })
-                            .sum();
-                        let table = match shifted_residue(space, r_out, delta) {
+                        let deltas = space.charge_deltas(
+                            rf.iter()
+                                .map(|&(mode, lower, raise)| (mode, raise as i64 - lower as i64)),
+                        );
+                        let table = match shifted_residue(space, r_out, &deltas) {
                             Some(r_src) if space.completions(cut, r_src) > 0 => factor_table(
                                 space,
                                 cut,
