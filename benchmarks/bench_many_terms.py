@@ -53,7 +53,6 @@ def measure(h: fm.LadderExpr, space: fm.FockSpace, repeats: int) -> tuple[list[s
     free, y = median_time(lambda: problem.matvec(x), repeats)
     stored, y_csr = median_time(lambda: matrix @ x, repeats)
     assert np.allclose(y, y_csr, atol=1e-9 * np.abs(y_csr).max()), "products disagree"
-    del matrix
     columns = [
         f"{space.dim:,}",
         f"{h.term_count():,}",

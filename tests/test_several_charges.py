@@ -145,13 +145,13 @@ def test_bad_charges_are_refused(kwargs, error, message) -> None:
 
 
 def test_bad_charge_fields_are_refused() -> None:
-    with pytest.raises(SpaceError, match="Charge.weights.1. must be >= 0"):
+    with pytest.raises(SpaceError, match=r"Charge\.weights\[1\] must be >= 0"):
         fm.Charge([1, -1], 0)
-    with pytest.raises(SpaceError, match="Charge.modulus must be >= 2"):
+    with pytest.raises(SpaceError, match=r"Charge\.modulus must be >= 2"):
         fm.Charge(1, 0, 1)
-    with pytest.raises(SpaceError, match="Charge.total must be >= 0"):
+    with pytest.raises(SpaceError, match=r"Charge\.total must be >= 0"):
         fm.Charge(1, -2)
-    with pytest.raises(TypeError, match="Charge.total"):
+    with pytest.raises(TypeError, match=r"Charge\.total"):
         fm.Charge(1, 1.5)  # type: ignore[arg-type]
 
 
@@ -281,7 +281,9 @@ def test_two_species_chain_matches_kronecker_reference(na: int, nb: int) -> None
     ground = fm.ground_state(h, space)
     assert ground.energy == pytest.approx(np.linalg.eigvalsh(dense)[0], abs=1e-8)
     # Observables see both numbers fixed.
-    total_a = sum(complex(fm.expectation(fm.number(i), space, ground.vector)).real for i in range(sites))
+    total_a = sum(
+        complex(fm.expectation(fm.number(i), space, ground.vector)).real for i in range(sites)
+    )
     assert total_a == pytest.approx(na, abs=1e-9)
     # A term changing one species' number is refused, naming the charge.
     with pytest.raises(ChargeError, match="charge 1 of 2"):
@@ -301,7 +303,9 @@ def test_lowering_between_two_species_sectors() -> None:
     (src, src_states), (dst, dst_states) = sector(2, 1), sector(1, 1)
     dense = restrict(dense_matrix(fm.lowering(0), [cutoff] * 4), full, full)
     index = {tuple(s): k for k, s in enumerate(full)}
-    expected = dense[np.ix_([index[tuple(s)] for s in dst_states], [index[tuple(s)] for s in src_states])]
+    expected = dense[
+        np.ix_([index[tuple(s)] for s in dst_states], [index[tuple(s)] for s in src_states])
+    ]
     got = fm.build_matrix(fm.lowering(0), src, target=dst).toarray()
     np.testing.assert_allclose(got, expected, atol=1e-12)
     with pytest.raises(ChargeError):
@@ -320,7 +324,8 @@ def test_lowering_between_two_species_sectors() -> None:
         (
             lambda: species_chain(3, 1.0, 0.6, 2.0, 3.1, 1.3),
             lambda: fm.FockSpace(
-                cutoff=[3] * 6, charges=[fm.Charge([1, 1, 1, 0, 0, 0], 2), fm.Charge([0, 0, 0, 1, 1, 1], 2)]
+                cutoff=[3] * 6,
+                charges=[fm.Charge([1, 1, 1, 0, 0, 0], 2), fm.Charge([0, 0, 0, 1, 1, 1], 2)],
             ),
         ),
     ],
@@ -349,13 +354,17 @@ def test_symmetric_sector_of_a_two_species_space() -> None:
     sites = 4
     charges = [fm.Charge([1] * sites + [0] * sites, 2), fm.Charge([0] * sites + [1] * sites, 1)]
     base = fm.FockSpace(cutoff=[2] * (2 * sites), charges=charges)
-    shift = [(i + 1) % sites for i in range(sites)] + [sites + (i + 1) % sites for i in range(sites)]
+    shift = [(i + 1) % sites for i in range(sites)] + [
+        sites + (i + 1) % sites for i in range(sites)
+    ]
     t = fm.ModePermutation(shift)
     h = fm.LadderExpr()
     for s in (0, sites):
         for i in range(sites):
             j = (i + 1) % sites
-            h = h - (fm.raising(s + i) * fm.lowering(s + j) + fm.raising(s + j) * fm.lowering(s + i))
+            h = h - (
+                fm.raising(s + i) * fm.lowering(s + j) + fm.raising(s + j) * fm.lowering(s + i)
+            )
     for i in range(sites):
         h = h + 1.7 * fm.number(i) * fm.number(sites + i)
     levels = []

@@ -160,8 +160,7 @@ def _as_charge(item: object, index: int) -> Charge:
         except (SpaceError, TypeError) as exc:
             raise type(exc)(f"charges[{index}]: {exc}") from None
     raise TypeError(
-        f"charges[{index}] must be a fm.Charge(weights=..., total=..., modulus=...); got "
-        f"{item!r}"
+        f"charges[{index}] must be a fm.Charge(weights=..., total=..., modulus=...); got {item!r}"
     )
 
 
@@ -321,9 +320,7 @@ class FockSpace:
         self._total = total_value
         self._modulus = modulus_value
         self._charges: tuple[Charge, ...] = (
-            ()
-            if total_value is None
-            else (Charge(self._weights, self.total or 0, modulus_value),)
+            () if total_value is None else (Charge(self._weights, self.total or 0, modulus_value),)
         )
 
     def _init_several(self, cutoffs: list[int], listed: list[Charge]) -> None:
@@ -339,7 +336,9 @@ class FockSpace:
                 )
             for name, value in (("total", charge.total), ("modulus", charge.modulus)):
                 if value is not None and value > _MAX_TOTAL:
-                    raise SpaceError(f"charges[{n}].{name} must be at most {_MAX_TOTAL}; got {value}")
+                    raise SpaceError(
+                        f"charges[{n}].{name} must be at most {_MAX_TOTAL}; got {value}"
+                    )
             spec.append((w, charge.total, charge.modulus))
         try:
             self._native = _native.NativeSpace(cutoffs, charges=spec)
@@ -360,9 +359,7 @@ class FockSpace:
         self._weights = tuple(spec[0][0])
         self._total = None
         self._modulus = None
-        self._charges = tuple(
-            Charge(tuple(w), t, m) for w, t, m in self._native.charges
-        )
+        self._charges = tuple(Charge(tuple(w), t, m) for w, t, m in self._native.charges)
 
     @property
     def modes(self) -> int:

@@ -149,17 +149,17 @@ impl<S: Scalar> Between<S> {
             let deltas = charged.charge_deltas(factors.iter().map(|&(mode, p, q)| (mode, p as i64 - q as i64)));
             if !project && !lands_in(source, target, &deltas) {
                 let delta = deltas.first().copied().unwrap_or(0);
-                let change = if deltas.len() > 1 {
-                    format!("the charges by {deltas:?}")
+                let advice = if deltas.len() > 1 {
+                    format!("choose the target whose totals are the source's shifted by {deltas:?}")
                 } else {
-                    format!("plus {delta}")
+                    format!("choose the target whose total is the source's plus {delta}")
                 };
                 return Err(CoreError::ChargeViolation {
                     term: name,
                     charge: delta,
                     conserved: format!(
                         "it carries the source sector ({}) outside the target sector ({}); \
-                         choose the target whose total is the source's {change}",
+                         {advice}",
                         describe(source),
                         describe(target)
                     ),

@@ -1780,6 +1780,84 @@ mod tests {
         compare::<f64>(&modw, &mterms, real);
     }
 
+    /// `c a_i† a_j† a_k a_l` as a raw term (repeated modes merged into powers).
+    fn pair(c: f64, i: usize, j: usize, k: usize, l: usize) -> RawTerm {
+        let mut factors: Vec<(usize, u32, u32)> = Vec::new();
+        for (mode, up) in [(i, true), (j, true), (k, false), (l, false)] {
+            match factors.iter_mut().find(|f| f.0 == mode) {
+                Some(f) if up => f.1 += 1,
+                Some(f) => f.2 += 1,
+                None => factors.push((mode, up as u32, (!up) as u32)),
+            }
+        }
+        factors.sort_unstable();
+        RawTerm::new(c, 0.0, factors)
+    }
+
+    #[test]
+    fn several_charges_every_cut() {
+        use crate::space::Charge;
+        // Momentum ring: number exact, momentum mod L (a mixed residue).
+        let l = 4;
+        let mut terms = Vec::new();
+        for k in 0..l {
+            terms.push(RawTerm::new(-2.0 * (k as f64).cos(), 0.0, vec![(k, 1, 1)]));
+            for p in 0..l {
+                for q in 0..l {
+                    terms.push(pair(0.3 + 0.01 * (k + 2 * p + 3 * q) as f64, (k + q) % l, (p + l - q) % l, p, k));
+                }
+            }
+        }
+        let ks: Vec<u32> = (0..l as u32).collect();
+        for total_k in [0, 1] {
+            let space = FockSpace::with_charges(
+                vec![3; l],
+                vec![
+                    Charge {
+                        weights: vec![1; l],
+                        total: 3,
+                        modulus: None,
+                    },
+                    Charge {
+                        weights: ks.clone(),
+                        total: total_k,
+                        modulus: Some(l as u64),
+                    },
+                ],
+            )
+            .unwrap();
+            // Hermitian parts do not matter here: every term conserves both charges.
+            compare::<f64>(&space, &terms, real);
+        }
+        // Two species, both numbers exact (the packed residue).
+        let mut species = Vec::new();
+        for s in [0, 3] {
+            for i in 0..2 {
+                species.push(RawTerm::new(-0.8, 0.0, vec![(s + i, 1, 0), (s + i + 1, 0, 1)]));
+                species.push(RawTerm::new(-0.8, 0.0, vec![(s + i, 0, 1), (s + i + 1, 1, 0)]));
+            }
+            species.push(RawTerm::new(0.7, 0.0, vec![(s + 1, 2, 2)]));
+        }
+        species.push(RawTerm::new(0.45, 0.0, vec![(0, 1, 1), (3, 1, 1)]));
+        let two = FockSpace::with_charges(
+            vec![2; 6],
+            vec![
+                Charge {
+                    weights: vec![1, 1, 1, 0, 0, 0],
+                    total: 2,
+                    modulus: None,
+                },
+                Charge {
+                    weights: vec![0, 0, 0, 1, 1, 1],
+                    total: 3,
+                    modulus: None,
+                },
+            ],
+        )
+        .unwrap();
+        compare::<f64>(&two, &species, real);
+    }
+
     #[test]
     fn complex_coefficients_and_emitters() {
         let terms = vec![

@@ -464,16 +464,16 @@ impl FockSpace {
         let weights = &self.mode_weights[mode * k..(mode + 1) * k];
         let mut rest = residue as u64;
         let mut out = 0u64;
-        for c in 0..k {
-            let radix = self.radix[c];
+        let digits = self.charges.iter().zip(&self.radix).zip(&self.stride).zip(weights);
+        for (((charge, &radix), &stride), &w) in digits {
             let digit = rest % radix;
             rest /= radix;
-            let delta = weights[c] as u64 * v as u64;
-            let next = match self.charges[c].modulus {
+            let delta = w as u64 * v as u64;
+            let next = match charge.modulus {
                 None => digit.checked_sub(delta)?,
                 Some(m) => (digit + m - delta % m) % m,
             };
-            out += next * self.stride[c];
+            out += next * stride;
         }
         Some(out as usize)
     }
@@ -858,9 +858,9 @@ mod tests {
             assert_eq!(r2, res);
             if space.all_exact() {
                 // The packed weights step the combined residue of valid states exactly.
-                for i in 0..m {
-                    let next = if i + 1 < m { res[i + 1] as u64 } else { 0 };
-                    assert_eq!(res[i] as u64 - space.packed_weights()[i] * state[i] as u64, next);
+                for (i, &n) in state.iter().enumerate() {
+                    let next = res.get(i + 1).map_or(0, |&r| r as u64);
+                    assert_eq!(res[i] as u64 - space.packed_weights()[i] * n as u64, next);
                 }
             }
             let next = space.advance(&mut occ, &mut res);
