@@ -83,7 +83,8 @@ impl<S: Scalar> Between<S> {
         }
         let constrained = |s: &FockSpace| !matches!(s.constraint(), Constraint::Free);
         if constrained(source) && constrained(target) {
-            let weights = |s: &FockSpace| -> Vec<Vec<u32>> { s.charges().iter().map(|c| c.weights.clone()).collect() };
+            let weights =
+                |s: &FockSpace| -> Vec<Vec<u32>> { s.charges().iter().map(|c| c.weights.clone()).collect() };
             let (ws, wt) = (weights(source), weights(target));
             if ws.len() != wt.len() {
                 return Err(CoreError::InvalidSpace(format!(
@@ -145,8 +146,13 @@ impl<S: Scalar> Between<S> {
                     )));
                 }
             }
-            let charged = if source.charges().is_empty() { target } else { source };
-            let deltas = charged.charge_deltas(factors.iter().map(|&(mode, p, q)| (mode, p as i64 - q as i64)));
+            let charged = if source.charges().is_empty() {
+                target
+            } else {
+                source
+            };
+            let deltas =
+                charged.charge_deltas(factors.iter().map(|&(mode, p, q)| (mode, p as i64 - q as i64)));
             if !project && !lands_in(source, target, &deltas) {
                 let delta = deltas.first().copied().unwrap_or(0);
                 let advice = if deltas.len() > 1 {
@@ -507,8 +513,15 @@ mod tests {
         assert!(Between::<f64>::new(&src, &src, &hop, false).is_ok());
         assert!(Between::<f64>::new(&src, &dst, &hop, false).is_err());
         // Raising species B needs the target with one more B.
-        assert!(Between::<f64>::new(&src, &species(2, 2), &[RawTerm::new(1.0, 0.0, vec![(2, 1, 0)])], false).is_ok());
-        let e = Between::<f64>::new(&src, &dst, &[RawTerm::new(1.0, 0.0, vec![(2, 1, 0)])], false).unwrap_err();
+        assert!(Between::<f64>::new(
+            &src,
+            &species(2, 2),
+            &[RawTerm::new(1.0, 0.0, vec![(2, 1, 0)])],
+            false
+        )
+        .is_ok());
+        let e =
+            Between::<f64>::new(&src, &dst, &[RawTerm::new(1.0, 0.0, vec![(2, 1, 0)])], false).unwrap_err();
         assert!(matches!(e, CoreError::ChargeViolation { .. }), "{e}");
         // A one-charge target cannot be compared with a two-charge source.
         let one = FockSpace::new(vec![2; 4], None, Some(2), None).unwrap();

@@ -1804,7 +1804,13 @@ mod tests {
             terms.push(RawTerm::new(-2.0 * (k as f64).cos(), 0.0, vec![(k, 1, 1)]));
             for p in 0..l {
                 for q in 0..l {
-                    terms.push(pair(0.3 + 0.01 * (k + 2 * p + 3 * q) as f64, (k + q) % l, (p + l - q) % l, p, k));
+                    terms.push(pair(
+                        0.3 + 0.01 * (k + 2 * p + 3 * q) as f64,
+                        (k + q) % l,
+                        (p + l - q) % l,
+                        p,
+                        k,
+                    ));
                 }
             }
         }

@@ -243,7 +243,9 @@ impl FockSpace {
                 charge.total %= m;
             }
         }
-        let weights = charges.first().map_or_else(|| vec![1; modes], |c| c.weights.clone());
+        let weights = charges
+            .first()
+            .map_or_else(|| vec![1; modes], |c| c.weights.clone());
         Self::build(cutoffs, weights, charges)
     }
 
@@ -464,7 +466,12 @@ impl FockSpace {
         let weights = &self.mode_weights[mode * k..(mode + 1) * k];
         let mut rest = residue as u64;
         let mut out = 0u64;
-        let digits = self.charges.iter().zip(&self.radix).zip(&self.stride).zip(weights);
+        let digits = self
+            .charges
+            .iter()
+            .zip(&self.radix)
+            .zip(&self.stride)
+            .zip(weights);
         for (((charge, &radix), &stride), &w) in digits {
             let digit = rest % radix;
             rest /= radix;
@@ -825,7 +832,11 @@ mod tests {
             .into_iter()
             .filter(|occ| {
                 charges.iter().all(|c| {
-                    let q: u64 = occ.iter().zip(&c.weights).map(|(&n, &w)| n as u64 * w as u64).sum();
+                    let q: u64 = occ
+                        .iter()
+                        .zip(&c.weights)
+                        .map(|(&n, &w)| n as u64 * w as u64)
+                        .sum();
                     match c.modulus {
                         None => q == c.total,
                         Some(m) => q % m == c.total % m,
@@ -895,17 +906,27 @@ mod tests {
         // Number and momentum mod 4 on a 4-mode ring (common practice, no source).
         for n in 0..=4 {
             for k in 0..4 {
-                check_charges(&[4, 4, 4, 4], vec![exact(&[1, 1, 1, 1], n), modular(&[0, 1, 2, 3], k, 4)]);
+                check_charges(
+                    &[4, 4, 4, 4],
+                    vec![exact(&[1, 1, 1, 1], n), modular(&[0, 1, 2, 3], k, 4)],
+                );
             }
         }
         // Two species, each number fixed.
         for (na, nb) in [(0, 0), (1, 2), (2, 1), (3, 3), (2, 0)] {
-            check_charges(&[3, 3, 3, 3, 3, 3], vec![exact(&[1, 1, 1, 0, 0, 0], na), exact(&[0, 0, 0, 1, 1, 1], nb)]);
+            check_charges(
+                &[3, 3, 3, 3, 3, 3],
+                vec![exact(&[1, 1, 1, 0, 0, 0], na), exact(&[0, 0, 0, 1, 1, 1], nb)],
+            );
         }
         // Mixed weights, three charges, a modular one first.
         check_charges(
             &[2, 3, 2, 1],
-            vec![modular(&[1, 2, 0, 1], 1, 3), exact(&[1, 1, 2, 0], 3), modular(&[1, 1, 1, 1], 0, 2)],
+            vec![
+                modular(&[1, 2, 0, 1], 1, 3),
+                exact(&[1, 1, 2, 0], 3),
+                modular(&[1, 1, 1, 1], 0, 2),
+            ],
         );
         check_charges(&[2, 2, 2], vec![exact(&[2, 0, 1], 2), exact(&[0, 3, 1], 3)]);
         // Weights above a total leave a mode empty; zero weights leave it free.
@@ -926,7 +947,8 @@ mod tests {
         assert_eq!(a.constraint(), b.constraint());
         assert_eq!(a.dim(), b.dim());
         assert_eq!(a.offset_table(), b.offset_table());
-        let two = FockSpace::with_charges(vec![3, 3, 3], vec![exact(&[1, 1, 1], 3), exact(&[0, 1, 2], 3)]).unwrap();
+        let two =
+            FockSpace::with_charges(vec![3, 3, 3], vec![exact(&[1, 1, 1], 3), exact(&[0, 1, 2], 3)]).unwrap();
         assert_eq!(two.constraint(), Constraint::Several);
         assert_eq!(two.residue_count(), 16);
     }
@@ -934,15 +956,22 @@ mod tests {
     #[test]
     fn several_charges_reject_bad_specs() {
         let bad_len = FockSpace::with_charges(vec![2, 2], vec![exact(&[1], 1), exact(&[1, 1], 1)]);
-        assert!(matches!(bad_len, Err(CoreError::InvalidSpace(ref m)) if m.contains("charge 0 has 1 weights")));
+        assert!(
+            matches!(bad_len, Err(CoreError::InvalidSpace(ref m)) if m.contains("charge 0 has 1 weights"))
+        );
         let bad_mod = FockSpace::with_charges(vec![2, 2], vec![exact(&[1, 1], 1), modular(&[1, 1], 0, 1)]);
-        assert!(matches!(bad_mod, Err(CoreError::InvalidSpace(ref m)) if m.contains("charge 1 has modulus 1")));
+        assert!(
+            matches!(bad_mod, Err(CoreError::InvalidSpace(ref m)) if m.contains("charge 1 has modulus 1"))
+        );
         let unreachable = FockSpace::with_charges(vec![2, 2], vec![exact(&[1, 1], 1), exact(&[0, 1], 3)]);
         assert!(matches!(unreachable, Err(CoreError::EmptySpace(ref m)) if m.contains("charge 1")));
         // 2^13 x 2^13 residue classes: refused before any table is allocated.
         let huge = FockSpace::with_charges(
             vec![10; 8],
-            vec![modular(&[1; 8], 0, 1 << 13), modular(&[0, 1, 2, 3, 4, 5, 6, 7], 0, 1 << 13)],
+            vec![
+                modular(&[1; 8], 0, 1 << 13),
+                modular(&[0, 1, 2, 3, 4, 5, 6, 7], 0, 1 << 13),
+            ],
         );
         assert!(matches!(huge, Err(CoreError::TooLarge { ref what, .. }) if what.contains("8192 x 8192")));
         let many = FockSpace::with_charges(vec![1; 2], vec![exact(&[0, 0], 0); MAX_CHARGES + 1]);
@@ -951,7 +980,11 @@ mod tests {
 
     #[test]
     fn charge_deltas_and_residue_shifts() {
-        let s = FockSpace::with_charges(vec![2, 2, 2], vec![exact(&[1, 1, 1], 2), modular(&[0, 1, 2], 1, 3)]).unwrap();
+        let s = FockSpace::with_charges(
+            vec![2, 2, 2],
+            vec![exact(&[1, 1, 1], 2), modular(&[0, 1, 2], 1, 3)],
+        )
+        .unwrap();
         let d = s.charge_deltas([(0, -1), (2, 1)]);
         assert_eq!(d, vec![0, 2]);
         assert_eq!(s.broken_charge(&d), Some(1));

@@ -199,7 +199,10 @@ impl PackedRank {
 /// The weights of mode `i` in words: one number, or one per charge with several.
 fn weights_of(base: &FockSpace, i: usize) -> String {
     match base.charges() {
-        [_, _, ..] => format!("{:?}", base.charges().iter().map(|c| c.weights[i]).collect::<Vec<_>>()),
+        [_, _, ..] => format!(
+            "{:?}",
+            base.charges().iter().map(|c| c.weights[i]).collect::<Vec<_>>()
+        ),
         _ => base.weights()[i].to_string(),
     }
 }

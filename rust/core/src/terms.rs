@@ -378,7 +378,8 @@ mod tests {
             ],
         )
         .unwrap();
-        let e = Operator::<f64>::new(&ring, &[RawTerm::new(1.0, 0.0, vec![(0, 0, 1), (1, 1, 0)])]).unwrap_err();
+        let e =
+            Operator::<f64>::new(&ring, &[RawTerm::new(1.0, 0.0, vec![(0, 0, 1), (1, 1, 0)])]).unwrap_err();
         assert!(matches!(e, CoreError::ChargeViolation { charge: 1, .. }), "{e}");
         assert!(e.to_string().contains("charge 1 of 2"), "{e}");
         let pair = vec![(0, 1, 0), (1, 0, 2), (2, 1, 0)];

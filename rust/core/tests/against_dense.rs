@@ -105,7 +105,11 @@ fn check_charges(cutoffs: &[u32], charges: &[Charge], terms: &[RawTerm]) {
         .into_iter()
         .filter(|occ| {
             charges.iter().all(|c| {
-                let q: u64 = occ.iter().zip(&c.weights).map(|(&n, &w)| n as u64 * w as u64).sum();
+                let q: u64 = occ
+                    .iter()
+                    .zip(&c.weights)
+                    .map(|(&n, &w)| n as u64 * w as u64)
+                    .sum();
                 match c.modulus {
                     None => q == c.total,
                     Some(m) => q % m == c.total % m,
@@ -385,7 +389,11 @@ fn momentum_ring(l: usize, u: f64) -> Vec<RawTerm> {
         terms.push(monomial(eps, &[k], &[k]));
         for p in 0..l {
             for q in 0..l {
-                terms.push(monomial(u / (2.0 * l as f64), &[(k + q) % l, (p + l - q) % l], &[p, k]));
+                terms.push(monomial(
+                    u / (2.0 * l as f64),
+                    &[(k + q) % l, (p + l - q) % l],
+                    &[p, k],
+                ));
             }
         }
     }
@@ -434,7 +442,10 @@ fn several_exact_charges_two_species_and_angular_momentum() {
     for (na, nb) in [(2u64, 1u64), (2, 2), (0, 3), (3, 3)] {
         check_charges(
             &[3; 6],
-            &[exact(vec![1, 1, 1, 0, 0, 0], na), exact(vec![0, 0, 0, 1, 1, 1], nb)],
+            &[
+                exact(vec![1, 1, 1, 0, 0, 0], na),
+                exact(vec![0, 0, 0, 1, 1, 1], nb),
+            ],
             &terms,
         );
     }
