@@ -806,9 +806,9 @@ impl SymmetricSpace {
                          {}, weight {}); a symmetry must map modes to modes with the same cutoff \
                          and weight (in every conserved charge)",
                         base.cutoffs()[i],
-                        weights_of(base, i),
+                        weights_of(&base, i),
                         base.cutoffs()[j],
-                        weights_of(base, j)
+                        weights_of(&base, j)
                     )));
                 }
             }
