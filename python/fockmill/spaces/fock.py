@@ -320,7 +320,15 @@ class FockSpace:
         self._total = total_value
         self._modulus = modulus_value
         self._charges: tuple[Charge, ...] = (
-            () if total_value is None else (Charge(self._weights, self.total or 0, modulus_value),)
+            ()
+            if total_value is None
+            else (
+                Charge(
+                    self._weights,
+                    total_value % modulus_value if modulus_value else total_value,
+                    modulus_value,
+                ),
+            )
         )
 
     def _init_several(self, cutoffs: list[int], listed: list[Charge]) -> None:
