@@ -125,7 +125,7 @@ fn check_on(space: &FockSpace, states: &[Vec<u32>], cutoffs: &[u32], terms: &[Ra
     let space = space.clone();
     assert_eq!(space.dim() as usize, states.len());
     let op = Operator::<f64>::new(&space, terms).unwrap();
-    let expected = dense(&states, terms, cutoffs);
+    let expected = dense(states, terms, cutoffs);
     for threads in [1, 2] {
         let runner = Runner::with_threads(Some(threads)).unwrap();
         for wide in [false, true] {
