@@ -12,6 +12,9 @@ use numpy::{IntoPyArray, PyArray1, PyReadonlyArray2, PyUntypedArrayMethods};
 use pyo3::prelude::*;
 use std::sync::Arc;
 
+/// One conserved charge as Python gives it: `(weights, total, modulus)`.
+type ChargeSpec = (Vec<u32>, u64, Option<u64>);
+
 /// A Fock space: cutoffs, weights and an optional conserved (modular) total.
 #[pyclass(frozen, module = "fockmill._native")]
 pub struct NativeSpace {
@@ -27,7 +30,7 @@ impl NativeSpace {
         weights: Option<Vec<u32>>,
         total: Option<u64>,
         modulus: Option<u64>,
-        charges: Option<Vec<(Vec<u32>, u64, Option<u64>)>>,
+        charges: Option<Vec<ChargeSpec>>,
     ) -> PyResult<Self> {
         guarded(|| {
             let inner = match charges {
@@ -79,7 +82,7 @@ impl NativeSpace {
 
     /// The conserved charges as `(weights, total, modulus)`, modular totals reduced.
     #[getter]
-    fn charges(&self) -> Vec<(Vec<u32>, u64, Option<u64>)> {
+    fn charges(&self) -> Vec<ChargeSpec> {
         self.inner
             .charges()
             .iter()
