@@ -6,8 +6,9 @@ matrices, matrix-free operators, ground states and observables computed in Rust.
 
 Public names
 ------------
-FockSpace
-    Truncated multi-mode Fock space or conserved-charge sector.
+FockSpace, Charge
+    Truncated multi-mode Fock space or conserved-charge sector (several charges at
+    once with ``charges=[Charge(...), ...]``).
 prepare, Problem
     An expression compiled on a space once (validation, compiled terms, product
     kernel, thread pool, memory estimate), reused by every build, product and solve.
@@ -139,6 +140,7 @@ from fockmill.solvers import (
     momentum_levels,
 )
 from fockmill.spaces import (
+    Charge,
     FockSpace,
     ModePermutation,
     SymmetricSpace,
@@ -160,6 +162,7 @@ from fockmill.workflows import run_quench, run_spectrum, run_thermal
 
 __all__ = [
     "AccuracyWarning",
+    "Charge",
     "CheckpointError",
     "CutoffScan",
     "CutoffWarning",

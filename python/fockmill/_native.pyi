@@ -79,6 +79,9 @@ class NativeSpace:
         Conserved weighted total (None: the full truncated space).
     modulus : int, optional
         Conserve the total modulo this (>= 2); needs ``total``.
+    charges : list of (list of int, int, int or None), optional
+        Several conserved charges ``(weights, total, modulus)`` at once, instead of
+        ``weights``/``total``/``modulus``.
     """
 
     def __new__(
@@ -87,6 +90,7 @@ class NativeSpace:
         weights: list[int] | None = None,
         total: int | None = None,
         modulus: int | None = None,
+        charges: list[tuple[list[int], int, int | None]] | None = None,
     ) -> NativeSpace: ...
     @property
     def dim(self) -> int: ...
@@ -96,6 +100,8 @@ class NativeSpace:
     def cutoffs(self) -> list[int]: ...
     @property
     def weights(self) -> list[int]: ...
+    @property
+    def charges(self) -> list[tuple[list[int], int, int | None]]: ...
     def occupations(
         self, threads: int | NativePool | None = None
     ) -> npt.NDArray[np.uint8] | npt.NDArray[np.uint16]:

@@ -6,12 +6,15 @@ use crate::errors::{guarded, PyCoreError};
 use crate::threads::{detached, Threads};
 use fockmill_core::orbit_table::TableChoice;
 use fockmill_core::symmetry::{Generator, SymmetricSpace};
-use fockmill_core::{observe, CoreError, FockSpace};
+use fockmill_core::{observe, Charge, CoreError, FockSpace};
 use num_complex::Complex64;
 use numpy::ndarray::Array2;
 use numpy::{IntoPyArray, PyArray1, PyReadonlyArray2, PyUntypedArrayMethods};
 use pyo3::prelude::*;
 use std::sync::Arc;
+
+/// One conserved charge as Python gives it: `(weights, total, modulus)`.
+type ChargeSpec = (Vec<u32>, u64, Option<u64>);
 
 /// A Fock space: cutoffs, weights and an optional conserved (modular) total.
 #[pyclass(frozen, module = "fockmill._native")]
@@ -22,15 +25,36 @@ pub struct NativeSpace {
 #[pymethods]
 impl NativeSpace {
     #[new]
-    #[pyo3(signature = (cutoffs, weights=None, total=None, modulus=None))]
+    #[pyo3(signature = (cutoffs, weights=None, total=None, modulus=None, charges=None))]
     fn new(
         cutoffs: Vec<u32>,
         weights: Option<Vec<u32>>,
         total: Option<u64>,
         modulus: Option<u64>,
+        charges: Option<Vec<ChargeSpec>>,
     ) -> PyResult<Self> {
         guarded(|| {
-            let inner = FockSpace::new(cutoffs, weights, total, modulus).map_err(PyCoreError)?;
+            let inner = match charges {
+                None => FockSpace::new(cutoffs, weights, total, modulus),
+                Some(_) if weights.is_some() || total.is_some() || modulus.is_some() => {
+                    Err(CoreError::InvalidSpace(
+                        "give either charges or weights/total/modulus, not both; put the one-charge \
+                         keywords into the list of charges"
+                            .into(),
+                    ))
+                }
+                Some(list) => FockSpace::with_charges(
+                    cutoffs,
+                    list.into_iter()
+                        .map(|(weights, total, modulus)| Charge {
+                            weights,
+                            total,
+                            modulus,
+                        })
+                        .collect(),
+                ),
+            }
+            .map_err(PyCoreError)?;
             Ok(NativeSpace {
                 inner: Arc::new(inner),
             })
@@ -55,6 +79,16 @@ impl NativeSpace {
     #[getter]
     fn weights(&self) -> Vec<u32> {
         self.inner.weights().to_vec()
+    }
+
+    /// The conserved charges as `(weights, total, modulus)`, modular totals reduced.
+    #[getter]
+    fn charges(&self) -> Vec<ChargeSpec> {
+        self.inner
+            .charges()
+            .iter()
+            .map(|c| (c.weights.clone(), c.total, c.modulus))
+            .collect()
     }
 
     /// Occupations of every basis state, shape (dim, modes), uint8 or uint16.

@@ -259,7 +259,7 @@ def sector_structure(
 ) -> tuple[list[int], dict[int, int]] | None:
     """The charges of the number sectors and each jump's fixed charge change, when the
     block structure applies (see :func:`build_liouvillian`); else None."""
-    if space.total is not None or space.modulus is not None:
+    if space.charges:
         return None
     weights = space.weights
     if _charge_of(hamiltonian, weights) - {0}:

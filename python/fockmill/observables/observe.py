@@ -62,12 +62,10 @@ def _norm_sq(v: npt.NDArray[Any]) -> float:
 
 
 def _conserving(key: MonomialKey, space: FockSpace) -> bool:
-    charge = sum(space.weights[m] * (p - q) for m, p, q in key)
-    if space.total is None:
-        return True
-    if space.modulus is not None:
-        return charge % space.modulus == 0
-    return charge == 0
+    changes: dict[int, int] = {}
+    for m, p, q in key:
+        changes[m] = changes.get(m, 0) + p - q
+    return space.conserves(changes)
 
 
 def _check_modes(key: MonomialKey, space: FockSpace) -> None:
@@ -303,16 +301,20 @@ def entanglement_entropy(
         return 0.0
     v = v / np.sqrt(_norm_sq(v))
     occ = s.occupations().astype(np.int64)
-    weights = np.asarray(s.weights, dtype=np.int64)
     _, ia = np.unique(occ[:, a], axis=0, return_inverse=True)
     _, ib = np.unique(occ[:, b], axis=0, return_inverse=True)
     ia, ib = ia.reshape(-1), ib.reshape(-1)
-    charge_a = occ[:, a] @ weights[a] if s.total is not None else np.zeros(s.dim, np.int64)
-    if s.modulus is not None:
-        charge_a = charge_a % s.modulus
+    # The subsystem's value of every conserved charge labels the Schmidt blocks.
+    columns = [np.zeros(s.dim, np.int64)]
+    for charge in s.charges:
+        weights = np.broadcast_to(np.asarray(charge.weights, dtype=np.int64), (s.modes,))
+        column = occ[:, a] @ weights[a]
+        columns.append(column % charge.modulus if charge.modulus else column)
+    _, block_of = np.unique(np.stack(columns, axis=1), axis=0, return_inverse=True)
+    block_of = block_of.reshape(-1)
     entropy = 0.0
-    for q in np.unique(charge_a):
-        sel = np.nonzero(charge_a == q)[0]
+    for q in np.unique(block_of):
+        sel = np.nonzero(block_of == q)[0]
         ra, ra_inv = np.unique(ia[sel], return_inverse=True)
         rb, rb_inv = np.unique(ib[sel], return_inverse=True)
         nbytes = ra.size * rb.size * v.itemsize

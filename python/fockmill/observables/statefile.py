@@ -36,7 +36,7 @@ from typing import Any
 import numpy as np
 import numpy.typing as npt
 
-from fockmill.exceptions import StateFileError, SymmetryError
+from fockmill.exceptions import SpaceError, StateFileError, SymmetryError
 from fockmill.observables.observe import check_vector
 from fockmill.spaces.checks import check_space
 from fockmill.spaces.fock import FockSpace
@@ -138,6 +138,12 @@ def save_state(
             "does not hold. Save the state in the base space instead: "
             "fm.save_state(path, sector.base, sector.expand(vector)), and after loading, "
             "sector.project(saved.vector)"
+        )
+    if s.several:
+        raise SpaceError(
+            "save_state stores spaces with at most one conserved charge; this space fixes "
+            f"{len(s.charges)}. Save the vector with numpy.save and the space with pickle "
+            "(a FockSpace pickles to its cutoffs and charges)"
         )
     v = check_vector(s, vector)
     try:

@@ -3,7 +3,7 @@ symmetry sectors.
 """
 
 from fockmill.spaces.checks import check_space, check_terms
-from fockmill.spaces.fock import FockSpace
+from fockmill.spaces.fock import Charge, FockSpace
 from fockmill.spaces.sectors import SectorChoice
 from fockmill.spaces.symmetry import (
     ModePermutation,
@@ -14,6 +14,7 @@ from fockmill.spaces.symmetry import (
 )
 
 __all__ = [
+    "Charge",
     "FockSpace",
     "ModePermutation",
     "SectorChoice",

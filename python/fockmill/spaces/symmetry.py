@@ -14,7 +14,7 @@ from __future__ import annotations
 import cmath
 import math
 import numbers
-from collections.abc import Sequence
+from collections.abc import Mapping, Sequence
 from typing import Any
 
 import numpy as np
@@ -24,7 +24,7 @@ import fockmill._native as _native
 from fockmill.algebra.expressions import LadderExpr, MonomialKey, format_monomial
 from fockmill.exceptions import SymmetryError
 from fockmill.settings.checks import check_threads
-from fockmill.spaces.fock import FockSpace
+from fockmill.spaces.fock import Charge, FockSpace
 
 __all__ = [
     "ModePermutation",
@@ -36,6 +36,15 @@ __all__ = [
 
 #: Relative tolerance of the invariance check (coefficients compared to the largest).
 INVARIANCE_TOL = 1e-12
+
+
+def _weights_at(space: FockSpace, mode: int) -> int | tuple[int, ...]:
+    """The weight of ``mode`` in the space's charge (one per charge with several)."""
+    if not space.several:
+        return space.weights[mode]
+    return tuple(
+        c.weights if isinstance(c.weights, int) else c.weights[mode] for c in space.charges
+    )
 
 
 class ModePermutation:
@@ -340,12 +349,15 @@ class SymmetricSpace:
                     f"{space.modes}; give one image per mode"
                 )
             for i, j in enumerate(g.images):
-                if space.cutoffs[i] != space.cutoffs[j] or space.weights[i] != space.weights[j]:
+                if space.cutoffs[i] != space.cutoffs[j] or _weights_at(space, i) != _weights_at(
+                    space, j
+                ):
                     raise SymmetryError(
                         f"generator {n} ({g!r}) moves mode {i} (cutoff {space.cutoffs[i]}, "
-                        f"weight {space.weights[i]}) to mode {j} (cutoff {space.cutoffs[j]}, "
-                        f"weight {space.weights[j]}); a symmetry must map each mode to one "
-                        "with the same cutoff and weight"
+                        f"weight {_weights_at(space, i)}) to mode {j} (cutoff "
+                        f"{space.cutoffs[j]}, weight {_weights_at(space, j)}); a symmetry "
+                        "must map each mode to one with the same cutoff and weight (in every "
+                        "conserved charge)"
                     )
             if not 0 <= q < g.order:
                 raise SymmetryError(
@@ -423,6 +435,20 @@ class SymmetricSpace:
     def weights(self) -> tuple[int, ...]:
         """Weights of the base space."""
         return self._base.weights
+
+    @property
+    def several(self) -> bool:
+        """Whether the base space fixes several charges."""
+        return self._base.several
+
+    @property
+    def charges(self) -> tuple[Charge, ...]:
+        """The conserved charges of the base space."""
+        return self._base.charges
+
+    def conserves(self, changes: Mapping[int, int]) -> bool:
+        """As :meth:`FockSpace.conserves` of the base space."""
+        return self._base.conserves(changes)
 
     @property
     def total(self) -> int | None:

@@ -737,6 +737,16 @@ def _loads_version(text: object) -> int:
 
 def space_summary(space: Any) -> dict[str, Any]:
     """What a results file records of a space: modes, cutoffs, sector, dimension."""
+    if getattr(space, "several", False):
+        return {
+            "modes": space.modes,
+            "cutoffs": [int(c) for c in space.cutoffs],
+            "charges": [
+                {"weights": list(c.weights), "total": c.total, "modulus": c.modulus}
+                for c in space.charges
+            ],
+            "dim": space.dim,
+        }
     return {
         "modes": space.modes,
         "cutoffs": [int(c) for c in space.cutoffs],

@@ -24,29 +24,30 @@ pub struct Between<S: Scalar> {
     factors: Vec<Monomial>,
 }
 
-/// Whether every state of `source`, changed in charge by `delta`, lies in `target`'s
-/// sector (so that no part of the image is lost).
-fn lands_in(source: &FockSpace, target: &FockSpace, delta: i64) -> bool {
-    match (source.constraint(), target.constraint()) {
-        (_, Constraint::Free) => true,
-        (Constraint::Exact { total: s }, Constraint::Exact { total: t }) => {
-            s as i128 + delta as i128 == t as i128
-        }
-        (Constraint::Exact { total: s }, Constraint::Modular { total: t, modulus }) => {
-            (s as i128 + delta as i128).rem_euclid(modulus as i128) == t as i128
-        }
-        (
-            Constraint::Modular {
-                total: s,
-                modulus: ms,
-            },
-            Constraint::Modular {
-                total: t,
-                modulus: mt,
-            },
-        ) => ms % mt == 0 && (s as i128 + delta as i128).rem_euclid(mt as i128) == t as i128,
-        (Constraint::Free, _) | (Constraint::Modular { .. }, Constraint::Exact { .. }) => false,
+/// Whether every state of `source`, changed in each charge by `deltas`, lies in
+/// `target`'s sector (so that no part of the image is lost). The charges are compared
+/// one by one (the spaces have the same list of weights, checked before).
+fn lands_in(source: &FockSpace, target: &FockSpace, deltas: &[i64]) -> bool {
+    if target.charges().is_empty() {
+        return true;
     }
+    if source.charges().len() != target.charges().len() {
+        return false;
+    }
+    source
+        .charges()
+        .iter()
+        .zip(target.charges())
+        .zip(deltas)
+        .all(|((s, t), &delta)| {
+            let moved = s.total as i128 + delta as i128;
+            match (s.modulus, t.modulus) {
+                (None, None) => moved == t.total as i128,
+                (None, Some(m)) => moved.rem_euclid(m as i128) == t.total as i128,
+                (Some(ms), Some(mt)) => ms % mt == 0 && moved.rem_euclid(mt as i128) == t.total as i128,
+                (Some(_), None) => false,
+            }
+        })
 }
 
 fn describe(space: &FockSpace) -> String {
@@ -81,13 +82,34 @@ impl<S: Scalar> Between<S> {
             )));
         }
         let constrained = |s: &FockSpace| !matches!(s.constraint(), Constraint::Free);
-        if constrained(source) && constrained(target) && source.weights() != target.weights() {
-            return Err(CoreError::InvalidSpace(format!(
-                "the source space has weights {:?} and the target {:?}; the conserved charges \
-                 must be the same to compare sectors",
-                source.weights(),
-                target.weights()
-            )));
+        if constrained(source) && constrained(target) {
+            let weights =
+                |s: &FockSpace| -> Vec<Vec<u32>> { s.charges().iter().map(|c| c.weights.clone()).collect() };
+            let (ws, wt) = (weights(source), weights(target));
+            if ws.len() != wt.len() {
+                return Err(CoreError::InvalidSpace(format!(
+                    "the source space fixes {} conserved charges and the target {}; an operator \
+                     between sectors needs the same charges (same weights) in both, differing \
+                     only in their totals",
+                    ws.len(),
+                    wt.len()
+                )));
+            }
+            if ws != wt {
+                return Err(CoreError::InvalidSpace(if ws.len() == 1 {
+                    format!(
+                        "the source space has weights {:?} and the target {:?}; the conserved \
+                         charges must be the same to compare sectors",
+                        ws[0], wt[0]
+                    )
+                } else {
+                    format!(
+                        "the source space's charges have weights {ws:?} and the target's \
+                         {wt:?}; the conserved charges must be the same (in the same order) to \
+                         compare sectors"
+                    )
+                }));
+            }
         }
         let mut merged: Vec<(Monomial, f64, f64)> = Vec::new();
         let mut lookup: std::collections::HashMap<Monomial, usize> = std::collections::HashMap::new();
@@ -110,7 +132,6 @@ impl<S: Scalar> Between<S> {
                     )));
                 }
             }
-            let mut delta: i64 = 0;
             for &(mode, p, q) in &factors {
                 if mode >= source.modes() {
                     return Err(CoreError::ModeOutOfRange {
@@ -124,15 +145,27 @@ impl<S: Scalar> Between<S> {
                         "term {name} has a power above {MAX_CUTOFF}; such powers are not supported"
                     )));
                 }
-                delta += source.weights()[mode] as i64 * (p as i64 - q as i64);
             }
-            if !project && !lands_in(source, target, delta) {
+            let charged = if source.charges().is_empty() {
+                target
+            } else {
+                source
+            };
+            let deltas =
+                charged.charge_deltas(factors.iter().map(|&(mode, p, q)| (mode, p as i64 - q as i64)));
+            if !project && !lands_in(source, target, &deltas) {
+                let delta = deltas.first().copied().unwrap_or(0);
+                let advice = if deltas.len() > 1 {
+                    format!("choose the target whose totals are the source's shifted by {deltas:?}")
+                } else {
+                    format!("choose the target whose total is the source's plus {delta}")
+                };
                 return Err(CoreError::ChargeViolation {
                     term: name,
                     charge: delta,
                     conserved: format!(
                         "it carries the source sector ({}) outside the target sector ({}); \
-                         choose the target whose total is the source's plus {delta}",
+                         {advice}",
                         describe(source),
                         describe(target)
                     ),
@@ -433,6 +466,67 @@ mod tests {
         let other = FockSpace::new(vec![3, 2], None, Some(1), None).unwrap();
         assert!(matches!(
             Between::<f64>::new(&n2, &other, &[], false),
+            Err(CoreError::InvalidSpace(_))
+        ));
+    }
+
+    #[test]
+    fn lowering_one_species_between_two_charge_sectors() {
+        // Two species on two sites (modes 0, 1: species A; 2, 3: species B), both numbers
+        // fixed. a_0 takes (N_A, N_B) = (2, 1) to (1, 1) with a|n⟩ = √n |n−1⟩ (Dirac,
+        // 1958, §34; from memory); the dense reference ranks each image by brute force.
+        let species = |na: u64, nb: u64| {
+            FockSpace::with_charges(
+                vec![2; 4],
+                vec![
+                    crate::space::Charge {
+                        weights: vec![1, 1, 0, 0],
+                        total: na,
+                        modulus: None,
+                    },
+                    crate::space::Charge {
+                        weights: vec![0, 0, 1, 1],
+                        total: nb,
+                        modulus: None,
+                    },
+                ],
+            )
+            .unwrap()
+        };
+        let (src, dst) = (species(2, 1), species(1, 1));
+        let op = Between::<f64>::new(&src, &dst, &[RawTerm::new(1.0, 0.0, vec![(0, 0, 1)])], false).unwrap();
+        let m = dense(&src, &dst, &op);
+        let mut expected = vec![vec![0.0; src.dim() as usize]; dst.dim() as usize];
+        let (mut occ, mut res) = (vec![0u32; 4], vec![0usize; 4]);
+        for k in 0..src.dim() {
+            src.unrank_into(k, &mut occ, &mut res).unwrap();
+            if occ[0] > 0 {
+                let n = occ[0];
+                occ[0] -= 1;
+                let r = dst.rank(&occ).unwrap();
+                expected[r as usize][k as usize] = (n as f64).sqrt();
+            }
+        }
+        assert_eq!(m, expected);
+        // A hop of species B keeps both numbers: it maps the source to itself only.
+        let hop = [RawTerm::new(1.0, 0.0, vec![(2, 0, 1), (3, 1, 0)])];
+        assert!(Between::<f64>::new(&src, &src, &hop, false).is_ok());
+        assert!(Between::<f64>::new(&src, &dst, &hop, false).is_err());
+        // Raising species B needs the target with one more B.
+        assert!(Between::<f64>::new(
+            &src,
+            &species(2, 2),
+            &[RawTerm::new(1.0, 0.0, vec![(2, 1, 0)])],
+            false
+        )
+        .is_ok());
+        let e =
+            Between::<f64>::new(&src, &dst, &[RawTerm::new(1.0, 0.0, vec![(2, 1, 0)])], false).unwrap_err();
+        assert!(matches!(e, CoreError::ChargeViolation { .. }), "{e}");
+        // A one-charge target cannot be compared with a two-charge source.
+        let one = FockSpace::new(vec![2; 4], None, Some(2), None).unwrap();
+        assert!(matches!(
+            Between::<f64>::new(&src, &one, &[], false),
             Err(CoreError::InvalidSpace(_))
         ));
     }

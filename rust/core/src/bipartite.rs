@@ -30,7 +30,7 @@ use crate::error::{CoreError, CoreResult};
 use crate::memory::try_with_capacity;
 use crate::parallel::{Interrupt, Runner};
 use crate::scalar::Scalar;
-use crate::space::{Constraint, FockSpace};
+use crate::space::FockSpace;
 use crate::terms::falling;
 use crate::terms::Operator;
 use rayon::prelude::*;
@@ -51,11 +51,7 @@ const SQRT_TABLE: usize = 1 << 12;
 
 /// Number of residue classes the space's tables use.
 fn residue_count(space: &FockSpace) -> usize {
-    match space.constraint() {
-        Constraint::Free => 1,
-        Constraint::Exact { total } => total as usize + 1,
-        Constraint::Modular { modulus, .. } => modulus as usize,
-    }
+    space.residue_count()
 }
 
 /// Visit every state of modes `a..b` that starts owing `r0` and can be completed, in
@@ -159,17 +155,11 @@ fn partial_rank(space: &FockSpace, a: usize, r0: usize, occ: &[u32]) -> Option<(
     Some((rank, res))
 }
 
-/// The residue owed after a right factor changes the right charge of a state owing
-/// `r` by `delta` (the source state's residue is `r + delta`), if such a residue exists.
-fn shifted_residue(space: &FockSpace, r: usize, delta: i64) -> Option<usize> {
-    match space.constraint() {
-        Constraint::Free => Some(0),
-        Constraint::Exact { total } => {
-            let s = r as i64 + delta;
-            (s >= 0 && s <= total as i64).then_some(s as usize)
-        }
-        Constraint::Modular { modulus, .. } => Some((r as i64 + delta).rem_euclid(modulus as i64) as usize),
-    }
+/// The residue owed after a right factor changes the right charges of a state owing
+/// `r` by `deltas` (the source state's residue is `r + deltas`, digit by digit with
+/// several charges), if such a residue exists.
+fn shifted_residue(space: &FockSpace, r: usize, deltas: &[i64]) -> Option<usize> {
+    space.shift_residue(r, deltas)
 }
 
 /// What a cut costs, from counts alone (no tables built).
@@ -641,13 +631,11 @@ impl<S: Scalar> Bipartite<S> {
                     Some(&id) => id,
                     None => {
                         let id = tables.len() as u32;
-                        let delta: i64 = rf
-                            .iter()
-                            .map(|&(mode, lower, raise)| {
-                                space.weights()[mode] as i64 * (raise as i64 - lower as i64)
-                            })
-                            .sum();
-                        let table = match shifted_residue(space, r_out, delta) {
+                        let deltas = space.charge_deltas(
+                            rf.iter()
+                                .map(|&(mode, lower, raise)| (mode, raise as i64 - lower as i64)),
+                        );
+                        let table = match shifted_residue(space, r_out, &deltas) {
                             Some(r_src) if space.completions(cut, r_src) > 0 => factor_table(
                                 space,
                                 cut,
@@ -1790,6 +1778,90 @@ mod tests {
             RawTerm::new(0.2, 0.0, vec![(0, 1, 0), (3, 1, 0)]),
         ];
         compare::<f64>(&modw, &mterms, real);
+    }
+
+    /// `c a_i† a_j† a_k a_l` as a raw term (repeated modes merged into powers).
+    fn pair(c: f64, i: usize, j: usize, k: usize, l: usize) -> RawTerm {
+        let mut factors: Vec<(usize, u32, u32)> = Vec::new();
+        for (mode, up) in [(i, true), (j, true), (k, false), (l, false)] {
+            match factors.iter_mut().find(|f| f.0 == mode) {
+                Some(f) if up => f.1 += 1,
+                Some(f) => f.2 += 1,
+                None => factors.push((mode, up as u32, (!up) as u32)),
+            }
+        }
+        factors.sort_unstable();
+        RawTerm::new(c, 0.0, factors)
+    }
+
+    #[test]
+    fn several_charges_every_cut() {
+        use crate::space::Charge;
+        // Momentum ring: number exact, momentum mod L (a mixed residue).
+        let l = 4;
+        let mut terms = Vec::new();
+        for k in 0..l {
+            terms.push(RawTerm::new(-2.0 * (k as f64).cos(), 0.0, vec![(k, 1, 1)]));
+            for p in 0..l {
+                for q in 0..l {
+                    terms.push(pair(
+                        0.3 + 0.01 * (k + 2 * p + 3 * q) as f64,
+                        (k + q) % l,
+                        (p + l - q) % l,
+                        p,
+                        k,
+                    ));
+                }
+            }
+        }
+        let ks: Vec<u32> = (0..l as u32).collect();
+        for total_k in [0, 1] {
+            let space = FockSpace::with_charges(
+                vec![3; l],
+                vec![
+                    Charge {
+                        weights: vec![1; l],
+                        total: 3,
+                        modulus: None,
+                    },
+                    Charge {
+                        weights: ks.clone(),
+                        total: total_k,
+                        modulus: Some(l as u64),
+                    },
+                ],
+            )
+            .unwrap();
+            // Hermitian parts do not matter here: every term conserves both charges.
+            compare::<f64>(&space, &terms, real);
+        }
+        // Two species, both numbers exact (the packed residue).
+        let mut species = Vec::new();
+        for s in [0, 3] {
+            for i in 0..2 {
+                species.push(RawTerm::new(-0.8, 0.0, vec![(s + i, 1, 0), (s + i + 1, 0, 1)]));
+                species.push(RawTerm::new(-0.8, 0.0, vec![(s + i, 0, 1), (s + i + 1, 1, 0)]));
+            }
+            species.push(RawTerm::new(0.7, 0.0, vec![(s + 1, 2, 2)]));
+        }
+        species.push(RawTerm::new(0.45, 0.0, vec![(0, 1, 1), (3, 1, 1)]));
+        let two = FockSpace::with_charges(
+            vec![2; 6],
+            vec![
+                Charge {
+                    weights: vec![1, 1, 1, 0, 0, 0],
+                    total: 2,
+                    modulus: None,
+                },
+                Charge {
+                    weights: vec![0, 0, 0, 1, 1, 1],
+                    total: 3,
+                    modulus: None,
+                },
+            ],
+        )
+        .unwrap();
+        compare::<f64>(&two, &species, real);
     }
 
     #[test]

@@ -28,27 +28,30 @@ const KERNEL_BLOCK: usize = 256;
 /// `sqrt(k)` is looked up for `k` below this.
 const SQRT_TABLE: usize = 1 << 12;
 
-/// How the residue owed changes when `delta` charge is placed.
+/// How the residue owed changes when `v` quanta are placed in a mode whose key (see
+/// [`residue_keys`]) is `key`.
 trait ResidueRule: Copy + Send + Sync {
-    fn step(self, residue: u32, delta: u64) -> u32;
+    fn step(self, residue: u32, key: u64, v: u32) -> u32;
 }
 
 #[derive(Clone, Copy)]
 struct FreeRule;
 impl ResidueRule for FreeRule {
     #[inline(always)]
-    fn step(self, _: u32, _: u64) -> u32 {
+    fn step(self, _: u32, _: u64, _: u32) -> u32 {
         0
     }
 }
 
+/// Exact charges: the key is the mode's weight (its packed weight with several exact
+/// charges, see [`FockSpace::packed_weights`]).
 #[derive(Clone, Copy)]
 struct ExactRule;
 impl ResidueRule for ExactRule {
     #[inline(always)]
-    fn step(self, residue: u32, delta: u64) -> u32 {
+    fn step(self, residue: u32, key: u64, v: u32) -> u32 {
         // The images visited are valid states, so the residue never goes negative.
-        (residue as u64).wrapping_sub(delta) as u32
+        (residue as u64).wrapping_sub(key.wrapping_mul(v as u64)) as u32
     }
 }
 
@@ -56,8 +59,30 @@ impl ResidueRule for ExactRule {
 struct ModularRule(u64);
 impl ResidueRule for ModularRule {
     #[inline(always)]
-    fn step(self, residue: u32, delta: u64) -> u32 {
+    fn step(self, residue: u32, key: u64, v: u32) -> u32 {
+        let delta = key.wrapping_mul(v as u64);
         ((residue as u64 + self.0 - delta % self.0) % self.0) as u32
+    }
+}
+
+/// Several charges, one of them modular: the key is the mode, and the space steps each
+/// digit of the residue on its own.
+#[derive(Clone, Copy)]
+struct MixedRule<'a>(&'a FockSpace);
+impl ResidueRule for MixedRule<'_> {
+    #[inline(always)]
+    fn step(self, residue: u32, key: u64, v: u32) -> u32 {
+        // Valid images only (as above): the step exists.
+        self.0.step(residue as usize, key as usize, v).unwrap_or(0) as u32
+    }
+}
+
+/// Per mode, what [`ResidueRule::step`] takes as the key on `space`.
+fn residue_keys(space: &FockSpace) -> Vec<u64> {
+    match space.constraint() {
+        Constraint::Several if space.all_exact() => space.packed_weights().to_vec(),
+        Constraint::Several => (0..space.modes() as u64).collect(),
+        _ => space.weights().iter().map(|&w| w as u64).collect(),
     }
 }
 
@@ -75,6 +100,7 @@ struct SpanStep {
     mode: usize,
     base: usize,
     width: usize,
+    /// The mode's residue key (see [`residue_keys`]).
     weight: u64,
     /// Index into the term's factors, or `usize::MAX` for a mode the term leaves alone.
     factor: usize,
@@ -272,17 +298,18 @@ pub fn indexes_terms<S: Scalar>(space: &FockSpace, op: &Operator<S>) -> bool {
 /// The most modes a basis state of `space` can occupy at once.
 fn max_occupied(space: &FockSpace) -> usize {
     let m = space.modes();
-    match space.constraint() {
-        Constraint::Exact { total } => {
-            let least = space.weights().iter().copied().min().unwrap_or(0);
-            if least == 0 {
-                m
-            } else {
-                ((total / least as u64) as usize).min(m)
-            }
-        }
-        _ => m,
-    }
+    // Each exact charge whose weights are all positive bounds the quanta, hence the
+    // occupied modes.
+    space
+        .charges()
+        .iter()
+        .filter(|c| c.modulus.is_none())
+        .filter_map(|c| {
+            let least = c.weights.iter().copied().min().unwrap_or(0);
+            (least > 0).then(|| ((c.total / least as u64) as usize).min(m))
+        })
+        .min()
+        .unwrap_or(m)
 }
 
 impl<S: Scalar> Lowering<S> {
@@ -385,6 +412,8 @@ pub struct ProductKernel<S: Scalar> {
     hops_below: usize,
     /// Terms indexed by the quanta they remove (operators with many terms).
     lowering: Option<Lowering<S>>,
+    /// Per mode, its residue key (see [`residue_keys`]).
+    keys: Vec<u64>,
     sqrt: Vec<f64>,
 }
 
@@ -405,6 +434,7 @@ impl<S: Scalar> ProductKernel<S> {
         let mut off = Vec::new();
         let mut hops = Vec::new();
         let index = indexes_terms(space, op);
+        let keys = residue_keys(space);
         let mut indexed = Vec::new();
         for t in 0..op.len() {
             let coef = op.coef(t);
@@ -449,7 +479,7 @@ impl<S: Scalar> ProductKernel<S> {
                         mode,
                         base: space.offset_base(mode),
                         width: cutoff as usize + 2,
-                        weight: space.weights()[mode] as u64,
+                        weight: keys[mode],
                         factor,
                     });
                 }
@@ -508,6 +538,7 @@ impl<S: Scalar> ProductKernel<S> {
             hops,
             hops_below,
             lowering,
+            keys,
             sqrt,
         }
     }
@@ -539,6 +570,10 @@ impl<S: Scalar> ProductKernel<S> {
             Constraint::Modular { modulus, .. } => {
                 self.apply_with(space, ModularRule(modulus), x, y, runner, interrupt)
             }
+            Constraint::Several if space.all_exact() => {
+                self.apply_with(space, ExactRule, x, y, runner, interrupt)
+            }
+            Constraint::Several => self.apply_with(space, MixedRule(space), x, y, runner, interrupt),
         }
     }
 
@@ -601,6 +636,10 @@ impl<S: Scalar> ProductKernel<S> {
             Constraint::Modular { modulus, .. } => {
                 self.rows_with(space, ModularRule(modulus), first, count, &mut visit)
             }
+            Constraint::Several if space.all_exact() => {
+                self.rows_with(space, ExactRule, first, count, &mut visit)
+            }
+            Constraint::Several => self.rows_with(space, MixedRule(space), first, count, &mut visit),
         }
     }
 
@@ -717,7 +756,7 @@ impl<S: Scalar> ProductKernel<S> {
                         new_occ[s.factor]
                     };
                     part = part.wrapping_add(offsets[s.base + residue as usize * s.width + v as usize]);
-                    residue = rule.step(residue, s.weight.wrapping_mul(v as u64));
+                    residue = rule.step(residue, s.weight, v);
                 }
                 // Wrapping: valid images by construction (see `hop_rows`).
                 let p = &b.prefix[r * (m + 1)..(r + 1) * (m + 1)];
@@ -965,7 +1004,7 @@ impl<S: Scalar> ProductKernel<S> {
                 let base = space.offset_base(mode);
                 let width = caps[mode] as usize + 2;
                 part = part.wrapping_add(offsets[base + residue as usize * width + v as usize]);
-                residue = rule.step(residue, (space.weights()[mode] as u64).wrapping_mul(v as u64));
+                residue = rule.step(residue, self.keys[mode], v);
             }
             // Wrapping: valid images by construction (see `hop_rows`).
             let col = b.rank[r]
@@ -1008,11 +1047,11 @@ impl<S: Scalar> ProductKernel<S> {
             let amp_sq = v_lo.max(w_lo) as usize * v_hi.max(w_hi) as usize;
             let mut residue = b.res[r * m + hop.lo];
             let mut part = offsets[hop.base_lo + residue as usize * hop.width_lo + w_lo as usize];
-            residue = rule.step(residue, hop.weight_lo.wrapping_mul(w_lo as u64));
+            residue = rule.step(residue, hop.weight_lo, w_lo);
             for s in &hop.rest {
                 let v = if s.factor == usize::MAX { occ[s.mode] } else { w_hi };
                 part = part.wrapping_add(offsets[s.base + residue as usize * s.width + v as usize]);
-                residue = rule.step(residue, s.weight.wrapping_mul(v as u64));
+                residue = rule.step(residue, s.weight, v);
             }
             let p = &b.prefix[r * (m + 1)..(r + 1) * (m + 1)];
             let col = b.rank[r]

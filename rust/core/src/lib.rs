@@ -38,5 +38,5 @@ pub mod watch;
 pub use error::{CoreError, CoreResult};
 pub use parallel::{Interrupt, NoInterrupt, Runner};
 pub use scalar::Scalar;
-pub use space::{Constraint, FockSpace};
+pub use space::{Charge, Constraint, FockSpace};
 pub use terms::{Operator, RawTerm, RowState};

@@ -13,6 +13,12 @@
 //! `r` is still owed; `offset[i][r][v] = Σ_{u<v} count[i+1][r − w_i u]`. The rank of a
 //! state is `Σ_i offset[i][r_i][n_i]`, where `r_i` is the residual before mode `i`:
 //! the table method for combinatorial ranking of bounded compositions.
+//!
+//! # Several charges
+//! A space may fix several weighted charges at once, each exactly or modulo its own
+//! modulus ([`FockSpace::with_charges`]). Their residues combine into one mixed-radix
+//! residue, so the tables above keep their shape with `residues` the product of the
+//! charges' residue counts.
 
 use crate::error::{CoreError, CoreResult};
 
@@ -24,6 +30,38 @@ pub const MAX_TABLE_ENTRIES: u128 = 1 << 26;
 pub const MAX_MODES: usize = 4096;
 /// Largest dimension the core accepts (indices stay exact in `f64` and `i64`).
 pub const MAX_DIM: u64 = 1 << 52;
+
+/// Largest number of conserved charges a space fixes at once.
+pub const MAX_CHARGES: usize = 32;
+
+/// One conserved charge `Σ_i w_i n_i`, fixed exactly or modulo its own modulus.
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub struct Charge {
+    /// Non-negative weight of each mode.
+    pub weights: Vec<u32>,
+    /// The conserved total (the residue class, reduced, when `modulus` is set).
+    pub total: u64,
+    /// Conserve the charge only modulo this (at least 2); `None` fixes it exactly.
+    pub modulus: Option<u64>,
+}
+
+impl Charge {
+    /// The charge in words, for messages.
+    pub fn describe(&self) -> String {
+        match self.modulus {
+            None => format!("weighted total = {}", self.total),
+            Some(m) => format!("weighted total ≡ {} mod {m}", self.total),
+        }
+    }
+
+    /// Whether a change of this charge by `delta` keeps states in the sector.
+    pub fn conserves(&self, delta: i64) -> bool {
+        match self.modulus {
+            None => delta == 0,
+            Some(m) => delta.rem_euclid(m as i64) == 0,
+        }
+    }
+}
 
 /// What a sector conserves.
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
@@ -42,17 +80,37 @@ pub enum Constraint {
         /// The modulus, at least 2.
         modulus: u64,
     },
+    /// Two or more charges at once (see [`FockSpace::charges`]); the residue owed is
+    /// their residues combined in mixed radix.
+    Several,
 }
 
 /// A validated Fock space with its ranking tables.
+///
+/// With several charges the residue owed before a mode is one mixed-radix number
+/// `Σ_c r_c · stride_c`, `r_c` the residue of charge `c` (`0..=total_c` when exact,
+/// `0..modulus_c` when modular), charge 0 the least significant: the counting and
+/// offset tables, [`FockSpace::step`] and everything built on them work unchanged.
 #[derive(Debug, Clone)]
 pub struct FockSpace {
     cutoffs: Vec<u32>,
     /// Highest occupation a state of the sector can have in each mode: the cutoff, or
     /// less when the conserved total caps it (`total / weight`). Tables use these.
     caps: Vec<u32>,
+    /// The weights of the first charge (all 1 without a charge).
     weights: Vec<u32>,
     constraint: Constraint,
+    /// The conserved charges (empty for the full space).
+    charges: Vec<Charge>,
+    /// Per charge: its number of residue classes (`total + 1`, or the modulus).
+    radix: Vec<u64>,
+    /// Per charge: the place value of its residue in the combined residue.
+    stride: Vec<u64>,
+    /// Per mode: `Σ_c w_c · stride_c`, the change of the combined residue per quantum
+    /// (exact when every charge is exact: no residue of a valid state borrows).
+    packed: Vec<u64>,
+    /// Weights by mode, then charge (`mode * charges + c`).
+    mode_weights: Vec<u32>,
     residues: usize,
     start_residue: usize,
     /// `counts[i * residues + r]`, for `i` in `0..=M`.
@@ -61,6 +119,35 @@ pub struct FockSpace {
     offset_base: Vec<usize>,
     offsets: Vec<u64>,
     dim: u64,
+}
+
+/// Validate the cutoffs (at least one mode, each `1..=MAX_CUTOFF`).
+fn check_cutoffs(cutoffs: &[u32]) -> CoreResult<()> {
+    let modes = cutoffs.len();
+    if modes == 0 {
+        return Err(CoreError::InvalidSpace(
+            "a Fock space needs at least one mode; pass modes >= 1".into(),
+        ));
+    }
+    if modes > MAX_MODES {
+        return Err(CoreError::InvalidSpace(format!(
+            "{modes} modes requested; at most {MAX_MODES} are supported"
+        )));
+    }
+    for (i, &c) in cutoffs.iter().enumerate() {
+        if c < 1 {
+            return Err(CoreError::InvalidSpace(format!(
+                "cutoff of mode {i} is {c}; every cutoff must be >= 1 \
+                 (a two-level emitter has cutoff 1)"
+            )));
+        }
+        if c > MAX_CUTOFF {
+            return Err(CoreError::InvalidSpace(format!(
+                "cutoff of mode {i} is {c}; at most {MAX_CUTOFF} is supported"
+            )));
+        }
+    }
+    Ok(())
 }
 
 impl FockSpace {
@@ -77,30 +164,8 @@ impl FockSpace {
         total: Option<u64>,
         modulus: Option<u64>,
     ) -> CoreResult<Self> {
+        check_cutoffs(&cutoffs)?;
         let modes = cutoffs.len();
-        if modes == 0 {
-            return Err(CoreError::InvalidSpace(
-                "a Fock space needs at least one mode; pass modes >= 1".into(),
-            ));
-        }
-        if modes > MAX_MODES {
-            return Err(CoreError::InvalidSpace(format!(
-                "{modes} modes requested; at most {MAX_MODES} are supported"
-            )));
-        }
-        for (i, &c) in cutoffs.iter().enumerate() {
-            if c < 1 {
-                return Err(CoreError::InvalidSpace(format!(
-                    "cutoff of mode {i} is {c}; every cutoff must be >= 1 \
-                     (a two-level emitter has cutoff 1)"
-                )));
-            }
-            if c > MAX_CUTOFF {
-                return Err(CoreError::InvalidSpace(format!(
-                    "cutoff of mode {i} is {c}; at most {MAX_CUTOFF} is supported"
-                )));
-            }
-        }
         let weights = match weights {
             Some(w) if w.len() != modes => {
                 return Err(CoreError::InvalidSpace(format!(
@@ -111,13 +176,8 @@ impl FockSpace {
             Some(w) => w,
             None => vec![1; modes],
         };
-        let max_charge: u128 = cutoffs
-            .iter()
-            .zip(&weights)
-            .map(|(&c, &w)| c as u128 * w as u128)
-            .sum();
-        let constraint = match (total, modulus) {
-            (None, None) => Constraint::Free,
+        let charges = match (total, modulus) {
+            (None, None) => Vec::new(),
             (None, Some(_)) => {
                 return Err(CoreError::InvalidSpace(
                     "a modulus needs a total (the residue class); pass total=0 or total=1 \
@@ -125,79 +185,213 @@ impl FockSpace {
                         .into(),
                 ))
             }
-            (Some(total), None) => Constraint::Exact { total },
+            (Some(total), None) => vec![Charge {
+                weights: weights.clone(),
+                total,
+                modulus: None,
+            }],
             (Some(total), Some(modulus)) => {
                 if modulus < 2 {
                     return Err(CoreError::InvalidSpace(format!(
                         "modulus {modulus} is not allowed; pass an integer >= 2 or None"
                     )));
                 }
-                Constraint::Modular {
+                vec![Charge {
+                    weights: weights.clone(),
                     total: total % modulus,
-                    modulus,
-                }
+                    modulus: Some(modulus),
+                }]
             }
         };
-        let residues: u128 = match constraint {
-            Constraint::Free => 1,
-            Constraint::Exact { total } => {
-                if total as u128 > max_charge {
-                    return Err(CoreError::EmptySpace(format!(
-                        "no state has total {total}: the largest reachable weighted total is \
-                         {max_charge}; lower the total or raise the cutoffs"
+        Self::build(cutoffs, weights, charges)
+    }
+
+    /// Build a space that fixes every charge of `charges` at once (none: the full
+    /// truncated space; one: the same space as [`FockSpace::new`]). Modular totals are
+    /// reduced.
+    ///
+    /// # Errors
+    /// As [`FockSpace::new`]; [`CoreError::InvalidSpace`] names the charge whose weights
+    /// have the wrong length or whose modulus is below 2, and refuses more than
+    /// [`MAX_CHARGES`] charges; [`CoreError::TooLarge`] when the product of the residue
+    /// counts makes the tables too large (with the estimate).
+    pub fn with_charges(cutoffs: Vec<u32>, mut charges: Vec<Charge>) -> CoreResult<Self> {
+        check_cutoffs(&cutoffs)?;
+        let modes = cutoffs.len();
+        if charges.len() > MAX_CHARGES {
+            return Err(CoreError::InvalidSpace(format!(
+                "{} charges given; at most {MAX_CHARGES} can be fixed at once (merge charges \
+                 that always change together)",
+                charges.len()
+            )));
+        }
+        for (c, charge) in charges.iter_mut().enumerate() {
+            if charge.weights.len() != modes {
+                return Err(CoreError::InvalidSpace(format!(
+                    "charge {c} has {} weights for {modes} modes; give one non-negative weight \
+                     per mode",
+                    charge.weights.len()
+                )));
+            }
+            if let Some(m) = charge.modulus {
+                if m < 2 {
+                    return Err(CoreError::InvalidSpace(format!(
+                        "charge {c} has modulus {m}, which is not allowed; pass an integer >= 2, \
+                         or no modulus to fix the charge exactly"
                     )));
                 }
-                total as u128 + 1
+                charge.total %= m;
             }
-            Constraint::Modular { modulus, .. } => modulus as u128,
+        }
+        let weights = charges
+            .first()
+            .map_or_else(|| vec![1; modes], |c| c.weights.clone());
+        Self::build(cutoffs, weights, charges)
+    }
+
+    fn build(cutoffs: Vec<u32>, weights: Vec<u32>, charges: Vec<Charge>) -> CoreResult<Self> {
+        let modes = cutoffs.len();
+        let several = charges.len() > 1;
+        for (c, charge) in charges.iter().enumerate() {
+            if charge.modulus.is_some() {
+                continue;
+            }
+            let max_charge: u128 = cutoffs
+                .iter()
+                .zip(&charge.weights)
+                .map(|(&n, &w)| n as u128 * w as u128)
+                .sum();
+            if charge.total as u128 > max_charge {
+                let total = charge.total;
+                return Err(CoreError::EmptySpace(if several {
+                    format!(
+                        "no state has charge {c} equal to {total}: its largest reachable value \
+                         is {max_charge}; lower that total or raise the cutoffs"
+                    )
+                } else {
+                    format!(
+                        "no state has total {total}: the largest reachable weighted total is \
+                         {max_charge}; lower the total or raise the cutoffs"
+                    )
+                }));
+            }
+        }
+        let constraint = match charges.as_slice() {
+            [] => Constraint::Free,
+            [one] => match one.modulus {
+                None => Constraint::Exact { total: one.total },
+                Some(modulus) => Constraint::Modular {
+                    total: one.total,
+                    modulus,
+                },
+            },
+            _ => Constraint::Several,
         };
-        let caps: Vec<u32> = cutoffs
-            .iter()
-            .zip(&weights)
-            .map(|(&c, &w)| match constraint {
-                Constraint::Exact { total } if w > 0 => c.min((total / w as u64).min(u32::MAX as u64) as u32),
-                _ => c,
+        let mut radix_wide: Vec<u128> = Vec::with_capacity(charges.len());
+        let mut residues: u128 = 1;
+        for charge in &charges {
+            let r = match charge.modulus {
+                None => charge.total as u128 + 1,
+                Some(m) => m as u128,
+            };
+            radix_wide.push(r);
+            residues = residues.saturating_mul(r);
+        }
+        let caps: Vec<u32> = (0..modes)
+            .map(|i| {
+                let mut cap = cutoffs[i];
+                for charge in charges.iter().filter(|c| c.modulus.is_none()) {
+                    let w = charge.weights[i];
+                    if w > 0 {
+                        cap = cap.min((charge.total / w as u64).min(u32::MAX as u64) as u32);
+                    }
+                }
+                cap
             })
             .collect();
-        let entries: u128 =
-            caps.iter().map(|&c| residues * (c as u128 + 2)).sum::<u128>() + residues * (modes as u128 + 1);
+        let entries: u128 = caps
+            .iter()
+            .map(|&c| residues.saturating_mul(c as u128 + 2))
+            .fold(0u128, |a, b| a.saturating_add(b))
+            .saturating_add(residues.saturating_mul(modes as u128 + 1));
         if entries > MAX_TABLE_ENTRIES {
+            let what = if several {
+                let factors: Vec<String> = radix_wide.iter().map(|r| r.to_string()).collect();
+                format!(
+                    "ranking tables for these charges (entries: {residues} residue classes = {}, \
+                     the total + 1 of each exact charge times the modulus of each modular one, \
+                     each times the occupations of every mode); use smaller totals, moduli or \
+                     cutoffs, or fewer charges",
+                    factors.join(" x ")
+                )
+            } else {
+                "ranking tables for this total, weights and cutoffs (entries); use a \
+                 smaller total or cutoffs, or weights with a smaller common scale"
+                    .into()
+            };
             return Err(CoreError::TooLarge {
-                what: "ranking tables for this total, weights and cutoffs (entries); use a \
-                       smaller total or cutoffs, or weights with a smaller common scale"
-                    .into(),
+                what,
                 requested: entries,
                 limit: MAX_TABLE_ENTRIES,
             });
         }
+        // Every residue count and their product fit in 2^26 now.
+        let radix: Vec<u64> = radix_wide.iter().map(|&r| r as u64).collect();
+        let mut stride = Vec::with_capacity(radix.len());
+        let mut place = 1u64;
+        for &r in &radix {
+            stride.push(place);
+            place *= r;
+        }
         let residues = residues as usize;
-        let start_residue = match constraint {
-            Constraint::Free => 0,
-            Constraint::Exact { total } => total as usize,
-            Constraint::Modular { total, .. } => total as usize,
-        };
+        let start_residue: u64 = charges.iter().zip(&stride).map(|(c, &s)| c.total * s).sum();
+        let k = charges.len();
+        let mut mode_weights = Vec::with_capacity(modes * k);
+        let mut packed = Vec::with_capacity(modes);
+        for i in 0..modes {
+            let mut p = 0u64;
+            for (charge, &s) in charges.iter().zip(&stride) {
+                mode_weights.push(charge.weights[i]);
+                p = p.saturating_add((charge.weights[i] as u64).saturating_mul(s));
+            }
+            packed.push(p);
+        }
         let mut space = FockSpace {
             cutoffs,
             caps,
             weights,
             constraint,
+            charges,
+            radix,
+            stride,
+            packed,
+            mode_weights,
             residues,
-            start_residue,
+            start_residue: start_residue as usize,
             counts: crate::memory::try_filled(residues * (modes + 1), 0, "the space's counting table")?,
             offset_base: Vec::with_capacity(modes),
             offsets: Vec::new(),
             dim: 0,
         };
         space.fill_tables()?;
-        space.dim = space.counts[start_residue];
+        space.dim = space.counts[space.start_residue];
         if space.dim == 0 {
-            return Err(CoreError::EmptySpace(format!(
-                "no state satisfies the constraint ({}) with cutoffs {:?} and weights {:?}; \
-                 change the total, the weights or the cutoffs",
-                space.describe_constraint(),
-                space.cutoffs,
-                space.weights
-            )));
+            return Err(CoreError::EmptySpace(if several {
+                format!(
+                    "no state satisfies all the charges ({}) with cutoffs {:?}; change a total, \
+                     a modulus, the weights or the cutoffs",
+                    space.describe_constraint(),
+                    space.cutoffs
+                )
+            } else {
+                format!(
+                    "no state satisfies the constraint ({}) with cutoffs {:?} and weights {:?}; \
+                     change the total, the weights or the cutoffs",
+                    space.describe_constraint(),
+                    space.cutoffs,
+                    space.weights
+                )
+            }));
         }
         Ok(space)
     }
@@ -261,7 +455,34 @@ impl FockSpace {
             Constraint::Modular { modulus, .. } => {
                 Some(((residue as u64 + modulus - delta % modulus) % modulus) as usize)
             }
+            Constraint::Several => self.step_several(residue, mode, v),
         }
+    }
+
+    /// [`FockSpace::step`] with several charges: each residue digit steps on its own.
+    #[inline]
+    fn step_several(&self, residue: usize, mode: usize, v: u32) -> Option<usize> {
+        let k = self.charges.len();
+        let weights = &self.mode_weights[mode * k..(mode + 1) * k];
+        let mut rest = residue as u64;
+        let mut out = 0u64;
+        let digits = self
+            .charges
+            .iter()
+            .zip(&self.radix)
+            .zip(&self.stride)
+            .zip(weights);
+        for (((charge, &radix), &stride), &w) in digits {
+            let digit = rest % radix;
+            rest /= radix;
+            let delta = w as u64 * v as u64;
+            let next = match charge.modulus {
+                None => digit.checked_sub(delta)?,
+                Some(m) => (digit + m - delta % m) % m,
+            };
+            out += next * stride;
+        }
+        Some(out as usize)
     }
 
     /// The rank contribution of mode `mode` holding `v` quanta with residue `residue` owed.
@@ -305,9 +526,95 @@ impl FockSpace {
     pub fn caps(&self) -> &[u32] {
         &self.caps
     }
-    /// Per-mode weights of the conserved charge.
+    /// Per-mode weights of the conserved charge (all 1 without one). With several
+    /// charges these are the first charge's weights: use [`FockSpace::charges`].
     pub fn weights(&self) -> &[u32] {
         &self.weights
+    }
+    /// The conserved charges: none for the full space, one for a sector of
+    /// [`FockSpace::new`], or those given to [`FockSpace::with_charges`].
+    pub fn charges(&self) -> &[Charge] {
+        &self.charges
+    }
+    /// Whether every conserved charge is fixed exactly (no modulus).
+    pub fn all_exact(&self) -> bool {
+        self.charges.iter().all(|c| c.modulus.is_none())
+    }
+    /// Per mode, the change of the combined residue per quantum, `Σ_c w_c · stride_c`
+    /// (the weight itself with one charge). When [`FockSpace::all_exact`], the residue
+    /// owed after mode `i` is the residue before it minus `packed_weights()[i] · n_i` for
+    /// every state of the space (no digit borrows).
+    pub fn packed_weights(&self) -> &[u64] {
+        &self.packed
+    }
+    /// Number of residue classes the tables hold (the product over the charges of
+    /// `total + 1` or the modulus; 1 without a charge).
+    pub fn residue_count(&self) -> usize {
+        self.residues
+    }
+    /// Whether two modes carry the same weight in every conserved charge (and the same
+    /// cutoff): what a mode permutation must preserve to map the space to itself.
+    pub fn modes_alike(&self, i: usize, j: usize) -> bool {
+        let k = self.charges.len();
+        self.cutoffs[i] == self.cutoffs[j]
+            && self.weights[i] == self.weights[j]
+            && self.mode_weights[i * k..(i + 1) * k] == self.mode_weights[j * k..(j + 1) * k]
+    }
+    /// The change of each charge when the occupations change by `changes`
+    /// (`(mode, Δn)` pairs); one entry per charge (none for the full space).
+    pub fn charge_deltas(&self, changes: impl IntoIterator<Item = (usize, i64)>) -> Vec<i64> {
+        let k = self.charges.len();
+        let mut deltas = vec![0i64; k];
+        for (mode, dn) in changes {
+            for (c, d) in deltas.iter_mut().enumerate() {
+                *d += self.mode_weights[mode * k + c] as i64 * dn;
+            }
+        }
+        deltas
+    }
+    /// The first charge that changes by `deltas` (from [`FockSpace::charge_deltas`])
+    /// breaks, or `None` when every charge is kept.
+    pub fn broken_charge(&self, deltas: &[i64]) -> Option<usize> {
+        self.charges
+            .iter()
+            .zip(deltas)
+            .position(|(c, &d)| !c.conserves(d))
+    }
+    /// Charge `c` in words, naming it among several.
+    pub fn describe_charge(&self, c: usize) -> String {
+        if self.charges.len() == 1 {
+            return self.charges[0].describe();
+        }
+        format!(
+            "charge {c} of {}: {} with weights {:?}",
+            self.charges.len(),
+            self.charges[c].describe(),
+            self.charges[c].weights
+        )
+    }
+    /// The residue owed by a state whose charges exceed by `deltas` those of a state
+    /// owing `residue` (each digit shifted on its own), or `None` when no such residue
+    /// exists (an exact digit outside `0..=total`).
+    pub fn shift_residue(&self, residue: usize, deltas: &[i64]) -> Option<usize> {
+        let mut rest = residue as i128;
+        let mut out = 0i128;
+        for (c, charge) in self.charges.iter().enumerate() {
+            let radix = self.radix[c] as i128;
+            let digit = rest % radix;
+            rest /= radix;
+            let shifted = digit + deltas[c] as i128;
+            let next = match charge.modulus {
+                None => {
+                    if shifted < 0 || shifted > charge.total as i128 {
+                        return None;
+                    }
+                    shifted
+                }
+                Some(m) => shifted.rem_euclid(m as i128),
+            };
+            out += next * self.stride[c] as i128;
+        }
+        Some(out as usize)
     }
     /// The constraint defining the sector.
     pub fn constraint(&self) -> Constraint {
@@ -330,15 +637,27 @@ impl FockSpace {
             Constraint::Modular { total, modulus } => {
                 format!("weighted total ≡ {total} mod {modulus}")
             }
+            Constraint::Several => {
+                let parts: Vec<String> = self
+                    .charges
+                    .iter()
+                    .enumerate()
+                    .map(|(c, q)| format!("charge {c}: {} with weights {:?}", q.describe(), q.weights))
+                    .collect();
+                parts.join("; ")
+            }
         }
     }
 
-    /// Whether a change of the weighted total by `charge` keeps states in the sector.
+    /// Whether a change of the weighted total by `charge` keeps states in the sector
+    /// (one charge; with several use [`FockSpace::charge_deltas`] and
+    /// [`FockSpace::broken_charge`]: here every charge must accept the change).
     pub fn conserves(&self, charge: i64) -> bool {
         match self.constraint {
             Constraint::Free => true,
             Constraint::Exact { .. } => charge == 0,
             Constraint::Modular { modulus, .. } => charge.rem_euclid(modulus as i64) == 0,
+            Constraint::Several => self.charges.iter().all(|c| c.conserves(charge)),
         }
     }
 
@@ -504,6 +823,177 @@ mod tests {
         check(&[5], &[1], None, None);
         check(&[1, 1, 1, 1, 1], &[1, 1, 1, 1, 1], Some(2), None);
         check(&[2, 2], &[0, 0], Some(0), None);
+    }
+
+    /// Every state of the product space that keeps all `charges`, in basis order.
+    fn brute_charges(cutoffs: &[u32], charges: &[Charge]) -> Vec<Vec<u32>> {
+        let everything = brute(cutoffs, &vec![0; cutoffs.len()], None, None);
+        everything
+            .into_iter()
+            .filter(|occ| {
+                charges.iter().all(|c| {
+                    let q: u64 = occ
+                        .iter()
+                        .zip(&c.weights)
+                        .map(|(&n, &w)| n as u64 * w as u64)
+                        .sum();
+                    match c.modulus {
+                        None => q == c.total,
+                        Some(m) => q % m == c.total % m,
+                    }
+                })
+            })
+            .collect()
+    }
+
+    fn check_charges(cutoffs: &[u32], charges: Vec<Charge>) {
+        let expected = brute_charges(cutoffs, &charges);
+        let space = FockSpace::with_charges(cutoffs.to_vec(), charges.clone());
+        if expected.is_empty() {
+            assert!(matches!(space, Err(CoreError::EmptySpace(_))), "{charges:?}");
+            return;
+        }
+        let space = space.unwrap();
+        assert_eq!(space.dim() as usize, expected.len(), "{charges:?}");
+        let m = cutoffs.len();
+        let mut occ = vec![0; m];
+        let mut res = vec![0; m];
+        space.unrank_into(0, &mut occ, &mut res).unwrap();
+        for (k, state) in expected.iter().enumerate() {
+            assert_eq!(&occ, state, "advance at {k}");
+            assert_eq!(space.rank(state), Some(k as u64));
+            let mut o2 = vec![0; m];
+            let mut r2 = vec![0; m];
+            space.unrank_into(k as u64, &mut o2, &mut r2).unwrap();
+            assert_eq!(&o2, state);
+            assert_eq!(r2, res);
+            if space.all_exact() {
+                // The packed weights step the combined residue of valid states exactly.
+                for (i, &n) in state.iter().enumerate() {
+                    let next = res.get(i + 1).map_or(0, |&r| r as u64);
+                    assert_eq!(res[i] as u64 - space.packed_weights()[i] * n as u64, next);
+                }
+            }
+            let next = space.advance(&mut occ, &mut res);
+            assert_eq!(next.is_none(), k + 1 == expected.len());
+        }
+        // A state breaking one charge only is not ranked.
+        for state in brute(cutoffs, &vec![0; m], None, None) {
+            if !expected.contains(&state) {
+                assert_eq!(space.rank(&state), None);
+            }
+        }
+    }
+
+    fn exact(weights: &[u32], total: u64) -> Charge {
+        Charge {
+            weights: weights.to_vec(),
+            total,
+            modulus: None,
+        }
+    }
+
+    fn modular(weights: &[u32], total: u64, modulus: u64) -> Charge {
+        Charge {
+            weights: weights.to_vec(),
+            total,
+            modulus: Some(modulus),
+        }
+    }
+
+    #[test]
+    fn several_charges_match_brute_force_enumeration() {
+        // Number and momentum mod 4 on a 4-mode ring (common practice, no source).
+        for n in 0..=4 {
+            for k in 0..4 {
+                check_charges(
+                    &[4, 4, 4, 4],
+                    vec![exact(&[1, 1, 1, 1], n), modular(&[0, 1, 2, 3], k, 4)],
+                );
+            }
+        }
+        // Two species, each number fixed.
+        for (na, nb) in [(0, 0), (1, 2), (2, 1), (3, 3), (2, 0)] {
+            check_charges(
+                &[3, 3, 3, 3, 3, 3],
+                vec![exact(&[1, 1, 1, 0, 0, 0], na), exact(&[0, 0, 0, 1, 1, 1], nb)],
+            );
+        }
+        // Mixed weights, three charges, a modular one first.
+        check_charges(
+            &[2, 3, 2, 1],
+            vec![
+                modular(&[1, 2, 0, 1], 1, 3),
+                exact(&[1, 1, 2, 0], 3),
+                modular(&[1, 1, 1, 1], 0, 2),
+            ],
+        );
+        check_charges(&[2, 2, 2], vec![exact(&[2, 0, 1], 2), exact(&[0, 3, 1], 3)]);
+        // Weights above a total leave a mode empty; zero weights leave it free.
+        check_charges(&[3, 3, 3], vec![exact(&[5, 1, 0], 2), exact(&[1, 0, 0], 0)]);
+        // No state: the charges contradict each other.
+        check_charges(&[2, 2], vec![exact(&[1, 1], 1), exact(&[1, 1], 2)]);
+        // Moduli are reduced.
+        check_charges(&[3, 3], vec![modular(&[1, 1], 7, 3), modular(&[1, 2], 5, 2)]);
+        // Zero and one charge: the same spaces as `new`.
+        check_charges(&[2, 1, 2], vec![]);
+        check_charges(&[2, 1, 2], vec![exact(&[1, 1, 1], 2)]);
+    }
+
+    #[test]
+    fn one_charge_through_with_charges_is_new() {
+        let a = FockSpace::new(vec![3, 3, 3], Some(vec![1, 2, 3]), Some(7), Some(4)).unwrap();
+        let b = FockSpace::with_charges(vec![3, 3, 3], vec![modular(&[1, 2, 3], 7, 4)]).unwrap();
+        assert_eq!(a.constraint(), b.constraint());
+        assert_eq!(a.dim(), b.dim());
+        assert_eq!(a.offset_table(), b.offset_table());
+        let two =
+            FockSpace::with_charges(vec![3, 3, 3], vec![exact(&[1, 1, 1], 3), exact(&[0, 1, 2], 3)]).unwrap();
+        assert_eq!(two.constraint(), Constraint::Several);
+        assert_eq!(two.residue_count(), 16);
+    }
+
+    #[test]
+    fn several_charges_reject_bad_specs() {
+        let bad_len = FockSpace::with_charges(vec![2, 2], vec![exact(&[1], 1), exact(&[1, 1], 1)]);
+        assert!(
+            matches!(bad_len, Err(CoreError::InvalidSpace(ref m)) if m.contains("charge 0 has 1 weights"))
+        );
+        let bad_mod = FockSpace::with_charges(vec![2, 2], vec![exact(&[1, 1], 1), modular(&[1, 1], 0, 1)]);
+        assert!(
+            matches!(bad_mod, Err(CoreError::InvalidSpace(ref m)) if m.contains("charge 1 has modulus 1"))
+        );
+        let unreachable = FockSpace::with_charges(vec![2, 2], vec![exact(&[1, 1], 1), exact(&[0, 1], 3)]);
+        assert!(matches!(unreachable, Err(CoreError::EmptySpace(ref m)) if m.contains("charge 1")));
+        // 2^13 x 2^13 residue classes: refused before any table is allocated.
+        let huge = FockSpace::with_charges(
+            vec![10; 8],
+            vec![
+                modular(&[1; 8], 0, 1 << 13),
+                modular(&[0, 1, 2, 3, 4, 5, 6, 7], 0, 1 << 13),
+            ],
+        );
+        assert!(matches!(huge, Err(CoreError::TooLarge { ref what, .. }) if what.contains("8192 x 8192")));
+        let many = FockSpace::with_charges(vec![1; 2], vec![exact(&[0, 0], 0); MAX_CHARGES + 1]);
+        assert!(matches!(many, Err(CoreError::InvalidSpace(_))));
+    }
+
+    #[test]
+    fn charge_deltas_and_residue_shifts() {
+        let s = FockSpace::with_charges(
+            vec![2, 2, 2],
+            vec![exact(&[1, 1, 1], 2), modular(&[0, 1, 2], 1, 3)],
+        )
+        .unwrap();
+        let d = s.charge_deltas([(0, -1), (2, 1)]);
+        assert_eq!(d, vec![0, 2]);
+        assert_eq!(s.broken_charge(&d), Some(1));
+        assert_eq!(s.broken_charge(&s.charge_deltas([(0, 1), (1, -2), (2, 1)])), None);
+        // Residue (n owed 1, k owed 2) = 1 + 3 * 2 = 7; shifted by (+1, +2) -> (2, 1) = 5.
+        assert_eq!(s.shift_residue(7, &[1, 2]), Some(2 + 3));
+        assert_eq!(s.shift_residue(7, &[2, 0]), None);
+        assert!(s.modes_alike(0, 0));
+        assert!(!s.modes_alike(0, 1));
     }
 
     #[test]

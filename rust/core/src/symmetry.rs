@@ -163,7 +163,7 @@ impl PackedRank {
         let weighted = match base.constraint() {
             Constraint::Free => false,
             Constraint::Exact { .. } => true,
-            Constraint::Modular { .. } => return None,
+            Constraint::Modular { .. } | Constraint::Several => return None,
         };
         let modes = (0..base.modes())
             .rev()
@@ -195,6 +195,17 @@ impl PackedRank {
             rank = rank.wrapping_add(table[start.wrapping_add(owed.wrapping_mul(width)).wrapping_add(v)]);
         }
         rank
+    }
+}
+
+/// The weights of mode `i` in words: one number, or one per charge with several.
+fn weights_of(base: &FockSpace, i: usize) -> String {
+    match base.charges() {
+        [_, _, ..] => format!(
+            "{:?}",
+            base.charges().iter().map(|c| c.weights[i]).collect::<Vec<_>>()
+        ),
+        _ => base.weights()[i].to_string(),
     }
 }
 
@@ -812,15 +823,15 @@ impl SymmetricSpace {
                 hit[i] = true;
             }
             for (i, &j) in g.images.iter().enumerate() {
-                if base.cutoffs()[i] != base.cutoffs()[j] || base.weights()[i] != base.weights()[j] {
+                if !base.modes_alike(i, j) {
                     return Err(CoreError::Symmetry(format!(
                         "generator {k} moves mode {i} (cutoff {}, weight {}) to mode {j} (cutoff \
                          {}, weight {}); a symmetry must map modes to modes with the same cutoff \
-                         and weight",
+                         and weight (in every conserved charge)",
                         base.cutoffs()[i],
-                        base.weights()[i],
+                        weights_of(&base, i),
                         base.cutoffs()[j],
-                        base.weights()[j]
+                        weights_of(&base, j)
                     )));
                 }
             }

@@ -117,7 +117,6 @@ impl<S: Scalar> Operator<S> {
                     )));
                 }
             }
-            let mut charge: i64 = 0;
             for &(mode, p, q) in &factors {
                 if mode >= space.modes() {
                     return Err(CoreError::ModeOutOfRange {
@@ -132,13 +131,13 @@ impl<S: Scalar> Operator<S> {
                         format_term(t)
                     )));
                 }
-                charge += space.weights()[mode] as i64 * (p as i64 - q as i64);
             }
-            if !space.conserves(charge) {
+            let deltas = space.charge_deltas(factors.iter().map(|&(mode, p, q)| (mode, p as i64 - q as i64)));
+            if let Some(c) = space.broken_charge(&deltas) {
                 return Err(CoreError::ChargeViolation {
                     term: format_term(t),
-                    charge,
-                    conserved: space.describe_constraint(),
+                    charge: deltas[c],
+                    conserved: space.describe_charge(c),
                 });
             }
             match lookup.get(&factors) {
@@ -361,6 +360,32 @@ mod tests {
         let parity = FockSpace::new(vec![3, 3], None, Some(0), Some(2)).unwrap();
         assert!(Operator::<f64>::new(&parity, &[RawTerm::new(1.0, 0.0, vec![(0, 2, 0)])]).is_ok());
         assert!(Operator::<f64>::new(&parity, &[RawTerm::new(1.0, 0.0, vec![(0, 1, 0)])]).is_err());
+        // Number and momentum mod 3: a hop keeps the number but moves momentum by 1;
+        // a pair hop k, k -> k+1, k-1 keeps both (common practice, no source).
+        let ring = FockSpace::with_charges(
+            vec![3, 3, 3],
+            vec![
+                crate::space::Charge {
+                    weights: vec![1, 1, 1],
+                    total: 3,
+                    modulus: None,
+                },
+                crate::space::Charge {
+                    weights: vec![0, 1, 2],
+                    total: 0,
+                    modulus: Some(3),
+                },
+            ],
+        )
+        .unwrap();
+        let e =
+            Operator::<f64>::new(&ring, &[RawTerm::new(1.0, 0.0, vec![(0, 0, 1), (1, 1, 0)])]).unwrap_err();
+        assert!(matches!(e, CoreError::ChargeViolation { charge: 1, .. }), "{e}");
+        assert!(e.to_string().contains("charge 1 of 2"), "{e}");
+        let pair = vec![(0, 1, 0), (1, 0, 2), (2, 1, 0)];
+        assert!(Operator::<f64>::new(&ring, &[RawTerm::new(1.0, 0.0, pair)]).is_ok());
+        let e = Operator::<f64>::new(&ring, &[RawTerm::new(1.0, 0.0, vec![(0, 1, 0)])]).unwrap_err();
+        assert!(matches!(e, CoreError::ChargeViolation { charge: 1, .. }), "{e}");
     }
 
     #[test]

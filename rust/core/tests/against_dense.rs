@@ -6,7 +6,7 @@
 use fockmill_core::build::{build_csr, Csr, CsrAny, CsrIndex};
 use fockmill_core::lanczos::{ground_state, FockMap, LanczosOptions};
 use fockmill_core::matvec::apply;
-use fockmill_core::{FockSpace, NoInterrupt, Operator, RawTerm, Runner};
+use fockmill_core::{Charge, FockSpace, NoInterrupt, Operator, RawTerm, Runner};
 
 /// Every occupation tuple of the sector, in lexicographic order (mode 0 first).
 fn enumerate(cutoffs: &[u32], weights: &[u32], total: Option<u64>, modulus: Option<u64>) -> Vec<Vec<u32>> {
@@ -95,9 +95,37 @@ fn to_dense<I: CsrIndex>(csr: &Csr<f64, I>) -> Vec<Vec<f64>> {
 fn check(cutoffs: &[u32], weights: &[u32], total: Option<u64>, modulus: Option<u64>, terms: &[RawTerm]) {
     let states = enumerate(cutoffs, weights, total, modulus);
     let space = FockSpace::new(cutoffs.to_vec(), Some(weights.to_vec()), total, modulus).unwrap();
+    check_on(&space, &states, cutoffs, terms);
+}
+
+/// [`check`] on a space fixing several charges: the states are those of the full
+/// product space that keep every charge.
+fn check_charges(cutoffs: &[u32], charges: &[Charge], terms: &[RawTerm]) {
+    let states: Vec<Vec<u32>> = enumerate(cutoffs, &vec![0; cutoffs.len()], None, None)
+        .into_iter()
+        .filter(|occ| {
+            charges.iter().all(|c| {
+                let q: u64 = occ
+                    .iter()
+                    .zip(&c.weights)
+                    .map(|(&n, &w)| n as u64 * w as u64)
+                    .sum();
+                match c.modulus {
+                    None => q == c.total,
+                    Some(m) => q % m == c.total % m,
+                }
+            })
+        })
+        .collect();
+    let space = FockSpace::with_charges(cutoffs.to_vec(), charges.to_vec()).unwrap();
+    check_on(&space, &states, cutoffs, terms);
+}
+
+fn check_on(space: &FockSpace, states: &[Vec<u32>], cutoffs: &[u32], terms: &[RawTerm]) {
+    let space = space.clone();
     assert_eq!(space.dim() as usize, states.len());
     let op = Operator::<f64>::new(&space, terms).unwrap();
-    let expected = dense(&states, terms, cutoffs);
+    let expected = dense(states, terms, cutoffs);
     for threads in [1, 2] {
         let runner = Runner::with_threads(Some(threads)).unwrap();
         for wide in [false, true] {
@@ -341,4 +369,104 @@ fn many_terms_with_weighted_charge() {
     let weights: Vec<u32> = (0..m as u32).collect();
     check(&[3; 6], &weights, Some(6), None, &terms);
     check(&[2; 6], &weights, Some(5), None, &terms);
+}
+
+fn exact(weights: Vec<u32>, total: u64) -> Charge {
+    Charge {
+        weights,
+        total,
+        modulus: None,
+    }
+}
+
+/// Momentum-space pair interaction Σ a†_{k+q} a†_{p−q} a_p a_k on a ring of `l`
+/// momenta (indices mod l) plus a dispersion: every term keeps the number and the
+/// momentum modulo l.
+fn momentum_ring(l: usize, u: f64) -> Vec<RawTerm> {
+    let mut terms = Vec::new();
+    for k in 0..l {
+        let eps = -2.0 * (2.0 * std::f64::consts::PI * k as f64 / l as f64).cos();
+        terms.push(monomial(eps, &[k], &[k]));
+        for p in 0..l {
+            for q in 0..l {
+                terms.push(monomial(
+                    u / (2.0 * l as f64),
+                    &[(k + q) % l, (p + l - q) % l],
+                    &[p, k],
+                ));
+            }
+        }
+    }
+    terms
+}
+
+#[test]
+fn several_charges_number_and_momentum() {
+    use fockmill_core::kernel::ProductKernel;
+    for (l, n) in [(4usize, 3u64), (5, 3), (3, 4)] {
+        let terms = momentum_ring(l, 1.3);
+        let ks: Vec<u32> = (0..l as u32).collect();
+        for k in 0..l as u64 {
+            let charges = [
+                exact(vec![1; l], n),
+                Charge {
+                    weights: ks.clone(),
+                    total: k,
+                    modulus: Some(l as u64),
+                },
+            ];
+            let space = FockSpace::with_charges(vec![n as u32; l], charges.to_vec()).unwrap();
+            let op = Operator::<f64>::new(&space, &terms).unwrap();
+            // Merged, the pair terms outnumber 8 L (the index threshold) from L = 5 on.
+            assert_eq!(ProductKernel::new(&space, &op).indexes_terms(), op.len() >= 8 * l);
+            check_charges(&vec![n as u32; l], &charges, &terms);
+        }
+    }
+}
+
+#[test]
+fn several_exact_charges_two_species_and_angular_momentum() {
+    // Two species on a 3-site chain (modes 0..3: A, 3..6: B): hops within each
+    // species, on-site repulsion and an A-B density coupling.
+    let mut terms = Vec::new();
+    for s in [0, 3] {
+        for i in 0..2 {
+            terms.extend(hop(s + i, s + i + 1, 0.8 + 0.1 * s as f64));
+        }
+        for i in 0..3 {
+            terms.push(monomial(0.6 + 0.2 * i as f64, &[s + i, s + i], &[s + i, s + i]));
+        }
+    }
+    for i in 0..3 {
+        terms.push(RawTerm::new(0.45, 0.0, vec![(i, 1, 1), (i + 3, 1, 1)]));
+    }
+    for (na, nb) in [(2u64, 1u64), (2, 2), (0, 3), (3, 3)] {
+        check_charges(
+            &[3; 6],
+            &[
+                exact(vec![1, 1, 1, 0, 0, 0], na),
+                exact(vec![0, 0, 0, 1, 1, 1], nb),
+            ],
+            &terms,
+        );
+    }
+    // The number and the angular momentum Σ m n_m both fixed (all exact: the packed
+    // residue path), many two-body terms.
+    let m = 6;
+    let mut lll = Vec::new();
+    for i in 0..m {
+        for j in 0..m {
+            for k in 0..m {
+                for l in 0..m {
+                    if i + j == k + l {
+                        lll.push(monomial(1.0 / (1.0 + (i * j + k * l) as f64), &[i, j], &[k, l]));
+                    }
+                }
+            }
+        }
+    }
+    let weights: Vec<u32> = (0..m as u32).collect();
+    for (n, lz) in [(3u64, 6u64), (4, 5), (2, 4)] {
+        check_charges(&[4; 6], &[exact(vec![1; 6], n), exact(weights.clone(), lz)], &lll);
+    }
 }
