@@ -22,7 +22,7 @@ import sys
 import time
 
 sys.path.insert(0, os.path.dirname(__file__))
-from _common import table  # noqa: E402
+from _common import table
 
 CHILD = """
 import json, time
