@@ -1722,6 +1722,21 @@ impl FactorTables {
         t
     }
 
+    /// The product of term `term`'s factor values at the occupations `occ`, taken in
+    /// factor order, or `None` when a factor leaves the truncated space.
+    #[inline(always)]
+    fn product(&self, term: usize, occ: &[u32]) -> Option<f64> {
+        let mut amp = 1.0f64;
+        for &(mode, start) in &self.factors[self.range(term)] {
+            let v = self.values[start as usize + occ[mode as usize] as usize];
+            if v == 0.0 {
+                return None;
+            }
+            amp *= v;
+        }
+        Some(amp)
+    }
+
     #[inline(always)]
     fn range(&self, term: usize) -> std::ops::Range<usize> {
         let a = if term == 0 {
@@ -2024,15 +2039,10 @@ impl<S: Scalar> SectorOperator<S> {
         let mut d = S::ZERO;
         let mut any_diagonal = false;
         let dt = &self.diagonal_tables;
-        'diag: for (t, term) in self.diagonal.iter().enumerate() {
-            let mut amp = 1.0;
-            for &(mode, start) in &dt.factors[dt.range(t)] {
-                let v = dt.values[start as usize + s.occ[mode as usize] as usize];
-                if v == 0.0 {
-                    continue 'diag;
-                }
-                amp *= v;
-            }
+        for (t, term) in self.diagonal.iter().enumerate() {
+            let Some(amp) = dt.product(t, &s.occ) else {
+                continue;
+            };
             d += term.coef.scale(amp);
             any_diagonal = true;
         }
@@ -2182,15 +2192,10 @@ impl<S: Scalar> SectorOperator<S> {
         debug_assert_eq!(loaded, rank);
         let tb = &ts.tables;
         s.pending.clear();
-        'terms: for t in 0..ts.ends.len() {
-            let mut amp_sq = 1.0f64;
-            for &(mode, start) in &tb.factors[tb.range(t)] {
-                let v = tb.values[start as usize + s.occ[mode as usize] as usize];
-                if v == 0.0 {
-                    continue 'terms;
-                }
-                amp_sq *= v;
-            }
+        for t in 0..ts.ends.len() {
+            let Some(amp_sq) = tb.product(t, &s.occ) else {
+                continue;
+            };
             if let Some(image) = s.ranks.shifted(base, &s.occ, ts.span(t)) {
                 s.pending.push((image, t as u32, 0, amp_sq));
             }
