@@ -595,6 +595,49 @@ def test_momentum_map_compiles_each_piece_once(monkeypatch) -> None:
     fm.momentum_spectrum(problem, psi=psi, A=fm.number(0), omegas=[0.0, 1.0], poles=True)
     on_h = {key: n for key, n in counts.items() if key[0] == str(h)}
     assert (str(h), repr(sector), "None") not in on_h
-    assert len(on_h) == 3 and set(on_h.values()) == {1}, on_h
+    # Rows 1 and 2 land in sectors of their own; row 3 = −1 copies row 1 (time reversal).
+    assert len(on_h) == 2 and set(on_h.values()) == {1}, on_h
     others = {key: n for key, n in counts.items() if key[0] != str(h)}
-    assert len(others) == 4 and set(others.values()) == {1}, others
+    assert len(others) == 3 and set(others.values()) == {1}, others
+
+
+def flux_ring(sites: int, phase: float) -> fm.LadderExpr:
+    """The invented ring threaded by a flux: hopping −J e^{iφ} a_{j+1}† a_j + h.c."""
+    h = bose_hubbard_ring(sites, 0.0, 2.0)
+    for j in range(sites):
+        hop = cmath.exp(1j * phase) * fm.raising((j + 1) % sites) * fm.lowering(j)
+        h = h - (hop + hop.adjoint())
+    return h
+
+
+def test_time_reversal_pairs_rows_only_when_it_holds(ring6) -> None:
+    # Real H, real probe, real ψ: S(−p, ω) = S(p, ω) (time reversal; common practice, no
+    # source), so rows −p are copies of rows p, and each equals the row computed alone.
+    h, base, _t, sector, ground, _ = ring6
+    omegas = np.linspace(-1.0, 14.0, 41)
+    m = fm.momentum_spectrum(h, sector, ground.vector, fm.number(0), omegas, eta=0.25, tol=1e-9)
+    for p in (1, 2):
+        np.testing.assert_array_equal(m.intensity[p], m.intensity[6 - p])
+        assert m.norms[p] == m.norms[6 - p] and m.dims[p] == m.dims[6 - p]
+        alone = fm.momentum_spectrum(
+            h, sector, ground.vector, fm.number(0), omegas, eta=0.25, tol=1e-9, labels=[6 - p]
+        )
+        np.testing.assert_allclose(
+            alone.intensity[0], m.intensity[p], atol=1e-7 * m.intensity.max()
+        )
+    # A global phase on ψ changes nothing.
+    phased = fm.momentum_spectrum(
+        h, sector, 1j * ground.vector, fm.number(0), omegas, eta=0.25, tol=1e-9
+    )
+    np.testing.assert_allclose(phased.intensity, m.intensity, atol=1e-7 * m.intensity.max())
+    # A flux breaks time reversal: rows ±p differ, and each must still match the whole
+    # number sector's spectrum of the same component (computed independently there).
+    flux = flux_ring(6, 0.4)
+    low = fm.ground_state(flux, sector, method="dense", cutoff_warning=None)
+    f = fm.momentum_spectrum(flux, sector, low.vector, fm.number(0), omegas, eta=0.25, tol=1e-9)
+    assert np.abs(f.intensity[1] - f.intensity[5]).max() > 1e-3 * f.intensity.max()
+    psi_full = sector.expand(low.vector)
+    for p in (1, 5):
+        a = sector.component(fm.number(0), (p,))
+        s_full = fm.spectral_function(flux, base, psi_full, a, omegas, eta=0.25, tol=1e-9)
+        np.testing.assert_allclose(f.intensity[p], s_full, atol=1e-7 * max(s_full.max(), 1))

@@ -13,7 +13,6 @@ from typing import Any
 import numpy as np
 import numpy.typing as npt
 import scipy.linalg as sla
-from scipy.linalg.blas import zaxpy
 
 from fockmill.algebra.expressions import LadderExpr
 from fockmill.dynamics.cfqm import Counters, Integrator
@@ -25,7 +24,9 @@ from fockmill.dynamics.krylov import (
     check_state,
     expectation_function,
     hermitian_map,
+    subtract_scaled,
     top_weights,
+    vector_norm,
     warn_tolerance_not_met,
     warn_top_weights,
 )
@@ -142,7 +143,7 @@ def _krylov_space(
     """Lanczos (optionally with one full reorthogonalisation per step): fills
     ``basis[:n]``, returns the diagonal, the off-diagonal, the next coupling ``beta_n``
     (0 on an invariant subspace) and ``n``."""
-    np.multiply(psi, 1.0 / _norm(psi), out=basis[0])
+    np.multiply(psi, 1.0 / vector_norm(psi), out=basis[0])
     alpha = np.zeros(m)
     beta = np.zeros(m)
     n = m
@@ -150,13 +151,13 @@ def _krylov_space(
         w = np.asarray(apply(basis[j]), dtype=np.complex128)
         alpha[j] = float(np.vdot(basis[j], w).real)
         # In place, without temporaries: the vectors are the memory traffic of a step.
-        _subtract(w, alpha[j], basis[j])
+        subtract_scaled(w, alpha[j], basis[j])
         if j > 0:
-            _subtract(w, beta[j - 1], basis[j - 1])
+            subtract_scaled(w, beta[j - 1], basis[j - 1])
         if reorthogonalize:
             # ⟨v_i|w⟩ as conj(v_i · conj(w)): no conjugated copy of the basis.
             w -= basis[: j + 1].T @ (basis[: j + 1] @ w.conj()).conj()
-        b = _norm(w)
+        b = vector_norm(w)
         beta[j] = b
         scale = max(float(np.max(np.abs(alpha[: j + 1]))), float(np.max(beta[: j + 1])), 1e-300)
         if b <= 1e-13 * scale:
@@ -165,19 +166,6 @@ def _krylov_space(
         if j + 1 < m:
             np.multiply(w, 1.0 / b, out=basis[j + 1])
     return alpha[:n], beta[: n - 1], float(beta[n - 1]), n
-
-
-def _norm(v: npt.NDArray[np.complex128]) -> float:
-    """‖v‖ in one pass (numpy's norm of a complex vector reads it twice, strided)."""
-    return float(np.sqrt(np.vdot(v, v).real))
-
-
-def _subtract(w: npt.NDArray[np.complex128], c: float, v: npt.NDArray[np.complex128]) -> None:
-    """``w -= c v`` in place (BLAS axpy: no temporary vector)."""
-    if w.flags.c_contiguous and v.flags.c_contiguous:
-        zaxpy(v, w, a=-c)
-    else:
-        w -= c * v
 
 
 def _default_krylov_dim(dim: int, memory_limit: int | None) -> int:

@@ -11,6 +11,7 @@ from typing import Any
 
 import numpy as np
 import numpy.typing as npt
+from scipy.linalg.blas import daxpy, zaxpy
 
 from fockmill.algebra.expressions import LadderExpr
 from fockmill.exceptions import NotHermitianError, SizeLimitError
@@ -23,7 +24,9 @@ __all__ = [
     "expectation_function",
     "hermitian_map",
     "lanczos_coefficients",
+    "subtract_scaled",
     "top_weights",
+    "vector_norm",
     "warn_top_weights",
 ]
 
@@ -126,6 +129,18 @@ def hermitian_map(
         fast = estimate.dim >= SMALL_KRYLOV_DIM and problem.native.cut > 0
         chosen = "csr" if fits and not fast else "operator"
     is_real = problem.is_real
+    if chosen == "csr" and estimate.dim >= SMALL_KRYLOV_DIM:
+        # Long vectors: the matrix is stored on the Rust side, whose product runs on the
+        # problem's threads without the GIL (scipy's runs on one thread). Handing the
+        # built arrays over copies them once, so the two copies must fit for a moment.
+        if 2 * estimate.csr_bytes + vector_bytes <= budget:
+            stored = _native_copy(problem)
+            pool = problem.pool
+
+            def apply_stored(x: npt.NDArray[Any]) -> npt.NDArray[Any]:
+                return stored.matvec(np.ascontiguousarray(x), threads=pool)  # type: ignore[no-any-return]
+
+            return HermitianMap(estimate.dim, is_real, "csr", apply_stored)
     if chosen == "csr":
         matrix = problem.matrix()
 
@@ -144,6 +159,16 @@ def hermitian_map(
         return native.matvec(np.ascontiguousarray(x), threads=pool)  # type: ignore[no-any-return]
 
     return HermitianMap(estimate.dim, is_real, "operator", apply_free)
+
+
+def _native_copy(problem: Any) -> Any:
+    """The problem's CSR matrix built once and held by a native operator."""
+    import fockmill._native as _native
+
+    matrix = problem.matrix()
+    return _native.NativeOperator.from_csr(
+        matrix.indptr, matrix.indices, np.ascontiguousarray(matrix.data)
+    )
 
 
 def expectation_function(observable: Any) -> Callable[[npt.NDArray[Any]], complex]:
@@ -232,6 +257,23 @@ def lanczos_coefficients(
         return _lanczos_coefficients(apply, start, max_steps, keep_basis, done, on_vector)
 
 
+def vector_norm(v: npt.NDArray[Any]) -> float:
+    """``‖v‖`` in one pass (numpy's norm of a complex vector reads it twice, strided)."""
+    return float(np.sqrt(np.vdot(v, v).real))
+
+
+def subtract_scaled(w: npt.NDArray[Any], c: float, v: npt.NDArray[Any]) -> None:
+    """``w -= c v`` in place (BLAS axpy: no temporary vector)."""
+    if w.dtype == v.dtype and w.flags.c_contiguous and v.flags.c_contiguous:
+        if w.dtype == np.complex128:
+            zaxpy(v, w, a=-c)
+            return
+        if w.dtype == np.float64:
+            daxpy(v, w, a=-c)
+            return
+    w -= c * v
+
+
 def _lanczos_coefficients(
     apply: Callable[[npt.NDArray[Any]], npt.NDArray[Any]],
     start: npt.NDArray[Any],
@@ -253,25 +295,29 @@ def _lanczos_coefficients(
             basis[j] = v
         if on_vector is not None:
             on_vector(j, v)
-        w = apply(v)
+        # A fresh array of our own: updated in place below (no temporaries on long vectors).
+        w = np.asarray(apply(v))
         if w.dtype != v.dtype:
             w = w.astype(np.result_type(w.dtype, v.dtype))
+        elif not (w.flags.writeable and w.flags.c_contiguous) or np.may_share_memory(w, v):
+            w = w.copy()
         a = float(np.vdot(v, w).real)
         alpha.append(a)
-        w = w - a * v
+        subtract_scaled(w, a, v)
         if v_prev is not None:
-            w = w - beta[-1] * v_prev
+            subtract_scaled(w, beta[-1], v_prev)
         if basis is not None:
             for _ in range(2):
                 w = w - basis[: j + 1].T @ (basis[: j + 1] @ w.conj()).conj()
-        b = float(np.linalg.norm(w))
+        b = vector_norm(w)
         scale = max(scale, abs(a), b)
         if done is not None and done(alpha, beta):
             break
         if j == steps - 1 or b <= 1e-12 * max(scale, 1e-300):
             break
         beta.append(b)
-        v_prev, v = v, w / b
+        w *= 1.0 / b
+        v_prev, v = v, w
         if basis is not None and v.dtype != basis.dtype:
             basis = basis.astype(v.dtype)
     n = len(alpha)

@@ -19,6 +19,7 @@ import itertools
 import numbers
 from collections.abc import Callable, Sequence
 from dataclasses import dataclass
+from typing import Any
 
 import numpy as np
 import numpy.typing as npt
@@ -81,6 +82,47 @@ class MomentumSpectrum:
     eta: float
     orders: tuple[int, ...]
     poles: tuple[SpectralPoles, ...] | None = None
+
+
+@dataclass(frozen=True)
+class _Row:
+    """One computed row of the map."""
+
+    dim: int
+    values: npt.NDArray[np.float64]
+    norm: float
+    poles: SpectralPoles | None
+
+
+def _negated(p: tuple[int, ...], orders: Sequence[int]) -> tuple[int, ...]:
+    return tuple((-d) % o for d, o in zip(p, orders, strict=True))
+
+
+def _time_reversal(
+    problem: Problem, sector: SymmetricSpace, psi: npt.NDArray[Any], probe: object
+) -> bool:
+    """Whether ``S(−p, ω) = S(p, ω)`` holds exactly, so that rows ``−p`` can copy rows ``p``.
+
+    Complex conjugation ``K`` in the Fock basis is antiunitary with ``KHK = H`` when
+    ``H`` has real coefficients; it maps the component ``O_p`` of a real probe to
+    ``O_{−p}`` and fixes a real ``ψ``, so ``⟨ψ|O_{−p}† R(z) O_{−p}|ψ⟩ = ⟨ψ|O_p† R(z) O_p|ψ⟩``
+    for the resolvent ``R(z) = (z − H)⁻¹`` of the Hermitian ``H`` (time-reversal
+    symmetry: common practice, no source). ``ψ`` is real in the Fock basis when its
+    sector coefficients are (up to one global phase) and the sector's labels are their
+    own negatives (momentum 0 or π, reflection parity): its basis states are then real.
+    A callable probe is not inspected, so it turns the pairing off.
+    """
+    if not isinstance(probe, LadderExpr) or not probe.is_real() or not problem.expr.is_real():
+        return False
+    if any((2 * q) % g.order for g, q in sector.symmetries):
+        return False
+    if psi.dtype.kind != "c":
+        return True
+    largest = psi[int(np.argmax(np.abs(psi)))]
+    if largest == 0:
+        return True
+    real = psi * (abs(largest) / largest)
+    return bool(np.max(np.abs(real.imag)) <= 1e-13 * max(float(np.max(np.abs(real.real))), 1e-300))
 
 
 def fold_momenta(labels: npt.ArrayLike, orders: Sequence[int]) -> npt.NDArray[np.float64]:
@@ -192,7 +234,10 @@ def momentum_spectrum(
     -----
     Each row needs ``H`` on one sector with labels ``q₀ + p``, so memory and time scale
     with the sector's dimension, about ``1/|G|`` of the whole space's; the map costs
-    ``|G|`` such spectra. Summed over all rows, ``Σ_p S(p, ω) = Σ_{g} S_{gOg⁻¹}(ω)``: the
+    ``|G|`` such spectra, or about half as many when time reversal holds: for a real
+    ``H``, a real probe and a real ``ψ`` in a sector whose labels are their own negatives
+    (momentum 0 or π, any reflection parity), ``S(−p, ω) = S(p, ω)`` and rows ``−p``
+    are copies of rows ``p``. Summed over all rows, ``Σ_p S(p, ω) = Σ_{g} S_{gOg⁻¹}(ω)``: the
     local spectra of all images of ``O``.
 
     Examples
@@ -258,12 +303,11 @@ def momentum_spectrum(
     gens = [g for g, _ in sector.symmetries]
     orders = [g.order for g in gens]
     rows, listed = _rows(labels, orders)
-    kept: list[tuple[int, ...]] = []
-    maps: list[npt.NDArray[np.float64]] = []
-    norms: list[float] = []
-    dims: list[int] = []
-    found: list[SpectralPoles] = []
-    for p in rows:
+    mirrored = _time_reversal(problem, sector, v, A)
+
+    def one_row(p: tuple[int, ...]) -> _Row | None:
+        """Row ``p``, or None when its labels make no one-dimensional representation
+        and the row was not asked for by name."""
         shifted = [(g, (q + d) % g.order) for (g, q), d in zip(sector.symmetries, p, strict=True)]
         try:
             a_p = probe(p)
@@ -274,23 +318,36 @@ def momentum_spectrum(
         except SymmetryError:
             if listed:
                 raise
-            continue  # no one-dimensional representation: not part of the default map
-        kept.append(p)
-        dims.append(target.dim)
+            return None  # no one-dimensional representation: not part of the default map
         if target.dim == 0 or a_p.is_zero():
-            maps.append(np.zeros(grid.size))
-            norms.append(0.0)
-            if poles:
-                empty = np.zeros(0)
-                found.append(SpectralPoles(empty, empty, 0.0, ref, 0, True))
-            continue
+            empty = np.zeros(0)
+            nothing = SpectralPoles(empty, empty, 0.0, ref, 0, True) if poles else None
+            return _Row(target.dim, np.zeros(grid.size), 0.0, nothing)
         start = spectral_start(problem, v, a_p, None if target == sector else target, ref)
-        maps.append(
-            function_from_start(start, grid, eta=eta, tol=tol, max_steps=max_steps, method=method)
+        values = function_from_start(
+            start, grid, eta=eta, tol=tol, max_steps=max_steps, method=method
         )
-        norms.append(start.norm)
-        if poles:
-            found.append(poles_from_start(start, max_steps=max_steps, method=method))
+        found = poles_from_start(start, max_steps=max_steps, method=method) if poles else None
+        return _Row(target.dim, values, start.norm, found)
+
+    # Under time reversal rows -p copy rows p; the others are computed.
+    computed: list[tuple[int, ...]] = []
+    for p in rows:
+        if p not in computed and not (mirrored and _negated(p, orders) in computed):
+            computed.append(p)
+    results = {p: one_row(p) for p in computed}
+    kept: list[tuple[int, ...]] = []
+    done_rows: list[_Row] = []
+    for p in rows:
+        row = results[p] if p in results else results[_negated(p, orders)]
+        if row is None:
+            continue
+        kept.append(p)
+        done_rows.append(row)
+    maps = [row.values for row in done_rows]
+    norms = [row.norm for row in done_rows]
+    dims = [row.dim for row in done_rows]
+    found = [row.poles for row in done_rows if row.poles is not None]
     shifts = np.asarray(kept, dtype=np.int64).reshape(len(kept), len(orders))
     return MomentumSpectrum(
         labels=shifts,
