@@ -22,6 +22,8 @@ use crate::scalar::Scalar;
 use crate::space::{Constraint, FockSpace};
 use crate::terms::falling;
 use crate::terms::{Operator, RowState};
+use rayon::prelude::*;
+use std::sync::OnceLock;
 
 /// Rows per block of unpacked states.
 const KERNEL_BLOCK: usize = 256;
@@ -140,6 +142,10 @@ struct Lowering<S> {
     row_bound: usize,
     /// Columns of the single groups by intermediate state, when they apply.
     hop_table: Option<HopTable>,
+    /// With the hop table, when the single groups are dense enough: their coefficients
+    /// as an `m × m` matrix, `dense_hops[j * m + i]` for the term removing a quantum of
+    /// `i` and adding one of `j` (see [`ProductKernel::gather_hops`]).
+    dense_hops: Option<Vec<S>>,
 }
 
 /// Columns of the single groups' terms by intermediate state. When every term of the
@@ -159,6 +165,14 @@ struct HopTable {
 
 /// Largest intermediate table (entries) relative to the sector's dimension.
 const HOP_TABLE_PER_STATE: u64 = 64;
+/// Products gather the hop terms per intermediate state (one dense `m × m` product
+/// each) when the single groups hold at least `m² / DENSE_HOPS_FILL` terms ...
+const DENSE_HOPS_FILL: usize = 4;
+/// ... and the gathered table (`m` values per intermediate state) is at most this many
+/// vectors of the space.
+const DENSE_HOPS_VECTORS: u64 = 4;
+/// Intermediate states per parallel task of the gathering.
+const GATHER_STATES: usize = 64;
 
 /// Rank of the state with the given `(mode, occupation)` pairs (ascending modes, zero
 /// occupations allowed): modes without quanta add nothing and keep the residue.
@@ -366,6 +380,22 @@ impl<S: Scalar> Lowering<S> {
         if let Some(table) = hop_table.as_mut() {
             table.to = keyed[..starts[m] as usize].iter().map(|k| k.1[0].0).collect();
         }
+        let dense_hops = hop_table
+            .as_ref()
+            .filter(|table| {
+                (starts[m] as usize).saturating_mul(DENSE_HOPS_FILL) >= m * m
+                    && (table.inter.dim() as u128) * (m as u128)
+                        <= DENSE_HOPS_VECTORS as u128 * space.dim() as u128
+            })
+            .map(|table| {
+                let mut dense = vec![S::ZERO; m * m];
+                for i in 0..m {
+                    for t in starts[i] as usize..starts[i + 1] as usize {
+                        dense[table.to[t] as usize * m + i] += keyed[t].2;
+                    }
+                }
+                dense
+            });
         let mut coef = Vec::with_capacity(keyed.len());
         let mut raised = Vec::with_capacity(keyed.len());
         for (_, added, c) in keyed {
@@ -382,6 +412,7 @@ impl<S: Scalar> Lowering<S> {
             raised,
             row_bound,
             hop_table,
+            dense_hops,
         }
     }
 }
@@ -415,6 +446,46 @@ pub struct ProductKernel<S: Scalar> {
     /// Per mode, its residue key (see [`residue_keys`]).
     keys: Vec<u64>,
     sqrt: Vec<f64>,
+    /// For an operator of gathered hops and single-mode diagonal terms only: each row's
+    /// slots in the gathered table and its diagonal, made by the first product.
+    quadratic: OnceLock<Option<QuadraticRows<S>>>,
+}
+
+/// The rows of an operator made of dense hop groups and single-mode diagonal terms
+/// (a quadratic form `Σ t_ij a_i† a_j` on a sector of fixed total): row `s` is
+/// `d(s) x[s] + Σ_e amp_e g[slot_e]`, one entry `e` per occupied mode `i` with
+/// `slot_e = k(s − e_i) m + i` and `amp_e = sqrt(s_i)` (see
+/// [`ProductKernel::gather_hops`]), so a product reads a few table entries a row
+/// instead of unpacking the row state over every mode.
+#[derive(Debug, Clone)]
+struct QuadraticRows<S> {
+    starts: Vec<usize>,
+    slots: Vec<u64>,
+    amps: Vec<f64>,
+    diagonal: Vec<S>,
+}
+
+impl<S: Scalar> QuadraticRows<S> {
+    fn apply(
+        &self,
+        gathered: &[S],
+        x: &[S],
+        y: &mut [S],
+        runner: &Runner,
+        interrupt: &dyn Interrupt,
+    ) -> CoreResult<()> {
+        runner.for_row_chunks(y, interrupt, |first, out| {
+            for (k, yr) in out.iter_mut().enumerate() {
+                let r = first as usize + k;
+                let mut acc = self.diagonal[r] * x[r];
+                for e in self.starts[r]..self.starts[r + 1] {
+                    acc += gathered[self.slots[e] as usize].scale(self.amps[e]);
+                }
+                *yr = acc;
+            }
+            Ok(())
+        })
+    }
 }
 
 impl<S: Scalar> ProductKernel<S> {
@@ -540,6 +611,7 @@ impl<S: Scalar> ProductKernel<S> {
             lowering,
             keys,
             sqrt,
+            quadratic: OnceLock::new(),
         }
     }
 
@@ -586,6 +658,14 @@ impl<S: Scalar> ProductKernel<S> {
         runner: &Runner,
         interrupt: &dyn Interrupt,
     ) -> CoreResult<()> {
+        let gathered = match &self.lowering {
+            Some(index) => self.gather_hops(index, x, runner, interrupt)?,
+            None => None,
+        };
+        if let (Some(g), Some(rows)) = (gathered.as_deref(), self.quadratic_rows(space, runner)?) {
+            return rows.apply(g, x, y, runner, interrupt);
+        }
+        let hops = gathered.as_deref();
         runner.for_row_chunks(y, interrupt, |first, out| {
             let mut block = Block::new(self.modes, KERNEL_BLOCK);
             let mut row = RowState::at(space, first)?;
@@ -595,11 +675,155 @@ impl<S: Scalar> ProductKernel<S> {
                 block.load(space, &mut row, n, done == 0);
                 let ys = &mut out[done..done + n];
                 ys.fill(S::ZERO);
-                self.block_entries(space, rule, &block, n, &mut ProductSink { ys, x });
+                self.block_entries(space, rule, &block, n, &mut ProductSink { ys, x, hops });
                 done += n;
             }
             Ok(())
         })
+    }
+
+    /// The rows of [`QuadraticRows`] when every term is a gathered hop or a single-mode
+    /// diagonal term, made once (on the first product) and kept.
+    fn quadratic_rows(&self, space: &FockSpace, runner: &Runner) -> CoreResult<Option<&QuadraticRows<S>>> {
+        let Some(index) = &self.lowering else {
+            return Ok(None);
+        };
+        let m = self.modes;
+        let only_hops = self.hops.is_empty()
+            && self.off.is_empty()
+            && self.multi_diag.is_empty()
+            && index.starts[m] == index.starts[index.starts.len() - 1];
+        let Some(table) = index.hop_table.as_ref().filter(|_| only_hops) else {
+            return Ok(None);
+        };
+        if let Some(made) = self.quadratic.get() {
+            return Ok(made.as_ref());
+        }
+        let made = self.make_quadratic_rows(space, table, runner)?;
+        Ok(self.quadratic.get_or_init(|| Some(made)).as_ref())
+    }
+
+    fn make_quadratic_rows(
+        &self,
+        space: &FockSpace,
+        table: &HopTable,
+        runner: &Runner,
+    ) -> CoreResult<QuadraticRows<S>> {
+        let m = self.modes;
+        let dim = space.dim() as usize;
+        let kdim = table.inter.dim() as usize;
+        // Entries by row: count, then fill in the order of the intermediate states.
+        let mut starts: Vec<usize> = crate::memory::try_with_capacity(dim + 1, "the quadratic-form rows")?;
+        starts.resize(dim + 1, 0);
+        for &col in &table.cols {
+            if col != u64::MAX {
+                starts[col as usize + 1] += 1;
+            }
+        }
+        for r in 0..dim {
+            starts[r + 1] += starts[r];
+        }
+        let entries = starts[dim];
+        let mut slots: Vec<u64> = crate::memory::try_with_capacity(entries, "the quadratic-form rows")?;
+        slots.resize(entries, 0);
+        let mut amps: Vec<f64> = crate::memory::try_with_capacity(entries, "the quadratic-form rows")?;
+        amps.resize(entries, 0.0);
+        let mut next = starts[..dim].to_vec();
+        if kdim > 0 {
+            let mut state = RowState::at(&table.inter, 0)?;
+            for k in 0..kdim {
+                if k > 0 {
+                    state.advance(&table.inter);
+                }
+                for (i, &col) in table.cols[k * m..(k + 1) * m].iter().enumerate() {
+                    if col == u64::MAX {
+                        continue;
+                    }
+                    let e = &mut next[col as usize];
+                    slots[*e] = (k * m + i) as u64;
+                    amps[*e] = self.sqrt[state.occ[i] as usize + 1];
+                    *e += 1;
+                }
+            }
+        }
+        drop(next);
+        // The diagonal of every row, summed over the modes as the row kernel sums it.
+        let mut diagonal: Vec<S> = crate::memory::try_with_capacity(dim, "the quadratic-form diagonal")?;
+        diagonal.resize(dim, S::ZERO);
+        runner.for_row_chunks(&mut diagonal, &crate::parallel::NoInterrupt, |first, out| {
+            let mut row = RowState::at(space, first)?;
+            for (k, d) in out.iter_mut().enumerate() {
+                if k > 0 {
+                    row.advance(space);
+                }
+                let mut sum = S::ZERO;
+                for &i in &self.diag_modes {
+                    sum += self.diag_table[self.diag_start[i] + row.occ[i] as usize];
+                }
+                *d = sum;
+            }
+            Ok(())
+        })?;
+        Ok(QuadraticRows {
+            starts,
+            slots,
+            amps,
+            diagonal,
+        })
+    }
+
+    /// For the dense hop groups (see [`Lowering::dense_hops`]), the table
+    /// `g[k * m + i] = Σ_j t_ij sqrt(s'_j + 1) x[s' + e_j]` over the intermediate states
+    /// `s'` (rank `k`, one quantum fewer): row `s` then takes `sqrt(s_i) g[k(s − e_i), i]`
+    /// for each occupied mode `i`. The hop terms of a product cost one dense `m × m`
+    /// product per intermediate state (an update along `i` for every `j`, which the
+    /// compiler vectorises) instead of a gather per entry: the stored matrix's work,
+    /// read from a table that fits in cache. Each `s'` is summed in the same order on
+    /// every thread.
+    fn gather_hops(
+        &self,
+        index: &Lowering<S>,
+        x: &[S],
+        runner: &Runner,
+        interrupt: &dyn Interrupt,
+    ) -> CoreResult<Option<Vec<S>>> {
+        let (Some(table), Some(dense)) = (&index.hop_table, &index.dense_hops) else {
+            return Ok(None);
+        };
+        let m = self.modes;
+        let kdim = table.inter.dim() as usize;
+        let mut gathered: Vec<S> = crate::memory::try_with_capacity(kdim * m, "the gathered hop table")?;
+        gathered.resize(kdim * m, S::ZERO);
+        let sqrt = &self.sqrt;
+        runner.install(|| {
+            gathered
+                .par_chunks_mut(m * GATHER_STATES)
+                .enumerate()
+                .try_for_each(|(c, part)| -> CoreResult<()> {
+                    let first = c * GATHER_STATES;
+                    let mut state = RowState::at(&table.inter, first as u64)?;
+                    for (k, g) in part.chunks_mut(m).enumerate() {
+                        if k > 0 {
+                            state.advance(&table.inter);
+                        }
+                        let at = (first + k) * m;
+                        for (j, &col) in table.cols[at..at + m].iter().enumerate() {
+                            if col == u64::MAX {
+                                continue;
+                            }
+                            let z = x[col as usize].scale(sqrt[state.occ[j] as usize + 1]);
+                            for (gi, &t) in g.iter_mut().zip(&dense[j * m..(j + 1) * m]) {
+                                *gi += t * z;
+                            }
+                        }
+                    }
+                    Ok(())
+                })
+        })?;
+        if interrupt.requested() {
+            return Err(CoreError::Interrupted);
+        }
+        Ok(Some(gathered))
     }
 
     /// Upper bound of the stored entries of one row.
@@ -610,6 +834,13 @@ impl<S: Scalar> ProductKernel<S> {
     /// Whether the terms that remove one or two quanta are indexed by those quanta.
     pub fn indexes_terms(&self) -> bool {
         self.lowering.is_some()
+    }
+
+    /// Whether products gather the hop terms per intermediate state (dense hop groups).
+    pub fn gathers_hops(&self) -> bool {
+        self.lowering
+            .as_ref()
+            .is_some_and(|l| l.hop_table.is_some() && l.dense_hops.is_some())
     }
 
     /// Rows per block when a block's entries are buffered (keeps the buffer small).
@@ -857,9 +1088,14 @@ impl<S: Scalar> ProductKernel<S> {
                 .iter()
                 .map(|&o| (o, if o == i { occ[o] - 1 } else { occ[o] })),
         ) as usize;
-        let cols = &table.cols[k * m..(k + 1) * m];
         let sqrt = &self.sqrt;
         let root_i = sqrt[occ[i] as usize];
+        if let Some(gathered) = sink.gathered_hops() {
+            let val = gathered[k * m + i].scale(root_i);
+            sink.add(r, val);
+            return;
+        }
+        let cols = &table.cols[k * m..(k + 1) * m];
         let to = &table.to[first..last];
         let coefs = &index.coef[first..last];
         // The amplitude is sqrt(n_i) sqrt(s'_j + 1), with s'_j = n_j (a group's terms
@@ -1075,6 +1311,11 @@ trait Sink<S> {
     fn input(&self) -> Option<&[S]> {
         None
     }
+    /// The gathered hop table of a product (see [`ProductKernel::gather_hops`]).
+    #[inline(always)]
+    fn gathered_hops(&self) -> Option<&[S]> {
+        None
+    }
     /// Add `val` to the output of `row` (products only).
     #[inline(always)]
     fn add(&mut self, _row: usize, _val: S) {}
@@ -1091,6 +1332,8 @@ trait Sink<S> {
 struct ProductSink<'a, S> {
     ys: &'a mut [S],
     x: &'a [S],
+    /// The gathered hop table of [`ProductKernel::gather_hops`], when it applies.
+    hops: Option<&'a [S]>,
 }
 
 impl<S: Scalar> Sink<S> for ProductSink<'_, S> {
@@ -1102,6 +1345,11 @@ impl<S: Scalar> Sink<S> for ProductSink<'_, S> {
     #[inline(always)]
     fn input(&self) -> Option<&[S]> {
         Some(self.x)
+    }
+
+    #[inline(always)]
+    fn gathered_hops(&self) -> Option<&[S]> {
+        self.hops
     }
 
     #[inline(always)]

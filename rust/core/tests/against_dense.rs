@@ -470,3 +470,75 @@ fn several_exact_charges_two_species_and_angular_momentum() {
         check_charges(&[4; 6], &[exact(vec![1; 6], n), exact(weights.clone(), lz)], &lll);
     }
 }
+
+/// `Σ_ij t_ij a_i† a_j` with pseudo-random Hermitian `t` (complex off the diagonal when
+/// `complex`), every pair of modes coupled.
+fn quadratic_form(m: usize, seed: u64, complex: bool) -> Vec<RawTerm> {
+    let mut state = seed;
+    let mut draw = move || {
+        state = state
+            .wrapping_mul(6364136223846793005)
+            .wrapping_add(1442695040888963407);
+        ((state >> 11) as f64 / (1u64 << 53) as f64) - 0.5
+    };
+    let mut terms = Vec::new();
+    for i in 0..m {
+        terms.push(monomial(draw(), &[i], &[i]));
+        for j in i + 1..m {
+            let (re, im) = (draw(), if complex { draw() } else { 0.0 });
+            let mut ij = monomial(re, &[i], &[j]);
+            ij = RawTerm::new(re, im, ij.factors.clone());
+            let ji = RawTerm::new(re, -im, monomial(re, &[j], &[i]).factors);
+            terms.push(ij);
+            terms.push(ji);
+        }
+    }
+    terms
+}
+
+#[test]
+#[allow(clippy::needless_range_loop)]
+fn quadratic_forms_gather_hops_by_intermediate_state() {
+    use fockmill_core::kernel::ProductKernel;
+    use num_complex::Complex64;
+    // Real: against the dense reference (the gathered product, every thread count).
+    for (cutoffs, total) in [(vec![3u32; 12], 3u64), (vec![1; 12], 3), (vec![2; 12], 4)] {
+        let terms = quadratic_form(12, 11, false);
+        let space = FockSpace::new(cutoffs.clone(), None, Some(total), None).unwrap();
+        let op = Operator::<f64>::new(&space, &terms).unwrap();
+        assert!(
+            ProductKernel::new(&space, &op).gathers_hops(),
+            "{cutoffs:?} {total}"
+        );
+        check(&cutoffs, &[1; 12], Some(total), None, &terms);
+    }
+    // Complex: the gathered product against the product with the built matrix (whose
+    // entries come from the per-term path), bit-identical for 1 and 2 threads.
+    let terms = quadratic_form(10, 5, true);
+    let space = FockSpace::new(vec![3; 10], None, Some(3), None).unwrap();
+    let op = Operator::<Complex64>::new(&space, &terms).unwrap();
+    assert!(ProductKernel::new(&space, &op).gathers_hops());
+    let dim = space.dim() as usize;
+    let x: Vec<Complex64> = (0..dim)
+        .map(|i| Complex64::new((i as f64 * 0.37).sin(), (i as f64 * 0.11).cos()))
+        .collect();
+    let mut first: Option<Vec<Complex64>> = None;
+    for threads in [1, 2] {
+        let runner = Runner::with_threads(Some(threads)).unwrap();
+        let mut y = vec![Complex64::new(0.0, 0.0); dim];
+        apply(&space, &op, &x, &mut y, &runner, &NoInterrupt).unwrap();
+        let csr = match build_csr(&space, &op, &runner, &NoInterrupt, false).unwrap() {
+            CsrAny::Narrow(c) => c,
+            CsrAny::Wide(_) => panic!("small matrix must use narrow indices"),
+        };
+        for r in 0..dim {
+            let (a, b) = (csr.indptr[r] as usize, csr.indptr[r + 1] as usize);
+            let want: Complex64 = (a..b).map(|e| csr.data[e] * x[csr.indices[e] as usize]).sum();
+            assert!((want - y[r]).norm() < 1e-12, "row {r}: {want} vs {}", y[r]);
+        }
+        match &first {
+            None => first = Some(y),
+            Some(y1) => assert!(y1 == &y, "the product depends on the thread count"),
+        }
+    }
+}
