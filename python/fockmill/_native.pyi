@@ -201,6 +201,11 @@ class NativeOperator:
     def terms(self) -> int | None:
         """Distinct nonzero monomials after merging (None for a CSR matrix)."""
     @property
+    def fast_products(self) -> bool:
+        """Whether matrix-free products are as fast as a stored matrix's (the bipartite
+        kernel, or a quadratic form read from its gathered hop table); False for the
+        other kinds. Prepares the kernel on first use."""
+    @property
     def cut(self) -> int:
         """The cut of the product kernel on a space (0: the row kernel; 0 for the other
         kinds)."""

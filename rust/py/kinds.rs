@@ -133,9 +133,10 @@ impl<S: Scalar> Solvable<S> for SpaceVersion<'_, S> {
         Ok(FockMap::with_product(self.space, self.product(stop)?))
     }
     fn fast_matrix_free(&self, stop: &dyn Interrupt) -> CoreResult<bool> {
-        // The bipartite kernel reads no matrix and was measured as fast as a stored one
-        // (benchmarks/results/methods.txt); the row kernel is several times slower.
-        Ok(self.product(stop)?.cut() > 0)
+        // The bipartite kernel and gathered quadratic forms read no matrix and were
+        // measured as fast as a stored one (benchmarks/results/methods.txt,
+        // many_terms); the row kernel is otherwise several times slower.
+        Ok(self.product(stop)?.as_fast_as_stored())
     }
     fn estimate(&self, runner: &Runner, stop: &dyn Interrupt) -> CoreResult<NnzEstimate> {
         Served::estimate(self, ESTIMATE_SAMPLES, runner, stop)

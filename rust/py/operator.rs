@@ -344,6 +344,25 @@ impl NativeOperator {
         }
     }
 
+    /// Whether matrix-free products are as fast as a stored matrix's (the bipartite
+    /// kernel, or a quadratic form read from its gathered hop table); False for the
+    /// other kinds. Prepares the kernel on first use.
+    #[getter]
+    fn fast_products(&self, py: Python<'_>) -> PyResult<bool> {
+        guarded(|| match &self.kind {
+            Kind::Space(k) => {
+                let v = k.versions();
+                match &v.real {
+                    Some(real) => detached(py, None, |_, s| real.product(s).map(|p| p.as_fast_as_stored())),
+                    None => detached(py, None, |_, s| {
+                        v.complex.product(s).map(|p| p.as_fast_as_stored())
+                    }),
+                }
+            }
+            _ => Ok(false),
+        })
+    }
+
     /// The cut of the product kernel on a space (0: the row kernel; `k`: left modes
     /// `0..k`); 0 for the other kinds. Prepares the kernel on first use.
     #[getter]

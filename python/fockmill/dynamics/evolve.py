@@ -714,7 +714,7 @@ def _driven_maps(
         # The rule of the time-independent products (krylov.hermitian_map): where the
         # bipartite kernel serves every part, its parallel matrix-free product beats a
         # stored matrix, so nothing is stored.
-        fast = dim >= SMALL_KRYLOV_DIM and all(p.native.cut > 0 for p in problems)
+        fast = dim >= SMALL_KRYLOV_DIM and all(p.native.fast_products for p in problems)
         method = "csr" if fits and not fast else "operator"
     return [hermitian_map(p, vectors=vectors, method=method) for p in problems]
 

@@ -122,11 +122,12 @@ def hermitian_map(
     chosen = method
     if method == "auto":
         # As the core's solvers decide (rust/core/src/solve.rs, Storage::decide): the
-        # bipartite product kernel reads no matrix and beats a stored one (on complex
-        # vectors by about 1.5x at L = 11), so a matrix is stored only for the others;
+        # bipartite product kernel and gathered quadratic forms read no matrix and beat
+        # a stored one (the bipartite kernel on complex vectors by about 1.5x at L = 11),
+        # so a matrix is stored only for the others;
         # but on small spaces a scipy product costs less than a native call's start-up.
         fits = estimate.build_peak_bytes + vector_bytes <= budget
-        fast = estimate.dim >= SMALL_KRYLOV_DIM and problem.native.cut > 0
+        fast = estimate.dim >= SMALL_KRYLOV_DIM and problem.native.fast_products
         chosen = "csr" if fits and not fast else "operator"
     is_real = problem.is_real
     if chosen == "csr" and estimate.dim >= SMALL_KRYLOV_DIM:

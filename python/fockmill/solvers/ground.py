@@ -68,10 +68,10 @@ def lowest_levels(
         Bytes the solve may plan to use (default: available memory).
     store_matrix : bool or None
         For ``method="lanczos"``: run on a CSR matrix kept inside Rust instead of the
-        matrix-free product; None uses the matrix-free product when it runs on the
-        bipartite kernel (``Problem.native.cut > 0``, measured faster than a stored
-        matrix), and otherwise stores the matrix when it and the solver's vectors fit
-        in the memory budget.
+        matrix-free product; None uses the matrix-free product when it is as fast as a
+        stored matrix (the bipartite kernel or a quadratic form read from its gathered
+        hop table: ``Problem.native.fast_products``), and otherwise stores the matrix
+        when it and the solver's vectors fit in the memory budget.
     progress : bool, callable or None
         Progress reports: None (default) draws a bar on stderr for runs longer than a
         few seconds in an interactive terminal (when tqdm is installed), True always,
@@ -188,8 +188,9 @@ def ground_state(
     store_matrix : bool or None
         For ``method="lanczos"``: run on a CSR matrix built and kept inside Rust
         instead of the matrix-free product. None (default) uses the matrix-free
-        product when it runs on the bipartite kernel (``Problem.native.cut > 0``,
-        measured as fast as or faster than a stored matrix, with no build), and
+        product when it is as fast as a stored matrix (the bipartite kernel or a
+        quadratic form read from its gathered hop table: ``Problem.native.fast_products``;
+        no build), and
         otherwise stores the matrix when it and four vectors fit in the memory budget
         (the plan :meth:`fockmill.Problem.memory_plan` gives).
     cutoff_warning : float or None

@@ -682,18 +682,25 @@ impl<S: Scalar> ProductKernel<S> {
         })
     }
 
+    /// Whether every term is a gathered hop or a single-mode diagonal term: products
+    /// then read each row from [`QuadraticRows`], as fast as a stored matrix or faster.
+    pub fn reads_quadratic_rows(&self) -> bool {
+        self.gathers_hops()
+            && self.lowering.as_ref().is_some_and(|index| {
+                self.hops.is_empty()
+                    && self.off.is_empty()
+                    && self.multi_diag.is_empty()
+                    && index.starts[self.modes] == index.starts[index.starts.len() - 1]
+            })
+    }
+
     /// The rows of [`QuadraticRows`] when every term is a gathered hop or a single-mode
     /// diagonal term, made once (on the first product) and kept.
     fn quadratic_rows(&self, space: &FockSpace, runner: &Runner) -> CoreResult<Option<&QuadraticRows<S>>> {
-        let Some(index) = &self.lowering else {
+        if !self.reads_quadratic_rows() {
             return Ok(None);
-        };
-        let m = self.modes;
-        let only_hops = self.hops.is_empty()
-            && self.off.is_empty()
-            && self.multi_diag.is_empty()
-            && index.starts[m] == index.starts[index.starts.len() - 1];
-        let Some(table) = index.hop_table.as_ref().filter(|_| only_hops) else {
+        }
+        let Some(table) = self.lowering.as_ref().and_then(|index| index.hop_table.as_ref()) else {
             return Ok(None);
         };
         if let Some(made) = self.quadratic.get() {

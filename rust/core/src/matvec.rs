@@ -78,6 +78,16 @@ impl<S: Scalar> Product<S> {
         Self::prepare(space, op, Some(cut), &crate::parallel::NoInterrupt)
     }
 
+    /// Whether products are about as fast as with a stored matrix: the bipartite kernel
+    /// (measured in benchmarks/results/methods.txt), or a quadratic form whose rows are
+    /// read from the gathered hop table.
+    pub fn as_fast_as_stored(&self) -> bool {
+        match self {
+            Product::Split(_) => true,
+            Product::Rows(k) => k.reads_quadratic_rows(),
+        }
+    }
+
     /// The cut in use (0: the row kernel).
     pub fn cut(&self) -> usize {
         match self {
