@@ -27,7 +27,8 @@ import json, time
 import fockmill as fm
 rows, cols, what, tol = {rows}, {cols}, {what!r}, {tol}
 sites = rows * cols
-model = fm.bose_hubbard(fm.rectangular_edges(rows, cols, periodic=True), J=1.0, U=1.0)
+edges = fm.models.rectangular_edges(rows, cols, periodic=True)
+model = fm.models.bose_hubbard(edges, J=1.0, U=1.0, total=sites)
 h = model.hamiltonian()
 base = fm.FockSpace(modes=sites, cutoff=sites, total=sites)
 
