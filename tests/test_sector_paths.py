@@ -16,7 +16,7 @@ from __future__ import annotations
 
 import cmath
 import itertools
-from collections.abc import Sequence
+from collections.abc import Iterator, Mapping, Sequence
 
 import fockmill as fm
 import numpy as np
@@ -87,6 +87,40 @@ def group_with_characters(
     return elems
 
 
+def every_sector(
+    base: fm.FockSpace, gens: Sequence[fm.ModePermutation], orbit_table: bool | None = None
+) -> Iterator[tuple[list[tuple[fm.ModePermutation, int]], fm.SymmetricSpace]]:
+    """Each ``(generator, label)`` list of ``gens`` that makes a one-dimensional
+    representation, with its sector."""
+    for labels in itertools.product(*(range(g.order) for g in gens)):
+        pairs = list(zip(gens, labels, strict=True))
+        try:
+            yield pairs, fm.SymmetricSpace(base, pairs, orbit_table=orbit_table)
+        except SymmetryError:
+            continue
+
+
+def permutation_matrices(
+    base: fm.FockSpace, gens: Sequence[fm.ModePermutation]
+) -> dict[fm.ModePermutation, np.ndarray]:
+    """Every element of the group ``gens`` generate, as a matrix on ``base``."""
+    return {
+        g: permutation_matrix(base, g) for g, _ in group_with_characters([(x, 0) for x in gens])
+    }
+
+
+def projected_basis(
+    mats: Mapping[fm.ModePermutation, np.ndarray],
+    pairs: Sequence[tuple[fm.ModePermutation, int]],
+    sector: fm.SymmetricSpace,
+) -> np.ndarray:
+    """Columns ``P|r⟩`` for the representatives ``r``, normalised, with the projector
+    ``P = Σ_g χ(g)* g`` onto the representation (``mats``: the group's matrices)."""
+    reps = sector.representatives()
+    v = sum(chi.conjugate() * mats[g][:, reps] for g, chi in group_with_characters(pairs))
+    return v / np.linalg.norm(v, axis=0)
+
+
 def check_every_label(
     base: fm.FockSpace,
     h: fm.LadderExpr,
@@ -100,19 +134,12 @@ def check_every_label(
         full = sector_matrix(h, base.cutoffs, total=base.total, modulus=base.modulus)
     else:
         full = between_matrix(h, base.cutoffs, states, states)
-    elements = group_with_characters([(x, 0) for x in gens])
-    mats = {g: permutation_matrix(base, g) for g, _ in elements}
+    mats = permutation_matrices(base, gens)
     checked = 0
-    for labels in itertools.product(*(range(g.order) for g in gens)):
-        pairs = list(zip(gens, labels, strict=True))
-        try:
-            sector = fm.SymmetricSpace(base, pairs)
-        except SymmetryError:
-            continue
+    for pairs, sector in every_sector(base, gens):
+        labels = [q for _, q in pairs]
         checked += 1
-        projector = sum(chi.conjugate() * mats[g] for g, chi in group_with_characters(pairs))
-        v = projector[:, sector.representatives()]
-        v = v / np.linalg.norm(v, axis=0)
+        v = projected_basis(mats, pairs, sector)
         want = v.conj().T @ full @ v
         one = fm.build_matrix(h, sector, threads=1)
         two = fm.build_matrix(h, sector, threads=2)
@@ -290,11 +317,8 @@ def test_rings_with_renumbered_modes_take_the_general_path(sites: int, reflect: 
     expected = (4 if sites % 2 == 0 else 2) if reflect else sites
     assert check_every_label(base, moved_h, moved_gens) == expected
     h = lattice_model(sites, bonds)
-    for labels in itertools.product(*(range(g.order) for g in gens)):
-        try:
-            ring = fm.SymmetricSpace(base, list(zip(gens, labels, strict=True)))
-        except SymmetryError:
-            continue
+    for pairs, ring in every_sector(base, gens):
+        labels = [q for _, q in pairs]
         general = fm.SymmetricSpace(
             base, list(zip(moved_gens, labels, strict=True)), orbit_table=False
         )
@@ -362,12 +386,8 @@ def test_sector_levels_over_every_label_give_the_full_spectrum(
     gens = lattice_group(rows, cols, point)
     levels = []
     lowest = []
-    for labels in itertools.product(*(range(g.order) for g in gens)):
-        pairs = list(zip(gens, labels, strict=True))
-        try:
-            sector = fm.SymmetricSpace(base, pairs, orbit_table=True)
-        except SymmetryError:
-            continue
+    for pairs, sector in every_sector(base, gens, orbit_table=True):
+        labels = [q for _, q in pairs]
         if sector.dim == 0:
             continue
         plain = fm.SymmetricSpace(base, pairs, orbit_table=False)
@@ -404,16 +424,14 @@ def test_operators_between_sectors_with_and_without_the_orbit_table(
     src_base = fm.FockSpace(modes=modes, cutoff=2, total=3)
     dst_base = fm.FockSpace(modes=modes, cutoff=2, total=2)
     gens = lattice_group(rows, cols, point)
+    src_mats = permutation_matrices(src_base, gens)
+    dst_mats = permutation_matrices(dst_base, gens)
     dense: dict[tuple[int, ...], np.ndarray] = {}
     checked = 0
-    for labels in itertools.product(*(range(g.order) for g in gens)):
-        pairs = list(zip(gens, labels, strict=True))
-        try:
-            source = fm.SymmetricSpace(src_base, pairs)
-        except SymmetryError:
-            continue
+    for pairs, source in every_sector(src_base, gens):
+        labels = [q for _, q in pairs]
         plain_source = fm.SymmetricSpace(src_base, pairs, orbit_table=False)
-        v_s = projected_basis(src_base, pairs, source)
+        v_s = projected_basis(src_mats, pairs, source)
         for shift in itertools.product(*(range(g.order) for g in gens)):
             target_pairs = [(g, (q + d) % g.order) for (g, q), d in zip(pairs, shift, strict=True)]
             try:
@@ -431,7 +449,7 @@ def test_operators_between_sectors_with_and_without_the_orbit_table(
             assert np.array_equal(m.data, other.data)
             if shift not in dense:  # the component depends on the shift alone
                 dense[shift] = dense_between(a, src_base, dst_base)
-            v_t = projected_basis(dst_base, target_pairs, target)
+            v_t = projected_basis(dst_mats, target_pairs, target)
             np.testing.assert_allclose(
                 m.toarray(), v_t.conj().T @ dense[shift] @ v_s, atol=1e-10, err_msg=str(labels)
             )
@@ -440,19 +458,6 @@ def test_operators_between_sectors_with_and_without_the_orbit_table(
             np.testing.assert_allclose(y, m @ x, atol=1e-12)
             checked += 1
     assert checked >= len(gens)
-
-
-def projected_basis(
-    base: fm.FockSpace, pairs: Sequence[tuple[fm.ModePermutation, int]], sector: fm.SymmetricSpace
-) -> np.ndarray:
-    """Columns ``P|r⟩`` normalised, ``P = Σ_g χ(g)* g`` (as in ``check_every_label``),
-    built on the representatives' columns only."""
-    reps = sector.representatives()
-    v = sum(
-        chi.conjugate() * permutation_matrix(base, g)[:, reps]
-        for g, chi in group_with_characters(pairs)
-    )
-    return v / np.linalg.norm(v, axis=0)
 
 
 def dense_between(expr: fm.LadderExpr, src: fm.FockSpace, dst: fm.FockSpace) -> np.ndarray:
