@@ -5,12 +5,11 @@ rows (or of a ring of two-mode sites) the packed path without it, rings of 33 mo
 128-bit packed strings, a parity space the packed path without packed ranks (a space
 with no total ranks packed strings with no weights), and tori with both translations
 (and reflections) or rings with their modes renumbered the general permutation path;
-each with and without the orbit table. Each
-sector matrix is compared with ``V† H V``, where the columns of ``V`` are the
-symmetrised basis states ``Σ_g χ(g)* g|r⟩`` of the representatives, normalised
-(projection onto a one-dimensional representation; common practice, no source); ``H``
-is the hand-built oracle ``reference.sector_matrix``. Products and builds must be
-bit-identical on 1 and 2 threads.
+each with and without the orbit table. Each sector matrix is compared with ``V† H V``,
+where the columns of ``V`` are the symmetrised basis states ``Σ_g χ(g)* g|r⟩`` of the
+representatives, normalised (projection onto a one-dimensional representation; common
+practice, no source); ``H`` is the hand-built oracle ``reference.sector_matrix``.
+Products and builds must be bit-identical on 1 and 2 threads.
 """
 
 from __future__ import annotations
