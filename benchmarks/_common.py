@@ -2,7 +2,11 @@
 
 from __future__ import annotations
 
+import json
+import os
 import statistics
+import subprocess
+import sys
 import time
 from collections.abc import Callable
 from typing import Any
@@ -61,8 +65,31 @@ def timed(run: Callable[[], Any], repeats: int) -> tuple[float, float, Any]:
     return statistics.median(walls), statistics.median(cpus), result
 
 
+def fresh_process(code: str, label: str) -> dict[str, Any]:
+    """Run ``code`` in a fresh interpreter, echoing its lines prefixed with ``[label]``.
+
+    Returns the JSON object of its last line, with ``peak_gib`` (its peak resident
+    memory, from wait4), ``wall`` (seconds) and ``load`` (the 1-minute load average
+    before and after). A child that fails ends the script (SystemExit).
+    """
+    load0 = os.getloadavg()
+    t0 = time.perf_counter()
+    proc = subprocess.Popen([sys.executable, "-c", code], stdout=subprocess.PIPE, text=True)
+    lines = []
+    assert proc.stdout is not None
+    for line in proc.stdout:
+        lines.append(line)
+        print(f"  [{label}] {line.strip()}", flush=True)
+    _, status, usage = os.wait4(proc.pid, 0)
+    if status != 0:
+        raise SystemExit(f"the {label} run failed with status {status}")
+    result: dict[str, Any] = json.loads(lines[-1])
+    result["peak_gib"] = usage.ru_maxrss / 2**20  # KiB on Linux
+    result["wall"] = time.perf_counter() - t0
+    result["load"] = f"{load0[0]:.2f}-{os.getloadavg()[0]:.2f}"
+    return result
+
+
 def load() -> str:
     """The 1, 5 and 15 minute load averages."""
-    import os
-
     return " ".join(f"{x:.2f}" for x in os.getloadavg())

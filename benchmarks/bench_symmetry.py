@@ -30,18 +30,17 @@ Usage::
 from __future__ import annotations
 
 import argparse
-import json
 import os
-import subprocess
 import sys
 import time
 from collections.abc import Callable
+from typing import Any
 
 import numpy as np
 
 sys.path.insert(0, os.path.dirname(__file__))
 import fockmill as fm
-from _common import bose_hubbard_ring, median_time, table, unit_filling
+from _common import bose_hubbard_ring, fresh_process, median_time, table, unit_filling
 
 
 def sector_of(sites: int, orbit_table: bool | None = None) -> fm.SymmetricSpace:
@@ -187,7 +186,7 @@ print(json.dumps(out), flush=True)
 """
 
 
-def child(sites: int, store: bool, probe: bool, full: bool, products: int) -> dict[str, float]:
+def child(sites: int, store: bool, probe: bool, full: bool, products: int) -> dict[str, Any]:
     """Run one size in a fresh process; its peak resident memory comes from wait4."""
     code = CHILD.format(
         here=os.path.dirname(os.path.abspath(__file__)),
@@ -197,20 +196,7 @@ def child(sites: int, store: bool, probe: bool, full: bool, products: int) -> di
         full=full,
         products=products,
     )
-    t0 = time.perf_counter()
-    proc = subprocess.Popen([sys.executable, "-c", code], stdout=subprocess.PIPE, text=True)
-    lines = []
-    assert proc.stdout is not None
-    for line in proc.stdout:
-        lines.append(line)
-        print(f"  [L={sites}] {line.strip()}", flush=True)
-    _, status, usage = os.wait4(proc.pid, 0)
-    if status != 0:
-        raise RuntimeError(f"child for L={sites} failed with status {status}")
-    result = json.loads(lines[-1])
-    result["peak_gib"] = usage.ru_maxrss / 2**20  # KiB on Linux
-    result["wall"] = time.perf_counter() - t0
-    return result
+    return fresh_process(code, f"L={sites}")
 
 
 def ground(sites_list: list[int], store: bool, probe: bool, full: list[int], products: int) -> None:

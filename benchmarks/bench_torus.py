@@ -15,22 +15,20 @@ Usage: python benchmarks/bench_torus.py [--rows 4] [--cols 4] [--full] [--tol 1e
 from __future__ import annotations
 
 import argparse
-import json
 import os
-import subprocess
 import sys
-import time
+from typing import Any
 
 sys.path.insert(0, os.path.dirname(__file__))
-from _common import table
+from _common import fresh_process, table
 
 CHILD = """
 import json, time
 import fockmill as fm
 rows, cols, what, tol = {rows}, {cols}, {what!r}, {tol}
 sites = rows * cols
-model = fm.models.bose_hubbard(fm.models.rectangular_edges(rows, cols, periodic=True),
-                          J=1.0, U=1.0, total=rows * cols)
+edges = fm.models.rectangular_edges(rows, cols, periodic=True)
+model = fm.models.bose_hubbard(edges, J=1.0, U=1.0, total=sites)
 h = model.hamiltonian()
 base = fm.FockSpace(modes=sites, cutoff=sites, total=sites)
 
@@ -61,25 +59,9 @@ print(json.dumps(out), flush=True)
 """
 
 
-def run(rows: int, cols: int, what: str, tol: float) -> dict[str, float]:
+def run(rows: int, cols: int, what: str, tol: float) -> dict[str, Any]:
     """One solve in a fresh process; peak resident memory from wait4."""
-    code = CHILD.format(rows=rows, cols=cols, what=what, tol=tol)
-    load0 = os.getloadavg()
-    t0 = time.perf_counter()
-    proc = subprocess.Popen([sys.executable, "-c", code], stdout=subprocess.PIPE, text=True)
-    lines = []
-    assert proc.stdout is not None
-    for line in proc.stdout:
-        lines.append(line)
-        print(f"  [{what}] {line.strip()}", flush=True)
-    _, status, usage = os.wait4(proc.pid, 0)
-    if status != 0:
-        raise SystemExit(f"the {what} run failed with status {status}")
-    result = json.loads(lines[-1])
-    result["peak_gib"] = usage.ru_maxrss / 2**20  # KiB on Linux
-    result["wall"] = time.perf_counter() - t0
-    result["load"] = f"{load0[0]:.2f}-{os.getloadavg()[0]:.2f}"
-    return result
+    return fresh_process(CHILD.format(rows=rows, cols=cols, what=what, tol=tol), what)
 
 
 def main() -> None:

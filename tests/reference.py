@@ -209,9 +209,25 @@ def sector_matrix(
     sector are dropped. A plain Python loop, independent of the package's Rust code.
     """
     checked = _check_cutoffs(cutoffs)
-    basis = sector_occupations(checked, weights, total, modulus).tolist()
-    position = {tuple(state): k for k, state in enumerate(basis)}
-    out: NDArray[np.complex128] = np.zeros((len(basis), len(basis)), dtype=np.complex128)
+    basis = sector_occupations(checked, weights, total, modulus)
+    return between_matrix(expr, checked, basis, basis)
+
+
+def between_matrix(
+    expr: LadderExpr, cutoffs: Sequence[int], columns: ArrayLike, rows: ArrayLike
+) -> NDArray[np.complex128]:
+    """Return ``<row| X |column>`` for lists of occupation tuples, by hand.
+
+    Each normal-ordered monomial ``a_i†^p a_i^q`` acts on each column state as ``a^q``
+    then ``a†^p`` with ``a|n> = sqrt(n)|n-1>``, ``a†|n> = sqrt(n+1)|n+1>`` (Sakurai &
+    Napolitano, Modern Quantum Mechanics, 2nd ed. 2011, Sec. 2.3); results above a
+    cutoff or not among ``rows`` are dropped. A plain Python loop, independent of the
+    package's Rust code.
+    """
+    checked = _check_cutoffs(cutoffs)
+    position = {state: k for k, state in enumerate(_as_rows(rows))}
+    basis = _as_rows(columns)
+    out: NDArray[np.complex128] = np.zeros((len(position), len(basis)), dtype=np.complex128)
     terms = expr.terms()
     for column, state in enumerate(basis):
         for coefficient, key in terms:

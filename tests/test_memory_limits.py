@@ -10,14 +10,13 @@ checked on fake cgroup directories.
 
 from __future__ import annotations
 
-import json
 import os
-import subprocess
 import sys
 import textwrap
 from pathlib import Path
 
 import pytest
+from child_runs import HELPERS, run_child
 from fockmill.problem.memory import _cgroup_dir_room, _cgroup_room, available_memory
 
 pytestmark = pytest.mark.skipif(
@@ -27,36 +26,19 @@ pytestmark = pytest.mark.skipif(
 #: Address space the child may still map after its imports.
 HEADROOM = 400 * 2**20
 
-CHILD = textwrap.dedent(
+CHILD = HELPERS + textwrap.dedent(
     """
     import json, resource, sys
     import numpy as np
     import fockmill as fm
     from fockmill.exceptions import SizeLimitError
 
-    def ring(sites):
-        h = fm.LadderExpr()
-        for i in range(sites):
-            j = (i + 1) % sites
-            h = h - (fm.raising(i) * fm.lowering(j) + fm.raising(j) * fm.lowering(i))
-            h = h + 0.5 * fm.number(i) * (fm.number(i) - 1)
-        return h
-
-    def unit(sites):
-        return fm.FockSpace(modes=sites, cutoff=sites, total=sites)
-
     # Start the thread pools before the limit (threads are not what is tested).
     small = fm.prepare(ring(6), unit(6))
     small.native.lanczos_ground()
 
-    def vm_size():
-        for line in open("/proc/self/status"):
-            if line.startswith("VmSize:"):
-                return int(line.split()[1]) * 1024
-        raise RuntimeError("no VmSize")
-
     _, hard = resource.getrlimit(resource.RLIMIT_AS)
-    resource.setrlimit(resource.RLIMIT_AS, (vm_size() + {headroom}, hard))
+    resource.setrlimit(resource.RLIMIT_AS, (status("VmSize") + {headroom}, hard))
     results = dict(available=fm.available_memory())
 
     def attempt(name, call):
@@ -107,18 +89,7 @@ def run_limited(*cases: str) -> dict[str, object]:
         RAYON_NUM_THREADS="2",
         MALLOC_ARENA_MAX="1",
     )
-    child = subprocess.run(
-        [sys.executable, "-c", CHILD.format(headroom=HEADROOM), *cases],
-        capture_output=True,
-        text=True,
-        env=env,
-        timeout=600,
-    )
-    assert child.returncode == 0, (
-        f"child exited with {child.returncode} (134 = abort on a failed allocation)\n"
-        f"{child.stderr[-2000:]}"
-    )
-    return json.loads(child.stdout.strip().splitlines()[-1])
+    return run_child(CHILD.format(headroom=HEADROOM), *cases, env=env)
 
 
 def test_probe_honours_the_address_space_limit_and_solvers_refuse_up_front() -> None:

@@ -16,12 +16,11 @@ its ~50 MB plan (computed from the sizes, not measured).
 
 from __future__ import annotations
 
-import json
-import subprocess
 import sys
 import textwrap
 
 import pytest
+from child_runs import HELPERS, run_child
 
 pytestmark = pytest.mark.skipif(
     not sys.platform.startswith("linux"), reason="/proc/self/status and clear_refs are Linux"
@@ -34,25 +33,11 @@ pytestmark = pytest.mark.skipif(
 #: below 3 MiB (common practice, no source: an allowance of a few times that).
 ALLOWANCE = 8 * 2**20
 
-CHILD = textwrap.dedent(
+CHILD = HELPERS + textwrap.dedent(
     """
     import json, sys
     import fockmill as fm
     from fockmill.exceptions import ConvergenceError
-
-    def ring(sites):
-        h = fm.LadderExpr()
-        for i in range(sites):
-            j = (i + 1) % sites
-            h = h - (fm.raising(i) * fm.lowering(j) + fm.raising(j) * fm.lowering(i))
-            h = h + 0.5 * fm.number(i) * (fm.number(i) - 1)
-        return h
-
-    def status(key):
-        for line in open("/proc/self/status"):
-            if line.startswith(key + ":"):
-                return int(line.split()[1]) * 1024
-        raise RuntimeError("no " + key)
 
     case = sys.argv[1]
     sites, cutoff, store, cap = {
@@ -91,24 +76,12 @@ CHILD = textwrap.dedent(
 )
 
 
-def _run(case: str) -> dict[str, object]:
-    out = subprocess.run(
-        [sys.executable, "-c", CHILD, case],
-        capture_output=True,
-        text=True,
-        timeout=600,
-    )
-    assert out.returncode == 0, out.stderr[-2000:]
-    result: dict[str, object] = json.loads(out.stdout.strip().splitlines()[-1])
-    return result
-
-
 @pytest.mark.parametrize(
     ("case", "stored"),
     [("sector-stored", True), ("sector-free", False), ("full", False)],
 )
 def test_solve_peaks_within_its_plan(case: str, stored: bool) -> None:
-    r = _run(case)
+    r = run_child(CHILD, case)
     if not r["reset"]:
         pytest.skip("the kernel does not reset the resident high-water mark (clear_refs)")
     assert r["stored"] is stored

@@ -1,9 +1,12 @@
 """Every sector kernel path against dense projector references.
 
 Rings of 5-8 sites take the packed run-of-zeros path, translations of a torus along its
-rows the packed path without it, and tori with both translations (and reflections) the
-general permutation path. Each sector matrix is compared with ``V† H V``, where the
-columns of ``V`` are the symmetrised basis states ``Σ_g χ(g)* g|r⟩`` of the
+rows (or of a ring of two-mode sites) the packed path without it, rings of 33 modes the
+128-bit packed strings, a parity space the packed path without packed ranks (a space
+with no total ranks packed strings with no weights), and tori with both translations
+(and reflections) or rings with their modes renumbered the general permutation path;
+each with and without the orbit table. Each sector matrix is compared with ``V† H V``,
+where the columns of ``V`` are the symmetrised basis states ``Σ_g χ(g)* g|r⟩`` of the
 representatives, normalised (projection onto a one-dimensional representation; common
 practice, no source); ``H`` is the hand-built oracle ``reference.sector_matrix``.
 Products and builds must be bit-identical on 1 and 2 threads.
@@ -13,13 +16,13 @@ from __future__ import annotations
 
 import cmath
 import itertools
-from collections.abc import Sequence
+from collections.abc import Iterator, Mapping, Sequence
 
 import fockmill as fm
 import numpy as np
 import pytest
 from fockmill.exceptions import SymmetryError
-from reference import sector_matrix
+from reference import between_matrix, sector_matrix, sector_occupations
 
 
 def lattice_model(modes: int, bonds: Sequence[tuple[int, int]]) -> fm.LadderExpr:
@@ -84,25 +87,59 @@ def group_with_characters(
     return elems
 
 
-def check_every_label(
-    base: fm.FockSpace, h: fm.LadderExpr, gens: Sequence[fm.ModePermutation]
-) -> int:
-    """Check each sector of ``gens`` that carries a one-dimensional representation;
-    returns how many there were."""
-    full = sector_matrix(h, base.cutoffs, total=base.total)
-    elements = group_with_characters([(x, 0) for x in gens])
-    mats = {g: permutation_matrix(base, g) for g, _ in elements}
-    checked = 0
+def every_sector(
+    base: fm.FockSpace, gens: Sequence[fm.ModePermutation], orbit_table: bool | None = None
+) -> Iterator[tuple[list[tuple[fm.ModePermutation, int]], fm.SymmetricSpace]]:
+    """Each ``(generator, label)`` list of ``gens`` that makes a one-dimensional
+    representation, with its sector."""
     for labels in itertools.product(*(range(g.order) for g in gens)):
         pairs = list(zip(gens, labels, strict=True))
         try:
-            sector = fm.SymmetricSpace(base, pairs)
+            yield pairs, fm.SymmetricSpace(base, pairs, orbit_table=orbit_table)
         except SymmetryError:
             continue
+
+
+def permutation_matrices(
+    base: fm.FockSpace, gens: Sequence[fm.ModePermutation]
+) -> dict[fm.ModePermutation, np.ndarray]:
+    """Every element of the group ``gens`` generate, as a matrix on ``base``."""
+    return {
+        g: permutation_matrix(base, g) for g, _ in group_with_characters([(x, 0) for x in gens])
+    }
+
+
+def projected_basis(
+    mats: Mapping[fm.ModePermutation, np.ndarray],
+    pairs: Sequence[tuple[fm.ModePermutation, int]],
+    sector: fm.SymmetricSpace,
+) -> np.ndarray:
+    """Columns ``P|r⟩`` for the representatives ``r``, normalised, with the projector
+    ``P = Σ_g χ(g)* g`` onto the representation (``mats``: the group's matrices)."""
+    reps = sector.representatives()
+    v = sum(chi.conjugate() * mats[g][:, reps] for g, chi in group_with_characters(pairs))
+    return v / np.linalg.norm(v, axis=0)
+
+
+def check_every_label(
+    base: fm.FockSpace,
+    h: fm.LadderExpr,
+    gens: Sequence[fm.ModePermutation],
+    states: np.ndarray | None = None,
+) -> int:
+    """Check each sector of ``gens`` that carries a one-dimensional representation;
+    returns how many there were. ``states``: the base space's states in basis order,
+    when the product space is too large to filter."""
+    if states is None:
+        full = sector_matrix(h, base.cutoffs, total=base.total, modulus=base.modulus)
+    else:
+        full = between_matrix(h, base.cutoffs, states, states)
+    mats = permutation_matrices(base, gens)
+    checked = 0
+    for pairs, sector in every_sector(base, gens):
+        labels = [q for _, q in pairs]
         checked += 1
-        projector = sum(chi.conjugate() * mats[g] for g, chi in group_with_characters(pairs))
-        v = projector[:, sector.representatives()]
-        v = v / np.linalg.norm(v, axis=0)
+        v = projected_basis(mats, pairs, sector)
         want = v.conj().T @ full @ v
         one = fm.build_matrix(h, sector, threads=1)
         two = fm.build_matrix(h, sector, threads=2)
@@ -211,3 +248,226 @@ def test_orbit_table_choice_is_checked() -> None:
     auto = fm.SymmetricSpace(base, gens)
     assert auto.orbit_table_bytes == 0
     assert auto.dim == 1
+
+
+# -- the remaining packed paths, the general path on rings, operators between sectors,
+# -- and ground energies over every label
+
+
+def ring_bonds(sites: int) -> list[tuple[int, int]]:
+    return [(i, (i + 1) % sites) for i in range(sites)]
+
+
+def test_packed_paths_beyond_the_plain_ring() -> None:
+    # 33 modes of cutoff 2 take 66 bits (the 128-bit strings); a parity space has no
+    # packed ranks, a space with no total ranks without weights; two modes a site make
+    # the translation a rotation by two modes (packed, no run-of-zeros shortcut). Same
+    # references as above.
+    wide = fm.FockSpace(modes=33, cutoff=2, total=2)
+    gens = [fm.ring_translation(33), fm.ring_reflection(33)]
+    pairs = sorted(
+        tuple(int(i == a) + int(i == b) for i in range(33))
+        for a, b in itertools.combinations_with_replacement(range(33), 2)
+    )  # two quanta on 33 modes, in basis order (mode 0 most significant)
+    states = np.array(pairs)
+    assert np.array_equal(states, wide.occupations())
+    assert check_every_label(wide, lattice_model(33, ring_bonds(33)), gens, states) >= 2
+    for base in (
+        fm.FockSpace(modes=6, cutoff=1, total=1, modulus=2),
+        fm.FockSpace(modes=5, cutoff=1),
+    ):
+        m = base.modes
+        gens = [fm.ring_translation(m), fm.ring_reflection(m)]
+        assert check_every_label(base, lattice_model(m, ring_bonds(m)), gens[:1]) == m
+        assert check_every_label(base, lattice_model(m, ring_bonds(m)), gens) >= 2
+    sites = 4
+    bonds = [(2 * s + o, 2 * ((s + 1) % sites) + o) for s in range(sites) for o in (0, 1)]
+    bonds += [(2 * s, 2 * s + 1) for s in range(sites)]
+    base = fm.FockSpace(modes=2 * sites, cutoff=2, total=3)
+    t = fm.ring_translation(sites, orbitals=2)
+    r = fm.ring_reflection(sites, orbitals=2)
+    assert check_every_label(base, lattice_model(2 * sites, bonds), [t]) == sites
+    assert check_every_label(base, lattice_model(2 * sites, bonds), [t, r]) == 4
+
+
+def renumbered(g: fm.ModePermutation, new: Sequence[int]) -> fm.ModePermutation:
+    """``g`` after renaming mode ``i`` to ``new[i]``: ``π g π⁻¹``."""
+    images = [0] * g.modes
+    for i, j in enumerate(g.images):
+        images[new[i]] = new[j]
+    return fm.ModePermutation(images)
+
+
+@pytest.mark.parametrize("sites", [5, 6, 7, 8])
+@pytest.mark.parametrize("reflect", [False, True])
+def test_rings_with_renumbered_modes_take_the_general_path(sites: int, reflect: bool) -> None:
+    """A ring whose sites are numbered out of order is the same lattice, but its
+    translation is no rotation of the mode order: the general permutation path. Each
+    sector's matrix matches its projector reference, and its spectrum the ring path's
+    for the same labels (a renaming of the modes is a unitary map between the two
+    sectors; common practice, no source)."""
+    # Sites 1 and 2 swap numbers (a renumbering i -> a i + b would keep the translation a
+    # rotation of the mode order, the packed path).
+    new = [0, 2, 1, *range(3, sites)]
+    base = fm.FockSpace(modes=sites, cutoff=2, total=sites // 2 + 1)
+    bonds = ring_bonds(sites)
+    gens = [fm.ring_translation(sites)] + ([fm.ring_reflection(sites)] if reflect else [])
+    moved_gens = [renumbered(g, new) for g in gens]
+    shift = [(j - i) % sites for i, j in enumerate(moved_gens[0].images)]
+    assert len(set(shift)) > 1  # no rotation of the mode order
+    moved_h = lattice_model(sites, [(new[a], new[b]) for a, b in bonds])
+    expected = (4 if sites % 2 == 0 else 2) if reflect else sites
+    assert check_every_label(base, moved_h, moved_gens) == expected
+    h = lattice_model(sites, bonds)
+    for pairs, ring in every_sector(base, gens):
+        labels = [q for _, q in pairs]
+        general = fm.SymmetricSpace(
+            base, list(zip(moved_gens, labels, strict=True)), orbit_table=False
+        )
+        assert general.dim == ring.dim
+        np.testing.assert_allclose(
+            np.linalg.eigvalsh(fm.build_matrix(moved_h, general).toarray()),
+            np.linalg.eigvalsh(fm.build_matrix(h, ring).toarray()),
+            atol=1e-10,
+            err_msg=str(labels),
+        )
+
+
+def lattices() -> list[tuple[str, int, int, int, int, bool]]:
+    """(name, rows, cols, cutoff, total, with point-group elements): rings as 1 × L."""
+    rings = [(f"ring{n}", 1, n, 2, n // 2 + 1, r) for n in (5, 6, 7, 8) for r in (False, True)]
+    tori = [
+        ("torus3x3 hard-core", 3, 3, 1, 3, False),
+        ("torus3x3 two bosons", 3, 3, 2, 2, True),
+        ("torus2x4", 2, 4, 2, 3, False),
+        ("torus2x4", 2, 4, 2, 3, True),
+    ]
+    return rings + tori
+
+
+def lattice_group(rows: int, cols: int, point: bool) -> list[fm.ModePermutation]:
+    """Translations (both directions on a torus), and with ``point`` reflections: the
+    ring's, or the torus's two mirrors (with a 90° rotation when square)."""
+    if rows == 1:
+        return [fm.ring_translation(cols)] + ([fm.ring_reflection(cols)] if point else [])
+    tx, ty = fm.torus_translations(rows, cols)
+    gens = [tx, ty]
+    if point:
+        gens += [
+            torus_map(rows, cols, lambda r, c: (r, -c)),
+            torus_map(rows, cols, lambda r, c: (-r, c)),
+        ]
+        if rows == cols:
+            gens.append(torus_map(rows, cols, lambda r, c: (c, -r)))
+    return gens
+
+
+@pytest.mark.parametrize(
+    ("rows", "cols", "cutoff", "total", "point"),
+    [c[1:] for c in lattices()],
+    ids=[f"{c[0]}{'+points' if c[5] else ''}" for c in lattices()],
+)
+def test_sector_levels_over_every_label_give_the_full_spectrum(
+    rows: int, cols: int, cutoff: int, total: int, point: bool
+) -> None:
+    """Block diagonalisation by the group's one-dimensional representations
+    (A. W. Sandvik, AIP Conf. Proc. 1297, 135 (2010), the section on momentum states):
+    every sector level is a level of the number sector, with translations alone the
+    sectors' spectra together are the number sector's spectrum as a multiset, and the
+    lowest sector level over all labels is its minimum (with point-group elements too:
+    the Bose–Hubbard-like ground state with non-positive hopping is the symmetric one,
+    Perron–Frobenius; common practice, no source). The reference spectrum is numpy's
+    ``eigvalsh`` of the hand-built number-sector matrix. Each sector's lowest level is
+    also found by the native Lanczos solver on the stored matrix with the orbit table
+    and matrix-free without it."""
+    modes = rows * cols
+    base = fm.FockSpace(modes=modes, cutoff=cutoff, total=total)
+    bonds = ring_bonds(cols) if rows == 1 else torus_bonds(rows, cols)
+    h = lattice_model(modes, bonds)
+    full = np.linalg.eigvalsh(sector_matrix(h, base.cutoffs, total=base.total))
+    gens = lattice_group(rows, cols, point)
+    levels = []
+    lowest = []
+    for pairs, sector in every_sector(base, gens, orbit_table=True):
+        labels = [q for _, q in pairs]
+        if sector.dim == 0:
+            continue
+        plain = fm.SymmetricSpace(base, pairs, orbit_table=False)
+        mat = fm.build_matrix(h, sector).toarray()
+        here = np.linalg.eigvalsh(mat)
+        np.testing.assert_allclose(
+            np.linalg.eigvalsh(fm.build_matrix(h, plain).toarray()), here, atol=1e-10
+        )
+        levels.append(here)
+        lowest.append(here[0])
+        for space, store in ((sector, True), (plain, False)):
+            found = fm.prepare(h, space).native.lanczos_ground(tol=1e-10, store=store)
+            assert abs(found.energy - here[0]) < 1e-8, (labels, store)
+    every = np.concatenate(levels)
+    assert all(np.min(np.abs(full - e)) < 1e-9 for e in every)
+    if not point:
+        assert every.size == full.size
+        np.testing.assert_allclose(np.sort(every), full, atol=1e-9)
+    assert abs(min(lowest) - full[0]) < 1e-9
+
+
+@pytest.mark.parametrize(
+    ("rows", "cols", "point"), [(1, 6, False), (1, 6, True), (3, 3, False), (2, 4, True)]
+)
+def test_operators_between_sectors_with_and_without_the_orbit_table(
+    rows: int, cols: int, point: bool
+) -> None:
+    """The lowering operator at one site, its component of each label shift, from every
+    sector of three quanta into the sector of two quanta it lands in: the sector matrix
+    equals ``V_T† A V_S`` with projector references as above (common practice, no
+    source), the same to the bit with and without the orbit table, and the matrix-free
+    product equals the stored one."""
+    modes = rows * cols
+    src_base = fm.FockSpace(modes=modes, cutoff=2, total=3)
+    dst_base = fm.FockSpace(modes=modes, cutoff=2, total=2)
+    gens = lattice_group(rows, cols, point)
+    src_mats = permutation_matrices(src_base, gens)
+    dst_mats = permutation_matrices(dst_base, gens)
+    dense: dict[tuple[int, ...], np.ndarray] = {}
+    checked = 0
+    for pairs, source in every_sector(src_base, gens):
+        labels = [q for _, q in pairs]
+        plain_source = fm.SymmetricSpace(src_base, pairs, orbit_table=False)
+        v_s = projected_basis(src_mats, pairs, source)
+        for shift in itertools.product(*(range(g.order) for g in gens)):
+            target_pairs = [(g, (q + d) % g.order) for (g, q), d in zip(pairs, shift, strict=True)]
+            try:
+                a = source.component(fm.lowering(0), shift)
+                target = fm.SymmetricSpace(dst_base, target_pairs)
+            except SymmetryError:
+                continue
+            if a.is_zero() or target.dim == 0 or source.dim == 0:
+                continue
+            plain_target = fm.SymmetricSpace(dst_base, target_pairs, orbit_table=False)
+            m = fm.build_matrix(a, source, target=target)
+            other = fm.build_matrix(a, plain_source, target=plain_target)
+            assert np.array_equal(m.indptr, other.indptr)
+            assert np.array_equal(m.indices, other.indices)
+            assert np.array_equal(m.data, other.data)
+            if shift not in dense:  # the component depends on the shift alone
+                dense[shift] = dense_between(a, src_base, dst_base)
+            v_t = projected_basis(dst_mats, target_pairs, target)
+            np.testing.assert_allclose(
+                m.toarray(), v_t.conj().T @ dense[shift] @ v_s, atol=1e-10, err_msg=str(labels)
+            )
+            x = np.random.default_rng(checked).normal(size=source.dim)
+            y = fm.build_operator(a, plain_source, target=plain_target) @ x
+            np.testing.assert_allclose(y, m @ x, atol=1e-12)
+            checked += 1
+    assert checked >= len(gens)
+
+
+def dense_between(expr: fm.LadderExpr, src: fm.FockSpace, dst: fm.FockSpace) -> np.ndarray:
+    """``expr`` from the number sector ``src`` into ``dst``, acting by hand
+    (``reference.between_matrix``)."""
+    return between_matrix(
+        expr,
+        src.cutoffs,
+        sector_occupations(src.cutoffs, total=src.total),
+        sector_occupations(dst.cutoffs, total=dst.total),
+    )

@@ -13,7 +13,7 @@ import fockmill as fm
 import numpy as np
 import pytest
 from fockmill.exceptions import SymmetryError
-from reference import bose_hubbard_ring, sector_occupations
+from reference import between_matrix, bose_hubbard_ring, sector_occupations
 
 # -- dense references (independent of the package's sector code) ------------------------
 
@@ -22,27 +22,9 @@ def dense_between(expr: fm.LadderExpr, src: fm.FockSpace, dst: fm.FockSpace) -> 
     """``P_dst X P_src`` by acting with each monomial on each basis state by hand:
     ``a|n⟩ = √n|n−1⟩``, ``a†|n⟩ = √(n+1)|n+1⟩`` (Sakurai & Napolitano, Modern Quantum
     Mechanics, 2nd ed. 2011, Sec. 2.3)."""
-    cols = sector_occupations(src.cutoffs, src.weights, src.total, src.modulus).tolist()
-    rows = sector_occupations(dst.cutoffs, dst.weights, dst.total, dst.modulus).tolist()
-    where = {tuple(r): k for k, r in enumerate(rows)}
-    out = np.zeros((len(rows), len(cols)), dtype=complex)
-    for c, state in enumerate(cols):
-        for coefficient, key in expr.terms():
-            occ = list(state)
-            amp = 1.0
-            for mode, p, q in key:
-                n = occ[mode]
-                if q > n or n - q + p > dst.cutoffs[mode]:
-                    amp = 0.0
-                    break
-                amp *= math.sqrt(math.factorial(n) / math.factorial(n - q))
-                n -= q
-                amp *= math.sqrt(math.factorial(n + p) / math.factorial(n))
-                occ[mode] = n + p
-            r = where.get(tuple(occ)) if amp else None
-            if r is not None:
-                out[r, c] += coefficient * amp
-    return out
+    cols = sector_occupations(src.cutoffs, src.weights, src.total, src.modulus)
+    rows = sector_occupations(dst.cutoffs, dst.weights, dst.total, dst.modulus)
+    return between_matrix(expr, dst.cutoffs, cols, rows)
 
 
 def permutation_matrix(images: tuple[int, ...], base: fm.FockSpace) -> np.ndarray:

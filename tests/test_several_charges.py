@@ -1,24 +1,36 @@
 """Fock spaces that fix several conserved charges at once (``charges=[fm.Charge(...)]``).
 
 References are outside the package: brute-force enumeration of the product basis with
-``itertools.product`` / ``tests/reference.py`` (common practice, no source), dense
-Hamiltonians from explicit ``np.kron`` products of single-mode ladder matrices, and the
-real-space Bose–Hubbard ring in its translation sectors for the momentum-space ring.
+``itertools.product`` / ``tests/reference.py`` (common practice, no source), Hamiltonians
+from explicit Kronecker products of single-mode ladder matrices (sparse, so that the
+4096 states of six modes stay cheap) or from acting with each monomial on each kept state
+by hand (``reference.between_matrix``, ``reference.sector_matrix``), and the real-space
+Bose–Hubbard ring in its translation sectors for the momentum-space ring.
 """
 
 from __future__ import annotations
 
+import functools
 import itertools
 import pickle
 
 import fockmill as fm
 import numpy as np
 import pytest
+import scipy.sparse as sparse
 from fockmill import _native
 from fockmill.exceptions import ChargeError, SizeLimitError, SpaceError
 from hypothesis import given, settings
 from hypothesis import strategies as st
-from reference import bose_hubbard_ring, dense_matrix, full_basis, restrict, single_mode_matrices
+from reference import (
+    between_matrix,
+    bose_hubbard_ring,
+    dense_matrix,
+    full_basis,
+    restrict,
+    sector_matrix,
+    single_mode_matrices,
+)
 
 
 def keeps(occ: np.ndarray, charges: list[fm.Charge]) -> np.ndarray:
@@ -197,13 +209,9 @@ def test_momentum_ring_equals_real_space_translation_sectors(sites: int, n: int)
     h_k = momentum_ring(sites, j, u)
     h_x = bose_hubbard_ring(sites, j, u)
     base = fm.FockSpace(modes=sites, cutoff=n, total=n)
-    # Dense numpy reference: the real-space ring from np.kron products (tests/reference.py)
-    # on the N-boson sector; its spectrum is the union of the momentum sectors'.
-    dense_x = restrict(
-        dense_matrix(h_x, [n] * sites),
-        full_basis([n] * sites),
-        brute_states([n] * sites, [fm.Charge(1, n)]),
-    )
+    # Dense numpy reference: the real-space ring acted on by hand on the N-boson sector
+    # (tests/reference.py); its spectrum is the union of the momentum sectors'.
+    dense_x = sector_matrix(h_x, [n] * sites, total=n)
     union = []
     t = fm.ring_translation(sites)
     for k in range(sites):
@@ -241,31 +249,33 @@ def species_chain(sites: int, ja: float, jb: float, ua: float, ub: float, uab: f
     return h
 
 
-def species_dense(sites: int, cutoff: int, ja, jb, ua, ub, uab) -> np.ndarray:
-    """The same chain from explicit Kronecker products of single-mode matrices."""
+@functools.cache
+def species_dense(sites: int, cutoff: int, ja, jb, ua, ub, uab) -> sparse.csr_array:
+    """The same chain from explicit Kronecker products of single-mode matrices, on the
+    whole product space (sparse; the same for every test, so built once)."""
     modes = 2 * sites
-    a1, _ = single_mode_matrices(cutoff)
-    eye = np.eye(cutoff + 1)
+    a1 = sparse.csr_array(single_mode_matrices(cutoff)[0])
+    eye = sparse.identity(cutoff + 1, format="csr")
 
-    def ladder(i: int) -> np.ndarray:
-        out = np.ones((1, 1))
+    def ladder(i: int) -> sparse.csr_array:
+        out = sparse.csr_array(np.ones((1, 1)))
         for k in range(modes):
-            out = np.kron(out, a1 if k == i else eye)
+            out = sparse.kron(out, a1 if k == i else eye, format="csr")
         return out
 
     a = [ladder(i) for i in range(modes)]
     n = [x.T @ x for x in a]
-    one = np.eye(len(n[0]))
-    h = np.zeros_like(one)
+    one = sparse.identity(n[0].shape[0], format="csr")
+    h = sparse.csr_array(n[0].shape)
     for s, (hop, u) in enumerate([(ja, ua), (jb, ub)]):
         o = s * sites
         for i in range(sites - 1):
-            h -= hop * (a[o + i].T @ a[o + i + 1] + a[o + i + 1].T @ a[o + i])
+            h = h - hop * (a[o + i].T @ a[o + i + 1] + a[o + i + 1].T @ a[o + i])
         for i in range(sites):
-            h += 0.5 * u * n[o + i] @ (n[o + i] - one)
+            h = h + 0.5 * u * n[o + i] @ (n[o + i] - one)
     for i in range(sites):
-        h += uab * n[i] @ n[sites + i]
-    return h
+        h = h + uab * n[i] @ n[sites + i]
+    return sparse.csr_array(h)
 
 
 @pytest.mark.parametrize(("na", "nb"), [(2, 1), (2, 2), (3, 0), (1, 3)])
@@ -275,8 +285,9 @@ def test_two_species_chain_matches_kronecker_reference(na: int, nb: int) -> None
     charges = [fm.Charge([1] * sites + [0] * sites, na), fm.Charge([0] * sites + [1] * sites, nb)]
     space = fm.FockSpace(cutoff=[cutoff] * (2 * sites), charges=charges)
     h = species_chain(sites, *params)
-    full = full_basis([cutoff] * (2 * sites))
-    dense = restrict(species_dense(sites, cutoff, *params), full, full[keeps(full, charges)])
+    # full_basis lists the product space in np.kron order (mode 0 most significant).
+    kept = np.flatnonzero(keeps(full_basis([cutoff] * (2 * sites)), charges))
+    dense = species_dense(sites, cutoff, *params)[kept][:, kept].toarray()
     np.testing.assert_allclose(fm.build_matrix(h, space).toarray(), dense, atol=1e-12)
     ground = fm.ground_state(h, space)
     assert ground.energy == pytest.approx(np.linalg.eigvalsh(dense)[0], abs=1e-8)
@@ -335,8 +346,8 @@ def test_bipartite_and_many_term_kernels_equal_the_plain_build(make, space) -> N
     # ring's L^3 pair terms by the quanta they remove) against the dense reference.
     h, s = make(), space()
     cutoffs = list(s.cutoffs)
-    full = full_basis(cutoffs)
-    dense = restrict(dense_matrix(h, cutoffs), full, full[keeps(full, list(s.charges))])
+    states = brute_states(cutoffs, list(s.charges))
+    dense = between_matrix(h, cutoffs, states, states)
     stored = fm.build_matrix(h, s)
     np.testing.assert_allclose(stored.toarray(), dense, atol=1e-12)
     rng = np.random.default_rng(5)
