@@ -23,6 +23,7 @@ the table. Largest Laughlin N solved in < 5 min.
 
 Usage: python benchmarks/bench_many_terms.py [--network 2 3] [--laughlin 6 7 8]
        [--ring 9 10 11] [--repeats 7] [--modes 100] [--no-solve]
+       [--laughlin-solve 9 10]
 """
 
 from __future__ import annotations
@@ -103,6 +104,25 @@ def laughlin(particles: int, repeats: int, solve: bool) -> str:
     return "| " + " | ".join(row) + " |"
 
 
+def laughlin_solve(particles: int) -> str:
+    """The Laughlin sector as a user solves it: the model, then ``fm.ground_state``
+    (method and storage chosen by the library), timed together; no product or build
+    measurements (for the sizes where each of those takes a minute)."""
+    momentum = particles * (particles - 1)
+    t0 = time.perf_counter()
+    model = lowest_landau_level(total=particles, angular_momentum=momentum)
+    result = fm.ground_state(model.hamiltonian(), model.space, tol=1e-8, cutoff_warning=None)
+    seconds = time.perf_counter() - t0
+    row = [
+        "Landau level (solve only)",
+        f"N {particles}, L {momentum}",
+        f"{model.space.dim:,}",
+        *[""] * 11,
+    ]
+    row[-1] = f"{seconds:.1f} s in all ({result.method}), E0 {result.energy:.1e}"
+    return "| " + " | ".join(row) + " |"
+
+
 def momentum_ring(sites: int) -> fm.LadderExpr:
     """The Bose–Hubbard ring (J = U = 1) in momentum space, from arrays."""
     k = np.arange(sites)
@@ -133,6 +153,13 @@ def main() -> None:
     parser.add_argument("--network", type=int, nargs="*", default=[2, 3])
     parser.add_argument("--laughlin", type=int, nargs="*", default=[6, 7, 8])
     parser.add_argument("--ring", type=int, nargs="*", default=[9, 10, 11])
+    parser.add_argument(
+        "--laughlin-solve",
+        type=int,
+        nargs="*",
+        default=[],
+        help="Laughlin sectors timed as a user solves them (model and ground state only)",
+    )
     parser.add_argument("--modes", type=int, default=100)
     parser.add_argument("--repeats", type=int, default=7)
     parser.add_argument("--no-solve", action="store_true", help="skip the Landau-level solves")
@@ -144,6 +171,8 @@ def main() -> None:
             print(network(args.modes, size, args.repeats))
         elif case == "laughlin":
             print(laughlin(size, args.repeats, not args.no_solve))
+        elif case == "laughlin-solve":
+            print(laughlin_solve(size))
         else:
             print(ring(size, args.repeats))
         return
@@ -157,6 +186,7 @@ def main() -> None:
     cases = [("network", n) for n in args.network]
     cases += [("laughlin", n) for n in args.laughlin]
     cases += [("ring", n) for n in args.ring]
+    cases += [("laughlin-solve", n) for n in args.laughlin_solve]
     for case, size in cases:
         before = load()
         command = [
