@@ -35,7 +35,11 @@ fn sparse(m: InCsr<'_>, what: &str) -> PyResult<SparseBlock> {
         .iter()
         .map(|&v| to_index(v))
         .collect::<PyResult<Vec<usize>>>()?;
-    let data = owned_copy(data.len(), data.as_array().iter().copied(), "a copy of CSR values")?;
+    let data = owned_copy(
+        data.len(),
+        data.as_array().iter().copied(),
+        "a copy of CSR values",
+    )?;
     SparseBlock::new(rows, cols, indptr, indices, data)
         .map_err(|e| PyValueError::new_err(format!("{what}: {e}")))
 }

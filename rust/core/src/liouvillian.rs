@@ -276,21 +276,26 @@ impl LiouvillianProduct {
                 Ok(())
             })?;
         }
+        // 𝓛ρ = Z + Z† with Z = −iKρ + ½ Σ γ JρJ† (ρ Hermitian, so JρJ† is): the real
+        // form is Re Z + Im Z plus the transpose of Re Z − Im Z, which replaces the
+        // sparse gathers of ρK† by one transposed read.
+        let mut half = memory::try_filled(self.size(), zero, "a work copy of a Liouvillian product")?;
         for (b, &d) in self.dims.iter().enumerate() {
             if d == 0 {
                 continue;
             }
-            let part = &mut y[self.offsets[b]..self.offsets[b + 1]];
+            let (lo, hi) = (self.offsets[b], self.offsets[b + 1]);
             let rho = &rho;
-            runner.for_matrix_rows(part, d, interrupt, |first, rows| {
+            runner.for_matrix_rows(&mut half[lo..hi], d, interrupt, |first, rows| {
                 let mut scratch = self.scratch();
-                let mut line = vec![zero; d];
                 for (k, row) in rows.chunks_mut(d).enumerate() {
-                    self.row(b, first + k, rho, &mut line, &mut scratch);
-                    for (yv, z) in row.iter_mut().zip(&line) {
-                        *yv = z.re + z.im;
-                    }
+                    self.half_row(b, first + k, rho, row, &mut scratch, 0.5);
                 }
+                Ok(())
+            })?;
+            let zb = &half[lo..hi];
+            runner.for_matrix_rows(&mut y[lo..hi], d, interrupt, |first, rows| {
+                hermitian_sum_rows(zb, d, first, rows);
                 Ok(())
             })?;
         }
@@ -309,21 +314,11 @@ impl LiouvillianProduct {
 
     /// Row `i` of block `b` of `𝓛ρ` into `out` (length `d_b`).
     fn row(&self, b: usize, i: usize, rho: &[Complex64], out: &mut [Complex64], scratch: &mut [Complex64]) {
-        let d = self.dims[b];
-        let rb = &rho[self.offsets[b]..self.offsets[b + 1]];
-        let k = &self.effective[b];
-        out.fill(Complex64::new(0.0, 0.0));
-        // −i K ρ: a combination of rows of ρ.
-        let (cols, vals) = k.row(i);
-        for (&c, &v) in cols.iter().zip(vals) {
-            let w = MINUS_I * v;
-            let src = &rb[c as usize * d..(c as usize + 1) * d];
-            for (o, &r) in out.iter_mut().zip(src) {
-                *o += w * r;
-            }
-        }
+        self.half_row(b, i, rho, out, scratch, 1.0);
         // +i ρ K†: row i of ρ dotted with sparse row j of K.
-        let rho_i = &rb[i * d..(i + 1) * d];
+        let d = self.dims[b];
+        let k = &self.effective[b];
+        let rho_i = &rho[self.offsets[b] + i * d..self.offsets[b] + (i + 1) * d];
         for (j, o) in out.iter_mut().enumerate() {
             let (cols, vals) = k.row(j);
             let mut acc = Complex64::new(0.0, 0.0);
@@ -332,31 +327,69 @@ impl LiouvillianProduct {
             }
             *o += PLUS_I * acc;
         }
+    }
+
+    /// Row `i` of block `b` of `−iKρ + w Σ γ J ρ_s J†` into `out` (length `d_b`).
+    fn half_row(
+        &self,
+        b: usize,
+        i: usize,
+        rho: &[Complex64],
+        out: &mut [Complex64],
+        scratch: &mut [Complex64],
+        jump_weight: f64,
+    ) {
+        let d = self.dims[b];
+        let rb = &rho[self.offsets[b]..self.offsets[b + 1]];
+        out.fill(Complex64::new(0.0, 0.0));
+        // −i K ρ: a combination of rows of ρ.
+        let (cols, vals) = self.effective[b].row(i);
+        for (&c, &v) in cols.iter().zip(vals) {
+            let w = MINUS_I * v;
+            let src = &rb[c as usize * d..(c as usize + 1) * d];
+            for (o, &r) in out.iter_mut().zip(src) {
+                *o += w * r;
+            }
+        }
         // γ J ρ_s J†: row i of T = J ρ_s, then dotted with sparse rows of J.
         for &c in &self.incoming[b] {
             let ch = &self.channels[c];
-            let ds = self.dims[ch.source];
-            let rs = &rho[self.offsets[ch.source]..self.offsets[ch.source + 1]];
-            let t = &mut scratch[..ds];
-            t.fill(Complex64::new(0.0, 0.0));
             let (cols, vals) = ch.jump.row(i);
             if cols.is_empty() {
                 continue;
             }
+            let ds = self.dims[ch.source];
+            let rs = &rho[self.offsets[ch.source]..self.offsets[ch.source + 1]];
+            let t = &mut scratch[..ds];
+            t.fill(Complex64::new(0.0, 0.0));
             for (&col, &v) in cols.iter().zip(vals) {
                 let src = &rs[col as usize * ds..(col as usize + 1) * ds];
                 for (tv, &r) in t.iter_mut().zip(src) {
                     *tv += v * r;
                 }
             }
+            let rate = ch.rate * jump_weight;
             for (j, o) in out.iter_mut().enumerate() {
                 let (cols, vals) = ch.jump.row(j);
                 let mut acc = Complex64::new(0.0, 0.0);
                 for (&col, &v) in cols.iter().zip(vals) {
                     acc += t[col as usize] * v.conj();
                 }
-                *o += acc * ch.rate;
+                *o += acc * rate;
             }
+        }
+    }
+}
+
+/// Rows `first..` of the real form of `Z + Z†` (`d × d`): `(Re Z_ij + Im Z_ij) +
+/// (Re Z_ji − Im Z_ji)`, column `i` of `Z` read a few entries at a time.
+fn hermitian_sum_rows(z: &[Complex64], d: usize, first: usize, rows: &mut [f64]) {
+    let count = rows.len() / d;
+    for j in 0..d {
+        let col = &z[j * d + first..j * d + first + count];
+        for (k, zji) in col.iter().enumerate() {
+            let zij = z[(first + k) * d + j];
+            rows[k * d + j] = (zij.re + zij.im) + (zji.re - zji.im);
         }
     }
 }
@@ -381,6 +414,8 @@ mod tests {
     use crate::parallel::NoInterrupt;
 
     type Dense = Vec<Vec<Complex64>>;
+    /// (rate, jump, source block, target block)
+    type DenseChannel = (f64, Dense, usize, usize);
 
     fn c(re: f64, im: f64) -> Complex64 {
         Complex64::new(re, im)
@@ -388,7 +423,9 @@ mod tests {
 
     /// A deterministic pseudo-random sparse matrix (about `fill` of the entries).
     fn random_dense(rows: usize, cols: usize, seed: u64, fill: f64) -> Dense {
-        let mut state = seed.wrapping_mul(6364136223846793005).wrapping_add(1442695040888963407);
+        let mut state = seed
+            .wrapping_mul(6364136223846793005)
+            .wrapping_add(1442695040888963407);
         let mut next = move || {
             state = state
                 .wrapping_mul(6364136223846793005)
@@ -440,7 +477,7 @@ mod tests {
 
     /// The Lindblad form (Lindblad 1976; Gorini, Kossakowski & Sudarshan 1976) in
     /// dense matrices, as written in the module docs.
-    fn dense_reference(k: &[Dense], chans: &[(f64, Dense, usize, usize)], rho: &[Dense]) -> Vec<Dense> {
+    fn dense_reference(k: &[Dense], chans: &[DenseChannel], rho: &[Dense]) -> Vec<Dense> {
         let mut out: Vec<Dense> = Vec::new();
         for (kb, r) in k.iter().zip(rho) {
             let kr = mul(kb, r);
@@ -467,7 +504,7 @@ mod tests {
         blocks.iter().flat_map(|b| b.iter().flatten().copied()).collect()
     }
 
-    fn case() -> (LiouvillianProduct, Vec<Dense>, Vec<(f64, Dense, usize, usize)>) {
+    fn case() -> (LiouvillianProduct, Vec<Dense>, Vec<DenseChannel>) {
         let dims = [5usize, 7, 3];
         let k: Vec<Dense> = dims
             .iter()
@@ -509,7 +546,9 @@ mod tests {
         for threads in [1, 2, 3] {
             let runner = Runner::with_threads(Some(threads)).unwrap();
             let mut out = vec![c(0.0, 0.0); product.size()];
-            product.apply(&flat(&rho), &mut out, &runner, &NoInterrupt).unwrap();
+            product
+                .apply(&flat(&rho), &mut out, &runner, &NoInterrupt)
+                .unwrap();
             for (a, b) in out.iter().zip(&expect) {
                 assert!((a - b).norm() < 1e-12, "{a} vs {b}");
             }
@@ -536,12 +575,16 @@ mod tests {
         let x: Vec<f64> = flat(&rho).iter().map(|z| z.re + z.im).collect();
         let mut full = vec![c(0.0, 0.0); product.size()];
         let runner = Runner::with_threads(Some(2)).unwrap();
-        product.apply(&flat(&rho), &mut full, &runner, &NoInterrupt).unwrap();
+        product
+            .apply(&flat(&rho), &mut full, &runner, &NoInterrupt)
+            .unwrap();
         let mut first: Option<Vec<f64>> = None;
         for threads in [1, 2, 4] {
             let runner = Runner::with_threads(Some(threads)).unwrap();
             let mut y = vec![0.0; product.size()];
-            product.apply_hermitian_real(&x, &mut y, &runner, &NoInterrupt).unwrap();
+            product
+                .apply_hermitian_real(&x, &mut y, &runner, &NoInterrupt)
+                .unwrap();
             for (a, z) in y.iter().zip(&full) {
                 assert!((a - (z.re + z.im)).abs() < 1e-12);
             }

@@ -143,7 +143,9 @@ impl Runner {
         // also reads columns then reads whole cache lines); a group of
         // BLOCK_ROWS * BLOCKS_PER_CHECK elements between interruption checks.
         let task_rows = (BLOCK_ROWS as usize).div_ceil(width).max(MATRIX_TASK_ROWS);
-        let group_rows = (BLOCK_ROWS as usize * BLOCKS_PER_CHECK).div_ceil(width).max(task_rows);
+        let group_rows = (BLOCK_ROWS as usize * BLOCKS_PER_CHECK)
+            .div_ceil(width)
+            .max(task_rows);
         let group_rows = group_rows.div_ceil(task_rows) * task_rows;
         for (g, chunk) in out.chunks_mut(group_rows * width).enumerate() {
             let base = g * group_rows;
