@@ -474,9 +474,9 @@ def stationary_state(
     system by sparse LU and checks uniqueness with a second trace condition;
     ``"iterative"`` runs
     preconditioned GMRES (see ``preconditioner``) on the real space
-    of Hermitian matrices, with every Liouvillian application done by the compiled
-    block products, never storing the superoperator. ``"auto"`` picks by the number of
-    density-matrix entries ``n = Σ_b d_b²``: dense up to ``DENSE_MAX`` = 900,
+    of Hermitian matrices, with every Liouvillian application done by the native
+    matrix-free product (Rust, row-parallel), never storing the superoperator.
+    ``"auto"`` picks by the number of density-matrix entries ``n = Σ_b d_b²``: dense up to ``DENSE_MAX`` = 900,
     iterative beyond (the sparse LU's fill-in made it slower at every size measured).
     The iterative method cannot prove uniqueness: a non-unique stationary state shows
     as a solve that does not converge (:class:`~fockmill.exceptions.ConvergenceError`)
