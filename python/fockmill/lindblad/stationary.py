@@ -477,7 +477,8 @@ def stationary_state(
     of Hermitian matrices, with every Liouvillian application done by the native
     matrix-free product (Rust, row-parallel), never storing the superoperator.
     ``"auto"`` picks by the number of density-matrix entries ``n = Σ_b d_b²``: dense
-    up to ``DENSE_MAX`` = 900, iterative beyond (the sparse LU's fill-in made it slower at every size measured).
+    up to ``DENSE_MAX`` = 900, iterative beyond (the sparse LU's fill-in made it slower
+    at every size measured).
     The iterative method cannot prove uniqueness: a non-unique stationary state shows
     as a solve that does not converge (:class:`~fockmill.exceptions.ConvergenceError`)
     or converges to one of the stationary states; check a smaller cutoff with
