@@ -22,6 +22,7 @@ from __future__ import annotations
 
 import itertools
 from collections.abc import Callable
+from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass
 from typing import Any
 
@@ -133,42 +134,77 @@ def sector_sylvester(
             blk.factor_parts = (blk.factor.real.copy(), blk.factor.imag.copy())
             blk.factor = np.empty(0, dtype=np.complex128)
 
+    # The sectors' products run on `workers` threads of single-threaded BLAS (numpy
+    # releases the interpreter in them): each sector is one call whatever the thread
+    # count (so the result does not depend on it), and on a shared machine two-threaded
+    # BLAS was 10-17 times slower than one thread in these products (measured at 5 × 3).
+    workers = max(1, int(getattr(liou.pool, "threads", 0) or _native_threads()))
+    runner = ThreadPoolExecutor(max_workers=workers) if workers > 1 else None
+
     def apply(x: npt.NDArray[np.float64]) -> npt.NDArray[np.float64]:
         x = np.asarray(x).reshape(-1)
         out = np.empty_like(x)
         start = 0
-        with blas_threads(None):
+        with blas_threads(1):
             for blk in blocks:
                 d = blk.order.size
                 xb = x[start : start + d * d].reshape(d, d)
-                out[start : start + d * d] = _apply_block(blk, xb).ravel()
+                out[start : start + d * d] = _apply_block(blk, xb, runner).ravel()
                 start += d * d
         return out
 
     return apply, scale
 
 
-def _sides(z: npt.NDArray[Any], blk: _Block, left: list[Any], right: list[Any]) -> None:
-    """``z -> A z B`` in place, ``A`` and ``B`` block-diagonal over the sectors."""
-    for (a, e), m in zip(blk.bounds, left, strict=True):
-        z[a:e] = m @ z[a:e]
-    for (a, e), m in zip(blk.bounds, right, strict=True):
-        z[:, a:e] = z[:, a:e] @ m
+def _native_threads() -> int:
+    import fockmill._native as _native
+
+    return int(_native.default_threads())
 
 
-def _apply_block(blk: _Block, xb: npt.NDArray[np.float64]) -> npt.NDArray[np.float64]:
+def _sides(
+    z: npt.NDArray[Any],
+    blk: _Block,
+    left: list[Any],
+    right: list[Any],
+    runner: ThreadPoolExecutor | None,
+) -> None:
+    """``z -> A z B`` in place, ``A`` and ``B`` block-diagonal over the sectors (each
+    sector's rows, then each sector's columns, on the runner's threads)."""
+    # Largest sectors first: the threads then finish together.
+    order = sorted(range(len(blk.bounds)), key=lambda k: blk.bounds[k][0] - blk.bounds[k][1])
+
+    def rows(k: int) -> None:
+        a, e = blk.bounds[k]
+        z[a:e] = left[k] @ z[a:e]
+
+    def cols(k: int) -> None:
+        a, e = blk.bounds[k]
+        z[:, a:e] = z[:, a:e] @ right[k]
+
+    for step in (rows, cols):
+        if runner is None:
+            for k in order:
+                step(k)
+        else:
+            list(runner.map(step, order))
+
+
+def _apply_block(
+    blk: _Block, xb: npt.NDArray[np.float64], runner: ThreadPoolExecutor | None
+) -> npt.NDArray[np.float64]:
     ix = np.ix_(blk.order, blk.order)
     if blk.factor_parts is not None:
         # Real form of ρ' = Vᵀ ρ V is Vᵀ x V; the division by d (with d_ji = conj d_ij)
         # is x' ∘ Re q + x'ᵀ ∘ Im q in real form (q = 1/d).
         z = xb[ix]
-        _sides(z, blk, blk.inverses, [vi.T for vi in blk.inverses])
+        _sides(z, blk, blk.inverses, [vi.T for vi in blk.inverses], runner)
         fre, fim = blk.factor_parts
         z = z * fre + z.T * fim
-        _sides(z, blk, blk.vectors, [v.T for v in blk.vectors])
+        _sides(z, blk, blk.vectors, [v.T for v in blk.vectors], runner)
         return z[np.ix_(blk.back, blk.back)]  # type: ignore[no-any-return]
     y = hermitian_from_real(xb)[ix]
-    _sides(y, blk, blk.inverses, [vi.conj().T for vi in blk.inverses])
+    _sides(y, blk, blk.inverses, [vi.conj().T for vi in blk.inverses], runner)
     y *= blk.factor
-    _sides(y, blk, blk.vectors, [v.conj().T for v in blk.vectors])
+    _sides(y, blk, blk.vectors, [v.conj().T for v in blk.vectors], runner)
     return real_from_hermitian(y[np.ix_(blk.back, blk.back)])
