@@ -7,6 +7,9 @@ one table row with the load average (``uptime``) measured right before it.
 
     python benchmarks/bench_lindblad.py                   # both tables (minutes)
     python benchmarks/bench_lindblad.py --trajectories    # the trajectory table only
+    python benchmarks/bench_lindblad.py --driven
+        # the driven 4x3, 5x3, 6x3 stationary states (one block of D x D) and one
+        # Liouvillian application, earlier Python path against the native product
     python benchmarks/bench_lindblad.py --workers SITES CUTOFF COUNT
         # COUNT trajectories serially, on a process pool and on a local Dask cluster of
         # 1 and 2 single-threaded worker processes (needs fockmill[cluster])
@@ -85,32 +88,85 @@ def stationary(
 
 
 def apply_once(sites: int, cutoff: int) -> list[str]:
-    """One matrix-free Liouvillian application on the whole space (driven chain)."""
+    """One Liouvillian application on the whole space (driven chain) as the stationary
+    solve makes it, real form in and out: the compiled block products with transposed
+    copies in Python (``apply_blockwise``, the earlier path) against the native product
+    (``apply_real``); medians of 3, and the largest difference of the two results."""
     from fockmill.lindblad.liouvillian import build_liouvillian
 
     space = fm.FockSpace(modes=sites, cutoff=cutoff)
     liou = build_liouvillian(chain(sites, F), space, [fm.loss(i, KAPPA) for i in range(sites)])
-    rho = [np.eye(space.dim, dtype=np.complex128) / space.dim]
-    liou.apply(rho)  # builds the stored block matrices once
+    rng = np.random.default_rng(1)
+    x = rng.random(liou.size)
+
+    def old(v: np.ndarray) -> np.ndarray:
+        return liou.to_real(liou.apply_blockwise(liou.from_real(v)))
+
+    old(x)  # builds the stored block matrices once
+    liou.apply_real(x)  # builds the native product once
     before = load()
-    times = []
+    times: dict[str, list[float]] = {"old": [], "new": []}
+    results = {}
     for _ in range(3):
-        t0 = time.perf_counter()
-        liou.apply(rho)
-        times.append(time.perf_counter() - t0)
+        for name, f in (("old", old), ("new", liou.apply_real)):
+            t0 = time.perf_counter()
+            results[name] = f(x)
+            times[name].append(time.perf_counter() - t0)
+    t_old = float(np.median(times["old"]))
+    t_new = float(np.median(times["new"]))
+    diff = float(np.max(np.abs(results["old"] - results["new"])))
     return [
-        "driven",
         f"{sites}x{cutoff}",
         f"{space.dim:,}",
-        "-",
-        f"{space.dim**2:,}",
-        "one 𝓛ρ",
-        "-",
-        f"{float(np.median(times)):.2f}",
-        "-",
-        "-",
+        f"{liou.size:,}",
+        f"{t_old:.3f}",
+        f"{t_new:.3f}",
+        f"{t_old / t_new:.1f}",
+        f"{diff:.1e}",
         before,
     ]
+
+
+APPLY_HEADERS = [
+    "sites x cutoff",
+    "states",
+    "unknowns",
+    "blockwise Python s",
+    "native s",
+    "ratio",
+    "max |difference|",
+    "load before",
+]
+
+STATIONARY_HEADERS = [
+    "chain",
+    "sites x cutoff",
+    "states",
+    "unknowns Σd²",
+    "(Σd)²",
+    "method",
+    "iterations",
+    "seconds",
+    "‖𝓛ρ‖",
+    "mean n",
+    "load before",
+]
+
+
+def driven_table() -> None:
+    """The driven chains' stationary states (one block of D × D) and one Liouvillian
+    application, old against new, each in a fresh process."""
+    print(f"fockmill {fm.__version__}, {os.cpu_count()} cores, load at start {os.getloadavg()}")
+    cases = [
+        ["stationary", "driven", "4", "3", "iterative", "sylvester"],
+        ["stationary", "driven", "4", "3", "iterative", "sectors"],
+        ["stationary", "driven", "5", "3", "iterative", "sectors"],
+        ["stationary", "driven", "6", "3", "iterative", "sectors"],
+    ]
+    print_table(STATIONARY_HEADERS, [run(c, 11) for c in cases])
+    print()
+    rows = [run(["apply", str(n), "3"], 8) for n in (4, 5, 6)]
+    print_table(APPLY_HEADERS, rows)
 
 
 def trajectories(sites: int, cutoff: int, count: int, workers: int | str) -> list[str]:
@@ -223,6 +279,9 @@ def _run(args: list[str]) -> list[str]:
 
 def main() -> None:
     only_trajectories = sys.argv[1:] == ["--trajectories"]
+    if sys.argv[1:] == ["--driven"]:
+        driven_table()
+        return
     if len(sys.argv) > 1 and not only_trajectories:
         case, *rest = sys.argv[1:]
         if case == "stationary":
@@ -246,8 +305,7 @@ def main() -> None:
         ["stationary", "driven", "5", "2", "iterative"],
         ["stationary", "driven", "4", "3", "iterative", "diagonal"],
         ["stationary", "driven", "5", "3", "iterative"],
-        ["apply", "5", "3"],
-        ["apply", "6", "3"],
+        ["stationary", "driven", "6", "3", "iterative"],
         ["stationary", "pumped", "4", "3", "auto"],
         ["stationary", "pumped", "5", "3", "auto"],
         ["stationary", "pumped", "6", "2", "auto"],
@@ -255,22 +313,9 @@ def main() -> None:
     ]
     rows = [] if only_trajectories else [run(c, 11) for c in cases]
     if rows:
-        print_table(
-            [
-                "chain",
-                "sites x cutoff",
-                "states",
-                "unknowns Σd²",
-                "(Σd)²",
-                "method",
-                "iterations",
-                "seconds",
-                "‖𝓛ρ‖",
-                "mean n",
-                "load before",
-            ],
-            rows,
-        )
+        print_table(STATIONARY_HEADERS, rows)
+        print()
+        print_table(APPLY_HEADERS, [run(["apply", str(n), "3"], 8) for n in (5, 6)])
     traj = [
         ["traj", "6", "2", "40", "0"],
         ["traj", "6", "2", "40", "2"],

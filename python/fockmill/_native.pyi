@@ -16,6 +16,7 @@ __all__ = [
     "CsrParts",
     "LanczosResult",
     "LevelsResult",
+    "NativeLiouvillian",
     "NativeOperator",
     "NativePool",
     "NativeSpace",
@@ -32,6 +33,10 @@ __version__: str
 
 _RealOrComplex1D = npt.NDArray[np.float64] | npt.NDArray[np.complex128]
 _RealOrComplex2D = npt.NDArray[np.float64] | npt.NDArray[np.complex128]
+#: ``(rows, cols, indptr, indices, data)`` of a complex CSR matrix.
+_CsrArrays = tuple[
+    int, int, npt.NDArray[np.int64], npt.NDArray[np.int64], npt.NDArray[np.complex128]
+]
 
 class _Sink(Protocol):
     """Receives a solver's snapshot: ``begin``, ``write`` per piece of a vector,
@@ -56,6 +61,37 @@ class _Loader(Protocol):
     numbers: dict[str, list[float]]
     vectors: list[str]
     def load(self, name: str) -> _RealOrComplex1D: ...
+
+@final
+class NativeLiouvillian:
+    """The Liouvillian ``𝓛ρ = −i(Kρ − ρK†) + Σ_k γ_k J_k ρ J_k†`` on the diagonal blocks
+    of ``ρ`` (concatenated row-major), applied matrix-free and row-parallel.
+
+    Parameters
+    ----------
+    effective : list of (rows, cols, indptr, indices, data)
+        ``K_b`` of each block as CSR arrays (int64 indices, complex128 values).
+    channels : list of (rate, source, target, (rows, cols, indptr, indices, data))
+        Each jump from block ``source`` into block ``target`` (``d_target × d_source``).
+    """
+
+    def __new__(
+        cls,
+        effective: list[_CsrArrays],
+        channels: list[tuple[float, int, int, _CsrArrays]],
+    ) -> NativeLiouvillian: ...
+    @property
+    def dims(self) -> list[int]: ...
+    @property
+    def size(self) -> int: ...
+    def apply(
+        self, rho: npt.NDArray[np.complex128], threads: int | NativePool | None = None
+    ) -> npt.NDArray[np.complex128]:
+        """``𝓛ρ`` for any complex blocks (flat, length ``size``)."""
+    def apply_real(
+        self, x: npt.NDArray[np.float64], threads: int | NativePool | None = None
+    ) -> npt.NDArray[np.float64]:
+        """``Re 𝓛ρ + Im 𝓛ρ`` for Hermitian blocks given as ``Re ρ + Im ρ`` (flat)."""
 
 @final
 class NativePool:

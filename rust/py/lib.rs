@@ -10,6 +10,7 @@
 //!   protocol written once in `protocol.rs`)
 //! - `results.rs`: `LanczosResult`, `LevelsResult`, `NnzEstimate`, `CsrParts`
 //! - `observe.rs`: observables of a state
+//! - `liouvillian.rs`: `NativeLiouvillian`, the matrix-free Liouvillian product
 //! - `errors.rs`, `interrupt.rs`: error mapping, panic guard, signal polling
 //! - `watch.rs`: progress reports and checkpoints of the solvers, streamed to Python
 
@@ -17,6 +18,7 @@ mod arrays;
 mod errors;
 mod interrupt;
 mod kinds;
+mod liouvillian;
 mod observe;
 mod operator;
 mod protocol;
@@ -34,6 +36,7 @@ fn _native(m: &Bound<'_, PyModule>) -> PyResult<()> {
     m.add_class::<space::NativeSpace>()?;
     m.add_class::<space::NativeSymmetricSpace>()?;
     m.add_class::<operator::NativeOperator>()?;
+    m.add_class::<liouvillian::NativeLiouvillian>()?;
     m.add_class::<results::LanczosResult>()?;
     m.add_class::<results::LevelsResult>()?;
     m.add_class::<results::NnzEstimate>()?;

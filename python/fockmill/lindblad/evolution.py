@@ -145,8 +145,8 @@ def evolve_density(
     A first version: the Hermitian ``ρ`` is flattened into a real vector (``Re ρ + Im ρ``)
     and integrated by the explicit Runge–Kutta method of order 8 with embedded error
     estimate of scipy (``DOP853``; Hairer, Nørsett & Wanner, Solving ODEs I, 1993,
-    Sec. II.10), every right-hand side being one matrix-free Liouvillian application on
-    the compiled products. Explicit steps are limited by the largest frequency of the
+    Sec. II.10), every right-hand side being one application of the native matrix-free
+    Liouvillian product to the real form. Explicit steps are limited by the largest frequency of the
     Liouvillian; a Krylov exponential would take longer steps.
 
     Examples
@@ -200,7 +200,7 @@ def evolve_density(
                 )
 
     def rhs(_t: float, x: npt.NDArray[np.float64]) -> npt.NDArray[np.float64]:
-        return liou.to_real(liou.apply(liou.from_real(x)))
+        return liou.apply_real(x)
 
     x = liou.to_real(blocks)
     k = 0

@@ -17,6 +17,7 @@ from fockmill.lindblad.liouvillian import (
     join_blocks,
     trace_product,
 )
+from fockmill.lindblad.preconditioners import sector_sizes, sector_sylvester
 from fockmill.problem.memory import available_memory
 from fockmill.settings.progress import Progress, ProgressOption, make_progress
 
@@ -28,6 +29,9 @@ DENSE_MAX = 900
 #: The Sylvester preconditioner (see ``_preconditioner``) while every block has at most
 #: this many states; the diagonal one beyond.
 SYLVESTER_MAX_DIM = 600
+#: The sector Sylvester preconditioner (see ``fockmill.lindblad.preconditioners``) for
+#: larger blocks while every number sector inside them has at most this many states.
+SECTORS_MAX_DIM = 2000
 #: Singular values below this fraction of the largest count as zero (dense method).
 NULL_TOL = 1e-9
 
@@ -52,8 +56,8 @@ class StationaryState:
         ``‖𝓛ρ‖`` (Frobenius norm), recomputed with the matrix-free products after the
         solve; compare it with the rates and energies of the model.
     method : str
-        ``"dense"``, ``"sparse"``, ``"iterative (sylvester)"`` or
-        ``"iterative (diagonal)"`` (the preconditioner used).
+        ``"dense"``, ``"sparse"``, ``"iterative (sylvester)"``,
+        ``"iterative (sectors)"`` or ``"iterative (diagonal)"`` (the preconditioner used).
     iterations : int
         Iterations of the iterative solve (0 for the direct methods).
     null_dimension : int or None
@@ -264,15 +268,28 @@ def _preconditioner(liou: Liouvillian, choice: str) -> tuple[Any, float, str]:
     V†``): what is left, ``1 + 𝓚⁻¹𝓙``, has its spectrum clustered, and GMRES needs
     5 to 9 times fewer iterations than with the diagonal (measured in
     benchmarks/bench_lindblad.py). Its cost, ``O(d³)`` per block and application, pays
-    while blocks have at most ``SYLVESTER_MAX_DIM`` states. ``"diagonal"`` divides by the
-    Liouvillian's diagonal (Jacobi). Both keep ``M⁻¹ Y`` Hermitian for Hermitian ``Y``.
+    while blocks have at most ``SYLVESTER_MAX_DIM`` states. ``"sectors"`` does the same
+    with the number-conserving part of ``K`` (block-diagonal in the number sectors, so
+    cheap on one large block, see :mod:`fockmill.lindblad.preconditioners`).
+    ``"diagonal"`` divides by the Liouvillian's diagonal (Jacobi). All keep ``M⁻¹ Y``
+    Hermitian for Hermitian ``Y``.
     """
     import scipy.linalg as sla
 
     from fockmill.settings.threads import blas_threads
 
     if choice == "auto":
-        choice = "sylvester" if max(liou.dims) <= SYLVESTER_MAX_DIM else "diagonal"
+        if max(liou.dims) <= SYLVESTER_MAX_DIM:
+            choice = "sylvester"
+        elif max(sector_sizes(liou)) <= SECTORS_MAX_DIM:
+            choice = "sectors"
+        else:
+            choice = "diagonal"
+    if choice == "sectors":
+        made = sector_sylvester(liou)
+        if made is not None:
+            return made[0], made[1], "sectors"
+        choice = "diagonal"  # a (nearly) defective sector: no stable inverse
     if choice == "sylvester":
         ks, _chans = liou.sparse_matrices()
         parts = []
@@ -295,7 +312,7 @@ def _preconditioner(liou: Liouvillian, choice: str) -> tuple[Any, float, str]:
         return sylvester, scale, "sylvester"
     if choice != "diagonal":
         raise ValueError(
-            f"preconditioner must be 'auto', 'sylvester' or 'diagonal'; got {choice!r}"
+            f"preconditioner must be 'auto', 'sylvester', 'sectors' or 'diagonal'; got {choice!r}"
         )
     diag = liou.diagonal()
     scale = max(float(max(np.max(np.abs(d)) for d in diag)), 1e-300)
@@ -333,9 +350,8 @@ def _solve_iterative(
     solve_precond, scale, kind = _preconditioner(liou, preconditioner)
 
     def apply(x: npt.NDArray[np.float64]) -> npt.NDArray[np.float64]:
-        blocks = liou.from_real(np.asarray(x).reshape(-1))
-        out = liou.to_real(liou.apply(blocks))
-        return out + (scale * liou.trace(blocks).real) * e  # type: ignore[no-any-return]
+        x = np.asarray(x).reshape(-1)
+        return liou.apply_real(x) + (scale * liou.trace_real(x)) * e  # type: ignore[no-any-return]
 
     a = LinearOperator((n, n), matvec=apply, dtype=np.float64)
     m = LinearOperator((n, n), matvec=solve_precond, dtype=np.float64)
@@ -416,11 +432,15 @@ def stationary_state(
         Use only the number-sector blocks ``ρ_{N,N}`` (None: whenever it applies).
     guess : list of arrays, optional
         Starting blocks for the iterative solve (e.g. a previous point of a scan).
-    preconditioner : {"auto", "sylvester", "diagonal"}
+    preconditioner : {"auto", "sylvester", "sectors", "diagonal"}
         Of the iterative solve: ``"sylvester"`` inverts the no-jump part
         ``−i(Kρ − ρK†)`` exactly per block by an eigendecomposition of ``K`` (few
-        iterations, ``O(d³)`` per block); ``"diagonal"`` divides by the Liouvillian's
-        diagonal. ``"auto"``: Sylvester while every block has at most 600 states.
+        iterations, ``O(d³)`` per block); ``"sectors"`` inverts it with the
+        number-conserving part of ``K`` only, block-diagonal in the number sectors
+        (``O(d Σ_N d_N²)``: a coherent drive that mixes the sectors of one large block
+        is left to GMRES); ``"diagonal"`` divides by the Liouvillian's diagonal.
+        ``"auto"``: Sylvester while every block has at most 600 states, else sectors
+        while every number sector has at most 2000, else diagonal.
     threads, memory_limit
         As for :func:`fockmill.prepare`.
     jump_cache : dict, optional
@@ -454,10 +474,11 @@ def stationary_state(
     system by sparse LU and checks uniqueness with a second trace condition;
     ``"iterative"`` runs
     preconditioned GMRES (see ``preconditioner``) on the real space
-    of Hermitian matrices, with every Liouvillian application done by the compiled
-    block products, never storing the superoperator. ``"auto"`` picks by the number of
-    density-matrix entries ``n = Σ_b d_b²``: dense up to ``DENSE_MAX`` = 900,
-    iterative beyond (the sparse LU's fill-in made it slower at every size measured).
+    of Hermitian matrices, with every Liouvillian application done by the native
+    matrix-free product (Rust, row-parallel), never storing the superoperator.
+    ``"auto"`` picks by the number of density-matrix entries ``n = Σ_b d_b²``: dense
+    up to ``DENSE_MAX`` = 900, iterative beyond (the sparse LU's fill-in made it slower
+    at every size measured).
     The iterative method cannot prove uniqueness: a non-unique stationary state shows
     as a solve that does not converge (:class:`~fockmill.exceptions.ConvergenceError`)
     or converges to one of the stationary states; check a smaller cutoff with

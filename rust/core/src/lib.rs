@@ -6,7 +6,8 @@
 //! row-parallel two-pass CSR build ([`build`]); matrix-free products ([`matvec`]);
 //! observables from one pass over the basis ([`observe`]); a low-memory Lanczos ground
 //! state ([`lanczos`]); the lowest `k` levels by thick-restart Lanczos
-//! ([`levels`]); and cheap size estimates ([`estimate`]).
+//! ([`levels`]); the Liouvillian of a Lindblad master equation applied to a density
+//! matrix ([`liouvillian`]); and cheap size estimates ([`estimate`]).
 //!
 //! Nothing here knows about Python; the binding crate converts types and errors.
 #![forbid(unsafe_code)]
@@ -21,6 +22,7 @@ pub mod estimate;
 pub mod kernel;
 pub mod lanczos;
 pub mod levels;
+pub mod liouvillian;
 pub mod matvec;
 pub mod memory;
 pub mod observe;

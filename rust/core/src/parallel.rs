@@ -10,6 +10,9 @@ pub const BLOCK_ROWS: u64 = 4096;
 /// Blocks run between two interruption checks (about a million rows).
 pub const BLOCKS_PER_CHECK: usize = 256;
 
+/// Fewest rows of a matrix one task of [`Runner::for_matrix_rows`] gets.
+pub const MATRIX_TASK_ROWS: usize = 8;
+
 /// Most threads a private pool may have (far above any real machine's useful count;
 /// larger requests are mistakes that would exhaust the process's thread limit).
 pub const MAX_THREADS: usize = 1024;
@@ -109,6 +112,54 @@ impl Runner {
             }
         }
         Ok(out)
+    }
+
+    /// Call `work(first_row, rows)` for groups of consecutive rows of a row-major matrix
+    /// `out` with `width` columns (`rows` holds whole rows), in parallel, checking
+    /// `interrupt` between groups of about a million elements. Each row is written by
+    /// one call, so results do not depend on the thread count.
+    ///
+    /// # Errors
+    /// [`CoreError::Shape`] when `out` is not made of whole rows; otherwise as
+    /// [`Runner::for_row_chunks`].
+    pub fn for_matrix_rows<T, F>(
+        &self,
+        out: &mut [T],
+        width: usize,
+        interrupt: &dyn Interrupt,
+        work: F,
+    ) -> CoreResult<()>
+    where
+        T: Send,
+        F: Fn(usize, &mut [T]) -> CoreResult<()> + Sync,
+    {
+        if width == 0 || out.len() % width != 0 {
+            return Err(CoreError::Shape(format!(
+                "a matrix of {} elements is not made of rows of {width}",
+                out.len()
+            )));
+        }
+        // A task of at least BLOCK_ROWS elements and MATRIX_TASK_ROWS rows (work that
+        // also reads columns then reads whole cache lines); a group of
+        // BLOCK_ROWS * BLOCKS_PER_CHECK elements between interruption checks.
+        let task_rows = (BLOCK_ROWS as usize).div_ceil(width).max(MATRIX_TASK_ROWS);
+        let group_rows = (BLOCK_ROWS as usize * BLOCKS_PER_CHECK)
+            .div_ceil(width)
+            .max(task_rows);
+        let group_rows = group_rows.div_ceil(task_rows) * task_rows;
+        for (g, chunk) in out.chunks_mut(group_rows * width).enumerate() {
+            let base = g * group_rows;
+            self.install(|| {
+                chunk
+                    .par_chunks_mut(task_rows * width)
+                    .enumerate()
+                    .try_for_each(|(t, rows)| work(base + t * task_rows, rows))
+            })?;
+            if interrupt.requested() {
+                return Err(CoreError::Interrupted);
+            }
+        }
+        Ok(())
     }
 
     /// Call `work(first_row, out_block)` for consecutive blocks of `out` (one element a
