@@ -16,6 +16,7 @@ use crate::watch::Hooks;
 use fockmill_core::between::Between;
 use fockmill_core::lanczos::LanczosOptions;
 use fockmill_core::levels::LevelsOptions;
+use fockmill_core::matvec::Product;
 use fockmill_core::solve::Storage;
 use fockmill_core::symmetry::SectorOperator;
 use fockmill_core::{memory, CoreError, Operator};
@@ -349,34 +350,16 @@ impl NativeOperator {
     /// other kinds. Prepares the kernel on first use.
     #[getter]
     fn fast_products(&self, py: Python<'_>) -> PyResult<bool> {
-        guarded(|| match &self.kind {
-            Kind::Space(k) => {
-                let v = k.versions();
-                match &v.real {
-                    Some(real) => detached(py, None, |_, s| real.product(s).map(|p| p.as_fast_as_stored())),
-                    None => detached(py, None, |_, s| {
-                        v.complex.product(s).map(|p| p.as_fast_as_stored())
-                    }),
-                }
-            }
-            _ => Ok(false),
-        })
+        Ok(self
+            .on_product(py, |p| p.as_fast_as_stored(), |p| p.as_fast_as_stored())?
+            .unwrap_or(false))
     }
 
     /// The cut of the product kernel on a space (0: the row kernel; `k`: left modes
     /// `0..k`); 0 for the other kinds. Prepares the kernel on first use.
     #[getter]
     fn cut(&self, py: Python<'_>) -> PyResult<usize> {
-        guarded(|| match &self.kind {
-            Kind::Space(k) => {
-                let v = k.versions();
-                match &v.real {
-                    Some(real) => detached(py, None, |_, s| real.product(s).map(|p| p.cut())),
-                    None => detached(py, None, |_, s| v.complex.product(s).map(|p| p.cut())),
-                }
-            }
-            _ => Ok(0),
-        })
+        Ok(self.on_product(py, |p| p.cut(), |p| p.cut())?.unwrap_or(0))
     }
 
     /// `y = A x`; complex128 when `x` or the operator is complex.
@@ -545,5 +528,27 @@ impl NativeOperator {
             self.kind(),
             if self.is_real() { "True" } else { "False" }
         )
+    }
+}
+
+impl NativeOperator {
+    /// `real` or `complex` of the kept product kernel of an operator on a space
+    /// (prepared on first use, without the GIL); None for the other kinds.
+    fn on_product<T: Send>(
+        &self,
+        py: Python<'_>,
+        real: impl Fn(&Product<f64>) -> T + Send + Sync,
+        complex: impl Fn(&Product<Complex64>) -> T + Send + Sync,
+    ) -> PyResult<Option<T>> {
+        guarded(|| match &self.kind {
+            Kind::Space(k) => {
+                let v = k.versions();
+                match &v.real {
+                    Some(r) => detached(py, None, |_, s| r.product(s).map(&real)).map(Some),
+                    None => detached(py, None, |_, s| v.complex.product(s).map(&complex)).map(Some),
+                }
+            }
+            _ => Ok(None),
+        })
     }
 }

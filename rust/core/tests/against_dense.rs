@@ -286,17 +286,23 @@ fn monomial(coef: f64, creators: &[usize], annihilators: &[usize]) -> RawTerm {
     RawTerm::new(coef, 0.0, factors)
 }
 
-/// All-to-all one- and two-body terms with pseudo-random real coefficients, Hermitian
-/// (each term with its adjoint), repeated indices included: far more terms than modes,
-/// so the product indexes them by the quanta they remove.
-fn all_to_all(m: usize, seed: u64) -> Vec<RawTerm> {
+/// Pseudo-random numbers in [−0.5, 0.5) from a linear congruential generator
+/// (Knuth's MMIX constants): reproducible coefficients without a dependency.
+fn uniform_draws(seed: u64) -> impl FnMut() -> f64 {
     let mut state = seed;
-    let mut draw = move || {
+    move || {
         state = state
             .wrapping_mul(6364136223846793005)
             .wrapping_add(1442695040888963407);
         ((state >> 11) as f64 / (1u64 << 53) as f64) - 0.5
-    };
+    }
+}
+
+/// All-to-all one- and two-body terms with pseudo-random real coefficients, Hermitian
+/// (each term with its adjoint), repeated indices included: far more terms than modes,
+/// so the product indexes them by the quanta they remove.
+fn all_to_all(m: usize, seed: u64) -> Vec<RawTerm> {
+    let mut draw = uniform_draws(seed);
     let mut terms = Vec::new();
     for i in 0..m {
         for j in 0..m {
@@ -474,13 +480,7 @@ fn several_exact_charges_two_species_and_angular_momentum() {
 /// `Σ_ij t_ij a_i† a_j` with pseudo-random Hermitian `t` (complex off the diagonal when
 /// `complex`), every pair of modes coupled.
 fn quadratic_form(m: usize, seed: u64, complex: bool) -> Vec<RawTerm> {
-    let mut state = seed;
-    let mut draw = move || {
-        state = state
-            .wrapping_mul(6364136223846793005)
-            .wrapping_add(1442695040888963407);
-        ((state >> 11) as f64 / (1u64 << 53) as f64) - 0.5
-    };
+    let mut draw = uniform_draws(seed);
     let mut terms = Vec::new();
     for i in 0..m {
         terms.push(monomial(draw(), &[i], &[i]));
