@@ -228,11 +228,9 @@ def _chain(
     return h, hd, ops
 
 
-@pytest.mark.parametrize("method", ["dense", "sparse", "iterative"])
-@pytest.mark.parametrize("split", [None, False])
-def test_lossy_pumped_dephased_chain_against_dense(method: str, split: bool | None) -> None:
-    # Number-conserving chain with loss, pumping at a truncating top level and dephasing:
-    # the number-sector blocks and the whole space give the dense reference's ρ.
+def _lossy_pumped_dephased_chain():
+    """The 3-site chain (cutoff 2) with loss on sites 0 and 2, pumping of site 1 and
+    dephasing of site 2: the library's jumps and the dense reference's ``(rate, L)``."""
     h, hd, ops = _chain(3, 2, 0.0)
     jumps = [fm.loss(0, 0.3), fm.loss(2, 0.2), fm.pump(1, 0.25), fm.dephasing(2, 0.15)]
     ref_jumps = [
@@ -241,6 +239,15 @@ def test_lossy_pumped_dephased_chain_against_dense(method: str, split: bool | No
         (0.25, ops[1].conj().T),
         (0.15, ops[2].conj().T @ ops[2]),
     ]
+    return h, hd, jumps, ref_jumps
+
+
+@pytest.mark.parametrize("method", ["dense", "sparse", "iterative"])
+@pytest.mark.parametrize("split", [None, False])
+def test_lossy_pumped_dephased_chain_against_dense(method: str, split: bool | None) -> None:
+    # Number-conserving chain with loss, pumping at a truncating top level and dephasing:
+    # the number-sector blocks and the whole space give the dense reference's ρ.
+    h, hd, jumps, ref_jumps = _lossy_pumped_dephased_chain()
     ref = dense_stationary(hd, ref_jumps)
     ss = fm.stationary_state(
         h,
@@ -348,14 +355,7 @@ def test_native_product_on_number_sector_blocks() -> None:
     # Liouvillian of the whole space.
     from fockmill.lindblad.liouvillian import build_liouvillian
 
-    h, hd, ops = _chain(3, 2, 0.0)
-    jumps = [fm.loss(0, 0.3), fm.loss(2, 0.2), fm.pump(1, 0.25), fm.dephasing(2, 0.15)]
-    ref_jumps = [
-        (0.3, ops[0]),
-        (0.2, ops[2]),
-        (0.25, ops[1].conj().T),
-        (0.15, ops[2].conj().T @ ops[2]),
-    ]
+    h, hd, jumps, ref_jumps = _lossy_pumped_dephased_chain()
     lmat = dense_liouvillian(hd, ref_jumps)
     liou = build_liouvillian(h, fm.FockSpace(modes=3, cutoff=2), jumps)
     assert liou.sectors is not None and len(liou.dims) > 2
