@@ -49,7 +49,12 @@ CHILD = textwrap.dedent(
     def workload(kind):
         if kind == "build":
             expr, space = ring(13, 3.0)  # 5,200,300 states, ~75 M entries
-            return lambda: fm.build_matrix(expr, space, threads=2)
+            def builds():
+                # One build takes under a second on an idle machine, about the delay
+                # before the signal: repeat it (each result dropped before the next).
+                for _ in range(1_000):
+                    fm.build_matrix(expr, space, threads=2)
+            return builds
         if kind == "products":
             expr, space = ring(12, 3.0)  # 1,352,078 states
             op = fm.build_operator(expr, space, threads=2)
