@@ -130,18 +130,18 @@ def hermitian_map(
         fast = estimate.dim >= SMALL_KRYLOV_DIM and problem.native.fast_products
         chosen = "csr" if fits and not fast else "operator"
     is_real = problem.is_real
-    if chosen == "csr" and estimate.dim >= SMALL_KRYLOV_DIM:
-        # Long vectors: the matrix is stored on the Rust side, whose product runs on the
-        # problem's threads without the GIL (scipy's runs on one thread). Handing the
-        # built arrays over copies them once, so the two copies must fit for a moment.
-        if 2 * estimate.csr_bytes + vector_bytes <= budget:
-            stored = _native_copy(problem)
-            pool = problem.pool
+    # Long vectors: the matrix is stored on the Rust side, whose product runs on the
+    # problem's threads without the GIL (scipy's runs on one thread). Handing the built
+    # arrays over copies them once, so the two copies must fit for a moment.
+    if (
+        chosen == "csr"
+        and estimate.dim >= SMALL_KRYLOV_DIM
+        and 2 * estimate.csr_bytes + vector_bytes <= budget
+    ):
+        from fockmill.problem.eigensolve import native_csr
 
-            def apply_stored(x: npt.NDArray[Any]) -> npt.NDArray[Any]:
-                return stored.matvec(np.ascontiguousarray(x), threads=pool)  # type: ignore[no-any-return]
-
-            return HermitianMap(estimate.dim, is_real, "csr", apply_stored)
+        stored = native_csr(problem.matrix())
+        return HermitianMap(estimate.dim, is_real, "csr", _native_product(stored, problem.pool))
     if chosen == "csr":
         matrix = problem.matrix()
 
@@ -154,22 +154,18 @@ def hermitian_map(
             return np.asarray(matrix @ x)
 
         return HermitianMap(estimate.dim, is_real, "csr", apply)
-    native, pool = problem.native, problem.pool
+    return HermitianMap(
+        estimate.dim, is_real, "operator", _native_product(problem.native, problem.pool)
+    )
 
-    def apply_free(x: npt.NDArray[Any]) -> npt.NDArray[Any]:
+
+def _native_product(native: Any, pool: Any) -> Callable[[npt.NDArray[Any]], npt.NDArray[Any]]:
+    """``x -> A x`` with a native operator on the given thread pool."""
+
+    def apply(x: npt.NDArray[Any]) -> npt.NDArray[Any]:
         return native.matvec(np.ascontiguousarray(x), threads=pool)  # type: ignore[no-any-return]
 
-    return HermitianMap(estimate.dim, is_real, "operator", apply_free)
-
-
-def _native_copy(problem: Any) -> Any:
-    """The problem's CSR matrix built once and held by a native operator."""
-    import fockmill._native as _native
-
-    matrix = problem.matrix()
-    return _native.NativeOperator.from_csr(
-        matrix.indptr, matrix.indices, np.ascontiguousarray(matrix.data)
-    )
+    return apply
 
 
 def expectation_function(observable: Any) -> Callable[[npt.NDArray[Any]], complex]:

@@ -532,16 +532,20 @@ def memory_plan(
     )
 
 
+def native_csr(matrix: Any) -> Any:
+    """A scipy CSR matrix copied into a native operator (products on the library's
+    threads, without the GIL)."""
+    import fockmill._native as _native
+
+    data = np.ascontiguousarray(matrix.data)
+    return _native.NativeOperator.from_csr(matrix.indptr, matrix.indices, data)
+
+
 def _lanczos_target(problem: Problem) -> Any:
     """The operator the Rust solvers run on: a matrix handed to the problem
     (``Problem._from_parts``: sweeps), else the compiled operator."""
     ready = problem._ready_matrix
-    if ready is None:
-        return problem.native
-    import fockmill._native as _native
-
-    data = np.ascontiguousarray(ready.data)
-    return _native.NativeOperator.from_csr(ready.indptr, ready.indices, data)
+    return problem.native if ready is None else native_csr(ready)
 
 
 def _native_ground(

@@ -843,11 +843,10 @@ impl<S: Scalar> ProductKernel<S> {
         self.lowering.is_some()
     }
 
-    /// Whether products gather the hop terms per intermediate state (dense hop groups).
+    /// Whether products gather the hop terms per intermediate state (dense hop groups,
+    /// which exist only beside the hop table).
     pub fn gathers_hops(&self) -> bool {
-        self.lowering
-            .as_ref()
-            .is_some_and(|l| l.hop_table.is_some() && l.dense_hops.is_some())
+        self.lowering.as_ref().is_some_and(|l| l.dense_hops.is_some())
     }
 
     /// Rows per block when a block's entries are buffered (keeps the buffer small).
