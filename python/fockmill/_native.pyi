@@ -89,9 +89,13 @@ class NativeLiouvillian:
     ) -> npt.NDArray[np.complex128]:
         """``𝓛ρ`` for any complex blocks (flat, length ``size``)."""
     def apply_real(
-        self, x: npt.NDArray[np.float64], threads: int | NativePool | None = None
+        self,
+        x: npt.NDArray[np.float64],
+        threads: int | NativePool | None = None,
+        out: npt.NDArray[np.float64] | None = None,
     ) -> npt.NDArray[np.float64]:
-        """``Re 𝓛ρ + Im 𝓛ρ`` for Hermitian blocks given as ``Re ρ + Im ρ`` (flat)."""
+        """``Re 𝓛ρ + Im 𝓛ρ`` for Hermitian blocks given as ``Re ρ + Im ρ`` (flat), into
+        ``out`` when given (writable, C-contiguous, may be ``x``) and returned."""
 
 @final
 class NativePool:

@@ -162,6 +162,19 @@ class Liouvillian:
             )
         return self._product
 
+    def native_in_order(self, orders: list[npt.NDArray[np.intp]]) -> Any:
+        """A native product on the blocks with their states reordered: state ``i`` of
+        block ``b`` is its state ``orders[b][i]`` (what the sector preconditioner works
+        in). Its ``apply_real`` takes and returns real forms in that order."""
+        ks, chans = self.sparse_matrices()
+        return _native.NativeLiouvillian(
+            [_csr_parts(k[o][:, o]) for k, o in zip(ks, orders, strict=True)],
+            [
+                (float(rate), src, dst, _csr_parts(lm[orders[dst]][:, orders[src]]))
+                for rate, lm, src, dst in chans
+            ],
+        )
+
     def apply(self, blocks: list[npt.NDArray[np.complex128]]) -> list[npt.NDArray[np.complex128]]:
         """``𝓛ρ`` for blocks ``ρ_b`` (complex ``d_b × d_b``, Hermitian or not), by the
         native product."""

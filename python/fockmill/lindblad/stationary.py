@@ -259,9 +259,9 @@ def _solve_sparse(liou: Liouvillian) -> list[Any]:
     return _blocks_from_vec(liou, x)
 
 
-def _preconditioner(liou: Liouvillian, choice: str) -> tuple[Any, float, str]:
-    """``x -> M⁻¹ x`` on the real form of Hermitian blocks, the Liouvillian's scale and
-    the kind used.
+def _preconditioner(liou: Liouvillian, choice: str) -> tuple[Any, float, str, Any]:
+    """``x -> M⁻¹ x`` on the real form of Hermitian blocks, the Liouvillian's scale,
+    the kind used and the order of each block's states it works in (None: as given).
 
     ``"sylvester"`` inverts the no-jump part ``ρ -> −i(Kρ − ρK†)`` exactly on each block
     from the eigendecomposition ``K = V Λ V⁻¹`` (``X = V [(V⁻¹ Y V⁻†) / (−i(λ_i − λ̄_j))]
@@ -288,7 +288,7 @@ def _preconditioner(liou: Liouvillian, choice: str) -> tuple[Any, float, str]:
     if choice == "sectors":
         made = sector_sylvester(liou)
         if made is not None:
-            return made[0], made[1], "sectors"
+            return made[0], made[1], "sectors", made[2]
         choice = "diagonal"  # a (nearly) defective sector: no stable inverse
     if choice == "sylvester":
         ks, _chans = liou.sparse_matrices()
@@ -309,7 +309,7 @@ def _preconditioner(liou: Liouvillian, choice: str) -> tuple[Any, float, str]:
                 out.append(v @ ((vi @ y @ vi.conj().T) / d) @ v.conj().T)
             return liou.to_real(out)
 
-        return sylvester, scale, "sylvester"
+        return sylvester, scale, "sylvester", None
     if choice != "diagonal":
         raise ValueError(
             f"preconditioner must be 'auto', 'sylvester', 'sectors' or 'diagonal'; got {choice!r}"
@@ -327,7 +327,7 @@ def _preconditioner(liou: Liouvillian, choice: str) -> tuple[Any, float, str]:
         blocks = liou.from_real(np.asarray(x).reshape(-1))
         return liou.to_real([b / p for b, p in zip(blocks, precond, strict=True)])
 
-    return jacobi, scale, "diagonal"
+    return jacobi, scale, "diagonal", None
 
 
 def _solve_iterative(
@@ -339,56 +339,65 @@ def _solve_iterative(
     preconditioner: str = "auto",
     reporter: Progress | None = None,
 ) -> tuple[list[Any], int, str]:
-    from scipy.sparse.linalg import LinearOperator, gmres
+    from fockmill.lindblad.gmres import gmres
 
     dims = liou.dims
-    n = liou.size
     dtotal = sum(dims)
     # E = I / D (Hermitian, trace one) scaled like the Liouvillian.
     e_blocks = [np.eye(d, dtype=np.complex128) / dtotal for d in dims]
     e = liou.to_real(e_blocks)
-    solve_precond, scale, kind = _preconditioner(liou, preconditioner)
+    solve_precond, scale, kind, orders = _preconditioner(liou, preconditioner)
+    product = liou.native() if orders is None else liou.native_in_order(orders)
 
-    def apply(x: npt.NDArray[np.float64]) -> npt.NDArray[np.float64]:
-        x = np.asarray(x).reshape(-1)
-        return liou.apply_real(x) + (scale * liou.trace_real(x)) * e  # type: ignore[no-any-return]
+    # E is a multiple of the identity: the trace term touches the diagonal entries only.
+    diagonal = np.flatnonzero(e)
 
-    a = LinearOperator((n, n), matvec=apply, dtype=np.float64)
-    m = LinearOperator((n, n), matvec=solve_precond, dtype=np.float64)
-    x0 = e if guess is None else liou.to_real(guess)
+    def apply(x: npt.NDArray[np.float64], out: npt.NDArray[np.float64]) -> None:
+        liou.products += 1
+        trace = float(x[diagonal].sum())
+        product.apply_real(x, threads=liou.pool, out=out)
+        out[diagonal] += (scale * trace) * e[diagonal]
+
+    x0 = e if guess is None else _reorder(liou, liou.to_real(guess), orders)
     count = 0
 
-    def callback(res: Any) -> None:
+    def callback(res: float) -> None:
         nonlocal count
         count += 1
         if reporter is not None:
             reporter.update(step=count, products=liou.products, residual=float(res))
 
-    from fockmill.settings.threads import blas_threads
-
-    # GMRES's many vector operations on a shared machine: one BLAS thread is several
-    # times faster than several (measured, see benchmarks/bench_lindblad.py).
-    with blas_threads(1):
-        x, info = gmres(
-            a,
-            scale * e,
-            x0=x0,
-            rtol=tol,
-            atol=0.0,
-            restart=restart,
-            maxiter=max(1, max_iterations // restart),
-            M=m,
-            callback=callback,
-            callback_type="pr_norm",
-        )
-    if info != 0:
-        rel = np.linalg.norm(apply(x) - scale * e) / (scale * np.linalg.norm(e))
+    x, iterations, rel = gmres(
+        apply,
+        scale * e,
+        x0,
+        precondition=solve_precond,
+        rtol=tol,
+        restart=restart,
+        max_iterations=max_iterations,
+        callback=callback,
+    )
+    if rel > tol:
         raise ConvergenceError(
-            f"no stationary state found: GMRES stopped after {count} iterations with relative "
-            f"residual {rel:.3g} > tol={tol:g}. The stationary state may not be unique (check "
-            "a smaller cutoff with method='dense'), or raise max_iterations / loosen tol"
+            f"no stationary state found: GMRES stopped after {iterations} iterations with "
+            f"relative residual {rel:.3g} > tol={tol:g}. The stationary state may not be unique "
+            "(check a smaller cutoff with method='dense'), or raise max_iterations / loosen tol"
         )
-    return liou.from_real(x), count, kind
+    if orders is not None:
+        x = _reorder(liou, x, [np.argsort(o) for o in orders])
+    return liou.from_real(x), iterations, kind
+
+
+def _reorder(liou: Liouvillian, x: npt.NDArray[np.float64], orders: Any) -> Any:
+    """The real form ``x`` with the states of block ``b`` listed as ``orders[b]``."""
+    if orders is None:
+        return x
+    out = np.empty_like(x)
+    start = 0
+    for d, o in zip(liou.dims, orders, strict=True):
+        out[start : start + d * d] = x[start : start + d * d].reshape(d, d)[np.ix_(o, o)].ravel()
+        start += d * d
+    return out
 
 
 def stationary_state(

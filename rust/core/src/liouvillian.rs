@@ -132,6 +132,165 @@ pub struct LiouvillianProduct {
     channels: Vec<Channel>,
     /// For each block, the channels landing in it (in the order given).
     incoming: Vec<Vec<usize>>,
+    /// The same Liouvillian in real arithmetic, when it has one (see [`RealParts`]).
+    real: Option<RealParts>,
+}
+
+/// A real CSR matrix (the real or imaginary part of a [`SparseBlock`]).
+#[derive(Debug, Clone, PartialEq)]
+struct RealSparse {
+    indptr: Vec<usize>,
+    indices: Vec<u32>,
+    data: Vec<f64>,
+}
+
+impl RealSparse {
+    /// The nonzero entries of one part of `m`.
+    fn part(m: &SparseBlock, take: impl Fn(Complex64) -> f64) -> Self {
+        let mut indptr = Vec::with_capacity(m.rows + 1);
+        let mut indices = Vec::new();
+        let mut data = Vec::new();
+        indptr.push(0);
+        for r in 0..m.rows {
+            let (cols, vals) = m.row(r);
+            for (&c, &v) in cols.iter().zip(vals) {
+                let x = take(v);
+                if x != 0.0 {
+                    indices.push(c);
+                    data.push(x);
+                }
+            }
+            indptr.push(data.len());
+        }
+        RealSparse {
+            indptr,
+            indices,
+            data,
+        }
+    }
+
+    #[inline]
+    fn row(&self, r: usize) -> (&[u32], &[f64]) {
+        let (a, b) = (self.indptr[r], self.indptr[r + 1]);
+        (&self.indices[a..b], &self.data[a..b])
+    }
+
+    /// Whether the matrix equals its transpose to within `tol` (entry by entry).
+    fn is_symmetric(&self, tol: f64) -> bool {
+        let entry = |r: usize, c: u32| -> f64 {
+            let (cols, vals) = self.row(r);
+            cols.iter()
+                .zip(vals)
+                .filter(|(&k, _)| k == c)
+                .map(|(_, &v)| v)
+                .sum()
+        };
+        (0..self.indptr.len() - 1).all(|r| {
+            let (cols, vals) = self.row(r);
+            cols.iter()
+                .zip(vals)
+                .all(|(&c, &v)| (entry(c as usize, r as u32) - v).abs() <= tol)
+        })
+    }
+}
+
+/// `K_b = H_b − (i/2) Γ_b` with `H_b` and `Γ_b` real symmetric and every jump real: the
+/// case of a real Hamiltonian with real jumps (loss, pumping, dephasing). Then the real
+/// form `X = Re ρ + Im ρ` of a Hermitian `ρ` maps to
+///
+/// ```text
+/// R(𝓛ρ) = [H, X]ᵀ − ½ {Γ, X} + Σ_k γ_k J_k X_s J_kᵀ
+/// ```
+///
+/// (the commutator turns the symmetric part `Re ρ` into the antisymmetric part of the
+/// result and back, hence the transpose), all in real arithmetic on `X` itself: no
+/// complex copy of `ρ`, a quarter of the multiply-adds.
+#[derive(Debug, Clone)]
+struct RealParts {
+    hamiltonians: Vec<RealSparse>,
+    decays: Vec<RealSparse>,
+    jumps: Vec<RealSparse>,
+    /// `Γ_b` as its diagonal when it is diagonal (loss, pumping and dephasing of
+    /// single modes): `−½{Γ, X}_ij = −½(g_i + g_j) X_ij`.
+    decay_diagonals: Vec<Option<Vec<f64>>>,
+    /// Each jump as `J_ij = w_i δ(j, c_i)` when every row has at most one entry (the
+    /// ladder operators of one mode): `(J X Jᵀ)_ij = w_i w_j X[c_i, c_j]`, a gather.
+    jump_rows: Vec<Option<(Vec<u32>, Vec<f64>)>>,
+}
+
+impl RealSparse {
+    fn diagonal(&self) -> Option<Vec<f64>> {
+        let rows = self.indptr.len() - 1;
+        let mut out = vec![0.0; rows];
+        for (r, o) in out.iter_mut().enumerate() {
+            let (cols, vals) = self.row(r);
+            for (&c, &v) in cols.iter().zip(vals) {
+                if c as usize != r {
+                    return None;
+                }
+                *o += v;
+            }
+        }
+        Some(out)
+    }
+
+    fn single_entry_rows(&self) -> Option<(Vec<u32>, Vec<f64>)> {
+        let rows = self.indptr.len() - 1;
+        let mut columns = vec![0u32; rows];
+        let mut weights = vec![0.0; rows];
+        for r in 0..rows {
+            let (cols, vals) = self.row(r);
+            match cols.len() {
+                0 => {}
+                1 => {
+                    columns[r] = cols[0];
+                    weights[r] = vals[0];
+                }
+                _ => return None,
+            }
+        }
+        Some((columns, weights))
+    }
+}
+
+impl RealParts {
+    /// The real parts when the conditions above hold (symmetry to within 10⁻¹³ of the
+    /// largest entry); None otherwise.
+    fn detect(effective: &[SparseBlock], channels: &[Channel]) -> Option<Self> {
+        if channels.iter().any(|c| c.jump.data.iter().any(|v| v.im != 0.0)) {
+            return None;
+        }
+        let largest = effective
+            .iter()
+            .flat_map(|k| k.data.iter().map(|v| v.re.abs().max(v.im.abs())))
+            .fold(0.0f64, f64::max);
+        let tol = 1e-13 * largest;
+        let hamiltonians: Vec<RealSparse> = effective.iter().map(|k| RealSparse::part(k, |v| v.re)).collect();
+        let decays: Vec<RealSparse> = effective
+            .iter()
+            .map(|k| RealSparse::part(k, |v| -2.0 * v.im))
+            .collect();
+        if !hamiltonians
+            .iter()
+            .chain(&decays)
+            .all(|m| m.is_symmetric(2.0 * tol))
+        {
+            return None;
+        }
+        let jumps: Vec<RealSparse> = channels
+            .iter()
+            .map(|c| RealSparse::part(&c.jump, |v| v.re))
+            .collect();
+        let decay_diagonals = decays.iter().map(RealSparse::diagonal).collect();
+        let jump_rows = jumps.iter().map(RealSparse::single_entry_rows).collect();
+        Some(RealParts {
+            hamiltonians,
+            decays,
+            jumps,
+            decay_diagonals,
+            jump_rows,
+        })
+    }
 }
 
 impl LiouvillianProduct {
@@ -185,18 +344,26 @@ impl LiouvillianProduct {
                 .ok_or_else(|| CoreError::InvalidArgument("the density matrix is too large".into()))?;
             offsets.push(total);
         }
+        let real = RealParts::detect(&effective, &channels);
         Ok(LiouvillianProduct {
             dims,
             offsets,
             effective,
             channels,
             incoming,
+            real,
         })
     }
 
     /// The block dimensions `d_b`.
     pub fn dims(&self) -> &[usize] {
         &self.dims
+    }
+
+    /// Whether [`LiouvillianProduct::apply_hermitian_real`] runs in real arithmetic (a
+    /// real Hamiltonian with real jumps, see [`RealParts`]).
+    pub fn real_arithmetic(&self) -> bool {
+        self.real.is_some()
     }
 
     /// Entries of the block-diagonal density matrix, `Σ_b d_b²`.
@@ -261,8 +428,28 @@ impl LiouvillianProduct {
         runner: &Runner,
         interrupt: &dyn Interrupt,
     ) -> CoreResult<()> {
+        self.apply_hermitian_real_reusing(x, y, &mut Vec::new(), runner, interrupt)
+    }
+
+    /// [`LiouvillianProduct::apply_hermitian_real`] with the work matrix of the real
+    /// path kept in `work` between calls (grown when it is too short): a solver making
+    /// many products then touches fresh memory for none of them.
+    ///
+    /// # Errors
+    /// As [`LiouvillianProduct::apply_hermitian_real`].
+    pub fn apply_hermitian_real_reusing(
+        &self,
+        x: &[f64],
+        y: &mut [f64],
+        work: &mut Vec<f64>,
+        runner: &Runner,
+        interrupt: &dyn Interrupt,
+    ) -> CoreResult<()> {
         self.check_len(x.len(), "x")?;
         self.check_len(y.len(), "y")?;
+        if let Some(real) = &self.real {
+            return self.apply_real_parts(real, x, y, work, runner, interrupt);
+        }
         let zero = Complex64::new(0.0, 0.0);
         let mut rho = memory::try_filled(self.size(), zero, "the density matrix of a Liouvillian product")?;
         for (b, &d) in self.dims.iter().enumerate() {
@@ -300,6 +487,115 @@ impl LiouvillianProduct {
             })?;
         }
         Ok(())
+    }
+
+    /// [`LiouvillianProduct::apply_hermitian_real`] in real arithmetic: per block, the
+    /// rows of `W = [H, X]` first, then each output row from column `i` of `W` (a few
+    /// consecutive entries at a time), the decay terms and the jumps.
+    fn apply_real_parts(
+        &self,
+        real: &RealParts,
+        x: &[f64],
+        y: &mut [f64],
+        commutator: &mut Vec<f64>,
+        runner: &Runner,
+        interrupt: &dyn Interrupt,
+    ) -> CoreResult<()> {
+        let widest = self.dims.iter().copied().max().unwrap_or(0);
+        if commutator.len() < widest * widest {
+            *commutator = memory::try_filled(widest * widest, 0.0, "a work copy of a Liouvillian product")?;
+        }
+        for (b, &d) in self.dims.iter().enumerate() {
+            if d == 0 {
+                continue;
+            }
+            let (lo, hi) = (self.offsets[b], self.offsets[b + 1]);
+            let xb = &x[lo..hi];
+            let h = &real.hamiltonians[b];
+            let w = &mut commutator[..d * d];
+            runner.for_matrix_rows(w, d, interrupt, |first, rows| {
+                for (k, row) in rows.chunks_mut(d).enumerate() {
+                    commutator_row(h, xb, d, first + k, row);
+                }
+                Ok(())
+            })?;
+            let w = &commutator[..d * d];
+            runner.for_matrix_rows(&mut y[lo..hi], d, interrupt, |first, rows| {
+                transpose_rows(w, d, first, rows);
+                let widest_source = self.incoming[b]
+                    .iter()
+                    .map(|&c| self.dims[self.channels[c].source])
+                    .max()
+                    .unwrap_or(0);
+                let mut scratch = vec![0.0; widest_source];
+                for (k, row) in rows.chunks_mut(d).enumerate() {
+                    self.real_dissipation_row(real, b, first + k, x, row, &mut scratch);
+                }
+                Ok(())
+            })?;
+        }
+        Ok(())
+    }
+
+    /// Adds row `i` of block `b` of `−½{Γ, X} + Σ γ J X_s Jᵀ` to `out`.
+    fn real_dissipation_row(
+        &self,
+        real: &RealParts,
+        b: usize,
+        i: usize,
+        x: &[f64],
+        out: &mut [f64],
+        scratch: &mut [f64],
+    ) {
+        let d = self.dims[b];
+        let xb = &x[self.offsets[b]..self.offsets[b + 1]];
+        let xi = &xb[i * d..(i + 1) * d];
+        if let Some(g) = &real.decay_diagonals[b] {
+            let gi = g[i];
+            for ((o, &v), &gj) in out.iter_mut().zip(xi).zip(g) {
+                *o -= 0.5 * (gi + gj) * v;
+            }
+        } else {
+            real_decay_row(&real.decays[b], xb, d, i, out);
+        }
+        for &c in &self.incoming[b] {
+            let ch = &self.channels[c];
+            let ds = self.dims[ch.source];
+            let xs = &x[self.offsets[ch.source]..self.offsets[ch.source + 1]];
+            if let Some((columns, weights)) = &real.jump_rows[c] {
+                let wi = weights[i];
+                if wi == 0.0 {
+                    continue;
+                }
+                let src = &xs[columns[i] as usize * ds..(columns[i] as usize + 1) * ds];
+                let scale = ch.rate * wi;
+                for ((o, &cj), &wj) in out.iter_mut().zip(columns).zip(weights) {
+                    *o += scale * wj * src[cj as usize];
+                }
+                continue;
+            }
+            let jump = &real.jumps[c];
+            let (cols, vals) = jump.row(i);
+            if cols.is_empty() {
+                continue;
+            }
+            let t = &mut scratch[..ds];
+            t.fill(0.0);
+            for (&col, &v) in cols.iter().zip(vals) {
+                let src = &xs[col as usize * ds..(col as usize + 1) * ds];
+                for (tv, &r) in t.iter_mut().zip(src) {
+                    *tv += v * r;
+                }
+            }
+            for (j, o) in out.iter_mut().enumerate() {
+                let (cols, vals) = jump.row(j);
+                if cols.is_empty() {
+                    continue;
+                }
+                let acc: f64 = cols.iter().zip(vals).map(|(&col, &v)| t[col as usize] * v).sum();
+                *o += ch.rate * acc;
+            }
+        }
     }
 
     fn scratch(&self) -> Vec<Complex64> {
@@ -377,6 +673,57 @@ impl LiouvillianProduct {
                 }
                 *o += acc * rate;
             }
+        }
+    }
+}
+
+/// Adds row `i` of `−½{Γ, X}` (`d × d`, `Γ` real symmetric) to `out`: rows of `X`
+/// combined for `ΓX`, row `i` of `X` dotted with the rows of `Γ` for `XΓ`.
+fn real_decay_row(g: &RealSparse, xb: &[f64], d: usize, i: usize, out: &mut [f64]) {
+    let (cols, vals) = g.row(i);
+    for (&c, &v) in cols.iter().zip(vals) {
+        let src = &xb[c as usize * d..(c as usize + 1) * d];
+        for (o, &r) in out.iter_mut().zip(src) {
+            *o -= 0.5 * v * r;
+        }
+    }
+    let xi = &xb[i * d..(i + 1) * d];
+    for (j, o) in out.iter_mut().enumerate() {
+        let (cols, vals) = g.row(j);
+        if cols.is_empty() {
+            continue;
+        }
+        let acc: f64 = cols.iter().zip(vals).map(|(&c, &v)| xi[c as usize] * v).sum();
+        *o -= 0.5 * acc;
+    }
+}
+
+/// Row `i` of `[H, X] = HX − XH` (`d × d`, `H` real symmetric): rows of `X` combined,
+/// then row `i` of `X` dotted with the rows of `H`.
+fn commutator_row(h: &RealSparse, x: &[f64], d: usize, i: usize, out: &mut [f64]) {
+    out.fill(0.0);
+    let (cols, vals) = h.row(i);
+    for (&c, &v) in cols.iter().zip(vals) {
+        let src = &x[c as usize * d..(c as usize + 1) * d];
+        for (o, &r) in out.iter_mut().zip(src) {
+            *o += v * r;
+        }
+    }
+    let xi = &x[i * d..(i + 1) * d];
+    for (j, o) in out.iter_mut().enumerate() {
+        let (cols, vals) = h.row(j);
+        let acc: f64 = cols.iter().zip(vals).map(|(&c, &v)| xi[c as usize] * v).sum();
+        *o -= acc;
+    }
+}
+
+/// Rows `first..` of `Wᵀ` (`d × d`), column `i` of `W` read a few entries at a time.
+fn transpose_rows(w: &[f64], d: usize, first: usize, rows: &mut [f64]) {
+    let count = rows.len() / d;
+    for j in 0..d {
+        let col = &w[j * d + first..j * d + first + count];
+        for (k, &wji) in col.iter().enumerate() {
+            rows[k * d + j] = wji;
         }
     }
 }
@@ -591,6 +938,182 @@ mod tests {
             match &first {
                 None => first = Some(y),
                 Some(f) => assert_eq!(f, &y, "results differ between thread counts"),
+            }
+        }
+    }
+
+    /// A random real symmetric matrix (about `fill` of the entries).
+    fn random_symmetric(d: usize, seed: u64, fill: f64) -> Vec<Vec<f64>> {
+        let a = random_dense(d, d, seed, fill);
+        (0..d)
+            .map(|i| (0..d).map(|j| a[i][j].re + a[j][i].re).collect())
+            .collect()
+    }
+
+    #[test]
+    fn real_hamiltonian_and_real_jumps_take_real_arithmetic() {
+        // K_b = H_b − (i/2) Γ_b with H_b, Γ_b real symmetric and real jumps, as the
+        // solvers build them for a real Hamiltonian with loss, pumping or dephasing.
+        let dims = [6usize, 4];
+        let k: Vec<Dense> = dims
+            .iter()
+            .enumerate()
+            .map(|(b, &d)| {
+                let h = random_symmetric(d, 30 + b as u64, 0.5);
+                let g = random_symmetric(d, 40 + b as u64, 0.3);
+                (0..d)
+                    .map(|i| (0..d).map(|j| c(h[i][j], -0.5 * g[i][j])).collect())
+                    .collect()
+            })
+            .collect();
+        let real = |m: Dense| -> Dense {
+            m.iter()
+                .map(|r| r.iter().map(|v| c(v.re, 0.0)).collect())
+                .collect()
+        };
+        let chans: Vec<DenseChannel> = vec![
+            (0.8, real(random_dense(4, 6, 5, 0.4)), 0, 1),
+            (0.3, real(random_dense(6, 6, 6, 0.3)), 0, 0),
+            (1.1, real(random_dense(6, 4, 7, 0.5)), 1, 0),
+        ];
+        let make = |chans: &[DenseChannel]| {
+            LiouvillianProduct::new(
+                k.iter().zip(dims).map(|(m, d)| to_sparse(m, d)).collect(),
+                chans
+                    .iter()
+                    .map(|(rate, j, s, t)| Channel {
+                        rate: *rate,
+                        jump: to_sparse(j, dims[*s]),
+                        source: *s,
+                        target: *t,
+                    })
+                    .collect(),
+            )
+            .unwrap()
+        };
+        let product = make(&chans);
+        assert!(product.real_arithmetic());
+        let rho: Vec<Dense> = dims
+            .iter()
+            .enumerate()
+            .map(|(b, &d)| {
+                let a = random_dense(d, d, 300 + b as u64, 1.0);
+                let ad = dagger(&a);
+                a.iter()
+                    .zip(&ad)
+                    .map(|(r, s)| r.iter().zip(s).map(|(x, y)| (x + y) * 0.5).collect())
+                    .collect()
+            })
+            .collect();
+        let expect: Vec<f64> = flat(&dense_reference(&k, &chans, &rho))
+            .iter()
+            .map(|z| z.re + z.im)
+            .collect();
+        let x: Vec<f64> = flat(&rho).iter().map(|z| z.re + z.im).collect();
+        let mut first: Option<Vec<f64>> = None;
+        for threads in [1, 2, 3] {
+            let runner = Runner::with_threads(Some(threads)).unwrap();
+            let mut y = vec![0.0; product.size()];
+            product
+                .apply_hermitian_real(&x, &mut y, &runner, &NoInterrupt)
+                .unwrap();
+            for (a, b) in y.iter().zip(&expect) {
+                assert!((a - b).abs() < 1e-12, "{a} vs {b}");
+            }
+            match &first {
+                None => first = Some(y),
+                Some(f) => assert_eq!(f, &y, "results differ between thread counts"),
+            }
+        }
+        // One complex jump, or a K that is not of that form, keeps complex arithmetic.
+        let mut complex = chans.clone();
+        complex[1].1[0][0] = c(0.5, 0.25);
+        assert!(!make(&complex).real_arithmetic());
+        let (general, _, _) = case();
+        assert!(!general.real_arithmetic());
+    }
+
+    #[test]
+    fn diagonal_decay_and_single_entry_jumps_take_the_gathers() {
+        // Loss-like jumps (at most one entry per row, some rows empty) and a diagonal Γ:
+        // the gather paths of the real arithmetic, against the dense Lindblad form.
+        let dims = [5usize, 6];
+        let ladder = |rows: usize, cols: usize, shift: usize, seed: f64| -> Dense {
+            (0..rows)
+                .map(|r| {
+                    (0..cols)
+                        .map(|c| {
+                            if r % 4 != 3 && c == (r + shift) % cols {
+                                Complex64::new(seed + r as f64 * 0.1, 0.0)
+                            } else {
+                                Complex64::new(0.0, 0.0)
+                            }
+                        })
+                        .collect()
+                })
+                .collect()
+        };
+        let chans: Vec<DenseChannel> = vec![
+            (0.6, ladder(5, 6, 1, 0.5), 1, 0),
+            (0.9, ladder(6, 6, 2, 0.3), 1, 1),
+            (0.4, ladder(6, 5, 0, 0.7), 0, 1),
+        ];
+        let k: Vec<Dense> = dims
+            .iter()
+            .enumerate()
+            .map(|(b, &d)| {
+                let h = random_symmetric(d, 50 + b as u64, 0.5);
+                (0..d)
+                    .map(|i| {
+                        (0..d)
+                            .map(|j| c(h[i][j], if i == j { -0.3 * (i as f64 + 1.0) } else { 0.0 }))
+                            .collect()
+                    })
+                    .collect()
+            })
+            .collect();
+        let product = LiouvillianProduct::new(
+            k.iter().zip(dims).map(|(m, d)| to_sparse(m, d)).collect(),
+            chans
+                .iter()
+                .map(|(rate, j, s, t)| Channel {
+                    rate: *rate,
+                    jump: to_sparse(j, dims[*s]),
+                    source: *s,
+                    target: *t,
+                })
+                .collect(),
+        )
+        .unwrap();
+        let real = product.real.as_ref().expect("real arithmetic");
+        assert!(real.decay_diagonals.iter().all(Option::is_some));
+        assert!(real.jump_rows.iter().all(Option::is_some));
+        let rho: Vec<Dense> = dims
+            .iter()
+            .enumerate()
+            .map(|(b, &d)| {
+                let a = random_dense(d, d, 400 + b as u64, 1.0);
+                let ad = dagger(&a);
+                a.iter()
+                    .zip(&ad)
+                    .map(|(r, s)| r.iter().zip(s).map(|(x, y)| (x + y) * 0.5).collect())
+                    .collect()
+            })
+            .collect();
+        let expect: Vec<f64> = flat(&dense_reference(&k, &chans, &rho))
+            .iter()
+            .map(|z| z.re + z.im)
+            .collect();
+        let x: Vec<f64> = flat(&rho).iter().map(|z| z.re + z.im).collect();
+        let mut y = vec![0.0; product.size()];
+        let mut work = Vec::new();
+        for _ in 0..2 {
+            // twice with the same work matrix: nothing is left over from the first call
+            product
+                .apply_hermitian_real_reusing(&x, &mut y, &mut work, &Runner::global(), &NoInterrupt)
+                .unwrap();
+            for (a, b) in y.iter().zip(&expect) {
+                assert!((a - b).abs() < 1e-12, "{a} vs {b}");
             }
         }
     }

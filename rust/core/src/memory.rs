@@ -157,18 +157,32 @@ pub fn try_filled<T: Clone>(len: usize, value: T, what: &str) -> CoreResult<Vec<
 /// [`CoreError::TooLarge`] when the request exceeds the available memory or the
 /// allocator refuses it.
 pub fn try_with_capacity<T>(len: usize, what: &str) -> CoreResult<Vec<T>> {
+    let mut v = Vec::new();
+    try_reserve_for(&mut v, len, what)?;
+    Ok(v)
+}
+
+/// Room for `len` elements in the empty or short vector `v` (nothing when it has it
+/// already), allocated fallibly (see [`try_filled`]).
+///
+/// # Errors
+/// [`CoreError::TooLarge`] when the request exceeds the available memory or the
+/// allocator refuses it.
+pub fn try_reserve_for<T>(v: &mut Vec<T>, len: usize, what: &str) -> CoreResult<()> {
+    if v.capacity() >= len {
+        return Ok(());
+    }
     let bytes = len as u128 * std::mem::size_of::<T>().max(1) as u128;
     ensure_room(bytes, what)?;
-    let mut v = Vec::new();
-    v.try_reserve_exact(len).map_err(|_| CoreError::TooLarge {
-        what: format!(
-            "{what} (bytes); the allocator refused it (an address-space or container memory \
+    v.try_reserve_exact(len - v.len())
+        .map_err(|_| CoreError::TooLarge {
+            what: format!(
+                "{what} (bytes); the allocator refused it (an address-space or container memory \
              limit is likely): use a smaller sector or cutoffs, or a method that stores less"
-        ),
-        requested: bytes,
-        limit: available_bytes().unwrap_or(UNKNOWN_LIMIT),
-    })?;
-    Ok(v)
+            ),
+            requested: bytes,
+            limit: available_bytes().unwrap_or(UNKNOWN_LIMIT),
+        })
 }
 
 #[cfg(test)]
