@@ -10,6 +10,9 @@ one table row with the load average (``uptime``) measured right before it.
     python benchmarks/bench_lindblad.py --driven
         # the driven 4x3, 5x3, 6x3 stationary states (one block of D x D) and one
         # Liouvillian application, earlier Python path against the native product
+    python benchmarks/bench_lindblad.py --pumped
+        # the lossy, pumped chain (number-sector blocks) of 6, 7 and 8 sites of cutoff 3
+        # with an 8 GiB memory limit: the largest that fits
     python benchmarks/bench_lindblad.py --workers SITES CUTOFF COUNT
         # COUNT trajectories serially, on a process pool and on a local Dask cluster of
         # 1 and 2 single-threaded worker processes (needs fockmill[cluster])
@@ -24,6 +27,7 @@ import time
 
 import fockmill as fm
 import numpy as np
+from fockmill.exceptions import SizeLimitError
 
 sys.path.insert(0, os.path.dirname(__file__))
 from _common import table
@@ -169,6 +173,70 @@ def driven_table() -> None:
     print_table(APPLY_HEADERS, rows)
 
 
+def pumped_in_budget(sites: int, cutoff: int, restart: int) -> list[str]:
+    """The lossy, pumped chain (number-sector blocks) with ``memory_limit`` = 8 GiB: the
+    solve plans its vectors against it (refused up front when they do not fit); the peak
+    resident memory of the whole process is reported beside it."""
+    import resource
+
+    space = fm.FockSpace(modes=sites, cutoff=cutoff)
+    h = chain(sites, 0.0)
+    jumps = [fm.loss(i, KAPPA) for i in range(sites)] + [fm.pump(0, PUMP)]
+    before = load()
+    t0 = time.perf_counter()
+    try:
+        ss = fm.stationary_state(
+            h, space, jumps, tol=1e-8, restart=restart, memory_limit=BUDGET_BYTES
+        )
+    except SizeLimitError as exc:
+        return [
+            f"{sites}x{cutoff}",
+            f"{space.dim:,}",
+            "-",
+            "-",
+            "-",
+            "-",
+            "-",
+            f"refused: {exc}",
+            before,
+        ]
+    seconds = time.perf_counter() - t0
+    peak = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss * 1024
+    n = sum(b.shape[0] ** 2 for b in ss.blocks)
+    return [
+        f"{sites}x{cutoff}",
+        f"{space.dim:,}",
+        f"{n:,}",
+        ss.method,
+        str(ss.iterations),
+        f"{seconds:.1f}",
+        f"{peak / 2**30:.2f}",
+        f"{ss.residual:.1e}",
+        before,
+    ]
+
+
+BUDGET_BYTES = 8 * 2**30
+PUMPED_HEADERS = [
+    "sites x cutoff",
+    "states",
+    "unknowns Σd²",
+    "method",
+    "iterations",
+    "seconds",
+    "peak GiB",
+    "‖𝓛ρ‖",
+    "load before",
+]
+
+
+def pumped_table() -> None:
+    """The largest lossy, pumped chain whose stationary state fits in 8 GiB."""
+    print(f"fockmill {fm.__version__}, {os.cpu_count()} cores, load at start {os.getloadavg()}")
+    cases = [["pumped8", "6", "3", "40"], ["pumped8", "7", "3", "12"], ["pumped8", "8", "3", "4"]]
+    print_table(PUMPED_HEADERS, [run(c, 9) for c in cases])
+
+
 def trajectories(sites: int, cutoff: int, count: int, workers: int | str) -> list[str]:
     """``workers``: 0 serial, N a process pool of N, ``"daskN"`` a local Dask cluster of N
     single-threaded worker processes (started before the clock starts)."""
@@ -282,10 +350,15 @@ def main() -> None:
     if sys.argv[1:] == ["--driven"]:
         driven_table()
         return
+    if sys.argv[1:] == ["--pumped"]:
+        pumped_table()
+        return
     if len(sys.argv) > 1 and not only_trajectories:
         case, *rest = sys.argv[1:]
         if case == "stationary":
             row = stationary(rest[0], int(rest[1]), int(rest[2]), *rest[3:])
+        elif case == "pumped8":
+            row = pumped_in_budget(int(rest[0]), int(rest[1]), int(rest[2]))
         elif case == "apply":
             row = apply_once(int(rest[0]), int(rest[1]))
         elif case == "--workers":

@@ -158,9 +158,15 @@ def _decompose(m: npt.NDArray[np.complex128], scale: float) -> tuple[Any, Any, A
         w, v = np.linalg.eigh(herm.real)
         return w + 1j * beta, v, v.T, True
     lam, v = sla.eig(m)
-    if np.linalg.cond(v) > MAX_CONDITION:
+    try:
+        vi = np.linalg.inv(v)
+    except np.linalg.LinAlgError:
         return None
-    return lam, v, np.linalg.inv(v), False
+    # The 1-norm condition number from the inverse made anyway (the 2-norm one would
+    # take a singular value decomposition as costly as the eigendecomposition).
+    if np.linalg.norm(v, 1) * np.linalg.norm(vi, 1) > MAX_CONDITION:
+        return None
+    return lam, v, vi, False
 
 
 def _block(
@@ -243,15 +249,29 @@ def sector_sylvester(
     scale_k = max((float(np.max(np.abs(k.data), initial=0.0)) for k in ks), default=1.0)
     blocks: list[_Block] = []
     denominators = []
+    workers = max(1, int(getattr(liou.pool, "threads", 0) or _native_threads()))
+    runner = ThreadPoolExecutor(max_workers=workers) if workers > 1 else None
+    # The blocks' decompositions, largest first, on the runner's threads (LAPACK
+    # releases the interpreter); each is one call whatever the thread count.
+    biggest_first = sorted(range(len(ks)), key=lambda b: -ks[b].shape[0])
+
+    def decompose(b: int) -> tuple[_Block, npt.NDArray[np.complex128]] | None:
+        return _block(ks[b], _charges(liou, b), scale_k)
+
     with blas_threads(1):
-        for b, k in enumerate(ks):
-            charges = _charges(liou, b)
-            made = _block(k, charges, scale_k)
-            if made is None:
-                return None
-            blk, denom = made
-            blocks.append(blk)
-            denominators.append(denom)
+        done = (
+            list(runner.map(decompose, biggest_first))
+            if runner
+            else [decompose(b) for b in biggest_first]
+        )
+    made_by_block = dict(zip(biggest_first, done, strict=True))
+    for b in range(len(ks)):
+        made = made_by_block[b]
+        if made is None:
+            return None
+        blk, denom = made
+        blocks.append(blk)
+        denominators.append(denom)
     feeds = _feeds(liou, blocks, chans)
     real = all(blk.real for blk in blocks) and all(
         np.all(piece.data.imag == 0) for f in feeds for _s2, piece in f.pieces.values()
@@ -282,8 +302,6 @@ def sector_sylvester(
     # calls whatever the thread count (so the result does not depend on it), and on a
     # shared machine two-threaded BLAS was 10-17 times slower than one thread in these
     # products (measured at 5 × 3).
-    workers = max(1, int(getattr(liou.pool, "threads", 0) or _native_threads()))
-    runner = ThreadPoolExecutor(max_workers=workers) if workers > 1 else None
 
     # One output array for every application (the solver consumes each result before
     # the next call): a fresh d²-sized array per call cost more than its fill here.
