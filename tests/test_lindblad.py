@@ -344,7 +344,7 @@ def test_sector_preconditioner_inverts_the_lossy_number_conserving_part(
         h, space, [fm.loss(i, g) for i, g in enumerate(rates)], split_sectors=False
     )
     assert liou.sectors is None and liou.dims == [27]
-    solve, _scale, orders = sector_sylvester(liou)
+    solve, _scale, orders, _single = sector_sylvester(liou)
     product = liou.native_in_order(orders)
     rng = np.random.default_rng(7)
     a = rng.standard_normal((27, 27)) + 1j * rng.standard_normal((27, 27))
@@ -413,6 +413,30 @@ def test_gmres_against_a_dense_solve_with_restarts() -> None:
         and rel == pytest.approx(np.linalg.norm(b - a @ _x) / np.linalg.norm(b), rel=1e-12)
         and rel > 1e-12
     )
+
+
+def test_flexible_gmres_with_a_preconditioner_that_changes_between_calls() -> None:
+    # Flexible GMRES (Saad 1993) keeps z_j = M_j⁻¹ v_j, so it stays exact when each call
+    # of the preconditioner is a different map (here a random scale, as rounding in
+    # single precision is in small); checked against numpy's dense solve.
+    from fockmill.lindblad.gmres import gmres
+
+    rng = np.random.default_rng(5)
+    n = 40
+    a = np.eye(n) * 3 + rng.standard_normal((n, n)) / np.sqrt(n)
+    b = rng.standard_normal(n)
+    x, _its, rel = gmres(
+        lambda v, out: np.matmul(a, v, out=out),
+        b,
+        np.zeros(n),
+        precondition=lambda v: v * (0.2 + 0.2 * rng.random()),
+        rtol=1e-12,
+        restart=50,
+        max_iterations=n + 5,  # one cycle: a non-flexible update would miss
+        flexible=True,
+    )
+    assert rel <= 1e-12
+    np.testing.assert_allclose(x, np.linalg.solve(a, b), rtol=1e-9)
 
 
 # -- the native Liouvillian product against the Lindblad form ---------------------------

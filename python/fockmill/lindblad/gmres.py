@@ -39,6 +39,7 @@ def gmres(
     restart: int,
     max_iterations: int,
     callback: Callable[[float], None] | None = None,
+    flexible: bool = False,
 ) -> tuple[Vector, int, float]:
     """Solve ``A x = b`` (real) to ``‖b − A x‖ ≤ rtol ‖b‖``.
 
@@ -59,6 +60,11 @@ def gmres(
         Products with ``A`` the inner iterations may use in all.
     callback : callable, optional
         Called after each inner iteration with the estimated relative residual.
+    flexible : bool
+        Keep every preconditioned vector ``z_j = M⁻¹ v_j`` and update ``x`` from them
+        (flexible GMRES, Saad, SIAM J. Sci. Comput. 14, 461 (1993), cited from memory):
+        right for a preconditioner that is not exactly the same linear map at every
+        call (rounding in single precision), at twice the vectors' memory.
 
     Returns
     -------
@@ -76,6 +82,7 @@ def gmres(
     lartg = get_lapack_funcs("lartg", dtype=np.float64)
     m = max(1, min(restart, n))
     basis = _plain_pages((m + 1, n))
+    images = _plain_pages((m, n)) if flexible else None
     iterations = 0
     r = _residual(apply, b, x)
     rnorm = float(dnrm2(r))
@@ -89,7 +96,12 @@ def gmres(
         del r
         cols = 0
         for j in range(m):
-            apply(precondition(basis[j]), basis[j + 1])
+            z = precondition(basis[j])
+            if images is not None:
+                images[j] = z
+                z = images[j]
+            apply(z, basis[j + 1])
+            del z
             h, norm = _orthogonalise(basis[: j + 1], basis[j + 1])
             hess[: j + 1, j] = h
             hess[j + 1, j] = norm
@@ -111,7 +123,10 @@ def gmres(
             basis[j + 1] *= 1.0 / norm
         y = _upper_solve(hess[:cols, :cols], rhs[:cols])
         # x += M⁻¹ (V y): the combination as one product with the basis.
-        x += precondition(dgemv(1.0, basis[:cols].T, y))
+        if images is not None:
+            x += dgemv(1.0, images[:cols].T, y)
+        else:
+            x += precondition(dgemv(1.0, basis[:cols].T, y))
         r = _residual(apply, b, x)
         rnorm = float(dnrm2(r))
     return x, iterations, rnorm / bnorm

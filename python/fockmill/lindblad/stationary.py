@@ -259,9 +259,13 @@ def _solve_sparse(liou: Liouvillian) -> list[Any]:
     return _blocks_from_vec(liou, x)
 
 
-def _preconditioner(liou: Liouvillian, choice: str) -> tuple[Any, float, str, Any]:
+def _preconditioner(
+    liou: Liouvillian, choice: str, single_precision: bool = False
+) -> tuple[Any, float, str, Any, bool]:
     """``x -> M⁻¹ x`` on the real form of Hermitian blocks, the Liouvillian's scale,
-    the kind used and the order of each block's states it works in (None: as given).
+    the kind used, the order of each block's states it works in (None: as given) and
+    whether it runs in single precision (``single_precision`` allows it for the sector
+    preconditioner; the solver must then be flexible).
 
     ``"sylvester"`` inverts the no-jump part ``ρ -> −i(Kρ − ρK†)`` exactly on each block
     from the eigendecomposition ``K = V Λ V⁻¹`` (``X = V [(V⁻¹ Y V⁻†) / (−i(λ_i − λ̄_j))]
@@ -288,9 +292,9 @@ def _preconditioner(liou: Liouvillian, choice: str) -> tuple[Any, float, str, An
         else:
             choice = "diagonal"
     if choice == "sectors":
-        made = sector_sylvester(liou)
+        made = sector_sylvester(liou, single_precision)
         if made is not None:
-            return made[0], made[1], "sectors", made[2]
+            return made[0], made[1], "sectors", made[2], made[3]
         choice = "diagonal"  # a (nearly) defective sector: no stable inverse
     if choice == "sylvester":
         ks, _chans = liou.sparse_matrices()
@@ -311,7 +315,7 @@ def _preconditioner(liou: Liouvillian, choice: str) -> tuple[Any, float, str, An
                 out.append(v @ ((vi @ y @ vi.conj().T) / d) @ v.conj().T)
             return liou.to_real(out)
 
-        return sylvester, scale, "sylvester", None
+        return sylvester, scale, "sylvester", None, False
     if choice != "diagonal":
         raise ValueError(
             f"preconditioner must be 'auto', 'sylvester', 'sectors' or 'diagonal'; got {choice!r}"
@@ -329,7 +333,7 @@ def _preconditioner(liou: Liouvillian, choice: str) -> tuple[Any, float, str, An
         blocks = liou.from_real(np.asarray(x).reshape(-1))
         return liou.to_real([b / p for b, p in zip(blocks, precond, strict=True)])
 
-    return jacobi, scale, "diagonal", None
+    return jacobi, scale, "diagonal", None, False
 
 
 def _solve_iterative(
@@ -340,6 +344,7 @@ def _solve_iterative(
     guess: Any,
     preconditioner: str = "auto",
     reporter: Progress | None = None,
+    room_for_images: bool = False,
 ) -> tuple[list[Any], int, str]:
     from fockmill.lindblad.gmres import gmres
 
@@ -348,7 +353,9 @@ def _solve_iterative(
     # E = I / D (Hermitian, trace one) scaled like the Liouvillian.
     e_blocks = [np.eye(d, dtype=np.complex128) / dtotal for d in dims]
     e = liou.to_real(e_blocks)
-    solve_precond, scale, kind, orders = _preconditioner(liou, preconditioner)
+    solve_precond, scale, kind, orders, single = _preconditioner(
+        liou, preconditioner, single_precision=room_for_images
+    )
     product = liou.native() if orders is None else liou.native_in_order(orders)
 
     # E is a multiple of the identity: the trace term touches the diagonal entries only.
@@ -360,7 +367,11 @@ def _solve_iterative(
         product.apply_real(x, threads=liou.pool, out=out)
         out[diagonal] += (scale * trace) * e[diagonal]
 
-    x0 = e if guess is None else _reorder(liou, liou.to_real(guess), orders)
+    x0 = (
+        solve_precond(scale * e).copy()
+        if guess is None
+        else _reorder(liou, liou.to_real(guess), orders)
+    )
     count = 0
 
     def callback(res: float) -> None:
@@ -378,6 +389,7 @@ def _solve_iterative(
         restart=restart,
         max_iterations=max_iterations,
         callback=callback,
+        flexible=single,
     )
     if rel > tol:
         raise ConvergenceError(
@@ -543,6 +555,11 @@ def stationary_state(
             f"the dense Liouvillian of {liou.size:,} × {liou.size:,} entries needs "
             f"{3 * 16 * liou.size**2 / 2**30:.2f} GiB; use method='iterative'"
         )
+    # The flexible solve (single-precision sector preconditioner) keeps twice the
+    # vectors: allowed only when they fit.
+    room_for_images = (
+        budget is None or 8 * liou.size * (2 * restart + 8) + 16 * liou.size * 6 <= 0.8 * budget
+    )
     if chosen == "iterative" and budget is not None:
         need = 8 * liou.size * (restart + 8) + 16 * liou.size * 6
         if need > 0.8 * budget:
@@ -560,7 +577,14 @@ def stationary_state(
             blocks = _solve_sparse(liou)
         else:
             blocks, iterations, used = _solve_iterative(
-                liou, float(tol), max_iterations, restart, guess, preconditioner, reporter
+                liou,
+                float(tol),
+                max_iterations,
+                restart,
+                guess,
+                preconditioner,
+                reporter,
+                room_for_images,
             )
             chosen = f"iterative ({used})"
         blocks = _normalised(liou, blocks)
