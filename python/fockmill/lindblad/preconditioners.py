@@ -49,6 +49,9 @@ __all__ = ["sector_sizes", "sector_sylvester"]
 NORMAL_TOL = 1e-12
 #: Eigenvector matrices with a larger condition number make the inverse unstable.
 MAX_CONDITION = 1e10
+#: A sector pair with at least this many entries has its dense products on every thread
+#: when it is alone in its level (smaller ones were slower with threaded BLAS).
+LARGE_PAIR = 800 * 800
 
 
 @dataclass
@@ -312,9 +315,10 @@ def sector_sylvester(
 
     # The pairs of one level run on `workers` threads of single-threaded BLAS (numpy and
     # scipy's sparse products release the interpreter): each pair is one sequence of
-    # calls whatever the thread count (so the result does not depend on it), and on a
-    # shared machine two-threaded BLAS was 10-17 times slower than one thread in these
-    # products (measured at 5 × 3).
+    # calls whatever the thread count, and on a shared machine two-threaded BLAS was
+    # 10-17 times slower than one thread in these products (measured at 5 × 3). A level
+    # of one pair (blocks that are number sectors: the levels follow each other) gets
+    # multi-threaded BLAS instead.
 
     # One output array for every application (the solver consumes each result before
     # the next call): a fresh d²-sized array per call cost more than its fill here.
@@ -341,12 +345,16 @@ def sector_sylvester(
         def pair(task: tuple[int, int, int]) -> None:
             _solve_pair(task, blocks, incoming[task[0]], given, solved, real)
 
-        with blas_threads(1):
-            for level in levels:
-                if runner is None or len(level) == 1:
+        for level in levels:
+            if runner is None or len(level) == 1:
+                # One pair (each block a number sector): a large one's products on all
+                # threads.
+                large = max(_pair_size(blocks[b], s, t) for b, s, t in level) >= LARGE_PAIR
+                with blas_threads(workers if large else 1):
                     for task in level:
                         pair(task)
-                else:
+            else:
+                with blas_threads(1):
                     list(runner.map(pair, level))
         if not real:
             start = 0
