@@ -30,8 +30,10 @@ DENSE_MAX = 900
 #: this many states; the diagonal one beyond.
 SYLVESTER_MAX_DIM = 600
 #: The sector Sylvester preconditioner (see ``fockmill.lindblad.preconditioners``) for
-#: larger blocks while every number sector inside them has at most this many states.
-SECTORS_MAX_DIM = 2000
+#: larger blocks while every number sector inside them has at most this many states (an
+#: eigendecomposition of 2,128 states, the largest sector of 7 modes of cutoff 3, takes
+#: about 20 s on one core; the diagonal preconditioner needs hundreds of iterations).
+SECTORS_MAX_DIM = 3000
 #: Singular values below this fraction of the largest count as zero (dense method).
 NULL_TOL = 1e-9
 
@@ -466,7 +468,7 @@ def stationary_state(
         number, solved sector pair by sector pair from the top down;
         ``"diagonal"`` divides by the Liouvillian's diagonal. ``"auto"``: Sylvester
         for one block (no number-sector split) of at most 600 states, else sectors
-        while every number sector has at most 2000, else diagonal.
+        while every number sector has at most 3000, else diagonal.
     threads, memory_limit
         As for :func:`fockmill.prepare`.
     jump_cache : dict, optional
