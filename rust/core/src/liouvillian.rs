@@ -851,6 +851,43 @@ mod tests {
         blocks.iter().flat_map(|b| b.iter().flatten().copied()).collect()
     }
 
+    /// `Re z + Im z` of every entry: the real form of Hermitian blocks.
+    fn real_form(z: &[Complex64]) -> Vec<f64> {
+        z.iter().map(|z| z.re + z.im).collect()
+    }
+
+    /// Random Hermitian blocks `(A + A†)/2` of the given sizes.
+    fn hermitian_blocks(dims: &[usize], seed: u64) -> Vec<Dense> {
+        dims.iter()
+            .enumerate()
+            .map(|(b, &d)| {
+                let a = random_dense(d, d, seed + b as u64, 1.0);
+                let ad = dagger(&a);
+                a.iter()
+                    .zip(&ad)
+                    .map(|(r, s)| r.iter().zip(s).map(|(x, y)| (x + y) * 0.5).collect())
+                    .collect()
+            })
+            .collect()
+    }
+
+    /// The product of dense `K_b` and channels `(rate, jump, source, target)`.
+    fn product_from(k: &[Dense], chans: &[DenseChannel], dims: &[usize]) -> LiouvillianProduct {
+        LiouvillianProduct::new(
+            k.iter().zip(dims).map(|(m, &d)| to_sparse(m, d)).collect(),
+            chans
+                .iter()
+                .map(|(rate, j, s, t)| Channel {
+                    rate: *rate,
+                    jump: to_sparse(j, dims[*s]),
+                    source: *s,
+                    target: *t,
+                })
+                .collect(),
+        )
+        .unwrap()
+    }
+
     fn case() -> (LiouvillianProduct, Vec<Dense>, Vec<DenseChannel>) {
         let dims = [5usize, 7, 3];
         let k: Vec<Dense> = dims
@@ -864,19 +901,7 @@ mod tests {
             (0.2, random_dense(7, 7, 3, 0.3), 1, 1),
             (0.9, random_dense(5, 3, 4, 0.6), 2, 0),
         ];
-        let product = LiouvillianProduct::new(
-            k.iter().zip(dims).map(|(m, d)| to_sparse(m, d)).collect(),
-            chans
-                .iter()
-                .map(|(rate, j, s, t)| Channel {
-                    rate: *rate,
-                    jump: to_sparse(j, dims[*s]),
-                    source: *s,
-                    target: *t,
-                })
-                .collect(),
-        )
-        .unwrap();
+        let product = product_from(&k, &chans, &dims);
         (product, k, chans)
     }
 
@@ -906,20 +931,8 @@ mod tests {
     fn real_form_matches_the_complex_product_and_thread_counts_agree() {
         let (product, _k, _chans) = case();
         // Hermitian blocks and their real form Re ρ + Im ρ.
-        let rho: Vec<Dense> = product
-            .dims()
-            .iter()
-            .enumerate()
-            .map(|(b, &d)| {
-                let a = random_dense(d, d, 200 + b as u64, 1.0);
-                let ad = dagger(&a);
-                a.iter()
-                    .zip(&ad)
-                    .map(|(r, s)| r.iter().zip(s).map(|(x, y)| (x + y) * 0.5).collect())
-                    .collect()
-            })
-            .collect();
-        let x: Vec<f64> = flat(&rho).iter().map(|z| z.re + z.im).collect();
+        let rho = hermitian_blocks(product.dims(), 200);
+        let x = real_form(&flat(&rho));
         let mut full = vec![c(0.0, 0.0); product.size()];
         let runner = Runner::with_threads(Some(2)).unwrap();
         product
@@ -976,40 +989,12 @@ mod tests {
             (0.3, real(random_dense(6, 6, 6, 0.3)), 0, 0),
             (1.1, real(random_dense(6, 4, 7, 0.5)), 1, 0),
         ];
-        let make = |chans: &[DenseChannel]| {
-            LiouvillianProduct::new(
-                k.iter().zip(dims).map(|(m, d)| to_sparse(m, d)).collect(),
-                chans
-                    .iter()
-                    .map(|(rate, j, s, t)| Channel {
-                        rate: *rate,
-                        jump: to_sparse(j, dims[*s]),
-                        source: *s,
-                        target: *t,
-                    })
-                    .collect(),
-            )
-            .unwrap()
-        };
+        let make = |chans: &[DenseChannel]| product_from(&k, chans, &dims);
         let product = make(&chans);
         assert!(product.real_arithmetic());
-        let rho: Vec<Dense> = dims
-            .iter()
-            .enumerate()
-            .map(|(b, &d)| {
-                let a = random_dense(d, d, 300 + b as u64, 1.0);
-                let ad = dagger(&a);
-                a.iter()
-                    .zip(&ad)
-                    .map(|(r, s)| r.iter().zip(s).map(|(x, y)| (x + y) * 0.5).collect())
-                    .collect()
-            })
-            .collect();
-        let expect: Vec<f64> = flat(&dense_reference(&k, &chans, &rho))
-            .iter()
-            .map(|z| z.re + z.im)
-            .collect();
-        let x: Vec<f64> = flat(&rho).iter().map(|z| z.re + z.im).collect();
+        let rho = hermitian_blocks(&dims, 300);
+        let expect = real_form(&flat(&dense_reference(&k, &chans, &rho)));
+        let x = real_form(&flat(&rho));
         let mut first: Option<Vec<f64>> = None;
         for threads in [1, 2, 3] {
             let runner = Runner::with_threads(Some(threads)).unwrap();
@@ -1072,39 +1057,13 @@ mod tests {
                     .collect()
             })
             .collect();
-        let product = LiouvillianProduct::new(
-            k.iter().zip(dims).map(|(m, d)| to_sparse(m, d)).collect(),
-            chans
-                .iter()
-                .map(|(rate, j, s, t)| Channel {
-                    rate: *rate,
-                    jump: to_sparse(j, dims[*s]),
-                    source: *s,
-                    target: *t,
-                })
-                .collect(),
-        )
-        .unwrap();
+        let product = product_from(&k, &chans, &dims);
         let real = product.real.as_ref().expect("real arithmetic");
         assert!(real.decay_diagonals.iter().all(Option::is_some));
         assert!(real.jump_rows.iter().all(Option::is_some));
-        let rho: Vec<Dense> = dims
-            .iter()
-            .enumerate()
-            .map(|(b, &d)| {
-                let a = random_dense(d, d, 400 + b as u64, 1.0);
-                let ad = dagger(&a);
-                a.iter()
-                    .zip(&ad)
-                    .map(|(r, s)| r.iter().zip(s).map(|(x, y)| (x + y) * 0.5).collect())
-                    .collect()
-            })
-            .collect();
-        let expect: Vec<f64> = flat(&dense_reference(&k, &chans, &rho))
-            .iter()
-            .map(|z| z.re + z.im)
-            .collect();
-        let x: Vec<f64> = flat(&rho).iter().map(|z| z.re + z.im).collect();
+        let rho = hermitian_blocks(&dims, 400);
+        let expect = real_form(&flat(&dense_reference(&k, &chans, &rho)));
+        let x = real_form(&flat(&rho));
         let mut y = vec![0.0; product.size()];
         let mut work = Vec::new();
         for _ in 0..2 {
