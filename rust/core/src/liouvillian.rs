@@ -514,8 +514,9 @@ impl LiouvillianProduct {
             let h = &real.hamiltonians[b];
             let w = &mut commutator[..d * d];
             runner.for_matrix_rows(w, d, interrupt, |first, rows| {
+                rows.fill(0.0);
                 for (k, row) in rows.chunks_mut(d).enumerate() {
-                    commutator_row(h, xb, d, first + k, row);
+                    add_products_row(h, xb, d, first + k, 1.0, -1.0, row);
                 }
                 Ok(())
             })?;
@@ -556,7 +557,7 @@ impl LiouvillianProduct {
                 *o -= 0.5 * (gi + gj) * v;
             }
         } else {
-            real_decay_row(&real.decays[b], xb, d, i, out);
+            add_products_row(&real.decays[b], xb, d, i, -0.5, -0.5, out);
         }
         for &c in &self.incoming[b] {
             let ch = &self.channels[c];
@@ -677,43 +678,26 @@ impl LiouvillianProduct {
     }
 }
 
-/// Adds row `i` of `−½{Γ, X}` (`d × d`, `Γ` real symmetric) to `out`: rows of `X`
-/// combined for `ΓX`, row `i` of `X` dotted with the rows of `Γ` for `XΓ`.
-fn real_decay_row(g: &RealSparse, xb: &[f64], d: usize, i: usize, out: &mut [f64]) {
-    let (cols, vals) = g.row(i);
-    for (&c, &v) in cols.iter().zip(vals) {
-        let src = &xb[c as usize * d..(c as usize + 1) * d];
-        for (o, &r) in out.iter_mut().zip(src) {
-            *o -= 0.5 * v * r;
-        }
-    }
-    let xi = &xb[i * d..(i + 1) * d];
-    for (j, o) in out.iter_mut().enumerate() {
-        let (cols, vals) = g.row(j);
-        if cols.is_empty() {
-            continue;
-        }
-        let acc: f64 = cols.iter().zip(vals).map(|(&c, &v)| xi[c as usize] * v).sum();
-        *o -= 0.5 * acc;
-    }
-}
-
-/// Row `i` of `[H, X] = HX − XH` (`d × d`, `H` real symmetric): rows of `X` combined,
-/// then row `i` of `X` dotted with the rows of `H`.
-fn commutator_row(h: &RealSparse, x: &[f64], d: usize, i: usize, out: &mut [f64]) {
-    out.fill(0.0);
-    let (cols, vals) = h.row(i);
+/// Adds row `i` of `left · MX + right · XM` (`d × d`, `M` real symmetric) to `out`:
+/// rows of `X` combined for `MX`, row `i` of `X` dotted with the rows of `M` for `XM`.
+/// The commutator is `(1, −1)`, the decay's anticommutator `(−½, −½)`.
+fn add_products_row(m: &RealSparse, x: &[f64], d: usize, i: usize, left: f64, right: f64, out: &mut [f64]) {
+    let (cols, vals) = m.row(i);
     for (&c, &v) in cols.iter().zip(vals) {
         let src = &x[c as usize * d..(c as usize + 1) * d];
+        let w = left * v;
         for (o, &r) in out.iter_mut().zip(src) {
-            *o += v * r;
+            *o += w * r;
         }
     }
     let xi = &x[i * d..(i + 1) * d];
     for (j, o) in out.iter_mut().enumerate() {
-        let (cols, vals) = h.row(j);
+        let (cols, vals) = m.row(j);
+        if cols.is_empty() {
+            continue;
+        }
         let acc: f64 = cols.iter().zip(vals).map(|(&c, &v)| xi[c as usize] * v).sum();
-        *o -= acc;
+        *o += right * acc;
     }
 }
 
