@@ -115,7 +115,7 @@ impl<S: Scalar> Between<S> {
         let mut lookup: std::collections::HashMap<Monomial, usize> = std::collections::HashMap::new();
         for t in terms {
             let mut factors: Vec<(usize, u32, u32)> =
-                t.factors.iter().copied().filter(|f| f.1 + f.2 > 0).collect();
+                t.factors.iter().copied().filter(|f| f.1 > 0 || f.2 > 0).collect();
             factors.sort_unstable();
             let name = format_monomial(&factors);
             if !t.re.is_finite() || !t.im.is_finite() {

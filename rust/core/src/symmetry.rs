@@ -343,7 +343,7 @@ pub fn labels_of_terms(
     let mut merged: Vec<(Monomial, Complex64)> = Vec::new();
     let mut at: HashMap<Monomial, usize> = HashMap::new();
     for t in terms {
-        let mut m: Monomial = t.factors.iter().copied().filter(|f| f.1 + f.2 > 0).collect();
+        let mut m: Monomial = t.factors.iter().copied().filter(|f| f.1 > 0 || f.2 > 0).collect();
         m.sort_unstable();
         let c = Complex64::new(t.re, t.im);
         match at.get(&m) {

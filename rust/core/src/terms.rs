@@ -106,7 +106,7 @@ impl<S: Scalar> Operator<S> {
                 )));
             }
             let mut factors: Vec<(usize, u32, u32)> =
-                t.factors.iter().copied().filter(|f| f.1 + f.2 > 0).collect();
+                t.factors.iter().copied().filter(|f| f.1 > 0 || f.2 > 0).collect();
             factors.sort_unstable();
             for w in factors.windows(2) {
                 if w[0].0 == w[1].0 {
@@ -343,6 +343,18 @@ mod tests {
         assert_eq!(format_monomial(&[(0, 2, 1), (3, 1, 0)]), "a0†^2 a3† a0");
         assert_eq!(format_monomial(&[(0, 0, 1), (1, 1, 0)]), "a1† a0");
         assert_eq!(format_monomial(&[]), "1");
+    }
+
+    #[test]
+    fn huge_powers_are_refused_not_overflowed() {
+        // Found by the fuzz test: powers of 2³¹ on both sides (their sum overflows u32).
+        let space = FockSpace::new(vec![1], None, None, None).unwrap();
+        let big = 1u32 << 31;
+        let terms = [RawTerm::new(1.0, 0.0, vec![(0, 0, 0), (0, 0, 0), (0, big, big)])];
+        let e = Operator::<f64>::new(&space, &terms).unwrap_err();
+        assert!(e.to_string().contains("power above"), "{e}");
+        let terms = [RawTerm::new(1.0, 0.0, vec![(0, u32::MAX, u32::MAX)])];
+        assert!(Operator::<f64>::new(&space, &terms).is_err());
     }
 
     #[test]
