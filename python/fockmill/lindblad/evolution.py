@@ -12,6 +12,7 @@ import numpy.typing as npt
 
 from fockmill.dynamics.krylov import as_float_array
 from fockmill.exceptions import ConvergenceError
+from fockmill.lindblad.integrator import runge_kutta_8
 from fockmill.lindblad.liouvillian import (
     Liouvillian,
     block_observable,
@@ -159,8 +160,6 @@ def evolve_density(
     >>> np.round(ev.values["n"], 6).tolist()           # 3 e^{−γt}
     [3.0, 1.819592]
     """
-    from scipy.integrate import DOP853
-
     t_start = time.perf_counter()
     if rho0 is None or times is None or jumps is None:
         raise TypeError("evolve_density needs rho0=, times= and jumps=")
@@ -212,23 +211,23 @@ def evolve_density(
     reporter = make_progress(progress, "evolve_density", total=float(t[-1]), unit="time")
     try:
         if k < t.size:
-            solver = DOP853(rhs, 0.0, x, float(t[-1]), rtol=tol, atol=tol)
-            while k < t.size:
-                message = solver.step()
-                if solver.status == "failed":
-                    raise ConvergenceError(
-                        f"the integrator failed at t = {solver.t:.6g}: {message}"
-                    )
-                steps += 1
-                if k < t.size and t[k] <= solver.t:
-                    dense = solver.dense_output()
-                    while k < t.size and t[k] <= solver.t:
-                        record(solver.y if t[k] == solver.t else dense(float(t[k])))
-                        k += 1
-                if reporter is not None:
-                    reporter.update(step=steps, products=solver.nfev, time_reached=solver.t)
-            evaluations = solver.nfev
-            x = solver.y
+            with runge_kutta_8(rhs, 0.0, x, float(t[-1]), tol) as solver:
+                while k < t.size:
+                    message = solver.step()
+                    if solver.status == "failed":
+                        raise ConvergenceError(
+                            f"the integrator failed at t = {solver.t:.6g}: {message}"
+                        )
+                    steps += 1
+                    if k < t.size and t[k] <= solver.t:
+                        dense = solver.dense_output()
+                        while k < t.size and t[k] <= solver.t:
+                            record(solver.y if t[k] == solver.t else dense(float(t[k])))
+                            k += 1
+                    if reporter is not None:
+                        reporter.update(step=steps, products=solver.nfev, time_reached=solver.t)
+                evaluations = solver.nfev
+                x = solver.y
     finally:
         if reporter is not None:
             reporter.close()

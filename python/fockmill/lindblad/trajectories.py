@@ -26,6 +26,7 @@ from fockmill.algebra.expressions import as_expr
 from fockmill.dynamics.krylov import check_state, expectation_function, hermitian_map
 from fockmill.exceptions import ChargeError, ConvergenceError
 from fockmill.lindblad.evolution import check_times
+from fockmill.lindblad.integrator import runge_kutta_8
 from fockmill.lindblad.jumps import Jump, check_jumps
 from fockmill.problem.problem import Problem, as_problem, prepare_observables
 from fockmill.settings.checks import check_positive_int
@@ -128,8 +129,6 @@ class _Runner:
             return self._run(index)
 
     def _run(self, index: int) -> tuple[dict[str, npt.NDArray[np.complex128]], int]:
-        from scipy.integrate import DOP853
-
         task = self.task
         t = task.times
         rng = np.random.default_rng(np.random.SeedSequence(task.seed, spawn_key=(index,)))
@@ -151,48 +150,50 @@ class _Runner:
         t_end = float(t[-1])
         threshold = rng.random()
         while k < t.size:
-            solver = DOP853(self.rhs, now, psi, t_end, rtol=task.tol, atol=task.tol)
             jumped = False
-            while solver.status == "running":
-                message = solver.step()
-                if solver.status == "failed":
-                    raise ConvergenceError(f"trajectory {index}: the integrator failed: {message}")
-                t_old, t_new = solver.t_old, solver.t
-                norm_new = float(np.vdot(solver.y, solver.y).real)
-                jumps_here = norm_new < threshold
-                if not jumps_here and not (k < t.size and t[k] < t_new):
-                    # Nothing to interpolate in this step: the dense output (extra
-                    # stages and long-vector work, 40% of a trajectory) is not built.
-                    while k < t.size and t[k] == t_new:
-                        record(solver.y)
-                    continue
-                dense = solver.dense_output()
-                t_jump = math.inf
-                if jumps_here:
-                    t_jump = _crossing(dense, threshold, t_old, t_new)
-                while k < t.size and t[k] <= min(t_new, t_jump):
-                    record(solver.y if t[k] == t_new else dense(float(t[k])))
-                if t_jump < math.inf:
-                    psi = dense(t_jump)
-                    now = t_jump
-                    weights = np.array(
-                        [
-                            rate * float(np.vdot(y, y).real)
-                            for rate, fwd, _ in self.channels
-                            for y in [fwd(psi)]
-                        ]
-                    )
-                    if weights.sum() <= 0:
+            with runge_kutta_8(self.rhs, now, psi, t_end, task.tol) as solver:
+                while solver.status == "running":
+                    message = solver.step()
+                    if solver.status == "failed":
                         raise ConvergenceError(
-                            f"trajectory {index}: the norm decayed but no jump can happen"
+                            f"trajectory {index}: the integrator failed: {message}"
                         )
-                    choice = int(rng.choice(len(weights), p=weights / weights.sum()))
-                    psi = self.channels[choice][1](psi)
-                    psi = psi / np.linalg.norm(psi)
-                    jumps += 1
-                    threshold = rng.random()
-                    jumped = True
-                    break
+                    t_old, t_new = solver.t_old, solver.t
+                    norm_new = float(np.vdot(solver.y, solver.y).real)
+                    jumps_here = norm_new < threshold
+                    if not jumps_here and not (k < t.size and t[k] < t_new):
+                        # Nothing to interpolate in this step: the dense output (extra
+                        # stages and long-vector work, 40% of a trajectory) is not built.
+                        while k < t.size and t[k] == t_new:
+                            record(solver.y)
+                        continue
+                    dense = solver.dense_output()
+                    t_jump = math.inf
+                    if jumps_here:
+                        t_jump = _crossing(dense, threshold, t_old, t_new)
+                    while k < t.size and t[k] <= min(t_new, t_jump):
+                        record(solver.y if t[k] == t_new else dense(float(t[k])))
+                    if t_jump < math.inf:
+                        psi = dense(t_jump)
+                        now = t_jump
+                        weights = np.array(
+                            [
+                                rate * float(np.vdot(y, y).real)
+                                for rate, fwd, _ in self.channels
+                                for y in [fwd(psi)]
+                            ]
+                        )
+                        if weights.sum() <= 0:
+                            raise ConvergenceError(
+                                f"trajectory {index}: the norm decayed but no jump can happen"
+                            )
+                        choice = int(rng.choice(len(weights), p=weights / weights.sum()))
+                        psi = self.channels[choice][1](psi)
+                        psi = psi / np.linalg.norm(psi)
+                        jumps += 1
+                        threshold = rng.random()
+                        jumped = True
+                        break
             if not jumped:
                 break
         return values, jumps
