@@ -16,6 +16,9 @@ one table row with the load average (``uptime``) measured right before it.
     python benchmarks/bench_lindblad.py --workers SITES CUTOFF COUNT
         # COUNT trajectories serially, on a process pool and on a local Dask cluster of
         # 1 and 2 single-threaded worker processes (needs fockmill[cluster])
+    python benchmarks/bench_lindblad.py --dask-memory SITES CUTOFF COUNT
+        # COUNT trajectories on 2 Dask workers with Dask's default worker environment
+        # and without its MALLOC_TRIM_THRESHOLD_ (glibc's own memory thresholds)
 """
 
 from __future__ import annotations
@@ -256,10 +259,19 @@ def trajectories(sites: int, cutoff: int, count: int, workers: int | str) -> lis
             h, space, psi0, times, jumps, observables=obs, count=count, seed=1
         )
     elif isinstance(workers, str):
+        import dask
         from distributed import Client, LocalCluster
 
-        size = int(workers.removeprefix("dask"))
+        name, _, option = workers.partition("-")
+        size = int(name.removeprefix("dask"))
+        environ = dict(dask.config.get("distributed.nanny.pre-spawn-environ"))
+        if option == "keep":
+            # Dask's nanny sets MALLOC_TRIM_THRESHOLD_ (64 KiB) in its workers: glibc then
+            # returns every freed vector to the system and each new one is faulted in
+            # afresh. "-keep" starts the workers without it (glibc's own thresholds).
+            environ.pop("MALLOC_TRIM_THRESHOLD_", None)
         with (
+            dask.config.set({"distributed.nanny.pre-spawn-environ": environ}),
             LocalCluster(
                 n_workers=size, threads_per_worker=1, processes=True, dashboard_address=None
             ) as cluster,
@@ -308,6 +320,16 @@ TRAJECTORY_HEADERS = [
     "⟨n0⟩(t=4)",
     "load before",
 ]
+
+
+def dask_memory_table(sites: int, cutoff: int, count: int) -> None:
+    """The same trajectories on a local Dask cluster of 2 workers with Dask's default
+    worker environment and without its memory-trimming setting, one after the other."""
+    print(f"fockmill {fm.__version__}, {os.cpu_count()} cores, load at start {os.getloadavg()}")
+    rows = [
+        run(["traj", str(sites), str(cutoff), str(count), w], 8) for w in ["dask2", "dask2-keep"]
+    ]
+    print_table(TRAJECTORY_HEADERS, rows)
 
 
 def workers_table(sites: int, cutoff: int, count: int) -> None:
@@ -363,6 +385,9 @@ def main() -> None:
             row = apply_once(int(rest[0]), int(rest[1]))
         elif case == "--workers":
             workers_table(int(rest[0]), int(rest[1]), int(rest[2]))
+            return
+        elif case == "--dask-memory":
+            dask_memory_table(int(rest[0]), int(rest[1]), int(rest[2]))
             return
         else:
             who = rest[3] if rest[3].startswith("dask") else int(rest[3])

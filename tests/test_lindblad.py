@@ -327,9 +327,18 @@ def test_sector_preconditioner_in_real_arithmetic_against_dense() -> None:
     np.testing.assert_allclose(ss.rho, ref, atol=1e-8)
 
 
-@pytest.mark.parametrize("rates", [(0.6, 0.6, 0.6), (0.3, 0.8, 0.5)])
+# A jump a_0 + a_0† a_1² lowers the number by one; its piece into the vacuum has one
+# entry per row (a gather), its piece into one quantum two: mixed pieces of one channel.
+_MIXED = fm.lowering(0) + fm.raising(0) * fm.lowering(1) * fm.lowering(1)
+
+
+@pytest.mark.parametrize(
+    ("rates", "extra"),
+    [((0.6, 0.6, 0.6), None), ((0.3, 0.8, 0.5), None), ((0.3, 0.8, 0.5), _MIXED)],
+    ids=["equal-loss", "unequal-loss", "mixed-pieces"],
+)
 def test_sector_preconditioner_inverts_the_lossy_number_conserving_part(
-    rates: tuple[float, float, float],
+    rates: tuple[float, float, float], extra: object, monkeypatch: pytest.MonkeyPatch
 ) -> None:
     # Without a drive, 𝓛 = 𝓚₀ + 𝓙 with every jump lowering the number: the sector
     # preconditioner, which solves the sector pairs from the top down, is its exact
@@ -337,15 +346,22 @@ def test_sector_preconditioner_inverts_the_lossy_number_conserving_part(
     # vacuum's own entry, whose zero denominator is floored. Equal rates take the real
     # arithmetic, unequal ones the complex eigendecompositions. The product it inverts
     # is the native one, checked against the dense Lindblad form below.
+    from fockmill.lindblad import preconditioners
     from fockmill.lindblad.liouvillian import build_liouvillian
     from fockmill.lindblad.preconditioners import sector_sylvester
 
     h, _hd, _ops = _chain(3, 2, 0.0)
     space = fm.FockSpace(modes=3, cutoff=2)
-    liou = build_liouvillian(
-        h, space, [fm.loss(i, g) for i, g in enumerate(rates)], split_sectors=False
-    )
+    jumps = [fm.loss(i, g) for i, g in enumerate(rates)]
+    if extra is not None:
+        jumps.append(fm.jump(extra, 0.4))
+    liou = build_liouvillian(h, space, jumps, split_sectors=False)
     assert liou.sectors is None and liou.dims == [27]
+    mixed: list[int] = []  # the mixed case must reach the path that turns a gather into CSR
+    as_csr = preconditioners._as_csr
+    monkeypatch.setattr(
+        preconditioners, "_as_csr", lambda m, cols: mixed.append(cols) or as_csr(m, cols)
+    )
     solve, _scale, orders, _single = sector_sylvester(liou)
     product = liou.native_in_order(orders)
     rng = np.random.default_rng(7)
@@ -355,6 +371,7 @@ def test_sector_preconditioner_inverts_the_lossy_number_conserving_part(
     vacuum = 0  # the vacuum is the first state of sector order (charge 0)
     mask = np.ones((27, 27), dtype=bool)
     mask[vacuum, vacuum] = False
+    assert bool(mixed) == (extra is not None)
     np.testing.assert_allclose(got.reshape(27, 27)[mask], x.reshape(27, 27)[mask], atol=1e-10)
 
 
