@@ -10,20 +10,25 @@ from typing import Any
 import numpy as np
 import numpy.typing as npt
 
+from fockmill.dynamics.drive import TimeDependent
 from fockmill.dynamics.krylov import as_float_array
 from fockmill.exceptions import ConvergenceError
 from fockmill.lindblad.integrator import runge_kutta_8
+from fockmill.lindblad.jumps import check_jumps
 from fockmill.lindblad.liouvillian import (
     Liouvillian,
     block_observable,
     build_liouvillian,
     check_density_matrix,
     join_blocks,
+    sector_structure,
     split_blocks,
     trace_product,
 )
 from fockmill.problem.memory import available_memory
+from fockmill.problem.problem import Problem
 from fockmill.settings.progress import ProgressOption, make_progress
+from fockmill.spaces.fock import FockSpace
 
 __all__ = ["DensityEvolution", "check_times", "evolve_density"]
 
@@ -97,6 +102,44 @@ def _observable_blocks(liou: Liouvillian, observables: Any) -> dict[str, Any]:
     return out
 
 
+def _driven_liouvillians(
+    drive: TimeDependent,
+    space: Any,
+    jumps: Any,
+    split: bool | None,
+    threads: int | None,
+    memory_limit: int | None,
+) -> tuple[Liouvillian, list[tuple[Liouvillian, Any]]]:
+    """The Liouvillian of ``H0`` with the jumps and, per time-dependent part ``H_k``, the
+    commutator ``−i[H_k, ρ]`` on the same blocks (``𝓛(t) = 𝓛_0 + Σ_k f_k(t) 𝓛_k``).
+    Number-sector blocks are used only when ``H0``, every ``H_k`` and the jumps all
+    allow them."""
+    parts = [h.expr if isinstance(h, Problem) else h for h, _f in drive.parts]
+    if split is not False:
+        h0 = drive.H0
+        full = h0.space if isinstance(h0, Problem) else space
+        total = sum(parts, h0.expr if isinstance(h0, Problem) else h0)
+        if isinstance(full, FockSpace):
+            applies = sector_structure(total, check_jumps(jumps, full.modes), full) is not None
+            if split and not applies:
+                raise ValueError(
+                    "split_sectors=True needs a space without total, a Hamiltonian whose "
+                    "every part conserves the number of quanta and jumps that each change "
+                    "it by one fixed amount"
+                )
+            split = applies
+    liou = build_liouvillian(
+        drive.H0, space, jumps, split_sectors=split, threads=threads, memory_limit=memory_limit
+    )
+    pieces = []
+    for (_h, f), part in zip(drive.parts, parts, strict=True):
+        piece = build_liouvillian(
+            part, liou.full, [], split_sectors=split, threads=threads, memory_limit=memory_limit
+        )
+        pieces.append((piece, f))
+    return liou, pieces
+
+
 def evolve_density(
     H: Any,
     space: Any = None,
@@ -115,9 +158,11 @@ def evolve_density(
 
     Parameters
     ----------
-    H : LadderExpr or Problem
+    H : LadderExpr, Problem or TimeDependent
         Hermitian Hamiltonian (a prepared problem carries its space: pass
-        ``space=None``).
+        ``space=None``), or a :class:`fockmill.TimeDependent` ``H(t) = H0 + Σ_k f_k(t)
+        H_k``: each part is compiled into its own Liouvillian once, and the integrator
+        ends a step on every breakpoint of the coefficients.
     space : FockSpace
         The truncated space.
     rho0 : array_like
@@ -166,9 +211,17 @@ def evolve_density(
     if not (isinstance(tol, float | int) and np.isfinite(tol) and 0 < tol < 1):
         raise ValueError(f"tol must be a number in (0, 1), e.g. 1e-8; got {tol!r}")
     t = check_times(times)
-    liou = build_liouvillian(
-        H, space, jumps, split_sectors=split_sectors, threads=threads, memory_limit=memory_limit
-    )
+    drive = H if isinstance(H, TimeDependent) else None
+
+    def build(split: bool | None) -> tuple[Liouvillian, list[tuple[Liouvillian, Any]]]:
+        if drive is not None:
+            return _driven_liouvillians(drive, space, jumps, split, threads, memory_limit)
+        liou = build_liouvillian(
+            H, space, jumps, split_sectors=split, threads=threads, memory_limit=memory_limit
+        )
+        return liou, []
+
+    liou, driven = build(split_sectors)
     rho = check_density_matrix(liou.full, rho0, "rho0")
     blocks = split_blocks(liou, rho)
     if liou.sectors is not None:
@@ -179,9 +232,7 @@ def evolve_density(
                     "rho0 has coherences between number sectors; split_sectors=True would "
                     "drop them. Use split_sectors=None or False"
                 )
-            liou = build_liouvillian(
-                H, space, jumps, split_sectors=False, threads=threads, memory_limit=memory_limit
-            )
+            liou, driven = build(False)
             blocks = [rho]
     obs = _observable_blocks(liou, observables)
     raw: dict[str, list[complex]] = {name: [] for name in obs}
@@ -198,8 +249,13 @@ def evolve_density(
                     sum(trace_product(p, b) for p, b in zip(problems, bl, strict=True))
                 )
 
-    def rhs(_t: float, x: npt.NDArray[np.float64]) -> npt.NDArray[np.float64]:
-        return liou.apply_real(x)
+    def rhs(now: float, x: npt.NDArray[np.float64]) -> npt.NDArray[np.float64]:
+        out = liou.apply_real(x)
+        if driven:
+            for (piece, _f), c in zip(driven, drive.coefficients(now), strict=True):  # type: ignore[union-attr]
+                if c != 0.0:
+                    out += c * piece.apply_real(x)
+        return out
 
     x = liou.to_real(blocks)
     k = 0
@@ -210,9 +266,14 @@ def evolve_density(
     steps = 0
     reporter = make_progress(progress, "evolve_density", total=float(t[-1]), unit="time")
     try:
-        if k < t.size:
-            with runge_kutta_8(rhs, 0.0, x, float(t[-1]), tol) as solver:
-                while k < t.size:
+        # One integrator per stretch between the coefficients' breakpoints (kinks).
+        ends = [b for b in (drive.breakpoints() if drive else []) if 0.0 < b < t[-1]]
+        start = 0.0
+        for end in [*ends, float(t[-1])]:
+            if k >= t.size:
+                break
+            with runge_kutta_8(rhs, start, x, end, tol) as solver:
+                while solver.status == "running":
                     message = solver.step()
                     if solver.status == "failed":
                         raise ConvergenceError(
@@ -225,9 +286,12 @@ def evolve_density(
                             record(solver.y if t[k] == solver.t else dense(float(t[k])))
                             k += 1
                     if reporter is not None:
-                        reporter.update(step=steps, products=solver.nfev, time_reached=solver.t)
-                evaluations = solver.nfev
+                        reporter.update(
+                            step=steps, products=evaluations + solver.nfev, time_reached=solver.t
+                        )
+                evaluations += solver.nfev
                 x = solver.y
+            start = end
     finally:
         if reporter is not None:
             reporter.close()

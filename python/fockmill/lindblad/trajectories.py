@@ -23,6 +23,7 @@ import numpy.typing as npt
 import scipy.sparse as sp
 
 from fockmill.algebra.expressions import as_expr
+from fockmill.dynamics.drive import TimeDependent
 from fockmill.dynamics.krylov import check_state, expectation_function, hermitian_map
 from fockmill.exceptions import ChargeError, ConvergenceError
 from fockmill.lindblad.evolution import check_times
@@ -86,6 +87,7 @@ class _Task:
     indices: tuple[int, ...]
     tol: float
     threads: int | None
+    parts: tuple[tuple[Any, Any], ...] = ()  # time-dependent (H_k, f_k), if any
 
 
 class _Runner:
@@ -95,6 +97,12 @@ class _Runner:
         self.task = task
         self.problem = problem or as_problem(task.hamiltonian, task.space, threads=task.threads)
         self.h = hermitian_map(self.problem, vectors=24, method="auto")
+        space, pool = self.problem.space, self.problem.pool
+        self.drive = TimeDependent(0.0, list(task.parts)) if task.parts else None
+        self.part_maps = [
+            hermitian_map(Problem._from_parts(h, space, pool=pool), vectors=24, method="auto")
+            for h, _f in task.parts
+        ]
         self.channels = []
         decays = []
         for j in task.jumps:
@@ -111,8 +119,13 @@ class _Runner:
         self.measure = {name: expectation_function(o) for name, o in obs.items()}
         self.hermitian = {name: o.expr.is_hermitian() for name, o in obs.items()}
 
-    def rhs(self, _t: float, psi: npt.NDArray[np.complex128]) -> npt.NDArray[np.complex128]:
-        out = -1j * self.h(psi)
+    def rhs(self, now: float, psi: npt.NDArray[np.complex128]) -> npt.NDArray[np.complex128]:
+        hpsi = self.h(psi)
+        if self.drive is not None:
+            for h, c in zip(self.part_maps, self.drive.coefficients(now), strict=True):
+                if c != 0.0:
+                    hpsi += c * h(psi)
+        out = -1j * hpsi
         if self.decay is not None:
             out -= self.decay * psi
             return out  # type: ignore[no-any-return]
@@ -148,10 +161,13 @@ class _Runner:
         while k < t.size and t[k] <= now:
             record(psi)
         t_end = float(t[-1])
+        # A time-dependent H: one integrator per stretch between the coefficients' kinks.
+        stops = [b for b in (self.drive.breakpoints() if self.drive else []) if 0 < b < t_end]
         threshold = rng.random()
         while k < t.size:
+            bound = next((b for b in stops if b > now), t_end)
             jumped = False
-            with runge_kutta_8(self.rhs, now, psi, t_end, task.tol) as solver:
+            with runge_kutta_8(self.rhs, now, psi, bound, task.tol) as solver:
                 while solver.status == "running":
                     message = solver.step()
                     if solver.status == "failed":
@@ -194,7 +210,9 @@ class _Runner:
                         threshold = rng.random()
                         jumped = True
                         break
-            if not jumped:
+                if not jumped:
+                    psi, now = solver.y, bound
+            if not jumped and bound >= t_end:
                 break
         return values, jumps
 
@@ -266,8 +284,12 @@ def sample_trajectories(
 
     Parameters
     ----------
-    H : LadderExpr or Problem
-        Hermitian Hamiltonian (a prepared problem carries its space: ``space=None``).
+    H : LadderExpr, Problem or TimeDependent
+        Hermitian Hamiltonian (a prepared problem carries its space: ``space=None``), or
+        a :class:`fockmill.TimeDependent` ``H(t) = H0 + Σ_k f_k(t) H_k`` (each part
+        compiled once per chunk; the integrator ends a step on every breakpoint of the
+        coefficients; on a process pool the coefficients must be picklable, e.g.
+        :func:`fockmill.piecewise_linear` or module-level functions).
     space : FockSpace
         The space of the state vectors; every jump must map it into itself (a space
         without ``total`` for loss or pumping).
@@ -321,7 +343,19 @@ def sample_trajectories(
         raise TypeError(f"seed must be a non-negative integer; got {seed!r}")
     if not (isinstance(tol, float | int) and np.isfinite(tol) and 0 < tol < 1):
         raise ValueError(f"tol must be a number in (0, 1), e.g. 1e-8; got {tol!r}")
-    problem = as_problem(H, space, threads=threads)
+    drive = H if isinstance(H, TimeDependent) else None
+    problem = as_problem(drive.H0 if drive else H, space, threads=threads)
+    parts = tuple(
+        (h.expr if isinstance(h, Problem) else h, f) for h, f in (drive.parts if drive else ())
+    )
+    for k, (h, _f) in enumerate(parts, start=1):
+        try:
+            Problem._from_parts(h, problem.space, pool=problem.pool)
+        except ChargeError as exc:
+            raise ChargeError(
+                f"part {k} (H_{k}) of the time-dependent Hamiltonian leaves the space's "
+                f"sector ({exc}); pass fm.FockSpace without total"
+            ) from None
     jump_list = check_jumps(jumps, problem.space.modes)
     for k, j in enumerate(jump_list):
         try:
@@ -352,6 +386,7 @@ def sample_trajectories(
             indices,
             float(tol),
             worker_threads,
+            parts,
         )
 
     results: list[tuple[int, dict[str, npt.NDArray[np.complex128]], int]] = []
