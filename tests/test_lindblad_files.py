@@ -191,12 +191,6 @@ def test_bad_jumps_name_the_key_path(old: str, new: str, key: str, words: str) -
         ("[record]\nlevels = 2\n", "record.levels", "stationary"),
         ('[solver]\nmethod = "lanczos"\n', "solver.method", "ground-state method"),
         ('[units]\nkapa = "MHz"\n', "units.kapa", "did you mean 'kappa'"),
-        (
-            '[quench]\ntimes = [0.0, 1.0]\ninitial = { state = "fock", occupations = [0, 0] }\n'
-            "[quench.ramp.Delta]\ntimes = [0.0, 1.0]\nvalues = [0.0, 1.0]\n",
-            "quench.ramp",
-            "not supported with [jumps]",
-        ),
         ("[symmetry]\npermutations = [[1, 0]]\nlabels = [0]\n", "symmetry", "drop [symmetry]"),
     ],
 )
@@ -391,6 +385,67 @@ def test_quench_trajectories_agree_with_the_density_matrix() -> None:
 
     text = format_result(sampled)
     assert "150 quantum-jump trajectories (seed 7)" in text and "±" in text
+
+
+RAMP = """
+[quench.ramp.Delta]
+times = [0.0, 1.0, 2.0]
+values = [0.0, 1.5, -1.0]
+"""
+
+
+@pytest.mark.parametrize("trajectories", [False, True], ids=["density", "trajectories"])
+def test_quench_with_jumps_follows_a_ramp(trajectories: bool) -> None:
+    # The ramped detuning Δ(t) of the file against dρ/dt = 𝓛(t)ρ integrated densely by
+    # scipy's solve_ivp on the numpy Liouvillian (common practice, no source);
+    # trajectories within 4 standard errors of it (Dalibard, Castin & Mølmer 1992).
+    from fockmill.workflows.run import run_quench
+    from scipy.integrate import solve_ivp
+
+    text = PAIR + QUENCH + RAMP
+    if trajectories:
+        text = text.replace("[quench]\n", "[quench]\ntrajectories = 200\nseed = 3\n")
+    result = run_quench(parse(text))
+    h0, jd, (a0, a1) = dense_case(0.0)
+    piece = dense_case(1.0)[0] - h0  # Σ_i n_i
+    l0 = dense_liouvillian(h0, jd)
+    lp = dense_liouvillian(piece, [])
+    ramp = fm.piecewise_linear([0.0, 1.0, 2.0], [0.0, 1.5, -1.0])
+    psi = np.zeros(16, dtype=complex)
+    psi[2 * 4] = 1.0  # |2, 0⟩
+    times = result.arrays["times"]
+    ref = solve_ivp(
+        lambda t, r: (l0 + ramp(t) * lp) @ r,
+        (0.0, float(times[-1])),
+        np.outer(psi, psi.conj()).reshape(-1),
+        method="DOP853",
+        t_eval=times,
+        rtol=1e-11,
+        atol=1e-12,
+    )
+    for k, t in enumerate(times):
+        rho = ref.y[:, k].reshape(16, 16)
+        n = [float(np.trace(rho @ a.conj().T @ a).real) for a in (a0, a1)]
+        energy = float(np.trace(rho @ (h0 + ramp(float(t)) * piece)).real)
+        if trajectories:
+            bound = 4 * result.arrays["populations_error"][k] + 1e-9
+            assert np.all(np.abs(result.arrays["populations"][k] - n) <= bound)
+            assert abs(result.arrays["energy"][k] - energy) <= (
+                4 * result.arrays["energy_error"][k] + 1e-9
+            )
+        else:
+            np.testing.assert_allclose(result.arrays["populations"][k], n, atol=1e-6)
+            assert result.arrays["energy"][k] == pytest.approx(energy, abs=1e-6)
+    assert result.meta["settings"]["ramps"]["Delta"]["values"] == [0.0, 1.5, -1.0]
+    assert not any(key.startswith("values.#") for key in result.arrays)
+
+
+def test_a_ramped_jump_rate_is_refused() -> None:
+    from fockmill.workflows.run import run_quench
+
+    spec = parse(PAIR + QUENCH + RAMP.replace("Delta", "kappa"))
+    with pytest.raises(ValueError, match="sets a jump rate"):
+        run_quench(spec)
 
 
 # -- the command line and the figures -----------------------------------------------------

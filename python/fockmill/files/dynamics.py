@@ -20,7 +20,7 @@ description of every key is in ``docs/model-files.md``; in short:
     parameters replaced by their ramps. With ``[jumps]`` the density matrix evolves
     under the master equation (``fm.evolve_density``), or ``trajectories = N``
     quantum-jump trajectories are averaged (``fm.sample_trajectories``, ``seed``);
-    ramps are not supported with jumps yet.
+    ramps then change the Hamiltonian only (a ramped jump rate is refused).
 ``[spectrum]``
     ``operator`` (term string or array of them, summed; it may change the number of
     quanta by one fixed amount, then H acts on the sector it lands in), ``omegas``
@@ -444,12 +444,6 @@ def _ramps(
     table = reader.table(value, path)
     if not table:
         reader.fail(path, "empty; add [quench.ramp.NAME] with times and values, or drop it")
-    if model.jumps:
-        reader.fail(
-            path,
-            "ramps are not supported with [jumps] yet (the open-system solvers take a "
-            "time-independent Hamiltonian); drop [quench.ramp] or [jumps]",
-        )
     reader.check_keys(table, path, list(model.parameters), hint=f" for model {model.name!r}")
     out: dict[str, tuple[tuple[float, ...], tuple[float, ...]]] = {}
     for name, raw in table.items():

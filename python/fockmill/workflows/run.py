@@ -264,14 +264,14 @@ def run_quench(
 
     run = _begin(model_file, "quench", overrides, threads)
     spec, model, space, values, solver = run.spec, run.model, run.space, run.values, run.solver
-    if model.is_open:
-        return _open_quench(run, memory_limit)
     ramped = sorted(set(spec.ramps) & set(overrides or {}))
     if ramped:
         raise ValueError(
             f"parameter(s) {ramped} follow [quench.ramp]; an override would be ignored. "
             "Change the ramp's values instead"
         )
+    if model.is_open:
+        return _open_quench(run, memory_limit)
     ramps = {name: piecewise_linear(*table) for name, table in spec.ramps.items()}
     # Ramped parameters leave the constant part; at t = 0 they take their ramps' values.
     h = model.hamiltonian(**{**values, **dict.fromkeys(ramps, 0.0)})
@@ -376,6 +376,7 @@ def _top_observables(space: Any) -> dict[str, LadderExpr]:
 
 def _open_quench(run: _Run, memory_limit: int | None) -> WorkflowResult:
     """``[quench]`` of a model with ``[jumps]`` (see :func:`run_quench`)."""
+    from fockmill.dynamics.drive import TimeDependent, piecewise_linear
     from fockmill.files.jumps import describe_jumps
     from fockmill.lindblad.evolution import evolve_density
     from fockmill.lindblad.jumps import Jump
@@ -390,14 +391,30 @@ def _open_quench(run: _Run, memory_limit: int | None) -> WorkflowResult:
     ground_options = {k: v for k, v in solver.items() if k != "threads"}
     if ground_options.get("method") not in METHODS:
         ground_options["method"] = "auto"
-    h = model.hamiltonian(**values)
+    ramps = {name: piecewise_linear(*table) for name, table in spec.ramps.items()}
+    # Ramped parameters leave the constant part; at t = 0 they take their ramps' values.
+    constant = {**values, **dict.fromkeys(ramps, 0.0)}
+    h = model.hamiltonian(**constant)
     jumps = [Jump(op, rate, label) for label, op, rate in model.channels(**values)]
+    for name in ramps:
+        moved = [rate for _l, _o, rate in model.channels(**{**values, name: values[name] + 1.0})]
+        if name not in model.pieces or moved != [j.rate for j in jumps]:
+            raise ValueError(
+                f"[quench.ramp.{name}]: {name} sets a jump rate; only parameters of the "
+                "Hamiltonian can follow a ramp (time-dependent rates are not supported)"
+            )
     times = np.asarray(spec.times)
     summary: dict[str, Any] = {}
     with _collected_warnings() as messages:
         problem = prepare(h, space, threads=solver["threads"], memory_limit=memory_limit)
+        hamiltonian: Any = problem
+        if ramps:
+            hamiltonian = TimeDependent(
+                problem, [(model.pieces[name], ramps[name]) for name in sorted(ramps)]
+            )
         if spec.initial.kind == "ground":
-            start = model.hamiltonian(**{**values, **spec.initial.parameters})
+            at_start = {**values, **{name: f(0.0) for name, f in ramps.items()}}
+            start = model.hamiltonian(**{**at_start, **spec.initial.parameters})
             if start == h:
                 ground = ground_state(problem, **ground_options)
             else:
@@ -414,6 +431,7 @@ def _open_quench(run: _Run, memory_limit: int | None) -> WorkflowResult:
         else:
             psi0 = spec.initial.vector(space)
         observables: dict[str, Any] = {"#energy": h}
+        observables.update({f"#ramp.{name}": model.pieces[name] for name in ramps})
         if spec.populations:
             observables.update(_population_observables(space.modes))
         observables.update(_top_observables(space))
@@ -421,7 +439,7 @@ def _open_quench(run: _Run, memory_limit: int | None) -> WorkflowResult:
         errors: dict[str, Any] = {}
         if spec.trajectories is None:
             ev = evolve_density(
-                problem,
+                hamiltonian,
                 None,
                 psi0,
                 times,
@@ -430,7 +448,13 @@ def _open_quench(run: _Run, memory_limit: int | None) -> WorkflowResult:
                 tol=spec.tol,
                 memory_limit=memory_limit,
             )
-            series = ev.values
+            series = dict(ev.values)
+            if ramps:  # ⟨H(t)⟩ = ⟨H0⟩ + Σ_k f_k(t) ⟨H_k⟩
+                energy = np.asarray(series["#energy"], dtype=np.float64).copy()
+                for name, f in ramps.items():
+                    c = np.array([f(float(t)) for t in times])
+                    energy += c * np.asarray(series[f"#ramp.{name}"], dtype=np.float64)
+                series["#energy"] = energy
             summary.update(
                 method="DOP853",
                 steps=ev.steps,
@@ -440,7 +464,7 @@ def _open_quench(run: _Run, memory_limit: int | None) -> WorkflowResult:
             )
         else:
             tr = sample_trajectories(
-                problem,
+                hamiltonian,
                 None,
                 psi0,
                 times,
@@ -450,7 +474,19 @@ def _open_quench(run: _Run, memory_limit: int | None) -> WorkflowResult:
                 seed=spec.seed,
                 tol=spec.tol,
             )
-            series, errors = tr.mean, tr.stderr
+            series, errors = dict(tr.mean), dict(tr.stderr)
+            if ramps:
+                # ⟨H(t)⟩ per trajectory, then its mean and standard error.
+                energy_samples = np.real(tr.samples["#energy"]).astype(np.float64)
+                for name, f in ramps.items():
+                    c = np.array([f(float(t)) for t in times])
+                    energy_samples = energy_samples + c * np.real(tr.samples[f"#ramp.{name}"])
+                series["#energy"] = energy_samples.mean(axis=0)
+                errors["#energy"] = (
+                    energy_samples.std(axis=0, ddof=1) / np.sqrt(tr.count)
+                    if tr.count > 1
+                    else np.zeros(times.size)
+                )
             summary.update(
                 method="quantum-jump trajectories",
                 trajectories=tr.count,
@@ -461,7 +497,7 @@ def _open_quench(run: _Run, memory_limit: int | None) -> WorkflowResult:
     top = np.column_stack(
         [np.asarray(series[f"#top{i}"], dtype=np.float64) for i in range(space.modes)]
     ).reshape(count, space.modes)
-    rest = {k: v for k, v in series.items() if not k.startswith("#top") and k != "#energy"}
+    rest = {k: v for k, v in series.items() if not k.startswith("#") or k.startswith("#n")}
     populations, named = _split_populations(rest, space.modes, count)
     arrays: dict[str, Any] = {
         "times": np.asarray(times, dtype=np.float64),
@@ -475,7 +511,7 @@ def _open_quench(run: _Run, memory_limit: int | None) -> WorkflowResult:
     if errors:
         arrays["energy_error"] = np.asarray(errors["#energy"], dtype=np.float64)
         population_errors, named_errors = _split_populations(
-            {k: v for k, v in errors.items() if not k.startswith("#top") and k != "#energy"},
+            {k: v for k, v in errors.items() if not k.startswith("#") or k.startswith("#n")},
             space.modes,
             count,
         )
@@ -485,7 +521,9 @@ def _open_quench(run: _Run, memory_limit: int | None) -> WorkflowResult:
             arrays[f"errors.{name}"] = np.asarray(values_of)
     settings = {
         **_quench_settings(spec),
-        "ramps": {},
+        "ramps": {
+            name: {"times": list(t), "values": list(v)} for name, (t, v) in spec.ramps.items()
+        },
         "jumps": describe_jumps(model, values, model_file.jump_texts),
         "trajectories": spec.trajectories,
         "seed": spec.seed if spec.trajectories is not None else None,
