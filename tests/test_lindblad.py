@@ -761,6 +761,28 @@ def test_time_dependent_trajectories_agree_with_density_evolution() -> None:
     np.testing.assert_array_equal(serial.samples["n0"], tr.samples["n0"][:6])
 
 
+def _ramp_up(t: float) -> float:
+    return t
+
+
+def test_time_dependent_refusals_name_what_to_do() -> None:
+    drive = fm.TimeDependent(fm.number(0), [(fm.lowering(0) + fm.raising(0), _ramp_up)])
+    space = fm.FockSpace(modes=1, cutoff=2)
+    with pytest.raises(TypeError, match="time-independent Hamiltonian"):
+        fm.stationary_state(drive, space, [fm.loss(0, 1.0)])
+    local = fm.TimeDependent(fm.number(0), [(fm.lowering(0) + fm.raising(0), lambda t: t)])
+    with cf.ProcessPoolExecutor(1) as pool, pytest.raises(TypeError, match="f_1 of part 1"):
+        fm.sample_trajectories(
+            local, space, [1.0, 0, 0], [0.0, 1.0], [fm.loss(0, 1.0)], count=2, executor=pool
+        )
+    # A module-level function goes to the pool.
+    with cf.ProcessPoolExecutor(1) as pool:
+        tr = fm.sample_trajectories(
+            drive, space, [1.0, 0, 0], [0.0, 1.0], [fm.loss(0, 1.0)], count=2, executor=pool
+        )
+    assert tr.count == 2
+
+
 def test_time_dependent_part_that_leaves_the_sector_is_refused() -> None:
     space = fm.FockSpace(modes=2, cutoff=2, total=1)
     drive = fm.TimeDependent(fm.number(0), [(fm.lowering(0) + fm.raising(0), np.sin)])

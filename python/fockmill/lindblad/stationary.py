@@ -9,6 +9,7 @@ from typing import Any
 import numpy as np
 import numpy.typing as npt
 
+from fockmill.dynamics.drive import TimeDependent
 from fockmill.exceptions import ConvergenceError, NotUniqueError, SizeLimitError
 from fockmill.lindblad.liouvillian import (
     Liouvillian,
@@ -535,6 +536,12 @@ def stationary_state(
         if jumps is not None:
             raise TypeError("stationary_state(problem, jumps): too many positional arguments")
         space, jumps = None, space
+    if isinstance(H, TimeDependent):
+        raise TypeError(
+            "stationary_state needs a time-independent Hamiltonian; got a TimeDependent. "
+            "Pass its constant part (H.H0) or the Hamiltonian at a fixed time, or follow "
+            "the time dependence with fm.evolve_density"
+        )
     if jumps is None:
         raise TypeError("stationary_state needs jumps=[fm.loss(i, rate), ...]")
     if method not in ("auto", "dense", "sparse", "iterative"):

@@ -12,6 +12,7 @@ trajectories converge to ``Tr(O ρ(t))``.
 
 from __future__ import annotations
 
+import concurrent.futures as cf
 import math
 import time
 from collections.abc import Mapping
@@ -264,6 +265,22 @@ def _run_task(task: _Task) -> list[tuple[int, dict[str, npt.NDArray[np.complex12
     return [(i, *runner.run(i)) for i in task.indices]
 
 
+def _check_picklable(parts: tuple[tuple[Any, Any], ...]) -> None:
+    """A process pool sends each task with pickle: name the coefficient it cannot send."""
+    import pickle
+
+    for k, (_h, f) in enumerate(parts, start=1):
+        try:
+            pickle.dumps(f)
+        except (pickle.PicklingError, AttributeError, TypeError):
+            raise TypeError(
+                f"the coefficient f_{k} of part {k} ({f!r}) cannot be sent to a process "
+                "pool (it is not picklable, e.g. a lambda or a local function); use "
+                "fm.piecewise_linear or a function defined at module level, or run with "
+                "a Dask client (which sends closures) or executor=None"
+            ) from None
+
+
 def sample_trajectories(
     H: Any,
     space: Any = None,
@@ -405,6 +422,8 @@ def sample_trajectories(
                     reporter.update(step=len(results))
         else:
             worker_threads = 1 if threads is None else threads
+            if isinstance(executor, cf.ProcessPoolExecutor):
+                _check_picklable(parts)
             futures = [executor.submit(_run_task, task(g, worker_threads)) for g in groups]
             for f in futures:
                 results.extend(f.result())
