@@ -104,18 +104,19 @@ class _Runner:
             hermitian_map(Problem._from_parts(h, space, pool=pool), vectors=24, method="auto")
             for h, _f in task.parts
         ]
-        self.channels = []
-        decays = []
+        compiled = []
         for j in task.jumps:
             if j.rate == 0:
                 continue
-            fwd = Problem._from_parts(j.operator, self.problem.space, pool=self.problem.pool)
-            bwd = Problem._from_parts(
-                j.operator.adjoint(), self.problem.space, pool=self.problem.pool
-            )
-            self.channels.append((j.rate, _apply(fwd), _apply(bwd)))
-            decays.append((j.rate, fwd, bwd))
-        self.decay = _decay_diagonal(decays)
+            fwd = Problem._from_parts(j.operator, space, pool=pool)
+            bwd = Problem._from_parts(j.operator.adjoint(), space, pool=pool)
+            compiled.append((j.rate, fwd, bwd, _stored(fwd), _stored(bwd)))
+        self.decay = _decay_diagonal([(r, fm, bm) for r, _f, _b, fm, bm in compiled])
+        # With the decay as a diagonal, L† is never applied: it is not kept.
+        self.channels = [
+            (r, _apply(f, fm), None if self.decay is not None else _apply(b, bm))
+            for r, f, b, fm, bm in compiled
+        ]
         obs = prepare_observables(dict(task.observables), self.problem)
         self.measure = {name: expectation_function(o) for name, o in obs.items()}
         self.hermitian = {name: o.expr.is_hermitian() for name, o in obs.items()}
@@ -230,19 +231,18 @@ def _crossing(dense: Any, threshold: float, t_old: float, t_new: float) -> float
     return float(brentq(gap, t_old, t_new, xtol=1e-12 * max(1.0, t_new)))
 
 
-def _decay_diagonal(decays: list[tuple[float, Problem, Problem]]) -> Any:
+def _decay_diagonal(decays: list[tuple[float, Any, Any]]) -> Any:
     """``½ Σ_k γ_k L_k† L_k`` (product of the truncated matrices) as the vector of its
     diagonal when it is diagonal (loss, pumping, dephasing of single modes: each
     ``L_k† L_k`` is a function of the occupations), else None (then each channel is
     applied in turn). One multiply per evaluation instead of two sparse products per
-    jump."""
-    if not decays or any(
-        p.estimate.csr_bytes > STORED_JUMP_BYTES for _r, f, b in decays for p in (f, b)
-    ):
+    jump. ``decays``: each rate with the stored matrices of ``L`` and ``L†`` (None when
+    too large to store)."""
+    if not decays or any(m is None for _r, f, b in decays for m in (f, b)):
         return None
     total = None
     for rate, fwd, bwd in decays:
-        term = (0.5 * rate) * (bwd.matrix().astype(np.complex128) @ fwd.matrix())
+        term = (0.5 * rate) * (bwd @ fwd)
         total = term if total is None else total + term
     total = sp.csr_array(total)
     diagonal = total.diagonal()
@@ -251,9 +251,16 @@ def _decay_diagonal(decays: list[tuple[float, Problem, Problem]]) -> Any:
     return diagonal
 
 
-def _apply(problem: Problem) -> Any:
+def _stored(problem: Problem) -> sp.csr_array | None:
+    """The operator's complex CSR matrix when it takes at most ``STORED_JUMP_BYTES``."""
     if problem.estimate.csr_bytes <= STORED_JUMP_BYTES:
-        matrix = problem.matrix().astype(np.complex128)
+        return problem.matrix().astype(np.complex128)
+    return None
+
+
+def _apply(problem: Problem, matrix: sp.csr_array | None) -> Any:
+    """``x -> L x``: the stored matrix, else the native matrix-free product."""
+    if matrix is not None:
         return lambda x: matrix @ x
     native, pool = problem.native, problem.pool
     return lambda x: native.matvec(np.ascontiguousarray(x), threads=pool)
