@@ -192,22 +192,8 @@ class _Runner:
                     while k < t.size and t[k] <= min(t_new, t_jump):
                         record(solver.y if t[k] == t_new else dense(float(t[k])))
                     if t_jump < math.inf:
-                        psi = dense(t_jump)
+                        psi = self._jump(dense(t_jump), rng, index)
                         now = t_jump
-                        weights = np.array(
-                            [
-                                rate * float(np.vdot(y, y).real)
-                                for rate, fwd, _ in self.channels
-                                for y in [fwd(psi)]
-                            ]
-                        )
-                        if weights.sum() <= 0:
-                            raise ConvergenceError(
-                                f"trajectory {index}: the norm decayed but no jump can happen"
-                            )
-                        choice = int(rng.choice(len(weights), p=weights / weights.sum()))
-                        psi = self.channels[choice][1](psi)
-                        psi = psi / np.linalg.norm(psi)
                         jumps += 1
                         threshold = rng.random()
                         jumped = True
@@ -217,6 +203,20 @@ class _Runner:
             if not jumped and bound >= t_end:
                 break
         return values, jumps
+
+    def _jump(
+        self, psi: npt.NDArray[np.complex128], rng: np.random.Generator, index: int
+    ) -> npt.NDArray[np.complex128]:
+        """The normalised state after a jump from ``psi``: channel ``k`` is chosen with
+        probability ``∝ γ_k ‖L_k ψ‖²``."""
+        weights = np.array(
+            [rate * float(np.vdot(y, y).real) for rate, fwd, _ in self.channels for y in [fwd(psi)]]
+        )
+        if weights.sum() <= 0:
+            raise ConvergenceError(f"trajectory {index}: the norm decayed but no jump can happen")
+        choice = int(rng.choice(len(weights), p=weights / weights.sum()))
+        out = self.channels[choice][1](psi)
+        return out / np.linalg.norm(out)  # type: ignore[no-any-return]
 
 
 def _crossing(dense: Any, threshold: float, t_old: float, t_new: float) -> float:
@@ -270,6 +270,20 @@ def _run_task(task: _Task) -> list[tuple[int, dict[str, npt.NDArray[np.complex12
     """Executor task: run the task's trajectories in order."""
     runner = _Runner(task)
     return [(i, *runner.run(i)) for i in task.indices]
+
+
+def mean_and_stderr(samples: npt.NDArray[Any]) -> tuple[npt.NDArray[Any], npt.NDArray[Any]]:
+    """The mean over trajectories (axis 0) and its standard error ``std / sqrt(count)``
+    (sample standard deviation; real and imaginary parts separately); NaN for a single
+    trajectory."""
+    count = samples.shape[0]
+    mean = samples.mean(axis=0)
+    if count < 2:
+        return mean, np.full(samples.shape[1:], np.nan)
+    spread = np.std(samples.real, axis=0, ddof=1)
+    if np.iscomplexobj(samples):
+        spread = spread + 1j * np.std(samples.imag, axis=0, ddof=1)
+    return mean, spread / math.sqrt(count)
 
 
 def _check_picklable(parts: tuple[tuple[Any, Any], ...]) -> None:
@@ -450,13 +464,7 @@ def sample_trajectories(
         if hermitian[name]:
             arr = arr.real.copy()
         samples[name] = arr
-        mean[name] = arr.mean(axis=0)
-        if count > 1:
-            spread = np.std(arr.real, axis=0, ddof=1) + 1j * np.std(arr.imag, axis=0, ddof=1)
-            spread = spread.real if hermitian[name] else spread
-            stderr[name] = spread / math.sqrt(count)
-        else:
-            stderr[name] = np.full(t.size, np.nan)
+        mean[name], stderr[name] = mean_and_stderr(arr)
     return Trajectories(
         times=t,
         mean=mean,

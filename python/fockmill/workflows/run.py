@@ -115,7 +115,35 @@ def _quench_settings(spec: Any) -> dict[str, Any]:
         "initial_parameters": dict(spec.initial.parameters),
         "tol": spec.tol,
         "populations": spec.populations,
+        "ramps": {
+            name: {"times": list(t), "values": list(v)} for name, (t, v) in spec.ramps.items()
+        },
     }
+
+
+def _ramped_parts(
+    spec: Any, model: Any, values: Mapping[str, float]
+) -> tuple[dict[str, Any], Any, dict[str, float]]:
+    """The ``[quench.ramp]`` functions, the constant part ``H0`` (ramped parameters left
+    out) and the parameters at t = 0 (ramped ones at their ramps' first values)."""
+    from fockmill.dynamics.drive import piecewise_linear
+
+    ramps = {name: piecewise_linear(*table) for name, table in spec.ramps.items()}
+    h0 = model.hamiltonian(**{**values, **dict.fromkeys(ramps, 0.0)})
+    at_start = {**values, **{name: f(0.0) for name, f in ramps.items()}}
+    return ramps, h0, at_start
+
+
+def _ramped_energy(
+    constant: Any, recorded: Mapping[str, Any], ramps: Mapping[str, Any], times: Any
+) -> np.ndarray:
+    """``⟨H(t)⟩ = ⟨H0⟩ + Σ_k f_k(t) ⟨H_k⟩`` from the parts recorded separately
+    (``#ramp.NAME``); times on the last axis (one row per trajectory, or one series)."""
+    energy = np.real(np.asarray(constant)).astype(np.float64)
+    for name, f in ramps.items():
+        coefficient = np.array([f(float(t)) for t in times])
+        energy = energy + coefficient * np.real(np.asarray(recorded[f"#ramp.{name}"]))
+    return energy
 
 
 @dataclass(frozen=True)
@@ -257,7 +285,7 @@ def run_quench(
         parameter; the errors of :func:`fockmill.evolve` and
         :func:`fockmill.ground_state`.
     """
-    from fockmill.dynamics.drive import TimeDependent, piecewise_linear
+    from fockmill.dynamics.drive import TimeDependent
     from fockmill.dynamics.evolve import evolve
     from fockmill.problem.problem import Problem, prepare
     from fockmill.solvers.ground import ground_state
@@ -272,10 +300,7 @@ def run_quench(
         )
     if model.is_open:
         return _open_quench(run, memory_limit)
-    ramps = {name: piecewise_linear(*table) for name, table in spec.ramps.items()}
-    # Ramped parameters leave the constant part; at t = 0 they take their ramps' values.
-    h = model.hamiltonian(**{**values, **dict.fromkeys(ramps, 0.0)})
-    values_at_start = {**values, **{name: f(0.0) for name, f in ramps.items()}}
+    ramps, h, values_at_start = _ramped_parts(spec, model, values)
     summary: dict[str, Any] = {}
     with _collected_warnings() as messages:
         problem = prepare(h, space, threads=solver["threads"], memory_limit=memory_limit)
@@ -329,11 +354,7 @@ def run_quench(
             progress=progress,
             checkpoint=checkpoint,
         )
-    # ⟨H(t)⟩ = ⟨H0⟩ + Σ_k f_k(t) ⟨H_k⟩ from the parts recorded separately.
-    energy = np.asarray(ev.values["#energy"], dtype=np.float64).copy()
-    for name, f in ramps.items():
-        coefficient = np.array([f(float(t)) for t in ev.times])
-        energy += coefficient * np.asarray(ev.values[f"#ramp.{name}"], dtype=np.float64)
+    energy = _ramped_energy(ev.values["#energy"], ev.values, ramps, ev.times)
     rest = {k: v for k, v in ev.values.items() if not k.startswith("#ramp.") and k != "#energy"}
     populations, named = _split_populations(rest, space.modes, ev.times.size)
     arrays: dict[str, Any] = {"times": ev.times, "energy": energy}
@@ -352,12 +373,7 @@ def run_quench(
     if ramps:
         # ⟨H(t)⟩ changes under a ramp: its change is no accuracy check.
         del summary["energy_drift"]
-    settings = {
-        **_quench_settings(spec),
-        "ramps": {
-            name: {"times": list(t), "values": list(v)} for name, (t, v) in spec.ramps.items()
-        },
-    }
+    settings = _quench_settings(spec)
     return run.finish(arrays, settings=settings, summary=summary, messages=messages)
 
 
@@ -376,11 +392,11 @@ def _top_observables(space: Any) -> dict[str, LadderExpr]:
 
 def _open_quench(run: _Run, memory_limit: int | None) -> WorkflowResult:
     """``[quench]`` of a model with ``[jumps]`` (see :func:`run_quench`)."""
-    from fockmill.dynamics.drive import TimeDependent, piecewise_linear
+    from fockmill.dynamics.drive import TimeDependent
     from fockmill.files.jumps import describe_jumps
     from fockmill.lindblad.evolution import evolve_density
     from fockmill.lindblad.jumps import Jump
-    from fockmill.lindblad.trajectories import sample_trajectories
+    from fockmill.lindblad.trajectories import mean_and_stderr, sample_trajectories
     from fockmill.problem.problem import prepare
     from fockmill.settings.checks import METHODS
     from fockmill.solvers.ground import ground_state
@@ -391,10 +407,7 @@ def _open_quench(run: _Run, memory_limit: int | None) -> WorkflowResult:
     ground_options = {k: v for k, v in solver.items() if k != "threads"}
     if ground_options.get("method") not in METHODS:
         ground_options["method"] = "auto"
-    ramps = {name: piecewise_linear(*table) for name, table in spec.ramps.items()}
-    # Ramped parameters leave the constant part; at t = 0 they take their ramps' values.
-    constant = {**values, **dict.fromkeys(ramps, 0.0)}
-    h = model.hamiltonian(**constant)
+    ramps, h, at_start = _ramped_parts(spec, model, values)
     jumps = [Jump(op, rate, label) for label, op, rate in model.channels(**values)]
     for name in ramps:
         moved = [rate for _l, _o, rate in model.channels(**{**values, name: values[name] + 1.0})]
@@ -413,7 +426,6 @@ def _open_quench(run: _Run, memory_limit: int | None) -> WorkflowResult:
                 problem, [(model.pieces[name], ramps[name]) for name in sorted(ramps)]
             )
         if spec.initial.kind == "ground":
-            at_start = {**values, **{name: f(0.0) for name, f in ramps.items()}}
             start = model.hamiltonian(**{**at_start, **spec.initial.parameters})
             if start == h:
                 ground = ground_state(problem, **ground_options)
@@ -449,12 +461,8 @@ def _open_quench(run: _Run, memory_limit: int | None) -> WorkflowResult:
                 memory_limit=memory_limit,
             )
             series = dict(ev.values)
-            if ramps:  # ⟨H(t)⟩ = ⟨H0⟩ + Σ_k f_k(t) ⟨H_k⟩
-                energy = np.asarray(series["#energy"], dtype=np.float64).copy()
-                for name, f in ramps.items():
-                    c = np.array([f(float(t)) for t in times])
-                    energy += c * np.asarray(series[f"#ramp.{name}"], dtype=np.float64)
-                series["#energy"] = energy
+            if ramps:
+                series["#energy"] = _ramped_energy(series["#energy"], series, ramps, times)
             summary.update(
                 method="DOP853",
                 steps=ev.steps,
@@ -475,18 +483,9 @@ def _open_quench(run: _Run, memory_limit: int | None) -> WorkflowResult:
                 tol=spec.tol,
             )
             series, errors = dict(tr.mean), dict(tr.stderr)
-            if ramps:
-                # ⟨H(t)⟩ per trajectory, then its mean and standard error.
-                energy_samples = np.real(tr.samples["#energy"]).astype(np.float64)
-                for name, f in ramps.items():
-                    c = np.array([f(float(t)) for t in times])
-                    energy_samples = energy_samples + c * np.real(tr.samples[f"#ramp.{name}"])
-                series["#energy"] = energy_samples.mean(axis=0)
-                errors["#energy"] = (
-                    energy_samples.std(axis=0, ddof=1) / np.sqrt(tr.count)
-                    if tr.count > 1
-                    else np.zeros(times.size)
-                )
+            if ramps:  # ⟨H(t)⟩ per trajectory, then its mean and standard error
+                per_trajectory = _ramped_energy(tr.samples["#energy"], tr.samples, ramps, times)
+                series["#energy"], errors["#energy"] = mean_and_stderr(per_trajectory)
             summary.update(
                 method="quantum-jump trajectories",
                 trajectories=tr.count,
@@ -521,9 +520,6 @@ def _open_quench(run: _Run, memory_limit: int | None) -> WorkflowResult:
             arrays[f"errors.{name}"] = np.asarray(values_of)
     settings = {
         **_quench_settings(spec),
-        "ramps": {
-            name: {"times": list(t), "values": list(v)} for name, (t, v) in spec.ramps.items()
-        },
         "jumps": describe_jumps(model, values, model_file.jump_texts),
         "trajectories": spec.trajectories,
         "seed": spec.seed if spec.trajectories is not None else None,
